@@ -1,0 +1,286 @@
+/**
+ * Fixed-radius neighbour index on the sphere.
+ *
+ * Every position becomes a unit vector; two positions are within `radiusMeters` of each other
+ * exactly when the straight chord between their vectors is at most chord(radius), because chord
+ * length grows monotonically with great-circle distance. Vectors are hashed into a 3-D grid whose
+ * cell edge is that chord, so all neighbours of a point lie in its own cell or one of the 26
+ * around it. Nothing special happens at the poles or at ±180°: the grid lives in 3-D space, where
+ * neither exists. Distance tests are three subtractions and three multiplications, no trigonometry.
+ *
+ * Memory is linear in n: coordinates copied in cell order, one cell id per point, and for every
+ * non-empty cell the list of its non-empty neighbour cells (at most 27, usually 9–15 because the
+ * points lie on a 2-D surface). No per-point neighbour list is ever kept.
+ */
+import { chordForMeters, metersForChord2, unitVectors } from './haversine.js';
+import type { PointSet } from './types.js';
+
+/**
+ * Slack added to the radius so that a point at exactly the radius still counts despite
+ * floating-point rounding of the unit vectors (about 1e-9 m at Earth scale). One micrometre.
+ */
+export const RADIUS_TOLERANCE_M = 1e-6;
+
+const EMPTY = -1;
+
+/**
+ * Smallest cell edge on the unit sphere (about 97 m on the ground). Smaller radii share this cell
+ * size, which stays correct (a cell at least as large as the radius still holds every neighbour in
+ * the 27 around it) and keeps the grid's extent below 2^17 cells per axis.
+ */
+const MIN_CELL = 2 / 2 ** 17;
+
+/** Stable counting sort of `order` by `key[order[k]] - min`, keys in 0..range-1. */
+function countingSortBy(order: Int32Array, key: Int32Array, min: number, range: number): Int32Array {
+  const count = new Int32Array(range + 1);
+  const n = order.length;
+  for (let k = 0; k < n; k++) count[key[order[k]] - min + 1]++;
+  for (let r = 0; r < range; r++) count[r + 1] += count[r];
+  const out = new Int32Array(n);
+  for (let k = 0; k < n; k++) {
+    const i = order[k];
+    out[count[key[i] - min]++] = i;
+  }
+  return out;
+}
+
+/** Lexicographic comparison of integer cell coordinates. */
+function compareCell(ax: number, ay: number, az: number, bx: number, by: number, bz: number): number {
+  return ax !== bx ? ax - bx : ay !== by ? ay - by : az - bz;
+}
+
+export class SphereIndex {
+  /** number of indexed points */
+  readonly n: number;
+  /** the radius the index was built for, metres */
+  readonly radiusMeters: number;
+  /** squared chord of radius + tolerance: the inclusive neighbour test */
+  readonly chord2: number;
+  /** unit vectors in input order, stride 3 */
+  readonly xyz: Float64Array;
+
+  private readonly cellSize: number;
+  /** point ids sorted by cell (cells in lexicographic order of their grid coordinates); ascending id within a cell */
+  readonly sorted: Int32Array;
+  /** unit vectors in `sorted` order, stride 3, for cache-friendly scans */
+  private readonly sxyz: Float64Array;
+  /** cell id of each point (input order) */
+  private readonly cellOf: Int32Array;
+  /** cell c holds sorted[cellStart[c] .. cellStart[c+1]) */
+  private readonly cellStart: Int32Array;
+  /** cell c's non-empty neighbour cells (itself included) are nbr[nbrStart[c] .. nbrStart[c+1]) */
+  private readonly nbrStart: Int32Array;
+  private readonly nbr: Int32Array;
+  /** integer grid coordinates per cell, cells in lexicographic order */
+  private readonly cx: Int32Array;
+  private readonly cy: Int32Array;
+  private readonly cz: Int32Array;
+  /** number of non-empty cells */
+  readonly cellCount: number;
+
+  /**
+   * @param points observations (degrees)
+   * @param radiusMeters neighbourhood radius in metres (inclusive), > 0
+   */
+  constructor(points: PointSet, radiusMeters: number) {
+    if (!(radiusMeters > 0) || !Number.isFinite(radiusMeters)) {
+      throw new RangeError(`radius must be a positive number of metres, got ${radiusMeters}`);
+    }
+    const n = points.n;
+    this.n = n;
+    this.radiusMeters = radiusMeters;
+    const chord = chordForMeters(radiusMeters + RADIUS_TOLERANCE_M);
+    this.chord2 = chord * chord;
+    this.cellSize = Math.max(chord, MIN_CELL);
+    const xyz = unitVectors(points.lon, points.lat);
+    this.xyz = xyz;
+
+    // 1. integer grid coordinates of every point
+    const inv = 1 / this.cellSize;
+    const gx = new Int32Array(n);
+    const gy = new Int32Array(n);
+    const gz = new Int32Array(n);
+    let minX = 0, maxX = 0, minY = 0, maxY = 0, minZ = 0, maxZ = 0;
+    for (let i = 0; i < n; i++) {
+      const ix = Math.floor(xyz[3 * i] * inv);
+      const iy = Math.floor(xyz[3 * i + 1] * inv);
+      const iz = Math.floor(xyz[3 * i + 2] * inv);
+      gx[i] = ix;
+      gy[i] = iy;
+      gz[i] = iz;
+      if (i === 0 || ix < minX) minX = ix;
+      if (i === 0 || ix > maxX) maxX = ix;
+      if (i === 0 || iy < minY) minY = iy;
+      if (i === 0 || iy > maxY) maxY = iy;
+      if (i === 0 || iz < minZ) minZ = iz;
+      if (i === 0 || iz > maxZ) maxZ = iz;
+    }
+
+    // 2. LSD radix sort (z, then y, then x; each pass stable): lexicographic cell order, and
+    //    ascending point id inside each cell. Linear time, sequential memory access.
+    let order = new Int32Array(n);
+    for (let i = 0; i < n; i++) order[i] = i;
+    order = countingSortBy(order, gz, minZ, maxZ - minZ + 1);
+    order = countingSortBy(order, gy, minY, maxY - minY + 1);
+    order = countingSortBy(order, gx, minX, maxX - minX + 1);
+
+    // 3. cells are runs of equal coordinates in that order
+    const cellOf = new Int32Array(n);
+    const sxyz = new Float64Array(n * 3);
+    const startBuf = new Int32Array(n + 1);
+    const cxBuf = new Int32Array(n);
+    const cyBuf = new Int32Array(n);
+    const czBuf = new Int32Array(n);
+    let cells = 0;
+    for (let k = 0; k < n; k++) {
+      const i = order[k];
+      if (k === 0 || gx[i] !== cxBuf[cells - 1] || gy[i] !== cyBuf[cells - 1] || gz[i] !== czBuf[cells - 1]) {
+        cxBuf[cells] = gx[i];
+        cyBuf[cells] = gy[i];
+        czBuf[cells] = gz[i];
+        startBuf[cells] = k;
+        cells++;
+      }
+      cellOf[i] = cells - 1;
+      sxyz[3 * k] = xyz[3 * i];
+      sxyz[3 * k + 1] = xyz[3 * i + 1];
+      sxyz[3 * k + 2] = xyz[3 * i + 2];
+    }
+    startBuf[cells] = n;
+    this.cellCount = cells;
+    this.cellStart = startBuf.slice(0, cells + 1);
+    const cx = (this.cx = cxBuf.slice(0, cells));
+    const cy = (this.cy = cyBuf.slice(0, cells));
+    const cz = (this.cz = czBuf.slice(0, cells));
+    this.cellOf = cellOf;
+    this.sorted = order;
+    this.sxyz = sxyz;
+
+    // 4. neighbour cells by a sweep: for each of the 9 (dx, dy) columns keep a cursor into the
+    //    sorted cells. The first cell not before (x+dx, y+dy, z-1) only moves forward as the
+    //    sweep advances, so the whole pass is linear in the number of cells.
+    const nbrStart = new Int32Array(cells + 1);
+    let buf = new Int32Array(Math.max(16, cells * 9));
+    let len = 0;
+    const cursor = new Int32Array(9);
+    for (let c = 0; c < cells; c++) {
+      const x = cx[c], y = cy[c], z = cz[c];
+      let col = 0;
+      for (let dx = -1; dx <= 1; dx++) {
+        for (let dy = -1; dy <= 1; dy++, col++) {
+          const tx = x + dx, ty = y + dy;
+          let p = cursor[col];
+          while (p < cells && compareCell(cx[p], cy[p], cz[p], tx, ty, z - 1) < 0) p++;
+          cursor[col] = p;
+          for (let q = p; q < cells && cx[q] === tx && cy[q] === ty && cz[q] <= z + 1; q++) {
+            if (len === buf.length) {
+              const grown = new Int32Array(buf.length * 2);
+              grown.set(buf);
+              buf = grown;
+            }
+            buf[len++] = q;
+          }
+        }
+      }
+      nbrStart[c + 1] = len;
+    }
+    this.nbrStart = nbrStart;
+    this.nbr = buf.slice(0, len);
+  }
+
+  /** Cell id of grid coordinates by binary search over the sorted cells, or EMPTY. */
+  private lookup(ix: number, iy: number, iz: number): number {
+    let lo = 0;
+    let hi = this.cellCount - 1;
+    while (lo <= hi) {
+      const mid = (lo + hi) >>> 1;
+      const cmp = compareCell(this.cx[mid], this.cy[mid], this.cz[mid], ix, iy, iz);
+      if (cmp === 0) return mid;
+      if (cmp < 0) lo = mid + 1;
+      else hi = mid - 1;
+    }
+    return EMPTY;
+  }
+
+  /**
+   * Calls `fn(j, chord2)` for every indexed point j within the radius of point i (i itself
+   * included), in no particular but deterministic order. `chord2` is the squared chord on the
+   * unit sphere; `metersForChord2` turns it into metres.
+   */
+  forEachWithin(i: number, fn: (j: number, chord2: number) => void): void {
+    const x = this.xyz[3 * i];
+    const y = this.xyz[3 * i + 1];
+    const z = this.xyz[3 * i + 2];
+    this.scan(this.cellOf[i], x, y, z, fn);
+  }
+
+  /**
+   * Sums the weights (1 each when `weight` is null) of all points within the radius of point i,
+   * itself included. The hot loop of DBSCAN's core test.
+   */
+  weightWithin(i: number, weight: Float64Array | null): number {
+    const x = this.xyz[3 * i];
+    const y = this.xyz[3 * i + 1];
+    const z = this.xyz[3 * i + 2];
+    const c = this.cellOf[i];
+    const r2 = this.chord2;
+    const sxyz = this.sxyz;
+    const sorted = this.sorted;
+    let sum = 0;
+    for (let a = this.nbrStart[c], aEnd = this.nbrStart[c + 1]; a < aEnd; a++) {
+      const d = this.nbr[a];
+      for (let k = this.cellStart[d], kEnd = this.cellStart[d + 1]; k < kEnd; k++) {
+        const dx = sxyz[3 * k] - x;
+        const dy = sxyz[3 * k + 1] - y;
+        const dz = sxyz[3 * k + 2] - z;
+        if (dx * dx + dy * dy + dz * dz <= r2) sum += weight === null ? 1 : weight[sorted[k]];
+      }
+    }
+    return sum;
+  }
+
+  /**
+   * Calls `fn(j, chord2)` for every indexed point within the radius of an arbitrary position
+   * (degrees), for example a new observation checked against stored hotspots.
+   */
+  forEachNear(lon: number, lat: number, fn: (j: number, chord2: number) => void): void {
+    const v = unitVectors(Float64Array.of(lon), Float64Array.of(lat));
+    const inv = 1 / this.cellSize;
+    const ix = Math.floor(v[0] * inv);
+    const iy = Math.floor(v[1] * inv);
+    const iz = Math.floor(v[2] * inv);
+    for (let dx = -1; dx <= 1; dx++) {
+      for (let dy = -1; dy <= 1; dy++) {
+        for (let dz = -1; dz <= 1; dz++) {
+          const d = this.lookup(ix + dx, iy + dy, iz + dz);
+          if (d !== EMPTY) this.scanCell(d, v[0], v[1], v[2], fn);
+        }
+      }
+    }
+  }
+
+  private scan(c: number, x: number, y: number, z: number, fn: (j: number, chord2: number) => void): void {
+    for (let a = this.nbrStart[c], aEnd = this.nbrStart[c + 1]; a < aEnd; a++) this.scanCell(this.nbr[a], x, y, z, fn);
+  }
+
+  private scanCell(d: number, x: number, y: number, z: number, fn: (j: number, chord2: number) => void): void {
+    const r2 = this.chord2;
+    const sxyz = this.sxyz;
+    for (let k = this.cellStart[d], kEnd = this.cellStart[d + 1]; k < kEnd; k++) {
+      const dx = sxyz[3 * k] - x;
+      const dy = sxyz[3 * k + 1] - y;
+      const dz = sxyz[3 * k + 2] - z;
+      const d2 = dx * dx + dy * dy + dz * dz;
+      if (d2 <= r2) fn(this.sorted[k], d2);
+    }
+  }
+
+  /** Ground distance in metres between indexed points i and j. */
+  metersBetween(i: number, j: number): number {
+    const xyz = this.xyz;
+    const dx = xyz[3 * i] - xyz[3 * j];
+    const dy = xyz[3 * i + 1] - xyz[3 * j + 1];
+    const dz = xyz[3 * i + 2] - xyz[3 * j + 2];
+    return metersForChord2(dx * dx + dy * dy + dz * dz);
+  }
+}
