@@ -1,0 +1,214 @@
+/**
+ * The `roost` command line: the same work as the HTTP service, on files.
+ *
+ *   roost cluster <input> --eps <metres> --min-points <n> --out-dir <dir> [options]
+ *   roost suggest-eps <input> --min-points <n>
+ *   roost serve [options]
+ */
+import { readFile } from 'node:fs/promises';
+import { Command, Option } from 'commander';
+import { InputError } from '../ingest/types.js';
+import { clusterInput, suggestEpsInput, type InputFormat, type Stage } from '../run/cluster.js';
+import { resolveSettings, SettingsError } from '../run/settings.js';
+import { ROOST_VERSION } from '../run/version.js';
+import { writeResultFolder } from './output.js';
+
+/** Exit codes: 0 done, 1 unexpected failure, 2 bad usage or settings, 3 bad input data. */
+export const EXIT = { ok: 0, failure: 1, usage: 2, input: 3 } as const;
+
+async function readInput(path: string): Promise<Buffer> {
+  if (path === '-') {
+    const chunks: Buffer[] = [];
+    for await (const chunk of process.stdin) chunks.push(chunk as Buffer);
+    return Buffer.concat(chunks);
+  }
+  return readFile(path);
+}
+
+function formatFromPath(path: string, explicit: string | undefined): InputFormat | undefined {
+  if (explicit) return explicit as InputFormat;
+  if (/\.csv$/i.test(path)) return 'csv';
+  if (/\.(geojsons|geojsonl|geojsonseq|ndjson|jsonl)$/i.test(path)) return 'geojson-seq';
+  if (/\.(geo)?json$/i.test(path)) return 'geojson';
+  return undefined;
+}
+
+/** Progress on stderr, only for inputs large enough to make someone wait, and only on a terminal or when asked. */
+function progressReporter(enabled: boolean): (stage: Stage, done: number) => void {
+  let last = 0;
+  return (stage, done) => {
+    if (!enabled) return;
+    const now = Date.now();
+    if (done > 0 && done < 1 && now - last < 500) return;
+    last = now;
+    process.stderr.write(`roost: ${stage}${done > 0 ? ` ${Math.round(done * 100)}%` : ''}\n`);
+  };
+}
+
+function settingsFromFlags(opts: Record<string, unknown>): Record<string, unknown> {
+  return {
+    method: opts.method,
+    eps: opts.eps,
+    min_points: opts.minPoints,
+    weight: opts.weight,
+    hull: opts.hull,
+    concavity: opts.concavity,
+    since: opts.since,
+    until: opts.until,
+    where: opts.where,
+    count_by: opts.countBy,
+    optics_max_eps: opts.opticsMaxEps,
+    optics_extraction: opts.opticsExtraction,
+    xi: opts.xi,
+    min_cluster_size: opts.minClusterSize,
+    lon_column: opts.lonColumn,
+    lat_column: opts.latColumn,
+  };
+}
+
+function fail(err: unknown): number {
+  if (err instanceof InputError) {
+    process.stderr.write(`roost: bad input: ${err.message}\n`);
+    for (const p of err.problems.slice(0, 20)) {
+      const where = p.index === null ? 'input' : `feature ${p.index}${p.id !== undefined ? ` (id ${JSON.stringify(p.id)})` : ''}`;
+      process.stderr.write(`  ${where}: ${p.message} [${p.code}]\n`);
+    }
+    if (err.total > 20) process.stderr.write(`  … ${err.total - 20} more problem(s)\n`);
+    process.stderr.write('roost: nothing was written\n');
+    return EXIT.input;
+  }
+  if (err instanceof SettingsError) {
+    process.stderr.write(`roost: ${err.message}\nroost: nothing was written\n`);
+    return EXIT.usage;
+  }
+  const e = err as NodeJS.ErrnoException;
+  if (e && e.code === 'ENOENT' && e.path) {
+    process.stderr.write(`roost: cannot read ${e.path}: no such file\n`);
+    return EXIT.usage;
+  }
+  process.stderr.write(`roost: ${e?.stack ?? String(err)}\nroost: nothing was written\n`);
+  return EXIT.failure;
+}
+
+const collect = (value: string, previous: string[] = []): string[] => [...previous, value];
+
+/** Builds the command tree; `run` is the testable entry point. */
+export function buildProgram(setExit: (code: number) => void): Command {
+  const program = new Command('roost')
+    .description('Find where point observations gather: density-based hotspots on the sphere, as GeoJSON.')
+    .version(ROOST_VERSION)
+    .showHelpAfterError()
+    .exitOverride();
+
+  const common = (cmd: Command) =>
+    cmd
+      .addOption(new Option('--format <format>', 'input format (default: from the file name, else sniffed)').choices(['geojson', 'csv', 'geojson-seq']))
+      .option('--min-points <n>', 'observations within eps (the point itself included) that make a core point', '5')
+      .option('--weight <property>', 'numeric property holding each observation\'s weight (e.g. animals seen)')
+      .option('--since <time>', 'keep observations observed at or after this RFC 3339 time')
+      .option('--until <time>', 'keep observations observed before this RFC 3339 time')
+      .option('--where <property=value>', 'keep observations whose property equals value (repeatable)', collect)
+      .option('--lon-column <name>', 'CSV longitude column (default: found by common names)')
+      .option('--lat-column <name>', 'CSV latitude column (default: found by common names)')
+      .option('--progress', 'report progress on stderr even when it is not a terminal');
+
+  common(
+    program
+      .command('cluster')
+      .description('cluster observations and write hotspots.geojson, centres.geojson, noise.geojson, points.geojson and summary.json')
+      .argument('<input>', 'GeoJSON FeatureCollection, CSV with longitude/latitude columns, GeoJSON text sequence, or - for stdin'),
+  )
+    .requiredOption('--eps <metres>', 'neighbourhood radius in metres (inclusive), or auto for the k-distance knee')
+    .requiredOption('--out-dir <dir>', 'result folder (replaced atomically)')
+    .addOption(new Option('--method <method>', 'clustering method').choices(['dbscan', 'optics']).default('dbscan'))
+    .addOption(new Option('--hull <kind>', 'hull shape').choices(['convex', 'concave']).default('convex'))
+    .option('--concavity <n>', 'concave hull tightness (smaller is tighter)')
+    .option('--count-by <property>', 'count the values of this property per hotspot')
+    .option('--optics-max-eps <metres>', 'OPTICS: largest radius searched (default 3 × eps)')
+    .addOption(new Option('--optics-extraction <how>', 'OPTICS: cut hotspots at eps or by the ξ method').choices(['eps', 'xi']))
+    .option('--xi <x>', 'OPTICS ξ: relative reachability drop bounding a hotspot (default 0.05)')
+    .option('--min-cluster-size <n>', 'OPTICS ξ: fewest observations in a hotspot (default min-points)')
+    .action(async (input: string, opts: Record<string, unknown>) => {
+      try {
+        const settings = resolveSettings(settingsFromFlags(opts));
+        const data = await readInput(input);
+        const showProgress = Boolean(opts.progress) || (process.stderr.isTTY && data.length > 5_000_000);
+        const onProgress = progressReporter(showProgress);
+        const t0 = performance.now();
+        const result = clusterInput(data, formatFromPath(input, opts.format as string | undefined), settings, { onProgress });
+        onProgress('write', 0);
+        const tWrite = performance.now();
+        const files = {
+          'hotspots.geojson': result.layers.hotspots,
+          'centres.geojson': result.layers.centres,
+          'noise.geojson': result.layers.noise,
+          'points.geojson': result.layers.points,
+        };
+        const timings = result.summary.timings_ms as Record<string, number>;
+        // summary.json is written last so that its write stage includes the other files.
+        await writeResultFolder(String(opts.outDir), [
+          ...Object.entries(files),
+          [
+            'summary.json',
+            () => {
+              timings.write = Math.round(((timings.write ?? 0) + performance.now() - tWrite) * 10) / 10;
+              timings.total = Math.round((performance.now() - t0) * 10) / 10;
+              return JSON.stringify(result.summary, null, 2) + '\n';
+            },
+          ],
+        ]);
+        const f = result.summary.figures as { hotspots: number; clustered: number; noise: number };
+        process.stderr.write(`roost: ${f.hotspots} hotspot(s), ${f.clustered} clustered, ${f.noise} noise → ${String(opts.outDir)}\n`);
+        setExit(EXIT.ok);
+      } catch (err) {
+        setExit(fail(err));
+      }
+    });
+
+  common(
+    program
+      .command('suggest-eps')
+      .description('print the k-distance curve (k = min-points − 1) and its knee, a suggested eps in metres')
+      .argument('<input>', 'GeoJSON, CSV or GeoJSON text sequence file, or - for stdin'),
+  )
+    .option('--json', 'print the whole answer as JSON')
+    .action(async (input: string, opts: Record<string, unknown>) => {
+      try {
+        const settings = resolveSettings({ ...settingsFromFlags(opts), eps: 'auto' });
+        const data = await readInput(input);
+        const answer = suggestEpsInput(data, formatFromPath(input, opts.format as string | undefined), settings);
+        if (opts.json) {
+          process.stdout.write(JSON.stringify(answer, null, 2) + '\n');
+        } else {
+          const curve = answer.curve as { rank: number[]; meters: number[] };
+          process.stdout.write(
+            `k-distance curve, k = ${String(answer.k)} (min-points ${String(answer.min_points)}), ${String(answer.sampled)} of ${String(answer.observations)} observations\n`,
+          );
+          process.stdout.write(answer.eps_meters === null ? `no knee found: ${String(answer.message)}\n` : `suggested eps: ${String(answer.eps_meters)} m (${String(answer.message)})\n`);
+          const warnings = (answer.warnings as { message: string }[] | undefined) ?? [];
+          for (const w of warnings) process.stdout.write(`warning: ${w.message}\n`);
+          process.stdout.write('rank\tmetres\n');
+          for (let i = 0; i < curve.rank.length; i++) process.stdout.write(`${curve.rank[i]}\t${curve.meters[i]}\n`);
+        }
+        setExit(EXIT.ok);
+      } catch (err) {
+        setExit(fail(err));
+      }
+    });
+
+  return program;
+}
+
+/** Runs the command line with `argv` (without node and script); resolves to the exit code. */
+export async function run(argv: string[]): Promise<number> {
+  let code: number = EXIT.ok;
+  const program = buildProgram((c) => (code = c));
+  try {
+    await program.parseAsync(argv, { from: 'user' });
+  } catch (err) {
+    const e = err as { code?: string; exitCode?: number };
+    if (e.code === 'commander.helpDisplayed' || e.code === 'commander.version' || e.code === 'commander.help') return EXIT.ok;
+    return e.exitCode === 0 ? EXIT.ok : EXIT.usage;
+  }
+  return code;
+}

@@ -1,0 +1,42 @@
+/**
+ * Atomic result folders: everything is written into a fresh temporary folder beside the target,
+ * then renamed into place, so a failed or interrupted run never leaves a half-written result.
+ */
+import { mkdir, rename, rm, writeFile } from 'node:fs/promises';
+import { basename, dirname, join, resolve } from 'node:path';
+
+/**
+ * Writes `files` (name and content, in order; content may be computed at its turn) as the folder
+ * `outDir`, replacing an earlier result there.
+ * @param outDir target folder; its parent is created when missing
+ */
+export async function writeResultFolder(outDir: string, files: [string, string | (() => string)][]): Promise<void> {
+  const target = resolve(outDir);
+  const parent = dirname(target);
+  await mkdir(parent, { recursive: true });
+  const tag = `${process.pid}-${Date.now().toString(36)}`;
+  const tmp = join(parent, `.${basename(target)}.tmp-${tag}`);
+  const old = join(parent, `.${basename(target)}.old-${tag}`);
+  await mkdir(tmp);
+  try {
+    for (const [name, content] of files) await writeFile(join(tmp, name), typeof content === 'function' ? content() : content);
+    // Move an earlier result aside first: rename() cannot replace a non-empty folder.
+    let hadOld = false;
+    try {
+      await rename(target, old);
+      hadOld = true;
+    } catch (err) {
+      if ((err as NodeJS.ErrnoException).code !== 'ENOENT') throw err;
+    }
+    try {
+      await rename(tmp, target);
+    } catch (err) {
+      if (hadOld) await rename(old, target);
+      throw err;
+    }
+    if (hadOld) await rm(old, { recursive: true, force: true });
+  } catch (err) {
+    await rm(tmp, { recursive: true, force: true });
+    throw err;
+  }
+}

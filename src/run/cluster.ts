@@ -1,0 +1,306 @@
+/**
+ * The whole job on one input: read, filter, index, cluster, figures, GeoJSON layers. The command
+ * line and the HTTP service both call `clusterInput`, so the same input and settings give the same
+ * bytes everywhere.
+ */
+import { dbscan } from '../core/dbscan.js';
+import { suggestEps } from '../core/kdistance.js';
+import { extractDbscan, extractXi, optics } from '../core/optics.js';
+import { SphereIndex } from '../core/sphere-index.js';
+import { ROLE_CORE, ROLE_NAMES, type Clustering, type PointSet } from '../core/types.js';
+import { clusteringWarnings } from '../core/warnings.js';
+import { geometryAreaKm2 } from '../geometry/area.js';
+import { clarkEvans, nearestNeighbourMeters } from '../geometry/clark-evans.js';
+import { hotspotFigures, resultFigures, type HotspotFigures } from '../geometry/figures.js';
+import { bboxOf, featureCollectionString, featureString } from '../geometry/geojson.js';
+import { hotspotHull, type HullGeometry } from '../geometry/hull.js';
+import { applyFilter } from '../ingest/filter.js';
+import { readObservations, type InputFormat } from '../ingest/read.js';
+import type { InputFeature, Observations } from '../ingest/types.js';
+import { CAUTIONS } from './cautions.js';
+import { SettingsError, settingsRecord, type ClusterSettings } from './settings.js';
+import { ROOST_VERSION } from './version.js';
+
+export type { InputFormat };
+
+/** The stages timed in every summary, in order. */
+export const STAGES = ['read', 'index', 'cluster', 'figures', 'write'] as const;
+export type Stage = (typeof STAGES)[number];
+
+export interface ClusterResult {
+  /** figures, parameters, version, warnings, cautions and per-stage timings */
+  summary: Record<string, unknown>;
+  /** GeoJSON FeatureCollection texts, byte-identical for the same input and settings */
+  layers: { hotspots: string; centres: string; noise: string; points: string };
+}
+
+export interface ClusterHooks {
+  /** called at the start of each stage (done = 0) and now and then within long stages */
+  onProgress?: (stage: Stage, done: number) => void;
+  /** aborts between stages and within long loops */
+  signal?: AbortSignal;
+}
+
+const round = (x: number, decimals: number): number => {
+  const f = 10 ** decimals;
+  const r = Math.round(x * f) / f;
+  return r === 0 ? 0 : r;
+};
+
+class Timer {
+  readonly ms: Record<string, number> = {};
+  private t = performance.now();
+  private current: Stage | null = null;
+  constructor(private readonly hooks: ClusterHooks) {}
+  start(stage: Stage): void {
+    this.stop();
+    this.hooks.signal?.throwIfAborted();
+    this.current = stage;
+    this.t = performance.now();
+    this.hooks.onProgress?.(stage, 0);
+  }
+  stop(): void {
+    if (this.current) this.ms[this.current] = round((this.ms[this.current] ?? 0) + performance.now() - this.t, 1);
+    this.current = null;
+  }
+}
+
+/** Picks eps when the settings ask for `auto`: the knee of the k-distance curve. */
+function resolveEps(points: PointSet, settings: ClusterSettings): number {
+  if (!settings.epsAuto) return settings.epsMeters;
+  const suggestion = suggestEps(points, Math.max(2, settings.minPoints));
+  if (suggestion.epsMeters === null) {
+    throw new SettingsError('eps', `auto found no knee in the k-distance curve (${suggestion.message}); give eps in metres`);
+  }
+  return suggestion.epsMeters;
+}
+
+function runMethod(points: PointSet, index: SphereIndex, epsMeters: number, settings: ClusterSettings, progress: (d: number) => void): Clustering {
+  if (settings.method === 'dbscan') {
+    return dbscan(points, { epsMeters, minPoints: settings.minPoints, index, onProgress: progress });
+  }
+  const maxEps = settings.opticsMaxEpsMeters ?? 3 * epsMeters;
+  const ordering = optics(points, { maxEpsMeters: maxEps, minPoints: settings.minPoints, onProgress: progress });
+  if (settings.opticsExtraction === 'eps') return extractDbscan(ordering, Math.min(epsMeters, maxEps));
+  return extractXi(ordering, { xi: settings.xi, minClusterSize: settings.minClusterSize ?? settings.minPoints }).clustering;
+}
+
+/** Members of every hotspot as one CSR layout: hotspot h owns members[start[h] .. start[h+1]). */
+function membersByHotspot(c: Clustering): { start: Int32Array; members: Int32Array } {
+  const start = new Int32Array(c.count + 1);
+  for (let i = 0; i < c.labels.length; i++) if (c.labels[i] >= 0) start[c.labels[i] + 1]++;
+  for (let h = 0; h < c.count; h++) start[h + 1] += start[h];
+  const fill = start.slice(0, c.count);
+  const members = new Int32Array(start[c.count]);
+  for (let i = 0; i < c.labels.length; i++) if (c.labels[i] >= 0) members[fill[c.labels[i]]++] = i;
+  return { start, members };
+}
+
+function categoryValues(features: InputFeature[], property: string): (string | null)[] {
+  const out = new Array<string | null>(features.length);
+  for (let i = 0; i < features.length; i++) {
+    const v = features[i].properties?.[property];
+    out[i] = v === undefined || v === null ? null : String(v);
+  }
+  return out;
+}
+
+function hotspotProperties(f: HotspotFigures, features: InputFeature[]): Record<string, unknown> {
+  const medoid = features[f.medoid];
+  return {
+    hotspot_id: f.hotspot + 1,
+    count: f.count,
+    core_count: f.coreCount,
+    border_count: f.borderCount,
+    weight: round(f.weight, 6),
+    area_km2: round(f.areaKm2, 6),
+    density_per_km2: round(f.densityPerKm2, 3),
+    weight_density_per_km2: round(f.weightDensityPerKm2, 3),
+    radius_m: round(f.radiusMeters, 1),
+    centre: [round(f.centre[0], 7), round(f.centre[1], 7)],
+    medoid_id: medoid.id ?? f.medoid,
+    first_observed_at: f.firstObservedAt,
+    last_observed_at: f.lastObservedAt,
+    ...(f.categories ? { categories: f.categories } : {}),
+  };
+}
+
+/** The point feature written for an input observation in the points and noise layers. */
+function pointFeature(f: InputFeature, hotspot: number, role: number): string {
+  return featureString(
+    { type: 'Point', coordinates: f.geometry.coordinates },
+    { ...(f.properties ?? {}), hotspot_id: hotspot >= 0 ? hotspot + 1 : null, role: ROLE_NAMES[role] },
+    f.id,
+  );
+}
+
+/**
+ * Clusters observations already read. `inputInfo` lands in the summary (format, counts).
+ */
+export function clusterObservations(
+  all: Observations,
+  settings: ClusterSettings,
+  hooks: ClusterHooks = {},
+  timer: Timer = new Timer(hooks),
+  inputInfo: Record<string, unknown> = {},
+): ClusterResult {
+  const filtered = applyFilter(all, { since: settings.since, until: settings.until, where: settings.where });
+  const obs = filtered.observations;
+  const { points, features } = obs;
+
+  timer.start('index');
+  const epsMeters = resolveEps(points, settings);
+  const index = new SphereIndex(points, epsMeters);
+
+  timer.start('cluster');
+  const clustering = runMethod(points, index, epsMeters, settings, (d) => hooks.onProgress?.('cluster', d));
+
+  timer.start('figures');
+  const { start, members } = membersByHotspot(clustering);
+  const hulls: HullGeometry[] = [];
+  const areaKm2 = new Float64Array(clustering.count);
+  const lonBuf = new Float64Array(members.length);
+  const latBuf = new Float64Array(members.length);
+  for (let h = 0; h < clustering.count; h++) {
+    const a = start[h];
+    const b = start[h + 1];
+    for (let k = a; k < b; k++) {
+      lonBuf[k] = points.lon[members[k]];
+      latBuf[k] = points.lat[members[k]];
+    }
+    const hull = hotspotHull(lonBuf.subarray(a, b), latBuf.subarray(a, b), {
+      kind: settings.hull,
+      concavity: settings.concavity,
+      bufferMeters: epsMeters / 2,
+    });
+    hulls.push(hull);
+    areaKm2[h] = geometryAreaKm2(hull);
+  }
+  const figures = hotspotFigures(points, clustering, {
+    areaKm2,
+    observedAt: obs.observedAt,
+    category: settings.countBy ? categoryValues(features, settings.countBy) : null,
+  });
+
+  // Clark–Evans over the convex hull of all observations (the stated study area).
+  let studyAreaKm2: number | null = null;
+  let studyAreaNote = 'convex hull of all observations';
+  if (points.n >= 3) {
+    try {
+      studyAreaKm2 = geometryAreaKm2(hotspotHull(points.lon, points.lat, { kind: 'convex', bufferMeters: epsMeters / 2 }));
+    } catch (err) {
+      studyAreaNote = `not computed: ${(err as Error).message}`;
+    }
+  }
+  const nearest = points.n >= 2 && studyAreaKm2 ? nearestNeighbourMeters(points, index) : undefined;
+  const whole = resultFigures(points, clustering, { studyAreaKm2, nearest });
+
+  timer.start('write');
+  const hotspotFeatures: string[] = [];
+  const centreFeatures: string[] = [];
+  for (let h = 0; h < clustering.count; h++) {
+    const props = hotspotProperties(figures[h], features);
+    hotspotFeatures.push(featureString(hulls[h], props, h + 1));
+    centreFeatures.push(featureString({ type: 'Point', coordinates: figures[h].centre }, props, h + 1));
+  }
+  const pointStrings = new Array<string>(points.n);
+  const noiseStrings: string[] = [];
+  for (let i = 0; i < points.n; i++) {
+    const s = pointFeature(features[i], clustering.labels[i], clustering.roles[i]);
+    pointStrings[i] = s;
+    if (clustering.labels[i] < 0) noiseStrings.push(s);
+  }
+  const noiseIdx: number[] = [];
+  for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseIdx.push(i);
+  const allIdx = Array.from({ length: points.n }, (_, i) => i);
+  const layers = {
+    hotspots: featureCollectionString(hotspotFeatures, bboxOf(hulls)),
+    centres: featureCollectionString(centreFeatures, bboxOf(figures.map((f) => ({ type: 'Point' as const, coordinates: f.centre })))),
+    noise: featureCollectionString(noiseStrings, bboxOf(noiseIdx.map((i) => features[i].geometry))),
+    points: featureCollectionString(pointStrings, bboxOf(allIdx.map((i) => features[i].geometry))),
+  };
+  timer.stop();
+
+  let core = 0;
+  for (let i = 0; i < points.n; i++) if (clustering.roles[i] === ROLE_CORE) core++;
+  const summary: Record<string, unknown> = {
+    roost_version: ROOST_VERSION,
+    parameters: { ...settingsRecord(settings), eps: epsMeters, eps_auto: settings.epsAuto },
+    input: { ...inputInfo, observations: all.points.n, kept: points.n, left_out_by_filter: all.points.n - points.n, ...filtered.info },
+    figures: {
+      hotspots: whole.hotspots,
+      observations: whole.observations,
+      clustered: whole.clustered,
+      noise: whole.noise,
+      core,
+      clustered_share: round(whole.clusteredShare, 6),
+      noise_share: round(whole.noiseShare, 6),
+      total_weight: round(whole.totalWeight, 6),
+      clark_evans: whole.clarkEvans
+        ? {
+            R: round(whole.clarkEvans.R, 6),
+            z: round(whole.clarkEvans.z, 4),
+            observed_mean_nn_m: round(whole.clarkEvans.observedMeanMeters, 3),
+            expected_mean_nn_m: round(whole.clarkEvans.expectedMeanMeters, 3),
+            reading: whole.clarkEvans.reading,
+            study_area_km2: round(whole.clarkEvans.studyAreaKm2, 6),
+            study_area: studyAreaNote,
+          }
+        : null,
+    },
+    hotspots: figures.map((f) => hotspotProperties(f, features)),
+    warnings: clusteringWarnings(clustering),
+    cautions: CAUTIONS,
+    timings_ms: timer.ms,
+  };
+  return { summary, layers };
+}
+
+/**
+ * Reads and clusters one input. Throws InputError (per-feature problems) for bad observations
+ * and SettingsError for settings that do not fit the data; never returns a partial result.
+ */
+export function clusterInput(
+  input: Buffer | string,
+  format: InputFormat | undefined,
+  settings: ClusterSettings,
+  hooks: ClusterHooks = {},
+): ClusterResult {
+  const timer = new Timer(hooks);
+  timer.start('read');
+  const obs = readObservations(input, {
+    format,
+    weightProperty: settings.weightProperty,
+    lonColumn: settings.lonColumn ?? undefined,
+    latColumn: settings.latColumn ?? undefined,
+  });
+  return clusterObservations(obs, settings, hooks, timer, { format: format ?? 'detected' });
+}
+
+/** The JSON document POST /v1/cluster returns, built from the layer texts without re-parsing. */
+export function resultDocument(result: ClusterResult): string {
+  return `{"summary":${JSON.stringify(result.summary)},"hotspots":${result.layers.hotspots},"centres":${result.layers.centres},"noise":${result.layers.noise}}`;
+}
+
+/** The k-distance curve and suggested eps for one input. */
+export function suggestEpsInput(input: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings): Record<string, unknown> {
+  const obs = readObservations(input, {
+    format,
+    weightProperty: settings.weightProperty,
+    lonColumn: settings.lonColumn ?? undefined,
+    latColumn: settings.latColumn ?? undefined,
+  });
+  const { observations } = applyFilter(obs, { since: settings.since, until: settings.until, where: settings.where });
+  const minPoints = Math.max(2, settings.minPoints);
+  const s = suggestEps(observations.points, minPoints);
+  return {
+    min_points: minPoints,
+    k: s.k,
+    observations: s.total,
+    sampled: s.sampled,
+    eps_meters: s.epsMeters === null ? null : round(s.epsMeters, 1),
+    knee_index: s.kneeIndex,
+    message: s.message,
+    curve: { rank: s.curve.rank, meters: s.curve.meters.map((m) => round(m, 2)) },
+  };
+}
