@@ -62,15 +62,20 @@ export class SphereIndex {
   private readonly cellSize: number;
   /** point ids sorted by cell (cells in lexicographic order of their grid coordinates); ascending id within a cell */
   readonly sorted: Int32Array;
+  /*
+   * The grid itself, exposed read-only for the tight loops of the clustering passes (they work
+   * in sorted-position space, where neighbouring points sit close together in memory). A
+   * "position" k is an index into `sorted`; point sorted[k] has its unit vector at sxyz[3k..3k+2].
+   */
   /** unit vectors in `sorted` order, stride 3, for cache-friendly scans */
-  private readonly sxyz: Float64Array;
+  readonly sxyz: Float64Array;
   /** cell id of each point (input order) */
-  private readonly cellOf: Int32Array;
-  /** cell c holds sorted[cellStart[c] .. cellStart[c+1]) */
-  private readonly cellStart: Int32Array;
-  /** cell c's non-empty neighbour cells (itself included) are nbr[nbrStart[c] .. nbrStart[c+1]) */
-  private readonly nbrStart: Int32Array;
-  private readonly nbr: Int32Array;
+  readonly cellOf: Int32Array;
+  /** cell c holds the positions cellStart[c] .. cellStart[c+1]-1 */
+  readonly cellStart: Int32Array;
+  /** cell c's non-empty neighbour cells (itself included), ascending, are nbr[nbrStart[c] .. nbrStart[c+1]) */
+  readonly nbrStart: Int32Array;
+  readonly nbr: Int32Array;
   /** integer grid coordinates per cell, cells in lexicographic order */
   private readonly cx: Int32Array;
   private readonly cy: Int32Array;
