@@ -1,4 +1,5 @@
 import { describe, expect, it } from 'vitest';
+import { dbscan } from '../../src/core/dbscan.js';
 import { haversineMeters } from '../../src/core/haversine.js';
 import { extractDbscan, extractXi, optics, type OpticsResult } from '../../src/core/optics.js';
 import { RADIUS_TOLERANCE_M } from '../../src/core/sphere-index.js';
@@ -207,6 +208,13 @@ describe('extractDbscan', () => {
         else labelOfRoot.set(root, c.labels[i]);
       }
       expect(new Set(labelOfRoot.values()).size).toBe(labelOfRoot.size);
+      // and the product's own dbscan: same core points with the same hotspot numbers, same count
+      const d = dbscan(p, { epsMeters: eps, minPoints });
+      expect(d.count).toBe(c.count);
+      for (let i = 0; i < p.n; i++) {
+        expect(c.roles[i] === ROLE_CORE).toBe(d.roles[i] === ROLE_CORE);
+        if (d.roles[i] === ROLE_CORE) expect(c.labels[i]).toBe(d.labels[i]);
+      }
       expect(c.count).toBe(labelOfRoot.size);
       // numbering by the lowest core id, as dbscan numbers its hotspots
       const byLowest = [...lowestCoreOfRoot.entries()].sort((a, b) => a[1] - b[1]);
