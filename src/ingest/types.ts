@@ -40,7 +40,9 @@ export class InputError extends Error {
   readonly total: number;
   constructor(problems: InputProblem[], total = problems.length) {
     const first = problems[0];
-    const where = first && first.index !== null ? `feature ${first.index}${first.id !== undefined ? ` (id ${JSON.stringify(first.id)})` : ''}: ` : '';
+    // Messages that already name their item ("feature 3 …", "row 3 (line 5) …") are not prefixed again.
+    const named = first !== undefined && /^(feature|row|record) \d/.test(first.message);
+    const where = first && first.index !== null && !named ? `feature ${first.index}${first.id !== undefined ? ` (id ${JSON.stringify(first.id)})` : ''}: ` : '';
     const more = total > 1 ? ` (and ${total - 1} more problem${total > 2 ? 's' : ''})` : '';
     super(`${where}${first ? first.message : 'invalid input'}${more}`);
     this.name = 'InputError';

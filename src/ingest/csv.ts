@@ -1,0 +1,187 @@
+/**
+ * CSV reader: a header row, then one observation per row, parsed with `csv-parse` (RFC 4180
+ * quoting, CRLF or LF, a leading byte-order mark ignored).
+ *
+ * - The delimiter is `,` unless the header line has more `;`, tabs or `|` (outside quotes).
+ * - Longitude and latitude come from the columns named in the options, or else from the first
+ *   header matching (case-insensitive, spaces trimmed) `longitude, lon, lng, long, x` and
+ *   `latitude, lat, y`. Numbers use a decimal point (`12.5`, not `12,5`).
+ * - Rows become GeoJSON Point features. A column named `id` (any case) becomes the feature id, a
+ *   string as written; empty means no id. Every other column except the two position columns
+ *   becomes a property holding the cell text as written — only the weight column is turned into
+ *   a number, because nothing else in the product needs numbers and guessing types loses
+ *   leading zeros and codes like "007".
+ * - `observed_at` (any case) is read like the GeoJSON property; an empty cell means no time.
+ * - Blank lines are skipped. Problems name the 0-based data row and its line in the file.
+ */
+import { parse } from 'csv-parse/sync';
+import type { InputFeature, Observations } from './types.js';
+import { ProblemList, TIME_PROPERTY, fail, parseDecimal, parseTimestamp, rangeProblem, timeMessage, weightMessage } from './checks.js';
+import { propertyListMessage } from './geojson.js';
+
+/** Header names recognised for the position columns, in order of preference. */
+export const LONGITUDE_HEADERS = ['longitude', 'lon', 'lng', 'long', 'x'] as const;
+export const LATITUDE_HEADERS = ['latitude', 'lat', 'y'] as const;
+
+export interface CsvOptions {
+  weightProperty: string | null;
+  lonColumn?: string;
+  latColumn?: string;
+  /** field delimiter, one character; sniffed from the header line when absent */
+  delimiter?: string;
+  maxProblems: number;
+  maxFeatures: number;
+}
+
+/** Reads CSV text with a header row into Observations. Throws InputError; never returns part of the input. */
+export function readCsv(text: string, options: CsvOptions): Observations {
+  const delimiter = options.delimiter ?? sniffDelimiter(text);
+  let records: { record: string[]; info: { lines: number; empty_lines: number } }[];
+  try {
+    records = parse(text, { delimiter, bom: true, info: true, relax_column_count: true, skip_empty_lines: true }) as unknown as typeof records;
+  } catch (err) {
+    const e = err as { message?: string; lines?: number };
+    fail('malformed-csv', `the CSV cannot be read near line ${e.lines ?? '?'}: ${e.message ?? String(err)}; check the quoting (a quote inside a quoted field is written "")`);
+  }
+  if (records.length === 0) fail('empty-input', 'the CSV is empty; send a header row and at least one data row');
+
+  const header = (records[0] as (typeof records)[number]).record.map((h, k) => (h.trim() === '' ? `column_${k + 1}` : h.trim()));
+  const lower = header.map((h) => h.toLowerCase());
+  const problems = new ProblemList(options.maxProblems);
+
+  const dup = header.find((h, k) => header.indexOf(h) !== k);
+  if (dup !== undefined) problems.add(null, undefined, 'bad-header', `the header names the column ${JSON.stringify(dup)} twice; give every column its own name`);
+
+  const lonCol = findColumn(header, lower, options.lonColumn, LONGITUDE_HEADERS);
+  const latCol = findColumn(header, lower, options.latColumn, LATITUDE_HEADERS);
+  if (lonCol < 0 || latCol < 0 || lonCol === latCol) {
+    const missing = [
+      lonCol < 0 ? `longitude (${options.lonColumn !== undefined ? JSON.stringify(options.lonColumn) : `looked for ${LONGITUDE_HEADERS.join(', ')}`})` : '',
+      latCol < 0 ? `latitude (${options.latColumn !== undefined ? JSON.stringify(options.latColumn) : `looked for ${LATITUDE_HEADERS.join(', ')}`})` : '',
+    ].filter((s) => s !== '');
+    const what = missing.length > 0 ? `no column for ${missing.join(' or ')}` : `longitude and latitude name the same column ${JSON.stringify(header[lonCol])}`;
+    const dataLike = header.some((h) => Number.isFinite(parseDecimal(h))) ? '; the first row looks like data — a header row is required' : '';
+    problems.add(null, undefined, 'missing-columns', `${what}; headers found: ${header.map((h) => JSON.stringify(h)).join(', ')}${dataLike}; name the position columns in the options`);
+    problems.throwIfAny();
+  }
+
+  const idCol = lower.indexOf('id');
+  const timeCol = lower.indexOf(TIME_PROPERTY);
+  const weightProperty = options.weightProperty;
+  const weightCol = weightProperty === null ? -1 : header.indexOf(weightProperty);
+  if (weightProperty !== null && weightCol < 0) {
+    problems.add(null, undefined, 'unknown-property', propertyListMessage(weightProperty, 'column', header).replace('properties found', 'columns found'));
+  }
+
+  const n = records.length - 1;
+  if (n === 0) fail('empty-input', 'the CSV has a header row but no data rows; send at least one observation');
+  if (n > options.maxFeatures) fail('too-many-features', `the input has ${n} rows; at most ${options.maxFeatures} are accepted in one request — split it`);
+
+  const lon = new Float64Array(n);
+  const lat = new Float64Array(n);
+  const weight = weightProperty === null ? null : new Float64Array(n);
+  const observedAt = new Float64Array(n);
+  let timed = 0;
+  const features: InputFeature[] = new Array(n);
+  const width = header.length;
+  let prevLines = (records[0] as (typeof records)[number]).info.lines;
+  let prevEmpty = (records[0] as (typeof records)[number]).info.empty_lines;
+
+  for (let r = 0; r < n; r++) {
+    const { record, info } = records[r + 1] as (typeof records)[number];
+    // csv-parse reports the line a record ends on; it starts after the previous one and any blank lines.
+    const line = prevLines + 1 + (info.empty_lines - prevEmpty);
+    prevLines = info.lines;
+    prevEmpty = info.empty_lines;
+    const idCell = idCol >= 0 && idCol < record.length ? (record[idCol] as string) : '';
+    const id = idCell === '' ? undefined : idCell;
+    const where = `row ${r} (line ${line})${id !== undefined ? ` (id ${JSON.stringify(id)})` : ''}`;
+    if (record.length !== width) {
+      problems.add(r, id, 'bad-row', `${where}: has ${record.length} field${record.length === 1 ? '' : 's'}; the header has ${width} — check the delimiter ${JSON.stringify(delimiter)} and the quoting`);
+      observedAt[r] = NaN;
+      continue;
+    }
+    const lonCell = record[lonCol] as string;
+    const latCell = record[latCol] as string;
+    const x = parseDecimal(lonCell);
+    const y = parseDecimal(latCell);
+    if (x !== x || y !== y) {
+      const bad = x !== x ? `longitude ${JSON.stringify(lonCell)}` : `latitude ${JSON.stringify(latCell)}`;
+      const hint = /^\s*-?\d+,\d+\s*$/.test(x !== x ? lonCell : latCell) ? ' (write decimals with a point: 12.5, not 12,5)' : '';
+      problems.add(r, id, 'bad-coordinates', `${where}: ${bad} is not a number${hint}; write decimal degrees`);
+    } else {
+      const range = rangeProblem(x, y);
+      if (range !== null) problems.add(r, id, range.code, `${where}: ${range.message.replace('GeoJSON order is [longitude, latitude]', `check that column ${JSON.stringify(header[lonCol])} holds longitudes`)}`);
+      lon[r] = x;
+      lat[r] = y;
+    }
+
+    const properties: Record<string, unknown> = {};
+    for (let k = 0; k < width; k++) {
+      if (k !== lonCol && k !== latCol && k !== idCol) properties[header[k] as string] = record[k];
+    }
+    if (weight !== null && weightCol >= 0) {
+      const cell = record[weightCol] as string;
+      const w = parseDecimal(cell);
+      if (w >= 0) {
+        weight[r] = w;
+        properties[weightProperty as string] = w;
+      } else {
+        problems.add(r, id, 'bad-weight', weightMessage(where, weightProperty as string, cell.trim() === '' ? undefined : Number.isNaN(w) ? cell : w));
+      }
+    }
+    observedAt[r] = NaN;
+    if (timeCol >= 0) {
+      const cell = (record[timeCol] as string).trim();
+      if (cell !== '') {
+        const ms = parseTimestamp(cell);
+        if (ms === ms) {
+          observedAt[r] = ms;
+          timed++;
+        } else {
+          problems.add(r, id, 'bad-time', timeMessage(where, cell));
+        }
+      }
+    }
+    const feature: InputFeature = { type: 'Feature', geometry: { type: 'Point', coordinates: [x, y] }, properties };
+    if (id !== undefined) feature.id = id;
+    features[r] = feature;
+  }
+  problems.throwIfAny();
+  return { points: { n, lon, lat, weight }, features, observedAt: timed > 0 ? observedAt : null };
+}
+
+/** The column index for a position: the named one, or the first recognised header name; −1 when none. */
+function findColumn(header: string[], lower: string[], named: string | undefined, names: readonly string[]): number {
+  if (named !== undefined) {
+    const exact = header.indexOf(named);
+    return exact >= 0 ? exact : lower.indexOf(named.toLowerCase());
+  }
+  for (const name of names) {
+    const k = lower.indexOf(name);
+    if (k >= 0) return k;
+  }
+  return -1;
+}
+
+/**
+ * Picks the delimiter the header line uses most among `,` `;` tab `|` (outside double quotes);
+ * `,` when none appears.
+ */
+export function sniffDelimiter(text: string): string {
+  const candidates = [',', ';', '\t', '|'];
+  const counts = [0, 0, 0, 0];
+  let quoted = false;
+  for (let i = 0; i < text.length; i++) {
+    const c = text[i];
+    if (c === '"') quoted = !quoted;
+    else if (!quoted && (c === '\n' || c === '\r')) break;
+    else if (!quoted) {
+      const k = candidates.indexOf(c as string);
+      if (k >= 0) counts[k]++;
+    }
+  }
+  let best = 0;
+  for (let k = 1; k < 4; k++) if (counts[k] > counts[best]) best = k;
+  return candidates[best] as string;
+}

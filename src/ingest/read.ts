@@ -1,0 +1,116 @@
+/**
+ * The one entry point for input: text or bytes in, checked Observations out, or an InputError
+ * listing what is wrong (index, id, code, message) — never part of the input.
+ */
+import type { Observations } from './types.js';
+import { DEFAULT_MAX_PROBLEMS, fail } from './checks.js';
+import { readGeoJson } from './geojson.js';
+import { readCsv } from './csv.js';
+import { readGeoJsonSeq } from './seq.js';
+
+export type InputFormat = 'geojson' | 'csv' | 'geojson-seq';
+
+export const INPUT_FORMATS: readonly InputFormat[] = ['geojson', 'csv', 'geojson-seq'];
+
+export interface ReadOptions {
+  /** input format; sniffed with detectFormat when absent */
+  format?: InputFormat;
+  /** property (CSV: column) holding each observation's weight, a finite number ≥ 0; null or absent: weight 1 each */
+  weightProperty?: string | null;
+  /** CSV: header of the longitude column; default the first of longitude, lon, lng, long, x (any case) */
+  lonColumn?: string;
+  /** CSV: header of the latitude column; default the first of latitude, lat, y (any case) */
+  latColumn?: string;
+  /** CSV: field delimiter, one character; default sniffed from the header line (`,` `;` tab `|`) */
+  csvDelimiter?: string;
+  /** most problems listed in the InputError (the total is still counted); default 100 */
+  maxProblems?: number;
+  /** most observations accepted; default unlimited */
+  maxFeatures?: number;
+}
+
+const RS = 0x1e;
+
+/**
+ * Guesses the format from the start of the text (a leading byte-order mark and spaces skipped):
+ * - RS (U+001E) first → `geojson-seq` (RFC 8142);
+ * - `{` first, and the first line is a whole JSON object followed by a line that also starts
+ *   with `{` → `geojson-seq` (newline-delimited GeoJSON);
+ * - `{` or `[` first otherwise → `geojson`;
+ * - anything else → `csv`.
+ * Only the first two lines are looked at.
+ */
+export function detectFormat(input: string | Buffer): InputFormat {
+  // Bytes: decode only the head; the first two lines are all that matter.
+  const text = typeof input === 'string' ? input : input.subarray(0, 1 << 20).toString('utf8');
+  let i = 0;
+  while (i < text.length) {
+    const c = text.charCodeAt(i);
+    if (c === 0xfeff || c === 32 || c === 9 || c === 10 || c === 13) i++;
+    else break;
+  }
+  const first = text.charCodeAt(i);
+  if (first === RS) return 'geojson-seq';
+  if (first === 91) return 'geojson';
+  if (first !== 123) return 'csv';
+  const eol = text.indexOf('\n', i);
+  if (eol === -1) return 'geojson';
+  const line1 = text.slice(i, eol).trim();
+  if (!line1.endsWith('}')) return 'geojson';
+  let j = eol + 1;
+  while (j < text.length) {
+    const c = text.charCodeAt(j);
+    if (c === 32 || c === 9 || c === 10 || c === 13) j++;
+    else break;
+  }
+  if (text.charCodeAt(j) !== 123) return 'geojson';
+  try {
+    const v: unknown = JSON.parse(line1);
+    return v !== null && typeof v === 'object' ? 'geojson-seq' : 'geojson';
+  } catch {
+    return 'geojson';
+  }
+}
+
+/**
+ * Reads observations from GeoJSON (FeatureCollection or Feature), CSV with a header row, or a
+ * GeoJSON text sequence / newline-delimited GeoJSON. Bytes are decoded as UTF-8 and a leading
+ * byte-order mark is dropped.
+ * @throws InputError with every problem found (at most `maxProblems` listed, `total` counted);
+ *   RangeError for bad options.
+ */
+export function readObservations(input: string | Buffer, options: ReadOptions = {}): Observations {
+  const maxProblems = options.maxProblems ?? DEFAULT_MAX_PROBLEMS;
+  const maxFeatures = options.maxFeatures ?? Number.MAX_SAFE_INTEGER;
+  if (!Number.isInteger(maxProblems) || maxProblems < 1) throw new RangeError(`maxProblems must be a whole number ≥ 1, got ${maxProblems}`);
+  if (!Number.isInteger(maxFeatures) || maxFeatures < 1) throw new RangeError(`maxFeatures must be a whole number ≥ 1, got ${maxFeatures}`);
+  if (options.format !== undefined && !INPUT_FORMATS.includes(options.format)) {
+    throw new RangeError(`format must be one of ${INPUT_FORMATS.join(', ')}, got ${JSON.stringify(options.format)}`);
+  }
+  if (options.csvDelimiter !== undefined && options.csvDelimiter.length !== 1) {
+    throw new RangeError(`csvDelimiter must be one character, got ${JSON.stringify(options.csvDelimiter)}`);
+  }
+  const weightProperty = options.weightProperty ?? null;
+  if (weightProperty === '') throw new RangeError('weightProperty must name a property (or be null for weight 1 each)');
+
+  let text = typeof input === 'string' ? input : input.toString('utf8');
+  if (text.charCodeAt(0) === 0xfeff) text = text.slice(1);
+  if (text.trim().length === 0) fail('empty-input', 'the input is empty; send a GeoJSON FeatureCollection of Point features or a CSV with a header row');
+
+  const format = options.format ?? detectFormat(text);
+  switch (format) {
+    case 'geojson':
+      return readGeoJson(text, weightProperty, maxProblems, maxFeatures);
+    case 'geojson-seq':
+      return readGeoJsonSeq(text, weightProperty, maxProblems, maxFeatures);
+    case 'csv':
+      return readCsv(text, {
+        weightProperty,
+        lonColumn: options.lonColumn,
+        latColumn: options.latColumn,
+        delimiter: options.csvDelimiter,
+        maxProblems,
+        maxFeatures,
+      });
+  }
+}
