@@ -138,30 +138,46 @@ export function dbscan(points: PointSet, options: DbscanOptions): Clustering {
     }
   }
 
-  // Pass 2: union–find over pairs of core points within eps. Each pair is visited once (m > k):
-  // neighbour cells before c hold only smaller positions and are skipped whole. The cheap
-  // same-root test comes first so that dense hotspots skip most distance tests.
+  // Pass 2: union–find over pairs of core points within eps. Pairs across cells are taken from
+  // the lower cell only (neighbour cells before c are skipped whole). Once a scan finds every
+  // core point of a cell d in k's component, d is marked united; later points already in that
+  // component skip d in O(1). Components only ever merge, so the mark stays true. This keeps
+  // dense hotspots, where a cell holds thousands of points, from costing cell size squared.
   const parent = new Int32Array(n);
   for (let k = 0; k < n; k++) parent[k] = k;
+  const united = new Uint8Array(cellCount);
+  const rep = new Int32Array(cellCount); // one core point of each united cell
   nextReport = PROGRESS_STEP;
   for (let c = 0; c < cellCount; c++) {
     const a1 = nbrStart[c + 1];
     for (let k = cellStart[c], kEnd = cellStart[c + 1]; k < kEnd; k++) {
       if (core[k] === 0) continue;
       const x = sxyz[3 * k], y = sxyz[3 * k + 1], z = sxyz[3 * k + 2];
+      let rk = find(parent, k);
       for (let a = nbrStart[c]; a < a1; a++) {
         const d = nbr[a];
         if (d < c) continue;
-        for (let m = d === c ? k + 1 : cellStart[d], mEnd = cellStart[d + 1]; m < mEnd; m++) {
+        if (united[d] === 1 && find(parent, rep[d]) === rk) continue;
+        let allJoined = true;
+        let some = -1;
+        for (let m = cellStart[d], mEnd = cellStart[d + 1]; m < mEnd; m++) {
           if (core[m] === 0) continue;
-          const rk = find(parent, k);
+          some = m;
           const rm = find(parent, m);
-          if (rk === rm) continue;
+          if (rm === rk) continue;
           const dx = sxyz[3 * m] - x, dy = sxyz[3 * m + 1] - y, dz = sxyz[3 * m + 2] - z;
           if (dx * dx + dy * dy + dz * dz <= r2) {
+            // link the larger root under the smaller one
             if (rk < rm) parent[rm] = rk;
-            else parent[rk] = rm;
-          }
+            else {
+              parent[rk] = rm;
+              rk = rm;
+            }
+          } else allJoined = false;
+        }
+        if (allJoined && some >= 0) {
+          united[d] = 1;
+          rep[d] = some;
         }
       }
     }

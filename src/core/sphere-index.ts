@@ -32,6 +32,7 @@ const MIN_CELL = 2 / 2 ** 17;
 
 /** Stable counting sort of `order` by `key[order[k]] - min`, keys in 0..range-1. */
 function countingSortBy(order: Int32Array, key: Int32Array, min: number, range: number): Int32Array {
+  if (range === 1) return order;
   const count = new Int32Array(range + 1);
   const n = order.length;
   for (let k = 0; k < n; k++) count[key[order[k]] - min + 1]++;
@@ -123,33 +124,41 @@ export class SphereIndex {
 
     // 2. LSD radix sort (z, then y, then x; each pass stable): lexicographic cell order, and
     //    ascending point id inside each cell. Linear time, sequential memory access.
-    let order = new Int32Array(n);
+    let order: Int32Array = new Int32Array(n);
     for (let i = 0; i < n; i++) order[i] = i;
     order = countingSortBy(order, gz, minZ, maxZ - minZ + 1);
     order = countingSortBy(order, gy, minY, maxY - minY + 1);
     order = countingSortBy(order, gx, minX, maxX - minX + 1);
 
-    // 3. cells are runs of equal coordinates in that order
+    // 3. cells are runs of equal coordinates in that order. Only the unit vectors are gathered
+    //    (one random read per point); grid coordinates are recomputed from the copied vectors,
+    //    which gives the same integers and reads memory in order.
     const cellOf = new Int32Array(n);
     const sxyz = new Float64Array(n * 3);
+    for (let k = 0; k < n; k++) {
+      const i = order[k];
+      sxyz[3 * k] = xyz[3 * i];
+      sxyz[3 * k + 1] = xyz[3 * i + 1];
+      sxyz[3 * k + 2] = xyz[3 * i + 2];
+    }
     const startBuf = new Int32Array(n + 1);
     const cxBuf = new Int32Array(n);
     const cyBuf = new Int32Array(n);
     const czBuf = new Int32Array(n);
     let cells = 0;
+    let px = 0, py = 0, pz = 0;
     for (let k = 0; k < n; k++) {
-      const i = order[k];
-      if (k === 0 || gx[i] !== cxBuf[cells - 1] || gy[i] !== cyBuf[cells - 1] || gz[i] !== czBuf[cells - 1]) {
-        cxBuf[cells] = gx[i];
-        cyBuf[cells] = gy[i];
-        czBuf[cells] = gz[i];
+      const ix = Math.floor(sxyz[3 * k] * inv);
+      const iy = Math.floor(sxyz[3 * k + 1] * inv);
+      const iz = Math.floor(sxyz[3 * k + 2] * inv);
+      if (k === 0 || ix !== px || iy !== py || iz !== pz) {
+        cxBuf[cells] = px = ix;
+        cyBuf[cells] = py = iy;
+        czBuf[cells] = pz = iz;
         startBuf[cells] = k;
         cells++;
       }
-      cellOf[i] = cells - 1;
-      sxyz[3 * k] = xyz[3 * i];
-      sxyz[3 * k + 1] = xyz[3 * i + 1];
-      sxyz[3 * k + 2] = xyz[3 * i + 2];
+      cellOf[order[k]] = cells - 1;
     }
     startBuf[cells] = n;
     this.cellCount = cells;
