@@ -113,8 +113,8 @@ describe('suggestEps', () => {
       expect(s.total).toBe(p.n);
       expect(s.epsMeters).not.toBeNull();
       const eps = s.epsMeters as number;
-      expect(eps).toBeGreaterThan(40);
-      expect(eps).toBeLessThan(500);
+      expect(eps).toBeGreaterThan(60);
+      expect(eps).toBeLessThan(350);
       // at that eps DBSCAN finds hotspots but does not swallow everything into one
       const c = dbscan(p, { epsMeters: eps, minPoints: 5 });
       expect(c.count).toBeGreaterThanOrEqual(4);
