@@ -183,6 +183,17 @@ export function suggestEps(
   const maxCurve = options.maxCurvePoints ?? DEFAULT_CURVE_POINTS;
   if (!Number.isInteger(maxCurve) || maxCurve < 2) throw new RangeError(`maxCurvePoints must be a whole number ≥ 2, got ${maxCurve}`);
   const k = minPoints - 1;
+  if (points.n <= k) {
+    return {
+      k,
+      sampled: 0,
+      total: points.n,
+      curve: { rank: [], meters: [] },
+      kneeIndex: null,
+      epsMeters: null,
+      message: `No knee found: ${points.n} points are too few for a ${k}-distance curve; add points or lower min_points below ${points.n + 1}.`,
+    };
+  }
   const dists = kDistances(points, k, { sampleSize: options.sampleSize });
   const m = dists.length;
   const knee = kneedle(dists, { sensitivity: options.sensitivity });

@@ -153,6 +153,13 @@ describe('suggestEps', () => {
     expect(s.message).toMatch(/min_points/);
   });
 
+  it('answers without a knee when there are too few points', () => {
+    const s = suggestEps(pointSet([0, 1, 2], [0, 0, 0]), 5);
+    expect(s.epsMeters).toBeNull();
+    expect(s.curve.rank).toEqual([]);
+    expect(s.message).toMatch(/no knee found.*too few/i);
+  });
+
   it('rejects min_points below 2', () => {
     expect(() => suggestEps(midLatitudeSet(1), 1)).toThrow(/min_points/);
   });
