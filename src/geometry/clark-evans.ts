@@ -4,10 +4,8 @@
  * Clark, P. J. & Evans, F. C. (1954). Distance to nearest neighbor as a measure of spatial
  * relationships in populations. Ecology 35(4): 445–453.
  */
-import KDBush from 'kdbush';
-import { around } from 'geokdbush';
-import { EARTH_RADIUS_M, metersForChord2, unitVectors } from '../core/haversine.js';
-import { SphereIndex } from '../core/sphere-index.js';
+import { metersForChord2, unitVectors } from '../core/haversine.js';
+import type { SphereIndex } from '../core/sphere-index.js';
 import type { PointSet } from '../core/types.js';
 
 /** Result of the Clark–Evans test. */
@@ -37,39 +35,27 @@ const Z_CRITICAL = 1.96;
  */
 const SE_CONSTANT = 0.26136;
 
-/**
- * The grid index cannot make cells smaller than about 97 m on the ground (2 / 2^17 of the unit
- * sphere's diameter, see SphereIndex), so a smaller first radius costs the same and resolves less.
- */
-const MIN_RADIUS_M = (2 / 2 ** 17) * EARTH_RADIUS_M;
-
-/** Half the Earth's circumference: every point is within this of every other. */
-const HALF_CIRCUMFERENCE_M = Math.PI * EARTH_RADIUS_M;
-
-/** Observations sampled to guess the first search radius. */
-const SAMPLE_SIZE = 1024;
-
-/**
- * Once no more than n / LEFTOVER_DIVISOR observations are unresolved, a k-d tree query per
- * leftover is cheaper than rebuilding the grid over all n observations at a larger radius.
- */
-const LEFTOVER_DIVISOR = 64;
+/** Points per leaf of the k-d tree: below this a plain scan is cheaper than more splitting. */
+const LEAF_SIZE = 12;
 
 /**
  * Great-circle distance in metres from every observation to its nearest other observation.
  * Identical positions give 0. With fewer than two observations every entry is Infinity (there is
  * no other observation).
  *
- * Exact everywhere, poles and ±180° included. The work is done in rounds over the 3-D grid index:
- * a round at radius r visits every observation within r of a point, so if any is found the
- * smallest of them is the true nearest neighbour. Points with none are carried to the next round
- * at twice the radius. When few are left (n / 64), each is answered by a geodesic k-d tree search
- * (geokdbush, which also handles the poles and the antimeridian) so that a handful of remote
- * outliers does not force rebuilding the grid again and again.
+ * Exact everywhere, poles and ±180° included: the search runs on the positions' unit vectors in
+ * 3-D, where neither exists, and the straight chord between two unit vectors grows monotonically
+ * with their great-circle distance, so the nearest by chord is the nearest on the ground. The
+ * vectors go into a static 3-D k-d tree (each node split at the median of its widest axis); every
+ * point then searches it branch-and-bound, nearer side first, skipping itself.
+ *
+ * A fixed-radius grid (SphereIndex) is not used for the search: in a dense patch one grid cell
+ * holds thousands of points and every query would scan them all, while the tree's cost per query
+ * follows the local density. Measured on 1,000,000 clustered points: see the benchmark figures.
  *
  * @param points observations (degrees)
- * @param index optional SphereIndex already built over the same points (for example the DBSCAN
- *   index at eps); its radius is then the first round's radius and its build is saved
+ * @param index optional SphereIndex built over the same points; only its unit vectors are reused
+ *   (saves computing them again)
  * @returns distance per observation in input order, metres
  */
 export function nearestNeighbourMeters(points: PointSet, index?: SphereIndex): Float64Array {
@@ -79,86 +65,168 @@ export function nearestNeighbourMeters(points: PointSet, index?: SphereIndex): F
   if (index && index.n !== n) {
     throw new RangeError(`the index covers ${index.n} points but the point set has ${n}; build it over the same points`);
   }
-  let radius = index ? index.radiusMeters : firstRadiusMeters(points);
-  let grid = index ?? new SphereIndex(points, radius);
-
-  // One callback for all queries (no closure per point): it reads the query id and writes the
-  // best squared chord through these two variables.
-  let self = 0;
-  let best = Infinity;
-  const visit = (j: number, chord2: number): void => {
-    if (j !== self && chord2 < best) best = chord2;
-  };
-
-  let pending: Int32Array = grid.sorted; // cell order: neighbouring queries touch the same memory
-  for (;;) {
-    const still = new Int32Array(pending.length);
-    let left = 0;
-    for (let k = 0; k < pending.length; k++) {
-      const i = pending[k];
-      self = i;
-      best = Infinity;
-      grid.forEachWithin(i, visit);
-      if (best === Infinity) still[left++] = i;
-      else out[i] = metersForChord2(best);
-    }
-    pending = still.subarray(0, left);
-    if (left === 0) return out;
-    if (left <= n / LEFTOVER_DIVISOR) break;
-    radius = Math.min(radius * 2, HALF_CIRCUMFERENCE_M);
-    grid = new SphereIndex(points, radius);
-  }
-
-  // The few leftovers: best-first k-d tree search on the sphere for the nearest other point.
-  const kd = new KDBush(n);
-  for (let i = 0; i < n; i++) kd.add(points.lon[i], points.lat[i]);
-  kd.finish();
-  const xyz = grid.xyz;
-  for (let k = 0; k < pending.length; k++) {
-    const i = pending[k];
-    const found = around(kd, points.lon[i], points.lat[i], 1, Infinity, (j) => j !== i);
-    const j = found[0];
-    const dx = xyz[3 * i] - xyz[3 * j];
-    const dy = xyz[3 * i + 1] - xyz[3 * j + 1];
-    const dz = xyz[3 * i + 2] - xyz[3 * j + 2];
-    // Same chord formula as the grid rounds, so every entry is measured the same way.
-    out[i] = metersForChord2(dx * dx + dy * dy + dz * dz);
-  }
+  const tree = new ChordTree(index ? index.xyz : unitVectors(points.lon, points.lat));
+  const best2 = tree.nearestOther2();
+  for (let i = 0; i < n; i++) out[i] = metersForChord2(best2[i]);
   return out;
 }
 
 /**
- * Guess of a first radius that resolves most points cheaply: the median nearest-neighbour
- * distance within an evenly spaced sample, scaled to the full set (in a 2-D pattern distances
- * shrink with the square root of the number of points), doubled so that most points find a
- * neighbour within it (under randomness about 94 % do at twice the median).
+ * Static k-d tree over unit vectors, stored kdbush-style as one permutation: the node over
+ * positions left..right has its median at m = (left + right) >> 1, the left child over
+ * left..m−1 and the right child over m+1..right. The split axis of that node is kept at `axis[m]`
+ * (each internal node owns a distinct median position).
  */
-function firstRadiusMeters(points: PointSet): number {
-  const n = points.n;
-  const m = Math.min(n, SAMPLE_SIZE);
-  const lon = new Float64Array(m);
-  const lat = new Float64Array(m);
-  for (let k = 0; k < m; k++) {
-    const i = Math.floor((k * n) / m);
-    lon[k] = points.lon[i];
-    lat[k] = points.lat[i];
+class ChordTree {
+  private readonly n: number;
+  /** point id at each tree position */
+  private readonly ids: Int32Array;
+  /** unit vectors in tree order, stride 3 */
+  private readonly coords: Float64Array;
+  /** split axis (0 x, 1 y, 2 z) of the node whose median sits at this position */
+  private readonly axis: Uint8Array;
+
+  // search state, kept in fields so the recursion passes only the range
+  private qx = 0;
+  private qy = 0;
+  private qz = 0;
+  private self = 0;
+  private best = Infinity;
+
+  constructor(xyz: Float64Array) {
+    const n = xyz.length / 3;
+    this.n = n;
+    this.ids = new Int32Array(n);
+    for (let i = 0; i < n; i++) this.ids[i] = i;
+    this.coords = Float64Array.from(xyz);
+    this.axis = new Uint8Array(n);
+    this.build(0, n - 1);
   }
-  const xyz = unitVectors(lon, lat);
-  const nearest2 = new Float64Array(m).fill(Infinity);
-  for (let a = 0; a < m; a++) {
-    for (let b = a + 1; b < m; b++) {
-      const dx = xyz[3 * a] - xyz[3 * b];
-      const dy = xyz[3 * a + 1] - xyz[3 * b + 1];
-      const dz = xyz[3 * a + 2] - xyz[3 * b + 2];
-      const d2 = dx * dx + dy * dy + dz * dz;
-      if (d2 < nearest2[a]) nearest2[a] = d2;
-      if (d2 < nearest2[b]) nearest2[b] = d2;
+
+  private build(left: number, right: number): void {
+    if (right - left < LEAF_SIZE) return;
+    const c = this.coords;
+    let minX = Infinity, maxX = -Infinity, minY = Infinity, maxY = -Infinity, minZ = Infinity, maxZ = -Infinity;
+    for (let k = left; k <= right; k++) {
+      const x = c[3 * k], y = c[3 * k + 1], z = c[3 * k + 2];
+      if (x < minX) minX = x;
+      if (x > maxX) maxX = x;
+      if (y < minY) minY = y;
+      if (y > maxY) maxY = y;
+      if (z < minZ) minZ = z;
+      if (z > maxZ) maxZ = z;
+    }
+    // Split the widest axis: points on a small patch of the sphere lie almost in a plane, and a
+    // fixed x, y, z rotation would waste a third of the splits across that plane's thin direction.
+    const sx = maxX - minX, sy = maxY - minY, sz = maxZ - minZ;
+    const a = sx >= sy && sx >= sz ? 0 : sy >= sz ? 1 : 2;
+    const m = (left + right) >> 1;
+    this.select(m, left, right, a);
+    this.axis[m] = a;
+    this.build(left, m - 1);
+    this.build(m + 1, right);
+  }
+
+  /**
+   * Floyd–Rivest selection (Floyd & Rivest 1975, "Algorithm 489: SELECT", CACM 18(3)): reorders
+   * left..right so that position k holds the value it would have if sorted on `a`, smaller or
+   * equal ones before it and larger or equal ones after.
+   */
+  private select(k: number, left: number, right: number, a: number): void {
+    const c = this.coords;
+    while (right > left) {
+      if (right - left > 600) {
+        const n = right - left + 1;
+        const i = k - left + 1;
+        const z = Math.log(n);
+        const s = 0.5 * Math.exp((2 * z) / 3);
+        const sd = 0.5 * Math.sqrt((z * s * (n - s)) / n) * (i - n / 2 < 0 ? -1 : 1);
+        this.select(k, Math.max(left, Math.floor(k - (i * s) / n + sd)), Math.min(right, Math.floor(k + ((n - i) * s) / n + sd)), a);
+      }
+      const t = c[3 * k + a];
+      let i = left;
+      let j = right;
+      this.swap(left, k);
+      if (c[3 * right + a] > t) this.swap(left, right);
+      while (i < j) {
+        this.swap(i, j);
+        i++;
+        j--;
+        while (c[3 * i + a] < t) i++;
+        while (c[3 * j + a] > t) j--;
+      }
+      if (c[3 * left + a] === t) this.swap(left, j);
+      else {
+        j++;
+        this.swap(j, right);
+      }
+      if (j <= k) left = j + 1;
+      if (k <= j) right = j - 1;
     }
   }
-  nearest2.sort();
-  const median = metersForChord2(nearest2[m >> 1]);
-  const guess = 2 * median * Math.sqrt(m / n);
-  return Math.min(Math.max(guess, MIN_RADIUS_M), HALF_CIRCUMFERENCE_M);
+
+  private swap(i: number, j: number): void {
+    const ids = this.ids;
+    const c = this.coords;
+    const t = ids[i];
+    ids[i] = ids[j];
+    ids[j] = t;
+    for (let o = 0; o < 3; o++) {
+      const v = c[3 * i + o];
+      c[3 * i + o] = c[3 * j + o];
+      c[3 * j + o] = v;
+    }
+  }
+
+  /** Squared chord from every point (input order) to its nearest other point. */
+  nearestOther2(): Float64Array {
+    const n = this.n;
+    const out = new Float64Array(n);
+    const c = this.coords;
+    // Queries in tree order: consecutive queries are neighbours and walk the same nodes.
+    for (let k = 0; k < n; k++) {
+      this.qx = c[3 * k];
+      this.qy = c[3 * k + 1];
+      this.qz = c[3 * k + 2];
+      this.self = this.ids[k];
+      this.best = Infinity;
+      this.search(0, n - 1);
+      out[this.self] = this.best;
+    }
+    return out;
+  }
+
+  private search(left: number, right: number): void {
+    if (this.best === 0) return; // an identical position: nothing can be nearer
+    const c = this.coords;
+    const ids = this.ids;
+    if (right - left < LEAF_SIZE) {
+      for (let k = left; k <= right; k++) {
+        const dx = c[3 * k] - this.qx;
+        const dy = c[3 * k + 1] - this.qy;
+        const dz = c[3 * k + 2] - this.qz;
+        const d2 = dx * dx + dy * dy + dz * dz;
+        if (d2 < this.best && ids[k] !== this.self) this.best = d2;
+      }
+      return;
+    }
+    const m = (left + right) >> 1;
+    const dx = c[3 * m] - this.qx;
+    const dy = c[3 * m + 1] - this.qy;
+    const dz = c[3 * m + 2] - this.qz;
+    const d2 = dx * dx + dy * dy + dz * dz;
+    if (d2 < this.best && ids[m] !== this.self) this.best = d2;
+    const a = this.axis[m];
+    // signed distance from the query to the splitting plane along axis a
+    const side = (a === 0 ? this.qx : a === 1 ? this.qy : this.qz) - c[3 * m + a];
+    if (side <= 0) {
+      this.search(left, m - 1);
+      if (side * side < this.best) this.search(m + 1, right);
+    } else {
+      this.search(m + 1, right);
+      if (side * side < this.best) this.search(left, m - 1);
+    }
+  }
 }
 
 /**

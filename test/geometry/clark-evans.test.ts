@@ -60,9 +60,8 @@ describe('nearestNeighbourMeters', () => {
       ['antimeridian', antimeridianSet(13)],
       ['duplicates', duplicatesSet(14)],
       ['global', globalUniformSet(1500, 15)],
-      // a few remote points: answered by the k-d tree after the grid rounds
+      // dense patches with a few or many remote points: widely varying neighbour distances
       ['few outliers', patchesWithOutliers(16, 12)],
-      // many remote points: several grid rounds at growing radius
       ['many outliers', patchesWithOutliers(17, 400)],
     ];
     for (const [, p] of sets) expectSameDistances(nearestNeighbourMeters(p), bruteNearest(p));
@@ -79,7 +78,7 @@ describe('nearestNeighbourMeters', () => {
     expectSameDistances(nn, bruteNearest(p));
   });
 
-  it('uses a prebuilt index over the same points and gives the same answer at any index radius', () => {
+  it('reuses a prebuilt index over the same points and gives the same answer at any index radius', () => {
     const p = antimeridianSet(21);
     const want = bruteNearest(p);
     for (const radius of [20, 150, 5000]) expectSameDistances(nearestNeighbourMeters(p, new SphereIndex(p, radius)), want);
