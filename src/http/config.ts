@@ -1,0 +1,167 @@
+/**
+ * Server configuration: one defaults object, overridable by environment variables and then by
+ * command-line flags. Bad values are rejected here, before anything listens.
+ */
+import { availableParallelism } from 'node:os';
+
+export interface ServerConfig {
+  /** TCP port to listen on; 0 picks a free port */
+  port: number;
+  /** interface to listen on; 127.0.0.1 keeps the service local until it is put behind a proxy */
+  host: string;
+  /** largest accepted request body in bytes */
+  bodyLimitBytes: number;
+  /** worker threads doing the parsing, validating and clustering */
+  workers: number;
+  /** requests allowed to wait for a worker beyond those being worked on; more get 503 */
+  queueSize: number;
+  /** time allowed for one request's work (queue wait included) in milliseconds */
+  timeLimitMs: number;
+  /** time allowed to receive a whole request (upload included) in milliseconds */
+  requestTimeoutMs: number;
+  /** idle keep-alive connection lifetime in milliseconds */
+  keepAliveTimeoutMs: number;
+  /** on SIGTERM/SIGINT, time given to requests in flight before connections are cut, in milliseconds */
+  shutdownGraceMs: number;
+  /** main-thread event-loop delay above which new requests are shed with 503, in milliseconds */
+  maxEventLoopDelayMs: number;
+  /** seconds a client is asked to wait (Retry-After) after a 503 */
+  retryAfterS: number;
+  /** pino log level: fatal, error, warn, info, debug, trace or silent */
+  logLevel: string;
+}
+
+/**
+ * Every default in one place (mirrored by the README's options table).
+ * The body limit admits one million GeoJSON point features of up to ~250 bytes each.
+ */
+export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
+  port: 8080,
+  host: '127.0.0.1',
+  bodyLimitBytes: 256 * 1024 * 1024,
+  // one core stays with the main thread so /healthz and uploads stay responsive
+  workers: Math.max(1, availableParallelism() - 1),
+  queueSize: 8,
+  timeLimitMs: 120_000,
+  requestTimeoutMs: 300_000,
+  keepAliveTimeoutMs: 5_000,
+  shutdownGraceMs: 10_000,
+  maxEventLoopDelayMs: 1_000,
+  retryAfterS: 5,
+  logLevel: 'info',
+});
+
+/** One option: its config key, command-line flag, environment variable, kind and help text. */
+export interface OptionSpec {
+  key: keyof ServerConfig;
+  flag: string;
+  env: string;
+  kind: 'integer' | 'size' | 'string' | 'level';
+  help: string;
+}
+
+/** The options in the order the README and `roost serve --help` list them. */
+export const OPTIONS: readonly OptionSpec[] = [
+  { key: 'port', flag: '--port', env: 'ROOST_PORT', kind: 'integer', help: 'TCP port (0 = any free port)' },
+  { key: 'host', flag: '--host', env: 'ROOST_HOST', kind: 'string', help: 'interface to listen on' },
+  { key: 'bodyLimitBytes', flag: '--body-limit', env: 'ROOST_BODY_LIMIT', kind: 'size', help: 'largest request body, bytes or with a unit (512KiB, 256MiB, 1GiB)' },
+  { key: 'workers', flag: '--workers', env: 'ROOST_WORKERS', kind: 'integer', help: 'worker threads for parsing and clustering' },
+  { key: 'queueSize', flag: '--queue-size', env: 'ROOST_QUEUE_SIZE', kind: 'integer', help: 'requests that may wait for a worker; beyond that, 503' },
+  { key: 'timeLimitMs', flag: '--time-limit-ms', env: 'ROOST_TIME_LIMIT_MS', kind: 'integer', help: 'time allowed for one request\'s work, milliseconds' },
+  { key: 'requestTimeoutMs', flag: '--request-timeout-ms', env: 'ROOST_REQUEST_TIMEOUT_MS', kind: 'integer', help: 'time allowed to receive a whole request, milliseconds' },
+  { key: 'keepAliveTimeoutMs', flag: '--keep-alive-timeout-ms', env: 'ROOST_KEEP_ALIVE_TIMEOUT_MS', kind: 'integer', help: 'idle keep-alive lifetime, milliseconds' },
+  { key: 'shutdownGraceMs', flag: '--shutdown-grace-ms', env: 'ROOST_SHUTDOWN_GRACE_MS', kind: 'integer', help: 'time for requests in flight on SIGTERM/SIGINT, milliseconds' },
+  { key: 'maxEventLoopDelayMs', flag: '--max-event-loop-delay-ms', env: 'ROOST_MAX_EVENT_LOOP_DELAY_MS', kind: 'integer', help: 'event-loop delay above which requests are shed with 503, milliseconds' },
+  { key: 'retryAfterS', flag: '--retry-after-s', env: 'ROOST_RETRY_AFTER_S', kind: 'integer', help: 'Retry-After sent with 503, seconds' },
+  { key: 'logLevel', flag: '--log-level', env: 'ROOST_LOG_LEVEL', kind: 'level', help: 'fatal, error, warn, info, debug, trace or silent' },
+];
+
+const LEVELS = new Set(['fatal', 'error', 'warn', 'info', 'debug', 'trace', 'silent']);
+const UNITS: Record<string, number> = { '': 1, b: 1, k: 1024, kb: 1024, kib: 1024, m: 1024 ** 2, mb: 1024 ** 2, mib: 1024 ** 2, g: 1024 ** 3, gb: 1024 ** 3, gib: 1024 ** 3 };
+
+/** Thrown for a configuration value that cannot be used; the message names the flag and variable. */
+export class ConfigError extends Error {
+  constructor(message: string) {
+    super(message);
+    this.name = 'ConfigError';
+  }
+}
+
+/**
+ * Parses a size such as `1048576`, `512KiB`, `256MiB` or `1g` into bytes (units are binary:
+ * k = 1024). Throws ConfigError for anything else.
+ */
+export function parseSize(text: string, where: string): number {
+  const m = /^\s*(\d+(?:\.\d+)?)\s*([a-zA-Z]*)\s*$/.exec(text);
+  const unit = m ? UNITS[m[2]!.toLowerCase()] : undefined;
+  if (!m || unit === undefined) {
+    throw new ConfigError(`${where}: "${text}" is not a size; give bytes or a number with KiB, MiB or GiB`);
+  }
+  return Math.floor(Number(m[1]) * unit);
+}
+
+function convert(spec: OptionSpec, value: unknown, where: string): string | number {
+  if (spec.kind === 'string') {
+    if (typeof value !== 'string' || value.trim() === '') throw new ConfigError(`${where}: give a non-empty value`);
+    return value.trim();
+  }
+  if (spec.kind === 'level') {
+    const level = String(value).trim().toLowerCase();
+    if (!LEVELS.has(level)) throw new ConfigError(`${where}: "${String(value)}" is not a log level; use one of ${[...LEVELS].join(', ')}`);
+    return level;
+  }
+  if (spec.kind === 'size') {
+    if (typeof value === 'number') return value;
+    return parseSize(String(value), where);
+  }
+  const n = typeof value === 'number' ? value : /^\s*\d+\s*$/.test(String(value)) ? Number(value) : NaN;
+  if (!Number.isSafeInteger(n)) throw new ConfigError(`${where}: "${String(value)}" is not a whole number`);
+  return n;
+}
+
+function check(config: ServerConfig): ServerConfig {
+  const spec = (key: keyof ServerConfig): string => {
+    const o = OPTIONS.find((s) => s.key === key)!;
+    return `${o.flag} / ${o.env}`;
+  };
+  const atLeast = (key: keyof ServerConfig, min: number): void => {
+    const v = config[key] as number;
+    if (!Number.isSafeInteger(v) || v < min) throw new ConfigError(`${spec(key)}: must be a whole number of at least ${min}, got ${String(v)}`);
+  };
+  atLeast('port', 0);
+  if (config.port > 65535) throw new ConfigError(`${spec('port')}: must be at most 65535, got ${config.port}`);
+  atLeast('bodyLimitBytes', 1);
+  // typed arrays (and so one request body) cannot exceed 2^31-1 bytes in a worker message
+  if (config.bodyLimitBytes > 2 ** 31 - 1) throw new ConfigError(`${spec('bodyLimitBytes')}: must be below 2 GiB`);
+  atLeast('workers', 1);
+  atLeast('queueSize', 0);
+  atLeast('timeLimitMs', 1);
+  atLeast('requestTimeoutMs', 0);
+  atLeast('keepAliveTimeoutMs', 0);
+  atLeast('shutdownGraceMs', 0);
+  atLeast('maxEventLoopDelayMs', 0);
+  atLeast('retryAfterS', 0);
+  return config;
+}
+
+/**
+ * Builds a complete, checked configuration: DEFAULT_CONFIG, then environment variables
+ * (ROOST_PORT, …), then `overrides` (from flags or code). Values may be strings as typed by a user.
+ * Throws ConfigError naming the flag and variable when a value is unusable.
+ */
+export function resolveConfig(
+  overrides: Partial<Record<keyof ServerConfig, unknown>> = {},
+  env: Record<string, string | undefined> = process.env,
+): ServerConfig {
+  const config: Record<string, unknown> = { ...DEFAULT_CONFIG };
+  for (const spec of OPTIONS) {
+    const fromEnv = env[spec.env];
+    if (fromEnv !== undefined && fromEnv !== '') config[spec.key] = convert(spec, fromEnv, spec.env);
+    const given = overrides[spec.key];
+    if (given !== undefined) config[spec.key] = convert(spec, given, spec.flag);
+  }
+  for (const key of Object.keys(overrides)) {
+    if (!OPTIONS.some((s) => s.key === key)) throw new ConfigError(`unknown server option "${key}"`);
+  }
+  return check(config as unknown as ServerConfig);
+}

@@ -1,0 +1,87 @@
+/**
+ * The pool of worker threads that does the heavy work, with a bounded queue and cancellation.
+ * Runs the compiled worker (dist/http/worker.js) in production and the TypeScript source
+ * through tsx when the service itself runs from source (tests, `tsx src/cli/main.ts serve`).
+ */
+import { Piscina } from 'piscina';
+import type { WorkResult, WorkTask } from './work.js';
+
+export interface WorkPool {
+  /**
+   * Runs a task in a worker. The body's ArrayBuffer is transferred (unusable afterwards here).
+   * Aborting `signal` rejects at once and, when the task is running, ends its worker thread
+   * (a fresh one replaces it), which is the only way to stop synchronous work.
+   * Rejects with QueueFullError when `queueSize` tasks already wait.
+   */
+  run(task: WorkTask, signal: AbortSignal): Promise<WorkResult>;
+  /** worker threads */
+  readonly threads: number;
+  /** tasks waiting for a free worker */
+  readonly queued: number;
+  /** share of time the workers were busy since start, 0–1 */
+  readonly utilization: number;
+  /** stops the workers; tasks still running are cancelled */
+  close(): Promise<void>;
+}
+
+/** The pool's waiting line is full. */
+export class QueueFullError extends Error {
+  constructor() {
+    super('every worker is busy and the waiting line is full');
+    this.name = 'QueueFullError';
+  }
+}
+
+export interface WorkPoolOptions {
+  /** worker threads, at least 1 */
+  workers: number;
+  /** tasks that may wait for a worker, at least 0 */
+  queueSize: number;
+}
+
+/** Where the worker module is and how to start it, depending on whether this file is compiled. */
+function workerEntry(): { filename: string; execArgv: string[] | undefined } {
+  const here = import.meta.url;
+  if (/\.ts$/.test(new URL(here).pathname)) {
+    return { filename: new URL('./worker.ts', here).href, execArgv: ['--import', 'tsx'] };
+  }
+  return { filename: new URL('./worker.js', here).href, execArgv: undefined };
+}
+
+/** Starts `options.workers` threads at once, so the first request does not pay their start-up. */
+export function createWorkPool(options: WorkPoolOptions): WorkPool {
+  const { filename, execArgv } = workerEntry();
+  const piscina = new Piscina<WorkTask, WorkResult>({
+    filename,
+    execArgv,
+    minThreads: options.workers,
+    maxThreads: options.workers,
+    // a backstop: the service already turns requests away before their upload when
+    // workers + queueSize requests are in hand
+    maxQueue: options.queueSize + options.workers,
+    concurrentTasksPerWorker: 1,
+    idleTimeout: 2 ** 31 - 1,
+  });
+  return {
+    async run(task, signal) {
+      try {
+        return await piscina.run(task, { signal, transferList: [task.body.buffer as ArrayBuffer] });
+      } catch (err) {
+        if (err instanceof Error && /queue is at limit|no task queue available/i.test(err.message)) throw new QueueFullError();
+        throw err;
+      }
+    },
+    get threads() {
+      return options.workers;
+    },
+    get queued() {
+      return piscina.queueSize;
+    },
+    get utilization() {
+      return piscina.utilization;
+    },
+    async close() {
+      await piscina.destroy();
+    },
+  };
+}

@@ -1,0 +1,106 @@
+/**
+ * The worker-thread side of the service: reads the request body, checks the settings, clusters
+ * (or computes the k-distance curve) and encodes the response bytes, all off the main thread.
+ * Every outcome is returned as a WorkResult; errors caused by the client are never thrown, so
+ * their kind survives the trip back to the main thread.
+ */
+import { Buffer } from 'node:buffer';
+import { Piscina } from 'piscina';
+import { InputError } from '../ingest/types.js';
+import { clusterInput, resultDocument, suggestEpsInput } from '../run/cluster.js';
+import { resolveSettings, SettingsError } from '../run/settings.js';
+import { MAX_LISTED_PROBLEMS } from './errors.js';
+import type { WorkRejected, WorkResult, WorkTask } from './work.js';
+
+const SETTINGS_KEY = Buffer.from('"settings"');
+
+/**
+ * The `settings` member of a JSON body, or an empty object when there is none.
+ * The body is parsed here only when the bytes `"settings"` occur in it, so the common case
+ * (settings in the query string) parses the body once, in the reader.
+ */
+function bodySettings(body: Buffer): { settings: Record<string, unknown> } | { rejected: WorkRejected } {
+  if (body.indexOf(SETTINGS_KEY) < 0) return { settings: {} };
+  let doc: unknown;
+  try {
+    doc = JSON.parse(body.toString('utf8'));
+  } catch {
+    return { settings: {} }; // the reader reports the syntax error with its position
+  }
+  if (doc === null || typeof doc !== 'object' || Array.isArray(doc) || !('settings' in doc)) return { settings: {} };
+  const settings = (doc as { settings: unknown }).settings;
+  if (settings === null || typeof settings !== 'object' || Array.isArray(settings)) {
+    const detail = 'the "settings" member must be an object such as {"eps": 250, "min_points": 5}';
+    return { rejected: { ok: false, code: 'invalid-parameter', detail, extensions: { parameter: 'settings' } } };
+  }
+  return { settings: settings as Record<string, unknown> };
+}
+
+/** Bytes in their own ArrayBuffer (never Node's shared small-buffer pool), safe to transfer. */
+function ownBytes(text: string): Uint8Array {
+  const bytes = Buffer.allocUnsafeSlow(Buffer.byteLength(text, 'utf8'));
+  bytes.write(text, 'utf8');
+  return bytes;
+}
+
+/** Wraps a success so piscina transfers the body's ArrayBuffer instead of copying it. */
+function done(contentType: string, text: string): WorkResult {
+  const body = ownBytes(text);
+  const value: WorkResult = { ok: true, contentType, body };
+  return Piscina.move({
+    get [Piscina.transferableSymbol]() {
+      return body.buffer;
+    },
+    get [Piscina.valueSymbol]() {
+      return value;
+    },
+  } as unknown as ArrayBuffer) as unknown as WorkResult;
+}
+
+/** Whole-input problems that mean the body is not a readable document at all (400, not 422). */
+const UNREADABLE = /^(malformed-|not-geojson$)/;
+
+function rejectInput(err: InputError): WorkResult {
+  const codes = err.problems.map((p) => p.code);
+  if (codes.includes('too-many-features')) {
+    return { ok: false, code: 'body-too-large', detail: err.message, extensions: {} };
+  }
+  const unreadable = codes.length > 0 && codes.every((c) => UNREADABLE.test(c));
+  const listed = err.problems.slice(0, MAX_LISTED_PROBLEMS).map((p) => {
+    const out: Record<string, unknown> = { index: p.index };
+    if (p.id !== undefined) out.id = p.id;
+    out.code = p.code;
+    out.message = p.message;
+    return out;
+  });
+  return {
+    ok: false,
+    code: unreadable ? 'malformed-body' : 'invalid-observations',
+    detail: err.message,
+    extensions: { problems: listed, problems_total: Math.max(err.total, err.problems.length) },
+  };
+}
+
+/** Runs one task; the default export piscina calls. */
+export default function work(task: WorkTask): WorkResult {
+  const body = Buffer.from(task.body.buffer, task.body.byteOffset, task.body.byteLength);
+  try {
+    const fromBody = task.format === 'geojson' ? bodySettings(body) : { settings: {} };
+    if ('rejected' in fromBody) return fromBody.rejected;
+    // the query string wins over the body's settings member, parameter by parameter
+    const settings = resolveSettings({ ...fromBody.settings, ...task.query });
+    if (task.op === 'k-distance') {
+      return done('application/json', JSON.stringify(suggestEpsInput(body, task.format, settings)));
+    }
+    const result = clusterInput(body, task.format, settings);
+    if (task.layer === null) return done('application/json', resultDocument(result));
+    return done('application/geo+json', result.layers[task.layer]);
+  } catch (err) {
+    if (err instanceof SettingsError) {
+      return { ok: false, code: 'invalid-parameter', detail: err.message, extensions: { parameter: err.parameter } };
+    }
+    if (err instanceof InputError) return rejectInput(err);
+    const e = err instanceof Error ? err : new Error(String(err));
+    return { ok: false, code: 'internal-error', detail: e.message, stack: e.stack };
+  }
+}
