@@ -187,8 +187,9 @@ export function buildProgram(setExit: (code: number) => void): Command {
           process.stdout.write(answer.eps_meters === null ? `no knee found: ${String(answer.message)}\n` : `suggested eps: ${String(answer.eps_meters)} m (${String(answer.message)})\n`);
           const warnings = (answer.warnings as { message: string }[] | undefined) ?? [];
           for (const w of warnings) process.stdout.write(`warning: ${w.message}\n`);
-          process.stdout.write('rank\tmetres\n');
-          for (let i = 0; i < curve.rank.length; i++) process.stdout.write(`${curve.rank[i]}\t${curve.meters[i]}\n`);
+          const lines = ['rank\tmetres'];
+          for (let i = 0; i < curve.rank.length; i++) lines.push(`${curve.rank[i]}\t${curve.meters[i]}`);
+          process.stdout.write(lines.join('\n') + '\n');
         }
         setExit(EXIT.ok);
       } catch (err) {

@@ -12,7 +12,7 @@ import { clusteringWarnings } from '../core/warnings.js';
 import { geometryAreaKm2 } from '../geometry/area.js';
 import { clarkEvans, nearestNeighbourMeters } from '../geometry/clark-evans.js';
 import { hotspotFigures, resultFigures, type HotspotFigures } from '../geometry/figures.js';
-import { bboxOf, featureCollectionString, featureString } from '../geometry/geojson.js';
+import { bboxOf, bboxOfPositions, featureCollectionString, featureString } from '../geometry/geojson.js';
 import { hotspotHull, type HullGeometry } from '../geometry/hull.js';
 import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
@@ -205,19 +205,23 @@ export function clusterObservations(
   }
   const pointStrings = new Array<string>(points.n);
   const noiseStrings: string[] = [];
+  const noiseLon = new Float64Array(points.n);
+  const noiseLat = new Float64Array(points.n);
+  let noiseCount = 0;
   for (let i = 0; i < points.n; i++) {
     const s = pointFeature(features[i], clustering.labels[i], clustering.roles[i]);
     pointStrings[i] = s;
-    if (clustering.labels[i] < 0) noiseStrings.push(s);
+    if (clustering.labels[i] < 0) {
+      noiseStrings.push(s);
+      noiseLon[noiseCount] = points.lon[i];
+      noiseLat[noiseCount++] = points.lat[i];
+    }
   }
-  const noiseIdx: number[] = [];
-  for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseIdx.push(i);
-  const allIdx = Array.from({ length: points.n }, (_, i) => i);
   const layers = {
     hotspots: featureCollectionString(hotspotFeatures, bboxOf(hulls)),
     centres: featureCollectionString(centreFeatures, bboxOf(figures.map((f) => ({ type: 'Point' as const, coordinates: f.centre })))),
-    noise: featureCollectionString(noiseStrings, bboxOf(noiseIdx.map((i) => features[i].geometry))),
-    points: featureCollectionString(pointStrings, bboxOf(allIdx.map((i) => features[i].geometry))),
+    noise: featureCollectionString(noiseStrings, bboxOfPositions(noiseLon.subarray(0, noiseCount), noiseLat.subarray(0, noiseCount))),
+    points: featureCollectionString(pointStrings, bboxOfPositions(points.lon, points.lat)),
   };
   timer.stop();
 
@@ -293,6 +297,8 @@ export function suggestEpsInput(input: Buffer | string, format: InputFormat | un
   const { observations } = applyFilter(obs, { since: settings.since, until: settings.until, where: settings.where });
   const minPoints = Math.max(2, settings.minPoints);
   const s = suggestEps(observations.points, minPoints);
+  // The warning signs are read off a DBSCAN run at the suggested eps.
+  const warnings = s.epsMeters === null ? [] : clusteringWarnings(dbscan(observations.points, { epsMeters: s.epsMeters, minPoints }));
   return {
     min_points: minPoints,
     k: s.k,
@@ -301,6 +307,7 @@ export function suggestEpsInput(input: Buffer | string, format: InputFormat | un
     eps_meters: s.epsMeters === null ? null : round(s.epsMeters, 1),
     knee_index: s.kneeIndex,
     message: s.message,
+    warnings,
     curve: { rank: s.curve.rank, meters: s.curve.meters.map((m) => round(m, 2)) },
   };
 }
