@@ -7,15 +7,14 @@
  * Albrecht, Irwin, Raghavan 2011, "Finding a 'Kneedle' in a Haystack: Detecting Knee Points in
  * System Behavior").
  *
- * Nearest neighbours come from geokdbush's `around` (a k-d tree over longitude/latitude searched
- * with great-circle lower bounds, exact at the poles and across ±180°); its kilometre distances
- * on a 6371 km sphere are not used: the distance of the k-th neighbour is recomputed with
- * `haversineMeters` on our radius. Measured against an expanding search over the sphere grid it
- * needs no radius guess, which matters for data whose density varies by orders of magnitude.
+ * Nearest neighbours come from a k-d tree over the points' unit vectors (3-D, splitting each node
+ * on its widest axis): straight-line chord length grows monotonically with great-circle distance,
+ * so the k nearest by chord are the k nearest on the ground, with no special case at the poles or
+ * at ±180° and no trigonometry in the search. Measured on 100 000 seeded points (k = 4) it ran
+ * several times faster than geokdbush's `around`, whose per-query objects and longitude/latitude
+ * bounds cost more; geokdbush stays the independent check in the tests' brute-force comparisons.
  */
-import KDBush from 'kdbush';
-import { around } from 'geokdbush';
-import { haversineMeters } from './haversine.js';
+import { metersForChord2, unitVectors } from './haversine.js';
 import type { PointSet } from './types.js';
 
 /** Largest number of points whose k-distance is computed; larger sets are sampled (seeded). */
@@ -50,6 +49,158 @@ function sampleIds(n: number, count: number, seed: number): Int32Array {
   return ids.slice(0, count).sort();
 }
 
+/** Points per leaf of the chord tree; small leaves suit the small k of k-distance curves. */
+const LEAF_SIZE = 16;
+
+/**
+ * A static k-d tree over unit vectors, stored implicitly as in kdbush: the node over ids[l..r]
+ * splits at m = (l + r) >> 1 on axis[m]; smaller coordinates left of m, larger right.
+ */
+class ChordTree {
+  private readonly ids: Int32Array;
+  /** coordinates in tree order, stride 3 */
+  private readonly xyz: Float64Array;
+  private readonly axis: Uint8Array;
+  /** query vector and the best k squared chords found so far, kept as a sorted list */
+  private qx = 0;
+  private qy = 0;
+  private qz = 0;
+  private best = new Float64Array(16);
+  private filled = 0;
+  private k = 0;
+  private self = -1;
+  private readonly src: Float64Array;
+
+  constructor(xyz: Float64Array) {
+    const n = xyz.length / 3;
+    this.src = xyz;
+    const ids = new Int32Array(n);
+    for (let i = 0; i < n; i++) ids[i] = i;
+    this.axis = new Uint8Array(n);
+    const coords = Float64Array.from(xyz);
+    // explicit stack of ranges still to split
+    const stack: number[] = [0, n - 1];
+    while (stack.length > 0) {
+      const r = stack.pop() as number;
+      const l = stack.pop() as number;
+      if (r - l <= LEAF_SIZE) continue;
+      // widest axis of this node's bounding box
+      let lo0 = Infinity, hi0 = -Infinity, lo1 = Infinity, hi1 = -Infinity, lo2 = Infinity, hi2 = -Infinity;
+      for (let a = l; a <= r; a++) {
+        const x = coords[3 * a], y = coords[3 * a + 1], z = coords[3 * a + 2];
+        if (x < lo0) lo0 = x;
+        if (x > hi0) hi0 = x;
+        if (y < lo1) lo1 = y;
+        if (y > hi1) hi1 = y;
+        if (z < lo2) lo2 = z;
+        if (z > hi2) hi2 = z;
+      }
+      const w0 = hi0 - lo0, w1 = hi1 - lo1, w2 = hi2 - lo2;
+      const ax = w0 >= w1 && w0 >= w2 ? 0 : w1 >= w2 ? 1 : 2;
+      const m = (l + r) >> 1;
+      select(ids, coords, m, l, r, ax);
+      this.axis[m] = ax;
+      stack.push(l, m - 1, m + 1, r);
+    }
+    this.ids = ids;
+    this.xyz = coords;
+  }
+
+  /** Squared chord from point i to its k-th nearest other point (exact duplicates count, at 0). */
+  kthChord2(i: number, k: number): number {
+    this.qx = this.src[3 * i];
+    this.qy = this.src[3 * i + 1];
+    this.qz = this.src[3 * i + 2];
+    this.self = i;
+    this.k = k;
+    if (this.best.length < k) this.best = new Float64Array(k);
+    this.filled = 0;
+    this.search(0, this.ids.length - 1);
+    return this.best[k - 1];
+  }
+
+  /** Worst of the kept distances, Infinity while fewer than k are kept. */
+  private bound(): number {
+    return this.filled < this.k ? Infinity : this.best[this.k - 1];
+  }
+
+  private offer(a: number): void {
+    if (this.ids[a] === this.self) return;
+    const dx = this.xyz[3 * a] - this.qx;
+    const dy = this.xyz[3 * a + 1] - this.qy;
+    const dz = this.xyz[3 * a + 2] - this.qz;
+    const d2 = dx * dx + dy * dy + dz * dz;
+    if (d2 >= this.bound()) return;
+    // insertion into the short sorted list of the k best
+    const best = this.best;
+    let p = this.filled < this.k ? this.filled++ : this.k - 1;
+    while (p > 0 && best[p - 1] > d2) {
+      best[p] = best[p - 1];
+      p--;
+    }
+    best[p] = d2;
+  }
+
+  private search(l: number, r: number): void {
+    if (r - l <= LEAF_SIZE) {
+      for (let a = l; a <= r; a++) this.offer(a);
+      return;
+    }
+    const m = (l + r) >> 1;
+    this.offer(m);
+    const ax = this.axis[m];
+    const q = ax === 0 ? this.qx : ax === 1 ? this.qy : this.qz;
+    const gap = q - this.xyz[3 * m + ax];
+    // nearer side first; the far side only if the splitting plane is closer than the k-th best
+    if (gap <= 0) {
+      if (l <= m - 1) this.search(l, m - 1);
+      if (gap * gap < this.bound() && m + 1 <= r) this.search(m + 1, r);
+    } else {
+      if (m + 1 <= r) this.search(m + 1, r);
+      if (gap * gap < this.bound() && l <= m - 1) this.search(l, m - 1);
+    }
+  }
+}
+
+/**
+ * Quickselect (Hoare partition around the middle element's value) of ids/coords[l..r] on axis ax,
+ * so that position k holds the k-th smallest, smaller or equal values before it, larger or equal after.
+ */
+function select(ids: Int32Array, c: Float64Array, k: number, l: number, r: number, ax: number): void {
+  while (r > l) {
+    const t = c[3 * k + ax];
+    swap(ids, c, l, k);
+    if (c[3 * r + ax] > t) swap(ids, c, l, r);
+    let i = l;
+    let j = r;
+    while (i < j) {
+      swap(ids, c, i, j);
+      i++;
+      j--;
+      while (c[3 * i + ax] < t) i++;
+      while (c[3 * j + ax] > t) j--;
+    }
+    if (c[3 * l + ax] === t) swap(ids, c, l, j);
+    else {
+      j++;
+      swap(ids, c, j, r);
+    }
+    if (j <= k) l = j + 1;
+    if (k <= j) r = j - 1;
+  }
+}
+
+function swap(ids: Int32Array, c: Float64Array, a: number, b: number): void {
+  const t = ids[a];
+  ids[a] = ids[b];
+  ids[b] = t;
+  for (let d = 0; d < 3; d++) {
+    const u = c[3 * a + d];
+    c[3 * a + d] = c[3 * b + d];
+    c[3 * b + d] = u;
+  }
+}
+
 /**
  * Great-circle distance in metres from each point to its k-th nearest other point, sorted
  * ascending. Exact duplicates of a point count as other points at distance 0.
@@ -67,22 +218,11 @@ export function kDistances(points: PointSet, k: number, options: { sampleSize?: 
   if (k >= n) throw new RangeError(`k-distance needs more than k points: k = ${k}, but there are ${n}; lower k or add points`);
   const sampleSize = options.sampleSize ?? DEFAULT_KDIST_SAMPLE;
   if (!Number.isInteger(sampleSize) || sampleSize < 1) throw new RangeError(`sampleSize must be a whole number ≥ 1, got ${sampleSize}`);
-  const { lon, lat } = points;
-  const tree = new KDBush(n, 64, Float64Array);
-  for (let i = 0; i < n; i++) tree.add(lon[i], lat[i]);
-  tree.finish();
-
+  const tree = new ChordTree(unitVectors(points.lon, points.lat));
   const ids = n > sampleSize ? sampleIds(n, sampleSize, options.seed ?? 1) : null;
   const m = ids ? ids.length : n;
   const out = new Float64Array(m);
-  let self = 0;
-  const notSelf = (id: number): boolean => id !== self;
-  for (let s = 0; s < m; s++) {
-    self = ids ? ids[s] : s;
-    const near = around(tree, lon[self], lat[self], k, Infinity, notSelf);
-    const j = near[k - 1];
-    out[s] = haversineMeters(lon[self], lat[self], lon[j], lat[j]);
-  }
+  for (let s = 0; s < m; s++) out[s] = metersForChord2(tree.kthChord2(ids ? ids[s] : s, k));
   return out.sort();
 }
 

@@ -1,9 +1,11 @@
+import KDBush from 'kdbush';
+import { around } from 'geokdbush';
 import { describe, expect, it } from 'vitest';
 import { dbscan } from '../../src/core/dbscan.js';
 import { haversineMeters } from '../../src/core/haversine.js';
 import { kDistances, kneedle, suggestEps } from '../../src/core/kdistance.js';
 import { pointSet, type PointSet } from '../../src/core/types.js';
-import { antimeridianSet, duplicatesSet, globalUniformSet, midLatitudeSet, poleSet } from '../reference/seeded.js';
+import { antimeridianSet, duplicatesSet, globalUniformSet, midLatitudeSet, poleSet, realisticSet } from '../reference/seeded.js';
 
 /** Brute force: for each point the k-th smallest haversine distance to the other points. */
 function bruteKDistances(p: PointSet, k: number): number[] {
@@ -35,6 +37,23 @@ describe('kDistances', () => {
       }
     });
   }
+
+  it('agrees with geokdbush on larger sets', () => {
+    // source: geokdbush `around` (k nearest by great-circle distance over a kdbush index)
+    for (const p of [realisticSet(4000, 9), globalUniformSet(4000, 10)]) {
+      const tree = new KDBush(p.n);
+      for (let i = 0; i < p.n; i++) tree.add(p.lon[i], p.lat[i]);
+      tree.finish();
+      const want: number[] = [];
+      for (let i = 0; i < p.n; i++) {
+        const j = around(tree, p.lon[i], p.lat[i], 5, Infinity, (id: number) => id !== i)[4];
+        want.push(haversineMeters(p.lon[i], p.lat[i], p.lon[j], p.lat[j]));
+      }
+      want.sort((a, b) => a - b);
+      const got = kDistances(p, 5);
+      for (let i = 0; i < p.n; i++) expect(got[i]).toBeCloseTo(want[i], 6);
+    }
+  });
 
   it('samples large sets deterministically, with exact distances for the sampled points', () => {
     const p = midLatitudeSet(6);
