@@ -1,0 +1,222 @@
+/**
+ * What both engines share: argument checks, cursors, run ids and the ingest classification
+ * (which records are new, duplicate, replaced or conflicting), so that the two engines differ only
+ * in their SQL.
+ */
+import type {
+  DatasetPatch,
+  IngestOptions,
+  IngestResult,
+  NewDataset,
+  ObservationQuery,
+  ObservationRecord,
+  RunPatch,
+  RunStatus,
+  WhereCondition,
+} from './store.js';
+import { RUN_STATUSES, StoreError } from './store.js';
+
+const DATASET_ID = /^[A-Za-z0-9._~-]{1,128}$/;
+
+/** @throws StoreError 'invalid' when the id is not 1–128 URL-safe characters */
+export function checkDatasetId(id: string): void {
+  if (typeof id !== 'string' || !DATASET_ID.test(id)) {
+    throw new StoreError('invalid', `dataset id ${JSON.stringify(id)} must be 1 to 128 characters from A-Z a-z 0-9 . _ ~ -`);
+  }
+}
+
+function isPlainObject(v: unknown): v is Record<string, unknown> {
+  return typeof v === 'object' && v !== null && !Array.isArray(v);
+}
+
+/** Checks the fields a new dataset or a patch carries. @throws StoreError 'invalid' */
+export function checkDatasetFields(d: DatasetPatch | NewDataset): void {
+  if (d.name !== undefined && (typeof d.name !== 'string' || d.name.trim() === '')) throw new StoreError('invalid', 'dataset name must be a non-empty string');
+  if (d.settings !== undefined && !isPlainObject(d.settings)) throw new StoreError('invalid', 'dataset settings must be a JSON object, for example {"eps": 250, "min_points": 5}');
+  if (d.idProperty !== undefined && d.idProperty !== null && (typeof d.idProperty !== 'string' || d.idProperty === '')) throw new StoreError('invalid', 'idProperty must be a property name or null');
+  if (d.window !== undefined && d.window !== null && (typeof d.window !== 'string' || d.window === '')) throw new StoreError('invalid', 'window must be an ISO 8601 duration such as "P30D", or null');
+  if (d.schedule !== undefined && d.schedule !== null && (!isPlainObject(d.schedule) || typeof d.schedule.cron !== 'string' || typeof d.schedule.timezone !== 'string')) {
+    throw new StoreError('invalid', 'schedule must be {"cron": "...", "timezone": "..."} or null');
+  }
+  if (d.webhook !== undefined && d.webhook !== null && (!isPlainObject(d.webhook) || typeof d.webhook.url !== 'string' || typeof d.webhook.secret !== 'string')) {
+    throw new StoreError('invalid', 'webhook must be {"url": "...", "secret": "..."} or null');
+  }
+}
+
+/** @throws StoreError 'invalid' naming the first malformed record (a caller bug: the ingest layer checks input first) */
+export function checkRecords(records: ObservationRecord[]): void {
+  if (!Array.isArray(records)) throw new StoreError('invalid', 'records must be an array');
+  for (let i = 0; i < records.length; i++) {
+    const r = records[i] as ObservationRecord;
+    const bad =
+      typeof r.id !== 'string' || r.id === '' ? 'id must be a non-empty string'
+      : !(r.lon >= -180 && r.lon <= 180) ? 'lon must be a number in [-180, 180]'
+      : !(r.lat >= -90 && r.lat <= 90) ? 'lat must be a number in [-90, 90]'
+      : r.observedAt !== null && !Number.isSafeInteger(r.observedAt) ? 'observedAt must be whole epoch milliseconds or null'
+      : r.weight !== null && !Number.isFinite(r.weight) ? 'weight must be a finite number or null'
+      : typeof r.feature !== 'string' || typeof r.contentHash !== 'string' ? 'feature and contentHash must be strings'
+      : null;
+    if (bad !== null) throw new StoreError('invalid', `record ${i}: ${bad}`);
+  }
+}
+
+/** @throws StoreError 'invalid' for a malformed bbox, window or condition */
+export function checkQuery(q: ObservationQuery): void {
+  if (q.bbox !== undefined) {
+    const b = q.bbox;
+    if (!Array.isArray(b) || b.length !== 4 || !b.every(Number.isFinite)) throw new StoreError('invalid', 'bbox must be [west, south, east, north] in degrees');
+    if (b[1] > b[3]) throw new StoreError('invalid', 'bbox south must not exceed north');
+  }
+  if (q.from !== undefined && !Number.isFinite(q.from)) throw new StoreError('invalid', 'from must be epoch milliseconds');
+  if (q.to !== undefined && !Number.isFinite(q.to)) throw new StoreError('invalid', 'to must be epoch milliseconds');
+  for (const c of q.where ?? []) {
+    if (typeof c.property !== 'string' || c.property === '' || typeof c.value !== 'string') throw new StoreError('invalid', 'where conditions must be {property, value} strings');
+  }
+}
+
+/** @throws StoreError 'invalid' unless 1 ≤ limit ≤ max */
+export function checkLimit(limit: number, max = 10_000): void {
+  if (!Number.isInteger(limit) || limit < 1 || limit > max) throw new StoreError('invalid', `limit must be an integer from 1 to ${max}`);
+}
+
+/** Opaque cursor for a position in a sequence (base64url of a small JSON object). */
+export function encodeCursor(seq: number): string {
+  return Buffer.from(JSON.stringify({ s: seq })).toString('base64url');
+}
+
+/** @throws StoreError 'invalid' when the cursor was not made by `encodeCursor` */
+export function decodeCursor(cursor: string): number {
+  try {
+    const v = JSON.parse(Buffer.from(cursor, 'base64url').toString('utf8')) as { s?: unknown };
+    if (typeof v.s === 'number' && Number.isSafeInteger(v.s) && v.s >= 0) return v.s;
+  } catch {
+    // fall through to the error below
+  }
+  throw new StoreError('invalid', 'cursor is not one this service issued; start again without a cursor');
+}
+
+/** "r" and at least six digits. */
+export function formatRunId(seq: number): string {
+  return `r${String(seq).padStart(6, '0')}`;
+}
+
+/** The sequence number of a run id, or null when the text is not a run id. */
+export function parseRunId(runId: string): number | null {
+  const m = typeof runId === 'string' ? /^r(\d{1,15})$/.exec(runId) : null;
+  return m === null ? null : Number(m[1]);
+}
+
+/** @throws StoreError 'invalid' for an unknown status or progress outside 0–100 */
+export function checkRunPatch(p: RunPatch): void {
+  if (p.status !== undefined && !RUN_STATUSES.includes(p.status)) throw new StoreError('invalid', `status must be one of ${RUN_STATUSES.join(', ')}`);
+  if (p.progress !== undefined && !(p.progress >= 0 && p.progress <= 100)) throw new StoreError('invalid', 'progress must be a number from 0 to 100');
+  if (p.summary != null && !isPlainObject(p.summary)) throw new StoreError('invalid', 'summary must be a JSON object or null');
+  if (p.timings != null && !isPlainObject(p.timings)) throw new StoreError('invalid', 'timings must be an object of milliseconds or null');
+}
+
+export function checkStatuses(s: RunStatus[]): void {
+  for (const x of s) if (!RUN_STATUSES.includes(x)) throw new StoreError('invalid', `status must be one of ${RUN_STATUSES.join(', ')}`);
+}
+
+/** The slot instant normalised to RFC 3339 UTC with milliseconds. @throws StoreError 'invalid' */
+export function normaliseSlot(slotIso: string): string {
+  const t = typeof slotIso === 'string' ? Date.parse(slotIso) : NaN;
+  if (!Number.isFinite(t)) throw new StoreError('invalid', `slot ${JSON.stringify(slotIso)} is not an RFC 3339 instant`);
+  return new Date(t).toISOString();
+}
+
+/** What one ingest call will do, decided from the batch and the hashes already stored for its ids. */
+export interface IngestPlan {
+  result: IngestResult;
+  insert: ObservationRecord[];
+  replace: ObservationRecord[];
+}
+
+/** The distinct ids of a batch, in first-seen order. */
+export function batchIds(records: ObservationRecord[]): string[] {
+  const seen = new Set<string>();
+  for (const r of records) seen.add(r.id);
+  return [...seen];
+}
+
+/**
+ * Classifies a batch against the stored hashes (`stored`: id → content hash for the batch's ids
+ * already in the dataset). Lists keep batch order.
+ */
+export function planIngest(records: ObservationRecord[], stored: Map<string, string>, options: IngestOptions): IngestPlan {
+  const first = new Map<string, ObservationRecord>();
+  const inBatchConflict = new Set<string>();
+  const duplicates: string[] = [];
+  for (const r of records) {
+    const f = first.get(r.id);
+    if (f === undefined) first.set(r.id, r);
+    else if (f.contentHash === r.contentHash) duplicates.push(r.id);
+    else inBatchConflict.add(r.id);
+  }
+  const accepted: string[] = [];
+  const replaced: string[] = [];
+  const conflicts: string[] = [];
+  const insert: ObservationRecord[] = [];
+  const replace: ObservationRecord[] = [];
+  for (const [id, r] of first) {
+    if (inBatchConflict.has(id)) {
+      conflicts.push(id);
+      continue;
+    }
+    const hash = stored.get(id);
+    if (hash === undefined) {
+      accepted.push(id);
+      insert.push(r);
+    } else if (hash === r.contentHash) {
+      duplicates.push(id);
+    } else if (options.replace) {
+      replaced.push(id);
+      replace.push(r);
+    } else {
+      conflicts.push(id);
+    }
+  }
+  // duplicates found in the batch pass come before those found against the store; restore batch order
+  if (duplicates.length > 1) {
+    const order = new Map<string, number>();
+    records.forEach((r, i) => order.has(r.id) || order.set(r.id, i));
+    duplicates.sort((a, b) => (order.get(a) as number) - (order.get(b) as number));
+  }
+  const rejected = options.rejected?.length ?? 0;
+  const stored_ = options.partial || (conflicts.length === 0 && rejected === 0);
+  return {
+    result: { accepted, duplicates, replaced, conflicts, stored: stored_ },
+    insert: stored_ ? insert : [],
+    replace: stored_ ? replace : [],
+  };
+}
+
+/**
+ * How a `where` value can match: always as a string; also as a boolean, null or number when the
+ * text is exactly how that value is written (JavaScript's `String(v)`), which is the rule of the
+ * file filter in src/ingest/filter.ts.
+ */
+export interface WhereMatch {
+  property: string;
+  text: string;
+  bool: boolean | null;
+  isNull: boolean;
+  number: number | null;
+}
+
+export function whereMatches(where: WhereCondition[] | undefined): WhereMatch[] {
+  return (where ?? []).map((c) => {
+    const n = Number(c.value);
+    return {
+      property: c.property,
+      text: c.value,
+      bool: c.value === 'true' ? true : c.value === 'false' ? false : null,
+      isNull: c.value === 'null',
+      number: Number.isFinite(n) && String(n) === c.value ? n : null,
+    };
+  });
+}
+
+export function nowIso(): string {
+  return new Date().toISOString();
+}

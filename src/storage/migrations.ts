@@ -1,0 +1,165 @@
+/**
+ * Versioned schema migrations for both engines. Each version is applied once, in order, inside a
+ * transaction, and recorded in `schema_migrations`; a version already recorded is skipped, so
+ * running the list again is harmless. Add new versions at the end; never edit an applied one.
+ *
+ * Design notes
+ * - Observations carry an insertion sequence (`seq`) that orders listings and run input.
+ * - `observed_at` is epoch milliseconds (an integer), so windows compare numbers, not text.
+ * - The feature is TEXT in both engines so it comes back byte for byte (PostgreSQL's JSONB would
+ *   reorder keys and drop duplicates and whitespace).
+ * - Run ids come from one global sequence (SQLite AUTOINCREMENT, PostgreSQL identity), never reused.
+ */
+
+export interface Migration {
+  version: number;
+  name: string;
+  sqlite: string;
+  postgres: string;
+}
+
+export const MIGRATIONS: readonly Migration[] = [
+  {
+    version: 1,
+    name: 'datasets, observations, runs, run results, schedule slots',
+    sqlite: `
+      CREATE TABLE datasets (
+        id TEXT PRIMARY KEY,
+        name TEXT NOT NULL,
+        settings TEXT NOT NULL,
+        id_property TEXT,
+        time_window TEXT,
+        schedule TEXT,
+        webhook TEXT,
+        created_at TEXT NOT NULL,
+        updated_at TEXT NOT NULL
+      );
+      CREATE TABLE observations (
+        seq INTEGER PRIMARY KEY,
+        dataset_id TEXT NOT NULL REFERENCES datasets(id) ON DELETE CASCADE,
+        obs_id TEXT NOT NULL,
+        lon REAL NOT NULL,
+        lat REAL NOT NULL,
+        observed_at INTEGER,
+        weight REAL,
+        content_hash TEXT NOT NULL,
+        feature TEXT NOT NULL,
+        UNIQUE (dataset_id, obs_id)
+      );
+      CREATE INDEX observations_by_seq ON observations (dataset_id, seq);
+      CREATE INDEX observations_by_time ON observations (dataset_id, observed_at);
+      CREATE TABLE runs (
+        seq INTEGER PRIMARY KEY AUTOINCREMENT,
+        dataset_id TEXT NOT NULL REFERENCES datasets(id) ON DELETE CASCADE,
+        status TEXT NOT NULL CHECK (status IN ('queued', 'running', 'succeeded', 'failed', 'cancelled')),
+        trigger TEXT NOT NULL CHECK (trigger IN ('request', 'schedule', 'command')),
+        settings TEXT NOT NULL,
+        progress REAL NOT NULL DEFAULT 0,
+        error TEXT,
+        worker_id TEXT,
+        created_at TEXT NOT NULL,
+        started_at TEXT,
+        finished_at TEXT,
+        updated_at TEXT NOT NULL,
+        updated_ms INTEGER NOT NULL,
+        summary TEXT,
+        timings TEXT
+      );
+      CREATE INDEX runs_by_dataset ON runs (dataset_id, seq);
+      CREATE INDEX runs_queued ON runs (status, seq);
+      CREATE TABLE run_layers (
+        run_seq INTEGER NOT NULL REFERENCES runs(seq) ON DELETE CASCADE,
+        layer TEXT NOT NULL,
+        body TEXT NOT NULL,
+        PRIMARY KEY (run_seq, layer)
+      );
+      CREATE TABLE run_hotspots (
+        run_seq INTEGER NOT NULL REFERENCES runs(seq) ON DELETE CASCADE,
+        hotspot_id INTEGER NOT NULL,
+        track_id TEXT,
+        members TEXT NOT NULL,
+        core_members TEXT NOT NULL,
+        member_count INTEGER NOT NULL,
+        hull TEXT NOT NULL,
+        figures TEXT,
+        PRIMARY KEY (run_seq, hotspot_id)
+      );
+      CREATE INDEX run_hotspots_by_track ON run_hotspots (track_id, run_seq);
+      CREATE TABLE schedule_slots (
+        dataset_id TEXT NOT NULL REFERENCES datasets(id) ON DELETE CASCADE,
+        slot TEXT NOT NULL,
+        claimed_at TEXT NOT NULL,
+        PRIMARY KEY (dataset_id, slot)
+      );
+    `,
+    postgres: `
+      CREATE TABLE datasets (
+        id TEXT PRIMARY KEY,
+        name TEXT NOT NULL,
+        settings JSONB NOT NULL,
+        id_property TEXT,
+        time_window TEXT,
+        schedule JSONB,
+        webhook JSONB,
+        created_at TIMESTAMPTZ NOT NULL,
+        updated_at TIMESTAMPTZ NOT NULL
+      );
+      CREATE TABLE observations (
+        seq BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY,
+        dataset_id TEXT NOT NULL REFERENCES datasets(id) ON DELETE CASCADE,
+        obs_id TEXT NOT NULL,
+        lon DOUBLE PRECISION NOT NULL,
+        lat DOUBLE PRECISION NOT NULL,
+        observed_at BIGINT,
+        weight DOUBLE PRECISION,
+        content_hash TEXT NOT NULL,
+        feature TEXT NOT NULL,
+        UNIQUE (dataset_id, obs_id)
+      );
+      CREATE INDEX observations_by_seq ON observations (dataset_id, seq);
+      CREATE INDEX observations_by_time ON observations (dataset_id, observed_at);
+      CREATE TABLE runs (
+        seq BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY,
+        dataset_id TEXT NOT NULL REFERENCES datasets(id) ON DELETE CASCADE,
+        status TEXT NOT NULL CHECK (status IN ('queued', 'running', 'succeeded', 'failed', 'cancelled')),
+        trigger TEXT NOT NULL CHECK (trigger IN ('request', 'schedule', 'command')),
+        settings JSONB NOT NULL,
+        progress DOUBLE PRECISION NOT NULL DEFAULT 0,
+        error TEXT,
+        worker_id TEXT,
+        created_at TIMESTAMPTZ NOT NULL,
+        started_at TIMESTAMPTZ,
+        finished_at TIMESTAMPTZ,
+        updated_at TIMESTAMPTZ NOT NULL,
+        summary JSONB,
+        timings JSONB
+      );
+      CREATE INDEX runs_by_dataset ON runs (dataset_id, seq);
+      CREATE INDEX runs_queued ON runs (seq) WHERE status = 'queued';
+      CREATE TABLE run_layers (
+        run_seq BIGINT NOT NULL REFERENCES runs(seq) ON DELETE CASCADE,
+        layer TEXT NOT NULL,
+        body TEXT NOT NULL,
+        PRIMARY KEY (run_seq, layer)
+      );
+      CREATE TABLE run_hotspots (
+        run_seq BIGINT NOT NULL REFERENCES runs(seq) ON DELETE CASCADE,
+        hotspot_id INTEGER NOT NULL,
+        track_id TEXT,
+        members TEXT NOT NULL,
+        core_members TEXT NOT NULL,
+        member_count INTEGER NOT NULL,
+        hull TEXT NOT NULL,
+        figures JSONB,
+        PRIMARY KEY (run_seq, hotspot_id)
+      );
+      CREATE INDEX run_hotspots_by_track ON run_hotspots (track_id, run_seq);
+      CREATE TABLE schedule_slots (
+        dataset_id TEXT NOT NULL REFERENCES datasets(id) ON DELETE CASCADE,
+        slot TIMESTAMPTZ NOT NULL,
+        claimed_at TIMESTAMPTZ NOT NULL,
+        PRIMARY KEY (dataset_id, slot)
+      );
+    `,
+  },
+];

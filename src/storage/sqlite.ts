@@ -1,0 +1,524 @@
+/**
+ * The SQLite engine (better-sqlite3): one file, WAL mode, foreign keys on, no setup. Statements run
+ * synchronously inside the async methods; each method is one transaction, and those that read then
+ * write (ingest, claims) take the write lock first (BEGIN IMMEDIATE) so that another process on the
+ * same file cannot slip in between.
+ */
+import Database from 'better-sqlite3';
+import type {
+  Dataset,
+  DatasetPatch,
+  IngestOptions,
+  IngestResult,
+  InterruptedRunFilter,
+  ListObservationsOptions,
+  NewDataset,
+  NewRun,
+  ObservationPage,
+  ObservationQuery,
+  ObservationRecord,
+  Run,
+  RunHotspot,
+  RunLayer,
+  RunPage,
+  RunPatch,
+  RunResult,
+  RunStatus,
+  RunInput,
+  Store,
+  TrackPoint,
+} from './store.js';
+import { RUN_LAYERS, RUN_TRIGGERS, StoreError } from './store.js';
+import {
+  batchIds,
+  checkDatasetFields,
+  checkDatasetId,
+  checkLimit,
+  checkQuery,
+  checkRecords,
+  checkRunPatch,
+  checkStatuses,
+  decodeCursor,
+  encodeCursor,
+  formatRunId,
+  normaliseSlot,
+  nowIso,
+  parseRunId,
+  planIngest,
+  whereMatches,
+} from './common.js';
+import { MIGRATIONS } from './migrations.js';
+
+export interface SqliteStoreOptions {
+  /** database file; ':memory:' for a private in-memory database (tests) */
+  path: string;
+  /** 'NORMAL' (default): durable across process crashes; 'FULL': also across power loss, one fsync per commit */
+  synchronous?: 'NORMAL' | 'FULL';
+  /** how long to wait for another process's write lock, milliseconds; default 10 000 */
+  busyTimeoutMs?: number;
+}
+
+type Row = Record<string, unknown>;
+
+/** SQLite has a limit on bound parameters per statement (32 766 in recent builds); stay well below. */
+const IN_CHUNK = 500;
+
+/** Opens (creating when needed) an SQLite store; call `migrate()` before use. */
+export function openSqliteStore(options: SqliteStoreOptions): SqliteStore {
+  return new SqliteStore(options);
+}
+
+export class SqliteStore implements Store {
+  readonly engine = 'sqlite' as const;
+  readonly db: Database.Database;
+  private closed = false;
+
+  constructor(options: SqliteStoreOptions) {
+    if (typeof options.path !== 'string' || options.path === '') throw new StoreError('invalid', 'SQLite path must be a file name (or ":memory:")');
+    this.db = new Database(options.path);
+    this.db.pragma(`busy_timeout = ${Math.max(0, Math.round(options.busyTimeoutMs ?? 10_000))}`);
+    this.db.pragma('journal_mode = WAL');
+    this.db.pragma(`synchronous = ${options.synchronous === 'FULL' ? 'FULL' : 'NORMAL'}`);
+    this.db.pragma('foreign_keys = ON');
+  }
+
+  async migrate(): Promise<void> {
+    this.db.exec('CREATE TABLE IF NOT EXISTS schema_migrations (version INTEGER PRIMARY KEY, name TEXT NOT NULL, applied_at TEXT NOT NULL)');
+    const apply = this.db.transaction(() => {
+      const done = new Set((this.db.prepare('SELECT version FROM schema_migrations').pluck().all() as number[]));
+      for (const m of MIGRATIONS) {
+        if (done.has(m.version)) continue;
+        this.db.exec(m.sqlite);
+        this.db.prepare('INSERT INTO schema_migrations (version, name, applied_at) VALUES (?, ?, ?)').run(m.version, m.name, nowIso());
+      }
+    });
+    apply.immediate();
+  }
+
+  async close(): Promise<void> {
+    if (this.closed) return;
+    this.closed = true;
+    this.db.close();
+  }
+
+  // ---------------------------------------------------------------- datasets
+
+  async createDataset(d: NewDataset): Promise<Dataset> {
+    checkDatasetId(d.id);
+    checkDatasetFields(d);
+    const now = nowIso();
+    try {
+      this.db
+        .prepare('INSERT INTO datasets (id, name, settings, id_property, time_window, schedule, webhook, created_at, updated_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)')
+        .run(d.id, d.name, JSON.stringify(d.settings), d.idProperty, d.window, json(d.schedule), json(d.webhook), now, now);
+    } catch (e) {
+      if ((e as { code?: string }).code === 'SQLITE_CONSTRAINT_PRIMARYKEY') throw new StoreError('conflict', `dataset ${JSON.stringify(d.id)} already exists; choose another id or update it`);
+      throw e;
+    }
+    return (await this.getDataset(d.id)) as Dataset;
+  }
+
+  async getDataset(id: string): Promise<Dataset | null> {
+    const row = this.db.prepare('SELECT * FROM datasets WHERE id = ?').get(id) as Row | undefined;
+    return row === undefined ? null : datasetFromRow(row);
+  }
+
+  async listDatasets(): Promise<Dataset[]> {
+    return (this.db.prepare('SELECT * FROM datasets ORDER BY id').all() as Row[]).map(datasetFromRow);
+  }
+
+  async updateDataset(id: string, patch: DatasetPatch): Promise<Dataset> {
+    checkDatasetFields(patch);
+    const sets: string[] = [];
+    const args: unknown[] = [];
+    const put = (col: string, v: unknown): void => {
+      sets.push(`${col} = ?`);
+      args.push(v);
+    };
+    if (patch.name !== undefined) put('name', patch.name);
+    if (patch.settings !== undefined) put('settings', JSON.stringify(patch.settings));
+    if (patch.idProperty !== undefined) put('id_property', patch.idProperty);
+    if (patch.window !== undefined) put('time_window', patch.window);
+    if (patch.schedule !== undefined) put('schedule', json(patch.schedule));
+    if (patch.webhook !== undefined) put('webhook', json(patch.webhook));
+    put('updated_at', nowIso());
+    const info = this.db.prepare(`UPDATE datasets SET ${sets.join(', ')} WHERE id = ?`).run(...args, id);
+    if (info.changes === 0) throw notFoundDataset(id);
+    return (await this.getDataset(id)) as Dataset;
+  }
+
+  async deleteDataset(id: string): Promise<boolean> {
+    return this.db.prepare('DELETE FROM datasets WHERE id = ?').run(id).changes > 0;
+  }
+
+  private requireDataset(id: string): void {
+    if (this.db.prepare('SELECT 1 FROM datasets WHERE id = ?').get(id) === undefined) throw notFoundDataset(id);
+  }
+
+  // ------------------------------------------------------------ observations
+
+  async ingest(datasetId: string, records: ObservationRecord[], options: IngestOptions): Promise<IngestResult> {
+    checkRecords(records);
+    const lookup = this.db.prepare('SELECT obs_id, content_hash FROM observations WHERE dataset_id = ? AND obs_id = ?').raw();
+    const insert = this.db.prepare('INSERT INTO observations (dataset_id, obs_id, lon, lat, observed_at, weight, content_hash, feature) VALUES (?, ?, ?, ?, ?, ?, ?, ?)');
+    const replace = this.db.prepare('UPDATE observations SET lon = ?, lat = ?, observed_at = ?, weight = ?, content_hash = ?, feature = ? WHERE dataset_id = ? AND obs_id = ?');
+    const tx = this.db.transaction((): IngestResult => {
+      this.requireDataset(datasetId);
+      const stored = new Map<string, string>();
+      for (const id of batchIds(records)) {
+        const row = lookup.get(datasetId, id) as [string, string] | undefined;
+        if (row !== undefined) stored.set(row[0], row[1]);
+      }
+      const plan = planIngest(records, stored, options);
+      for (const r of plan.insert) insert.run(datasetId, r.id, r.lon, r.lat, r.observedAt, r.weight, r.contentHash, r.feature);
+      for (const r of plan.replace) replace.run(r.lon, r.lat, r.observedAt, r.weight, r.contentHash, r.feature, datasetId, r.id);
+      return plan.result;
+    });
+    return tx.immediate();
+  }
+
+  async listObservations(datasetId: string, options: ListObservationsOptions): Promise<ObservationPage> {
+    checkQuery(options);
+    checkLimit(options.limit);
+    const after = options.cursor === undefined ? 0 : decodeCursor(options.cursor);
+    const { clause, args } = whereClause(datasetId, options);
+    const rows = this.db
+      .prepare(`SELECT seq, feature FROM observations WHERE ${clause} AND seq > ? ORDER BY seq LIMIT ?`)
+      .raw()
+      .all(...args, after, options.limit + 1) as [number, string][];
+    const more = rows.length > options.limit;
+    if (more) rows.pop();
+    const last = rows[rows.length - 1];
+    return { features: rows.map((r) => r[1]), nextCursor: more && last !== undefined ? encodeCursor(last[0]) : null };
+  }
+
+  async deleteObservation(datasetId: string, id: string): Promise<boolean> {
+    return this.db.prepare('DELETE FROM observations WHERE dataset_id = ? AND obs_id = ?').run(datasetId, id).changes > 0;
+  }
+
+  async countObservations(datasetId: string): Promise<number> {
+    return this.db.prepare('SELECT count(*) FROM observations WHERE dataset_id = ?').pluck().get(datasetId) as number;
+  }
+
+  async loadForRun(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<RunInput> {
+    checkQuery(query);
+    const { clause, args } = whereClause(datasetId, query);
+    // One read transaction so the count and the rows see the same snapshot.
+    const read = this.db.transaction((): RunInput => {
+      const n = this.db.prepare(`SELECT count(*) FROM observations WHERE ${clause}`).pluck().get(...args) as number;
+      const ids: string[] = new Array(n);
+      const features: string[] = new Array(n);
+      const lon = new Float64Array(n);
+      const lat = new Float64Array(n);
+      const observedAt = new Float64Array(n);
+      const weight = new Float64Array(n);
+      let weighted = false;
+      let i = 0;
+      const stmt = this.db.prepare(`SELECT obs_id, lon, lat, observed_at, weight, feature FROM observations WHERE ${clause} ORDER BY seq`).raw();
+      for (const row of stmt.iterate(...args) as IterableIterator<[string, number, number, number | null, number | null, string]>) {
+        ids[i] = row[0];
+        lon[i] = row[1];
+        lat[i] = row[2];
+        observedAt[i] = row[3] === null ? NaN : row[3];
+        if (row[4] === null) weight[i] = NaN;
+        else {
+          weight[i] = row[4];
+          weighted = true;
+        }
+        features[i] = row[5];
+        i++;
+      }
+      return { ids, lon, lat, observedAt, weight: weighted ? weight : null, features };
+    });
+    return read.deferred();
+  }
+
+  async getPositions(datasetId: string, ids: string[]): Promise<Map<string, { lon: number; lat: number }>> {
+    const out = new Map<string, { lon: number; lat: number }>();
+    const stmt = this.db.prepare('SELECT lon, lat FROM observations WHERE dataset_id = ? AND obs_id = ?').raw();
+    for (const id of ids) {
+      const row = stmt.get(datasetId, id) as [number, number] | undefined;
+      if (row !== undefined) out.set(id, { lon: row[0], lat: row[1] });
+    }
+    return out;
+  }
+
+  // -------------------------------------------------------------------- runs
+
+  async createRun(r: NewRun): Promise<Run> {
+    if (!RUN_TRIGGERS.includes(r.trigger)) throw new StoreError('invalid', `trigger must be one of ${RUN_TRIGGERS.join(', ')}`);
+    if (typeof r.settings !== 'object' || r.settings === null || Array.isArray(r.settings)) throw new StoreError('invalid', 'run settings must be a JSON object');
+    const now = nowIso();
+    const tx = this.db.transaction((): number => {
+      this.requireDataset(r.datasetId);
+      return Number(
+        this.db
+          .prepare(`INSERT INTO runs (dataset_id, status, trigger, settings, created_at, updated_at, updated_ms) VALUES (?, 'queued', ?, ?, ?, ?, ?)`)
+          .run(r.datasetId, r.trigger, JSON.stringify(r.settings), now, now, Date.parse(now)).lastInsertRowid,
+      );
+    });
+    return this.runBySeq(tx.immediate()) as Run;
+  }
+
+  private runBySeq(seq: number): Run | null {
+    const row = this.db.prepare('SELECT * FROM runs WHERE seq = ?').get(seq) as Row | undefined;
+    return row === undefined ? null : runFromRow(row);
+  }
+
+  private requireRunSeq(runId: string): number {
+    const seq = parseRunId(runId);
+    if (seq === null || this.db.prepare('SELECT 1 FROM runs WHERE seq = ?').get(seq) === undefined) throw new StoreError('not-found', `there is no run ${JSON.stringify(runId)}`);
+    return seq;
+  }
+
+  async claimNextRun(workerId: string): Promise<Run | null> {
+    const tx = this.db.transaction((): number | null => {
+      const seq = this.db.prepare(`SELECT seq FROM runs WHERE status = 'queued' ORDER BY seq LIMIT 1`).pluck().get() as number | undefined;
+      if (seq === undefined) return null;
+      const now = nowIso();
+      this.db
+        .prepare(`UPDATE runs SET status = 'running', worker_id = ?, started_at = ?, updated_at = ?, updated_ms = ? WHERE seq = ?`)
+        .run(workerId, now, now, Date.parse(now), seq);
+      return seq;
+    });
+    const seq = tx.immediate();
+    return seq === null ? null : this.runBySeq(seq);
+  }
+
+  async updateRun(runId: string, patch: RunPatch, ifStatus?: RunStatus[]): Promise<Run> {
+    checkRunPatch(patch);
+    if (ifStatus !== undefined) checkStatuses(ifStatus);
+    const tx = this.db.transaction((): number => {
+      const seq = this.requireRunSeq(runId);
+      if (ifStatus !== undefined) {
+        const status = this.db.prepare('SELECT status FROM runs WHERE seq = ?').pluck().get(seq) as RunStatus;
+        if (!ifStatus.includes(status)) throw new StoreError('conflict', `run ${runId} is ${status}, not ${ifStatus.join(' or ')}`);
+      }
+      const sets: string[] = [];
+      const args: unknown[] = [];
+      const put = (col: string, v: unknown): void => {
+        sets.push(`${col} = ?`);
+        args.push(v);
+      };
+      if (patch.status !== undefined) put('status', patch.status);
+      if (patch.progress !== undefined) put('progress', patch.progress);
+      if (patch.error !== undefined) put('error', patch.error);
+      if (patch.startedAt !== undefined) put('started_at', patch.startedAt);
+      if (patch.finishedAt !== undefined) put('finished_at', patch.finishedAt);
+      if (patch.summary !== undefined) put('summary', json(patch.summary));
+      if (patch.timings !== undefined) put('timings', json(patch.timings));
+      const now = nowIso();
+      put('updated_at', now);
+      put('updated_ms', Date.parse(now));
+      this.db.prepare(`UPDATE runs SET ${sets.join(', ')} WHERE seq = ?`).run(...args, seq);
+      return seq;
+    });
+    return this.runBySeq(tx.immediate()) as Run;
+  }
+
+  async getRun(datasetId: string, runId: string): Promise<Run | null> {
+    const seq = parseRunId(runId);
+    if (seq === null) return null;
+    const row = this.db.prepare('SELECT * FROM runs WHERE seq = ? AND dataset_id = ?').get(seq, datasetId) as Row | undefined;
+    return row === undefined ? null : runFromRow(row);
+  }
+
+  async listRuns(datasetId: string, options: { limit: number; cursor?: string }): Promise<RunPage> {
+    checkLimit(options.limit, 1000);
+    const before = options.cursor === undefined ? Number.MAX_SAFE_INTEGER : decodeCursor(options.cursor);
+    const rows = this.db.prepare('SELECT * FROM runs WHERE dataset_id = ? AND seq < ? ORDER BY seq DESC LIMIT ?').all(datasetId, before, options.limit + 1) as Row[];
+    const more = rows.length > options.limit;
+    if (more) rows.pop();
+    const runs = rows.map(runFromRow);
+    const last = rows[rows.length - 1];
+    return { runs, nextCursor: more && last !== undefined ? encodeCursor(last.seq as number) : null };
+  }
+
+  async latestRun(datasetId: string, status: RunStatus = 'succeeded', before?: string): Promise<Run | null> {
+    checkStatuses([status]);
+    const limit = before === undefined ? Number.MAX_SAFE_INTEGER : parseRunId(before);
+    if (limit === null) throw new StoreError('invalid', `${JSON.stringify(before)} is not a run id`);
+    const row = this.db.prepare('SELECT * FROM runs WHERE dataset_id = ? AND status = ? AND seq < ? ORDER BY seq DESC LIMIT 1').get(datasetId, status, limit) as Row | undefined;
+    return row === undefined ? null : runFromRow(row);
+  }
+
+  async saveRunResult(runId: string, result: RunResult): Promise<void> {
+    for (const layer of RUN_LAYERS) if (typeof result.layers?.[layer] !== 'string') throw new StoreError('invalid', `result layer ${layer} must be GeoJSON text`);
+    const tx = this.db.transaction(() => {
+      const seq = this.requireRunSeq(runId);
+      this.db.prepare('DELETE FROM run_layers WHERE run_seq = ?').run(seq);
+      this.db.prepare('DELETE FROM run_hotspots WHERE run_seq = ?').run(seq);
+      const layer = this.db.prepare('INSERT INTO run_layers (run_seq, layer, body) VALUES (?, ?, ?)');
+      for (const name of RUN_LAYERS) layer.run(seq, name, result.layers[name]);
+      const hs = this.db.prepare('INSERT INTO run_hotspots (run_seq, hotspot_id, track_id, members, core_members, member_count, hull, figures) VALUES (?, ?, ?, ?, ?, ?, ?, ?)');
+      for (const h of result.hotspots) {
+        hs.run(seq, h.hotspotId, h.trackId, JSON.stringify(h.members), JSON.stringify(h.coreMembers), h.members.length, h.hull, json(h.figures ?? null));
+      }
+    });
+    tx.immediate();
+  }
+
+  async getRunLayer(runId: string, layer: RunLayer): Promise<string | null> {
+    if (!RUN_LAYERS.includes(layer)) throw new StoreError('invalid', `layer must be one of ${RUN_LAYERS.join(', ')}`);
+    const seq = this.requireRunSeq(runId);
+    const body = this.db.prepare('SELECT body FROM run_layers WHERE run_seq = ? AND layer = ?').pluck().get(seq, layer) as string | undefined;
+    return body ?? null;
+  }
+
+  async getRunHotspots(runId: string): Promise<RunHotspot[]> {
+    const seq = this.requireRunSeq(runId);
+    const rows = this.db.prepare('SELECT * FROM run_hotspots WHERE run_seq = ? ORDER BY hotspot_id').all(seq) as Row[];
+    return rows.map((r) => ({
+      hotspotId: r.hotspot_id as number,
+      trackId: r.track_id as string | null,
+      members: JSON.parse(r.members as string) as string[],
+      coreMembers: JSON.parse(r.core_members as string) as string[],
+      hull: r.hull as string,
+      figures: parseJson(r.figures),
+    }));
+  }
+
+  async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {
+    const rows = this.db
+      .prepare('SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = ? AND r.dataset_id = ? ORDER BY h.run_seq, h.hotspot_id')
+      .all(trackId, datasetId) as Row[];
+    return rows.map((r) => ({
+      runId: formatRunId(r.run_seq as number),
+      hotspotId: r.hotspot_id as number,
+      memberCount: r.member_count as number,
+      hull: r.hull as string,
+      figures: parseJson(r.figures),
+    }));
+  }
+
+  async markInterruptedRuns(reason: string, filter: InterruptedRunFilter = {}): Promise<string[]> {
+    const now = nowIso();
+    return this.interrupted(filter, `status = 'failed', error = ?, finished_at = ?, updated_at = ?, updated_ms = ?`, [reason, now, now, Date.parse(now)]);
+  }
+
+  async requeueInterruptedRuns(filter: InterruptedRunFilter = {}): Promise<string[]> {
+    const now = nowIso();
+    return this.interrupted(filter, `status = 'queued', progress = 0, worker_id = NULL, started_at = NULL, updated_at = ?, updated_ms = ?`, [now, Date.parse(now)]);
+  }
+
+  private interrupted(filter: InterruptedRunFilter, set: string, setArgs: unknown[]): string[] {
+    let where = `status = 'running'`;
+    const args: unknown[] = [];
+    if (filter.workerId !== undefined) {
+      where += ' AND worker_id = ?';
+      args.push(filter.workerId);
+    }
+    if (filter.staleMs !== undefined) {
+      where += ' AND updated_ms <= ?';
+      args.push(Date.now() - filter.staleMs);
+    }
+    const tx = this.db.transaction((): number[] => {
+      const seqs = this.db.prepare(`SELECT seq FROM runs WHERE ${where} ORDER BY seq`).pluck().all(...args) as number[];
+      const upd = this.db.prepare(`UPDATE runs SET ${set} WHERE seq = ?`);
+      for (const s of seqs) upd.run(...setArgs, s);
+      return seqs;
+    });
+    return tx.immediate().map(formatRunId);
+  }
+
+  async claimScheduledSlot(datasetId: string, slotIso: string): Promise<boolean> {
+    const slot = normaliseSlot(slotIso);
+    const tx = this.db.transaction((): boolean => {
+      this.requireDataset(datasetId);
+      return this.db.prepare('INSERT INTO schedule_slots (dataset_id, slot, claimed_at) VALUES (?, ?, ?) ON CONFLICT DO NOTHING').run(datasetId, slot, nowIso()).changes === 1;
+    });
+    return tx.immediate();
+  }
+}
+
+function json(v: unknown): string | null {
+  return v === null || v === undefined ? null : JSON.stringify(v);
+}
+
+function parseJson<T = Record<string, unknown>>(v: unknown): T | null {
+  return v === null || v === undefined ? null : (JSON.parse(v as string) as T);
+}
+
+function notFoundDataset(id: string): StoreError {
+  return new StoreError('not-found', `there is no dataset ${JSON.stringify(id)}`);
+}
+
+function datasetFromRow(r: Row): Dataset {
+  return {
+    id: r.id as string,
+    name: r.name as string,
+    settings: JSON.parse(r.settings as string) as Record<string, unknown>,
+    idProperty: r.id_property as string | null,
+    window: r.time_window as string | null,
+    schedule: parseJson(r.schedule),
+    webhook: parseJson(r.webhook),
+    createdAt: r.created_at as string,
+    updatedAt: r.updated_at as string,
+  };
+}
+
+function runFromRow(r: Row): Run {
+  return {
+    id: formatRunId(r.seq as number),
+    datasetId: r.dataset_id as string,
+    status: r.status as RunStatus,
+    trigger: r.trigger as Run['trigger'],
+    settings: JSON.parse(r.settings as string) as Record<string, unknown>,
+    progress: r.progress as number,
+    error: r.error as string | null,
+    workerId: r.worker_id as string | null,
+    createdAt: r.created_at as string,
+    startedAt: r.started_at as string | null,
+    finishedAt: r.finished_at as string | null,
+    updatedAt: r.updated_at as string,
+    summary: parseJson(r.summary),
+    timings: parseJson(r.timings),
+  };
+}
+
+/** Quotes a property name as one label of an SQLite JSON path. */
+function jsonPathLabel(property: string): string {
+  return `$.properties."${property.replace(/\\/g, '\\\\').replace(/"/g, '\\"')}"`;
+}
+
+/** The WHERE clause for a dataset and a query; `?` parameters in order. */
+function whereClause(datasetId: string, q: ObservationQuery): { clause: string; args: unknown[] } {
+  const parts = ['dataset_id = ?'];
+  const args: unknown[] = [datasetId];
+  if (q.bbox !== undefined) {
+    const [w, s, e, n] = q.bbox;
+    parts.push('lat >= ? AND lat <= ?');
+    args.push(s, n);
+    if (w <= e) {
+      parts.push('lon >= ? AND lon <= ?');
+      args.push(w, e);
+    } else {
+      parts.push('(lon >= ? OR lon <= ?)');
+      args.push(w, e);
+    }
+  }
+  if (q.from !== undefined) {
+    parts.push('observed_at >= ?');
+    args.push(q.from);
+  }
+  if (q.to !== undefined) {
+    parts.push('observed_at < ?');
+    args.push(q.to);
+  }
+  for (const m of whereMatches(q.where)) {
+    const path = jsonPathLabel(m.property);
+    // `->` gives the value's JSON text (its first character tells the type), `->>` its SQL value.
+    const alts = [`(substr(feature -> ?, 1, 1) = '"' AND feature ->> ? = ?)`];
+    args.push(path, path, m.text);
+    if (m.bool !== null || m.isNull) {
+      alts.push('feature -> ? = ?');
+      args.push(path, m.text);
+    }
+    if (m.number !== null) {
+      alts.push(`(substr(feature -> ?, 1, 1) IN ('-', '0', '1', '2', '3', '4', '5', '6', '7', '8', '9') AND feature ->> ? = ?)`);
+      args.push(path, path, m.number);
+    }
+    parts.push(`(${alts.join(' OR ')})`);
+  }
+  return { clause: parts.join(' AND '), args };
+}
