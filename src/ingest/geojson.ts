@@ -45,8 +45,8 @@ export interface FeatureListOptions {
   noun: string;
   /** 1-based line of each item, for messages (newline-delimited input), or null */
   lines: ArrayLike<number> | null;
-  /** items already reported (unparseable records), skipped here; null for none */
-  skip?: Uint8Array | null;
+  /** per item, the message for a record that could not be parsed (reported as `malformed-json` in index order); null for none */
+  unparsed?: (string | undefined)[] | null;
 }
 
 /** Reads a GeoJSON text (FeatureCollection or Feature). Throws InputError; never returns part of the input. */
@@ -139,9 +139,12 @@ class FeatureChecker {
       problems.add(null, undefined, 'unknown-property', unknownPropertyMessage(items, weightProperty, this.options.noun));
       checkWeight = false;
     }
-    const skip = this.options.skip ?? null;
+    const unparsed = this.options.unparsed ?? null;
     for (let i = 0; i < n; i++) {
-      if (skip !== null && skip[i] === 1) continue;
+      if (unparsed !== null && unparsed[i] !== undefined) {
+        problems.add(i, undefined, 'malformed-json', unparsed[i] as string);
+        continue;
+      }
       const f = items[i] as Loose;
       // The common case, tested inline: a Feature with a Point of 2 (or 3) in-range numbers and no bbox.
       let good = false;

@@ -45,19 +45,18 @@ export function readGeoJsonSeq(text: string, weightProperty: string | null, maxP
 
   const problems = new ProblemList(maxProblems);
   const items: unknown[] = new Array(n);
-  let skip: Uint8Array | null = null;
+  let unparsed: (string | undefined)[] | null = null;
   for (let i = 0; i < n; i++) {
     const t = texts[i] as string;
     try {
       items[i] = JSON.parse(t);
     } catch (err) {
       items[i] = null;
-      skip ??= new Uint8Array(n);
-      skip[i] = 1;
-      problems.add(i, undefined, 'malformed-json', malformedJsonMessage(t, err, `${locate('record', i, undefined, useRs ? undefined : lines[i])}: `, 'the record'));
+      unparsed ??= new Array<string | undefined>(n);
+      unparsed[i] = malformedJsonMessage(t, err, `${locate('record', i, undefined, useRs ? undefined : lines[i])}: `, 'the record');
     }
   }
-  const obs = checkFeatureList(items, { weightProperty, noun: 'record', lines: useRs ? null : lines, skip }, problems);
+  const obs = checkFeatureList(items, { weightProperty, noun: 'record', lines: useRs ? null : lines, unparsed }, problems);
   problems.throwIfAny();
   return obs;
 }
