@@ -196,6 +196,8 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
   checkMinPoints(minPoints);
   const n = points.n;
   const weight = points.weight;
+  // reach and coreDist hold squared chords on the unit sphere until the end of the run: chord
+  // length orders pairs exactly as ground distance does, and max() commutes with the conversion
   const reach = new Float64Array(n).fill(Infinity);
   const coreDist = new Float64Array(n).fill(Infinity);
   const pred = new Int32Array(n).fill(-1);
@@ -231,13 +233,13 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
     m++;
   };
 
-  /** Core distance in metres of the neighbourhood held in the buffers. */
+  /** Core distance, as a squared chord, of the neighbourhood held in the buffers. */
   const coreOf = (): number => {
     if (weight === null) {
       const k = Math.ceil(minPoints);
       if (m < k) return Infinity;
       scratch.set(nbC2.subarray(0, m));
-      return metersForChord2(selectKth(scratch, m, k - 1));
+      return selectKth(scratch, m, k - 1);
     }
     let total = 0;
     for (let a = 0; a < m; a++) total += weight[nbId[a]];
@@ -248,7 +250,7 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
     let sum = 0;
     for (let a = 0; a < m; a++) {
       sum += weight[nbId[p[a]]];
-      if (sum >= minPoints) return metersForChord2(nbC2[p[a]]);
+      if (sum >= minPoints) return nbC2[p[a]];
     }
     return Infinity;
   };
@@ -269,7 +271,7 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
     for (let a = 0; a < m; a++) {
       const o = nbId[a];
       if (processed[o]) continue;
-      const d = metersForChord2(nbC2[a]);
+      const d = nbC2[a];
       const r = d > cd ? d : cd;
       if (!seeds.has(o)) {
         reach[o] = r;
@@ -288,6 +290,11 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
     if (processed[start]) continue;
     processPoint(start);
     while (seeds.size > 0) processPoint(seeds.pop());
+  }
+  // distances were squared chords so far (same order, no trigonometry per neighbour): to metres
+  for (let i = 0; i < n; i++) {
+    if (reach[i] !== Infinity) reach[i] = metersForChord2(reach[i]);
+    if (coreDist[i] !== Infinity) coreDist[i] = metersForChord2(coreDist[i]);
   }
   if (onProgress && done % step !== 0) onProgress(1);
   return result;
