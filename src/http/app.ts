@@ -4,6 +4,7 @@
  */
 import { randomUUID } from 'node:crypto';
 import { readFileSync } from 'node:fs';
+import type { Duplex } from 'node:stream';
 import { fileURLToPath } from 'node:url';
 import Fastify, { type FastifyError, type FastifyInstance, type FastifyReply, type FastifyRequest } from 'fastify';
 import underPressure from '@fastify/under-pressure';
@@ -26,6 +27,8 @@ export interface AppOptions {
   logger?: boolean | Record<string, unknown>;
   /** a pool to use instead of starting one (closed with the app all the same) */
   pool?: WorkPool;
+  /** told of every route as it is added (method and URL), for listings and checks */
+  onRoute?: (route: { method: string | string[]; url: string }) => void;
 }
 
 /** A client-supplied request id is kept when it is short and plain, so logs can be joined. */
@@ -66,14 +69,35 @@ function readQuery(request: FastifyRequest, op: WorkTask['op']): { layer: Layer 
   return { layer: layer as Layer, settings };
 }
 
-/** Checks query-string settings before the body is received, so a typo costs no upload. */
+/**
+ * Checks query-string settings before the body is received, so a typo costs no upload.
+ * eps may still come in the body's settings member (or is not needed, for k-distance), so its
+ * absence is left to the worker's full check.
+ */
 function checkSettings(settings: Record<string, unknown>): void {
   try {
-    resolveSettings(settings);
+    resolveSettings({ eps: 'auto', ...settings });
   } catch (err) {
     if (err instanceof SettingsError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
     throw err;
   }
+}
+
+/**
+ * Answers requests Node's HTTP parser refuses (bad headers, bad Content-Length) with a
+ * problem+json body too, before any route or request object exists.
+ */
+function badHttp(err: NodeJS.ErrnoException & { rawPacket?: unknown }, socket: Duplex): void {
+  if (!socket.writable) return;
+  const tooLarge = err.code === 'HPE_HEADER_OVERFLOW';
+  const problem = tooLarge
+    ? new HttpProblem('bad-request', 'The request headers are too large.')
+    : new HttpProblem('bad-request', `The request is not valid HTTP (${err.code ?? 'parse error'}); check its headers and Content-Length.`);
+  const id = randomUUID();
+  const body = JSON.stringify(problem.body(id));
+  socket.end(
+    `HTTP/1.1 ${problem.status} Bad Request\r\nX-Request-Id: ${id}\r\nContent-Type: ${PROBLEM_MEDIA_TYPE}; charset=utf-8\r\nContent-Length: ${Buffer.byteLength(body)}\r\nConnection: close\r\n\r\n${body}`,
+  );
 }
 
 /**
@@ -91,12 +115,14 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
     // the service answers 503 problem+json itself while closing (see the onRequest hook)
     return503OnClosing: false,
     requestIdHeader: false,
+    clientErrorHandler: badHttp,
     genReqId: (req) => {
       const given = req.headers['x-request-id'];
       return typeof given === 'string' && REQUEST_ID.test(given) ? given : randomUUID();
     },
   });
 
+  if (options.onRoute) app.addHook('onRoute', options.onRoute);
   const pool = options.pool ?? createWorkPool({ workers: config.workers, queueSize: config.queueSize });
   app.addHook('onClose', async () => {
     await pool.close();
@@ -144,6 +170,10 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   await app.register(swaggerUi, {
     routePrefix: '/docs',
     staticCSP: true,
+    // everything the page needs is served from here: no outside hosts, and no https upgrade
+    // (which would break the page on a plain-HTTP address other than localhost)
+    transformStaticCSP: (header: string) =>
+      header.replace(/\s*upgrade-insecure-requests;/, '').replace(/ validator\.swagger\.io/, '').replace(/ https:/g, ''),
     // no calls to an outside validator: the page works offline
     uiConfig: { validatorUrl: null, deepLinking: true },
   });

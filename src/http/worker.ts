@@ -88,7 +88,9 @@ export default function work(task: WorkTask): WorkResult {
     const fromBody = task.format === 'geojson' ? bodySettings(body) : { settings: {} };
     if ('rejected' in fromBody) return fromBody.rejected;
     // the query string wins over the body's settings member, parameter by parameter
-    const settings = resolveSettings({ ...fromBody.settings, ...task.query });
+    // k-distance is how eps is chosen, so it needs none
+    const base = task.op === 'k-distance' ? { eps: 'auto' } : {};
+    const settings = resolveSettings({ ...base, ...fromBody.settings, ...task.query });
     if (task.op === 'k-distance') {
       return done('application/json', JSON.stringify(suggestEpsInput(body, task.format, settings)));
     }
