@@ -1,0 +1,460 @@
+/**
+ * The store contract: one suite that every engine must pass. Each test gets a fresh database
+ * (SQLite: a new file; PostgreSQL: a new schema) and may open several stores on it to check what
+ * happens between processes or instances.
+ */
+import { afterEach, beforeEach, describe, expect, it } from 'vitest';
+import type { NewDataset, ObservationRecord, Store } from '../../src/storage/store.js';
+import { StoreError } from '../../src/storage/store.js';
+import { DAY_MS, T0, fromText, propertyMatches, record, seededRecords } from './fixtures.js';
+
+/** A fresh, empty database that stores can be opened on. */
+export interface TestDatabase {
+  /** a new store (own connection or pool) on this database, migrated */
+  open(): Promise<Store>;
+  /** removes the database */
+  drop(): Promise<void>;
+}
+
+export interface StoreHarness {
+  /** null when the engine can be tested; else why not (the suite is then reported as skipped) */
+  skipReason: string | null;
+  newDatabase(): Promise<TestDatabase>;
+}
+
+const DS: NewDataset = { id: 'herons', name: 'Heron nests', settings: { eps: 250, min_points: 5 }, idProperty: null, window: 'P30D', schedule: { cron: '0 2 * * *', timezone: 'Europe/Berlin' }, webhook: null };
+const KEEP = { replace: false, partial: false };
+
+async function rejects(p: Promise<unknown>, code: string): Promise<void> {
+  await expect(p).rejects.toBeInstanceOf(StoreError);
+  await p.catch((e: StoreError) => expect(e.code).toBe(code));
+}
+
+async function all(store: Store, datasetId: string, q: Parameters<Store['listObservations']>[1]): Promise<string[]> {
+  const out: string[] = [];
+  let cursor = q.cursor;
+  for (let guard = 0; guard < 10_000; guard++) {
+    const page = await store.listObservations(datasetId, { ...q, cursor });
+    expect(page.features.length).toBeLessThanOrEqual(q.limit);
+    out.push(...page.features);
+    if (page.nextCursor === null) return out;
+    expect(page.features.length).toBe(q.limit);
+    cursor = page.nextCursor;
+  }
+  throw new Error('paging did not end');
+}
+
+function inBbox(r: ObservationRecord, [w, s, e, n]: [number, number, number, number]): boolean {
+  const lonOk = w <= e ? r.lon >= w && r.lon <= e : r.lon >= w || r.lon <= e;
+  return lonOk && r.lat >= s && r.lat <= n;
+}
+
+export function runStoreContract(name: string, harness: StoreHarness): void {
+  if (harness.skipReason !== null) console.warn(`[storage] ${name} contract suite SKIPPED: ${harness.skipReason}`);
+  describe.skipIf(harness.skipReason !== null)(`store contract: ${name}${harness.skipReason !== null ? ` (skipped: ${harness.skipReason})` : ''}`, () => {
+    let db: TestDatabase;
+    let store: Store;
+    const opened: Store[] = [];
+    const open = async (): Promise<Store> => {
+      const s = await db.open();
+      opened.push(s);
+      return s;
+    };
+
+    beforeEach(async () => {
+      db = await harness.newDatabase();
+      store = await open();
+    });
+    afterEach(async () => {
+      for (const s of opened.splice(0)) await s.close();
+      await db.drop();
+    });
+
+    describe('migrations', () => {
+      it('apply once: migrating again, and from two stores at once, keeps the data', async () => {
+        await store.createDataset(DS);
+        await store.migrate();
+        const [a, b] = [await open(), await open()];
+        await Promise.all([a.migrate(), b.migrate(), store.migrate()]);
+        expect((await a.getDataset('herons'))?.name).toBe('Heron nests');
+      });
+    });
+
+    describe('datasets', () => {
+      it('create, read, list, update and delete', async () => {
+        const created = await store.createDataset(DS);
+        expect(created).toMatchObject({ ...DS });
+        expect(Date.parse(created.createdAt)).not.toBeNaN();
+        expect(created.updatedAt).toBe(created.createdAt);
+        expect(await store.getDataset('herons')).toEqual(created);
+        expect(await store.getDataset('nope')).toBeNull();
+        await store.createDataset({ ...DS, id: 'egrets', name: 'Egrets', schedule: null, webhook: { url: 'https://example.org/hook', secret: 's3' } });
+        expect((await store.listDatasets()).map((d) => d.id)).toEqual(['egrets', 'herons']);
+
+        await new Promise((r) => setTimeout(r, 5));
+        const changed = await store.updateDataset('herons', { name: 'Herons', schedule: null, settings: { eps: 300 } });
+        expect(changed).toMatchObject({ id: 'herons', name: 'Herons', schedule: null, settings: { eps: 300 }, window: 'P30D', createdAt: created.createdAt });
+        expect(Date.parse(changed.updatedAt)).toBeGreaterThan(Date.parse(created.updatedAt));
+        expect((await store.getDataset('egrets'))?.webhook).toEqual({ url: 'https://example.org/hook', secret: 's3' });
+
+        expect(await store.deleteDataset('herons')).toBe(true);
+        expect(await store.deleteDataset('herons')).toBe(false);
+        expect(await store.getDataset('herons')).toBeNull();
+      });
+
+      it('refuses a second dataset with the same id, bad ids and settings, and changes to unknown datasets', async () => {
+        await store.createDataset(DS);
+        await rejects(store.createDataset({ ...DS, name: 'again' }), 'conflict');
+        await rejects(store.createDataset({ ...DS, id: 'has space' }), 'invalid');
+        await rejects(store.createDataset({ ...DS, id: '' }), 'invalid');
+        await rejects(store.createDataset({ ...DS, id: 'x', settings: [] as unknown as Record<string, unknown> }), 'invalid');
+        await rejects(store.updateDataset('nope', { name: 'x' }), 'not-found');
+        expect((await store.getDataset('herons'))?.name).toBe('Heron nests');
+      });
+
+      it('deleting a dataset removes its observations, runs and slots', async () => {
+        await store.createDataset(DS);
+        await store.ingest('herons', seededRecords(1, 20), KEEP);
+        const run = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        await store.claimScheduledSlot('herons', '2024-05-01T02:00:00Z');
+        await store.deleteDataset('herons');
+        await store.createDataset(DS);
+        expect(await store.countObservations('herons')).toBe(0);
+        expect(await store.getRun('herons', run.id)).toBeNull();
+        expect(await store.claimScheduledSlot('herons', '2024-05-01T02:00:00Z')).toBe(true);
+      });
+    });
+
+    describe('ingestion', () => {
+      beforeEach(async () => {
+        await store.createDataset(DS);
+      });
+
+      it('stores new observations and keeps feature texts byte for byte', async () => {
+        const odd = fromText('odd', 10, 20, '{"type":"Feature",  "properties":{"name":"Straße \u{1F426}","b":1,"a":2},"geometry":{"type":"Point","coordinates":[10,20]}}');
+        const res = await store.ingest('herons', [record('a', 1, 2), odd], KEEP);
+        expect(res).toEqual({ accepted: ['a', 'odd'], duplicates: [], replaced: [], conflicts: [], stored: true });
+        expect(await store.countObservations('herons')).toBe(2);
+        const page = await store.listObservations('herons', { limit: 10 });
+        expect(page.features[1]).toBe(odd.feature);
+      });
+
+      it('re-posting the same batch stores nothing twice and reports duplicates', async () => {
+        const batch = seededRecords(2, 50);
+        await store.ingest('herons', batch, KEEP);
+        const again = await store.ingest('herons', batch, KEEP);
+        expect(again).toEqual({ accepted: [], duplicates: batch.map((r) => r.id), replaced: [], conflicts: [], stored: true });
+        expect(await store.countObservations('herons')).toBe(50);
+      });
+
+      it('a changed observation is a conflict that stores nothing, unless replace is asked', async () => {
+        await store.ingest('herons', [record('a', 1, 2, { n: 1 }), record('b', 3, 4)], KEEP);
+        const changed = record('a', 1, 2, { n: 2 });
+        const res = await store.ingest('herons', [record('c', 5, 6), changed, record('b', 3, 4)], KEEP);
+        expect(res).toEqual({ accepted: ['c'], duplicates: ['b'], replaced: [], conflicts: ['a'], stored: false });
+        expect(await store.countObservations('herons')).toBe(2);
+        expect((await store.listObservations('herons', { limit: 10 })).features[0]).toBe(record('a', 1, 2, { n: 1 }).feature);
+
+        const rep = await store.ingest('herons', [record('c', 5, 6), changed], { replace: true, partial: false });
+        expect(rep).toEqual({ accepted: ['c'], duplicates: [], replaced: ['a'], conflicts: [], stored: true });
+        // the replaced observation keeps its place in the order
+        expect((await store.listObservations('herons', { limit: 10 })).features).toEqual([changed.feature, record('b', 3, 4).feature, record('c', 5, 6).feature]);
+        const cols = await store.loadForRun('herons');
+        expect(cols.ids).toEqual(['a', 'b', 'c']);
+      });
+
+      it('a rejected entry stores nothing; partial stores the valid ones', async () => {
+        const batch = [record('a', 1, 2), record('b', 3, 4)];
+        const res = await store.ingest('herons', batch, { replace: false, partial: false, rejected: [{ index: 2, reason: 'not a point' }] });
+        expect(res.stored).toBe(false);
+        expect(res.accepted).toEqual(['a', 'b']);
+        expect(await store.countObservations('herons')).toBe(0);
+        const part = await store.ingest('herons', batch, { replace: false, partial: true, rejected: [{ index: 2, reason: 'not a point' }] });
+        expect(part).toEqual({ accepted: ['a', 'b'], duplicates: [], replaced: [], conflicts: [], stored: true });
+        expect(await store.countObservations('herons')).toBe(2);
+      });
+
+      it('partial with a conflict stores the rest and leaves the stored version alone', async () => {
+        await store.ingest('herons', [record('a', 1, 2, { v: 1 })], KEEP);
+        const res = await store.ingest('herons', [record('a', 1, 2, { v: 2 }), record('b', 3, 4)], { replace: false, partial: true });
+        expect(res).toEqual({ accepted: ['b'], duplicates: [], replaced: [], conflicts: ['a'], stored: true });
+        expect((await store.listObservations('herons', { limit: 10 })).features).toEqual([record('a', 1, 2, { v: 1 }).feature, record('b', 3, 4).feature]);
+      });
+
+      it('within one batch: a repeat is stored once and counted as duplicate; a different repeat is a conflict even with replace', async () => {
+        const res = await store.ingest('herons', [record('a', 1, 2), record('b', 1, 2), record('a', 1, 2)], KEEP);
+        expect(res).toEqual({ accepted: ['a', 'b'], duplicates: ['a'], replaced: [], conflicts: [], stored: true });
+        expect(await store.countObservations('herons')).toBe(2);
+        const clash = await store.ingest('herons', [record('c', 1, 2, { v: 1 }), record('d', 0, 0), record('c', 1, 2, { v: 2 })], { replace: true, partial: false });
+        expect(clash).toEqual({ accepted: ['d'], duplicates: [], replaced: [], conflicts: ['c'], stored: false });
+        const partial = await store.ingest('herons', [record('c', 1, 2, { v: 1 }), record('d', 0, 0), record('c', 1, 2, { v: 2 })], { replace: true, partial: true });
+        expect(partial).toMatchObject({ accepted: ['d'], conflicts: ['c'], stored: true });
+        expect(await store.countObservations('herons')).toBe(3);
+      });
+
+      it('refuses an unknown dataset and malformed records', async () => {
+        await rejects(store.ingest('nope', [record('a', 1, 2)], KEEP), 'not-found');
+        await rejects(store.ingest('herons', [{ ...record('a', 1, 2), lat: 91 }], KEEP), 'invalid');
+        await rejects(store.ingest('herons', [{ ...record('a', 1, 2), observedAt: 1.5 }], KEEP), 'invalid');
+        expect(await store.countObservations('herons')).toBe(0);
+      });
+
+      it('two stores posting overlapping batches at once store each id exactly once', async () => {
+        const other = await open();
+        const recs = seededRecords(3, 300);
+        const a = recs.slice(0, 200);
+        const b = recs.slice(100, 300);
+        const results = await Promise.all([store.ingest('herons', a, KEEP), other.ingest('herons', b, KEEP), store.ingest('herons', b, KEEP)]);
+        const accepted = results.flatMap((r) => r.accepted);
+        expect(new Set(accepted).size).toBe(accepted.length);
+        expect(accepted.length).toBe(300);
+        expect(await store.countObservations('herons')).toBe(300);
+      });
+
+      it('deletes one observation (a retraction)', async () => {
+        await store.ingest('herons', [record('a', 1, 2), record('b', 3, 4)], KEEP);
+        expect(await store.deleteObservation('herons', 'a')).toBe(true);
+        expect(await store.deleteObservation('herons', 'a')).toBe(false);
+        expect(await store.countObservations('herons')).toBe(1);
+        // the id is free again
+        expect((await store.ingest('herons', [record('a', 9, 9)], KEEP)).accepted).toEqual(['a']);
+      });
+    });
+
+    describe('listing', () => {
+      const recs = seededRecords(7, 400);
+      beforeEach(async () => {
+        await store.createDataset(DS);
+        await store.createDataset({ ...DS, id: 'other' });
+        await store.ingest('herons', recs.slice(0, 250), KEEP);
+        await store.ingest('other', seededRecords(8, 50), KEEP);
+        await store.ingest('herons', recs.slice(250), KEEP);
+      });
+
+      it('pages through everything in insertion order, each observation once', async () => {
+        for (const limit of [1, 7, 400, 1000]) {
+          expect(await all(store, 'herons', { limit })).toEqual(recs.map((r) => r.feature));
+        }
+        await rejects(store.listObservations('herons', { limit: 10, cursor: 'garbage!' }), 'invalid');
+        await rejects(store.listObservations('herons', { limit: 0 }), 'invalid');
+      });
+
+      it('a cursor stays valid while observations are added and removed', async () => {
+        const first = await store.listObservations('herons', { limit: 100 });
+        await store.deleteObservation('herons', recs[50]!.id); // already seen
+        await store.deleteObservation('herons', recs[150]!.id); // not yet seen
+        const late = record('late', 0, 0);
+        await store.ingest('herons', [late], KEEP);
+        const rest = await all(store, 'herons', { limit: 100, cursor: first.nextCursor as string });
+        expect([...first.features, ...rest]).toEqual([...recs.filter((_, i) => i !== 150).map((r) => r.feature), late.feature]);
+      });
+
+      it('filters by bbox, including one across the antimeridian', async () => {
+        const boxes: [number, number, number, number][] = [[-30, -20, 40, 35], [150, -60, -150, 60], [170, 0, -170, 85], [-180, -90, 180, 90]];
+        for (const bbox of boxes) {
+          const want = recs.filter((r) => inBbox(r, bbox)).map((r) => r.feature);
+          expect(want.length).toBeGreaterThan(0);
+          expect(await all(store, 'herons', { bbox, limit: 33 })).toEqual(want);
+        }
+        await rejects(store.listObservations('herons', { bbox: [0, 10, 5, 0], limit: 5 }), 'invalid');
+      });
+
+      it('filters by time window [from, to), leaving out observations without a time', async () => {
+        const from = T0 + 5 * DAY_MS;
+        const to = T0 + 12 * DAY_MS;
+        const want = recs.filter((r) => r.observedAt !== null && r.observedAt >= from && r.observedAt < to).map((r) => r.feature);
+        expect(want.length).toBeGreaterThan(10);
+        expect(await all(store, 'herons', { from, to, limit: 50 })).toEqual(want);
+        const open = recs.filter((r) => r.observedAt !== null && r.observedAt >= from).map((r) => r.feature);
+        expect(await all(store, 'herons', { from, limit: 50 })).toEqual(open);
+        // an observation exactly at `to` is left out, one exactly at `from` kept
+        const edge = recs.find((r) => r.observedAt !== null)!;
+        expect(await all(store, 'herons', { from: edge.observedAt!, to: edge.observedAt! + 1, limit: 10 })).toContain(edge.feature);
+        expect(await all(store, 'herons', { from: edge.observedAt! - 1, to: edge.observedAt!, limit: 10 })).not.toContain(edge.feature);
+      });
+
+      it('filters by property values the way the file filter does', async () => {
+        const conditions: [string, string][] = [['species', 'heron'], ['count', '2'], ['count', '2.5'], ['count', '2.50'], ['count', '02'], ['seen', 'true'], ['seen', 'false'], ['note', 'null'], ['note', 'ok'], ['missing', 'x']];
+        for (const [property, value] of conditions) {
+          const want = recs.filter((r) => propertyMatches(r.feature, property, value)).map((r) => r.feature);
+          if (!['count=2.50', 'count=02', 'missing=x'].includes(`${property}=${value}`)) expect(want.length).toBeGreaterThan(0);
+          expect(await all(store, 'herons', { where: [{ property, value }], limit: 64 }), `${property}=${value}`).toEqual(want);
+        }
+        // numbers that are the same as text ("count": "2" and "count": 2) both match, as in the file filter
+        expect(recs.some((r) => propertyMatches(r.feature, 'count', '2') && r.feature.includes('"count":"2"'))).toBe(true);
+        const both = recs.filter((r) => propertyMatches(r.feature, 'species', 'ibis') && propertyMatches(r.feature, 'seen', 'true')).map((r) => r.feature);
+        expect(await all(store, 'herons', { where: [{ property: 'species', value: 'ibis' }, { property: 'seen', value: 'true' }], limit: 64 })).toEqual(both);
+      });
+
+      it('matches property names holding dots, quotes, backslashes and a leading $', async () => {
+        await store.createDataset({ ...DS, id: 'names' });
+        const odd = { 'a.b': 'x', 'q"k': 'y', 'b\\s': 'z', $d: 'w', 'ü': 1e2 };
+        await store.ingest('names', [record('1', 0, 0, odd), record('2', 0, 0, { a: { b: 'x' } })], KEEP);
+        for (const [property, value] of [['a.b', 'x'], ['q"k', 'y'], ['b\\s', 'z'], ['$d', 'w'], ['ü', '100']] as const) {
+          expect((await store.listObservations('names', { where: [{ property, value }], limit: 5 })).features, property).toHaveLength(1);
+        }
+      });
+    });
+
+    describe('run input', () => {
+      it('loads the matching observations as columns in insertion order', async () => {
+        await store.createDataset(DS);
+        const recs = seededRecords(11, 500);
+        await store.ingest('herons', recs, KEEP);
+        const all = await store.loadForRun('herons');
+        expect(all.ids).toEqual(recs.map((r) => r.id));
+        expect(Array.from(all.lon)).toEqual(recs.map((r) => r.lon));
+        expect(Array.from(all.lat)).toEqual(recs.map((r) => r.lat));
+        expect(Array.from(all.observedAt)).toEqual(recs.map((r) => r.observedAt ?? NaN));
+        expect(all.weight).not.toBeNull();
+        expect(Array.from(all.weight!)).toEqual(recs.map((r) => r.weight ?? NaN));
+        expect(all.features).toEqual(recs.map((r) => r.feature));
+
+        const from = T0 + 3 * DAY_MS;
+        const to = T0 + 20 * DAY_MS;
+        const sub = await store.loadForRun('herons', { from, to, where: [{ property: 'species', value: 'egret' }] });
+        const want = recs.filter((r) => r.observedAt !== null && r.observedAt >= from && r.observedAt < to && propertyMatches(r.feature, 'species', 'egret'));
+        expect(want.length).toBeGreaterThan(5);
+        expect(sub.ids).toEqual(want.map((r) => r.id));
+        expect(Array.from(sub.lon)).toEqual(want.map((r) => r.lon));
+      });
+
+      it('gives null weights when no observation has one, and empty columns for an empty dataset', async () => {
+        await store.createDataset(DS);
+        const empty = await store.loadForRun('herons');
+        expect(empty.ids).toEqual([]);
+        expect(empty.lon.length).toBe(0);
+        expect(empty.weight).toBeNull();
+        await store.ingest('herons', [record('a', 1, 2), record('b', -179.5, -89)], KEEP);
+        const cols = await store.loadForRun('herons');
+        expect(cols.weight).toBeNull();
+        expect(Array.from(cols.lon)).toEqual([1, -179.5]);
+        const pos = await store.getPositions('herons', ['b', 'zz']);
+        expect([...pos.entries()]).toEqual([['b', { lon: -179.5, lat: -89 }]]);
+      });
+    });
+
+    describe('runs', () => {
+      beforeEach(async () => {
+        await store.createDataset(DS);
+        await store.createDataset({ ...DS, id: 'other' });
+      });
+
+      it('go from queued to running to succeeded with progress, summary and timings', async () => {
+        const run = await store.createRun({ datasetId: 'herons', settings: { eps: 250 }, trigger: 'request' });
+        expect(run).toMatchObject({ datasetId: 'herons', status: 'queued', trigger: 'request', settings: { eps: 250 }, progress: 0, error: null, workerId: null, startedAt: null, finishedAt: null, summary: null });
+        expect(run.id).toMatch(/^r\d{6,}$/);
+        const claimed = await store.claimNextRun('w1');
+        expect(claimed).toMatchObject({ id: run.id, status: 'running', workerId: 'w1' });
+        expect(claimed!.startedAt).not.toBeNull();
+        expect(await store.claimNextRun('w2')).toBeNull();
+        await store.updateRun(run.id, { progress: 40 });
+        const done = await store.updateRun(run.id, { status: 'succeeded', progress: 100, finishedAt: '2024-05-02T02:00:05.000Z', summary: { hotspots: 3 }, timings: { load: 12.5, cluster: 40 } }, ['running']);
+        expect(done).toMatchObject({ status: 'succeeded', progress: 100, finishedAt: '2024-05-02T02:00:05.000Z', summary: { hotspots: 3 }, timings: { load: 12.5, cluster: 40 } });
+        expect(await store.getRun('herons', run.id)).toEqual(done);
+        expect(await store.getRun('other', run.id)).toBeNull();
+        expect(await store.getRun('herons', 'r999999')).toBeNull();
+        expect(await store.getRun('herons', 'nonsense')).toBeNull();
+        // a late change guarded by status fails once the run has ended
+        await rejects(store.updateRun(run.id, { status: 'cancelled' }, ['queued', 'running']), 'conflict');
+        await rejects(store.updateRun('r999999', { progress: 1 }), 'not-found');
+        await rejects(store.updateRun(run.id, { progress: 101 }), 'invalid');
+        await rejects(store.createRun({ datasetId: 'nope', settings: {}, trigger: 'request' }), 'not-found');
+      });
+
+      it('are listed newest first with paging, and the latest of a status is found', async () => {
+        const ids: string[] = [];
+        for (let i = 0; i < 7; i++) ids.push((await store.createRun({ datasetId: i === 3 ? 'other' : 'herons', settings: { i }, trigger: 'schedule' })).id);
+        const mine = ids.filter((_, i) => i !== 3);
+        expect([...ids].sort()).toEqual(ids); // creation order
+        const seen: string[] = [];
+        let cursor: string | undefined;
+        do {
+          const page = await store.listRuns('herons', { limit: 4, cursor });
+          seen.push(...page.runs.map((r) => r.id));
+          cursor = page.nextCursor ?? undefined;
+        } while (cursor !== undefined);
+        expect(seen).toEqual([...mine].reverse());
+        expect(await store.latestRun('herons')).toBeNull();
+        await store.updateRun(mine[1]!, { status: 'succeeded' });
+        await store.updateRun(mine[4]!, { status: 'succeeded' });
+        await store.updateRun(mine[5]!, { status: 'failed', error: 'boom' });
+        expect((await store.latestRun('herons'))?.id).toBe(mine[4]);
+        expect((await store.latestRun('herons', 'succeeded', mine[4]))?.id).toBe(mine[1]);
+        expect((await store.latestRun('herons', 'failed'))?.error).toBe('boom');
+        expect(await store.latestRun('other')).toBeNull();
+      });
+
+      it('store results that are served as stored, and tracks across runs', async () => {
+        const r1 = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const r2 = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        expect(await store.getRunLayer(r1.id, 'hotspots')).toBeNull();
+        expect(await store.getRunHotspots(r1.id)).toEqual([]);
+        const layers = { hotspots: '{"type":"FeatureCollection","features":[ ]}', centres: '{"type":"FeatureCollection","features":[]}', noise: '{"n":1}', points: '{"p":"\u00e9"}' };
+        const hull = '{"type":"Polygon","coordinates":[[[0,0],[1,0],[0,1],[0,0]]]}';
+        const hotspots = [
+          { hotspotId: 1, trackId: 't1', members: ['a', 'b', 'c'], coreMembers: ['a', 'b'], hull, figures: { area_km2: 1.5 } },
+          { hotspotId: 0, trackId: null, members: ['d'], coreMembers: ['d'], hull, figures: null },
+        ];
+        await store.saveRunResult(r1.id, { layers, hotspots });
+        await store.saveRunResult(r1.id, { layers, hotspots }); // saving again replaces, never doubles
+        await store.saveRunResult(r2.id, { layers, hotspots: [{ hotspotId: 0, trackId: 't1', members: ['a', 'b'], coreMembers: ['a'], hull }] });
+        for (const l of ['hotspots', 'centres', 'noise', 'points'] as const) expect(await store.getRunLayer(r1.id, l)).toBe(layers[l]);
+        expect(await store.getRunHotspots(r1.id)).toEqual([hotspots[1], hotspots[0]]);
+        expect(await store.getTrack('herons', 't1')).toEqual([
+          { runId: r1.id, hotspotId: 1, memberCount: 3, hull, figures: { area_km2: 1.5 } },
+          { runId: r2.id, hotspotId: 0, memberCount: 2, hull, figures: null },
+        ]);
+        expect(await store.getTrack('other', 't1')).toEqual([]);
+        await rejects(store.getRunLayer('r999999', 'noise'), 'not-found');
+        await rejects(store.saveRunResult('r999999', { layers, hotspots: [] }), 'not-found');
+      });
+
+      it('each queued run is claimed by exactly one of many concurrent claimers on two stores', async () => {
+        const other = await open();
+        const ids = new Set<string>();
+        for (let i = 0; i < 12; i++) ids.add((await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' })).id);
+        const claims = await Promise.all(Array.from({ length: 30 }, (_, i) => (i % 2 === 0 ? store : other).claimNextRun(`w${i}`)));
+        const got = claims.filter((c) => c !== null).map((c) => c!.id);
+        expect(new Set(got).size).toBe(got.length);
+        expect(new Set(got)).toEqual(ids);
+        expect(await store.claimNextRun('late')).toBeNull();
+      });
+
+      it('runs left running after a crash are failed with the reason or re-queued', async () => {
+        const a = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const b = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const c = await store.createRun({ datasetId: 'other', settings: {}, trigger: 'request' });
+        const d = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        await store.claimNextRun('old');
+        await store.claimNextRun('old');
+        await store.claimNextRun('live');
+        await store.updateRun(b.id, { progress: 55 });
+        // a live worker's fresh runs are not touched by a staleness bound
+        expect(await store.markInterruptedRuns('stale', { staleMs: 60_000 })).toEqual([]);
+        expect(await store.requeueInterruptedRuns({ workerId: 'old' })).toEqual([a.id, b.id]);
+        expect(await store.getRun('herons', b.id)).toMatchObject({ status: 'queued', progress: 0, workerId: null, startedAt: null });
+        expect(await store.markInterruptedRuns('the server stopped during the run')).toEqual([c.id]);
+        expect(await store.getRun('other', c.id)).toMatchObject({ status: 'failed', error: 'the server stopped during the run' });
+        expect((await store.getRun('other', c.id))!.finishedAt).not.toBeNull();
+        expect((await store.getRun('herons', d.id))!.status).toBe('queued');
+        expect((await store.claimNextRun('new'))?.id).toBe(a.id);
+      });
+    });
+
+    describe('schedule slots', () => {
+      it('are claimed exactly once across stores racing for the same slot', async () => {
+        await store.createDataset(DS);
+        const other = await open();
+        const slot = '2024-05-02T00:00:00.000Z';
+        const results = await Promise.all(Array.from({ length: 16 }, (_, i) => (i % 2 === 0 ? store : other).claimScheduledSlot('herons', slot)));
+        expect(results.filter((x) => x)).toHaveLength(1);
+        // the same instant written with an offset is the same slot; the next night is a new one
+        expect(await other.claimScheduledSlot('herons', '2024-05-02T02:00:00+02:00')).toBe(false);
+        expect(await other.claimScheduledSlot('herons', '2024-05-03T00:00:00Z')).toBe(true);
+        await rejects(store.claimScheduledSlot('nope', slot), 'not-found');
+        await rejects(store.claimScheduledSlot('herons', 'tonight'), 'invalid');
+      });
+    });
+  });
+}
