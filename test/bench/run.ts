@@ -1,0 +1,97 @@
+/**
+ * DBSCAN benchmark: Roost against density-clustering and @turf/clusters-dbscan on the seeded
+ * benchmark sets (test/bench/data.ts), eps 250 m, min_points 5. Every measurement runs in its
+ * own process (test/bench/measure.ts) so peak memory is that of one implementation at one size.
+ * Prints a markdown table and writes it to test/bench/results.md.
+ *
+ *   npm run bench
+ */
+import { spawnSync } from 'node:child_process';
+import { writeFileSync } from 'node:fs';
+import os from 'node:os';
+import { fileURLToPath } from 'node:url';
+import { BENCH_EPS_METERS, BENCH_MIN_POINTS, BENCH_SEED } from './data.js';
+import type { Measurement } from './measure.js';
+
+const here = fileURLToPath(new URL('.', import.meta.url));
+const SIZES = [10_000, 100_000, 1_000_000];
+/** A comparison library is tried at a size only if it finished the previous size within this, ms. */
+const NEXT_SIZE_LIMIT_MS = 6_000;
+/** Hard stop for one measurement process, ms. */
+const KILL_AFTER_MS = 90_000;
+
+interface Plan {
+  impl: 'roost' | 'density-clustering' | 'turf';
+  label: string;
+  runs: (n: number) => number;
+}
+const plans: Plan[] = [
+  { impl: 'roost', label: 'Roost', runs: (n) => (n >= 1_000_000 ? 3 : 5) },
+  { impl: 'density-clustering', label: 'density-clustering 1.3.0', runs: () => 1 },
+  { impl: 'turf', label: '@turf/clusters-dbscan 7.4.0', runs: () => 1 },
+];
+
+function median(xs: number[]): number {
+  const s = [...xs].sort((a, b) => a - b);
+  return s.length % 2 ? s[(s.length - 1) / 2] : (s[s.length / 2 - 1] + s[s.length / 2]) / 2;
+}
+
+function measure(impl: string, n: number, runs: number): Measurement | string {
+  const r = spawnSync(
+    process.execPath,
+    ['--expose-gc', '--max-old-space-size=8192', '--import', 'tsx', `${here}measure.ts`, impl, String(n), String(runs)],
+    { encoding: 'utf8', timeout: KILL_AFTER_MS, maxBuffer: 1 << 20 },
+  );
+  if (r.error || r.status !== 0) {
+    const why = r.signal === 'SIGTERM' ? `stopped after ${KILL_AFTER_MS / 1000} s` : `failed (${r.stderr.trim().split('\n').at(-1) ?? r.status})`;
+    return why;
+  }
+  return JSON.parse(r.stdout.trim().split('\n').at(-1)!) as Measurement;
+}
+
+const fmtMs = (ms: number): string => (ms >= 10_000 ? `${(ms / 1000).toFixed(1)} s` : ms >= 100 ? `${ms.toFixed(0)} ms` : `${ms.toFixed(1)} ms`);
+
+const rows: string[] = [];
+const roostAt = new Map<number, number>();
+const skipFrom = new Map<string, string>();
+for (const n of SIZES) {
+  for (const plan of plans) {
+    const skipped = skipFrom.get(plan.impl);
+    if (skipped !== undefined) {
+      rows.push(`| ${n.toLocaleString('en')} | ${plan.label} | – | – | – | – | – | – | ${skipped} |`);
+      continue;
+    }
+    process.stderr.write(`${plan.label} at ${n} points…\n`);
+    const m = measure(plan.impl, n, plan.runs(n));
+    if (typeof m === 'string') {
+      rows.push(`| ${n.toLocaleString('en')} | ${plan.label} | – | – | – | – | – | – | ${m} |`);
+      skipFrom.set(plan.impl, 'skipped: did not finish the smaller size');
+      continue;
+    }
+    const idx = m.indexMs.length ? median(m.indexMs) : 0;
+    const clu = median(m.clusterMs);
+    const total = idx + clu;
+    const cpu = median(m.cpuMs);
+    if (plan.impl === 'roost') roostAt.set(n, total);
+    const ratio = plan.impl === 'roost' ? '1' : `${(total / roostAt.get(n)!).toFixed(0)}×`;
+    rows.push(
+      `| ${n.toLocaleString('en')} | ${plan.label} | ${m.indexMs.length ? fmtMs(idx) : '–'} | ${fmtMs(clu)} | ${fmtMs(total)} (cpu ${fmtMs(cpu)}) | ${ratio} | ${m.peakRssMiB.toFixed(0)} MiB | ${Math.max(0, m.peakRssMiB - m.rssBeforeMiB).toFixed(0)} MiB | ${m.hotspots} hotspots, ${m.noise} noise; median of ${m.clusterMs.length} |`,
+    );
+    if (plan.impl !== 'roost' && total > NEXT_SIZE_LIMIT_MS) skipFrom.set(plan.impl, `skipped: ${fmtMs(total)} at the smaller size, far slower at this one`);
+  }
+}
+
+const cpus = os.cpus();
+const lines = [
+  `DBSCAN, eps ${BENCH_EPS_METERS} m, min_points ${BENCH_MIN_POINTS}, seeded benchmark sets (seed ${BENCH_SEED}: gaussian patches over ~400 km plus 15 % uniform background).`,
+  `Node ${process.version}, ${cpus[0]?.model.trim() ?? 'unknown CPU'}, ${cpus.length} cores, ${(os.totalmem() / 2 ** 30).toFixed(0)} GiB RAM, ${os.platform()} ${os.arch()}; load average at start ${os.loadavg()[0].toFixed(1)}. Command: \`npm run bench\`.`,
+  `Times are wall-clock medians; "cpu" is user + system CPU time of the same runs. Peak RSS is the whole measuring process; "stage" is peak RSS minus RSS just before the first run (data already loaded). Ratio: total time against Roost's.`,
+  '',
+  '| points | implementation | index build | clustering | total | ratio | peak RSS | stage RSS | notes |',
+  '| ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- |',
+  ...rows,
+  '',
+];
+const table = lines.join('\n');
+process.stdout.write(`${table}\n`);
+writeFileSync(`${here}results.md`, `# Benchmark results\n\n${table}`);
