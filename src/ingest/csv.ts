@@ -118,14 +118,18 @@ export function readCsv(text: string, options: CsvOptions): Observations {
 
     const properties: Record<string, unknown> = {};
     for (let k = 0; k < width; k++) {
-      if (k !== lonCol && k !== latCol && k !== idCol) properties[header[k] as string] = record[k];
+      if (k === lonCol || k === latCol || k === idCol) continue;
+      const name = header[k] as string;
+      // Plain assignment to "__proto__" would change the prototype instead of adding a member.
+      if (name === '__proto__') Object.defineProperty(properties, name, { value: record[k], enumerable: true, writable: true, configurable: true });
+      else properties[name] = record[k];
     }
     if (weight !== null && weightCol >= 0) {
       const cell = record[weightCol] as string;
       const w = parseDecimal(cell);
       if (w >= 0) {
         weight[r] = w;
-        properties[weightProperty as string] = w;
+        Object.defineProperty(properties, weightProperty as string, { value: w, enumerable: true, writable: true, configurable: true });
       } else {
         problems.add(r, id, 'bad-weight', weightMessage(where, weightProperty as string, cell.trim() === '' ? undefined : Number.isNaN(w) ? cell : w));
       }

@@ -175,3 +175,13 @@ describe('CSV: rows', () => {
     expect(err.problems[0]!.message).toContain('3 rows');
   });
 });
+
+describe('CSV: awkward column names', () => {
+  it('keeps a "__proto__" column as an ordinary property', () => {
+    const obs = readObservations('lon,lat,__proto__\n1,2,x\n', { format: 'csv' });
+    const p = obs.features[0]!.properties!;
+    expect(Object.keys(p)).toEqual(['__proto__']);
+    expect(Object.getOwnPropertyDescriptor(p, '__proto__')!.value).toBe('x');
+    expect(Object.getPrototypeOf(p)).toBe(Object.prototype);
+  });
+});
