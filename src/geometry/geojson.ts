@@ -100,14 +100,19 @@ export function geometryString(g: GeometryLike | null): string {
  * (the caller rounds figures as it sees fit); id, when given, must be a string or finite number.
  */
 export function featureString(geometry: GeometryLike | null, properties: Record<string, unknown> | null, id?: string | number): string {
-  let s = '{"type":"Feature"';
+  let idText = '';
   if (id !== undefined) {
     if (typeof id !== 'string' && !(typeof id === 'number' && Number.isFinite(id))) {
       throw new Error(`GeoJSON output: a feature id must be a string or finite number, got ${String(id)}`);
     }
-    s += ',"id":' + JSON.stringify(id);
+    idText = ',"id":' + JSON.stringify(id);
   }
-  return s + ',"geometry":' + geometryString(geometry) + ',"properties":' + (properties === null ? 'null' : JSON.stringify(properties)) + '}';
+  const text = `{"type":"Feature"${idText},"geometry":${geometryString(geometry)},"properties":${properties === null ? 'null' : JSON.stringify(properties)}}`;
+  // Reading a character makes V8 flatten the concatenation tree into one string; a caller that
+  // keeps a million features then holds a million flat strings, not millions of tree nodes for
+  // the garbage collector to trace (about half the time in a 200k-point measurement).
+  text.charCodeAt(0);
+  return text;
 }
 
 /** Growable longitude intervals plus the latitude range, gathered from geometries. */
