@@ -1,0 +1,164 @@
+/**
+ * Overlap of old hotspots with new ones, by shared members or by shared hull area.
+ *
+ * Both measures are MONIC's overlap without its ageing weights: the share of the OLD hotspot X that
+ * lies in the new hotspot Y, |X ∩ Y| / |X| (members) or area(X ∩ Y) / area(X) (hulls). It is not
+ * symmetric on purpose: it asks "where did X go".
+ *
+ * Hull areas come from @turf/turf (spherical area of the vertices, polygon clipping in the
+ * longitude/latitude plane). Only ratios of areas are used, so turf's Earth radius cancels; for
+ * hotspot-sized hulls the planar clipping of straight lon/lat edges is what the hulls themselves
+ * draw (they are written with edges densified to lon/lat straight lines).
+ */
+import { area as turfArea, feature, featureCollection, intersect as turfIntersect, union as turfUnion } from '@turf/turf';
+import type { Feature, MultiPolygon, Polygon } from 'geojson';
+import type { HullGeometry } from '../geometry/hull.js';
+
+/** One old→new pair with a positive overlap. */
+export interface OverlapPair {
+  /** index of the new hotspot in the caller's (hotspotId-sorted) array */
+  cur: number;
+  /** share of the old hotspot found in the new one, in [0, 1] */
+  overlap: number;
+  /** shared members (member basis) or overlap × member count of the old hotspot (hull basis) */
+  shared: number;
+}
+
+/**
+ * Maps every member id of the new run to the index of its hotspot. Throws when one observation
+ * id is a member of two hotspots of the same run (a run's hotspots partition their members).
+ */
+export function memberIndex(runs: readonly { hotspotId: number; members: readonly string[] }[], which: string): Map<string, number> {
+  const owner = new Map<string, number>();
+  for (let h = 0; h < runs.length; h++) {
+    for (const id of runs[h].members) {
+      const before = owner.get(id);
+      if (before !== undefined && before !== h) {
+        throw new Error(
+          `Observation ${id} is a member of ${which} hotspots ${runs[before].hotspotId} and ${runs[h].hotspotId}; ` +
+            'a run gives every observation to at most one hotspot, pass each hotspot with its own members.',
+        );
+      }
+      owner.set(id, h);
+    }
+  }
+  return owner;
+}
+
+/**
+ * Shared-member counts of one old hotspot with every new hotspot, as sparse pairs in ascending
+ * new-hotspot order. `counts` is a scratch array of the new run's length, all zero on entry and
+ * left all zero on return. Duplicate member ids within the old hotspot count once.
+ */
+export function memberPairs(members: readonly string[], owner: Map<string, number>, counts: Int32Array): { pairs: OverlapPair[]; sharedTotal: number; size: number } {
+  const seen = members.length > 1 ? new Set<string>() : null;
+  const touched: number[] = [];
+  let size = 0;
+  let sharedTotal = 0;
+  for (const id of members) {
+    if (seen) {
+      if (seen.has(id)) continue;
+      seen.add(id);
+    }
+    size++;
+    const h = owner.get(id);
+    if (h === undefined) continue;
+    if (counts[h] === 0) touched.push(h);
+    counts[h]++;
+    sharedTotal++;
+  }
+  touched.sort((a, b) => a - b);
+  const pairs: OverlapPair[] = [];
+  for (const h of touched) {
+    pairs.push({ cur: h, overlap: counts[h] / size, shared: counts[h] });
+    counts[h] = 0;
+  }
+  return { pairs, sharedTotal, size };
+}
+
+/** Bounding boxes of each polygon part, [minLon, minLat, maxLon, maxLat] per part (stride 4). */
+export function partBoxes(hull: HullGeometry): Float64Array {
+  const parts = hull.type === 'Polygon' ? [hull.coordinates] : hull.coordinates;
+  const boxes = new Float64Array(parts.length * 4);
+  for (let p = 0; p < parts.length; p++) {
+    let minX = Infinity, minY = Infinity, maxX = -Infinity, maxY = -Infinity;
+    // The exterior ring bounds the part; holes lie inside it.
+    for (const pos of parts[p][0] ?? []) {
+      const x = pos[0], y = pos[1];
+      if (x < minX) minX = x;
+      if (x > maxX) maxX = x;
+      if (y < minY) minY = y;
+      if (y > maxY) maxY = y;
+    }
+    boxes.set([minX, minY, maxX, maxY], p * 4);
+  }
+  return boxes;
+}
+
+/** Whether any part box of a meets any part box of b (touching counts; it costs nothing to check). */
+export function boxesMeet(a: Float64Array, b: Float64Array): boolean {
+  for (let i = 0; i < a.length; i += 4) {
+    for (let j = 0; j < b.length; j += 4) {
+      if (a[i] <= b[j + 2] && b[j] <= a[i + 2] && a[i + 1] <= b[j + 3] && b[j + 1] <= a[i + 3]) return true;
+    }
+  }
+  return false;
+}
+
+function asFeature(hull: HullGeometry): Feature<Polygon | MultiPolygon> {
+  return feature(hull as Polygon | MultiPolygon);
+}
+
+/** Area of a hull in m² as turf measures it (its radius cancels in every ratio taken here). */
+export function hullAreaM2(hull: HullGeometry): number {
+  return turfArea(asFeature(hull));
+}
+
+/** Area in m² (turf's measure) of the intersection of two hulls; 0 when they do not overlap. */
+export function intersectionAreaM2(a: HullGeometry, b: HullGeometry, what: string): number {
+  let shared: Feature<Polygon | MultiPolygon> | null;
+  try {
+    shared = turfIntersect(featureCollection([asFeature(a), asFeature(b)]));
+  } catch (err) {
+    throw new Error(`Could not intersect the hulls of ${what}: ${(err as Error).message}. Check that both are valid RFC 7946 polygons (closed rings, no self-crossing).`);
+  }
+  return shared === null ? 0 : turfArea(shared);
+}
+
+/**
+ * Share in [0, 1] of hull `x` covered by the union of `parts` (area(x ∩ ∪ parts) / area(x)), used
+ * for the covered share of a split where new hulls may overlap one another.
+ */
+export function coveredShare(x: HullGeometry, xAreaM2: number, parts: readonly HullGeometry[], what: string): number {
+  if (!(xAreaM2 > 0) || parts.length === 0) return 0;
+  let joined: HullGeometry;
+  try {
+    const u = parts.length === 1 ? asFeature(parts[0]) : turfUnion(featureCollection(parts.map(asFeature)));
+    if (u === null) return 0;
+    joined = u.geometry as HullGeometry;
+  } catch (err) {
+    throw new Error(`Could not join the hulls of ${what}: ${(err as Error).message}. Check that they are valid RFC 7946 polygons.`);
+  }
+  return Math.min(1, intersectionAreaM2(x, joined, what) / xAreaM2);
+}
+
+/**
+ * Hull overlap of one old hotspot with every new hotspot whose box meets its box, as sparse pairs
+ * in ascending new-hotspot order. `memberCount` scales the overlap into an estimate of shared
+ * members so that hull and member contributions compare.
+ */
+export function hullPairs(
+  x: HullGeometry, xBoxes: Float64Array, xAreaM2: number, memberCount: number,
+  current: readonly { hull: HullGeometry; hotspotId: number }[], curBoxes: readonly Float64Array[], label: string,
+): OverlapPair[] {
+  const pairs: OverlapPair[] = [];
+  if (!(xAreaM2 > 0)) return pairs;
+  for (let h = 0; h < current.length; h++) {
+    if (!boxesMeet(xBoxes, curBoxes[h])) continue;
+    const a = intersectionAreaM2(x, current[h].hull, `${label} and new hotspot ${current[h].hotspotId}`);
+    if (!(a > 0)) continue;
+    const overlap = Math.min(1, a / xAreaM2);
+    pairs.push({ cur: h, overlap, shared: overlap * memberCount });
+  }
+  return pairs;
+}
