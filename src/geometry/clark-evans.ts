@@ -4,6 +4,7 @@
  * Clark, P. J. & Evans, F. C. (1954). Distance to nearest neighbor as a measure of spatial
  * relationships in populations. Ecology 35(4): 445–453.
  */
+import { ChordTree } from '../core/chord-tree.js';
 import { metersForChord2, unitVectors } from '../core/haversine.js';
 import type { SphereIndex } from '../core/sphere-index.js';
 import type { PointSet } from '../core/types.js';
@@ -35,9 +36,6 @@ const Z_CRITICAL = 1.96;
  */
 const SE_CONSTANT = 0.26136;
 
-/** Points per leaf of the k-d tree: below this a plain scan is cheaper than more splitting. */
-const LEAF_SIZE = 12;
-
 /**
  * Great-circle distance in metres from every observation to its nearest other observation.
  * Identical positions give 0. With fewer than two observations every entry is Infinity (there is
@@ -66,167 +64,9 @@ export function nearestNeighbourMeters(points: PointSet, index?: SphereIndex): F
     throw new RangeError(`the index covers ${index.n} points but the point set has ${n}; build it over the same points`);
   }
   const tree = new ChordTree(index ? index.xyz : unitVectors(points.lon, points.lat));
-  const best2 = tree.nearestOther2();
+  const best2 = tree.kthChord2All(1);
   for (let i = 0; i < n; i++) out[i] = metersForChord2(best2[i]);
   return out;
-}
-
-/**
- * Static k-d tree over unit vectors, stored kdbush-style as one permutation: the node over
- * positions left..right has its median at m = (left + right) >> 1, the left child over
- * left..m−1 and the right child over m+1..right. The split axis of that node is kept at `axis[m]`
- * (each internal node owns a distinct median position).
- */
-class ChordTree {
-  private readonly n: number;
-  /** point id at each tree position */
-  private readonly ids: Int32Array;
-  /** unit vectors in tree order, stride 3 */
-  private readonly coords: Float64Array;
-  /** split axis (0 x, 1 y, 2 z) of the node whose median sits at this position */
-  private readonly axis: Uint8Array;
-
-  // search state, kept in fields so the recursion passes only the range
-  private qx = 0;
-  private qy = 0;
-  private qz = 0;
-  private self = 0;
-  private best = Infinity;
-
-  constructor(xyz: Float64Array) {
-    const n = xyz.length / 3;
-    this.n = n;
-    this.ids = new Int32Array(n);
-    for (let i = 0; i < n; i++) this.ids[i] = i;
-    this.coords = Float64Array.from(xyz);
-    this.axis = new Uint8Array(n);
-    this.build(0, n - 1);
-  }
-
-  private build(left: number, right: number): void {
-    if (right - left < LEAF_SIZE) return;
-    const c = this.coords;
-    let minX = Infinity, maxX = -Infinity, minY = Infinity, maxY = -Infinity, minZ = Infinity, maxZ = -Infinity;
-    for (let k = left; k <= right; k++) {
-      const x = c[3 * k], y = c[3 * k + 1], z = c[3 * k + 2];
-      if (x < minX) minX = x;
-      if (x > maxX) maxX = x;
-      if (y < minY) minY = y;
-      if (y > maxY) maxY = y;
-      if (z < minZ) minZ = z;
-      if (z > maxZ) maxZ = z;
-    }
-    // Split the widest axis: points on a small patch of the sphere lie almost in a plane, and a
-    // fixed x, y, z rotation would waste a third of the splits across that plane's thin direction.
-    const sx = maxX - minX, sy = maxY - minY, sz = maxZ - minZ;
-    const a = sx >= sy && sx >= sz ? 0 : sy >= sz ? 1 : 2;
-    const m = (left + right) >> 1;
-    this.select(m, left, right, a);
-    this.axis[m] = a;
-    this.build(left, m - 1);
-    this.build(m + 1, right);
-  }
-
-  /**
-   * Floyd–Rivest selection (Floyd & Rivest 1975, "Algorithm 489: SELECT", CACM 18(3)): reorders
-   * left..right so that position k holds the value it would have if sorted on `a`, smaller or
-   * equal ones before it and larger or equal ones after.
-   */
-  private select(k: number, left: number, right: number, a: number): void {
-    const c = this.coords;
-    while (right > left) {
-      if (right - left > 600) {
-        const n = right - left + 1;
-        const i = k - left + 1;
-        const z = Math.log(n);
-        const s = 0.5 * Math.exp((2 * z) / 3);
-        const sd = 0.5 * Math.sqrt((z * s * (n - s)) / n) * (i - n / 2 < 0 ? -1 : 1);
-        this.select(k, Math.max(left, Math.floor(k - (i * s) / n + sd)), Math.min(right, Math.floor(k + ((n - i) * s) / n + sd)), a);
-      }
-      const t = c[3 * k + a];
-      let i = left;
-      let j = right;
-      this.swap(left, k);
-      if (c[3 * right + a] > t) this.swap(left, right);
-      while (i < j) {
-        this.swap(i, j);
-        i++;
-        j--;
-        while (c[3 * i + a] < t) i++;
-        while (c[3 * j + a] > t) j--;
-      }
-      if (c[3 * left + a] === t) this.swap(left, j);
-      else {
-        j++;
-        this.swap(j, right);
-      }
-      if (j <= k) left = j + 1;
-      if (k <= j) right = j - 1;
-    }
-  }
-
-  private swap(i: number, j: number): void {
-    const ids = this.ids;
-    const c = this.coords;
-    const t = ids[i];
-    ids[i] = ids[j];
-    ids[j] = t;
-    for (let o = 0; o < 3; o++) {
-      const v = c[3 * i + o];
-      c[3 * i + o] = c[3 * j + o];
-      c[3 * j + o] = v;
-    }
-  }
-
-  /** Squared chord from every point (input order) to its nearest other point. */
-  nearestOther2(): Float64Array {
-    const n = this.n;
-    const out = new Float64Array(n);
-    const c = this.coords;
-    // Queries in tree order: consecutive queries are neighbours and walk the same nodes.
-    for (let k = 0; k < n; k++) {
-      this.qx = c[3 * k];
-      this.qy = c[3 * k + 1];
-      this.qz = c[3 * k + 2];
-      this.self = this.ids[k];
-      this.best = Infinity;
-      this.search(0, n - 1);
-      out[this.self] = this.best;
-    }
-    return out;
-  }
-
-  private search(left: number, right: number): void {
-    if (this.best === 0) return; // an identical position: nothing can be nearer
-    const c = this.coords;
-    const ids = this.ids;
-    if (right - left < LEAF_SIZE) {
-      for (let k = left; k <= right; k++) {
-        const dx = c[3 * k] - this.qx;
-        const dy = c[3 * k + 1] - this.qy;
-        const dz = c[3 * k + 2] - this.qz;
-        const d2 = dx * dx + dy * dy + dz * dz;
-        if (d2 < this.best && ids[k] !== this.self) this.best = d2;
-      }
-      return;
-    }
-    const m = (left + right) >> 1;
-    const dx = c[3 * m] - this.qx;
-    const dy = c[3 * m + 1] - this.qy;
-    const dz = c[3 * m + 2] - this.qz;
-    const d2 = dx * dx + dy * dy + dz * dz;
-    if (d2 < this.best && ids[m] !== this.self) this.best = d2;
-    const a = this.axis[m];
-    // signed distance from the query to the splitting plane along axis a
-    const side = (a === 0 ? this.qx : a === 1 ? this.qy : this.qz) - c[3 * m + a];
-    if (side <= 0) {
-      this.search(left, m - 1);
-      if (side * side < this.best) this.search(m + 1, right);
-    } else {
-      this.search(m + 1, right);
-      if (side * side < this.best) this.search(left, m - 1);
-    }
-  }
 }
 
 /**
