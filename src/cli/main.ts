@@ -127,7 +127,7 @@ export function buildProgram(setExit: (code: number) => void): Command {
     .option('--optics-max-eps <metres>', 'OPTICS: largest radius searched (default 3 × eps)')
     .addOption(new Option('--optics-extraction <how>', 'OPTICS: cut hotspots at eps or by the ξ method').choices(['eps', 'xi']))
     .option('--xi <x>', 'OPTICS ξ: relative reachability drop bounding a hotspot (default 0.05)')
-    .option('--min-cluster-size <n>', 'OPTICS ξ: fewest observations in a hotspot (default min-points)')
+    .option('--min-cluster-size <n>', 'OPTICS ξ: fewest observations in a hotspot (default: larger of min-points and 0.5 % of observations)')
     .action(async (input: string, opts: Record<string, unknown>) => {
       try {
         const settings = resolveSettings(settingsFromFlags(opts));

@@ -75,6 +75,15 @@ function resolveEps(points: PointSet, settings: ClusterSettings): number {
   return suggestion.epsMeters;
 }
 
+/**
+ * Default smallest ξ hotspot: min_points, or 0.5 % of the observations when that is larger. The
+ * ragged reachability of real patches otherwise splits them into many tiny ξ clusters (our choice,
+ * no source).
+ */
+export function defaultMinClusterSize(n: number, minPoints: number): number {
+  return Math.max(minPoints, 2, Math.ceil(0.005 * n));
+}
+
 function runMethod(points: PointSet, index: SphereIndex, epsMeters: number, settings: ClusterSettings, progress: (d: number) => void): Clustering {
   if (settings.method === 'dbscan') {
     return dbscan(points, { epsMeters, minPoints: settings.minPoints, index, onProgress: progress });
@@ -82,7 +91,7 @@ function runMethod(points: PointSet, index: SphereIndex, epsMeters: number, sett
   const maxEps = settings.opticsMaxEpsMeters ?? 3 * epsMeters;
   const ordering = optics(points, { maxEpsMeters: maxEps, minPoints: settings.minPoints, onProgress: progress });
   if (settings.opticsExtraction === 'eps') return extractDbscan(ordering, Math.min(epsMeters, maxEps));
-  return extractXi(ordering, { xi: settings.xi, minClusterSize: settings.minClusterSize ?? settings.minPoints }).clustering;
+  return extractXi(ordering, { xi: settings.xi, minClusterSize: settings.minClusterSize ?? defaultMinClusterSize(points.n, settings.minPoints) }).clustering;
 }
 
 /** Members of every hotspot as one CSR layout: hotspot h owns members[start[h] .. start[h+1]). */

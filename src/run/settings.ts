@@ -37,7 +37,7 @@ export interface ClusterSettings {
   opticsExtraction: OpticsExtraction;
   /** OPTICS ξ: the relative drop in reachability that bounds a hotspot, 0 < ξ < 1 */
   xi: number;
-  /** OPTICS ξ: the fewest observations a hotspot may have; default min_points */
+  /** OPTICS ξ: the fewest observations a hotspot may have; default the larger of min_points and 0.5 % of the observations */
   minClusterSize: number | null;
   /** CSV: longitude column name (found by common header names when null) */
   lonColumn: string | null;
