@@ -27,6 +27,7 @@ export async function startServer(config: ServerConfig, options: { handleSignals
   const url = await app.listen({ port: config.port, host: config.host });
 
   let closing: Promise<void> | null = null;
+  let stopListening = (): void => undefined;
   const close = (): Promise<void> => {
     closing ??= (async () => {
       const cut = setTimeout(() => {
@@ -38,6 +39,7 @@ export async function startServer(config: ServerConfig, options: { handleSignals
         await app.close();
       } finally {
         clearTimeout(cut);
+        stopListening();
       }
     })();
     return closing;
@@ -63,10 +65,10 @@ export async function startServer(config: ServerConfig, options: { handleSignals
     };
     process.on('SIGTERM', onSignal);
     process.on('SIGINT', onSignal);
-    app.addHook('onClose', async () => {
+    stopListening = () => {
       process.removeListener('SIGTERM', onSignal);
       process.removeListener('SIGINT', onSignal);
-    });
+    };
   }
   return { app, url, close };
 }
