@@ -1,8 +1,12 @@
+import { readdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
 import { describe, expect, it } from 'vitest';
 import { booleanPointInPolygon } from '@turf/turf';
 import { EARTH_RADIUS_M, haversineMeters } from '../../src/core/haversine.js';
 import { cutAtAntimeridian, ringTurns, unwrapLongitudes, wrapDelta, wrapLongitude } from '../../src/geometry/antimeridian.js';
 import { geometryAreaKm2, ringSignedExcess } from '../../src/geometry/area.js';
+import { bboxOf, featureCollectionString, featureString, type GeometryLike } from '../../src/geometry/geojson.js';
 import { hotspotHull, hullVertices, MIN_WIDTH_M, type HullGeometry } from '../../src/geometry/hull.js';
 import { destination, rng } from '../reference/seeded.js';
 
@@ -409,4 +413,36 @@ describe('cutAtAntimeridian', () => {
     expect(wrapLongitude(180)).toBe(-180);
     expect(() => cutAtAntimeridian([[0, 0], [1, 0]])).toThrow(/3 distinct/);
   });
+});
+
+describe('hull fixtures (viewable on a map)', () => {
+  // Each input in fixtures/in is a FeatureCollection of member points with the hull options in its
+  // own "hull_options" member; fixtures/out holds the written hull next to the members.
+  // REGEN=1 rewrites the outputs on purpose; otherwise the written text must match byte for byte
+  // (the product promises byte-identical output for the same input).
+  const dir = fileURLToPath(new URL('./fixtures/', import.meta.url));
+  const names = readdirSync(join(dir, 'in')).filter((f) => f.endsWith('.geojson')).sort();
+
+  it('has fixtures to check', () => {
+    expect(names.length).toBeGreaterThanOrEqual(4);
+  });
+
+  for (const name of names) {
+    it(`writes ${name} as stored`, () => {
+      const input = JSON.parse(readFileSync(join(dir, 'in', name), 'utf8'));
+      const lon = input.features.map((f: { geometry: { coordinates: number[] } }) => f.geometry.coordinates[0]);
+      const lat = input.features.map((f: { geometry: { coordinates: number[] } }) => f.geometry.coordinates[1]);
+      const hull = hotspotHull(lon, lat, input.hull_options);
+      expectRfcRings(hull);
+      expectContainsAll(hull, lon, lat);
+      const features = [
+        featureString(hull, { area_km2: Number(geometryAreaKm2(hull).toFixed(6)), members: lon.length }, 'hull'),
+        ...input.features.map((f: { geometry: GeometryLike }, i: number) => featureString(f.geometry, { member: i })),
+      ];
+      const text = featureCollectionString(features, bboxOf([hull, ...input.features.map((f: { geometry: GeometryLike }) => f.geometry)])) + '\n';
+      const outPath = join(dir, 'out', name);
+      if (process.env.REGEN === '1') writeFileSync(outPath, text);
+      expect(text).toBe(readFileSync(outPath, 'utf8'));
+    });
+  }
 });
