@@ -1,0 +1,235 @@
+/**
+ * Thresholds at their boundaries, the hull fallback, track ids, input order and bad input.
+ * Transition rules: MONIC (Spiliopoulou et al., KDD 2006), overlap(X, Y) = |X ∩ Y| / |X| without
+ * ageing weights; the cases are our own.
+ */
+import { describe, expect, it } from 'vitest';
+import { DEFAULT_TRACK_SETTINGS, formatTrackId, matchRuns, trackIdsAfter, type RunHotspot } from '../../src/tracks/match.js';
+import { rng } from '../reference/seeded.js';
+import { ids, kinds, spot, trackOf } from './build.js';
+
+const RAD = Math.PI / 180;
+const BOX_A: [number, number, number, number] = [10.0, 50.0, 10.02, 50.01];
+const far = (k: number): [number, number, number, number] => [20 + k, 40, 20.01 + k, 40.01];
+
+describe('thresholds at their boundaries', () => {
+  it('an overlap of exactly τ survives; just below it the hotspot disappears and the new one emerges', () => {
+    const prev = [spot(1, ids('a', 1, 10), BOX_A, 'tA')];
+    const at = matchRuns(prev, [spot(1, ids('a', 1, 5), BOX_A)]);
+    expect(kinds(at)).toEqual(['survival']);
+    expect(at.transitions[0].overlap).toEqual([0.5]);
+    expect(trackOf(at, 1)).toBe('tA');
+    // Members only: 4 of 10 is below τ.
+    const below = matchRuns(prev, [spot(1, ids('a', 1, 4), BOX_A)], { hullOverlapFallback: false });
+    expect(kinds(below)).toEqual(['disappearance', 'emergence']);
+    expect(trackOf(below, 1)).not.toBe('tA');
+    // With the defaults, 4 of 10 is also the whole run's member share (0.4 < 0.5): the hulls decide,
+    // and the same outline survives.
+    const byHull = matchRuns(prev, [spot(1, ids('a', 1, 4), BOX_A)]);
+    expect(kinds(byHull)).toEqual(['survival']);
+    expect(byHull.transitions[0].basis).toBe('hull');
+  });
+
+  it('a custom τ = 0.3 is met by 3 of 10 members', () => {
+    const prev = [spot(1, ids('a', 1, 10), BOX_A, 'tA')];
+    const settings = { survivalThreshold: 0.3, splitThreshold: 0.1, hullOverlapFallback: false };
+    expect(kinds(matchRuns(prev, [spot(1, ids('a', 1, 3), BOX_A)], settings))).toEqual(['survival']);
+    expect(kinds(matchRuns(prev, [spot(1, ids('a', 1, 2), BOX_A)], settings))).toEqual(['disappearance', 'emergence']);
+  });
+
+  it('parts of exactly τ_split covering exactly τ make a split; a part below τ_split does not count', () => {
+    const prev = [spot(1, ids('a', 1, 8), BOX_A, 'tA')];
+    const split = matchRuns(prev, [spot(1, ids('a', 1, 2), far(0)), spot(2, ids('a', 3, 4), far(1))]);
+    expect(kinds(split)).toEqual(['split']);
+    expect(split.transitions[0].overlap).toEqual([0.25, 0.25]);
+    expect(split.transitions[0].covered).toBe(0.5);
+    // Equal parts: the lower new hotspot id continues the track.
+    expect(split.tracks).toEqual([{ hotspotId: 1, trackId: 'tA' }, { hotspotId: 2, trackId: 't000001' }]);
+
+    const crumbs = matchRuns(prev, [spot(1, ids('a', 1, 2), far(0)), spot(2, ['a3'], far(1)), spot(3, ['a4'], far(2))]);
+    expect(kinds(crumbs)).toEqual(['disappearance', 'emergence', 'emergence', 'emergence']);
+  });
+
+  it('parts that together cover less than τ are no split', () => {
+    const prev = [spot(1, ids('a', 1, 10), BOX_A, 'tA')];
+    const settings = { survivalThreshold: 0.6, splitThreshold: 0.25 };
+    expect(kinds(matchRuns(prev, [spot(1, ids('a', 1, 3), far(0)), spot(2, ids('a', 4, 5), far(1))], settings)))
+      .toEqual(['disappearance', 'emergence', 'emergence']);
+    expect(kinds(matchRuns(prev, [spot(1, ids('a', 1, 3), far(0)), spot(2, ids('a', 4, 6), far(1))], settings)))
+      .toEqual(['split']);
+  });
+
+  it('two halves of exactly τ each: no single match, so a split', () => {
+    const prev = [spot(1, ids('a', 1, 10), BOX_A, 'tA')];
+    const r = matchRuns(prev, [spot(1, ids('a', 6, 10), far(0)), spot(2, ids('a', 1, 5), far(1))]);
+    expect(kinds(r)).toEqual(['split']);
+    expect(r.transitions[0].overlap).toEqual([0.5, 0.5]);
+    expect(trackOf(r, 1)).toBe('tA');
+  });
+
+  it('two hotspots each with exactly τ of their members in one new hotspot are absorbed; the larger contributor continues', () => {
+    const prev = [spot(1, ids('a', 1, 4), BOX_A, 'tA'), spot(2, ids('b', 1, 10), far(0), 'tB')];
+    const r = matchRuns(prev, [spot(1, [...ids('a', 1, 2), ...ids('b', 1, 5)], far(0))]);
+    expect(kinds(r)).toEqual(['absorption']);
+    expect(r.transitions[0].overlap).toEqual([0.5, 0.5]);
+    expect(trackOf(r, 1)).toBe('tB');
+  });
+
+  it('a new hotspot holding τ of an old one is its match even when a smaller share went elsewhere', () => {
+    const prev = [spot(1, ids('a', 1, 4), BOX_A, 'tA'), spot(2, ids('b', 1, 4), far(0), 'tB')];
+    const r = matchRuns(prev, [spot(1, [...ids('a', 1, 4), 'b1'], BOX_A), spot(2, ids('b', 2, 3), far(0))]);
+    // b: 1/4 in Y1, 2/4 in Y2 → B survives as Y2 (the only one ≥ τ); A survives as Y1.
+    expect(kinds(r)).toEqual(['survival', 'survival']);
+    expect(r.tracks).toEqual([{ hotspotId: 1, trackId: 'tA' }, { hotspotId: 2, trackId: 'tB' }]);
+  });
+});
+
+describe('hull overlap when membership changed', () => {
+  // source (expected values): area of a latitude–longitude rectangle on a sphere, R² Δλ (sin φ2 − sin φ1);
+  // only ratios are used, so the radius cancels.
+  const latShare = (s: number, n: number, s0: number, n0: number): number => (Math.sin(n * RAD) - Math.sin(s * RAD)) / (Math.sin(n0 * RAD) - Math.sin(s0 * RAD));
+
+  it('a sliding window with no shared ids still finds the survival through the hulls', () => {
+    const prev = [spot(1, ids('o', 1, 10), BOX_A, 'tA')];
+    const cur = [spot(1, ids('p', 1, 12), [10.004, 50.002, 10.024, 50.012])];
+    const r = matchRuns(prev, cur);
+    expect(r.memberShare).toBe(0);
+    expect(kinds(r)).toEqual(['survival']);
+    const t = r.transitions[0];
+    expect(t.basis).toBe('hull');
+    expect(t.overlap[0]).toBeCloseTo((0.016 / 0.02) * latShare(50.002, 50.01, 50.0, 50.01), 9);
+    expect(t.change!.countDelta).toBe(2);
+    expect(trackOf(r, 1)).toBe('tA');
+  });
+
+  it('without the fallback the same nights read as a disappearance and an emergence', () => {
+    const prev = [spot(1, ids('o', 1, 10), BOX_A, 'tA')];
+    const cur = [spot(1, ids('p', 1, 12), [10.004, 50.002, 10.024, 50.012])];
+    const r = matchRuns(prev, cur, { hullOverlapFallback: false });
+    expect(kinds(r)).toEqual(['disappearance', 'emergence']);
+    expect(r.transitions.map((x) => x.basis)).toEqual(['members', 'members']);
+  });
+
+  it('a hull covering exactly half of the old one reaches τ = 0.5', () => {
+    const prev = [spot(1, ids('o', 1, 10), BOX_A, 'tA')];
+    const r = matchRuns(prev, [spot(1, ids('p', 1, 10), [10.01, 50.0, 10.03, 50.01])]);
+    // Clipping leaves it a hair below 0.5 (about 7e-13); hullTolerance absorbs that.
+    expect(r.transitions[0].overlap[0]).toBeCloseTo(0.5, 9);
+    expect(kinds(r)).toEqual(['survival']);
+  });
+
+  it('below minMemberOverlapShare every old hotspot is compared by hull; above it only those sharing nothing', () => {
+    const prev = [spot(1, ids('a', 1, 10), BOX_A, 'tA'), spot(2, ids('b', 1, 10), far(0), 'tB')];
+    // 4 of A's 10 members remain, none of B's: share 4/20 = 0.2.
+    const cur = [spot(1, [...ids('a', 1, 4), ...ids('n', 1, 6)], BOX_A), spot(2, ids('m', 1, 9), far(0))];
+    const low = matchRuns(prev, cur);
+    expect(low.memberShare).toBe(0.2);
+    expect(kinds(low)).toEqual(['survival', 'survival']);
+    expect(low.transitions.map((t) => t.basis)).toEqual(['hull', 'hull']);
+    expect(low.tracks).toEqual([{ hotspotId: 1, trackId: 'tA' }, { hotspotId: 2, trackId: 'tB' }]);
+
+    // With the bar at 0.1, A is judged by its members (4/10 < τ: gone) and B, sharing nothing, by its hull.
+    const high = matchRuns(prev, cur, { minMemberOverlapShare: 0.1 });
+    expect(kinds(high)).toEqual(['disappearance', 'survival', 'emergence']);
+    expect(high.transitions.map((t) => t.basis)).toEqual(['members', 'hull', 'members']);
+    expect(trackOf(high, 2)).toBe('tB');
+  });
+
+  it('hulls cut at the antimeridian are compared part by part', () => {
+    const cut = (west: number, east: number): RunHotspot['hull'] => ({
+      type: 'MultiPolygon',
+      coordinates: [
+        [[[west, 0], [180, 0], [180, 0.01], [west, 0.01], [west, 0]]],
+        [[[-180, 0], [east, 0], [east, 0.01], [-180, 0.01], [-180, 0]]],
+      ],
+    });
+    const x: RunHotspot = { ...spot(1, ids('o', 1, 5), BOX_A, 'tX'), hull: cut(179.99, -179.99), centre: [180, 0] };
+    const y: RunHotspot = { ...spot(1, ids('p', 1, 5), BOX_A), hull: cut(179.995, -179.985), centre: [-179.995, 0] };
+    const r = matchRuns([x], [y]);
+    expect(kinds(r)).toEqual(['survival']);
+    // (0.005 + 0.01) / 0.02 of the longitude span, the same latitudes.
+    expect(r.transitions[0].overlap[0]).toBeCloseTo(0.75, 9);
+    expect(r.transitions[0].change!.movedMeters).toBeCloseTo(6_371_008.8 * 0.005 * RAD, 6); // arc length R·Δλ on the equator
+  });
+});
+
+describe('track ids', () => {
+  it('formats t + six digits', () => {
+    expect(formatTrackId(42)).toBe('t000042');
+    expect(() => formatTrackId(0)).toThrow(/≥ 1/);
+  });
+
+  it('the default generator continues after the highest t-number of the previous run', () => {
+    const gen = trackIdsAfter(['t000007', 'custom', 't000003']);
+    expect([gen(1), gen(2)]).toEqual(['t000008', 't000009']);
+    const r = matchRuns([spot(1, ids('a', 1, 3), BOX_A, 't000007')], [spot(2, ids('b', 1, 3), far(1)), spot(1, ids('a', 1, 3), BOX_A)]);
+    expect(r.tracks).toEqual([{ hotspotId: 1, trackId: 't000007' }, { hotspotId: 2, trackId: 't000008' }]);
+  });
+
+  it('a caller generator is asked in new hotspot id order and may not reuse an id', () => {
+    const asked: number[] = [];
+    const r = matchRuns([], [spot(2, ['b'], far(1)), spot(1, ['a'], far(0))], {}, (seq) => {
+      asked.push(seq);
+      return `k${100 + seq}`;
+    });
+    expect(asked).toEqual([1, 2]);
+    expect(r.tracks).toEqual([{ hotspotId: 1, trackId: 'k101' }, { hotspotId: 2, trackId: 'k102' }]);
+    expect(() => matchRuns([spot(1, ['a'], BOX_A, 'k1')], [spot(1, ['z'], far(3))], { hullOverlapFallback: false }, () => 'k1'))
+      .toThrow(/already in use/);
+    expect(() => matchRuns([], [spot(1, ['a'], BOX_A), spot(2, ['b'], far(0))], {}, () => 'same')).toThrow(/already in use/);
+  });
+});
+
+describe('input order does not matter', () => {
+  const prev = [
+    spot(1, ids('a', 1, 15), [10.0, 50.0, 10.03, 50.012], 'tA'),
+    spot(2, ids('b', 1, 8), [10.2, 50.0, 10.21, 50.01], 'tB'),
+    spot(3, ids('c', 1, 6), [10.4, 50.0, 10.41, 50.01], 'tC'),
+    spot(4, ids('d', 1, 6), [10.5, 50.0, 10.51, 50.01], 'tD'),
+    spot(5, ids('e', 1, 6), [10.6, 50.0, 10.61, 50.01], 'tE'),
+  ];
+  const cur = [
+    spot(1, ids('a', 1, 7), [10.0, 50.0, 10.014, 50.012]),
+    spot(2, ids('a', 8, 13), [10.016, 50.0, 10.03, 50.012]),
+    spot(3, [...ids('b', 1, 8), ...ids('c', 1, 6)], [10.2, 50.0, 10.41, 50.01]),
+    spot(4, ids('x', 1, 6), [10.6, 50.0, 10.61, 50.01]), // E by its hull (no shared ids)
+    spot(5, ids('y', 1, 6), [11.0, 50.0, 11.01, 50.01]),
+  ];
+  const shuffled = <T>(a: T[], seed: number): T[] => {
+    const r = rng(seed);
+    const out = [...a];
+    for (let i = out.length - 1; i > 0; i--) {
+      const j = r.int(i + 1);
+      [out[i], out[j]] = [out[j], out[i]];
+    }
+    return out;
+  };
+
+  it('gives the same tracks and transitions for every order of both runs', () => {
+    const base = matchRuns(prev, cur);
+    expect(kinds(base)).toEqual(['split', 'absorption', 'disappearance', 'survival', 'emergence']);
+    for (let seed = 1; seed <= 12; seed++) {
+      expect(matchRuns(shuffled(prev, seed), shuffled(cur, seed + 100))).toEqual(base);
+    }
+  });
+});
+
+describe('bad input is refused with a message that says what to do', () => {
+  it('settings', () => {
+    expect(() => matchRuns([], [], { splitThreshold: 0.6 })).toThrow(/splitThreshold .* ≤ 0.5/);
+    expect(() => matchRuns([], [], { survivalThreshold: 0 })).toThrow(/survivalThreshold must be a number > 0/);
+    expect(() => matchRuns([], [], { minMemberOverlapShare: 1.5 })).toThrow(/minMemberOverlapShare/);
+    expect(() => matchRuns([], [], { threshold: 0.5 } as never)).toThrow(/Unknown track setting threshold/);
+    expect(() => matchRuns([], [], { hullOverlapFallback: 'yes' } as never)).toThrow(/true or false/);
+    expect(DEFAULT_TRACK_SETTINGS).toMatchObject({ survivalThreshold: 0.5, splitThreshold: 0.25, hullOverlapFallback: true, minMemberOverlapShare: 0.5 });
+  });
+
+  it('hotspots', () => {
+    expect(() => matchRuns([], [spot(1, ['a'], BOX_A), spot(1, ['b'], far(0))])).toThrow(/hotspotId 1 twice/);
+    expect(() => matchRuns([], [spot(0, ['a'], BOX_A)])).toThrow(/integers ≥ 1/);
+    expect(() => matchRuns([spot(1, ['a'], BOX_A)], [])).toThrow(/previous hotspot 1 has no trackId/);
+    expect(() => matchRuns([spot(1, ['a'], BOX_A, 't'), spot(2, ['b'], far(0), 't')], [])).toThrow(/Track t is on two/);
+    expect(() => matchRuns([], [spot(1, ['a', 'b'], BOX_A), spot(2, ['b'], far(0))])).toThrow(/Observation b is a member of new hotspots 1 and 2/);
+    expect(() => matchRuns([], [{ ...spot(1, ['a'], BOX_A), hull: { type: 'Point' } as never }])).toThrow(/Polygon or MultiPolygon/);
+  });
+});
