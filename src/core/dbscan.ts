@@ -138,15 +138,45 @@ export function dbscan(points: PointSet, options: DbscanOptions): Clustering {
     }
   }
 
-  // Pass 2: union–find over pairs of core points within eps. Pairs across cells are taken from
-  // the lower cell only (neighbour cells before c are skipped whole). Once a scan finds every
-  // core point of a cell d in k's component, d is marked united; later points already in that
-  // component skip d in O(1). Components only ever merge, so the mark stays true. This keeps
-  // dense hotspots, where a cell holds thousands of points, from costing cell size squared.
+  // Pass 2: union–find over pairs of core points within eps, in two steps.
+  // 2a, inside each cell: once a scan from some core point finds every core point of its cell in
+  // its own component, the cell is marked whole and the rest of the cell is skipped.
+  // 2b, across cells (pairs taken from the lower cell only): a whole cell joins k's component
+  // through any one link, so its scan stops at the first core point within eps; a cell already
+  // in k's component is skipped in O(1). Components only ever merge, so both marks stay true.
+  // Dense hotspots, where a cell holds thousands of points, thus cost about linear time, not
+  // the square of the cell size.
   const parent = new Int32Array(n);
   for (let k = 0; k < n; k++) parent[k] = k;
-  const united = new Uint8Array(cellCount);
-  const rep = new Int32Array(cellCount); // one core point of each united cell
+  const whole = new Uint8Array(cellCount);
+  const rep = new Int32Array(cellCount).fill(-1); // one core point per cell, −1 when it has none
+  for (let c = 0; c < cellCount; c++) {
+    const m0 = cellStart[c], m1 = cellStart[c + 1];
+    for (let k = m0; k < m1; k++) {
+      if (core[k] === 0) continue;
+      // a whole cell has every core point, this one included, in one component already
+      if (whole[c] === 1) break;
+      if (rep[c] < 0) rep[c] = k;
+      let rk = find(parent, k);
+      const x = sxyz[3 * k], y = sxyz[3 * k + 1], z = sxyz[3 * k + 2];
+      let allJoined = true;
+      for (let m = m0; m < m1; m++) {
+        if (core[m] === 0 || m === k) continue;
+        const dx = sxyz[3 * m] - x, dy = sxyz[3 * m + 1] - y, dz = sxyz[3 * m + 2] - z;
+        if (dx * dx + dy * dy + dz * dz <= r2) {
+          const rm = find(parent, m);
+          // link the larger root under the smaller one
+          if (rk < rm) parent[rm] = rk;
+          else if (rm < rk) {
+            parent[rk] = rm;
+            rk = rm;
+          }
+        } else if (allJoined && find(parent, m) !== rk) allJoined = false;
+      }
+      if (allJoined) whole[c] = 1;
+    }
+  }
+  if (progress !== null) progress(0.6);
   nextReport = PROGRESS_STEP;
   for (let c = 0; c < cellCount; c++) {
     const a1 = nbrStart[c + 1];
@@ -156,33 +186,25 @@ export function dbscan(points: PointSet, options: DbscanOptions): Clustering {
       let rk = find(parent, k);
       for (let a = nbrStart[c]; a < a1; a++) {
         const d = nbr[a];
-        if (d < c) continue;
-        if (united[d] === 1 && find(parent, rep[d]) === rk) continue;
-        let allJoined = true;
-        let some = -1;
+        if (d <= c || rep[d] < 0) continue;
+        const isWhole = whole[d] === 1;
+        if (isWhole && find(parent, rep[d]) === rk) continue;
         for (let m = cellStart[d], mEnd = cellStart[d + 1]; m < mEnd; m++) {
           if (core[m] === 0) continue;
-          some = m;
-          const rm = find(parent, m);
-          if (rm === rk) continue;
           const dx = sxyz[3 * m] - x, dy = sxyz[3 * m + 1] - y, dz = sxyz[3 * m + 2] - z;
-          if (dx * dx + dy * dy + dz * dz <= r2) {
-            // link the larger root under the smaller one
-            if (rk < rm) parent[rm] = rk;
-            else {
-              parent[rk] = rm;
-              rk = rm;
-            }
-          } else allJoined = false;
-        }
-        if (allJoined && some >= 0) {
-          united[d] = 1;
-          rep[d] = some;
+          if (dx * dx + dy * dy + dz * dz > r2) continue;
+          const rm = find(parent, m);
+          if (rk < rm) parent[rm] = rk;
+          else if (rm < rk) {
+            parent[rk] = rm;
+            rk = rm;
+          }
+          if (isWhole) break;
         }
       }
     }
     if (progress !== null && cellStart[c + 1] >= nextReport) {
-      progress(0.5 + (0.3 * cellStart[c + 1]) / n);
+      progress(0.6 + (0.2 * cellStart[c + 1]) / n);
       nextReport += PROGRESS_STEP;
     }
   }
