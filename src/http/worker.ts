@@ -68,7 +68,8 @@ function rejectInput(err: InputError): WorkResult {
   const unreadable = codes.length > 0 && codes.every((c) => UNREADABLE.test(c));
   const listed = err.problems.slice(0, MAX_LISTED_PROBLEMS).map((p) => {
     const out: Record<string, unknown> = { index: p.index };
-    if (p.id !== undefined) out.id = p.id;
+    // an id that is itself the problem (an object, say) is described in the message instead
+    if (typeof p.id === 'string' || typeof p.id === 'number') out.id = p.id;
     out.code = p.code;
     out.message = p.message;
     return out;
