@@ -3,7 +3,7 @@
  * SIGKILL at an arbitrary moment; reopening the file shows only whole batches, at least every
  * batch whose commit the process had reported.
  */
-import { spawn } from 'node:child_process';
+import { spawn, type ChildProcess } from 'node:child_process';
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { dirname, join } from 'node:path';
@@ -13,7 +13,12 @@ import { openSqliteStore } from '../../src/storage/sqlite.js';
 
 const here = dirname(fileURLToPath(import.meta.url));
 const dir = mkdtempSync(join(tmpdir(), 'roost-crash-'));
-afterAll(() => rmSync(dir, { recursive: true, force: true }));
+const children = new Set<ChildProcess>();
+afterAll(() => {
+  // a failed or timed-out test must not leave a child writing on
+  for (const c of children) if (c.exitCode === null && c.signalCode === null) c.kill('SIGKILL');
+  rmSync(dir, { recursive: true, force: true });
+});
 
 const BATCH = 5_000;
 
@@ -21,6 +26,7 @@ const BATCH = 5_000;
 function ingestThenKill(path: string, prefix: string, committed: number, extraMs: number): Promise<number> {
   return new Promise((resolve, reject) => {
     const child = spawn(process.execPath, ['--import', 'tsx', join(here, 'crash-child.ts'), path, String(BATCH), prefix], { stdio: ['ignore', 'pipe', 'pipe'] });
+    children.add(child);
     let seen = 0;
     let err = '';
     let buf = '';
