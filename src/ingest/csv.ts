@@ -19,6 +19,9 @@ import type { InputFeature, Observations } from './types.js';
 import { ProblemList, TIME_PROPERTY, fail, parseDecimal, parseTimestamp, rangeProblem, timeMessage, weightMessage } from './checks.js';
 import { propertyListMessage } from './geojson.js';
 
+/** What readRecords returns when a problem with the header makes the rows meaningless. */
+const EMPTY: Observations = { points: { n: 0, lon: new Float64Array(0), lat: new Float64Array(0), weight: null }, features: [], observedAt: null };
+
 /** Header names recognised for the position columns, in order of preference. */
 export const LONGITUDE_HEADERS = ['longitude', 'lon', 'lng', 'long', 'x'] as const;
 export const LATITUDE_HEADERS = ['latitude', 'lat', 'y'] as const;
@@ -35,20 +38,57 @@ export interface CsvOptions {
 
 /** Reads CSV text with a header row into Observations. Throws InputError; never returns part of the input. */
 export function readCsv(text: string, options: CsvOptions): Observations {
+  // The quick pass keeps no per-record line numbers (csv-parse's `info` snapshots more than
+  // double its cost); when anything is wrong, the input is read again with them for the messages.
+  return readCsvPass(text, options, false);
+}
+
+interface RecordLines {
+  /** line each record ends on (csv-parse `info.lines`) */
+  end: number[];
+  /** blank lines skipped so far at each record */
+  empty: number[];
+}
+
+function readCsvPass(text: string, options: CsvOptions, withLines: boolean): Observations {
   const delimiter = options.delimiter ?? sniffDelimiter(text);
-  let records: { record: string[]; info: { lines: number; empty_lines: number } }[];
+  let records: string[][];
+  let lines: RecordLines | null = null;
   try {
-    records = parse(text, { delimiter, bom: true, info: true, relax_column_count: true, skip_empty_lines: true }) as unknown as typeof records;
+    const base = { delimiter, bom: true, relax_column_count: true, skip_empty_lines: true };
+    if (withLines) {
+      const withInfo = parse(text, { ...base, info: true }) as unknown as { record: string[]; info: { lines: number; empty_lines: number } }[];
+      records = withInfo.map((x) => x.record);
+      lines = { end: withInfo.map((x) => x.info.lines), empty: withInfo.map((x) => x.info.empty_lines) };
+    } else {
+      records = parse(text, base);
+    }
   } catch (err) {
     const e = err as { message?: string; lines?: number };
     fail('malformed-csv', `the CSV cannot be read near line ${e.lines ?? '?'}: ${e.message ?? String(err)}; check the quoting (a quote inside a quoted field is written "")`);
   }
   if (records.length === 0) fail('empty-input', 'the CSV is empty; send a header row and at least one data row');
-
-  const header = (records[0] as (typeof records)[number]).record.map((h, k) => (h.trim() === '' ? `column_${k + 1}` : h.trim()));
-  const lower = header.map((h) => h.toLowerCase());
   const problems = new ProblemList(options.maxProblems);
+  const obs = readRecords(records, lines, delimiter, options, problems);
+  if (problems.total > 0 && !withLines) return readCsvPass(text, options, true);
+  problems.throwIfAny();
+  return obs;
+}
 
+/** `row 3 (line 5) (id "a")`; the line where it is known. */
+function rowName(r: number, lines: RecordLines | null, id: string | undefined): string {
+  let s = `row ${r}`;
+  if (lines !== null) {
+    // csv-parse reports the line a record ends on; a record starts after the previous one and any blank lines.
+    const start = (lines.end[r] as number) + 1 + ((lines.empty[r + 1] as number) - (lines.empty[r] as number));
+    s += ` (line ${start})`;
+  }
+  return id !== undefined ? `${s} (id ${JSON.stringify(id)})` : s;
+}
+
+function readRecords(records: string[][], lines: RecordLines | null, delimiter: string, options: CsvOptions, problems: ProblemList): Observations {
+  const header = (records[0] as string[]).map((h, k) => (h.trim() === '' ? `column_${k + 1}` : h.trim()));
+  const lower = header.map((h) => h.toLowerCase());
   const dup = header.find((h, k) => header.indexOf(h) !== k);
   if (dup !== undefined) problems.add(null, undefined, 'bad-header', `the header names the column ${JSON.stringify(dup)} twice; give every column its own name`);
 
@@ -62,7 +102,7 @@ export function readCsv(text: string, options: CsvOptions): Observations {
     const what = missing.length > 0 ? `no column for ${missing.join(' or ')}` : `longitude and latitude name the same column ${JSON.stringify(header[lonCol])}`;
     const dataLike = header.some((h) => Number.isFinite(parseDecimal(h))) ? '; the first row looks like data — a header row is required' : '';
     problems.add(null, undefined, 'missing-columns', `${what}; headers found: ${header.map((h) => JSON.stringify(h)).join(', ')}${dataLike}; name the position columns in the options`);
-    problems.throwIfAny();
+    return EMPTY;
   }
 
   const idCol = lower.indexOf('id');
@@ -84,20 +124,13 @@ export function readCsv(text: string, options: CsvOptions): Observations {
   let timed = 0;
   const features: InputFeature[] = new Array(n);
   const width = header.length;
-  let prevLines = (records[0] as (typeof records)[number]).info.lines;
-  let prevEmpty = (records[0] as (typeof records)[number]).info.empty_lines;
 
   for (let r = 0; r < n; r++) {
-    const { record, info } = records[r + 1] as (typeof records)[number];
-    // csv-parse reports the line a record ends on; it starts after the previous one and any blank lines.
-    const line = prevLines + 1 + (info.empty_lines - prevEmpty);
-    prevLines = info.lines;
-    prevEmpty = info.empty_lines;
+    const record = records[r + 1] as string[];
     const idCell = idCol >= 0 && idCol < record.length ? (record[idCol] as string) : '';
     const id = idCell === '' ? undefined : idCell;
-    const where = `row ${r} (line ${line})${id !== undefined ? ` (id ${JSON.stringify(id)})` : ''}`;
     if (record.length !== width) {
-      problems.add(r, id, 'bad-row', `${where}: has ${record.length} field${record.length === 1 ? '' : 's'}; the header has ${width} — check the delimiter ${JSON.stringify(delimiter)} and the quoting`);
+      problems.add(r, id, 'bad-row', `${rowName(r, lines, id)}: has ${record.length} field${record.length === 1 ? '' : 's'}; the header has ${width} — check the delimiter ${JSON.stringify(delimiter)} and the quoting`);
       observedAt[r] = NaN;
       continue;
     }
@@ -108,10 +141,10 @@ export function readCsv(text: string, options: CsvOptions): Observations {
     if (x !== x || y !== y) {
       const bad = x !== x ? `longitude ${JSON.stringify(lonCell)}` : `latitude ${JSON.stringify(latCell)}`;
       const hint = /^\s*-?\d+,\d+\s*$/.test(x !== x ? lonCell : latCell) ? ' (write decimals with a point: 12.5, not 12,5)' : '';
-      problems.add(r, id, 'bad-coordinates', `${where}: ${bad} is not a number${hint}; write decimal degrees`);
+      problems.add(r, id, 'bad-coordinates', `${rowName(r, lines, id)}: ${bad} is not a number${hint}; write decimal degrees`);
     } else {
       const range = rangeProblem(x, y);
-      if (range !== null) problems.add(r, id, range.code, `${where}: ${range.message.replace('GeoJSON order is [longitude, latitude]', `check that column ${JSON.stringify(header[lonCol])} holds longitudes`)}`);
+      if (range !== null) problems.add(r, id, range.code, `${rowName(r, lines, id)}: ${range.message.replace('GeoJSON order is [longitude, latitude]', `check that column ${JSON.stringify(header[lonCol])} holds longitudes`)}`);
       lon[r] = x;
       lat[r] = y;
     }
@@ -131,7 +164,7 @@ export function readCsv(text: string, options: CsvOptions): Observations {
         weight[r] = w;
         Object.defineProperty(properties, weightProperty as string, { value: w, enumerable: true, writable: true, configurable: true });
       } else {
-        problems.add(r, id, 'bad-weight', weightMessage(where, weightProperty as string, cell.trim() === '' ? undefined : Number.isNaN(w) ? cell : w));
+        problems.add(r, id, 'bad-weight', weightMessage(rowName(r, lines, id), weightProperty as string, cell.trim() === '' ? undefined : Number.isNaN(w) ? cell : w));
       }
     }
     observedAt[r] = NaN;
@@ -143,7 +176,7 @@ export function readCsv(text: string, options: CsvOptions): Observations {
           observedAt[r] = ms;
           timed++;
         } else {
-          problems.add(r, id, 'bad-time', timeMessage(where, cell));
+          problems.add(r, id, 'bad-time', timeMessage(rowName(r, lines, id), cell));
         }
       }
     }
@@ -151,7 +184,6 @@ export function readCsv(text: string, options: CsvOptions): Observations {
     if (id !== undefined) feature.id = id;
     features[r] = feature;
   }
-  problems.throwIfAny();
   return { points: { n, lon, lat, weight }, features, observedAt: timed > 0 ? observedAt : null };
 }
 
