@@ -227,8 +227,11 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
         timedOut = true;
         controller.abort(new Error('time limit'));
       }, config.timeLimitMs);
+      let clientGone = false;
       const onClose = (): void => {
-        if (!reply.raw.writableFinished) controller.abort(new Error('client went away'));
+        if (reply.raw.writableFinished) return;
+        clientGone = true;
+        controller.abort(new Error('client went away'));
       };
       reply.raw.once('close', onClose);
       try {
@@ -245,6 +248,10 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
         if (err instanceof HttpProblem) throw err;
         if (err instanceof QueueFullError) {
           throw new HttpProblem('overloaded', 'Every worker is busy and the waiting line is full; retry later.', {}, retryAfter);
+        }
+        if (clientGone) {
+          // nobody to answer; said for the log, where it is not a service failure
+          throw new HttpProblem('bad-request', 'The client closed the connection before the answer was ready; the work was cancelled.');
         }
         if (timedOut) {
           throw new HttpProblem(

@@ -1,0 +1,162 @@
+/**
+ * HTTP load benchmark on loopback (autocannon), not a timed test:
+ *  1. requests per second for POST /v1/cluster with 1,000-point bodies;
+ *  2. GET /healthz latency (p50/p99/max) for the whole life of one 1,000,000-point request
+ *     (upload, parse, clustering, response).
+ * Writes the figures to test/bench/http-results.md.
+ *
+ *   npx tsx test/bench/http.ts [--points 1000000] [--duration 10] [--connections 4] [--workers n]
+ */
+import { spawn, type ChildProcess } from 'node:child_process';
+import { request } from 'node:http';
+import { writeFileSync } from 'node:fs';
+import { cpus, totalmem } from 'node:os';
+import { fileURLToPath } from 'node:url';
+import autocannon from 'autocannon';
+import { resolveConfig } from '../../src/http/config.js';
+
+const ROOT = fileURLToPath(new URL('../../', import.meta.url));
+
+/** Starts `roost serve` in its own process, so the load generator does not share its event loop. */
+async function startService(args: string[]): Promise<{ url: string; child: ChildProcess }> {
+  const child = spawn(process.execPath, ['--import', 'tsx', '-e', `const m = await import('./src/cli/serve.ts'); await m.serve(${JSON.stringify(args)});`], {
+    cwd: ROOT,
+    stdio: ['ignore', 'pipe', 'inherit'],
+  });
+  let out = '';
+  child.stdout!.setEncoding('utf8');
+  const url = await new Promise<string>((resolve, reject) => {
+    child.stdout!.on('data', (d: string) => {
+      out += d;
+      const m = /roost listening on (http:\/\/[\d.:]+)/.exec(out);
+      if (m) resolve(m[1]!);
+    });
+    child.on('exit', (code) => reject(new Error(`service exited ${code}: ${out}`)));
+  });
+  return { url, child };
+}
+
+function arg(name: string, fallback: number): number {
+  const i = process.argv.indexOf(`--${name}`);
+  return i > 0 ? Number(process.argv[i + 1]) : fallback;
+}
+
+/** Seeded generator (mulberry32) so every run posts the same bodies. */
+function seeded(seed: number): () => number {
+  let a = seed >>> 0;
+  return () => {
+    a = (a + 0x6d2b79f5) >>> 0;
+    let t = a;
+    t = Math.imul(t ^ (t >>> 15), t | 1);
+    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
+    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
+  };
+}
+
+/**
+ * n point features around Zürich: 200 dense groups (~300 m across) holding 70 % of the points,
+ * the rest spread over ~40 km, with ids, times and a count — about 160 bytes per feature.
+ */
+function body(n: number, seed: number): Buffer {
+  const rnd = seeded(seed);
+  const centres = Array.from({ length: 200 }, () => [8.3 + rnd() * 0.5, 47.2 + rnd() * 0.35]);
+  const parts: string[] = ['{"type":"FeatureCollection","features":[\n'];
+  for (let i = 0; i < n; i++) {
+    let lon: number, lat: number;
+    if (rnd() < 0.7) {
+      const c = centres[Math.floor(rnd() * centres.length)]!;
+      lon = c[0]! + (rnd() - 0.5) * 0.004;
+      lat = c[1]! + (rnd() - 0.5) * 0.0027;
+    } else {
+      lon = 8.3 + rnd() * 0.5;
+      lat = 47.2 + rnd() * 0.35;
+    }
+    const day = 1 + Math.floor(rnd() * 28);
+    parts.push(
+      `${i ? ',\n' : ''}{"type":"Feature","id":"b${i}","geometry":{"type":"Point","coordinates":[${lon.toFixed(7)},${lat.toFixed(7)}]},"properties":{"observed_at":"2026-04-${String(day).padStart(2, '0')}T12:00:00Z","count":${1 + (i % 4)}}}`,
+    );
+  }
+  parts.push('\n]}');
+  return Buffer.from(parts.join(''));
+}
+
+function post(url: string, payload: Buffer): Promise<{ status: number; bytes: number; ms: number }> {
+  const t0 = performance.now();
+  return new Promise((resolve, reject) => {
+    const req = request(url, { method: 'POST', headers: { 'content-type': 'application/geo+json', 'content-length': payload.length } }, (res) => {
+      let bytes = 0;
+      res.on('data', (d: Buffer) => (bytes += d.length));
+      res.on('end', () => resolve({ status: res.statusCode ?? 0, bytes, ms: performance.now() - t0 }));
+    });
+    req.on('error', reject);
+    // written in 1 MiB pieces, as a client streaming from disk would
+    for (let off = 0; off < payload.length; off += 1 << 20) req.write(payload.subarray(off, off + (1 << 20)));
+    req.end();
+  });
+}
+
+async function main(): Promise<void> {
+  const bigN = arg('points', 1_000_000);
+  const duration = arg('duration', 10);
+  const connections = arg('connections', 4);
+  const workers = process.argv.includes('--workers') ? arg('workers', 1) : undefined;
+  const config = resolveConfig({ port: 0, logLevel: 'warn', ...(workers ? { workers } : {}) });
+  const server = await startService(['--port', '0', '--log-level', 'info', '--workers', String(config.workers)]);
+  const query = 'eps=250&min_points=5';
+  const lines: string[] = [];
+  const log = (s: string): void => {
+    console.log(s);
+    lines.push(s);
+  };
+
+  try {
+    // 1. throughput with 1k-point bodies
+    const small = body(1000, 1);
+    const check = await post(`${server.url}/v1/cluster?${query}`, small);
+    if (check.status !== 200) throw new Error(`1k-point request answered ${check.status}`);
+    await autocannon({ url: `${server.url}/v1/cluster?${query}`, method: 'POST', headers: { 'content-type': 'application/geo+json' }, body: small, connections, duration: 2 });
+    const r = await autocannon({
+      url: `${server.url}/v1/cluster?${query}`,
+      method: 'POST',
+      headers: { 'content-type': 'application/geo+json' },
+      body: small,
+      connections,
+      duration,
+    });
+    const rps = r.requests.average;
+    log(`1k-point POST /v1/cluster (${(small.length / 1024).toFixed(0)} KiB body, ${connections} connections, ${duration} s): ${rps.toFixed(1)} requests/s, latency p50 ${r.latency.p50} ms, p99 ${r.latency.p99} ms, non-2xx ${r.non2xx}, errors ${r.errors}`);
+
+    // 2. /healthz while one big request runs
+    const t0 = performance.now();
+    const big = body(bigN, 2);
+    log(`${bigN.toLocaleString('en')}-point body: ${(big.length / 1024 / 1024).toFixed(1)} MiB (generated in ${((performance.now() - t0) / 1000).toFixed(1)} s)`);
+    let healthDone: (v: autocannon.Result) => void = () => undefined;
+    const healthResult = new Promise<autocannon.Result>((resolve) => (healthDone = resolve));
+    const health = autocannon({ url: `${server.url}/healthz`, connections: 1, duration: 3600 }, (err, res) => {
+      if (err) throw err;
+      healthDone(res);
+    });
+    await new Promise((r) => setTimeout(r, 200));
+    const bigResult = await post(`${server.url}/v1/cluster?${query}&layer=hotspots`, big);
+    health.stop();
+    const h = await healthResult;
+    log(`${bigN.toLocaleString('en')}-point POST /v1/cluster?layer=hotspots: status ${bigResult.status}, ${(bigResult.bytes / 1024).toFixed(0)} KiB answered in ${(bigResult.ms / 1000).toFixed(1)} s`);
+    log(`GET /healthz meanwhile (1 connection, ${h.requests.total} requests): p50 ${h.latency.p50} ms, p99 ${h.latency.p99} ms, max ${h.latency.max} ms, non-2xx ${h.non2xx}`);
+  } finally {
+    server.child.kill('SIGTERM');
+  }
+
+  const machine = `${cpus().length} × ${cpus()[0]?.model ?? 'unknown CPU'}, ${(totalmem() / 1024 ** 3).toFixed(0)} GiB, Node ${process.version}, ${config.workers} worker thread(s)`;
+  const out = [
+    '# HTTP benchmark',
+    '',
+    `Command: \`npx tsx test/bench/http.ts${process.argv.slice(2).length ? ' ' + process.argv.slice(2).join(' ') : ''}\` — loopback, autocannon, settings \`eps=250&min_points=5\`.`,
+    `Machine: ${machine}. Run ${new Date().toISOString().slice(0, 10)}.`,
+    '',
+    ...lines.map((l) => `- ${l}`),
+    '',
+  ].join('\n');
+  writeFileSync(fileURLToPath(new URL('./http-results.md', import.meta.url)), out);
+}
+
+await main();
