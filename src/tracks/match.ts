@@ -203,7 +203,7 @@ export function matchRuns(
     }
     prevTracks.add(x.trackId as string);
   }
-  memberIndex(prev, 'previous'); // only to reject overlapping previous hotspots early
+  memberIndex(prev, 'previous'); // rejects a member listed twice, so the counts below need no de-duplication
   const owner = memberIndex(cur, 'new');
 
   // Member overlaps for every old hotspot, and the run-level share that decides the basis.

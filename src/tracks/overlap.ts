@@ -25,18 +25,21 @@ export interface OverlapPair {
 }
 
 /**
- * Maps every member id of the new run to the index of its hotspot. Throws when one observation
- * id is a member of two hotspots of the same run (a run's hotspots partition their members).
+ * Maps every member id of a run to the index of its hotspot. Throws when one observation id is
+ * listed twice, in one hotspot or in two (a run's hotspots partition their members), so that member
+ * counts need no de-duplication later.
  */
 export function memberIndex(runs: readonly { hotspotId: number; members: readonly string[] }[], which: string): Map<string, number> {
   const owner = new Map<string, number>();
   for (let h = 0; h < runs.length; h++) {
     for (const id of runs[h].members) {
       const before = owner.get(id);
-      if (before !== undefined && before !== h) {
+      if (before !== undefined) {
         throw new Error(
-          `Observation ${id} is a member of ${which} hotspots ${runs[before].hotspotId} and ${runs[h].hotspotId}; ` +
-            'a run gives every observation to at most one hotspot, pass each hotspot with its own members.',
+          before === h
+            ? `Observation ${id} is listed twice among the members of ${which} hotspot ${runs[h].hotspotId}; pass each member once.`
+            : `Observation ${id} is a member of ${which} hotspots ${runs[before].hotspotId} and ${runs[h].hotspotId}; ` +
+              'a run gives every observation to at most one hotspot, pass each hotspot with its own members.',
         );
       }
       owner.set(id, h);
@@ -48,20 +51,14 @@ export function memberIndex(runs: readonly { hotspotId: number; members: readonl
 /**
  * Shared-member counts of one old hotspot with every new hotspot, as sparse pairs in ascending
  * new-hotspot order. `counts` is a scratch array of the new run's length, all zero on entry and
- * left all zero on return. Duplicate member ids within the old hotspot count once.
+ * left all zero on return. Member ids are unique (memberIndex checked them).
  */
 export function memberPairs(members: readonly string[], owner: Map<string, number>, counts: Int32Array): { pairs: OverlapPair[]; sharedTotal: number; size: number } {
-  const seen = members.length > 1 ? new Set<string>() : null;
   const touched: number[] = [];
-  let size = 0;
+  const size = members.length;
   let sharedTotal = 0;
-  for (const id of members) {
-    if (seen) {
-      if (seen.has(id)) continue;
-      seen.add(id);
-    }
-    size++;
-    const h = owner.get(id);
+  for (let k = 0; k < size; k++) {
+    const h = owner.get(members[k]);
     if (h === undefined) continue;
     if (counts[h] === 0) touched.push(h);
     counts[h]++;

@@ -230,6 +230,7 @@ describe('bad input is refused with a message that says what to do', () => {
     expect(() => matchRuns([spot(1, ['a'], BOX_A)], [])).toThrow(/previous hotspot 1 has no trackId/);
     expect(() => matchRuns([spot(1, ['a'], BOX_A, 't'), spot(2, ['b'], far(0), 't')], [])).toThrow(/Track t is on two/);
     expect(() => matchRuns([], [spot(1, ['a', 'b'], BOX_A), spot(2, ['b'], far(0))])).toThrow(/Observation b is a member of new hotspots 1 and 2/);
+    expect(() => matchRuns([spot(1, ['a', 'a'], BOX_A, 'tA')], [])).toThrow(/listed twice among the members of previous hotspot 1/);
     expect(() => matchRuns([], [{ ...spot(1, ['a'], BOX_A), hull: { type: 'Point' } as never }])).toThrow(/Polygon or MultiPolygon/);
   });
 });
