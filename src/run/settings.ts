@@ -126,9 +126,10 @@ function text(name: string, raw: unknown): string {
 
 function instant(name: string, raw: unknown): string {
   const s = text(name, raw);
-  // RFC 3339 date-time (a date alone is taken as midnight UTC).
-  if (!/^\d{4}-\d{2}-\d{2}([Tt ]\d{2}:\d{2}(:\d{2}(\.\d+)?)?([Zz]|[+-]\d{2}:\d{2})?)?$/.test(s) || !Number.isFinite(Date.parse(s))) {
-    throw new SettingsError(name, `must be an RFC 3339 date-time such as 2026-05-01T00:00:00Z, got ${JSON.stringify(raw)}`);
+  // RFC 3339 date-time with its offset (a date alone is taken as midnight UTC). A time without
+  // an offset is refused: it would mean the machine's local time, which differs between hosts.
+  if (!/^\d{4}-\d{2}-\d{2}([Tt ]\d{2}:\d{2}(:\d{2}(\.\d+)?)?([Zz]|[+-]\d{2}:\d{2}))?$/.test(s) || !Number.isFinite(Date.parse(s))) {
+    throw new SettingsError(name, `must be an RFC 3339 date-time with an offset such as 2026-05-01T00:00:00Z, got ${JSON.stringify(raw)}`);
   }
   return s;
 }
