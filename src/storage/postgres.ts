@@ -259,19 +259,20 @@ export class PostgresStore implements Store {
       for (;;) {
         const p = new Params();
         const { from, clause } = whereClause(p, datasetId, query);
-        const r = await c.query({
-          text: `SELECT count(*)::int, max(seq), json_agg(obs_id ORDER BY seq),
-                   string_agg(float8send(lon), ''::bytea ORDER BY seq),
-                   string_agg(float8send(lat), ''::bytea ORDER BY seq),
-                   string_agg(float8send(coalesce(observed_at::float8, 'NaN')), ''::bytea ORDER BY seq),
-                   string_agg(float8send(coalesce(weight, 'NaN')), ''::bytea ORDER BY seq),
+        const sql = (order: string): string => `SELECT count(*)::int, max(seq), json_agg(obs_id ${order}),
+                   string_agg(float8send(lon), ''::bytea ${order}),
+                   string_agg(float8send(lat), ''::bytea ${order}),
+                   string_agg(float8send(coalesce(observed_at::float8, 'NaN')), ''::bytea ${order}),
+                   string_agg(float8send(coalesce(weight, 'NaN')), ''::bytea ${order}),
                    coalesce(bool_or(weight IS NOT NULL), false),
-                   string_agg(feature, E'\\x1e' ORDER BY seq)
+                   string_agg(feature, E'\\x1e' ${order}),
+                   string_agg(int8send(seq), ''::bytea ${order})
                  FROM (SELECT o.seq, o.obs_id, o.lon, o.lat, o.observed_at, o.weight, o.feature FROM ${from}
-                       WHERE ${clause} AND o.seq > ${p.add(after)} ORDER BY o.seq LIMIT ${LOAD_CHUNK}) s`,
-          values: p.values,
-          rowMode: 'array',
-        });
+                       WHERE ${clause} AND o.seq > ${p.add(after)} ORDER BY o.seq LIMIT ${LOAD_CHUNK}) s`;
+        // Aggregates without their own ORDER BY take the rows in the sorted subquery's order (one
+        // sort instead of one per aggregate); the sequence column proves it, else sort per aggregate.
+        let r = await c.query({ text: sql(''), values: p.values, rowMode: 'array' });
+        if (!ascending((r.rows[0] as unknown[])[9] as Buffer | null)) r = await c.query({ text: sql('ORDER BY seq'), values: p.values, rowMode: 'array' });
         const row = r.rows[0] as [number, number | null, string[] | null, Buffer, Buffer, Buffer, Buffer, boolean, string];
         if (row[0] === 0) break;
         out.push({ n: row[0], ids: row[2] as string[], lon: row[3], lat: row[4], t: row[5], w: row[6], weighted: row[7], features: row[8] });
@@ -521,6 +522,18 @@ function notFoundDataset(id: string): StoreError {
 
 function columns(rs: ObservationRecord[]): unknown[][] {
   return [rs.map((r) => r.id), rs.map((r) => r.lon), rs.map((r) => r.lat), rs.map((r) => r.observedAt), rs.map((r) => r.weight), rs.map((r) => r.contentHash), rs.map((r) => r.feature)];
+}
+
+/** True when the packed big-endian int8 values are strictly increasing (or absent). */
+function ascending(buf: Buffer | null): boolean {
+  if (buf === null) return true;
+  let prev = -1n;
+  for (let off = 0; off + 8 <= buf.length; off += 8) {
+    const v = buf.readBigInt64BE(off);
+    if (v <= prev) return false;
+    prev = v;
+  }
+  return true;
 }
 
 /** Copies big-endian doubles from `buf` into `out` starting at index `at`. */
