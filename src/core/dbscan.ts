@@ -19,10 +19,16 @@
  *    it first, which depends on processing order; the nearest-core rule does not.)
  * 6. Every other point is noise, label −1.
  *
+ * Distances are compared as straight chords between unit vectors, which order pairs exactly as
+ * great-circle distance does (the chord grows monotonically with the arc), so "nearest" and
+ * "within eps" mean the same as with haversine; an exact tie is two equal chords, as between
+ * identical positions.
+ *
  * Memory is linear in n: no neighbour list is ever kept. The work runs in four passes over the
  * index's cell order, where points that are close on the ground are close in memory:
- * core flags (stopping each count as soon as min_points is reached), union–find over core pairs,
- * hotspot numbering, border assignment.
+ * core flags (stopping each count as soon as min_points is reached), union–find over core pairs
+ * (inside cells, then across cells, linking a fully joined cell through one pair), hotspot
+ * numbering, border assignment.
  */
 import { chordForMeters } from './haversine.js';
 import { RADIUS_TOLERANCE_M, SphereIndex } from './sphere-index.js';

@@ -172,28 +172,34 @@ export class SphereIndex {
 
     // 4. neighbour cells by a sweep: for each of the 9 (dx, dy) columns keep a cursor into the
     //    sorted cells. The first cell not before (x+dx, y+dy, z-1) only moves forward as the
-    //    sweep advances, so the whole pass is linear in the number of cells.
+    //    sweep advances, so the whole pass is linear in the number of cells. Each cell gets one
+    //    numeric key, ascending in cell order, with a spare slot on both sides of every axis so
+    //    that x±1, y±1, z±1 never alias into a neighbouring column; comparisons are then one
+    //    number each. Keys stay below 2^53 (at most 2^17 + 3 values per axis), so they are exact.
+    const ry = maxY - minY + 3;
+    const rz = maxZ - minZ + 3;
+    const key = new Float64Array(cells);
+    for (let c = 0; c < cells; c++) key[c] = ((cx[c] - minX + 1) * ry + (cy[c] - minY + 1)) * rz + (cz[c] - minZ + 1);
     const nbrStart = new Int32Array(cells + 1);
     let buf = new Int32Array(Math.max(16, cells * 9));
     let len = 0;
     const cursor = new Int32Array(9);
     for (let c = 0; c < cells; c++) {
-      const x = cx[c], y = cy[c], z = cz[c];
+      const kc = key[c];
       let col = 0;
       for (let dx = -1; dx <= 1; dx++) {
         for (let dy = -1; dy <= 1; dy++, col++) {
-          const tx = x + dx, ty = y + dy;
+          const mid = kc + (dx * ry + dy) * rz;
+          const lo = mid - 1, hi = mid + 1;
           let p = cursor[col];
-          while (p < cells && compareCell(cx[p], cy[p], cz[p], tx, ty, z - 1) < 0) p++;
+          while (p < cells && key[p] < lo) p++;
           cursor[col] = p;
-          for (let q = p; q < cells && cx[q] === tx && cy[q] === ty && cz[q] <= z + 1; q++) {
-            if (len === buf.length) {
-              const grown = new Int32Array(buf.length * 2);
-              grown.set(buf);
-              buf = grown;
-            }
-            buf[len++] = q;
+          if (len + 3 > buf.length) {
+            const grown = new Int32Array(buf.length * 2);
+            grown.set(buf);
+            buf = grown;
           }
+          for (let q = p; q < cells && key[q] <= hi; q++) buf[len++] = q;
         }
       }
       nbrStart[c + 1] = len;
