@@ -66,8 +66,6 @@ const SCHEMA = /^[a-z_][a-z0-9_]{0,62}$/;
 const WRITE_CHUNK = 5000;
 /** rows per round trip of `loadForRun` (bounds the size of one aggregated reply) */
 const LOAD_CHUNK = 100_000;
-/** separates feature texts in the aggregated reply; JSON text never holds a raw U+001E */
-const RECORD_SEPARATOR = '\u001e';
 
 /** int8 (bigint) as a JavaScript number: sequences and epoch milliseconds stay far below 2^53. */
 const types = {
@@ -245,37 +243,44 @@ export class PostgresStore implements Store {
   }
 
   /**
-   * Reads in chunks of LOAD_CHUNK rows, each chunk as ONE row of aggregates: numbers as packed
-   * big-endian doubles (`float8send` concatenated into a bytea), ids as a JSON array and features
-   * joined by U+001E. This moves ~8 bytes per number instead of a text value per cell and keeps the
-   * client's per-row work out of the loop. A REPEATABLE READ transaction gives all chunks one
-   * snapshot.
+   * Reads in chunks of LOAD_CHUNK rows: the numbers of a chunk as ONE row of aggregates (packed
+   * big-endian doubles, `float8send` concatenated into a bytea: ~8 bytes per number and no
+   * per-value text parsing), then ids and feature texts as plain rows. A REPEATABLE READ
+   * transaction gives all reads one snapshot.
    */
   async loadForRun(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<RunInput> {
     checkQuery(query);
     const parts = await this.tx(async (c) => {
-      const out: { n: number; ids: string[]; lon: Buffer; lat: Buffer; t: Buffer; w: Buffer; weighted: boolean; features: string }[] = [];
+      const out: { n: number; rows: [string, string][]; lon: Buffer; lat: Buffer; t: Buffer; w: Buffer; weighted: boolean }[] = [];
       let after = 0;
       for (;;) {
         const p = new Params();
         const { from, clause } = whereClause(p, datasetId, query);
-        const sql = (order: string): string => `SELECT count(*)::int, max(seq), json_agg(obs_id ${order}),
+        const sql = (order: string): string => `SELECT count(*)::int, max(seq),
                    string_agg(float8send(lon), ''::bytea ${order}),
                    string_agg(float8send(lat), ''::bytea ${order}),
                    string_agg(float8send(coalesce(observed_at::float8, 'NaN')), ''::bytea ${order}),
                    string_agg(float8send(coalesce(weight, 'NaN')), ''::bytea ${order}),
                    coalesce(bool_or(weight IS NOT NULL), false),
-                   string_agg(feature, E'\\x1e' ${order}),
                    string_agg(int8send(seq), ''::bytea ${order})
-                 FROM (SELECT o.seq, o.obs_id, o.lon, o.lat, o.observed_at, o.weight, o.feature FROM ${from}
+                 FROM (SELECT o.seq, o.lon, o.lat, o.observed_at, o.weight FROM ${from}
                        WHERE ${clause} AND o.seq > ${p.add(after)} ORDER BY o.seq LIMIT ${LOAD_CHUNK}) s`;
         // Aggregates without their own ORDER BY take the rows in the sorted subquery's order (one
         // sort instead of one per aggregate); the sequence column proves it, else sort per aggregate.
         let r = await c.query({ text: sql(''), values: p.values, rowMode: 'array' });
-        if (!ascending((r.rows[0] as unknown[])[9] as Buffer | null)) r = await c.query({ text: sql('ORDER BY seq'), values: p.values, rowMode: 'array' });
-        const row = r.rows[0] as [number, number | null, string[] | null, Buffer, Buffer, Buffer, Buffer, boolean, string];
+        if (!ascending((r.rows[0] as unknown[])[7] as Buffer | null)) r = await c.query({ text: sql('ORDER BY seq'), values: p.values, rowMode: 'array' });
+        const row = r.rows[0] as [number, number | null, Buffer, Buffer, Buffer, Buffer, boolean, Buffer];
         if (row[0] === 0) break;
-        out.push({ n: row[0], ids: row[2] as string[], lon: row[3], lat: row[4], t: row[5], w: row[6], weighted: row[7], features: row[8] });
+        // Texts come as rows: one huge aggregated text value travels far slower than many rows.
+        const q = new Params();
+        const w = whereClause(q, datasetId, query);
+        const texts = await c.query({
+          text: `SELECT o.obs_id, o.feature FROM ${w.from} WHERE ${w.clause} AND o.seq > ${q.add(after)} AND o.seq <= ${q.add(row[1])} ORDER BY o.seq`,
+          values: q.values,
+          rowMode: 'array',
+        });
+        if (texts.rows.length !== row[0]) throw new Error('observations changed between two reads of one snapshot');
+        out.push({ n: row[0], rows: texts.rows as [string, string][], lon: row[2], lat: row[3], t: row[4], w: row[5], weighted: row[6] });
         after = row[1] as number;
         if (row[0] < LOAD_CHUNK) break;
       }
@@ -297,10 +302,10 @@ export class PostgresStore implements Store {
       unpackDoubles(part.t, observedAt, at);
       unpackDoubles(part.w, weight, at);
       weighted ||= part.weighted;
-      for (const id of part.ids) ids.push(id);
-      const texts = part.features.split(RECORD_SEPARATOR);
-      if (texts.length !== part.n) throw new Error('a stored feature text holds the character U+001E, so it is not JSON text; the ingest layer must store canonical JSON');
-      for (const f of texts) features.push(f);
+      for (const [id, f] of part.rows) {
+        ids.push(id);
+        features.push(f);
+      }
       at += part.n;
     }
     return { ids, lon, lat, observedAt, weight: weighted ? weight : null, features };
