@@ -71,7 +71,7 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'requestTimeoutMs', flag: '--request-timeout-ms', env: 'ROOST_REQUEST_TIMEOUT_MS', kind: 'integer', help: 'time allowed to receive a whole request, milliseconds' },
   { key: 'keepAliveTimeoutMs', flag: '--keep-alive-timeout-ms', env: 'ROOST_KEEP_ALIVE_TIMEOUT_MS', kind: 'integer', help: 'idle keep-alive lifetime, milliseconds' },
   { key: 'shutdownGraceMs', flag: '--shutdown-grace-ms', env: 'ROOST_SHUTDOWN_GRACE_MS', kind: 'integer', help: 'time for requests in flight on SIGTERM/SIGINT, milliseconds' },
-  { key: 'maxEventLoopDelayMs', flag: '--max-event-loop-delay-ms', env: 'ROOST_MAX_EVENT_LOOP_DELAY_MS', kind: 'integer', help: 'event-loop delay above which requests are shed with 503, milliseconds' },
+  { key: 'maxEventLoopDelayMs', flag: '--max-event-loop-delay-ms', env: 'ROOST_MAX_EVENT_LOOP_DELAY_MS', kind: 'integer', help: 'event-loop delay above which requests are shed with 503, milliseconds (0 = never shed)' },
   { key: 'retryAfterS', flag: '--retry-after-s', env: 'ROOST_RETRY_AFTER_S', kind: 'integer', help: 'Retry-After sent with 503, seconds' },
   { key: 'logLevel', flag: '--log-level', env: 'ROOST_LOG_LEVEL', kind: 'level', help: 'fatal, error, warn, info, debug, trace or silent' },
 ];
