@@ -8,7 +8,7 @@
 import { readFile } from 'node:fs/promises';
 import { Command, Option } from 'commander';
 import { InputError } from '../ingest/types.js';
-import { clusterInput, suggestEpsInput, type InputFormat, type Stage } from '../run/cluster.js';
+import { clusterInput, LAYER_NAMES, suggestEpsInput, type InputFormat, type Stage } from '../run/cluster.js';
 import { resolveSettings, SettingsError } from '../run/settings.js';
 import { ROOST_VERSION } from '../run/version.js';
 import { writeResultFolder } from './output.js';
@@ -138,16 +138,10 @@ export function buildProgram(setExit: (code: number) => void): Command {
         const result = clusterInput(data, formatFromPath(input, opts.format as string | undefined), settings, { onProgress });
         onProgress('write', 0);
         const tWrite = performance.now();
-        const files = {
-          'hotspots.geojson': result.layers.hotspots,
-          'centres.geojson': result.layers.centres,
-          'noise.geojson': result.layers.noise,
-          'points.geojson': result.layers.points,
-        };
         const timings = result.summary.timings_ms as Record<string, number>;
         // summary.json is written last so that its write stage includes the other files.
         await writeResultFolder(String(opts.outDir), [
-          ...Object.entries(files),
+          ...LAYER_NAMES.map((name) => [`${name}.geojson`, result.layers[name].chunks()] as [string, Iterable<string>]),
           [
             'summary.json',
             () => {

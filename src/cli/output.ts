@@ -2,15 +2,26 @@
  * Atomic result folders: everything is written into a fresh temporary folder beside the target,
  * then renamed into place, so a failed or interrupted run never leaves a half-written result.
  */
-import { mkdir, rename, rm, writeFile } from 'node:fs/promises';
+import { closeSync, openSync, writeSync } from 'node:fs';
+import { mkdir, rename, rm } from 'node:fs/promises';
 import { basename, dirname, join, resolve } from 'node:path';
 
+/** Writes text chunks to a new file, one write per chunk, so no whole-file string is ever built. */
+function writeChunks(path: string, chunks: Iterable<string>): void {
+  const fd = openSync(path, 'wx');
+  try {
+    for (const chunk of chunks) writeSync(fd, chunk);
+  } finally {
+    closeSync(fd);
+  }
+}
+
 /**
- * Writes `files` (name and content, in order; content may be computed at its turn) as the folder
+ * Writes `files` (name and content in chunks, in order; content may also be computed at its turn) as the folder
  * `outDir`, replacing an earlier result there.
  * @param outDir target folder; its parent is created when missing
  */
-export async function writeResultFolder(outDir: string, files: [string, string | (() => string)][]): Promise<void> {
+export async function writeResultFolder(outDir: string, files: [string, Iterable<string> | (() => string)][]): Promise<void> {
   const target = resolve(outDir);
   const parent = dirname(target);
   await mkdir(parent, { recursive: true });
@@ -19,7 +30,7 @@ export async function writeResultFolder(outDir: string, files: [string, string |
   const old = join(parent, `.${basename(target)}.old-${tag}`);
   await mkdir(tmp);
   try {
-    for (const [name, content] of files) await writeFile(join(tmp, name), typeof content === 'function' ? content() : content);
+    for (const [name, content] of files) writeChunks(join(tmp, name), typeof content === 'function' ? [content()] : content);
     // Move an earlier result aside first: rename() cannot replace a non-empty folder.
     let hadOld = false;
     try {

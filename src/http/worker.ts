@@ -44,8 +44,8 @@ function ownBytes(text: string): Uint8Array {
 }
 
 /** Wraps a success so piscina transfers the body's ArrayBuffer instead of copying it. */
-function done(contentType: string, text: string): WorkResult {
-  const body = ownBytes(text);
+function done(contentType: string, content: string | Uint8Array): WorkResult {
+  const body = typeof content === 'string' ? ownBytes(content) : content;
   const value: WorkResult = { ok: true, contentType, body };
   return Piscina.move({
     get [Piscina.transferableSymbol]() {
@@ -97,7 +97,7 @@ export default function work(task: WorkTask): WorkResult {
     }
     const result = clusterInput(body, task.format, settings);
     if (task.layer === null) return done('application/json', resultDocument(result));
-    return done('application/geo+json', result.layers[task.layer]);
+    return done('application/geo+json', result.layers[task.layer].bytes());
   } catch (err) {
     if (err instanceof SettingsError) {
       return { ok: false, code: 'invalid-parameter', detail: err.message, extensions: { parameter: err.parameter } };

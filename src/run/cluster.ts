@@ -12,7 +12,14 @@ import { clusteringWarnings } from '../core/warnings.js';
 import { geometryAreaKm2 } from '../geometry/area.js';
 import { clarkEvans, nearestNeighbourMeters } from '../geometry/clark-evans.js';
 import { hotspotFigures, resultFigures, type HotspotFigures } from '../geometry/figures.js';
-import { bboxOf, bboxOfPositions, featureCollectionString, featureString } from '../geometry/geojson.js';
+import {
+  bboxOf,
+  bboxOfPositions,
+  featureCollectionChunks,
+  featureCollectionString,
+  featureString,
+  featureStringWithProperties,
+} from '../geometry/geojson.js';
 import { hotspotHull, type HullGeometry } from '../geometry/hull.js';
 import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
@@ -27,11 +34,47 @@ export type { InputFormat };
 export const STAGES = ['read', 'index', 'cluster', 'figures', 'write'] as const;
 export type Stage = (typeof STAGES)[number];
 
+/**
+ * One result layer: a GeoJSON FeatureCollection produced on demand in chunks of about 64 KiB, so
+ * a million-point layer can be written to a file or a socket without ever being one string (and
+ * without the garbage collector tracing a million kept feature strings).
+ */
+export class Layer {
+  constructor(private readonly produce: () => Iterable<string>) {}
+  /** The text in chunks; every call starts again from the beginning. */
+  chunks(): Iterable<string> {
+    return this.produce();
+  }
+  /** The whole text. */
+  text(): string {
+    const parts: string[] = [];
+    for (const c of this.produce()) parts.push(c);
+    return parts.join('');
+  }
+  /** The whole text as UTF-8 bytes in their own ArrayBuffer (safe to transfer to another thread). */
+  bytes(): Buffer {
+    const parts: Buffer[] = [];
+    let total = 0;
+    for (const c of this.produce()) {
+      const b = Buffer.from(c, 'utf8');
+      parts.push(b);
+      total += b.length;
+    }
+    const out = Buffer.allocUnsafeSlow(total);
+    let at = 0;
+    for (const b of parts) at += b.copy(out, at);
+    return out;
+  }
+}
+
+export const LAYER_NAMES = ['hotspots', 'centres', 'noise', 'points'] as const;
+export type LayerName = (typeof LAYER_NAMES)[number];
+
 export interface ClusterResult {
   /** figures, parameters, version, warnings, cautions and per-stage timings */
   summary: Record<string, unknown>;
-  /** GeoJSON FeatureCollection texts, byte-identical for the same input and settings */
-  layers: { hotspots: string; centres: string; noise: string; points: string };
+  /** GeoJSON FeatureCollections, byte-identical for the same input and settings */
+  layers: Record<LayerName, Layer>;
 }
 
 export interface ClusterHooks {
@@ -134,13 +177,24 @@ function hotspotProperties(f: HotspotFigures, features: InputFeature[]): Record<
   };
 }
 
-/** The point feature written for an input observation in the points and noise layers. */
+/**
+ * The point feature written for an input observation in the points and noise layers: its own
+ * properties with `hotspot_id` and `role` added (replacing input properties of those names).
+ * The two members are appended to the properties' JSON text rather than to a copied object: a
+ * million spread copies cost more than the whole clustering.
+ */
 function pointFeature(f: InputFeature, hotspot: number, role: number): string {
-  return featureString(
-    { type: 'Point', coordinates: f.geometry.coordinates },
-    { ...(f.properties ?? {}), hotspot_id: hotspot >= 0 ? hotspot + 1 : null, role: ROLE_NAMES[role] },
-    f.id,
-  );
+  const own = f.properties;
+  const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"}`;
+  let props: string;
+  if (own === null || own === undefined) props = '{' + added;
+  else if (Object.hasOwn(own, 'hotspot_id') || Object.hasOwn(own, 'role')) {
+    props = JSON.stringify({ ...own, hotspot_id: hotspot >= 0 ? hotspot + 1 : null, role: ROLE_NAMES[role] });
+  } else {
+    const text = JSON.stringify(own);
+    props = text.length === 2 ? '{' + added : text.slice(0, -1) + ',' + added;
+  }
+  return featureStringWithProperties({ type: 'Point', coordinates: f.geometry.coordinates }, props, f.id);
 }
 
 /**
@@ -212,25 +266,32 @@ export function clusterObservations(
     hotspotFeatures.push(featureString(hulls[h], props, h + 1));
     centreFeatures.push(featureString({ type: 'Point', coordinates: figures[h].centre }, props, h + 1));
   }
-  const pointStrings = new Array<string>(points.n);
-  const noiseStrings: string[] = [];
-  const noiseLon = new Float64Array(points.n);
-  const noiseLat = new Float64Array(points.n);
   let noiseCount = 0;
-  for (let i = 0; i < points.n; i++) {
-    const s = pointFeature(features[i], clustering.labels[i], clustering.roles[i]);
-    pointStrings[i] = s;
+  for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseCount++;
+  const noiseLon = new Float64Array(noiseCount);
+  const noiseLat = new Float64Array(noiseCount);
+  for (let i = 0, k = 0; i < points.n; i++) {
     if (clustering.labels[i] < 0) {
-      noiseStrings.push(s);
-      noiseLon[noiseCount] = points.lon[i];
-      noiseLat[noiseCount++] = points.lat[i];
+      noiseLon[k] = points.lon[i];
+      noiseLat[k++] = points.lat[i];
     }
   }
-  const layers = {
-    hotspots: featureCollectionString(hotspotFeatures, bboxOf(hulls)),
-    centres: featureCollectionString(centreFeatures, bboxOf(figures.map((f) => ({ type: 'Point' as const, coordinates: f.centre })))),
-    noise: featureCollectionString(noiseStrings, bboxOfPositions(noiseLon.subarray(0, noiseCount), noiseLat.subarray(0, noiseCount))),
-    points: featureCollectionString(pointStrings, bboxOfPositions(points.lon, points.lat)),
+  const { labels, roles } = clustering;
+  function* pointFeatures(noiseOnly: boolean): Generator<string> {
+    for (let i = 0; i < points.n; i++) {
+      if (noiseOnly && labels[i] >= 0) continue;
+      yield pointFeature(features[i], labels[i], roles[i]);
+    }
+  }
+  const hotspotsBbox = bboxOf(hulls);
+  const centresBbox = bboxOf(figures.map((f) => ({ type: 'Point' as const, coordinates: f.centre })));
+  const noiseBbox = bboxOfPositions(noiseLon, noiseLat);
+  const pointsBbox = bboxOfPositions(points.lon, points.lat);
+  const layers: Record<LayerName, Layer> = {
+    hotspots: new Layer(() => [featureCollectionString(hotspotFeatures, hotspotsBbox)]),
+    centres: new Layer(() => [featureCollectionString(centreFeatures, centresBbox)]),
+    noise: new Layer(() => featureCollectionChunks(pointFeatures(true), noiseBbox)),
+    points: new Layer(() => featureCollectionChunks(pointFeatures(false), pointsBbox)),
   };
   timer.stop();
 
@@ -292,7 +353,8 @@ export function clusterInput(
 
 /** The JSON document POST /v1/cluster returns, built from the layer texts without re-parsing. */
 export function resultDocument(result: ClusterResult): string {
-  return `{"summary":${JSON.stringify(result.summary)},"hotspots":${result.layers.hotspots},"centres":${result.layers.centres},"noise":${result.layers.noise}}`;
+  const { hotspots, centres, noise } = result.layers;
+  return `{"summary":${JSON.stringify(result.summary)},"hotspots":${hotspots.text()},"centres":${centres.text()},"noise":${noise.text()}}`;
 }
 
 /** The k-distance curve and suggested eps for one input. */
