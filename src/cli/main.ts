@@ -12,6 +12,7 @@ import { clusterInput, LAYER_NAMES, suggestEpsInput, type InputFormat, type Stag
 import { resolveSettings, SettingsError } from '../run/settings.js';
 import { ROOST_VERSION } from '../run/version.js';
 import { writeResultFolder } from './output.js';
+import { serveCommand } from './serve.js';
 
 /** Exit codes: 0 done, 1 unexpected failure, 2 bad usage or settings, 3 bad input data. */
 export const EXIT = { ok: 0, failure: 1, usage: 2, input: 3 } as const;
@@ -190,6 +191,8 @@ export function buildProgram(setExit: (code: number) => void): Command {
         setExit(fail(err));
       }
     });
+
+  program.addCommand(serveCommand(setExit));
 
   return program;
 }
