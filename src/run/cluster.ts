@@ -70,11 +70,33 @@ export class Layer {
 export const LAYER_NAMES = ['hotspots', 'centres', 'noise', 'points'] as const;
 export type LayerName = (typeof LAYER_NAMES)[number];
 
+/** One hotspot of a result, for callers that store or track hotspots (not only write files). */
+export interface ResultHotspot {
+  /** 1-based number within the run */
+  hotspotId: number;
+  /** input positions (indices into the clustered observations) of all members, ascending */
+  members: Int32Array;
+  /** input positions of the core members, ascending */
+  coreMembers: Int32Array;
+  hull: HullGeometry;
+  figures: HotspotFigures;
+  /**
+   * The properties written on this hotspot's hull and centre features. Layers are produced on
+   * demand from these objects, so a caller may fill in `track_id` (present, null by default)
+   * before producing them.
+   */
+  properties: Record<string, unknown>;
+}
+
 export interface ClusterResult {
   /** figures, parameters, version, warnings, cautions and per-stage timings */
   summary: Record<string, unknown>;
   /** GeoJSON FeatureCollections, byte-identical for the same input and settings */
   layers: Record<LayerName, Layer>;
+  /** the hotspots in number order */
+  hotspots: ResultHotspot[];
+  /** the observations that were clustered (after filters), in input order */
+  observations: Observations;
 }
 
 export interface ClusterHooks {
@@ -161,6 +183,7 @@ function hotspotProperties(f: HotspotFigures, features: InputFeature[]): Record<
   const medoid = features[f.medoid];
   return {
     hotspot_id: f.hotspot + 1,
+    track_id: null,
     count: f.count,
     core_count: f.coreCount,
     border_count: f.borderCount,
@@ -259,12 +282,14 @@ export function clusterObservations(
   const whole = resultFigures(points, clustering, { studyAreaKm2, nearest });
 
   timer.start('write');
-  const hotspotFeatures: string[] = [];
-  const centreFeatures: string[] = [];
+  const resultHotspots: ResultHotspot[] = [];
   for (let h = 0; h < clustering.count; h++) {
-    const props = hotspotProperties(figures[h], features);
-    hotspotFeatures.push(featureString(hulls[h], props, h + 1));
-    centreFeatures.push(featureString({ type: 'Point', coordinates: figures[h].centre }, props, h + 1));
+    const all = members.slice(start[h], start[h + 1]);
+    let core = 0;
+    for (const i of all) if (clustering.roles[i] === ROLE_CORE) core++;
+    const coreMembers = new Int32Array(core);
+    for (let k = 0, c = 0; k < all.length; k++) if (clustering.roles[all[k]] === ROLE_CORE) coreMembers[c++] = all[k];
+    resultHotspots.push({ hotspotId: h + 1, members: all, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], features) });
   }
   let noiseCount = 0;
   for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseCount++;
@@ -288,8 +313,18 @@ export function clusterObservations(
   const noiseBbox = bboxOfPositions(noiseLon, noiseLat);
   const pointsBbox = bboxOfPositions(points.lon, points.lat);
   const layers: Record<LayerName, Layer> = {
-    hotspots: new Layer(() => [featureCollectionString(hotspotFeatures, hotspotsBbox)]),
-    centres: new Layer(() => [featureCollectionString(centreFeatures, centresBbox)]),
+    hotspots: new Layer(() => [
+      featureCollectionString(
+        resultHotspots.map((r) => featureString(r.hull, r.properties, r.hotspotId)),
+        hotspotsBbox,
+      ),
+    ]),
+    centres: new Layer(() => [
+      featureCollectionString(
+        resultHotspots.map((r) => featureString({ type: 'Point', coordinates: r.figures.centre }, r.properties, r.hotspotId)),
+        centresBbox,
+      ),
+    ]),
     noise: new Layer(() => featureCollectionChunks(pointFeatures(true), noiseBbox)),
     points: new Layer(() => featureCollectionChunks(pointFeatures(false), pointsBbox)),
   };
@@ -322,12 +357,12 @@ export function clusterObservations(
           }
         : null,
     },
-    hotspots: figures.map((f) => hotspotProperties(f, features)),
+    hotspots: resultHotspots.map((r) => r.properties),
     warnings: clusteringWarnings(clustering),
     cautions: CAUTIONS,
     timings_ms: timer.ms,
   };
-  return { summary, layers };
+  return { summary, layers, hotspots: resultHotspots, observations: obs };
 }
 
 /**
