@@ -23,7 +23,7 @@ export interface Measurement {
   cpuMs: number[];
   hotspots: number;
   noise: number;
-  /** RSS just before the first run, MiB */
+  /** RSS just before the first (warm-up or timed) run, MiB */
   rssBeforeMiB: number;
   /** peak RSS of the process, MiB */
   peakRssMiB: number;
@@ -97,14 +97,15 @@ if (impl === 'roost') {
   throw new Error(`unknown implementation ${impl}; use roost, density-clustering or turf`);
 }
 
-// Roost's small runs take milliseconds, so one untimed run first lets the JIT compile the hot
+// Roost's small runs take milliseconds, so three untimed runs first let the JIT compile the hot
 // loops; the comparison libraries run for seconds and warm up within their single timed run.
-if (impl === 'roost' && n <= 100_000) {
-  work();
-  indexMs.length = clusterMs.length = 0;
-}
 gc();
 const rssBefore = process.memoryUsage().rss;
+if (impl === 'roost' && n <= 100_000) {
+  for (let w = 0; w < 3; w++) work();
+  indexMs.length = clusterMs.length = 0;
+  gc();
+}
 for (let r = 0; r < runs; r++) {
   const c0 = process.cpuUsage();
   work();

@@ -26,7 +26,7 @@ interface Plan {
   runs: (n: number) => number;
 }
 const plans: Plan[] = [
-  { impl: 'roost', label: 'Roost', runs: (n) => (n >= 1_000_000 ? 3 : 5) },
+  { impl: 'roost', label: 'Roost', runs: (n) => (n >= 1_000_000 ? 3 : n >= 100_000 ? 9 : 21) },
   { impl: 'density-clustering', label: 'density-clustering 1.3.0', runs: () => 1 },
   { impl: 'turf', label: '@turf/clusters-dbscan 7.4.0', runs: () => 1 },
 ];
@@ -85,7 +85,7 @@ const cpus = os.cpus();
 const lines = [
   `DBSCAN, eps ${BENCH_EPS_METERS} m, min_points ${BENCH_MIN_POINTS}, seeded benchmark sets (seed ${BENCH_SEED}: gaussian patches over ~400 km plus 15 % uniform background).`,
   `Node ${process.version}, ${cpus[0]?.model.trim() ?? 'unknown CPU'}, ${cpus.length} cores, ${(os.totalmem() / 2 ** 30).toFixed(0)} GiB RAM, ${os.platform()} ${os.arch()}; load average at start ${os.loadavg()[0].toFixed(1)}. Command: \`npm run bench\`.`,
-  `Times are wall-clock medians (Roost below 1M points after one untimed warm-up run); "cpu" is user + system CPU time of the same runs. Peak RSS is the whole measuring process; "stage" is peak RSS minus RSS just before the first run (data already loaded). Ratio: total time against Roost's.`,
+  `Times are wall-clock medians (Roost below 1M points after three untimed warm-up runs); "cpu" is user + system CPU time of the same runs. Peak RSS is the whole measuring process; "stage" is peak RSS minus RSS just before the first run (data already loaded). Ratio: total time against Roost's.`,
   '',
   '| points | implementation | index build | clustering | total | ratio | peak RSS | stage RSS | notes |',
   '| ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- |',
