@@ -79,6 +79,13 @@ export function checkLimit(limit: number, max = 10_000): void {
   if (!Number.isInteger(limit) || limit < 1 || limit > max) throw new StoreError('invalid', `limit must be an integer from 1 to ${max}`);
 }
 
+/** A track-number reservation is for 1 to 1 000 000 numbers. */
+export function checkTrackCount(count: number): void {
+  if (!Number.isSafeInteger(count) || count < 1 || count > 1_000_000) {
+    throw new StoreError('invalid', `reserve between 1 and 1000000 track numbers, got ${String(count)}`);
+  }
+}
+
 /** Opaque cursor for a position in a sequence (base64url of a small JSON object). */
 export function encodeCursor(seq: number): string {
   return Buffer.from(JSON.stringify({ s: seq })).toString('base64url');

@@ -162,4 +162,28 @@ export const MIGRATIONS: readonly Migration[] = [
       );
     `,
   },
+  {
+    version: 2,
+    name: 'track id counters',
+    // One row per dataset: the last track number handed out, so that ids are never reused, not even
+    // those of tracks that ended long ago. Seeded from the track ids already stored.
+    sqlite: `
+      CREATE TABLE track_counters (
+        dataset_id TEXT PRIMARY KEY REFERENCES datasets(id) ON DELETE CASCADE,
+        last_seq INTEGER NOT NULL
+      );
+      INSERT INTO track_counters (dataset_id, last_seq)
+        SELECT r.dataset_id, MAX(CAST(substr(h.track_id, 2) AS INTEGER)) FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq
+        WHERE h.track_id GLOB 't[0-9]*' AND NOT substr(h.track_id, 2) GLOB '*[^0-9]*' GROUP BY r.dataset_id;
+    `,
+    postgres: `
+      CREATE TABLE track_counters (
+        dataset_id TEXT PRIMARY KEY REFERENCES datasets(id) ON DELETE CASCADE,
+        last_seq BIGINT NOT NULL
+      );
+      INSERT INTO track_counters (dataset_id, last_seq)
+        SELECT r.dataset_id, MAX(CAST(substr(h.track_id, 2) AS BIGINT)) FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq
+        WHERE h.track_id ~ '^t[0-9]{1,15}$' GROUP BY r.dataset_id;
+    `,
+  },
 ];

@@ -43,6 +43,7 @@ import {
   encodeCursor,
   formatRunId,
   normaliseSlot,
+  checkTrackCount,
   nowIso,
   parseRunId,
   planIngest,
@@ -493,6 +494,21 @@ export class PostgresStore implements Store {
     try {
       const r = await this.pool.query('INSERT INTO schedule_slots (dataset_id, slot, claimed_at) VALUES ($1, $2, $3) ON CONFLICT DO NOTHING', [datasetId, slot, nowIso()]);
       return r.rowCount === 1;
+    } catch (e) {
+      if (pgCode(e) === '23503') throw notFoundDataset(datasetId);
+      throw e;
+    }
+  }
+
+  async reserveTrackNumbers(datasetId: string, count: number): Promise<number> {
+    checkTrackCount(count);
+    try {
+      // one statement: the row lock of the upsert orders concurrent reservations
+      const r = await this.pool.query(
+        'INSERT INTO track_counters (dataset_id, last_seq) VALUES ($1, $2) ON CONFLICT (dataset_id) DO UPDATE SET last_seq = track_counters.last_seq + excluded.last_seq RETURNING last_seq',
+        [datasetId, count],
+      );
+      return Number((r.rows[0] as Row).last_seq) - count + 1;
     } catch (e) {
       if (pgCode(e) === '23503') throw notFoundDataset(datasetId);
       throw e;

@@ -42,6 +42,7 @@ import {
   encodeCursor,
   formatRunId,
   normaliseSlot,
+  checkTrackCount,
   nowIso,
   parseRunId,
   planIngest,
@@ -426,6 +427,19 @@ export class SqliteStore implements Store {
     const tx = this.db.transaction((): boolean => {
       this.requireDataset(datasetId);
       return this.db.prepare('INSERT INTO schedule_slots (dataset_id, slot, claimed_at) VALUES (?, ?, ?) ON CONFLICT DO NOTHING').run(datasetId, slot, nowIso()).changes === 1;
+    });
+    return tx.immediate();
+  }
+
+  async reserveTrackNumbers(datasetId: string, count: number): Promise<number> {
+    checkTrackCount(count);
+    const tx = this.db.transaction((): number => {
+      this.requireDataset(datasetId);
+      const last = this.db
+        .prepare('INSERT INTO track_counters (dataset_id, last_seq) VALUES (?, ?) ON CONFLICT (dataset_id) DO UPDATE SET last_seq = last_seq + excluded.last_seq RETURNING last_seq')
+        .pluck()
+        .get(datasetId, count) as number;
+      return last - count + 1;
     });
     return tx.immediate();
   }

@@ -342,4 +342,12 @@ export interface Store {
 
   /** True for exactly one caller per (dataset, slot) across processes and instances. @throws StoreError 'not-found' */
   claimScheduledSlot(datasetId: string, slotIso: string): Promise<boolean>;
+
+  /**
+   * Reserves `count` (≥ 1) new track numbers for the dataset and returns the first; the block is
+   * first … first + count − 1. Numbers are never handed out twice, across processes and instances,
+   * and start after the largest `t<n>` track id stored before counters existed.
+   * @throws StoreError 'not-found' for an unknown dataset, 'invalid' for a bad count
+   */
+  reserveTrackNumbers(datasetId: string, count: number): Promise<number>;
 }

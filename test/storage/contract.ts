@@ -456,5 +456,22 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         await rejects(store.claimScheduledSlot('herons', 'tonight'), 'invalid');
       });
     });
+
+    describe('track numbers', () => {
+      it('are reserved in blocks never handed out twice, per dataset, across stores', async () => {
+        await store.createDataset(DS);
+        await store.createDataset({ ...DS, id: 'other', schedule: null });
+        const other = await open();
+        const sizes = [1, 3, 2, 5, 1, 4, 2, 1];
+        const firsts = await Promise.all(sizes.map((n, i) => (i % 2 === 0 ? store : other).reserveTrackNumbers('herons', n)));
+        const taken = sizes.flatMap((n, i) => Array.from({ length: n }, (_, k) => firsts[i]! + k));
+        // every number of 1..sum exactly once: no gap, no repeat
+        expect([...taken].sort((a, b) => a - b)).toEqual(Array.from({ length: 19 }, (_, k) => k + 1));
+        expect(await other.reserveTrackNumbers('other', 2)).toBe(1);
+        await rejects(store.reserveTrackNumbers('nope', 1), 'not-found');
+        await rejects(store.reserveTrackNumbers('herons', 0), 'invalid');
+        await rejects(store.reserveTrackNumbers('herons', 1.5), 'invalid');
+      });
+    });
   });
 }
