@@ -4,7 +4,9 @@
  */
 import { Command } from 'commander';
 import { ConfigError, DEFAULT_CONFIG, OPTIONS, resolveConfig, type ServerConfig } from '../http/config.js';
-import { startServer, type RunningServer } from '../http/server.js';
+// The server (Fastify, the worker pool, the store) loads only when `serve` runs, so the other
+// commands start fast.
+import type { RunningServer } from '../http/server.js';
 
 /**
  * Starts the service with `options` over environment variables and defaults (see resolveConfig).
@@ -13,6 +15,7 @@ import { startServer, type RunningServer } from '../http/server.js';
  */
 export async function runServe(options: Partial<Record<keyof ServerConfig, unknown>> = {}, env: Record<string, string | undefined> = process.env): Promise<RunningServer> {
   const config = resolveConfig(options, env);
+  const { startServer } = await import('../http/server.js');
   const server = await startServer(config);
   server.app.log.info({ url: server.url, workers: config.workers, body_limit_bytes: config.bodyLimitBytes }, `roost listening on ${server.url}`);
   return server;

@@ -1,0 +1,98 @@
+/**
+ * Whole-command benchmark: `roost cluster` on a GeoJSON file against what Node itself needs just to
+ * read and `JSON.parse` the same file (target: within 2×, so that reading dominates, not
+ * clustering). Seeded benchmark points (test/bench/data.ts) written with an id, an `observed_at`
+ * and a count per feature, as survey apps send them. Each measurement is its own process, timed
+ * with GNU time (wall seconds and peak RSS). Writes test/bench/command-results.md.
+ *
+ *   node --import tsx test/bench/command.ts [sizes…]     (default 100000 1000000)
+ */
+import { spawnSync } from 'node:child_process';
+import { once } from 'node:events';
+import { createWriteStream, mkdtempSync, readFileSync, rmSync, statSync, writeFileSync } from 'node:fs';
+import os from 'node:os';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { BENCH_EPS_METERS, BENCH_MIN_POINTS, benchPoints } from './data.js';
+
+const root = fileURLToPath(new URL('../../', import.meta.url));
+const BIN = join(root, 'dist/cli/bin.js');
+const RUNS = 3;
+const sizes = process.argv.slice(2).map(Number).filter((n) => n > 0);
+if (sizes.length === 0) sizes.push(100_000, 1_000_000);
+
+async function writeInput(path: string, n: number): Promise<void> {
+  const p = benchPoints(n);
+  const out = createWriteStream(path);
+  const write = async (s: string): Promise<void> => {
+    if (!out.write(s)) await once(out, 'drain');
+  };
+  await write('{"type":"FeatureCollection","features":[\n');
+  let chunk = '';
+  for (let i = 0; i < n; i++) {
+    const day = 1 + (i % 28);
+    chunk += `${i ? ',\n' : ''}{"type":"Feature","id":"b${i}","geometry":{"type":"Point","coordinates":[${p.lon[i].toFixed(7)},${p.lat[i].toFixed(7)}]},"properties":{"observed_at":"2026-05-${String(day).padStart(2, '0')}T12:00:00Z","count":${1 + (i % 4)}}}`;
+    if (chunk.length > 1 << 16) {
+      await write(chunk);
+      chunk = '';
+    }
+  }
+  await write(`${chunk}\n]}\n`);
+  out.end();
+  await once(out, 'finish');
+}
+
+/** Runs a command under GNU time; returns wall seconds and peak RSS in MiB. */
+function timed(args: string[]): { seconds: number; rssMiB: number } {
+  const r = spawnSync('/usr/bin/time', ['-f', '%e %M', process.execPath, ...args], { encoding: 'utf8', maxBuffer: 1 << 24 });
+  if (r.status !== 0) throw new Error(`${args.join(' ')} failed: ${r.stderr}`);
+  const [seconds, kb] = r.stderr.trim().split('\n').at(-1)!.split(' ').map(Number);
+  return { seconds, rssMiB: kb / 1024 };
+}
+
+const median = (xs: number[]): number => [...xs].sort((a, b) => a - b)[Math.floor(xs.length / 2)];
+
+const dir = mkdtempSync(join(os.tmpdir(), 'roost-bench-'));
+const rows: string[] = [];
+try {
+  for (const n of sizes) {
+    const input = join(dir, `points-${n}.geojson`);
+    await writeInput(input, n);
+    const mb = statSync(input).size / 2 ** 20;
+    const parse: { seconds: number; rssMiB: number }[] = [];
+    const cluster: { seconds: number; rssMiB: number }[] = [];
+    let stages: Record<string, number> = {};
+    for (let r = 0; r < RUNS; r++) {
+      parse.push(timed(['--max-old-space-size=8192', '-e', `JSON.parse(require('fs').readFileSync(${JSON.stringify(input)}, 'utf8'))`]));
+      const out = join(dir, `out-${n}`);
+      cluster.push(timed(['--max-old-space-size=8192', BIN, 'cluster', input, '--eps', String(BENCH_EPS_METERS), '--min-points', String(BENCH_MIN_POINTS), '--out-dir', out]));
+      stages = JSON.parse(readFileSync(join(out, 'summary.json'), 'utf8')).timings_ms as Record<string, number>;
+      rmSync(out, { recursive: true, force: true });
+    }
+    const p = median(parse.map((m) => m.seconds));
+    const c = median(cluster.map((m) => m.seconds));
+    const stageText = ['read', 'index', 'cluster', 'figures', 'write'].map((s) => `${s} ${(stages[s] / 1000).toFixed(2)}`).join(', ');
+    rows.push(
+      `| ${n.toLocaleString('en')} | ${mb.toFixed(0)} MiB | ${p.toFixed(2)} s | ${c.toFixed(2)} s | ${(c / p).toFixed(2)}× | ${median(cluster.map((m) => m.rssMiB)).toFixed(0)} MiB | ${stageText} |`,
+    );
+    process.stderr.write(`${rows.at(-1)}\n`);
+  }
+} finally {
+  rmSync(dir, { recursive: true, force: true });
+}
+
+const cpu = os.cpus()[0]?.model.trim() ?? 'unknown cpu';
+const text = `# Whole-command benchmark
+
+\`roost cluster <file> --eps ${BENCH_EPS_METERS} --min-points ${BENCH_MIN_POINTS} --out-dir <dir>\` (compiled, \`dist/cli/bin.js\`) against
+\`node -e "JSON.parse(fs.readFileSync(file, 'utf8'))"\` on the same file. Seeded benchmark points with an id, an
+\`observed_at\` and a count each. Median of ${RUNS} runs, wall clock including Node start-up, each in its own process.
+Node ${process.version}, ${cpu}, ${os.cpus().length} cores, ${(os.totalmem() / 2 ** 30).toFixed(0)} GiB; load average at the end ${os.loadavg()[0].toFixed(1)}.
+Command: \`node --import tsx test/bench/command.ts\` (part of \`npm run bench\`).
+
+| points | file | read + JSON.parse | roost cluster | ratio | peak RSS | stages (s, from summary.json) |
+| ---: | ---: | ---: | ---: | ---: | ---: | --- |
+${rows.join('\n')}
+`;
+writeFileSync(fileURLToPath(new URL('./command-results.md', import.meta.url)), text);
+process.stdout.write(text);
