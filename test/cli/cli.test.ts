@@ -2,6 +2,8 @@ import { execFileSync, spawnSync } from 'node:child_process';
 import { existsSync, mkdtempSync, readFileSync, readdirSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
+import { createRequire } from 'node:module';
+import { Ajv } from 'ajv';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { run } from '../../src/cli/main.js';
 
@@ -9,6 +11,16 @@ const DEMO = new URL('../../data/demo/observations.geojson', import.meta.url).pa
 const DEMO_CSV = new URL('../../data/demo/observations.csv', import.meta.url).pathname;
 const BIN = new URL('../../dist/cli/bin.js', import.meta.url).pathname;
 const LAYERS = ['hotspots.geojson', 'centres.geojson', 'noise.geojson', 'points.geojson'];
+
+// source: geojson-schema package (GeoJSON JSON Schemas, FeatureCollection)
+const validateCollection = new Ajv({ allErrors: true, strict: false }).compile(createRequire(import.meta.url)('geojson-schema/FeatureCollection.json') as object);
+
+/** Signed area of a ring in lon/lat (shoelace): positive when counter-clockwise. */
+const ringArea = (ring: number[][]): number => {
+  let a = 0;
+  for (let i = 0; i + 1 < ring.length; i++) a += ring[i][0] * ring[i + 1][1] - ring[i + 1][0] * ring[i][1];
+  return a / 2;
+};
 
 const tmp = () => mkdtempSync(join(tmpdir(), 'roost-cli-'));
 const read = (dir: string, name: string) => readFileSync(join(dir, name), 'utf8');
@@ -38,6 +50,24 @@ describe('roost cluster', () => {
       expect(rest).toEqual(a.properties);
       expect(['core', 'border', 'noise']).toContain(role);
       expect(hotspot_id === null).toBe(role === 'noise');
+    }
+  });
+
+  it('every layer is a valid RFC 7946 FeatureCollection with a bbox, no crs, closed counter-clockwise hulls', () => {
+    for (const name of LAYERS) {
+      const fc = json(out, name);
+      expect(validateCollection(fc), `${name}: ${JSON.stringify(validateCollection.errors?.slice(0, 3))}`).toBe(true);
+      expect(fc.bbox).toHaveLength(4);
+      expect(fc).not.toHaveProperty('crs');
+    }
+    for (const f of json(out, 'hotspots.geojson').features) {
+      const polygons = f.geometry.type === 'Polygon' ? [f.geometry.coordinates] : f.geometry.coordinates;
+      for (const rings of polygons) {
+        const outer = rings[0];
+        // source: RFC 7946 §3.1.6 (exterior rings counter-clockwise, first and last positions equal)
+        expect(outer[0]).toEqual(outer[outer.length - 1]);
+        expect(ringArea(outer)).toBeGreaterThan(0);
+      }
     }
   });
 
