@@ -16,6 +16,16 @@ import { DEFAULT_CONFIG, type ServerConfig } from './config.js';
 import { HttpProblem, PROBLEM_MEDIA_TYPE } from './errors.js';
 import { createWorkPool, QueueFullError, type WorkPool } from './pool.js';
 import { LAYERS, type Layer, type WorkTask } from './work.js';
+import { defaultHooks } from '../jobs/default-hooks.js';
+import type { RunHooks } from '../jobs/hooks.js';
+import { createJobPool } from '../jobs/job-pool.js';
+import { Runner } from '../jobs/runner.js';
+import { isPostgresUrl, openStore, type StoreConfig } from '../storage/index.js';
+import type { Store } from '../storage/store.js';
+import type { DatasetServices } from './routes/common.js';
+import { registerDatasetRoutes } from './routes/datasets.js';
+import { registerObservationRoutes } from './routes/observations.js';
+import { registerRunRoutes } from './routes/runs.js';
 
 /** The repository's OpenAPI document, two levels up from src/http and from dist/http alike. */
 export const OPENAPI_PATH = fileURLToPath(new URL('../../openapi.yaml', import.meta.url));
@@ -29,6 +39,19 @@ export interface AppOptions {
   pool?: WorkPool;
   /** told of every route as it is added (method and URL), for listings and checks */
   onRoute?: (route: { method: string | string[]; url: string }) => void;
+  /** a store to use instead of opening the configured one (closed with the app all the same) */
+  store?: Store;
+  /** how worker threads open that store; absent: runs execute on the main thread */
+  storeConfig?: StoreConfig;
+  /** run hooks (track assignment, notices); default: the configured service hooks */
+  hooks?: RunHooks;
+}
+
+/** The app's dataset services, for start-up tasks and tests (`app.datasets`). */
+declare module 'fastify' {
+  interface FastifyInstance {
+    datasets: DatasetServices;
+  }
 }
 
 /** A client-supplied request id is kept when it is short and plain, so logs can be joined. */
@@ -273,6 +296,36 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
 
   app.post('/v1/cluster', heavy('cluster'));
   app.post('/v1/k-distance', heavy('k-distance'));
+
+  // Stored datasets: migrations are applied on opening; runs a dead process left running are
+  // queued again before this process takes any.
+  const memory = !isPostgresUrl(config.databaseUrl) && config.dbPath === ':memory:';
+  const storeConfig: StoreConfig | null = options.store
+    ? (options.storeConfig ?? null)
+    : memory
+      ? null
+      : { databaseUrl: config.databaseUrl || null, sqlitePath: config.dbPath };
+  const store = options.store ?? (await openStore({ databaseUrl: config.databaseUrl || null, sqlitePath: config.dbPath }));
+  const jobs = createJobPool(config.runConcurrency);
+  const runner = new Runner({
+    store,
+    hooks: options.hooks ?? defaultHooks(),
+    concurrency: config.runConcurrency,
+    storeConfig,
+    pool: storeConfig === null ? null : jobs,
+    log: app.log,
+  });
+  app.decorate('datasets', { store, runner, jobs } satisfies DatasetServices);
+  await runner.recover();
+  app.addHook('onReady', async () => runner.start());
+  app.addHook('onClose', async () => {
+    await runner.close();
+    await jobs.close();
+    await store.close();
+  });
+  registerDatasetRoutes(app, app.datasets);
+  registerObservationRoutes(app, app.datasets);
+  registerRunRoutes(app, app.datasets);
 
   // Registered last so the slow start-up above does not count as event-loop delay.
   await app.register(underPressure, {

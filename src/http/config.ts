@@ -29,6 +29,12 @@ export interface ServerConfig {
   retryAfterS: number;
   /** pino log level: fatal, error, warn, info, debug, trace or silent */
   logLevel: string;
+  /** SQLite file holding datasets, observations and runs (':memory:' keeps them in memory, for tests) */
+  dbPath: string;
+  /** postgres:// URL of a shared database; '' uses the SQLite file */
+  databaseUrl: string;
+  /** stored runs executed at once by this process */
+  runConcurrency: number;
 }
 
 /**
@@ -49,6 +55,10 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   maxEventLoopDelayMs: 1_000,
   retryAfterS: 5,
   logLevel: 'info',
+  dbPath: 'roost.db',
+  databaseUrl: '',
+  // one run at a time leaves the other core to requests on a 2-core machine
+  runConcurrency: 1,
 });
 
 /** One option: its config key, command-line flag, environment variable, kind and help text. */
@@ -74,6 +84,9 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'maxEventLoopDelayMs', flag: '--max-event-loop-delay-ms', env: 'ROOST_MAX_EVENT_LOOP_DELAY_MS', kind: 'integer', help: 'event-loop delay above which requests are shed with 503, milliseconds (0 = never shed)' },
   { key: 'retryAfterS', flag: '--retry-after-s', env: 'ROOST_RETRY_AFTER_S', kind: 'integer', help: 'Retry-After sent with 503, seconds' },
   { key: 'logLevel', flag: '--log-level', env: 'ROOST_LOG_LEVEL', kind: 'level', help: 'fatal, error, warn, info, debug, trace or silent' },
+  { key: 'dbPath', flag: '--db', env: 'ROOST_DB_PATH', kind: 'string', help: 'SQLite file for datasets, observations and runs' },
+  { key: 'databaseUrl', flag: '--database-url', env: 'DATABASE_URL', kind: 'string', help: 'postgres:// URL of a shared database (instead of the SQLite file)' },
+  { key: 'runConcurrency', flag: '--runs', env: 'ROOST_RUNS', kind: 'integer', help: 'stored runs executed at once by this process' },
 ];
 
 const LEVELS = new Set(['fatal', 'error', 'warn', 'info', 'debug', 'trace', 'silent']);
@@ -141,6 +154,8 @@ function check(config: ServerConfig): ServerConfig {
   atLeast('shutdownGraceMs', 0);
   atLeast('maxEventLoopDelayMs', 0);
   atLeast('retryAfterS', 0);
+  atLeast('runConcurrency', 1);
+  if (config.databaseUrl !== '' && !/^postgres(ql)?:\/\//i.test(config.databaseUrl)) throw new ConfigError(`${spec('databaseUrl')}: must start with postgres:// or postgresql://`);
   return config;
 }
 

@@ -1,0 +1,271 @@
+/**
+ * /v1/datasets/{id}/observations: posting batches (one transaction each, idempotent by id),
+ * listing with bbox / datetime / property filters and cursor paging, and retracting one.
+ *
+ * Bodies up to SMALL_BODY_BYTES are read on the main thread (a phone's single sighting should
+ * not pay a thread hop); larger ones in a worker thread. The answer to a post of one
+ * observation says which hotspot of the latest succeeded run it falls in: within that run's eps
+ * of one of the hotspot's core members (the DBSCAN reachability rule), the nearest such core
+ * member deciding between hotspots.
+ */
+import type { FastifyInstance, FastifyRequest } from 'fastify';
+import { EARTH_RADIUS_M } from '../../core/haversine.js';
+import { readRecords, type RecordBatch, type RecordOptions } from '../../ingest/records.js';
+import { InputError, type InputProblem } from '../../ingest/types.js';
+import { parseCondition } from '../../run/settings.js';
+import type { Dataset, ListObservationsOptions, Store, WhereCondition } from '../../storage/store.js';
+import { StoreError } from '../../storage/store.js';
+import { formatOf } from '../body.js';
+import { HttpProblem, MAX_LISTED_PROBLEMS } from '../errors.js';
+import { flag, integer, requireDataset, settingsProblem, storeProblem, type DatasetServices } from './common.js';
+
+/** Bodies up to this many bytes are read on the main thread. */
+export const SMALL_BODY_BYTES = 64 * 1024;
+
+const RAD = Math.PI / 180;
+
+/** Core members of one run's hotspots as columns, for the immediate answer. */
+interface CoreIndex {
+  runId: string;
+  epsMeters: number;
+  lon: Float64Array;
+  lat: Float64Array;
+  hotspot: Int32Array;
+  trackIds: (string | null)[];
+}
+
+/** Ground distance in metres (haversine on the IUGG mean radius). */
+function meters(lon1: number, lat1: number, lon2: number, lat2: number): number {
+  const dLat = (lat2 - lat1) * RAD;
+  const dLon = (lon2 - lon1) * RAD;
+  const a = Math.sin(dLat / 2) ** 2 + Math.cos(lat1 * RAD) * Math.cos(lat2 * RAD) * Math.sin(dLon / 2) ** 2;
+  return 2 * EARTH_RADIUS_M * Math.asin(Math.min(1, Math.sqrt(a)));
+}
+
+/** Which hotspot of the latest succeeded run a position falls in; core members cached per run. */
+export class HotspotLookup {
+  private readonly cache = new Map<string, CoreIndex>();
+  constructor(private readonly store: Store) {}
+
+  private async index(datasetId: string, runId: string, epsMeters: number): Promise<CoreIndex> {
+    const key = `${datasetId}\u0000${runId}`;
+    const hit = this.cache.get(key);
+    if (hit) return hit;
+    const hotspots = await this.store.getRunHotspots(runId);
+    const ids = hotspots.flatMap((h) => h.coreMembers);
+    const pos = await this.store.getPositions(datasetId, ids);
+    const lon = new Float64Array(ids.length);
+    const lat = new Float64Array(ids.length);
+    const hotspot = new Int32Array(ids.length);
+    let k = 0;
+    for (const h of hotspots) {
+      for (const id of h.coreMembers) {
+        const p = pos.get(id);
+        if (p === undefined) continue; // retracted since the run
+        lon[k] = p.lon;
+        lat[k] = p.lat;
+        hotspot[k++] = h.hotspotId;
+      }
+    }
+    const idx: CoreIndex = { runId, epsMeters, lon: lon.subarray(0, k), lat: lat.subarray(0, k), hotspot: hotspot.subarray(0, k), trackIds: [] };
+    for (const h of hotspots) idx.trackIds[h.hotspotId] = h.trackId;
+    // one entry per dataset: an older run's entry is dropped when a newer one is cached
+    for (const other of this.cache.keys()) if (other.startsWith(`${datasetId}\u0000`)) this.cache.delete(other);
+    this.cache.set(key, idx);
+    return idx;
+  }
+
+  /** The hotspot the position falls in, or null; `run` is null when the dataset has no succeeded run. */
+  async find(datasetId: string, lon: number, lat: number): Promise<{ run: string | null; hotspot: Record<string, unknown> | null }> {
+    const run = await this.store.latestRun(datasetId);
+    const eps = Number((run?.summary?.parameters as Record<string, unknown> | undefined)?.eps);
+    if (run === null || !(eps > 0)) return { run: null, hotspot: null };
+    const idx = await this.index(datasetId, run.id, eps);
+    // a latitude band first: one degree of latitude is at least 110 km everywhere
+    const band = eps / 110_000;
+    let best = -1;
+    let bestM = Infinity;
+    for (let i = 0; i < idx.lon.length; i++) {
+      if (Math.abs(idx.lat[i]! - lat) > band) continue;
+      const m = meters(lon, lat, idx.lon[i]!, idx.lat[i]!);
+      if (m <= eps && m < bestM) {
+        bestM = m;
+        best = i;
+      }
+    }
+    if (best < 0) return { run: run.id, hotspot: null };
+    const h = idx.hotspot[best]!;
+    return { run: run.id, hotspot: { hotspot_id: h, track_id: idx.trackIds[h] ?? null, nearest_core_m: Math.round(bestM * 10) / 10 } };
+  }
+}
+
+/** 422 body members for rejected features, in the form of the clustering endpoints. */
+function problemList(problems: { index: number | null; id?: string | number; code: string; message: string }[], total: number): Record<string, unknown> {
+  return {
+    problems: problems.slice(0, MAX_LISTED_PROBLEMS).map((p) => ({ index: p.index, ...(p.id !== undefined ? { id: p.id } : {}), code: p.code, message: p.message })),
+    problems_total: Math.max(total, problems.length),
+  };
+}
+
+function inputProblem(problems: InputProblem[], total: number, message: string): never {
+  const unreadable = problems.length > 0 && problems.every((p) => p.index === null);
+  if (unreadable) throw new HttpProblem('malformed-body', message, problemList(problems, total));
+  if (problems.some((p) => p.code === 'too-many-features')) throw new HttpProblem('body-too-large', message);
+  throw new HttpProblem('invalid-observations', message, problemList(problems, total));
+}
+
+/** Parses `datetime`: an RFC 3339 instant, or an interval a/b with open ends `..` (both ends inclusive). */
+export function parseDatetime(text: string): { from?: number; to?: number } {
+  const instant = (s: string): number => {
+    const t = /^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(\.\d+)?(Z|[+-]\d{2}:\d{2})$/i.test(s) ? Date.parse(s) : NaN;
+    if (!Number.isFinite(t)) {
+      throw new HttpProblem('invalid-parameter', `datetime: ${JSON.stringify(s)} is not an RFC 3339 instant such as 2026-04-01T00:00:00Z`, { parameter: 'datetime' });
+    }
+    return t;
+  };
+  const parts = text.split('/');
+  if (parts.length === 1) {
+    const t = instant(text);
+    return { from: t, to: t + 1 };
+  }
+  if (parts.length !== 2 || ((parts[0] === '..' || parts[0] === '') && (parts[1] === '..' || parts[1] === ''))) {
+    throw new HttpProblem('invalid-parameter', 'datetime: give an instant, or an interval start/end where one end may be ".."', { parameter: 'datetime' });
+  }
+  const out: { from?: number; to?: number } = {};
+  if (parts[0] !== '..' && parts[0] !== '') out.from = instant(parts[0]!);
+  if (parts[1] !== '..' && parts[1] !== '') out.to = instant(parts[1]!) + 1;
+  if (out.from !== undefined && out.to !== undefined && out.from >= out.to) {
+    throw new HttpProblem('invalid-parameter', 'datetime: the interval ends before it starts', { parameter: 'datetime' });
+  }
+  return out;
+}
+
+function parseBbox(text: unknown): [number, number, number, number] {
+  const parts = typeof text === 'string' ? text.split(',').map((s) => (s.trim() === '' ? NaN : Number(s))) : [];
+  const [w, s, e, n] = parts as [number, number, number, number];
+  if (parts.length !== 4 || !parts.every(Number.isFinite) || Math.abs(w) > 180 || Math.abs(e) > 180 || s < -90 || n > 90 || s > n) {
+    throw new HttpProblem('invalid-parameter', `bbox must be west,south,east,north in degrees (west > east crosses the antimeridian), got ${JSON.stringify(text)}`, { parameter: 'bbox' });
+  }
+  return [w, s, e, n];
+}
+
+const LIST_PARAMS = new Set(['bbox', 'datetime', 'where', 'limit', 'cursor']);
+
+async function readBatch(services: DatasetServices, body: Uint8Array, options: RecordOptions): Promise<RecordBatch> {
+  if (services.jobs === null || body.byteLength <= SMALL_BODY_BYTES) {
+    try {
+      return readRecords(Buffer.from(body.buffer, body.byteOffset, body.byteLength), options);
+    } catch (err) {
+      if (err instanceof InputError) inputProblem(err.problems, err.total, err.message);
+      throw err;
+    }
+  }
+  const out = await services.jobs.records({ body, options });
+  if (!out.ok) inputProblem(out.problems, out.total, out.message);
+  return out.batch;
+}
+
+function recordOptions(d: Dataset, format: RecordOptions['format'], partial: boolean): RecordOptions {
+  const s = d.settings;
+  const text = (v: unknown): string | null => (typeof v === 'string' && v !== '' ? v : null);
+  return { format, idProperty: d.idProperty, weightProperty: text(s.weight), partial, lonColumn: text(s.lon_column), latColumn: text(s.lat_column) };
+}
+
+export function registerObservationRoutes(app: FastifyInstance, services: DatasetServices): void {
+  const { store } = services;
+  const lookup = new HotspotLookup(store);
+
+  app.post<{ Params: { id: string } }>('/v1/datasets/:id/observations', async (request: FastifyRequest<{ Params: { id: string } }>) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    for (const k of Object.keys(query)) if (k !== 'replace' && k !== 'partial') throw new HttpProblem('invalid-parameter', `${k}: unknown parameter; this endpoint takes replace and partial`, { parameter: k });
+    const replace = flag(query, 'replace');
+    const partial = flag(query, 'partial');
+    const dataset = await requireDataset(store, request.params.id);
+    const body = request.body as Uint8Array | undefined;
+    if (!body || body.byteLength === 0) throw new HttpProblem('malformed-body', 'The request body is empty; send a GeoJSON Feature or FeatureCollection, CSV, or a GeoJSON text sequence.');
+    const format = formatOf(request.headers['content-type']);
+    const batch = await readBatch(services, body, recordOptions(dataset, format, partial));
+
+    const result = await store
+      .ingest(dataset.id, batch.records, { replace, partial, rejected: batch.rejected.map((r) => ({ index: r.index, reason: r.message })) })
+      .catch(storeProblem);
+    const indexOf = new Map<string, number>();
+    batch.records.forEach((r, k) => indexOf.has(r.id) || indexOf.set(r.id, batch.indices[k]!));
+    const conflicts = result.conflicts.map((id) => ({
+      index: indexOf.get(id) ?? null,
+      id,
+      code: 'conflict',
+      message: `an observation with id ${JSON.stringify(id)} is stored with other content (or given twice with different content); send replace=true to replace it`,
+    }));
+    if (!result.stored && conflicts.length > 0 && batch.rejected.length === 0) {
+      throw new HttpProblem('observation-conflict', `${conflicts.length} observation${conflicts.length > 1 ? 's have ids' : ' has an id'} stored with other content; nothing was stored. Send replace=true to replace them, or partial=true to store the rest.`, problemList(conflicts, conflicts.length));
+    }
+    if (!result.stored) {
+      // both invalid features and conflicts, without partial
+      throw new HttpProblem('invalid-observations', 'some observations are not valid or conflict with stored ones; nothing was stored', problemList([...batch.rejected, ...conflicts].sort((a, b) => (a.index ?? 0) - (b.index ?? 0)), batch.rejected.length + conflicts.length));
+    }
+    const rejections = [...batch.rejected, ...conflicts].sort((a, b) => (a.index ?? 0) - (b.index ?? 0));
+    const answer: Record<string, unknown> = {
+      dataset_id: dataset.id,
+      stored: result.stored,
+      accepted: result.accepted.length,
+      duplicate: result.duplicates.length,
+      replaced: result.replaced.length,
+      rejected: rejections.length,
+      duplicates: result.duplicates.slice(0, MAX_LISTED_PROBLEMS),
+      rejections: rejections.slice(0, MAX_LISTED_PROBLEMS).map((r) => ({ index: r.index, ...(r.id !== undefined ? { id: r.id } : {}), code: r.code, reason: r.message })),
+    };
+    if (batch.records.length === 1 && rejections.length === 0) {
+      const r = batch.records[0]!;
+      const found = await lookup.find(dataset.id, r.lon, r.lat);
+      answer.observation_id = r.id;
+      answer.latest_run = found.run;
+      answer.hotspot = found.hotspot;
+    }
+    return answer;
+  });
+
+  app.get<{ Params: { id: string } }>('/v1/datasets/:id/observations', async (request, reply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    for (const k of Object.keys(query)) if (!LIST_PARAMS.has(k)) throw new HttpProblem('invalid-parameter', `${k}: unknown parameter; this endpoint takes ${[...LIST_PARAMS].join(', ')}`, { parameter: k });
+    const dataset = await requireDataset(store, request.params.id);
+    const options: ListObservationsOptions = { limit: integer(query, 'limit', 1000, 1, 10_000) };
+    if (query.bbox !== undefined) options.bbox = parseBbox(query.bbox);
+    if (query.datetime !== undefined) Object.assign(options, parseDatetime(String(query.datetime)));
+    if (query.where !== undefined) {
+      const raw = [query.where].flat();
+      const where: WhereCondition[] = [];
+      try {
+        for (const c of raw) where.push(parseCondition(c));
+      } catch (err) {
+        settingsProblem(err);
+      }
+      options.where = where;
+    }
+    if (query.cursor !== undefined) options.cursor = String(query.cursor);
+    let page;
+    try {
+      page = await store.listObservations(dataset.id, options);
+    } catch (err) {
+      if (err instanceof StoreError && err.code === 'invalid') throw new HttpProblem('invalid-parameter', err.message, { parameter: /cursor/.test(err.message) ? 'cursor' : 'query' });
+      throw err;
+    }
+    const links: string[] = [];
+    if (page.nextCursor !== null) {
+      const next = new URLSearchParams();
+      for (const [k, v] of Object.entries(query)) if (k !== 'cursor') for (const x of [v].flat()) next.append(k, String(x));
+      next.set('cursor', page.nextCursor);
+      links.push(JSON.stringify({ rel: 'next', type: 'application/geo+json', href: `/v1/datasets/${dataset.id}/observations?${next.toString()}` }));
+    }
+    const text = `{"type":"FeatureCollection","numberReturned":${page.features.length},"links":[${links.join(',')}],"features":[${page.features.join(',')}]}`;
+    return reply.type('application/geo+json').send(text);
+  });
+
+  app.delete<{ Params: { id: string; obsId: string } }>('/v1/datasets/:id/observations/:obsId', async (request, reply) => {
+    const dataset = await requireDataset(store, request.params.id);
+    if (!(await store.deleteObservation(dataset.id, request.params.obsId))) {
+      throw new HttpProblem('observation-not-found', `dataset ${JSON.stringify(dataset.id)} has no observation ${JSON.stringify(request.params.obsId)}`);
+    }
+    return reply.code(204).send();
+  });
+}

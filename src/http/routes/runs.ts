@@ -1,0 +1,104 @@
+/**
+ * /v1/datasets/{id}/runs: starting runs on stored observations (202 + Location; the runner does
+ * the work), listing them, reading one, cancelling one, and serving the stored result layers as
+ * they were saved (no recomputation). `/runs/latest` and `/runs/latest/{layer}` always name the
+ * newest succeeded run, so a GIS can pull one URL every morning.
+ */
+import type { FastifyInstance } from 'fastify';
+import { resolveSettings } from '../../run/settings.js';
+import { RUN_LAYERS, StoreError, type Run, type RunLayer } from '../../storage/store.js';
+import { HttpProblem } from '../errors.js';
+import { integer, jsonObject, requireDataset, requireRun, runJson, settingsProblem, type DatasetServices } from './common.js';
+
+function layerOf(name: string): RunLayer {
+  if (!(RUN_LAYERS as readonly string[]).includes(name)) {
+    throw new HttpProblem('invalid-parameter', `layer must be one of ${RUN_LAYERS.join(', ')}, got ${JSON.stringify(name)}`, { parameter: 'layer' });
+  }
+  return name as RunLayer;
+}
+
+export function registerRunRoutes(app: FastifyInstance, services: DatasetServices): void {
+  const { store, runner } = services;
+
+  const sendLayer = async (run: Run, layer: RunLayer, reply: import('fastify').FastifyReply) => {
+    if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
+    const text = await store.getRunLayer(run.id, layer);
+    if (text === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
+    return reply.type('application/geo+json').header('x-roost-run', run.id).send(text);
+  };
+
+  app.post<{ Params: { id: string } }>('/v1/datasets/:id/runs', async (request, reply) => {
+    const dataset = await requireDataset(store, request.params.id);
+    const doc = jsonObject(request);
+    for (const k of Object.keys(doc)) if (k !== 'settings') throw new HttpProblem('invalid-parameter', `${k}: unknown member; the body may hold "settings" overrides`, { parameter: k });
+    const fromBody = doc.settings ?? {};
+    if (fromBody === null || typeof fromBody !== 'object' || Array.isArray(fromBody)) {
+      throw new HttpProblem('invalid-parameter', 'settings must be an object such as {"eps": 100}', { parameter: 'settings' });
+    }
+    // dataset defaults, then the body's overrides, then the query string's
+    const settings: Record<string, unknown> = { ...dataset.settings, ...(fromBody as Record<string, unknown>), ...((request.query ?? {}) as Record<string, unknown>) };
+    for (const [k, v] of Object.entries(settings)) if (v === null) delete settings[k];
+    try {
+      resolveSettings(settings);
+    } catch (err) {
+      settingsProblem(err);
+    }
+    const run = await store.createRun({ datasetId: dataset.id, settings, trigger: 'request' });
+    runner.wake();
+    return reply.code(202).header('location', `/v1/datasets/${dataset.id}/runs/${run.id}`).send(runJson(run));
+  });
+
+  app.get<{ Params: { id: string } }>('/v1/datasets/:id/runs', async (request) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    const dataset = await requireDataset(store, request.params.id);
+    const limit = integer(query, 'limit', 20, 1, 1000);
+    let page;
+    try {
+      page = await store.listRuns(dataset.id, { limit, cursor: query.cursor === undefined ? undefined : String(query.cursor) });
+    } catch (err) {
+      if (err instanceof StoreError && err.code === 'invalid') throw new HttpProblem('invalid-parameter', err.message, { parameter: 'cursor' });
+      throw err;
+    }
+    return {
+      runs: page.runs.map(runJson),
+      next: page.nextCursor === null ? null : `/v1/datasets/${dataset.id}/runs?limit=${limit}&cursor=${page.nextCursor}`,
+    };
+  });
+
+  const latest = async (datasetId: string): Promise<Run> => {
+    const dataset = await requireDataset(store, datasetId);
+    const run = await store.latestRun(dataset.id);
+    if (run === null) throw new HttpProblem('run-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet; POST /v1/datasets/${dataset.id}/runs starts one`);
+    return run;
+  };
+
+  app.get<{ Params: { id: string } }>('/v1/datasets/:id/runs/latest', async (request) => runJson(await latest(request.params.id)));
+
+  app.get<{ Params: { id: string; layer: string } }>('/v1/datasets/:id/runs/latest/:layer', async (request, reply) => {
+    const layer = layerOf(request.params.layer);
+    return sendLayer(await latest(request.params.id), layer, reply);
+  });
+
+  app.get<{ Params: { id: string; run: string } }>('/v1/datasets/:id/runs/:run', async (request) => {
+    await requireDataset(store, request.params.id);
+    return runJson(await requireRun(store, request.params.id, request.params.run));
+  });
+
+  app.get<{ Params: { id: string; run: string; layer: string } }>('/v1/datasets/:id/runs/:run/:layer', async (request, reply) => {
+    const layer = layerOf(request.params.layer);
+    await requireDataset(store, request.params.id);
+    return sendLayer(await requireRun(store, request.params.id, request.params.run), layer, reply);
+  });
+
+  app.post<{ Params: { id: string; run: string } }>('/v1/datasets/:id/runs/:run/cancel', async (request) => {
+    await requireDataset(store, request.params.id);
+    try {
+      const run = await runner.cancel(request.params.id, request.params.run);
+      if (run === null) await requireRun(store, request.params.id, request.params.run);
+      return runJson(run!);
+    } catch (err) {
+      if (err instanceof StoreError && err.code === 'conflict') throw new HttpProblem('run-finished', `${err.message}; only queued or running runs can be cancelled`);
+      throw err;
+    }
+  });
+}

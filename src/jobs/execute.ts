@@ -1,0 +1,224 @@
+/**
+ * One stored run from start to finish: load the dataset's observations in the run's window,
+ * cluster them, let the hooks give every hotspot its track id, save the layers and hotspots, and
+ * mark the run succeeded. The same function runs inside a worker thread (src/jobs/job-worker.ts,
+ * with its own store connection) or, for an in-memory store, on the calling thread.
+ *
+ * Progress is stored as a percentage at fixed points (load 5 %, index 35 %, clustering 40–75 %,
+ * figures 80 %, layers 85 %, save 90 %) and at most once a second inside the clustering. Each
+ * progress write is conditional on the run still being 'running', so a run cancelled from any
+ * process (or instance) stops at its next progress point.
+ */
+import { pointSet } from '../core/types.js';
+import { clusterObservations, type Stage } from '../run/cluster.js';
+import { resolveSettings, type ClusterSettings } from '../run/settings.js';
+import type { InputFeature, Observations } from '../ingest/types.js';
+import type { Dataset, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
+import { StoreError } from '../storage/store.js';
+import type { FinishedHotspot, TrackAssignment } from './hooks.js';
+
+/** A run stopped because it was cancelled (its status already says so). */
+export class RunCancelled extends Error {
+  constructor(message = 'the run was cancelled') {
+    super(message);
+    this.name = 'RunCancelled';
+  }
+}
+
+const DURATION = /^P(?:(\d+)Y)?(?:(\d+)M)?(?:(\d+)W)?(?:(\d+)D)?(?:T(?:(\d+)H)?(?:(\d+)M)?(?:(\d+(?:\.\d+)?)S)?)?$/;
+
+/**
+ * Checks an ISO 8601 duration such as P30D, P1Y6M, PT12H or P2W (whole units; seconds may have
+ * a fraction). @returns an error message, or null when the text is usable
+ */
+export function windowProblem(text: string): string | null {
+  const m = DURATION.exec(text);
+  if (m === null || text === 'P' || text.endsWith('T') || m.slice(1).every((x) => x === undefined)) {
+    return `window must be an ISO 8601 duration such as P30D (30 days), P2W, P1M or PT12H, got ${JSON.stringify(text)}`;
+  }
+  return null;
+}
+
+/**
+ * The start of a window that ends at `endMs`: years and months step back in the calendar (UTC),
+ * weeks, days, hours, minutes and seconds by their length. @returns epoch milliseconds
+ */
+export function windowStart(duration: string, endMs: number): number {
+  const m = DURATION.exec(duration);
+  if (m === null || windowProblem(duration) !== null) throw new RangeError(windowProblem(duration) ?? 'bad window');
+  const n = (i: number): number => (m[i] === undefined ? 0 : Number(m[i]));
+  const d = new Date(endMs);
+  d.setUTCFullYear(d.getUTCFullYear() - n(1), d.getUTCMonth() - n(2));
+  return d.getTime() - (((n(3) * 7 + n(4)) * 24 + n(5)) * 60 + n(6)) * 60_000 - Math.round(n(7) * 1000);
+}
+
+/**
+ * The store query for a run: the dataset's window (ending at the run's creation, so a run that
+ * waited in the queue still covers the time it was asked for), narrowed by the settings' since,
+ * until and where.
+ */
+export function runQuery(settings: ClusterSettings, window: string | null, runCreatedMs: number): Omit<ObservationQuery, 'bbox'> {
+  let from = settings.since === null ? -Infinity : Date.parse(settings.since);
+  let to = settings.until === null ? Infinity : Date.parse(settings.until);
+  if (window !== null) {
+    from = Math.max(from, windowStart(window, runCreatedMs));
+    to = Math.min(to, runCreatedMs);
+  }
+  const q: Omit<ObservationQuery, 'bbox'> = {};
+  if (Number.isFinite(from)) q.from = from;
+  if (Number.isFinite(to)) q.to = to;
+  if (settings.where.length > 0) q.where = settings.where;
+  return q;
+}
+
+export interface ExecuteOptions {
+  /** aborts between stages and inside the clustering */
+  signal?: AbortSignal;
+  /** gives each hotspot its track id (the RunHooks' assignTracks, possibly across a thread) */
+  assignTracks(hotspots: FinishedHotspot[]): Promise<TrackAssignment>;
+  /** smallest interval between progress writes inside a stage, milliseconds; default 1000 */
+  progressIntervalMs?: number;
+}
+
+export interface ExecutedRun {
+  summary: Record<string, unknown>;
+  timings: Record<string, number>;
+  hotspots: number;
+}
+
+const STAGE_PERCENT: Record<Stage, number> = { read: 5, index: 35, cluster: 40, figures: 80, write: 85 };
+
+/**
+ * Executes a run that this caller has claimed (status 'running'). Resolves once the result is
+ * saved and the run marked succeeded; throws RunCancelled when the run stopped being 'running'
+ * (cancelled elsewhere) and any other error for a failure (the caller marks the run failed).
+ */
+export async function executeRun(store: Store, run: Run, dataset: Dataset, options: ExecuteOptions): Promise<ExecutedRun> {
+  const t0 = performance.now();
+  const timings: Record<string, number> = {};
+  const lap = (name: string, since: number): number => {
+    const now = performance.now();
+    timings[name] = Math.round((now - since) * 10) / 10;
+    return now;
+  };
+  const interval = options.progressIntervalMs ?? 1000;
+  let lastWrite = 0;
+  let pending: Promise<unknown> = Promise.resolve();
+  let cancelled = false;
+  const progress = (percent: number, force: boolean): void => {
+    const now = Date.now();
+    if (!force && now - lastWrite < interval) return;
+    lastWrite = now;
+    pending = pending
+      .then(() => store.updateRun(run.id, { progress: Math.round(percent) }, ['running']))
+      .catch((e: unknown) => {
+        if (e instanceof StoreError && e.code === 'conflict') cancelled = true;
+        else throw e;
+      });
+  };
+  const check = async (): Promise<void> => {
+    await pending;
+    options.signal?.throwIfAborted();
+    if (cancelled) throw new RunCancelled();
+  };
+
+  const settings = resolveSettings(run.settings);
+  const query = runQuery(settings, dataset.window, Date.parse(run.createdAt));
+  progress(1, true);
+  await check();
+
+  let t = performance.now();
+  const input = await store.loadForRun(dataset.id, query);
+  t = lap('load', t);
+  progress(STAGE_PERCENT.read, true);
+  await check();
+
+  const n = input.ids.length;
+  const features = new Array<InputFeature>(n);
+  for (let i = 0; i < n; i++) features[i] = JSON.parse(input.features[i]!) as InputFeature;
+  input.features.length = 0;
+  let weight: Float64Array | null = null;
+  if (settings.weightProperty !== null) {
+    // read from the features, so that a run may weigh by another property than the dataset's
+    weight = new Float64Array(n);
+    for (let i = 0; i < n; i++) {
+      const w = features[i]!.properties?.[settings.weightProperty];
+      weight[i] = typeof w === 'number' && w >= 0 ? w : typeof w === 'string' && Number(w) >= 0 ? Number(w) : 1;
+    }
+  }
+  let anyTime = false;
+  for (let i = 0; i < n; i++) if (!Number.isNaN(input.observedAt[i])) anyTime = true;
+  const obs: Observations = { points: pointSet(input.lon, input.lat, weight), features, observedAt: anyTime ? input.observedAt : null };
+  t = lap('parse', t);
+
+  // the store applied the window and conditions; the clustering must not filter again
+  const clusterSettings: ClusterSettings = { ...settings, since: null, until: null, where: [] };
+  const result =
+    n === 0
+      ? null
+      : clusterObservations(
+          obs,
+          clusterSettings,
+          {
+            signal: options.signal,
+            onProgress: (stage, done) => {
+              const base = STAGE_PERCENT[stage];
+              if (stage === 'cluster') progress(base + 35 * Math.min(1, done), done === 0);
+              else progress(base, true);
+            },
+          },
+          undefined,
+          { source: 'stored', dataset: dataset.id, query: queryRecord(query) },
+        );
+  if (result === null) throw new Error(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window`);
+  t = lap('cluster', t);
+  await check();
+
+  const ids = input.ids;
+  const finished: FinishedHotspot[] = result.hotspots.map((h) => ({
+    hotspot: h,
+    memberIds: Array.from(h.members, (i) => ids[i]!),
+    coreIds: Array.from(h.coreMembers, (i) => ids[i]!),
+  }));
+  const assignment = await options.assignTracks(finished);
+  if (assignment.trackIds.length !== finished.length) throw new Error(`track assignment gave ${assignment.trackIds.length} track ids for ${finished.length} hotspots`);
+  result.hotspots.forEach((h, k) => (h.properties.track_id = assignment.trackIds[k]));
+  t = lap('tracks', t);
+  await check();
+
+  const layers = {
+    hotspots: result.layers.hotspots.text(),
+    centres: result.layers.centres.text(),
+    noise: result.layers.noise.text(),
+    points: result.layers.points.text(),
+  };
+  const stored: RunHotspot[] = finished.map((f, k) => ({
+    hotspotId: f.hotspot.hotspotId,
+    trackId: assignment.trackIds[k]!,
+    members: f.memberIds,
+    coreMembers: f.coreIds,
+    hull: JSON.stringify(f.hotspot.hull),
+    figures: f.hotspot.properties,
+  }));
+  t = lap('layers', t);
+  progress(90, true);
+  await check();
+  await store.saveRunResult(run.id, { layers, hotspots: stored });
+  lap('save', t);
+  timings.total = Math.round((performance.now() - t0) * 10) / 10;
+
+  const summary = { ...result.summary, changes: assignment.changes };
+  await store.updateRun(run.id, { status: 'succeeded', progress: 100, error: null, finishedAt: new Date().toISOString(), summary, timings }, ['running']).catch((e: unknown) => {
+    if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled();
+    throw e;
+  });
+  return { summary, timings, hotspots: stored.length };
+}
+
+function queryRecord(q: Omit<ObservationQuery, 'bbox'>): Record<string, unknown> {
+  return {
+    from: q.from === undefined ? null : new Date(q.from).toISOString(),
+    to: q.to === undefined ? null : new Date(q.to).toISOString(),
+    where: q.where ?? [],
+  };
+}

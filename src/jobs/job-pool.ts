@@ -1,0 +1,45 @@
+/**
+ * The threads that do the heavy work of stored datasets (src/jobs/job-worker.ts): one per
+ * concurrent run plus one, so that reading a posted batch never waits behind a long run.
+ * Runs the compiled worker in production and the TypeScript source through tsx otherwise.
+ */
+import { Piscina } from 'piscina';
+import type { JobTask, RecordsOutcome, RecordsTask, RunOutcomeMessage, RunTask } from './job-worker.js';
+
+export interface JobPool {
+  /** Reads a body into records in a worker; the body's ArrayBuffer is transferred. */
+  records(task: Omit<RecordsTask, 'op'>): Promise<RecordsOutcome>;
+  /** Executes a claimed run in a worker; aborting `signal` ends the worker thread at once. */
+  run(task: Omit<RunTask, 'op'>, signal: AbortSignal): Promise<RunOutcomeMessage>;
+  close(): Promise<void>;
+}
+
+function workerEntry(): { filename: string; execArgv: string[] | undefined } {
+  const here = import.meta.url;
+  if (/\.ts$/.test(new URL(here).pathname)) return { filename: new URL('./job-worker.ts', here).href, execArgv: ['--import', 'tsx'] };
+  return { filename: new URL('./job-worker.js', here).href, execArgv: undefined };
+}
+
+/** A pool of `runs + 1` threads, started on first use and stopped after a minute idle. */
+export function createJobPool(runs: number): JobPool {
+  const { filename, execArgv } = workerEntry();
+  const piscina = new Piscina<JobTask, RecordsOutcome | RunOutcomeMessage>({
+    filename,
+    execArgv,
+    minThreads: 0,
+    maxThreads: runs + 1,
+    idleTimeout: 60_000,
+    concurrentTasksPerWorker: 1,
+  });
+  return {
+    async records(task) {
+      return (await piscina.run({ op: 'records', ...task }, { transferList: [task.body.buffer as ArrayBuffer] })) as RecordsOutcome;
+    },
+    async run(task, signal) {
+      return (await piscina.run({ op: 'run', ...task }, { signal, transferList: [task.port as unknown as ArrayBuffer] })) as RunOutcomeMessage;
+    },
+    async close() {
+      await piscina.destroy();
+    },
+  };
+}
