@@ -8,39 +8,17 @@
  *   node --import tsx test/bench/command.ts [sizes…]     (default 100000 1000000)
  */
 import { spawnSync } from 'node:child_process';
-import { once } from 'node:events';
-import { createWriteStream, mkdtempSync, readFileSync, rmSync, statSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readFileSync, rmSync, statSync, writeFileSync } from 'node:fs';
 import os from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
-import { BENCH_EPS_METERS, BENCH_MIN_POINTS, benchPoints } from './data.js';
+import { BENCH_EPS_METERS, BENCH_MIN_POINTS, benchPoints, writeGeoJSON } from './data.js';
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const BIN = join(root, 'dist/cli/bin.js');
 const RUNS = 3;
 const sizes = process.argv.slice(2).map(Number).filter((n) => n > 0);
 if (sizes.length === 0) sizes.push(100_000, 1_000_000);
-
-async function writeInput(path: string, n: number): Promise<void> {
-  const p = benchPoints(n);
-  const out = createWriteStream(path);
-  const write = async (s: string): Promise<void> => {
-    if (!out.write(s)) await once(out, 'drain');
-  };
-  await write('{"type":"FeatureCollection","features":[\n');
-  let chunk = '';
-  for (let i = 0; i < n; i++) {
-    const day = 1 + (i % 28);
-    chunk += `${i ? ',\n' : ''}{"type":"Feature","id":"b${i}","geometry":{"type":"Point","coordinates":[${p.lon[i].toFixed(7)},${p.lat[i].toFixed(7)}]},"properties":{"observed_at":"2026-05-${String(day).padStart(2, '0')}T12:00:00Z","count":${1 + (i % 4)}}}`;
-    if (chunk.length > 1 << 16) {
-      await write(chunk);
-      chunk = '';
-    }
-  }
-  await write(`${chunk}\n]}\n`);
-  out.end();
-  await once(out, 'finish');
-}
 
 /** Runs a command under GNU time; returns wall seconds and peak RSS in MiB. */
 function timed(args: string[]): { seconds: number; rssMiB: number } {
@@ -57,7 +35,7 @@ const rows: string[] = [];
 try {
   for (const n of sizes) {
     const input = join(dir, `points-${n}.geojson`);
-    await writeInput(input, n);
+    await writeGeoJSON(input, benchPoints(n), true);
     const mb = statSync(input).size / 2 ** 20;
     const parse: { seconds: number; rssMiB: number }[] = [];
     const cluster: { seconds: number; rssMiB: number }[] = [];
@@ -75,7 +53,6 @@ try {
     rows.push(
       `| ${n.toLocaleString('en')} | ${mb.toFixed(0)} MiB | ${p.toFixed(2)} s | ${c.toFixed(2)} s | ${(c / p).toFixed(2)}× | ${median(cluster.map((m) => m.rssMiB)).toFixed(0)} MiB | ${stageText} |`,
     );
-    process.stderr.write(`${rows.at(-1)}\n`);
   }
 } finally {
   rmSync(dir, { recursive: true, force: true });

@@ -26,8 +26,10 @@ export function benchPoints(n: number): PointSet {
  * Writes points as a GeoJSON FeatureCollection of Point features (coordinates with 7 decimals,
  * about 1 cm), streaming, so a million points need no giant string.
  * @param path output file
+ * @param withRecord when true, each feature carries an id, an `observed_at` and a count, as survey
+ *   apps send them; otherwise empty properties
  */
-export async function writeGeoJSON(path: string, points: PointSet): Promise<void> {
+export async function writeGeoJSON(path: string, points: PointSet, withRecord = false): Promise<void> {
   const out = createWriteStream(path);
   const write = async (s: string): Promise<void> => {
     if (!out.write(s)) await once(out, 'drain');
@@ -35,7 +37,10 @@ export async function writeGeoJSON(path: string, points: PointSet): Promise<void
   await write('{"type":"FeatureCollection","features":[\n');
   let chunk = '';
   for (let i = 0; i < points.n; i++) {
-    chunk += `${i ? ',\n' : ''}{"type":"Feature","properties":{},"geometry":{"type":"Point","coordinates":[${points.lon[i].toFixed(7)},${points.lat[i].toFixed(7)}]}}`;
+    const record = withRecord
+      ? `"id":"b${i}","properties":{"observed_at":"2026-05-${String(1 + (i % 28)).padStart(2, '0')}T12:00:00Z","count":${1 + (i % 4)}}`
+      : '"properties":{}';
+    chunk += `${i ? ',\n' : ''}{"type":"Feature",${record},"geometry":{"type":"Point","coordinates":[${points.lon[i].toFixed(7)},${points.lat[i].toFixed(7)}]}}`;
     if (chunk.length > 1 << 16) {
       await write(chunk);
       chunk = '';

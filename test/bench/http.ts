@@ -14,6 +14,7 @@ import { cpus, loadavg, totalmem } from 'node:os';
 import { fileURLToPath } from 'node:url';
 import { createRequire } from 'node:module';
 import { resolveConfig } from '../../src/http/config.js';
+import { rng } from '../reference/seeded.js';
 
 /** The parts of autocannon's result and instance used here (the package ships no types). */
 interface LoadResult {
@@ -60,17 +61,8 @@ function arg(name: string, fallback: number): number {
   return i > 0 ? Number(process.argv[i + 1]) : fallback;
 }
 
-/** Seeded generator (mulberry32) so every run posts the same bodies. */
-function seeded(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+/** Seeded generator so every run posts the same bodies. */
+const seeded = (seed: number): (() => number) => rng(seed).next;
 
 /**
  * n point features over ~300 km × 220 km (6–10° E, 45.8–47.8° N): 200 dense groups (~300 m

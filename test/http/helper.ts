@@ -11,6 +11,7 @@ import { parse } from 'yaml';
 import { expect } from 'vitest';
 import { buildApp, OPENAPI_PATH } from '../../src/http/app.js';
 import { resolveConfig, type ServerConfig } from '../../src/http/config.js';
+import { rng } from '../reference/seeded.js';
 
 /** A test configuration: one worker, no load shedding by event-loop delay (tests block the loop). */
 export function testConfig(overrides: Partial<Record<keyof ServerConfig, unknown>> = {}): ServerConfig {
@@ -96,16 +97,9 @@ export function expectMatchesSpec(res: LightMyRequestResponse, path: string, met
   }
 }
 
-/** A seeded pseudo-random generator (mulberry32) for reproducible test data. */
+/** A seeded pseudo-random generator for reproducible test data (mulberry32, see test/reference/seeded.ts). */
 export function seeded(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
+  return rng(seed).next;
 }
 
 /**
