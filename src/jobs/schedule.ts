@@ -1,0 +1,229 @@
+/**
+ * Scheduled runs inside the server. A dataset's schedule is a cron expression read in an IANA time
+ * zone (croner: five fields, or six with seconds first); at each slot the scheduler claims the
+ * slot in the store (`claimScheduledSlot`, true for exactly one caller per dataset and slot across
+ * processes and instances) and only the winner creates the run, with trigger 'schedule'. The
+ * run queue then executes it like any other.
+ *
+ * When it looks: at the next due slot of any dataset, and at least every `scanMs`, re-reading the
+ * datasets each time, so a schedule created, changed or removed takes effect within `scanMs`.
+ *
+ * Missed slots: when several slots of a dataset fell due since the last look (the process was
+ * stopped, asleep or busy), only the latest is run; one re-clustering of the same observations
+ * serves them all. At start-up, slots up to `catchUpMs` in the past count as due, so a restart
+ * just after 02:00 still runs the 02:00 slot (exactly once: another instance may have run it).
+ *
+ * Daylight-saving time (croner's behaviour, checked in test/jobs/schedule.test.ts):
+ * - a local time that does not exist (02:30 on the night clocks go from 02:00 to 03:00) runs at the
+ *   first instant after the gap (03:00 new time), once;
+ * - a local time that happens twice (02:30 on the night clocks go back from 03:00 to 02:00) runs
+ *   once, at its first occurrence (summer time);
+ * - patterns that fire every so many minutes or hours keep firing through both hours of the night
+ *   clocks go back, as elapsed time asks.
+ * A slot is the UTC instant it fires at, so nothing else about time zones reaches the store.
+ */
+import { Cron } from 'croner';
+import type { Dataset, DatasetSchedule, Run, Store } from '../storage/store.js';
+
+/** How the scheduler looks for due slots. */
+export interface SchedulerSettings {
+  /** longest time between two looks at the datasets, milliseconds; default 60 000 */
+  scanMs: number;
+  /** at start-up, slots this far in the past still count as due, milliseconds; default 900 000 (15 min) */
+  catchUpMs: number;
+}
+
+/** Defaults (our choice): a minute keeps schedule edits prompt at one small query per minute. */
+export const DEFAULT_SCHEDULER_SETTINGS: Readonly<SchedulerSettings> = Object.freeze({ scanMs: 60_000, catchUpMs: 900_000 });
+
+/** Where the scheduler logs (a pino or Fastify logger fits). */
+export interface ScheduleLog {
+  info(obj: Record<string, unknown>, msg: string): void;
+  warn(obj: Record<string, unknown>, msg: string): void;
+  error(obj: Record<string, unknown>, msg: string): void;
+}
+
+function pattern(schedule: DatasetSchedule): Cron {
+  return new Cron(schedule.cron, { timezone: schedule.timezone, paused: true });
+}
+
+/**
+ * Why a schedule cannot be used (bad cron expression, unknown time zone, never fires), or null
+ * when it can. For checking a dataset definition before it is stored.
+ */
+export function scheduleProblem(schedule: DatasetSchedule): string | null {
+  if (typeof schedule?.cron !== 'string' || typeof schedule.timezone !== 'string') return 'a schedule needs "cron" and "timezone" texts';
+  try {
+    Intl.DateTimeFormat('en', { timeZone: schedule.timezone });
+  } catch {
+    return `timezone ${JSON.stringify(schedule.timezone)} is not an IANA time zone name such as Europe/Berlin or UTC`;
+  }
+  try {
+    if (pattern(schedule).nextRun() === null) return `cron ${JSON.stringify(schedule.cron)} never fires`;
+  } catch (e) {
+    return `cron ${JSON.stringify(schedule.cron)} is not usable: ${(e as Error).message}`;
+  }
+  return null;
+}
+
+/**
+ * The slots of a schedule in (after, until], oldest first, at most `max` (default 1000; the latest
+ * ones are kept when there are more). @throws Error for a bad cron expression or time zone
+ */
+export function dueSlots(schedule: DatasetSchedule, after: Date, until: Date, max = 1000): Date[] {
+  const cron = pattern(schedule);
+  const out: Date[] = [];
+  let t = after;
+  for (;;) {
+    const next = cron.nextRun(t);
+    if (next === null || next.getTime() > until.getTime()) return out;
+    out.push(next);
+    if (out.length > max) out.shift();
+    t = next;
+  }
+}
+
+/** The first slot after `after`, or null when the schedule never fires again. */
+export function nextSlot(schedule: DatasetSchedule, after: Date): Date | null {
+  return pattern(schedule).nextRun(after);
+}
+
+export interface SchedulerOptions {
+  store: Store;
+  settings?: Partial<SchedulerSettings>;
+  /** told of each run created (for example to wake the run queue) */
+  onRun?: (run: Run, slot: Date) => void;
+  log?: ScheduleLog;
+  /** the clock, epoch milliseconds; default Date.now (tests pass a fake one) */
+  now?: () => number;
+}
+
+/** What one look at the schedules did. */
+export interface TickReport {
+  /** runs this scheduler created, with their slots */
+  created: { datasetId: string; slot: string; runId: string }[];
+  /** due slots another process or instance had already claimed */
+  lost: { datasetId: string; slot: string }[];
+}
+
+/** Runs the datasets' schedules; `start()` to begin, `stop()` at shutdown. */
+export class Scheduler {
+  private readonly settings: SchedulerSettings;
+  private readonly now: () => number;
+  private readonly cursors = new Map<string, number>();
+  private readonly warned = new Map<string, string>();
+  /** when the datasets were last looked at (at start-up: the start of the catch-up window) */
+  private lastLook: number;
+  private timer: NodeJS.Timeout | null = null;
+  private running: Promise<unknown> | null = null;
+  private stopped = false;
+
+  constructor(private readonly options: SchedulerOptions) {
+    this.settings = { ...DEFAULT_SCHEDULER_SETTINGS, ...Object.fromEntries(Object.entries(options.settings ?? {}).filter(([, v]) => v !== undefined)) } as SchedulerSettings;
+    for (const k of ['scanMs', 'catchUpMs'] as const) {
+      const v = this.settings[k];
+      if (!Number.isSafeInteger(v) || v < (k === 'scanMs' ? 1 : 0)) throw new RangeError(`scheduler setting ${k} must be a whole number of milliseconds${k === 'scanMs' ? ' ≥ 1' : ' ≥ 0'}, got ${String(v)}`);
+    }
+    this.now = options.now ?? Date.now;
+    this.lastLook = this.now() - this.settings.catchUpMs;
+  }
+
+  /** Starts looking: now, then at each due slot and at least every scanMs. */
+  start(): void {
+    if (this.stopped || this.timer !== null || this.running !== null) return;
+    this.loop();
+  }
+
+  private loop(): void {
+    const p = this.tick()
+      .then(
+        (next) => next,
+        (err: unknown) => {
+          this.options.log?.error({ err }, 'could not look at the schedules');
+          return this.now() + this.settings.scanMs;
+        },
+      )
+      .then((next) => {
+        this.running = null;
+        if (this.stopped) return;
+        // at most 2^31−1 ms (Node's limit); a few ms late so the slot is surely due when it fires
+        const delay = Math.min(2 ** 31 - 1, Math.max(0, next - this.now()) + 5);
+        this.timer = setTimeout(() => {
+          this.timer = null;
+          this.loop();
+        }, delay);
+        this.timer.unref();
+      });
+    this.running = p;
+  }
+
+  /** Stops looking; resolves once a look under way is over. */
+  async stop(): Promise<void> {
+    this.stopped = true;
+    if (this.timer !== null) clearTimeout(this.timer);
+    this.timer = null;
+    await this.running;
+  }
+
+  /**
+   * One look: for every dataset with a schedule, claims its latest slot due since the last look and
+   * creates the run when the claim is won. @returns when to look next (epoch ms), with the report
+   * available through `lastReport`
+   */
+  async tick(): Promise<number> {
+    const now = this.now();
+    const report: TickReport = { created: [], lost: [] };
+    let next = now + this.settings.scanMs;
+    const datasets = await this.options.store.listDatasets();
+    const present = new Set<string>();
+    for (const d of datasets) {
+      if (d.schedule === null) continue;
+      present.add(d.id);
+      // A dataset seen for the first time: slots since the last look (or the catch-up window at
+      // start-up), but none from before its schedule was set (its last update, unless that is
+      // ahead of this clock, as with clocks of instances a little apart).
+      const updated = Date.parse(d.updatedAt);
+      const after = this.cursors.get(d.id) ?? Math.max(this.lastLook, updated <= now ? updated : -Infinity);
+      try {
+        const slots = dueSlots(d.schedule, new Date(after), new Date(now), 1);
+        if (slots.length > 0) await this.fire(d, slots[slots.length - 1]!, report);
+        const upcoming = nextSlot(d.schedule, new Date(now));
+        if (upcoming !== null) next = Math.min(next, upcoming.getTime());
+        this.warned.delete(d.id);
+      } catch (err) {
+        const key = `${d.schedule.cron} ${d.schedule.timezone}`;
+        if (this.warned.get(d.id) !== key) {
+          this.warned.set(d.id, key);
+          this.options.log?.warn({ dataset: d.id, cron: d.schedule.cron, timezone: d.schedule.timezone, error: (err as Error).message }, 'dataset schedule not usable; fix it to have scheduled runs');
+        }
+      }
+      this.cursors.set(d.id, now);
+    }
+    for (const id of this.cursors.keys()) if (!present.has(id)) this.cursors.delete(id);
+    this.lastLook = now;
+    this.lastReport = report;
+    return next;
+  }
+
+  /** What the latest look did. */
+  lastReport: TickReport = { created: [], lost: [] };
+
+  private async fire(d: Dataset, slot: Date, report: TickReport): Promise<void> {
+    const slotIso = slot.toISOString();
+    const { store } = this.options;
+    if (!(await store.claimScheduledSlot(d.id, slotIso))) {
+      report.lost.push({ datasetId: d.id, slot: slotIso });
+      return;
+    }
+    const settings = Object.fromEntries(Object.entries(d.settings).filter(([, v]) => v !== null));
+    try {
+      const run = await store.createRun({ datasetId: d.id, settings, trigger: 'schedule' });
+      report.created.push({ datasetId: d.id, slot: slotIso, runId: run.id });
+      this.options.log?.info({ dataset: d.id, slot: slotIso, run: run.id }, 'scheduled run queued');
+      this.options.onRun?.(run, slot);
+    } catch (err) {
+      // the slot is claimed and will not be tried again; say so loudly
+      this.options.log?.error({ err, dataset: d.id, slot: slotIso }, 'scheduled run could not be created; this slot is skipped');
+    }
+  }
+}
