@@ -13,11 +13,21 @@ import type { RunningServer } from '../http/server.js';
  * Resolves once it listens; the process then runs until SIGTERM or SIGINT.
  * Throws ConfigError for unusable values.
  */
-export async function runServe(options: Partial<Record<keyof ServerConfig, unknown>> = {}, env: Record<string, string | undefined> = process.env): Promise<RunningServer> {
+export async function runServe(
+  options: Partial<Record<keyof ServerConfig, unknown>> = {},
+  env: Record<string, string | undefined> = process.env,
+  /** store the demo dataset marrow-vale and run it once, unless present (also ROOST_DEMO=1) */
+  demo = false,
+): Promise<RunningServer> {
   const config = resolveConfig(options, env);
   const { startServer } = await import('../http/server.js');
   const server = await startServer(config);
   server.app.log.info({ url: server.url, workers: config.workers, body_limit_bytes: config.bodyLimitBytes }, `roost listening on ${server.url}`);
+  if (demo || env.ROOST_DEMO === '1') {
+    const { DEMO_DATASET, seedDemo } = await import('../http/routes/demo.js');
+    const run = await seedDemo(server.app);
+    server.app.log.info({ dataset: DEMO_DATASET, run }, run === null ? 'demo dataset present' : `demo dataset stored; run ${run} queued`);
+  }
   return server;
 }
 
@@ -36,6 +46,7 @@ export function serveCommand(setExit: (code: number) => void = (c) => (process.e
     const arg = o.kind === 'size' ? '<size>' : o.kind === 'string' ? '<text>' : o.kind === 'level' ? '<level>' : '<n>';
     cmd.option(`${o.flag} ${arg}`, `${o.help} [${o.env}] (default: ${describeDefault(o.key)})`);
   }
+  cmd.option('--demo', 'store the demo dataset marrow-vale and run it once, unless present [ROOST_DEMO=1]');
   cmd.action(async (opts: Record<string, unknown>) => {
     const overrides: Partial<Record<keyof ServerConfig, unknown>> = {};
     for (const o of OPTIONS) {
@@ -43,7 +54,7 @@ export function serveCommand(setExit: (code: number) => void = (c) => (process.e
       if (opts[name] !== undefined) overrides[o.key] = opts[name];
     }
     try {
-      await runServe(overrides);
+      await runServe(overrides, process.env, opts.demo === true);
     } catch (err) {
       if (err instanceof ConfigError) {
         process.stderr.write(`roost serve: ${err.message}\n`);
