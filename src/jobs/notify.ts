@@ -3,10 +3,10 @@
  * summary to the webhook URL.
  *
  * Body (application/json): `event` "run.finished", `dataset`, `run` {id, status, trigger, error},
- * `previous_run` (the run the tracks were compared with, or null), `counts` (transitions per MONIC
- * kind, or null when nothing was compared: a first run, or a run that did not succeed), and
- * `links` to the run, its hotspots and its changes (absolute when a public URL is configured,
- * else paths under /v1).
+ * `hotspots` (how many the run found), `previous_run` (the run the tracks were compared with, or
+ * null), `counts` (transitions per MONIC kind, or null when nothing was compared: a first run, or
+ * a run that did not succeed), and `links` to the run, its hotspots and its changes (absolute
+ * when a public URL is configured, else paths under /v1).
  *
  * Signature: header `Roost-Signature: t=<unix seconds>,v1=<hex>` where hex is
  * HMAC-SHA256(secret, `${t}.${raw body}`), lower-case hex. The receiver recomputes it over the raw
@@ -101,6 +101,8 @@ export interface RunNotice {
   event: 'run.finished';
   dataset: string;
   run: { id: string; status: RunOutcome['status']; trigger: Run['trigger']; error: string | null };
+  /** hotspots found, null when the run did not succeed */
+  hotspots: number | null;
   previous_run: string | null;
   counts: Record<TransitionKind, number> | null;
   links: { run: string; hotspots: string; changes: string };
@@ -117,6 +119,7 @@ export function runNotice(dataset: Dataset, run: Run, outcome: RunOutcome, publi
     event: 'run.finished',
     dataset: dataset.id,
     run: { id: run.id, status: outcome.status, trigger: run.trigger, error: outcome.error },
+    hotspots: outcome.status === 'succeeded' ? ((outcome.summary?.['figures'] as { hotspots?: number } | undefined)?.hotspots ?? null) : null,
     previous_run: changes?.previous_run ?? null,
     counts: changes?.counts ?? null,
     links: { run: `${base}/runs/${run.id}`, hotspots: `${base}/runs/${run.id}/hotspots`, changes: `${base}/changes?to=${run.id}` },

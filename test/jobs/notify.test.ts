@@ -171,11 +171,12 @@ describe('notices after stored runs', () => {
     expect(reports.map((x) => x.delivered)).toEqual([true, true]);
     expect(r.got).toHaveLength(2);
     const [first, second] = r.got.map((g) => JSON.parse(g.body) as Record<string, unknown>);
-    expect(first).toMatchObject({ event: 'run.finished', dataset: 'nests', run: { id: r1.id, status: 'succeeded', trigger: 'command', error: null }, previous_run: null, counts: null });
+    expect(first).toMatchObject({ event: 'run.finished', dataset: 'nests', run: { id: r1.id, status: 'succeeded', trigger: 'command', error: null }, hotspots: 1, previous_run: null, counts: null });
     expect(second).toEqual({
       event: 'run.finished',
       dataset: 'nests',
       run: { id: r2.id, status: 'succeeded', trigger: 'command', error: null },
+      hotspots: 2,
       previous_run: r1.id,
       counts: { emergence: 1, survival: 1, split: 0, absorption: 0, disappearance: 0 },
       links: {
