@@ -1,0 +1,50 @@
+import { describe, expect, it } from 'vitest';
+import { defaultHooks } from '../../src/jobs/default-hooks.js';
+import { runQuery, windowProblem, windowStart } from '../../src/jobs/execute.js';
+import { MAX_INTERRUPTIONS, Runner } from '../../src/jobs/runner.js';
+import { resolveSettings } from '../../src/run/settings.js';
+import { openSqliteStore } from '../../src/storage/sqlite.js';
+
+describe('crash recovery', () => {
+  it('queues interrupted runs again, and fails one interrupted MAX_INTERRUPTIONS times', async () => {
+    const store = openSqliteStore({ path: ':memory:' });
+    await store.migrate();
+    await store.createDataset({ id: 'd', name: 'd', settings: { eps: 10 }, idProperty: null, window: null, schedule: null, webhook: null });
+    const run = await store.createRun({ datasetId: 'd', settings: { eps: 10 }, trigger: 'request' });
+    const runner = new Runner({ store, hooks: defaultHooks(), concurrency: 1, storeConfig: null, pool: null });
+    for (let time = 1; time <= MAX_INTERRUPTIONS; time++) {
+      expect((await store.claimNextRun('dead-process'))!.id).toBe(run.id);
+      const { requeued, failed } = await runner.recover();
+      const now = (await store.getRun('d', run.id))!;
+      if (time < MAX_INTERRUPTIONS) {
+        expect(requeued).toEqual([run.id]);
+        expect(now.status).toBe('queued');
+        expect(now.error).toMatch(new RegExp(`^interrupted ${time} time`));
+      } else {
+        expect(failed).toEqual([run.id]);
+        expect(now.status).toBe('failed');
+        expect(now.error).toMatch(/not tried again/);
+      }
+    }
+    await store.close();
+  });
+});
+
+describe('time windows', () => {
+  it('steps back calendar months and years, and days, weeks and hours by their length', () => {
+    const end = Date.parse('2026-03-31T12:00:00Z');
+    expect(new Date(windowStart('P30D', end)).toISOString()).toBe('2026-03-01T12:00:00.000Z');
+    expect(new Date(windowStart('P2W', end)).toISOString()).toBe('2026-03-17T12:00:00.000Z');
+    expect(new Date(windowStart('PT12H', end)).toISOString()).toBe('2026-03-31T00:00:00.000Z');
+    expect(new Date(windowStart('P1Y', end)).toISOString()).toBe('2025-03-31T12:00:00.000Z');
+    expect(new Date(windowStart('P1DT1.5S', end)).toISOString()).toBe('2026-03-30T11:59:58.500Z');
+    for (const bad of ['P', 'PT', '30D', 'P1.5D', 'P-1D', 'P30d']) expect(windowProblem(bad), bad).not.toBeNull();
+  });
+
+  it('narrows the window with since, until and where', () => {
+    const created = Date.parse('2026-05-01T00:00:00Z');
+    const s = resolveSettings({ eps: 10, since: '2026-04-20T00:00:00Z', where: 'plant=balsam' });
+    expect(runQuery(s, 'P30D', created)).toEqual({ from: Date.parse('2026-04-20T00:00:00Z'), to: created, where: [{ property: 'plant', value: 'balsam' }] });
+    expect(runQuery(resolveSettings({ eps: 10 }), null, created)).toEqual({});
+  });
+});
