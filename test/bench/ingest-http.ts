@@ -1,0 +1,114 @@
+/**
+ * Benchmark (not a test): observations per second stored over HTTP in batches of 1,000
+ * (POST /v1/datasets/{id}/observations on a listening server, one client, sequential posts), on
+ * SQLite and on PostgreSQL; then the time to load N stored observations into a run
+ * (store.loadForRun) and to execute a whole stored run. Seeded data; figures printed as a
+ * Markdown table for test/bench/ingest-http-results.md.
+ *
+ *   node --import tsx test/bench/ingest-http.ts [httpObservations=50000] [loadObservations=1000000]
+ */
+import { mkdtempSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import pg from 'pg';
+import { buildApp } from '../../src/http/app.js';
+import { resolveConfig } from '../../src/http/config.js';
+import { openStore, type StoreConfig } from '../../src/storage/index.js';
+import type { ObservationRecord, Store } from '../../src/storage/store.js';
+import { contentHash } from '../../src/ingest/records.js';
+import { seeded } from '../http/helper.js';
+
+const HTTP_N = Number(process.argv[2] ?? 50_000);
+const LOAD_N = Number(process.argv[3] ?? 1_000_000);
+const BATCH = 1000;
+const PG_URL = process.env.DATABASE_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
+
+function featureText(i: number, rnd: () => number): string {
+  const lon = 8.5 + (rnd() - 0.5) * 0.4;
+  const lat = 47.3 + (rnd() - 0.5) * 0.4;
+  return `{"type":"Feature","id":"o${i}","geometry":{"type":"Point","coordinates":[${lon.toFixed(7)},${lat.toFixed(7)}]},"properties":{"observed_at":"2026-04-${String(1 + (i % 28)).padStart(2, '0')}T12:00:00Z","plant":"${i % 3 ? 'balsam' : 'knotweed'}","stems":${1 + (i % 5)}}}`;
+}
+
+async function httpIngest(label: string, storeConfig: StoreConfig, store: Store): Promise<string> {
+  const app = await buildApp({ config: resolveConfig({ port: 0, workers: 1, logLevel: 'silent', maxEventLoopDelayMs: 0 }, {}), logger: false, store, storeConfig });
+  const url = await app.listen({ port: 0, host: '127.0.0.1' });
+  await fetch(`${url}/v1/datasets`, { method: 'POST', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ id: 'bench', settings: { eps: 50 } }) });
+  const rnd = seeded(42);
+  const bodies: string[] = [];
+  for (let b = 0; b < HTTP_N / BATCH; b++) {
+    const fs: string[] = [];
+    for (let i = 0; i < BATCH; i++) fs.push(featureText(b * BATCH + i, rnd));
+    bodies.push(`{"type":"FeatureCollection","features":[${fs.join(',')}]}`);
+  }
+  const t0 = performance.now();
+  for (const body of bodies) {
+    const res = await fetch(`${url}/v1/datasets/bench/observations`, { method: 'POST', headers: { 'content-type': 'application/geo+json' }, body });
+    if (res.status !== 200) throw new Error(`${res.status} ${await res.text()}`);
+    await res.arrayBuffer();
+  }
+  const s = (performance.now() - t0) / 1000;
+  await app.close();
+  return `| ${label} | HTTP ingest, batches of ${BATCH} | ${HTTP_N} | ${s.toFixed(2)} s | ${Math.round(HTTP_N / s)} obs/s |`;
+}
+
+async function loadAndRun(label: string, store: Store): Promise<string[]> {
+  await store.createDataset({ id: 'load', name: 'load', settings: { eps: 250, min_points: 5 }, idProperty: null, window: null, schedule: null, webhook: null });
+  const rnd = seeded(7);
+  for (let b = 0; b < LOAD_N; b += 10_000) {
+    const recs: ObservationRecord[] = [];
+    for (let i = b; i < Math.min(LOAD_N, b + 10_000); i++) {
+      const text = featureText(i, rnd);
+      const c = /coordinates":\[([^,]+),([^\]]+)\]/.exec(text)!;
+      recs.push({ id: `o${i}`, lon: Number(c[1]), lat: Number(c[2]), observedAt: Date.parse(`2026-04-${String(1 + (i % 28)).padStart(2, '0')}T12:00:00Z`), weight: null, feature: text, contentHash: contentHash(text) });
+    }
+    await store.ingest('load', recs, { replace: false, partial: false });
+  }
+  const rows: string[] = [];
+  for (let k = 0; k < 2; k++) {
+    const t0 = performance.now();
+    const input = await store.loadForRun('load');
+    const s = (performance.now() - t0) / 1000;
+    rows.push(`| ${label} | loadForRun (${k === 0 ? 'first' : 'second'}) | ${input.ids.length} | ${s.toFixed(2)} s | ${Math.round(input.ids.length / s)} obs/s |`);
+  }
+  return rows;
+}
+
+const out: string[] = ['| store | what | observations | time | rate |', '| --- | --- | --- | --- | --- |'];
+const dir = mkdtempSync(join(tmpdir(), 'roost-bench-'));
+try {
+  const sqliteConfig: StoreConfig = { sqlitePath: join(dir, 'bench.db') };
+  const sqlite = await openStore(sqliteConfig);
+  out.push(await httpIngest('SQLite', sqliteConfig, sqlite));
+  console.log(out.at(-1));
+  const sqlite2 = await openStore({ sqlitePath: join(dir, 'load.db') });
+  for (const r of await loadAndRun('SQLite', sqlite2)) out.push(r), console.log(r);
+  await sqlite2.close();
+
+  let reachable = true;
+  const c = new pg.Client({ connectionString: PG_URL, connectionTimeoutMillis: 3000 });
+  try {
+    await c.connect();
+  } catch (e) {
+    reachable = false;
+    out.push(`| PostgreSQL | skipped: ${(e as Error).message} | | | |`);
+  }
+  if (reachable) {
+    const schema = `roost_bench_${process.pid}`;
+    const pgConfig: StoreConfig = { databaseUrl: PG_URL, pgSchema: schema };
+    try {
+      const store = await openStore(pgConfig);
+      out.push(await httpIngest('PostgreSQL', pgConfig, store));
+      console.log(out.at(-1));
+      const store2 = await openStore({ databaseUrl: PG_URL, pgSchema: `${schema}_load` });
+      for (const r of await loadAndRun('PostgreSQL', store2)) out.push(r), console.log(r);
+      await store2.close();
+    } finally {
+      await c.query(`DROP SCHEMA IF EXISTS ${schema} CASCADE`);
+      await c.query(`DROP SCHEMA IF EXISTS ${schema}_load CASCADE`);
+      await c.end();
+    }
+  }
+} finally {
+  rmSync(dir, { recursive: true, force: true });
+}
+console.log(`\nNode ${process.version}\n\n${out.join('\n')}`);
