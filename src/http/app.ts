@@ -16,7 +16,9 @@ import { DEFAULT_CONFIG, type ServerConfig } from './config.js';
 import { HttpProblem, PROBLEM_MEDIA_TYPE } from './errors.js';
 import { createWorkPool, QueueFullError, type WorkPool } from './pool.js';
 import { LAYERS, type Layer, type WorkTask } from './work.js';
-import { defaultHooks } from '../jobs/default-hooks.js';
+import { createRoostHooks } from '../jobs/run-hooks.js';
+import { Scheduler } from '../jobs/schedule.js';
+import { registerChangeRoutes } from './routes/changes.js';
 import type { RunHooks } from '../jobs/hooks.js';
 import { createJobPool } from '../jobs/job-pool.js';
 import { Runner } from '../jobs/runner.js';
@@ -307,9 +309,10 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
       : { databaseUrl: config.databaseUrl || null, sqlitePath: config.dbPath };
   const store = options.store ?? (await openStore({ databaseUrl: config.databaseUrl || null, sqlitePath: config.dbPath }));
   const jobs = createJobPool(config.runConcurrency);
+  const serviceHooks = options.hooks ? null : createRoostHooks({ webhook: { attempts: config.webhookAttempts, timeoutMs: config.webhookTimeoutMs }, publicUrl: config.publicUrl || null, log: app.log });
   const runner = new Runner({
     store,
-    hooks: options.hooks ?? defaultHooks(),
+    hooks: options.hooks ?? serviceHooks!,
     concurrency: config.runConcurrency,
     storeConfig,
     pool: storeConfig === null ? null : jobs,
@@ -317,15 +320,23 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   });
   app.decorate('datasets', { store, runner, jobs } satisfies DatasetServices);
   await runner.recover();
-  app.addHook('onReady', async () => runner.start());
+  const scheduler = config.scheduleScanMs > 0 ? new Scheduler({ store, settings: { scanMs: config.scheduleScanMs }, onRun: () => runner.wake(), log: app.log }) : null;
+  app.addHook('onReady', async () => {
+    runner.start();
+    scheduler?.start();
+  });
   app.addHook('onClose', async () => {
+    await scheduler?.stop();
     await runner.close();
+    // notices still waiting for a retry are given up (and logged) rather than holding the shutdown
+    await serviceHooks?.close();
     await jobs.close();
     await store.close();
   });
   registerDatasetRoutes(app, app.datasets);
   registerObservationRoutes(app, app.datasets);
   registerRunRoutes(app, app.datasets);
+  registerChangeRoutes(app, { store });
 
   // Registered last so the slow start-up above does not count as event-loop delay.
   await app.register(underPressure, {

@@ -35,6 +35,14 @@ export interface ServerConfig {
   databaseUrl: string;
   /** stored runs executed at once by this process */
   runConcurrency: number;
+  /** longest time between two looks at the datasets' schedules, milliseconds; 0 turns scheduled runs off in this process */
+  scheduleScanMs: number;
+  /** attempts to deliver one notice of change, the first included */
+  webhookAttempts: number;
+  /** time allowed for one notice delivery attempt, milliseconds */
+  webhookTimeoutMs: number;
+  /** the service's address as clients see it (for example https://roost.example.org), for absolute links in notices; '' gives paths */
+  publicUrl: string;
 }
 
 /**
@@ -59,6 +67,11 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   databaseUrl: '',
   // one run at a time leaves the other core to requests on a 2-core machine
   runConcurrency: 1,
+  // see src/jobs/schedule.ts and src/jobs/notify.ts for the reasons behind these
+  scheduleScanMs: 60_000,
+  webhookAttempts: 5,
+  webhookTimeoutMs: 10_000,
+  publicUrl: '',
 });
 
 /** One option: its config key, command-line flag, environment variable, kind and help text. */
@@ -87,6 +100,10 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'dbPath', flag: '--db', env: 'ROOST_DB_PATH', kind: 'string', help: 'SQLite file for datasets, observations and runs' },
   { key: 'databaseUrl', flag: '--database-url', env: 'DATABASE_URL', kind: 'string', help: 'postgres:// URL of a shared database (instead of the SQLite file)' },
   { key: 'runConcurrency', flag: '--runs', env: 'ROOST_RUNS', kind: 'integer', help: 'stored runs executed at once by this process' },
+  { key: 'scheduleScanMs', flag: '--schedule-scan-ms', env: 'ROOST_SCHEDULE_SCAN_MS', kind: 'integer', help: 'longest time between looks at dataset schedules, milliseconds (0 = no scheduled runs in this process)' },
+  { key: 'webhookAttempts', flag: '--webhook-attempts', env: 'ROOST_WEBHOOK_ATTEMPTS', kind: 'integer', help: 'attempts to deliver a notice of change (back-off doubling from 2 s)' },
+  { key: 'webhookTimeoutMs', flag: '--webhook-timeout-ms', env: 'ROOST_WEBHOOK_TIMEOUT_MS', kind: 'integer', help: 'time allowed for one notice delivery attempt, milliseconds' },
+  { key: 'publicUrl', flag: '--public-url', env: 'ROOST_PUBLIC_URL', kind: 'string', help: 'address clients use to reach the service, for absolute links in notices' },
 ];
 
 const LEVELS = new Set(['fatal', 'error', 'warn', 'info', 'debug', 'trace', 'silent']);
@@ -155,6 +172,10 @@ function check(config: ServerConfig): ServerConfig {
   atLeast('maxEventLoopDelayMs', 0);
   atLeast('retryAfterS', 0);
   atLeast('runConcurrency', 1);
+  atLeast('scheduleScanMs', 0);
+  atLeast('webhookAttempts', 1);
+  atLeast('webhookTimeoutMs', 1);
+  if (config.publicUrl !== '' && !/^https?:\/\/[^/]/i.test(config.publicUrl)) throw new ConfigError(`${spec('publicUrl')}: must be an http:// or https:// address`);
   if (config.databaseUrl !== '' && !/^postgres(ql)?:\/\//i.test(config.databaseUrl)) throw new ConfigError(`${spec('databaseUrl')}: must start with postgres:// or postgresql://`);
   return config;
 }

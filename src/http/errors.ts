@@ -21,6 +21,8 @@ export const PROBLEMS = {
   'dataset-not-found': { status: 404, title: 'No such dataset' },
   'observation-not-found': { status: 404, title: 'No such observation in this dataset' },
   'run-not-found': { status: 404, title: 'No such run in this dataset' },
+  'track-not-found': { status: 404, title: 'No such track in this dataset' },
+  'no-earlier-run': { status: 404, title: 'There is no earlier succeeded run to compare with' },
   'dataset-exists': { status: 409, title: 'A dataset with this id exists' },
   'observation-conflict': { status: 409, title: 'Observations with these ids are stored with other content' },
   'run-not-ready': { status: 409, title: 'The run has no result' },

@@ -1,0 +1,200 @@
+/**
+ * What changed between two runs of a dataset, and the history of one track.
+ *
+ * GET /v1/datasets/{id}/changes?from=<run>&to=<run>: `to` defaults to the latest succeeded run,
+ * `from` to the succeeded run before `to`. JSON by default; GeoJSON with `?format=geojson` or
+ * `Accept: application/geo+json`: the hulls of the `to` run's hotspots with the transition that
+ * led to each, and the hulls (from the `from` run) of the hotspots that disappeared. The
+ * transitions are computed from the two stored runs with the service's track settings, so for the
+ * default pair they are what the later run recorded in its summary, and any two runs can be
+ * compared; track ids are those the runs were stored with.
+ *
+ * GET /v1/datasets/{id}/tracks/{track}: one entry per run the track was seen in, oldest first.
+ */
+import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
+import { bboxOf, featureCollectionString, featureString, type GeometryLike } from '../../geometry/geojson.js';
+import { compareStoredRuns, type TransitionJson } from '../../jobs/tracking.js';
+import type { Run, RunHotspot, Store } from '../../storage/store.js';
+import { resolveTrackSettings, type TrackSettings } from '../../tracks/settings.js';
+import { HttpProblem } from '../errors.js';
+import { requireDataset, requireRun } from './common.js';
+
+export interface ChangeRouteOptions {
+  store: Store;
+  /** thresholds used to compare runs; default DEFAULT_TRACK_SETTINGS (keep equal to the run hooks') */
+  trackSettings?: Partial<TrackSettings>;
+}
+
+const GEOJSON = 'application/geo+json';
+
+function only(query: Record<string, unknown>, allowed: string[]): void {
+  for (const k of Object.keys(query)) {
+    if (!allowed.includes(k)) throw new HttpProblem('invalid-parameter', `unknown query parameter ${JSON.stringify(k)}; this endpoint reads ${allowed.join(', ')}`, { parameter: k });
+  }
+}
+
+function wantsGeoJson(request: FastifyRequest, query: Record<string, unknown>): boolean {
+  const format = query['format'];
+  if (format !== undefined) {
+    if (format === 'geojson') return true;
+    if (format === 'json') return false;
+    throw new HttpProblem('invalid-parameter', `format must be json or geojson, got ${JSON.stringify(format)}`, { parameter: 'format' });
+  }
+  return (request.headers.accept ?? '').toLowerCase().includes(GEOJSON);
+}
+
+function runParam(query: Record<string, unknown>, name: string): string | undefined {
+  const v = query[name];
+  if (v === undefined || v === '') return undefined;
+  if (typeof v !== 'string') throw new HttpProblem('invalid-parameter', `${name} must be one run id such as r000012`, { parameter: name });
+  return v;
+}
+
+/** The figures of a stored hotspot the change views show. */
+function figures(h: RunHotspot | undefined): Record<string, unknown> {
+  const f = h?.figures ?? {};
+  return { count: f['count'] ?? h?.members.length ?? null, area_km2: f['area_km2'] ?? null, density_per_km2: f['density_per_km2'] ?? null, centre: f['centre'] ?? null };
+}
+
+/** A transition with the figures of the hotspots at both ends. */
+function withFigures(t: TransitionJson, from: Map<number, RunHotspot>, to: Map<number, RunHotspot>): Record<string, unknown> {
+  return {
+    ...t,
+    from: t.from.map((e) => ({ ...e, ...figures(from.get(e.hotspot_id)) })),
+    to: t.to.map((e) => ({ ...e, ...figures(to.get(e.hotspot_id)) })),
+  };
+}
+
+function runRef(r: Run): Record<string, unknown> {
+  return { id: r.id, created_at: r.createdAt, finished_at: r.finishedAt, trigger: r.trigger };
+}
+
+export function registerChangeRoutes(app: FastifyInstance, options: ChangeRouteOptions): void {
+  const { store } = options;
+  const settings = resolveTrackSettings(options.trackSettings);
+
+  const succeeded = async (datasetId: string, runId: string, name: string): Promise<Run> => {
+    const run = await requireRun(store, datasetId, runId);
+    if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} (${name}) is ${run.status}; only succeeded runs have hotspots to compare`, { parameter: name });
+    return run;
+  };
+
+  app.get<{ Params: { id: string } }>('/v1/datasets/:id/changes', async (request, reply: FastifyReply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    only(query, ['from', 'to', 'format']);
+    const geo = wantsGeoJson(request, query);
+    const dataset = await requireDataset(store, request.params.id);
+    const toId = runParam(query, 'to');
+    const fromId = runParam(query, 'from');
+    const base = `/v1/datasets/${dataset.id}`;
+
+    let to: Run;
+    if (toId !== undefined) to = await succeeded(dataset.id, toId, 'to');
+    else {
+      const latest = await store.latestRun(dataset.id);
+      if (latest === null) throw new HttpProblem('run-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet; POST ${base}/runs starts one`);
+      to = latest;
+    }
+    let from: Run;
+    if (fromId !== undefined) {
+      from = await succeeded(dataset.id, fromId, 'from');
+      // run ids follow creation order
+      if (Number(from.id.slice(1)) >= Number(to.id.slice(1))) {
+        throw new HttpProblem('invalid-parameter', `from (${from.id}) must be a run created before to (${to.id})`, { parameter: 'from' });
+      }
+    } else {
+      const previous = await store.latestRun(dataset.id, 'succeeded', to.id);
+      if (previous === null) throw new HttpProblem('no-earlier-run', `run ${to.id} is the first succeeded run of dataset ${JSON.stringify(dataset.id)}; there is nothing to compare it with yet`);
+      from = previous;
+    }
+
+    let c;
+    try {
+      c = await compareStoredRuns(store, from.id, to.id, settings);
+    } catch (err) {
+      if (err instanceof Error && /has no centre and area figures/.test(err.message)) throw new HttpProblem('run-not-ready', err.message);
+      throw err;
+    }
+    const fromById = new Map(c.from.map((h) => [h.hotspotId, h]));
+    const toById = new Map(c.to.map((h) => [h.hotspotId, h]));
+
+    if (!geo) {
+      return {
+        dataset: dataset.id,
+        from: runRef(from),
+        to: runRef(to),
+        counts: c.counts,
+        member_share: c.memberShare,
+        track_settings: { survival_threshold: settings.survivalThreshold, split_threshold: settings.splitThreshold, hull_overlap_fallback: settings.hullOverlapFallback, min_member_overlap_share: settings.minMemberOverlapShare },
+        transitions: c.transitions.map((t) => withFigures(t, fromById, toById)),
+        links: { from: `${base}/runs/${from.id}`, to: `${base}/runs/${to.id}`, geojson: `${base}/changes?from=${from.id}&to=${to.id}&format=geojson` },
+      };
+    }
+
+    const features: string[] = [];
+    const geometries: GeometryLike[] = [];
+    const add = (h: RunHotspot, run: Run, t: TransitionJson, extra: Record<string, unknown>): void => {
+      const g = JSON.parse(h.hull) as GeometryLike;
+      geometries.push(g);
+      features.push(
+        featureString(g, {
+          transition: t.kind,
+          run_id: run.id,
+          hotspot_id: h.hotspotId,
+          track_id: h.trackId,
+          ...figures(h),
+          ...extra,
+        }, `${run.id}-${h.hotspotId}`),
+      );
+    };
+    for (const t of c.transitions) {
+      if (t.kind === 'disappearance') {
+        add(fromById.get(t.from[0]!.hotspot_id)!, from, t, { from_track_ids: [t.from[0]!.track_id] });
+        continue;
+      }
+      t.to.forEach((e, k) => {
+        const extra: Record<string, unknown> = { from_track_ids: t.from.map((f) => f.track_id), basis: t.basis };
+        if (t.kind === 'split') extra['overlap'] = t.overlap[k];
+        else if (t.kind !== 'emergence') extra['overlap'] = t.overlap;
+        if (t.change) Object.assign(extra, t.change);
+        add(toById.get(e.hotspot_id)!, to, t, extra);
+      });
+    }
+    const text = featureCollectionString(features, bboxOf(geometries), { dataset: dataset.id, from_run: from.id, to_run: to.id, counts: c.counts });
+    return reply.type(GEOJSON).send(text);
+  });
+
+  app.get<{ Params: { id: string; track: string } }>('/v1/datasets/:id/tracks/:track', async (request) => {
+    only((request.query ?? {}) as Record<string, unknown>, []);
+    const dataset = await requireDataset(store, request.params.id);
+    const points = await store.getTrack(dataset.id, request.params.track);
+    if (points.length === 0) throw new HttpProblem('track-not-found', `dataset ${JSON.stringify(dataset.id)} has no track ${JSON.stringify(request.params.track)}; the changes and hotspot layers name the tracks`);
+    const runs = new Map<string, Run>();
+    for (const p of points) if (!runs.has(p.runId)) runs.set(p.runId, (await store.getRun(dataset.id, p.runId))!);
+    const latest = await store.latestRun(dataset.id);
+    const base = `/v1/datasets/${dataset.id}`;
+    return {
+      dataset: dataset.id,
+      track_id: request.params.track,
+      active: latest !== null && points.some((p) => p.runId === latest.id),
+      history: points.map((p) => {
+        const run = runs.get(p.runId)!;
+        const changes = run.summary?.['changes'] as { transitions?: TransitionJson[] } | null | undefined;
+        const how = changes?.transitions?.find((t) => t.to.some((e) => e.hotspot_id === p.hotspotId));
+        const f = p.figures ?? {};
+        return {
+          run_id: p.runId,
+          run_created_at: run.createdAt,
+          run_finished_at: run.finishedAt,
+          hotspot_id: p.hotspotId,
+          count: f['count'] ?? p.memberCount,
+          area_km2: f['area_km2'] ?? null,
+          density_per_km2: f['density_per_km2'] ?? null,
+          centre: f['centre'] ?? null,
+          transition: how?.kind ?? null,
+          hotspots: `${base}/runs/${p.runId}/hotspots`,
+        };
+      }),
+    };
+  });
+}
