@@ -15,7 +15,7 @@ import { rng } from '../reference/seeded.js';
 
 /** A test configuration: one worker, no load shedding by event-loop delay (tests block the loop). */
 export function testConfig(overrides: Partial<Record<keyof ServerConfig, unknown>> = {}): ServerConfig {
-  return resolveConfig({ workers: 1, queueSize: 4, maxEventLoopDelayMs: 0, logLevel: 'silent', ...overrides }, {});
+  return resolveConfig({ workers: 1, queueSize: 4, maxEventLoopDelayMs: 0, logLevel: 'silent', dbPath: ':memory:', ...overrides }, {});
 }
 
 export async function testApp(overrides: Partial<Record<keyof ServerConfig, unknown>> = {}): Promise<FastifyInstance> {

@@ -71,12 +71,16 @@ describe('service routes', () => {
     const documented = new Set<string>();
     for (const [path, item] of Object.entries(spec.paths)) for (const m of Object.keys(item)) documented.add(`${m.toUpperCase()} ${path}`);
     // the documentation page's own helpers (/docs/json, /docs/static/…) belong to the page, not the API
-    const served = routes.filter((r) => !r.url.startsWith('/docs/')).map((r) => `${r.method} ${r.url}`);
+    // Fastify writes path parameters as :name, OpenAPI as {name}
+    const served = routes.filter((r) => !r.url.startsWith('/docs/')).map((r) => `${r.method} ${r.url.replace(/:(\w+)/g, '{$1}')}`);
     expect(new Set(served)).toEqual(documented);
     for (const key of documented) {
-      const [method, url] = key.split(' ') as ['GET' | 'POST', string];
+      const [method, template] = key.split(' ') as ['GET' | 'POST' | 'PATCH' | 'DELETE', string];
+      // templated paths are asked for with made-up ids: a not-found problem naming the missing
+      // resource is a served route; the router's own not-found is not
+      const url = template.replace(/\{(\w+)\}/g, (_m, name: string) => (name === 'layer' ? 'hotspots' : `no-such-${name}`));
       const res = await app.inject({ method, url, headers: method === 'POST' ? GEOJSON : {}, payload: method === 'POST' ? small : undefined });
-      expect(res.statusCode, key).not.toBe(404);
+      if (res.statusCode === 404) expect(res.json().code, key).not.toBe('not-found');
     }
   });
 
