@@ -69,6 +69,7 @@ function runRef(r: Run): Record<string, unknown> {
   return { id: r.id, created_at: r.createdAt, finished_at: r.finishedAt, trigger: r.trigger };
 }
 
+/** Adds GET /v1/datasets/{id}/changes and GET /v1/datasets/{id}/tracks/{track}. Throws a RangeError for bad track settings. */
 export function registerChangeRoutes(app: FastifyInstance, options: ChangeRouteOptions): void {
   const { store } = options;
   const settings = resolveTrackSettings(options.trackSettings);
