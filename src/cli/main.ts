@@ -12,6 +12,7 @@ import { clusterInput, LAYER_NAMES, suggestEpsInput, type InputFormat, type Stag
 import { resolveSettings, SettingsError } from '../run/settings.js';
 import { ROOST_VERSION } from '../run/version.js';
 import { writeResultFolder } from './output.js';
+import { reclusterCommand } from './recluster.js';
 import { serveCommand } from './serve.js';
 
 /** Exit codes: 0 done, 1 unexpected failure, 2 bad usage or settings, 3 bad input data. */
@@ -193,6 +194,7 @@ export function buildProgram(setExit: (code: number) => void): Command {
     });
 
   program.addCommand(serveCommand(setExit));
+  program.addCommand(reclusterCommand(setExit));
 
   return program;
 }

@@ -20,11 +20,11 @@ describe('server configuration', () => {
     expect(resolveConfig({ port: '9100', workers: 2 }, env)).toMatchObject({ port: 9100, host: '0.0.0.0', workers: 2 });
   });
 
-  it('every option has a distinct flag and ROOST_ variable', () => {
+  it('every option has a distinct flag and ROOST_ variable (DATABASE_URL keeps its usual name)', () => {
     expect(new Set(OPTIONS.map((o) => o.flag)).size).toBe(OPTIONS.length);
     expect(new Set(OPTIONS.map((o) => o.env)).size).toBe(OPTIONS.length);
     expect(new Set(OPTIONS.map((o) => o.key))).toEqual(new Set(Object.keys(DEFAULT_CONFIG)));
-    for (const o of OPTIONS) expect(o.env).toMatch(/^ROOST_[A-Z_]+$/);
+    for (const o of OPTIONS) expect(o.env).toMatch(o.key === 'databaseUrl' ? /^DATABASE_URL$/ : /^ROOST_[A-Z_]+$/);
   });
 
   it('sizes take binary units', () => {

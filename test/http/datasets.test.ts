@@ -61,6 +61,8 @@ describe('/v1/datasets', () => {
       [{ id: 'x5', settings: { eps: 10 }, colour: 'red' }, 'colour'],
       [{ id: 'x6', settings: { eps: 10 }, webhook: { url: 'ftp://x', secret: 'k' } }, 'webhook'],
       [{ id: 'x7', settings: { eps: 10 }, schedule: { cron: '0 2 * * *' } }, 'schedule'],
+      [{ id: 'x8', settings: { eps: 10 }, schedule: { cron: '0 2 * * *', timezone: 'Mars/Olympus' } }, 'schedule'],
+      [{ id: 'x9', settings: { eps: 10 }, schedule: { cron: 'every night', timezone: 'UTC' } }, 'schedule'],
     ];
     for (const [body, parameter] of cases) {
       const res = await post(body);

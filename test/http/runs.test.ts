@@ -62,7 +62,7 @@ async function endToEnd(app: FastifyInstance, dataset: string): Promise<void> {
   expectMatchesSpec(stored, '/v1/datasets/{id}/runs/{run}/{layer}', 'GET');
   const hotspots = JSON.parse(stored.body) as { features: { properties: { track_id: string; hotspot_id: number } }[] };
   expect(hotspots.features.length).toBeGreaterThan(0);
-  for (const f of hotspots.features) expect(f.properties.track_id).toBe(`t${String(run.id)}-${f.properties.hotspot_id}`);
+  for (const f of hotspots.features) expect(f.properties.track_id).toMatch(/^t\d{6}$/);
   expect(withoutTracks(stored.body)).toBe(cluster.body);
   for (const layer of ['centres', 'noise', 'points']) {
     const c = await app.inject({ method: 'POST', url: `/v1/cluster?eps=60&min_points=5&count_by=kind&layer=${layer}`, headers: GEO, payload: data });

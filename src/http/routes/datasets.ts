@@ -5,6 +5,7 @@
  */
 import type { FastifyInstance } from 'fastify';
 import { windowProblem } from '../../jobs/execute.js';
+import { scheduleProblem } from '../../jobs/schedule.js';
 import { resolveSettings } from '../../run/settings.js';
 import { StoreError, type DatasetPatch, type NewDataset } from '../../storage/store.js';
 import { HttpProblem } from '../errors.js';
@@ -61,6 +62,8 @@ function readFields(doc: Record<string, unknown>): DatasetPatch & { id?: string 
       bad('schedule', 'must be {"cron": "0 2 * * *", "timezone": "Europe/Zurich"} or null');
     }
     out.schedule = s === null ? null : { cron: s.cron as string, timezone: s.timezone as string };
+    const problem = out.schedule === null ? null : scheduleProblem(out.schedule);
+    if (problem !== null) bad('schedule', problem);
   }
   if (doc.webhook !== undefined) {
     const w = doc.webhook as Record<string, unknown> | null;
