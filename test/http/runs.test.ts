@@ -11,10 +11,9 @@ import pg from 'pg';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { buildApp } from '../../src/http/app.js';
 import { openStore, type StoreConfig } from '../../src/storage/index.js';
+import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
 import { expectMatchesSpec, pointsCollection, testConfig } from './helper.js';
 
-/** The CI database (trust auth on this machine), or DATABASE_URL when it names PostgreSQL. */
-const TEST_DATABASE_URL = process.env.DATABASE_URL !== undefined && /^postgres(ql)?:\/\//.test(process.env.DATABASE_URL) ? process.env.DATABASE_URL : 'postgres://postgres@127.0.0.1:5432/test';
 const GEO = { 'content-type': 'application/geo+json' };
 const JSON_TYPE = { 'content-type': 'application/json' };
 const dir = mkdtempSync(join(tmpdir(), 'roost-runs-'));
@@ -174,17 +173,7 @@ describe('runs on a SQLite file (worker threads)', () => {
   });
 });
 
-const pgReason = await (async () => {
-  const c = new pg.Client({ connectionString: TEST_DATABASE_URL, connectionTimeoutMillis: 3000 });
-  try {
-    await c.connect();
-    return null;
-  } catch (e) {
-    return `no PostgreSQL at ${TEST_DATABASE_URL.replace(/\/\/[^@]*@/, '//…@')}: ${(e as Error).message}`;
-  } finally {
-    await c.end().catch(() => undefined);
-  }
-})();
+const pgReason = await postgresSkipReason();
 
 describe.skipIf(pgReason !== null)(`runs on PostgreSQL${pgReason ? ` (skipped: ${pgReason})` : ''}`, () => {
   const schema = `roost_runs_${process.pid}`;

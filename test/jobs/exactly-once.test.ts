@@ -17,24 +17,12 @@ import { dueSlots } from '../../src/jobs/schedule.js';
 import { openPostgresStore } from '../../src/storage/postgres.js';
 import type { DatasetSchedule } from '../../src/storage/store.js';
 import { DATASET } from './helpers.js';
+import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
 
-const URL = process.env.DATABASE_URL !== undefined && /^postgres(ql)?:\/\//.test(process.env.DATABASE_URL) ? process.env.DATABASE_URL : 'postgres://postgres@127.0.0.1:5432/test';
+const URL = TEST_DATABASE_URL;
 const here = dirname(fileURLToPath(import.meta.url));
 
-async function reachable(url: string): Promise<string | null> {
-  const c = new pg.Client({ connectionString: url, connectionTimeoutMillis: 3000 });
-  try {
-    await c.connect();
-    await c.query('SELECT 1');
-    return null;
-  } catch (e) {
-    return `no PostgreSQL at ${url.replace(/\/\/[^@]*@/, '//…@')}: ${(e as Error).message}`;
-  } finally {
-    await c.end().catch(() => undefined);
-  }
-}
-
-const skipReason = await reachable(URL);
+const skipReason = await postgresSkipReason(URL);
 if (skipReason !== null) console.warn(`[jobs] exactly-once schedule test SKIPPED: ${skipReason}`);
 
 const SCHEMA = `roost_sched_${process.pid}`;

@@ -8,23 +8,13 @@ import { afterAll, describe, expect, it } from 'vitest';
 import { openPostgresStore } from '../../src/storage/postgres.js';
 import type { SqliteStore } from '../../src/storage/sqlite.js';
 import type { Store } from '../../src/storage/store.js';
+import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
 import { DATASET, tempStore } from './helpers.js';
 
-const URL = process.env.DATABASE_URL !== undefined && /^postgres(ql)?:\/\//.test(process.env.DATABASE_URL) ? process.env.DATABASE_URL : 'postgres://postgres@127.0.0.1:5432/test';
+const URL = TEST_DATABASE_URL;
 const SCHEMA = `roost_counter_${process.pid}`;
 
-async function reachable(): Promise<string | null> {
-  const c = new pg.Client({ connectionString: URL, connectionTimeoutMillis: 3000 });
-  try {
-    await c.connect();
-    return null;
-  } catch (e) {
-    return `no PostgreSQL at ${URL.replace(/\/\/[^@]*@/, '//…@')}: ${(e as Error).message}`;
-  } finally {
-    await c.end().catch(() => undefined);
-  }
-}
-const skipReason = await reachable();
+const skipReason = await postgresSkipReason();
 if (skipReason !== null) console.warn(`[jobs] PostgreSQL track counter migration test SKIPPED: ${skipReason}`);
 
 const HULL = '{"type":"Polygon","coordinates":[[[0,0],[0.001,0],[0,0.001],[0,0]]]}';
