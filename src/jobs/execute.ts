@@ -13,7 +13,7 @@ import { pointSet } from '../core/types.js';
 import { clusterObservations, type Stage } from '../run/cluster.js';
 import { resolveSettings, type ClusterSettings } from '../run/settings.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
-import type { Dataset, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
+import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
 import { StoreError } from '../storage/store.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
 
@@ -134,9 +134,8 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   await check();
 
   const n = input.ids.length;
-  const features = new Array<InputFeature>(n);
-  for (let i = 0; i < n; i++) features[i] = JSON.parse(input.features[i]!) as InputFeature;
-  input.features.length = 0;
+  const texts = input.features;
+  const features = lazyFeatures(texts);
   let weight: Float64Array | null = null;
   if (settings.weightProperty !== null) {
     // read from the features, so that a run may weigh by another property than the dataset's
@@ -169,6 +168,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
           },
           undefined,
           { source: 'stored', dataset: dataset.id, query: queryRecord(query) },
+          texts,
         );
   if (result === null) throw new Error(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window`);
   t = lap('cluster', t);
@@ -213,6 +213,25 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
     throw e;
   });
   return { summary, timings, hotspots: stored.length };
+}
+
+/**
+ * The stored features as an array whose items are parsed on first read. A run reads feature
+ * objects only for count_by, a weight property and the hotspots' medoids; the points and noise
+ * layers are written from the texts (clusterObservations' featureTexts), so most of a million
+ * features are never parsed.
+ */
+function lazyFeatures(texts: FeatureTexts): InputFeature[] {
+  const parsed: (InputFeature | undefined)[] = new Array(texts.length);
+  return new Proxy(parsed as InputFeature[], {
+    get(target, key, receiver) {
+      if (typeof key === 'string') {
+        const i = key.length > 0 && key.length < 16 && key.charCodeAt(0) >= 48 && key.charCodeAt(0) <= 57 ? Number(key) : NaN;
+        if (Number.isInteger(i) && i < texts.length && String(i) === key) return (target[i] ??= JSON.parse(texts.at(i) as string) as InputFeature);
+      }
+      return Reflect.get(target, key, receiver) as unknown;
+    },
+  });
 }
 
 function queryRecord(q: Omit<ObservationQuery, 'bbox'>): Record<string, unknown> {

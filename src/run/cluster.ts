@@ -15,6 +15,7 @@ import { hotspotFigures, resultFigures, type HotspotFigures } from '../geometry/
 import {
   bboxOf,
   bboxOfPositions,
+  coordText,
   featureCollectionChunks,
   featureCollectionString,
   featureString,
@@ -206,7 +207,7 @@ function hotspotProperties(f: HotspotFigures, features: InputFeature[]): Record<
  * The two members are appended to the properties' JSON text rather than to a copied object: a
  * million spread copies cost more than the whole clustering.
  */
-function pointFeature(f: InputFeature, hotspot: number, role: number): string {
+export function pointFeature(f: InputFeature, hotspot: number, role: number): string {
   const own = f.properties;
   const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"}`;
   let props: string;
@@ -220,8 +221,90 @@ function pointFeature(f: InputFeature, hotspot: number, role: number): string {
   return featureStringWithProperties({ type: 'Point', coordinates: f.geometry.coordinates }, props, f.id);
 }
 
+/** Index just past the JSON string starting (with its quote) at `i`. */
+function skipString(t: string, i: number): number {
+  for (let q = t.indexOf('"', i + 1); q !== -1; q = t.indexOf('"', q + 1)) {
+    let b = q - 1;
+    while (t.charCodeAt(b) === 92 /* \ */) b--;
+    if ((q - 1 - b) % 2 === 0) return q + 1;
+  }
+  return -1;
+}
+
+/** Index just past the JSON value starting at `i` (-1 when the text ends first). */
+function skipValue(t: string, i: number): number {
+  const c = t.charCodeAt(i);
+  if (c === 34) return skipString(t, i);
+  if (c !== 123 && c !== 91) {
+    let j = i;
+    for (let d = t.charCodeAt(j); j < t.length && d !== 44 && d !== 125 && d !== 93; d = t.charCodeAt(++j));
+    return j;
+  }
+  let depth = 0;
+  for (let j = i; j < t.length; ) {
+    const d = t.charCodeAt(j);
+    if (d === 34) {
+      j = skipString(t, j);
+      if (j < 0) return -1;
+      continue;
+    }
+    if (d === 123 || d === 91) depth++;
+    else if ((d === 125 || d === 93) && --depth === 0) return j + 1;
+    j++;
+  }
+  return -1;
+}
+
+const POINT_HEAD = '{"type":"Point","coordinates":[';
+
+/**
+ * pointFeature for a feature given as its canonical text (JSON.stringify of the parsed feature,
+ * as stored by datasets), byte for byte the same, without parsing the feature: the id and the
+ * properties are copied as text and only the coordinates are read as numbers. Texts the fast
+ * path does not cover (an id that is not a string or number, a geometry with other members,
+ * properties already holding `hotspot_id` or `role`) are parsed and go through pointFeature.
+ */
+export function pointFeatureFromText(text: string, hotspot: number, role: number): string {
+  let id = '';
+  let geometry = '';
+  let props = '';
+  let ok = text.charCodeAt(0) === 123;
+  for (let i = 1; ok && text.charCodeAt(i) !== 125; ) {
+    const keyEnd = skipString(text, i);
+    const end = keyEnd < 0 || text.charCodeAt(keyEnd) !== 58 ? -1 : skipValue(text, keyEnd + 1);
+    if (end < 0) ok = false;
+    else {
+      const key = text.slice(i, keyEnd);
+      if (key === '"id"') id = text.slice(keyEnd + 1, end);
+      else if (key === '"geometry"') geometry = text.slice(keyEnd + 1, end);
+      else if (key === '"properties"') props = text.slice(keyEnd + 1, end);
+      i = text.charCodeAt(end) === 44 ? end + 1 : end;
+    }
+  }
+  const idOk = id === '' || id.charCodeAt(0) === 34 || Number.isFinite(Number(id));
+  const propsOk = props === '' || props === 'null' || (props.charCodeAt(0) === 123 && !props.includes('"hotspot_id"') && !props.includes('"role"'));
+  if (!ok || !idOk || !propsOk || !geometry.startsWith(POINT_HEAD) || !geometry.endsWith(']}') || geometry.includes('[', POINT_HEAD.length)) {
+    return pointFeature(JSON.parse(text) as InputFeature, hotspot, role);
+  }
+  const coords = geometry.slice(POINT_HEAD.length, -2).split(',');
+  if (coords.length < 2) return pointFeature(JSON.parse(text) as InputFeature, hotspot, role);
+  let position = '[';
+  for (let k = 0; k < coords.length; k++) position += (k ? ',' : '') + coordText(Number(coords[k]));
+  const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"}`;
+  const properties = props === '' || props === 'null' || props === '{}' ? '{' + added : props.slice(0, -1) + ',' + added;
+  return `{"type":"Feature"${id === '' ? '' : ',"id":' + id},"geometry":{"type":"Point","coordinates":${position}]},"properties":${properties}}`;
+}
+
+/** Canonical feature texts by input position (see pointFeatureFromText). */
+export interface FeatureTextSource {
+  at(index: number): string | undefined;
+}
+
 /**
  * Clusters observations already read. `inputInfo` lands in the summary (format, counts).
+ * `featureTexts`, when given, holds the canonical text of every input feature (by position in
+ * `all`); the points and noise layers are then written from those texts (same bytes, no
+ * re-serialising), and `all.features` is read only for count_by, weights and medoid ids.
  */
 export function clusterObservations(
   all: Observations,
@@ -229,6 +312,7 @@ export function clusterObservations(
   hooks: ClusterHooks = {},
   timer: Timer = new Timer(hooks),
   inputInfo: Record<string, unknown> = {},
+  featureTexts?: FeatureTextSource,
 ): ClusterResult {
   const filtered = applyFilter(all, { since: settings.since, until: settings.until, where: settings.where });
   const obs = filtered.observations;
@@ -302,10 +386,11 @@ export function clusterObservations(
     }
   }
   const { labels, roles } = clustering;
+  const kept = filtered.kept;
   function* pointFeatures(noiseOnly: boolean): Generator<string> {
     for (let i = 0; i < points.n; i++) {
       if (noiseOnly && labels[i] >= 0) continue;
-      yield pointFeature(features[i], labels[i], roles[i]);
+      yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i]) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i]);
     }
   }
   const hotspotsBbox = bboxOf(hulls);

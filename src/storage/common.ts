@@ -5,6 +5,7 @@
  */
 import type {
   DatasetPatch,
+  FeatureTexts,
   IngestOptions,
   IngestResult,
   NewDataset,
@@ -226,4 +227,85 @@ export function whereMatches(where: WhereCondition[] | undefined): WhereMatch[] 
 
 export function nowIso(): string {
   return new Date().toISOString();
+}
+
+/**
+ * Feature texts kept as a few large strings, texts separated by "\n" (canonical JSON text never
+ * holds a raw line break; a chunk whose texts do have one is kept as separate strings instead).
+ * `at(i)` cuts one text out on demand.
+ */
+export class PackedTexts implements FeatureTexts {
+  private readonly chunks: string[] = [];
+  /** per text: its chunk, and where it starts and ends in that chunk */
+  private chunk = new Uint32Array(1024);
+  private start = new Int32Array(1024);
+  private end = new Int32Array(1024);
+  private loose: string[][] = [];
+  length = 0;
+
+  /** Adds `count` texts joined by "\n"; returns false (adding nothing) when the line breaks do not number count − 1. */
+  addJoined(joined: string, count: number): boolean {
+    if (count === 0) return true;
+    this.reserve(count);
+    const c = this.chunks.length;
+    let from = 0;
+    let i = this.length;
+    const stop = this.length + count;
+    for (;;) {
+      const nl = joined.indexOf('\n', from);
+      if (i === stop - 1) {
+        if (nl !== -1) return false;
+        this.place(i, c, from, joined.length);
+        break;
+      }
+      if (nl === -1) return false;
+      this.place(i++, c, from, nl);
+      from = nl + 1;
+    }
+    this.chunks.push(joined);
+    this.loose.push([]);
+    this.length = stop;
+    return true;
+  }
+
+  /** Adds texts one by one (for chunks that hold line breaks). */
+  addEach(texts: string[]): void {
+    this.reserve(texts.length);
+    const c = this.chunks.length;
+    for (let k = 0; k < texts.length; k++) this.place(this.length + k, c, -1, k);
+    this.chunks.push('');
+    this.loose.push(texts);
+    this.length += texts.length;
+  }
+
+  at(index: number): string | undefined {
+    if (!(index >= 0 && index < this.length)) return undefined;
+    const c = this.chunk[index] as number;
+    const s = this.start[index] as number;
+    return s < 0 ? this.loose[c]![this.end[index]!] : this.chunks[c]!.slice(s, this.end[index]);
+  }
+
+  *[Symbol.iterator](): Iterator<string> {
+    for (let i = 0; i < this.length; i++) yield this.at(i) as string;
+  }
+
+  private place(i: number, c: number, start: number, end: number): void {
+    this.chunk[i] = c;
+    this.start[i] = start;
+    this.end[i] = end;
+  }
+
+  private reserve(more: number): void {
+    const need = this.length + more;
+    if (need <= this.start.length) return;
+    const size = Math.max(need, this.start.length * 2);
+    const grow = <T extends Uint32Array | Int32Array>(a: T, make: (n: number) => T): T => {
+      const b = make(size);
+      b.set(a);
+      return b;
+    };
+    this.chunk = grow(this.chunk, (n) => new Uint32Array(n));
+    this.start = grow(this.start, (n) => new Int32Array(n));
+    this.end = grow(this.end, (n) => new Int32Array(n));
+  }
 }

@@ -8,6 +8,7 @@ import Database from 'better-sqlite3';
 import type {
   Dataset,
   DatasetPatch,
+  FeatureTexts,
   IngestOptions,
   IngestResult,
   InterruptedRunFilter,
@@ -45,6 +46,7 @@ import {
   checkTrackCount,
   nowIso,
   parseRunId,
+  PackedTexts,
   planIngest,
   whereMatches,
 } from './common.js';
@@ -61,6 +63,9 @@ export interface SqliteStoreOptions {
 
 type Row = Record<string, unknown>;
 
+/** feature texts per string of a run input (about 4 MB at 200 bytes a text) */
+const TEXT_CHUNK = 20_000;
+
 /** SQLite has a limit on bound parameters per statement (32 766 in recent builds); stay well below. */
 const IN_CHUNK = 500;
 
@@ -73,6 +78,8 @@ export class SqliteStore implements Store {
   readonly engine = 'sqlite' as const;
   readonly db: Database.Database;
   private closed = false;
+  /** where `roost_run_row` puts the rows of the load in progress */
+  private rowSink: Columns | null = null;
 
   constructor(options: SqliteStoreOptions) {
     if (typeof options.path !== 'string' || options.path === '') throw new StoreError('invalid', 'SQLite path must be a file name (or ":memory:")');
@@ -81,6 +88,10 @@ export class SqliteStore implements Store {
     this.db.pragma('journal_mode = WAL');
     this.db.pragma(`synchronous = ${options.synchronous === 'FULL' ? 'FULL' : 'NORMAL'}`);
     this.db.pragma('foreign_keys = ON');
+    this.db.function('roost_run_row', { directOnly: true }, (seq: unknown, id: unknown, lon: unknown, lat: unknown, t: unknown, w: unknown) => {
+      this.rowSink?.row(seq as number, id as string, lon as number, lat as number, t as number | null, w as number | null);
+      return null;
+    });
   }
 
   async migrate(): Promise<void> {
@@ -204,34 +215,53 @@ export class SqliteStore implements Store {
   async loadForRun(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<RunInput> {
     checkQuery(query);
     const { clause, args } = whereClause(datasetId, query);
-    // One read transaction so the count and the rows see the same snapshot.
+    // One read transaction so that every read below sees the same snapshot.
     const read = this.db.transaction((): RunInput => {
-      const n = this.db.prepare(`SELECT count(*) FROM observations WHERE ${clause}`).pluck().get(...args) as number;
-      const ids: string[] = new Array(n);
-      const features: string[] = new Array(n);
-      const lon = new Float64Array(n);
-      const lat = new Float64Array(n);
-      const observedAt = new Float64Array(n);
-      const weight = new Float64Array(n);
-      let weighted = false;
-      let i = 0;
-      const stmt = this.db.prepare(`SELECT obs_id, lon, lat, observed_at, weight, feature FROM observations WHERE ${clause} ORDER BY seq`).raw();
-      for (const row of stmt.iterate(...args) as IterableIterator<[string, number, number, number | null, number | null, string]>) {
-        ids[i] = row[0];
-        lon[i] = row[1];
-        lat[i] = row[2];
-        observedAt[i] = row[3] === null ? NaN : row[3];
-        if (row[4] === null) weight[i] = NaN;
-        else {
-          weight[i] = row[4];
-          weighted = true;
-        }
-        features[i] = row[5];
-        i++;
+      const [count, first, last] = this.db.prepare('SELECT count(*), min(seq), max(seq) FROM observations WHERE dataset_id = ?').raw().get(datasetId) as [number, number | null, number | null];
+      const cols = new Columns(count);
+      if (count === 0 || first === null || last === null) return cols.finish(new PackedTexts());
+      // Rows are wanted in seq order, and seq is the table's rowid. Through the (dataset_id, seq)
+      // index every row costs one b-tree descent into the table (about 3.5 µs; 3.5 s for 1 000 000,
+      // measured); walking the table's own seq range costs about 0.3 µs per row read, other
+      // datasets' rows included. So the walk is taken when the dataset fills at least a quarter of
+      // its seq range (the common case of one large dataset), the index otherwise. Both name
+      // their access path, so the rows come in seq order whatever the planner would prefer.
+      const from = count * 4 >= last - first + 1 ? 'observations NOT INDEXED' : 'observations INDEXED BY observations_by_seq';
+      const where = `seq BETWEEN ? AND ? AND ${clause}`;
+      // The numbers go straight from SQLite into the typed arrays through a function called once
+      // per row (0.8 µs a row against 1.9 µs for iterating rows, measured on 1 000 000).
+      this.rowSink = cols;
+      try {
+        this.db.prepare(`SELECT count(roost_run_row(seq, obs_id, lon, lat, observed_at, weight)) FROM ${from} WHERE ${where}`).pluck().get(first, last, ...args);
+      } finally {
+        this.rowSink = null;
       }
-      return { ids, lon, lat, observedAt, weight: weighted ? weight : null, features };
+      if (!cols.ascending()) return this.loadByRows(from, where, [first, last, ...args]);
+      // The texts in chunks of TEXT_CHUNK rows, each chunk one string (see PackedTexts).
+      const texts = new PackedTexts();
+      const joined = this.db.prepare(`SELECT group_concat(feature, char(10)) FROM ${from} WHERE ${where}`).pluck();
+      const each = this.db.prepare(`SELECT feature FROM ${from} WHERE ${where} ORDER BY seq`).pluck();
+      const seqs = cols.seqs();
+      for (let k = 0; k < seqs.length; k += TEXT_CHUNK) {
+        const m = Math.min(TEXT_CHUNK, seqs.length - k);
+        const range = [seqs[k], seqs[k + m - 1], ...args];
+        if (!texts.addJoined(joined.get(...range) as string, m)) texts.addEach(each.all(...range) as string[]);
+      }
+      return cols.finish(texts);
     });
     return read.deferred();
+  }
+
+  /** The plain way, row by row in seq order: used should SQLite ever call the row function out of order. */
+  private loadByRows(from: string, where: string, args: unknown[]): RunInput {
+    const cols = new Columns(0);
+    const texts: string[] = [];
+    const stmt = this.db.prepare(`SELECT seq, obs_id, lon, lat, observed_at, weight, feature FROM ${from} WHERE ${where} ORDER BY seq`).raw();
+    for (const r of stmt.iterate(...args) as IterableIterator<[number, string, number, number, number | null, number | null, string]>) {
+      cols.row(r[0], r[1], r[2], r[3], r[4], r[5]);
+      texts.push(r[6]);
+    }
+    return cols.finish(texts);
   }
 
   async getPositions(datasetId: string, ids: string[]): Promise<Map<string, { lon: number; lat: number }>> {
@@ -442,6 +472,64 @@ export class SqliteStore implements Store {
       return last - count + 1;
     });
     return tx.immediate();
+  }
+}
+
+/** Run input gathered row by row, in growable columns. */
+class Columns {
+  private n = 0;
+  private weighted = false;
+  readonly ids: string[] = [];
+  private seq: Float64Array;
+  private lon: Float64Array;
+  private lat: Float64Array;
+  private observedAt: Float64Array;
+  private weight: Float64Array;
+  constructor(capacity: number) {
+    const size = Math.max(16, capacity);
+    this.seq = new Float64Array(size);
+    this.lon = new Float64Array(size);
+    this.lat = new Float64Array(size);
+    this.observedAt = new Float64Array(size);
+    this.weight = new Float64Array(size);
+  }
+  row(seq: number, id: string, lon: number, lat: number, observedAt: number | null, weight: number | null): void {
+    const i = this.n++;
+    if (i === this.seq.length) this.grow();
+    this.ids.push(id);
+    this.seq[i] = seq;
+    this.lon[i] = lon;
+    this.lat[i] = lat;
+    this.observedAt[i] = observedAt === null ? NaN : observedAt;
+    if (weight === null) this.weight[i] = NaN;
+    else {
+      this.weight[i] = weight;
+      this.weighted = true;
+    }
+  }
+  seqs(): Float64Array {
+    return this.seq.subarray(0, this.n);
+  }
+  ascending(): boolean {
+    for (let i = 1; i < this.n; i++) if (!(this.seq[i - 1]! < this.seq[i]!)) return false;
+    return true;
+  }
+  finish(features: FeatureTexts): RunInput {
+    const n = this.n;
+    const cut = (a: Float64Array): Float64Array => (n === a.length ? a : a.slice(0, n));
+    return { ids: this.ids, lon: cut(this.lon), lat: cut(this.lat), observedAt: cut(this.observedAt), weight: this.weighted ? cut(this.weight) : null, features };
+  }
+  private grow(): void {
+    const twice = (a: Float64Array): Float64Array => {
+      const b = new Float64Array(a.length * 2);
+      b.set(a);
+      return b;
+    };
+    this.seq = twice(this.seq);
+    this.lon = twice(this.lon);
+    this.lat = twice(this.lat);
+    this.observedAt = twice(this.observedAt);
+    this.weight = twice(this.weight);
   }
 }
 

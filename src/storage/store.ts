@@ -172,6 +172,16 @@ export interface ObservationPage {
   nextCursor: string | null;
 }
 
+/**
+ * Feature texts by position: `at(i)` for 0 ≤ i < length, and iteration in order. A plain string
+ * array qualifies; the engines hand out packed texts (a few large strings) because a million
+ * separate strings cost more in garbage collection than reading them.
+ */
+export interface FeatureTexts extends Iterable<string> {
+  readonly length: number;
+  at(index: number): string | undefined;
+}
+
 /** A dataset's observations in columns, in insertion order, ready for clustering. */
 export interface RunInput {
   ids: string[];
@@ -183,7 +193,7 @@ export interface RunInput {
   /** null when no loaded observation has a weight; NaN where absent otherwise */
   weight: Float64Array | null;
   /** stored feature texts */
-  features: string[];
+  features: FeatureTexts;
 }
 
 export type RunStatus = 'queued' | 'running' | 'succeeded' | 'failed' | 'cancelled';

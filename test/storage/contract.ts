@@ -308,7 +308,7 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(Array.from(all.observedAt)).toEqual(recs.map((r) => r.observedAt ?? NaN));
         expect(all.weight).not.toBeNull();
         expect(Array.from(all.weight!)).toEqual(recs.map((r) => r.weight ?? NaN));
-        expect(all.features).toEqual(recs.map((r) => r.feature));
+        expect([...all.features]).toEqual(recs.map((r) => r.feature));
 
         const from = T0 + 3 * DAY_MS;
         const to = T0 + 20 * DAY_MS;
@@ -317,6 +317,48 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(want.length).toBeGreaterThan(5);
         expect(sub.ids).toEqual(want.map((r) => r.id));
         expect(Array.from(sub.lon)).toEqual(want.map((r) => r.lon));
+      });
+
+      it('loads large and interleaved datasets whole and in order, numbers exact, texts byte for byte', async () => {
+        await store.createDataset(DS);
+        await store.createDataset({ ...DS, id: 'gulls', name: 'Gulls' });
+        // numbers whose shortest decimal form needs 17 digits, or that are extreme, must come back exactly
+        const hard = [-179.99999999999997, 0.30000000000000004, 5e-324, 1 / 3, -0.1, 89.99999999999999];
+        const herons: ObservationRecord[] = [];
+        const gulls: ObservationRecord[] = [];
+        // 20 100 herons (more than one text chunk of the engines) in batches of 300, with a gull
+        // after each batch: herons fill their seq range densely, the gulls sparsely
+        for (let b = 0; b < 67; b++) {
+          const batch: ObservationRecord[] = [];
+          for (let i = 0; i < 300; i++) {
+            const n = b * 300 + i;
+            const lon = n < hard.length ? (hard[n] as number) : ((n * 7.3) % 360) - 180;
+            const lat = n < hard.length ? (hard[(n + 1) % hard.length] as number) % 90 : ((n * 1.7) % 180) - 90;
+            // some texts hold line breaks (escaped in JSON, raw in a text given as is)
+            const r = n % 5000 === 17 ? fromText(`h${n}`, lon, lat, `{"type":"Feature",\n"id":"h${n}"}`, null, null) : record(`h${n}`, lon, lat, { n, note: n % 3 === 0 ? 'a\nb' : 'é😀' }, T0 + n, n % 2 === 0 ? n / 7 : null);
+            batch.push(r);
+          }
+          await store.ingest('herons', batch, KEEP);
+          herons.push(...batch);
+          const g = record(`g${b}`, b, 0 - b, { b }, T0 + b);
+          await store.ingest('gulls', [g], KEEP);
+          gulls.push(g);
+        }
+        for (const [id, recs] of [['herons', herons], ['gulls', gulls]] as const) {
+          const cols = await store.loadForRun(id);
+          expect(cols.ids).toEqual(recs.map((r) => r.id));
+          expect(Array.from(cols.lon)).toEqual(recs.map((r) => r.lon));
+          expect(Array.from(cols.lat)).toEqual(recs.map((r) => r.lat));
+          expect(Array.from(cols.observedAt)).toEqual(recs.map((r) => r.observedAt ?? NaN));
+          expect(cols.weight === null ? null : Array.from(cols.weight)).toEqual(recs.some((r) => r.weight !== null) ? recs.map((r) => r.weight ?? NaN) : null);
+          expect(cols.features.length).toBe(recs.length);
+          expect([...cols.features]).toEqual(recs.map((r) => r.feature));
+          expect(cols.features.at(recs.length - 1)).toBe(recs.at(-1)!.feature);
+          expect(cols.features.at(recs.length)).toBeUndefined();
+        }
+        const window = await store.loadForRun('herons', { from: T0 + 19_990, to: T0 + 20_050 });
+        expect(window.ids).toEqual(herons.filter((r) => r.observedAt !== null && r.observedAt >= T0 + 19_990 && r.observedAt < T0 + 20_050).map((r) => r.id));
+        expect([...window.features]).toEqual(herons.filter((r) => window.ids.includes(r.id)).map((r) => r.feature));
       });
 
       it('gives null weights when no observation has one, and empty columns for an empty dataset', async () => {
