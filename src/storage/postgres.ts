@@ -46,6 +46,7 @@ import {
   checkTrackCount,
   nowIso,
   parseRunId,
+  PackedTexts,
   planIngest,
   whereMatches,
 } from './common.js';
@@ -67,6 +68,8 @@ const SCHEMA = /^[a-z_][a-z0-9_]{0,62}$/;
 const WRITE_CHUNK = 5000;
 /** rows per round trip of `loadForRun` (bounds the size of one aggregated reply) */
 const LOAD_CHUNK = 100_000;
+/** feature texts per string of a run input (about 4 MB at 200 bytes a text) */
+const TEXT_CHUNK = 20_000;
 
 /** int8 (bigint) as a JavaScript number: sequences and epoch milliseconds stay far below 2^53. */
 const types = {
@@ -246,15 +249,26 @@ export class PostgresStore implements Store {
   /**
    * Reads in chunks of LOAD_CHUNK rows: the numbers of a chunk as ONE row of aggregates (packed
    * big-endian doubles, `float8send` concatenated into a bytea: ~8 bytes per number and no
-   * per-value text parsing), then ids and feature texts as plain rows. A REPEATABLE READ
+   * per-value text parsing), then the ids as rows and the feature texts joined into a few large strings. A REPEATABLE READ
    * transaction gives all reads one snapshot.
    */
   async loadForRun(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<RunInput> {
     checkQuery(query);
+    const texts = new PackedTexts();
     const parts = await this.tx(async (c) => {
-      const out: { n: number; rows: [string, string][]; lon: Buffer; lat: Buffer; t: Buffer; w: Buffer; weighted: boolean }[] = [];
-      let after = 0;
-      for (;;) {
+      const out: { n: number; ids: string[]; lon: Buffer; lat: Buffer; t: Buffer; w: Buffer; weighted: boolean }[] = [];
+      let at = 0;
+      // Chunk boundaries first, from the (dataset_id, seq) index alone: every chunk is then a
+      // bounded seq range, whatever plan the server picks for it. (With LIMIT chunks and stale
+      // statistics the server sorted the whole dataset once per chunk: 1.1 s per 100 000 rows.)
+      const bounds = await c.query({
+        text: `SELECT seq FROM (SELECT seq, row_number() OVER (ORDER BY seq) AS k FROM observations WHERE dataset_id = $1) s WHERE k % ${LOAD_CHUNK} = 0 ORDER BY seq`,
+        values: [datasetId],
+        rowMode: 'array',
+      });
+      const ends = [...(bounds.rows as [number][]).map((r) => r[0]), Number.MAX_SAFE_INTEGER];
+      for (let e = 0, after = 0; e < ends.length; after = ends[e++] as number) {
+        const until = ends[e] as number;
         const p = new Params();
         const { from, clause } = whereClause(p, datasetId, query);
         const sql = (order: string): string => `SELECT count(*)::int, max(seq),
@@ -265,25 +279,40 @@ export class PostgresStore implements Store {
                    coalesce(bool_or(weight IS NOT NULL), false),
                    string_agg(int8send(seq), ''::bytea ${order})
                  FROM (SELECT o.seq, o.lon, o.lat, o.observed_at, o.weight FROM ${from}
-                       WHERE ${clause} AND o.seq > ${p.add(after)} ORDER BY o.seq LIMIT ${LOAD_CHUNK}) s`;
+                       WHERE ${clause} AND o.seq > ${p.add(after)} AND o.seq <= ${p.add(until)} ORDER BY o.seq) s`;
         // Aggregates without their own ORDER BY take the rows in the sorted subquery's order (one
         // sort instead of one per aggregate); the sequence column proves it, else sort per aggregate.
         let r = await c.query({ text: sql(''), values: p.values, rowMode: 'array' });
         if (!ascending((r.rows[0] as unknown[])[7] as Buffer | null)) r = await c.query({ text: sql('ORDER BY seq'), values: p.values, rowMode: 'array' });
         const row = r.rows[0] as [number, number | null, Buffer, Buffer, Buffer, Buffer, boolean, Buffer];
-        if (row[0] === 0) break;
-        // Texts come as rows: one huge aggregated text value travels far slower than many rows.
+        if (row[0] === 0) continue;
+        // Ids come as rows; the feature texts of a chunk as TEXT_CHUNK-row strings joined by "\n"
+        // (see PackedTexts): a million separate strings cost more in garbage collection than
+        // the transfer.
         const q = new Params();
         const w = whereClause(q, datasetId, query);
-        const texts = await c.query({
-          text: `SELECT o.obs_id, o.feature FROM ${w.from} WHERE ${w.clause} AND o.seq > ${q.add(after)} AND o.seq <= ${q.add(row[1])} ORDER BY o.seq`,
+        const range = `${w.clause} AND o.seq > ${q.add(after)} AND o.seq <= ${q.add(row[1])}`;
+        const ids = await c.query({ text: `SELECT o.obs_id FROM ${w.from} WHERE ${range} ORDER BY o.seq`, values: q.values, rowMode: 'array' });
+        if (ids.rows.length !== row[0]) throw new Error('observations changed between two reads of one snapshot');
+        const joined = await c.query({
+          text: `SELECT count(*)::int, string_agg(feature, E'\n' ORDER BY seq) FROM (SELECT o.seq, o.feature, (row_number() OVER (ORDER BY o.seq) - 1) / ${TEXT_CHUNK} AS part FROM ${w.from} WHERE ${range}) s GROUP BY part ORDER BY part`,
           values: q.values,
           rowMode: 'array',
         });
-        if (texts.rows.length !== row[0]) throw new Error('observations changed between two reads of one snapshot');
-        out.push({ n: row[0], rows: texts.rows as [string, string][], lon: row[2], lat: row[3], t: row[4], w: row[5], weighted: row[6] });
-        after = row[1] as number;
-        if (row[0] < LOAD_CHUNK) break;
+        for (const [count, text] of joined.rows as [number, string][]) {
+          if (texts.addJoined(text, count)) continue;
+          const q2 = new Params();
+          const w2 = whereClause(q2, datasetId, query);
+          const each = await c.query({
+            text: `SELECT o.feature FROM ${w2.from} WHERE ${w2.clause} AND o.seq > ${q2.add(after)} AND o.seq <= ${q2.add(until)} ORDER BY o.seq OFFSET ${q2.add(texts.length - at)} LIMIT ${q2.add(count)}`,
+            values: q2.values,
+            rowMode: 'array',
+          });
+          texts.addEach((each.rows as [string][]).map((r) => r[0]));
+        }
+        if (texts.length - at !== row[0]) throw new Error('observations changed between two reads of one snapshot');
+        out.push({ n: row[0], ids: (ids.rows as [string][]).map((r) => r[0]), lon: row[2], lat: row[3], t: row[4], w: row[5], weighted: row[6] });
+        at += row[0];
       }
       return out;
     }, 'BEGIN ISOLATION LEVEL REPEATABLE READ READ ONLY');
@@ -294,8 +323,7 @@ export class PostgresStore implements Store {
     const observedAt = new Float64Array(n);
     const weight = new Float64Array(n);
     let weighted = false;
-    const ids: string[] = [];
-    const features: string[] = [];
+    let ids: string[] = [];
     let at = 0;
     for (const part of parts) {
       unpackDoubles(part.lon, lon, at);
@@ -303,13 +331,10 @@ export class PostgresStore implements Store {
       unpackDoubles(part.t, observedAt, at);
       unpackDoubles(part.w, weight, at);
       weighted ||= part.weighted;
-      for (const [id, f] of part.rows) {
-        ids.push(id);
-        features.push(f);
-      }
+      ids = ids.length === 0 ? part.ids : ids.concat(part.ids);
       at += part.n;
     }
-    return { ids, lon, lat, observedAt, weight: weighted ? weight : null, features };
+    return { ids, lon, lat, observedAt, weight: weighted ? weight : null, features: texts };
   }
 
   async getPositions(datasetId: string, ids: string[]): Promise<Map<string, { lon: number; lat: number }>> {
