@@ -6,25 +6,10 @@
 import pg from 'pg';
 import { afterAll } from 'vitest';
 import { openPostgresStore } from '../../src/storage/postgres.js';
+import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
 import { runStoreContract } from './contract.js';
 
-export const TEST_DATABASE_URL = process.env.DATABASE_URL !== undefined && /^postgres(ql)?:\/\//.test(process.env.DATABASE_URL) ? process.env.DATABASE_URL : 'postgres://postgres@127.0.0.1:5432/test';
-
-/** null when the server answers, else why not. */
-async function reachable(url: string): Promise<string | null> {
-  const c = new pg.Client({ connectionString: url, connectionTimeoutMillis: 3000 });
-  try {
-    await c.connect();
-    await c.query('SELECT 1');
-    return null;
-  } catch (e) {
-    return `no PostgreSQL at ${url.replace(/\/\/[^@]*@/, '//…@')}: ${(e as Error).message}`;
-  } finally {
-    await c.end().catch(() => undefined);
-  }
-}
-
-const skipReason = await reachable(TEST_DATABASE_URL);
+const skipReason = await postgresSkipReason();
 const admin = skipReason === null ? new pg.Pool({ connectionString: TEST_DATABASE_URL, max: 2 }) : null;
 afterAll(async () => {
   await admin?.end();
