@@ -130,6 +130,16 @@ export function buildProgram(setExit: (code: number) => void): Command {
     .addOption(new Option('--optics-extraction <how>', 'OPTICS: cut hotspots at eps or by the ξ method').choices(['eps', 'xi']))
     .option('--xi <x>', 'OPTICS ξ: relative reachability drop bounding a hotspot (default 0.05)')
     .option('--min-cluster-size <n>', 'OPTICS ξ: fewest observations in a hotspot (default: larger of min-points and 0.5 % of observations)')
+    .addHelpText(
+      'after',
+      `
+Examples:
+  roost cluster sightings.geojson --eps 250 --min-points 5 --out-dir result
+  roost cluster counts.csv --eps 300 --weight birds --since 2026-05-01T00:00:00Z --out-dir may
+  cat sightings.geojson | roost cluster - --eps auto --hull concave --count-by species --out-dir result
+
+Results are patterns, not causes; hotspots can mirror where observers went. See the README.`,
+    )
     .action(async (input: string, opts: Record<string, unknown>) => {
       try {
         const settings = resolveSettings(settingsFromFlags(opts));
