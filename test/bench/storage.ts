@@ -4,6 +4,7 @@
  *
  *   node --import tsx test/bench/storage.ts            # both engines, 1 000 000 observations
  *   BENCH_N=200000 node --import tsx test/bench/storage.ts
+ *   BENCH_ENGINES=postgres node --import tsx test/bench/storage.ts   # one engine only (sqlite | postgres)
  *
  * PostgreSQL: DATABASE_URL (default postgres://postgres@127.0.0.1:5432/test), schema roost_bench
  * (dropped afterwards); skipped with a note when unreachable. Writes test/bench/storage-results.md.
@@ -23,6 +24,7 @@ const N = Number(process.env.BENCH_N ?? 1_000_000);
 const BATCH = 1000;
 /** observations ingested in batches of 1 000 for the rate; the rest is filled in batches of 10 000 */
 const RATE_N = Math.min(N, 200_000);
+const ENGINES = (process.env.BENCH_ENGINES ?? 'sqlite,postgres').split(',');
 const PG_URL = process.env.DATABASE_URL?.startsWith('postgres') ? process.env.DATABASE_URL : 'postgres://postgres@127.0.0.1:5432/test';
 const SPECIES = ['heron', 'egret', 'ibis', 'stork', 'crane'];
 const T0 = Date.UTC(2024, 4, 1);
@@ -138,6 +140,9 @@ async function sqliteFullRate(path: string): Promise<number> {
   return (n * BATCH) / (ms / 1000);
 }
 
+/** Thrown to leave out an engine that BENCH_ENGINES does not name. */
+class SkipEngine extends Error {}
+
 async function main(): Promise<void> {
   const load0 = loadavg()[0] as number;
   const rows: Figures[] = [];
@@ -145,18 +150,23 @@ async function main(): Promise<void> {
   const dir = mkdtempSync(join(tmpdir(), 'roost-bench-'));
   let fullRate = NaN;
   try {
+    if (!ENGINES.includes('sqlite')) throw new SkipEngine();
     const sqlite = openSqliteStore({ path: join(dir, 'bench.db') });
     await sqlite.migrate();
     rows.push(await measure('SQLite (WAL, synchronous=NORMAL)', sqlite));
     await sqlite.close();
     fullRate = await sqliteFullRate(join(dir, 'full.db'));
+  } catch (e) {
+    if (!(e instanceof SkipEngine)) throw e;
+    notes.push('SQLite not measured in this run (BENCH_ENGINES).');
   } finally {
     rmSync(dir, { recursive: true, force: true });
   }
 
   const admin = new pg.Client({ connectionString: PG_URL, connectionTimeoutMillis: 3000 });
-  let pgUp = true;
-  try {
+  let pgUp = ENGINES.includes('postgres');
+  if (!pgUp) notes.push('PostgreSQL not measured in this run (BENCH_ENGINES).');
+  else try {
     await admin.connect();
     await admin.query('DROP SCHEMA IF EXISTS roost_bench CASCADE');
   } catch (e) {
