@@ -172,7 +172,10 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
 
   app.setErrorHandler((err: FastifyError, request, reply) => {
     const problem = problemFor(err);
-    if (problem.status >= 500) {
+    if (problem.status === 503 || problem.status === 504) {
+      // load shedding, a full queue, shutting down or a time limit: the service working as meant
+      request.log.warn({ code: problem.code, detail: problem.message }, 'request turned away');
+    } else if (problem.status >= 500) {
       request.log.error({ err }, 'request failed');
     } else {
       request.log.info({ code: problem.code, detail: problem.message }, 'request refused');
