@@ -103,7 +103,7 @@ describe('the listener', { timeout: 60_000 }, () => {
     const script = [
       "const { buildApp } = await import('./dist/http/app.js');",
       "const { resolveConfig } = await import('./dist/http/config.js');",
-      'const app = await buildApp({ config: resolveConfig({ workers: 1, maxEventLoopDelayMs: 0, dbPath: ':memory:' }, {}), logger: false });',
+      'const app = await buildApp({ config: resolveConfig({ workers: 1, maxEventLoopDelayMs: 0, dbPath: ":memory:" }, {}), logger: false });',
       "const r = await app.inject({ method: 'POST', url: '/v1/cluster?eps=100&min_points=2&layer=centres', headers: { 'content-type': 'text/csv' }, payload: 'lon,lat\\n1,2\\n1.0001,2\\n' });",
       'console.log(r.statusCode, JSON.parse(r.body).features.length);',
       'await app.close();',
