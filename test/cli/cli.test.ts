@@ -2,18 +2,16 @@ import { execFileSync, spawnSync } from 'node:child_process';
 import { existsSync, mkdtempSync, readFileSync, readdirSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { createRequire } from 'node:module';
-import { Ajv } from 'ajv';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { run } from '../../src/cli/main.js';
+// source: geojson-schema package (GeoJSON JSON Schemas), see test/reference/geojson-schema.ts
+import { validateCollection } from '../reference/geojson-schema.js';
 
 const DEMO = new URL('../../data/demo/observations.geojson', import.meta.url).pathname;
 const DEMO_CSV = new URL('../../data/demo/observations.csv', import.meta.url).pathname;
 const BIN = new URL('../../dist/cli/bin.js', import.meta.url).pathname;
 const LAYERS = ['hotspots.geojson', 'centres.geojson', 'noise.geojson', 'points.geojson'];
 
-// source: geojson-schema package (GeoJSON JSON Schemas, FeatureCollection)
-const validateCollection = new Ajv({ allErrors: true, strict: false }).compile(createRequire(import.meta.url)('geojson-schema/FeatureCollection.json') as object);
 
 /** Signed area of a ring in lon/lat (shoelace): positive when counter-clockwise. */
 const ringArea = (ring: number[][]): number => {

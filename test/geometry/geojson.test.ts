@@ -1,34 +1,20 @@
-import { createRequire } from 'node:module';
-import { Ajv } from 'ajv';
 import { describe, expect, it } from 'vitest';
 import {
   bboxOf, bboxOfPositions, COORDINATE_DECIMALS, coordText, featureCollectionChunks, featureCollectionString,
   featureString, roundCoord, type GeometryLike,
 } from '../../src/geometry/geojson.js';
 import { hotspotHull, type HullGeometry } from '../../src/geometry/hull.js';
-import { destination, rng } from '../reference/seeded.js';
+// source: geojson-schema package (GeoJSON JSON Schemas), see test/reference/geojson-schema.ts
+import { validateCollection } from '../reference/geojson-schema.js';
+import { discPositions, rng } from '../reference/seeded.js';
 
-const require = createRequire(import.meta.url);
-// source: geojson-schema package (GeoJSON JSON Schemas, https://geojson.org/schema/FeatureCollection.json)
-const featureCollectionSchema = require('geojson-schema/FeatureCollection.json') as object;
-const validateCollection = new Ajv({ allErrors: true, strict: false }).compile(featureCollectionSchema);
 
-function disc(seed: number, n: number, lon: number, lat: number, radiusM: number): { lon: number[]; lat: number[] } {
-  const r = rng(seed);
-  const out = { lon: [] as number[], lat: [] as number[] };
-  for (let i = 0; i < n; i++) {
-    const [x, y] = destination(lon, lat, r.next() * 2 * Math.PI, radiusM * Math.sqrt(r.next()));
-    out.lon.push(x);
-    out.lat.push(y);
-  }
-  return out;
-}
 
 /** Hulls of the awkward kinds: mid-latitude, across ±180°, around a pole, single member. */
 function sampleHulls(): HullGeometry[] {
-  const a = disc(1, 300, 8.5, 47, 2_000);
-  const b = disc(2, 300, 180, 65, 3_000);
-  const c = disc(3, 300, 0, 90, 10_000);
+  const a = discPositions(1, 300, 8.5, 47, 2_000);
+  const b = discPositions(2, 300, 180, 65, 3_000);
+  const c = discPositions(3, 300, 0, 90, 10_000);
   return [
     hotspotHull(a.lon, a.lat, { bufferMeters: 50 }),
     hotspotHull(b.lon, b.lat, { bufferMeters: 50 }),
@@ -149,7 +135,7 @@ describe('bboxOf', () => {
   it('crosses the antimeridian (west > east) when that box is smaller', () => {
     // source: RFC 7946 §5.2 — a bbox crossing the antimeridian has west > east
     expect(bboxOfPositions([179, -179.5, 178.5], [1, 2, 3])).toEqual([178.5, 1, -179.5, 3]);
-    const b = disc(2, 300, 180, 65, 3_000);
+    const b = discPositions(2, 300, 180, 65, 3_000);
     const g = hotspotHull(b.lon, b.lat, { bufferMeters: 50 });
     const box = bboxOf([g]);
     if (!box) throw new Error('expected a box');
@@ -172,7 +158,7 @@ describe('bboxOf', () => {
   });
 
   it('spans all longitudes for a hull around a pole', () => {
-    const c = disc(3, 300, 0, 90, 10_000);
+    const c = discPositions(3, 300, 0, 90, 10_000);
     const box = bboxOf([hotspotHull(c.lon, c.lat, { bufferMeters: 50 })]);
     // source: RFC 7946 §5.3 — a bbox containing a pole spans −180..180 and reaches ±90
     expect(box?.[0]).toBe(-180);

@@ -8,21 +8,10 @@ import { cutAtAntimeridian, ringTurns, unwrapLongitudes, wrapDelta, wrapLongitud
 import { geometryAreaKm2, ringSignedExcess } from '../../src/geometry/area.js';
 import { bboxOf, featureCollectionString, featureString, type GeometryLike } from '../../src/geometry/geojson.js';
 import { hotspotHull, hullVertices, MIN_WIDTH_M, type HullGeometry } from '../../src/geometry/hull.js';
-import { destination, rng } from '../reference/seeded.js';
+import { destination, discPositions, rng } from '../reference/seeded.js';
 
 const RAD = Math.PI / 180;
 
-/** n members scattered uniformly over a disc of radiusM around (lon, lat); seeded. */
-function disc(seed: number, n: number, lon: number, lat: number, radiusM: number): { lon: number[]; lat: number[] } {
-  const r = rng(seed);
-  const out = { lon: [] as number[], lat: [] as number[] };
-  for (let i = 0; i < n; i++) {
-    const [x, y] = destination(lon, lat, r.next() * 2 * Math.PI, radiusM * Math.sqrt(r.next()));
-    out.lon.push(x);
-    out.lat.push(y);
-  }
-  return out;
-}
 
 const polygonsOf = (g: HullGeometry): number[][][][] => (g.type === 'Polygon' ? [g.coordinates] : g.coordinates);
 
@@ -129,7 +118,7 @@ const CASES = [
 describe('hotspotHull (convex)', () => {
   for (const c of CASES) {
     it(`is a valid RFC 7946 hull containing every member — ${c.name}`, () => {
-      const m = disc(c.seed, c.n, c.lon, c.lat, c.radiusM);
+      const m = discPositions(c.seed, c.n, c.lon, c.lat, c.radiusM);
       const g = hotspotHull(m.lon, m.lat, { bufferMeters: 50 });
       expectRfcRings(g);
       expectContainsAll(g, m.lon, m.lat);
@@ -144,7 +133,7 @@ describe('hotspotHull (convex)', () => {
     });
 
     it(`is the spherical convex hull, with members as vertices — ${c.name}`, () => {
-      const m = disc(c.seed, c.n, c.lon, c.lat, c.radiusM);
+      const m = discPositions(c.seed, c.n, c.lon, c.lat, c.radiusM);
       const { ring, buffered } = hullVertices(m.lon, m.lat, { bufferMeters: 50 });
       expect(buffered).toBe(false);
       expectVerticesAreMembers(ring, m.lon, m.lat);
@@ -157,7 +146,7 @@ describe('hotspotHull (convex)', () => {
   }
 
   it('cuts a hull across ±180° into parts within [−180, 180] that both touch ±180', () => {
-    const m = disc(5, 400, 180, -17, 5_000);
+    const m = discPositions(5, 400, 180, -17, 5_000);
     const g = hotspotHull(m.lon, m.lat, { bufferMeters: 50 });
     if (g.type !== 'MultiPolygon') throw new Error('expected a MultiPolygon');
     expect(g.coordinates.length).toBe(2);
@@ -172,7 +161,7 @@ describe('hotspotHull (convex)', () => {
 
   it('gives the same figures wherever the same shape sits in longitude', () => {
     // The same patch moved across ±180° keeps its area (the cut parts add up).
-    const a = disc(7, 200, 179.99, 30, 3_000);
+    const a = discPositions(7, 200, 179.99, 30, 3_000);
     const b = { lon: a.lon.map((x) => x - 100), lat: a.lat };
     const ga = hotspotHull(a.lon, a.lat, { bufferMeters: 50 });
     const gb = hotspotHull(b.lon, b.lat, { bufferMeters: 50 });
@@ -182,7 +171,7 @@ describe('hotspotHull (convex)', () => {
   });
 
   it('is deterministic and independent of the order of members', () => {
-    const m = disc(8, 500, 3, 51, 1_000);
+    const m = discPositions(8, 500, 3, 51, 1_000);
     const a = hotspotHull(m.lon, m.lat, { bufferMeters: 50 });
     expect(JSON.stringify(hotspotHull(m.lon, m.lat, { bufferMeters: 50 }))).toBe(JSON.stringify(a));
     const order = m.lon.map((_, i) => i).reverse();
@@ -191,7 +180,7 @@ describe('hotspotHull (convex)', () => {
   });
 
   it('handles 20 000 members, most of them inside', () => {
-    const m = disc(9, 20_000, -73.9, 40.7, 10_000);
+    const m = discPositions(9, 20_000, -73.9, 40.7, 10_000);
     const g = hotspotHull(m.lon, m.lat, { bufferMeters: 50 });
     expectRfcRings(g);
     const { ring } = hullVertices(m.lon, m.lat, { bufferMeters: 50 });

@@ -272,3 +272,15 @@ export function globalUniformSet(n: number, seed: number): PointSet {
   }
   return { n, lon, lat, weight: null };
 }
+
+/** n positions scattered uniformly over a disc of radiusM metres around (lon, lat); seeded. */
+export function discPositions(seed: number, n: number, lon: number, lat: number, radiusM: number): { lon: number[]; lat: number[] } {
+  const r = rng(seed);
+  const out = { lon: [] as number[], lat: [] as number[] };
+  for (let i = 0; i < n; i++) {
+    const [x, y] = destination(lon, lat, r.next() * 2 * Math.PI, radiusM * Math.sqrt(r.next()));
+    out.lon.push(x);
+    out.lat.push(y);
+  }
+  return out;
+}
