@@ -2,7 +2,7 @@
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { afterAll } from 'vitest';
+import { afterAll, describe, expect, it } from 'vitest';
 import { openSqliteStore } from '../../src/storage/sqlite.js';
 import { runStoreContract } from './contract.js';
 
@@ -25,4 +25,35 @@ runStoreContract('sqlite', {
       },
     };
   },
+});
+
+describe('sqlite memory mapping', () => {
+  it('maps the file by default, not with mmapBytes 0, and both read the same run input', async () => {
+    const path = join(dir, 'mmap.db');
+    const mapped = openSqliteStore({ path });
+    await mapped.migrate();
+    await mapped.createDataset({ id: 'm', name: 'm', settings: {}, idProperty: null, window: null, schedule: null, webhook: null });
+    const records = Array.from({ length: 300 }, (_, i) => {
+      const feature = JSON.stringify({ type: 'Feature', id: `o${i}`, geometry: { type: 'Point', coordinates: [i / 10, -i / 20] }, properties: { k: i } });
+      return { id: `o${i}`, lon: i / 10, lat: -i / 20, observedAt: i % 3 === 0 ? null : 1_700_000_000_000 + i, weight: i % 2 === 0 ? i : null, feature, contentHash: `h${i}` };
+    });
+    await mapped.ingest('m', records, { replace: false, partial: false });
+    const plain = openSqliteStore({ path, mmapBytes: 0 });
+    try {
+      // SQLite reports the mapping limit in force for the connection (0: none)
+      expect(mapped.db.pragma('mmap_size', { simple: true })).toBeGreaterThan(0);
+      expect(plain.db.pragma('mmap_size', { simple: true })).toBe(0);
+      const a = await mapped.loadForRun('m');
+      const b = await plain.loadForRun('m');
+      expect(a.ids).toEqual(records.map((r) => r.id));
+      expect(b.ids).toEqual(a.ids);
+      expect(Array.from(b.lon)).toEqual(Array.from(a.lon));
+      expect(Array.from(b.weight ?? [])).toEqual(Array.from(a.weight ?? []));
+      expect([...b.features]).toEqual(records.map((r) => r.feature));
+      expect([...a.features]).toEqual(records.map((r) => r.feature));
+    } finally {
+      await plain.close();
+      await mapped.close();
+    }
+  });
 });
