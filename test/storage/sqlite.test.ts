@@ -57,3 +57,24 @@ describe('sqlite memory mapping', () => {
     }
   });
 });
+
+describe('sqlite run input ids', () => {
+  it('loads ids holding line breaks in insertion order', async () => {
+    const s = openSqliteStore({ path: join(dir, 'ids.db') });
+    await s.migrate();
+    try {
+      await s.createDataset({ id: 'i', name: 'i', settings: {}, idProperty: null, window: null, schedule: null, webhook: null });
+      const ids = ['first', 'two\nlines', '', 'last\n'].filter((x) => x !== '');
+      const records = ids.map((id, k) => {
+        const feature = JSON.stringify({ type: 'Feature', id, geometry: { type: 'Point', coordinates: [k, k] }, properties: {} });
+        return { id, lon: k, lat: k, observedAt: null, weight: null, feature, contentHash: `h${k}` };
+      });
+      await s.ingest('i', records, { replace: false, partial: false });
+      const input = await s.loadForRun('i');
+      expect(input.ids).toEqual(ids);
+      expect([...input.features]).toEqual(records.map((r) => r.feature));
+    } finally {
+      await s.close();
+    }
+  });
+});
