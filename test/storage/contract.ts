@@ -163,6 +163,14 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(cols.ids).toEqual(['a', 'b', 'c']);
       });
 
+      it('loads ids holding line breaks, in insertion order', async () => {
+        const ids = ['first', 'two\nlines', 'last\n', 'plain'];
+        await store.ingest('herons', ids.map((id, k) => record(id, k, k)), { replace: false, partial: false });
+        const cols = await store.loadForRun('herons');
+        expect(cols.ids).toEqual(ids);
+        expect([...cols.features]).toEqual(ids.map((id, k) => record(id, k, k).feature));
+      });
+
       it('a rejected entry stores nothing; partial stores the valid ones', async () => {
         const batch = [record('a', 1, 2), record('b', 3, 4)];
         const res = await store.ingest('herons', batch, { replace: false, partial: false, rejected: [{ index: 2, reason: 'not a point' }] });
