@@ -368,12 +368,10 @@ export function clusterObservations(
   timer.start('write');
   const resultHotspots: ResultHotspot[] = [];
   for (let h = 0; h < clustering.count; h++) {
-    const all = members.slice(start[h], start[h + 1]);
-    let core = 0;
-    for (const i of all) if (clustering.roles[i] === ROLE_CORE) core++;
-    const coreMembers = new Int32Array(core);
-    for (let k = 0, c = 0; k < all.length; k++) if (clustering.roles[all[k]] === ROLE_CORE) coreMembers[c++] = all[k];
-    resultHotspots.push({ hotspotId: h + 1, members: all, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], features) });
+    const own = members.slice(start[h], start[h + 1]);
+    const coreMembers = new Int32Array(figures[h].coreCount);
+    for (let k = 0, c = 0; k < own.length; k++) if (clustering.roles[own[k]] === ROLE_CORE) coreMembers[c++] = own[k];
+    resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], features) });
   }
   let noiseCount = 0;
   for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseCount++;
