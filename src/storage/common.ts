@@ -11,6 +11,7 @@ import type {
   NewDataset,
   ObservationQuery,
   ObservationRecord,
+  RunInput,
   RunPatch,
   RunStatus,
   WhereCondition,
@@ -230,9 +231,9 @@ export function nowIso(): string {
 }
 
 /**
- * Feature texts kept as a few large strings, texts separated by "\n" (canonical JSON text never
- * holds a raw line break; a chunk whose texts do have one is kept as separate strings instead).
- * `at(i)` cuts one text out on demand.
+ * Feature texts kept as a few large strings: joined by "\n" (canonical JSON text never holds a
+ * raw line break; a chunk whose texts do have one is kept as separate strings instead), or as
+ * spans of a larger string (PostgreSQL's COPY reader). `at(i)` cuts one text out on demand.
  */
 export class PackedTexts implements FeatureTexts {
   private readonly chunks: string[] = [];
@@ -266,6 +267,37 @@ export class PackedTexts implements FeatureTexts {
     this.loose.push([]);
     this.length = stop;
     return true;
+  }
+
+  /**
+   * Adds `count` texts that are parts of one string: text k is `chunk.slice(starts[k], ends[k])`.
+   * What lies between them in the chunk is never handed out.
+   */
+  addSpans(chunk: string, starts: Int32Array, ends: Int32Array, count: number): void {
+    if (count === 0) return;
+    this.reserve(count);
+    const c = this.chunks.length;
+    for (let k = 0; k < count; k++) this.place(this.length + k, c, starts[k] as number, ends[k] as number);
+    this.chunks.push(chunk);
+    this.loose.push([]);
+    this.length += count;
+  }
+
+  /** Reorders the texts: the text at k becomes the one that was at `order[k]` (a permutation of 0..length−1). */
+  permute(order: ArrayLike<number>): void {
+    if (order.length !== this.length) throw new RangeError(`permutation of ${order.length} for ${this.length} texts`);
+    const chunk = new Uint32Array(this.chunk.length);
+    const start = new Int32Array(this.start.length);
+    const end = new Int32Array(this.end.length);
+    for (let k = 0; k < order.length; k++) {
+      const i = order[k] as number;
+      chunk[k] = this.chunk[i] as number;
+      start[k] = this.start[i] as number;
+      end[k] = this.end[i] as number;
+    }
+    this.chunk = chunk;
+    this.start = start;
+    this.end = end;
   }
 
   /** Adds texts one by one (for chunks that hold line breaks). */
@@ -307,5 +339,91 @@ export class PackedTexts implements FeatureTexts {
     this.chunk = grow(this.chunk, (n) => new Uint32Array(n));
     this.start = grow(this.start, (n) => new Int32Array(n));
     this.end = grow(this.end, (n) => new Int32Array(n));
+  }
+}
+
+/** Run input gathered row by row, in growable columns. */
+export class RunColumns {
+  private n = 0;
+  private weighted = false;
+  ids: string[] = [];
+  private seq: Float64Array;
+  private lon: Float64Array;
+  private lat: Float64Array;
+  private observedAt: Float64Array;
+  private weight: Float64Array;
+  constructor(capacity: number) {
+    const size = Math.max(16, capacity);
+    this.seq = new Float64Array(size);
+    this.lon = new Float64Array(size);
+    this.lat = new Float64Array(size);
+    this.observedAt = new Float64Array(size);
+    this.weight = new Float64Array(size);
+  }
+  /** One row; a time or weight that is null or NaN is absent. */
+  row(seq: number, lon: number, lat: number, observedAt: number | null, weight: number | null): void {
+    const i = this.n++;
+    if (i === this.seq.length) this.grow();
+    this.seq[i] = seq;
+    this.lon[i] = lon;
+    this.lat[i] = lat;
+    this.observedAt[i] = observedAt === null ? NaN : observedAt;
+    if (weight === null || Number.isNaN(weight)) this.weight[i] = NaN;
+    else {
+      this.weight[i] = weight;
+      this.weighted = true;
+    }
+  }
+  get length(): number {
+    return this.n;
+  }
+  seqs(): Float64Array {
+    return this.seq.subarray(0, this.n);
+  }
+  ascending(): boolean {
+    for (let i = 1; i < this.n; i++) if (!(this.seq[i - 1]! < this.seq[i]!)) return false;
+    return true;
+  }
+  /**
+   * Puts the rows in seq order and returns the permutation applied (`order[k]` is the old index
+   * of the row now at k), or null when they already were. Ids must be set first.
+   */
+  sortBySeq(): Uint32Array | null {
+    if (this.ascending()) return null;
+    const n = this.n;
+    const seq = this.seq;
+    const order = new Uint32Array(n);
+    for (let i = 0; i < n; i++) order[i] = i;
+    order.sort((a, b) => seq[a]! - seq[b]!);
+    const pick = (a: Float64Array): Float64Array => {
+      const b = new Float64Array(a.length);
+      for (let k = 0; k < n; k++) b[k] = a[order[k]!]!;
+      return b;
+    };
+    this.seq = pick(this.seq);
+    this.lon = pick(this.lon);
+    this.lat = pick(this.lat);
+    this.observedAt = pick(this.observedAt);
+    this.weight = pick(this.weight);
+    const ids = this.ids;
+    this.ids = Array.from(order, (i) => ids[i] as string);
+    return order;
+  }
+  finish(features: FeatureTexts): RunInput {
+    const n = this.n;
+    const cut = (a: Float64Array): Float64Array => (n === a.length ? a : a.slice(0, n));
+    return { ids: this.ids, lon: cut(this.lon), lat: cut(this.lat), observedAt: cut(this.observedAt), weight: this.weighted ? cut(this.weight) : null, features };
+  }
+  private grow(): void {
+    const twice = (a: Float64Array): Float64Array => {
+      const b = new Float64Array(a.length * 2);
+      b.set(a);
+      return b;
+    };
+    this.seq = twice(this.seq);
+    this.lon = twice(this.lon);
+    this.lat = twice(this.lat);
+    this.observedAt = twice(this.observedAt);
+    this.weight = twice(this.weight);
   }
 }

@@ -46,11 +46,11 @@ import {
   checkTrackCount,
   nowIso,
   parseRunId,
-  PackedTexts,
   planIngest,
   whereMatches,
 } from './common.js';
 import { MIGRATIONS } from './migrations.js';
+import { RUN_COPY_COLUMNS, RunCopyQuery } from './pg-copy.js';
 
 export interface PostgresStoreOptions {
   /** postgres:// or postgresql:// URL */
@@ -66,10 +66,6 @@ type Row = Record<string, unknown>;
 const SCHEMA = /^[a-z_][a-z0-9_]{0,62}$/;
 /** rows per INSERT/UPDATE statement when a batch is large */
 const WRITE_CHUNK = 5000;
-/** rows per round trip of `loadForRun` (bounds the size of one aggregated reply) */
-const LOAD_CHUNK = 100_000;
-/** feature texts per string of a run input (about 4 MB at 200 bytes a text) */
-const TEXT_CHUNK = 20_000;
 
 /** Stored hashes of a batch's ids (those not stored are left out). */
 const INGEST_HASHES = `SELECT u.id, h.content_hash FROM unnest($2::text[]) AS u(id)
@@ -254,94 +250,29 @@ export class PostgresStore implements Store {
   }
 
   /**
-   * Reads in chunks of LOAD_CHUNK rows: the numbers of a chunk as ONE row of aggregates (packed
-   * big-endian doubles, `float8send` concatenated into a bytea: ~8 bytes per number and no
-   * per-value text parsing), then the ids as rows and the feature texts joined into a few large strings. A REPEATABLE READ
-   * transaction gives all reads one snapshot.
+   * One binary COPY of the matching rows (see pg-copy.ts): one statement is one snapshot, and
+   * the rows stream without a message per row. The statement cannot take parameters, so the
+   * query's values are written into it as literals.
    */
   async loadForRun(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<RunInput> {
     checkQuery(query);
-    const texts = new PackedTexts();
-    const parts = await this.tx(async (c) => {
-      const out: { n: number; ids: string[]; lon: Buffer; lat: Buffer; t: Buffer; w: Buffer; weighted: boolean }[] = [];
-      let at = 0;
-      // Chunk boundaries first, from the (dataset_id, seq) index alone: every chunk is then a
-      // bounded seq range, whatever plan the server picks for it. (With LIMIT chunks and stale
-      // statistics the server sorted the whole dataset once per chunk: 1.1 s per 100 000 rows.)
-      const bounds = await c.query({
-        text: `SELECT seq FROM (SELECT seq, row_number() OVER (ORDER BY seq) AS k FROM observations WHERE dataset_id = $1) s WHERE k % ${LOAD_CHUNK} = 0 ORDER BY seq`,
-        values: [datasetId],
-        rowMode: 'array',
-      });
-      const ends = [...(bounds.rows as [number][]).map((r) => r[0]), Number.MAX_SAFE_INTEGER];
-      for (let e = 0, after = 0; e < ends.length; after = ends[e++] as number) {
-        const until = ends[e] as number;
-        const p = new Params();
-        const { from, clause } = whereClause(p, datasetId, query);
-        const sql = (order: string): string => `SELECT count(*)::int, max(seq),
-                   string_agg(float8send(lon), ''::bytea ${order}),
-                   string_agg(float8send(lat), ''::bytea ${order}),
-                   string_agg(float8send(coalesce(observed_at::float8, 'NaN')), ''::bytea ${order}),
-                   string_agg(float8send(coalesce(weight, 'NaN')), ''::bytea ${order}),
-                   coalesce(bool_or(weight IS NOT NULL), false),
-                   string_agg(int8send(seq), ''::bytea ${order})
-                 FROM (SELECT o.seq, o.lon, o.lat, o.observed_at, o.weight FROM ${from}
-                       WHERE ${clause} AND o.seq > ${p.add(after)} AND o.seq <= ${p.add(until)} ORDER BY o.seq) s`;
-        // Aggregates without their own ORDER BY take the rows in the sorted subquery's order (one
-        // sort instead of one per aggregate); the sequence column proves it, else sort per aggregate.
-        let r = await c.query({ text: sql(''), values: p.values, rowMode: 'array' });
-        if (!ascending((r.rows[0] as unknown[])[7] as Buffer | null)) r = await c.query({ text: sql('ORDER BY seq'), values: p.values, rowMode: 'array' });
-        const row = r.rows[0] as [number, number | null, Buffer, Buffer, Buffer, Buffer, boolean, Buffer];
-        if (row[0] === 0) continue;
-        // Ids come as rows; the feature texts of a chunk as TEXT_CHUNK-row strings joined by "\n"
-        // (see PackedTexts): a million separate strings cost more in garbage collection than
-        // the transfer.
-        const q = new Params();
-        const w = whereClause(q, datasetId, query);
-        const range = `${w.clause} AND o.seq > ${q.add(after)} AND o.seq <= ${q.add(row[1])}`;
-        const ids = await c.query({ text: `SELECT o.obs_id FROM ${w.from} WHERE ${range} ORDER BY o.seq`, values: q.values, rowMode: 'array' });
-        if (ids.rows.length !== row[0]) throw new Error('observations changed between two reads of one snapshot');
-        const joined = await c.query({
-          text: `SELECT count(*)::int, string_agg(feature, E'\n' ORDER BY seq) FROM (SELECT o.seq, o.feature, (row_number() OVER (ORDER BY o.seq) - 1) / ${TEXT_CHUNK} AS part FROM ${w.from} WHERE ${range}) s GROUP BY part ORDER BY part`,
-          values: q.values,
-          rowMode: 'array',
-        });
-        for (const [count, text] of joined.rows as [number, string][]) {
-          if (texts.addJoined(text, count)) continue;
-          const q2 = new Params();
-          const w2 = whereClause(q2, datasetId, query);
-          const each = await c.query({
-            text: `SELECT o.feature FROM ${w2.from} WHERE ${w2.clause} AND o.seq > ${q2.add(after)} AND o.seq <= ${q2.add(until)} ORDER BY o.seq OFFSET ${q2.add(texts.length - at)} LIMIT ${q2.add(count)}`,
-            values: q2.values,
-            rowMode: 'array',
-          });
-          texts.addEach((each.rows as [string][]).map((r) => r[0]));
-        }
-        if (texts.length - at !== row[0]) throw new Error('observations changed between two reads of one snapshot');
-        out.push({ n: row[0], ids: (ids.rows as [string][]).map((r) => r[0]), lon: row[2], lat: row[3], t: row[4], w: row[5], weighted: row[6] });
-        at += row[0];
-      }
-      return out;
-    }, 'BEGIN ISOLATION LEVEL REPEATABLE READ READ ONLY');
-    let n = 0;
-    for (const part of parts) n += part.n;
-    const lon = new Float64Array(n);
-    const lat = new Float64Array(n);
-    const observedAt = new Float64Array(n);
-    const weight = new Float64Array(n);
-    let weighted = false;
-    let ids: string[] = [];
-    let at = 0;
-    for (const part of parts) {
-      unpackDoubles(part.lon, lon, at);
-      unpackDoubles(part.lat, lat, at);
-      unpackDoubles(part.t, observedAt, at);
-      unpackDoubles(part.w, weight, at);
-      weighted ||= part.weighted;
-      ids = ids.length === 0 ? part.ids : ids.concat(part.ids);
-      at += part.n;
+    const { from, clause } = whereClause(new Literals(), datasetId, query);
+    const c = await this.pool.connect();
+    try {
+      await c.query('BEGIN READ ONLY');
+      // A scan joining another one already under way would start in the middle of the table.
+      await c.query('SET LOCAL synchronize_seqscans = off');
+      const copy = new RunCopyQuery(`COPY (SELECT ${RUN_COPY_COLUMNS} FROM ${from} WHERE ${clause}) TO STDOUT (FORMAT binary)`);
+      c.query(copy as unknown as pg.Submittable);
+      const input = await copy.result;
+      await c.query('COMMIT');
+      c.release();
+      return input;
+    } catch (e) {
+      // after a failure the connection's state is not known: close it rather than reuse it
+      c.release(e instanceof Error ? e : new Error(String(e)));
+      throw e;
     }
-    return { ids, lon, lat, observedAt, weight: weighted ? weight : null, features: texts };
   }
 
   async getPositions(datasetId: string, ids: string[]): Promise<Map<string, { lon: number; lat: number }>> {
@@ -548,12 +479,26 @@ export class PostgresStore implements Store {
   }
 }
 
+/** Where a value goes into a statement. */
+interface Placeholders {
+  add(v: unknown): string;
+}
+
 /** Collects query parameters and hands out their `$n` placeholders. */
-class Params {
+class Params implements Placeholders {
   readonly values: unknown[] = [];
   add(v: unknown): string {
     this.values.push(v);
     return `$${this.values.length}`;
+  }
+}
+
+/** Writes values into a statement as SQL literals, for statements without parameters (COPY). */
+class Literals implements Placeholders {
+  add(v: unknown): string {
+    if (typeof v === 'string') return pg.escapeLiteral(v);
+    if (typeof v === 'number' && Number.isFinite(v)) return `(${String(v)})`;
+    throw new StoreError('invalid', `cannot write ${String(v)} into a statement`);
   }
 }
 
@@ -575,27 +520,6 @@ function notFoundDataset(id: string): StoreError {
 
 function columns(rs: ObservationRecord[]): unknown[][] {
   return [rs.map((r) => r.id), rs.map((r) => r.lon), rs.map((r) => r.lat), rs.map((r) => r.observedAt), rs.map((r) => r.weight), rs.map((r) => r.contentHash), rs.map((r) => r.feature)];
-}
-
-/** True when the packed big-endian int8 values are strictly increasing (or absent). */
-function ascending(buf: Buffer | null): boolean {
-  if (buf === null) return true;
-  let prev = -1n;
-  for (let off = 0; off + 8 <= buf.length; off += 8) {
-    const v = buf.readBigInt64BE(off);
-    if (v <= prev) return false;
-    prev = v;
-  }
-  return true;
-}
-
-/** Copies big-endian doubles from `buf` into `out` starting at index `at`. */
-function unpackDoubles(buf: Buffer, out: Float64Array, at: number): void {
-  const n = buf.length >>> 3;
-  if (n === 0) return;
-  const copy = Buffer.from(buf); // swap64 works in place; leave the reply untouched
-  if (new Uint8Array(new Uint16Array([1]).buffer)[0] === 1) copy.swap64();
-  new Uint8Array(out.buffer, out.byteOffset + at * 8, n * 8).set(copy);
 }
 
 function datasetFromRow(r: Row): Dataset {
@@ -632,7 +556,7 @@ function runFromRow(r: Row): Run {
 }
 
 /** FROM and WHERE for a dataset and a query, the observations aliased `o`. */
-function whereClause(p: Params, datasetId: string, q: ObservationQuery): { from: string; clause: string } {
+function whereClause(p: Placeholders, datasetId: string, q: ObservationQuery): { from: string; clause: string } {
   const parts = [`o.dataset_id = ${p.add(datasetId)}`];
   if (q.bbox !== undefined) {
     const [w, s, e, n] = q.bbox;

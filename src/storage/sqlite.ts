@@ -47,6 +47,7 @@ import {
   nowIso,
   parseRunId,
   PackedTexts,
+  RunColumns,
   planIngest,
   whereMatches,
 } from './common.js';
@@ -90,7 +91,7 @@ export class SqliteStore implements Store {
   readonly db: Database.Database;
   private closed = false;
   /** where `roost_run_row` puts the rows of the load in progress */
-  private rowSink: Columns | null = null;
+  private rowSink: RunColumns | null = null;
 
   constructor(options: SqliteStoreOptions) {
     if (typeof options.path !== 'string' || options.path === '') throw new StoreError('invalid', 'SQLite path must be a file name (or ":memory:")');
@@ -230,7 +231,7 @@ export class SqliteStore implements Store {
     // One read transaction so that every read below sees the same snapshot.
     const read = this.db.transaction((): RunInput => {
       const [count, first, last] = this.db.prepare('SELECT count(*), min(seq), max(seq) FROM observations WHERE dataset_id = ?').raw().get(datasetId) as [number, number | null, number | null];
-      const cols = new Columns(count);
+      const cols = new RunColumns(count);
       if (count === 0 || first === null || last === null) return cols.finish(new PackedTexts());
       // Rows are wanted in seq order, and seq is the table's rowid. Through the (dataset_id, seq)
       // index every row costs one b-tree descent into the table (about 3.5 µs; 3.5 s for 1 000 000,
@@ -274,7 +275,7 @@ export class SqliteStore implements Store {
 
   /** The plain way, row by row in seq order: used should SQLite ever call the row function out of order. */
   private loadByRows(from: string, where: string, args: unknown[]): RunInput {
-    const cols = new Columns(0);
+    const cols = new RunColumns(0);
     const texts: string[] = [];
     const stmt = this.db.prepare(`SELECT seq, obs_id, lon, lat, observed_at, weight, feature FROM ${from} WHERE ${where} ORDER BY seq`).raw();
     for (const r of stmt.iterate(...args) as IterableIterator<[number, string, number, number, number | null, number | null, string]>) {
@@ -493,66 +494,6 @@ export class SqliteStore implements Store {
       return last - count + 1;
     });
     return tx.immediate();
-  }
-}
-
-/** Run input gathered row by row, in growable columns. */
-class Columns {
-  private n = 0;
-  private weighted = false;
-  ids: string[] = [];
-  private seq: Float64Array;
-  private lon: Float64Array;
-  private lat: Float64Array;
-  private observedAt: Float64Array;
-  private weight: Float64Array;
-  constructor(capacity: number) {
-    const size = Math.max(16, capacity);
-    this.seq = new Float64Array(size);
-    this.lon = new Float64Array(size);
-    this.lat = new Float64Array(size);
-    this.observedAt = new Float64Array(size);
-    this.weight = new Float64Array(size);
-  }
-  row(seq: number, lon: number, lat: number, observedAt: number | null, weight: number | null): void {
-    const i = this.n++;
-    if (i === this.seq.length) this.grow();
-    this.seq[i] = seq;
-    this.lon[i] = lon;
-    this.lat[i] = lat;
-    this.observedAt[i] = observedAt === null ? NaN : observedAt;
-    if (weight === null) this.weight[i] = NaN;
-    else {
-      this.weight[i] = weight;
-      this.weighted = true;
-    }
-  }
-  get length(): number {
-    return this.n;
-  }
-  seqs(): Float64Array {
-    return this.seq.subarray(0, this.n);
-  }
-  ascending(): boolean {
-    for (let i = 1; i < this.n; i++) if (!(this.seq[i - 1]! < this.seq[i]!)) return false;
-    return true;
-  }
-  finish(features: FeatureTexts): RunInput {
-    const n = this.n;
-    const cut = (a: Float64Array): Float64Array => (n === a.length ? a : a.slice(0, n));
-    return { ids: this.ids, lon: cut(this.lon), lat: cut(this.lat), observedAt: cut(this.observedAt), weight: this.weighted ? cut(this.weight) : null, features };
-  }
-  private grow(): void {
-    const twice = (a: Float64Array): Float64Array => {
-      const b = new Float64Array(a.length * 2);
-      b.set(a);
-      return b;
-    };
-    this.seq = twice(this.seq);
-    this.lon = twice(this.lon);
-    this.lat = twice(this.lat);
-    this.observedAt = twice(this.observedAt);
-    this.weight = twice(this.weight);
   }
 }
 

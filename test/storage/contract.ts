@@ -294,13 +294,16 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(await all(store, 'herons', { where: [{ property: 'species', value: 'ibis' }, { property: 'seen', value: 'true' }], limit: 64 })).toEqual(both);
       });
 
-      it('matches property names holding dots, quotes, backslashes and a leading $', async () => {
+      it('matches property names and values holding dots, quotes, backslashes and a leading $, listing and loading', async () => {
         await store.createDataset({ ...DS, id: 'names' });
-        const odd = { 'a.b': 'x', 'q"k': 'y', 'b\\s': 'z', $d: 'w', 'ü': 1e2 };
+        const odd = { 'a.b': 'x', 'q"k': 'y', 'b\\s': 'z', $d: 'w', 'ü': 1e2, "o'k": "it's", 'e\\': "\\'; DROP TABLE observations; --" };
         await store.ingest('names', [record('1', 0, 0, odd), record('2', 0, 0, { a: { b: 'x' } })], KEEP);
-        for (const [property, value] of [['a.b', 'x'], ['q"k', 'y'], ['b\\s', 'z'], ['$d', 'w'], ['ü', '100']] as const) {
+        const cases = [['a.b', 'x'], ['q"k', 'y'], ['b\\s', 'z'], ['$d', 'w'], ['ü', '100'], ["o'k", "it's"], ['e\\', "\\'; DROP TABLE observations; --"]] as const;
+        for (const [property, value] of cases) {
           expect((await store.listObservations('names', { where: [{ property, value }], limit: 5 })).features, property).toHaveLength(1);
+          expect((await store.loadForRun('names', { where: [{ property, value }] })).ids, property).toEqual(['1']);
         }
+        expect(await store.countObservations('names')).toBe(2);
       });
     });
 
