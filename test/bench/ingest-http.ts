@@ -6,6 +6,7 @@
  * Markdown table for test/bench/ingest-http-results.md.
  *
  *   node --import tsx test/bench/ingest-http.ts [httpObservations=50000] [loadObservations=1000000]
+ *   BENCH_ENGINES=postgres node --import tsx test/bench/ingest-http.ts   # one engine only (sqlite | postgres)
  */
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
@@ -22,6 +23,7 @@ const HTTP_N = Number(process.argv[2] ?? 50_000);
 const LOAD_N = Number(process.argv[3] ?? 1_000_000);
 const BATCH = 1000;
 const PG_URL = process.env.DATABASE_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
+const ENGINES = (process.env.BENCH_ENGINES ?? 'sqlite,postgres').split(',');
 
 function featureText(i: number, rnd: () => number): string {
   const lon = 8.5 + (rnd() - 0.5) * 0.4;
@@ -76,17 +78,19 @@ async function loadAndRun(label: string, store: Store): Promise<string[]> {
 const out: string[] = ['| store | what | observations | time | rate |', '| --- | --- | --- | --- | --- |'];
 const dir = mkdtempSync(join(tmpdir(), 'roost-bench-'));
 try {
-  const sqliteConfig: StoreConfig = { sqlitePath: join(dir, 'bench.db') };
-  const sqlite = await openStore(sqliteConfig);
-  out.push(await httpIngest('SQLite', sqliteConfig, sqlite));
-  console.log(out.at(-1));
-  const sqlite2 = await openStore({ sqlitePath: join(dir, 'load.db') });
-  for (const r of await loadAndRun('SQLite', sqlite2)) out.push(r), console.log(r);
-  await sqlite2.close();
+  if (ENGINES.includes('sqlite')) {
+    const sqliteConfig: StoreConfig = { sqlitePath: join(dir, 'bench.db') };
+    const sqlite = await openStore(sqliteConfig);
+    out.push(await httpIngest('SQLite', sqliteConfig, sqlite));
+    console.log(out.at(-1));
+    const sqlite2 = await openStore({ sqlitePath: join(dir, 'load.db') });
+    for (const r of await loadAndRun('SQLite', sqlite2)) out.push(r), console.log(r);
+    await sqlite2.close();
+  }
 
-  let reachable = true;
+  let reachable = ENGINES.includes('postgres');
   const c = new pg.Client({ connectionString: PG_URL, connectionTimeoutMillis: 3000 });
-  try {
+  if (reachable) try {
     await c.connect();
   } catch (e) {
     reachable = false;

@@ -163,8 +163,8 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(cols.ids).toEqual(['a', 'b', 'c']);
       });
 
-      it('loads ids holding line breaks, in insertion order', async () => {
-        const ids = ['first', 'two\nlines', 'last\n', 'plain'];
+      it('stores and loads ids holding line breaks, tabs and backslashes, in insertion order', async () => {
+        const ids = ['first', 'two\nlines', 'last\n', 'plain', 'tab\there', 'back\\slash', 'cr\r', '\\N', '\\'];
         await store.ingest('herons', ids.map((id, k) => record(id, k, k)), { replace: false, partial: false });
         const cols = await store.loadForRun('herons');
         expect(cols.ids).toEqual(ids);
