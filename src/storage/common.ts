@@ -411,7 +411,8 @@ export class RunColumns {
   }
   finish(features: FeatureTexts): RunInput {
     const n = this.n;
-    const cut = (a: Float64Array): Float64Array => (n === a.length ? a : a.slice(0, n));
+    // a view when little is spare: copying would touch as much new memory again
+    const cut = (a: Float64Array): Float64Array => (n === a.length ? a : n >= a.length * 0.875 ? a.subarray(0, n) : a.slice(0, n));
     return { ids: this.ids, lon: cut(this.lon), lat: cut(this.lat), observedAt: cut(this.observedAt), weight: this.weighted ? cut(this.weight) : null, features };
   }
   private grow(): void {
