@@ -4,6 +4,7 @@
  * write (ingest, claims) take the write lock first (BEGIN IMMEDIATE) so that another process on the
  * same file cannot slip in between.
  */
+import { isAscii } from 'node:buffer';
 import Database from 'better-sqlite3';
 import type {
   Dataset,
@@ -249,8 +250,8 @@ export class SqliteStore implements Store {
       this.rowSink = cols;
       let joinedIds: string | null;
       try {
-        const row = this.db.prepare(`SELECT count(roost_run_row(seq, lon, lat, observed_at, weight)), group_concat(obs_id, char(10)) FROM ${from} WHERE ${where}`).raw().get(first, last, ...args) as [number, string | null];
-        joinedIds = row[1];
+        const row = this.db.prepare(`SELECT count(roost_run_row(seq, lon, lat, observed_at, weight)), CAST(group_concat(obs_id, char(10)) AS BLOB) FROM ${from} WHERE ${where}`).raw().get(first, last, ...args) as [number, Buffer | null];
+        joinedIds = row[1] === null ? null : decodeText(row[1]);
       } finally {
         this.rowSink = null;
       }
@@ -260,13 +261,13 @@ export class SqliteStore implements Store {
       if (cols.ids.length !== cols.length) throw new Error('observations changed between two reads of one snapshot');
       // The texts in chunks of TEXT_CHUNK rows, each chunk one string (see PackedTexts).
       const texts = new PackedTexts();
-      const joined = this.db.prepare(`SELECT group_concat(feature, char(10)) FROM ${from} WHERE ${where}`).pluck();
+      const joined = this.db.prepare(`SELECT CAST(group_concat(feature, char(10)) AS BLOB) FROM ${from} WHERE ${where}`).pluck();
       const each = this.db.prepare(`SELECT feature FROM ${from} WHERE ${where} ORDER BY seq`).pluck();
       const seqs = cols.seqs();
       for (let k = 0; k < seqs.length; k += TEXT_CHUNK) {
         const m = Math.min(TEXT_CHUNK, seqs.length - k);
         const range = [seqs[k], seqs[k + m - 1], ...args];
-        if (!texts.addJoined(joined.get(...range) as string, m)) texts.addEach(each.all(...range) as string[]);
+        if (!texts.addJoined(decodeText(joined.get(...range) as Buffer), m)) texts.addEach(each.all(...range) as string[]);
       }
       return cols.finish(texts);
     });
@@ -495,6 +496,15 @@ export class SqliteStore implements Store {
     });
     return tx.immediate();
   }
+}
+
+/**
+ * UTF-8 bytes as a string. Text that is all ASCII (the usual case for feature texts) is decoded
+ * byte for byte, several times faster than UTF-8 decoding: SQLite hands large joined texts over
+ * as BLOBs for this reason.
+ */
+function decodeText(b: Buffer): string {
+  return isAscii(b) ? b.toString('latin1') : b.toString('utf8');
 }
 
 function json(v: unknown): string | null {
