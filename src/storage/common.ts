@@ -9,6 +9,7 @@ import type {
   IngestOptions,
   IngestResult,
   NewDataset,
+  ObservationPage,
   ObservationQuery,
   ObservationRecord,
   RunInput,
@@ -224,6 +225,19 @@ export function whereMatches(where: WhereCondition[] | undefined): WhereMatch[] 
       number: Number.isFinite(n) && String(n) === c.value ? n : null,
     };
   });
+}
+
+/** A page from rows (seq, feature, lon, lat) fetched with one row more than `limit`, the extra one telling that more follow. */
+export function observationPage(rows: [number, string, number, number][], limit: number): ObservationPage {
+  const more = rows.length > limit;
+  if (more) rows.pop();
+  const last = rows[rows.length - 1];
+  return {
+    features: rows.map((r) => r[1]),
+    lon: rows.map((r) => r[2]),
+    lat: rows.map((r) => r[3]),
+    nextCursor: more && last !== undefined ? encodeCursor(last[0]) : null,
+  };
 }
 
 export function nowIso(): string {

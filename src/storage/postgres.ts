@@ -48,6 +48,7 @@ import {
   normaliseSlot,
   checkTrackCount,
   nowIso,
+  observationPage,
   parseRunId,
   planIngest,
   whereMatches,
@@ -231,15 +232,11 @@ export class PostgresStore implements Store {
     const p = new Params();
     const { from, clause } = whereClause(p, datasetId, options);
     const r = await this.pool.query({
-      text: `SELECT o.seq, o.feature FROM ${from} WHERE ${clause} AND o.seq > ${p.add(after)} ORDER BY o.seq LIMIT ${p.add(options.limit + 1)}`,
+      text: `SELECT o.seq, o.feature, o.lon, o.lat FROM ${from} WHERE ${clause} AND o.seq > ${p.add(after)} ORDER BY o.seq LIMIT ${p.add(options.limit + 1)}`,
       values: p.values,
       rowMode: 'array',
     });
-    const rows = r.rows as [number, string][];
-    const more = rows.length > options.limit;
-    if (more) rows.pop();
-    const last = rows[rows.length - 1];
-    return { features: rows.map((x) => x[1]), nextCursor: more && last !== undefined ? encodeCursor(last[0]) : null };
+    return observationPage(r.rows as [number, string, number, number][], options.limit);
   }
 
   async deleteObservation(datasetId: string, id: string): Promise<boolean> {

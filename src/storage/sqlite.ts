@@ -46,6 +46,7 @@ import {
   normaliseSlot,
   checkTrackCount,
   nowIso,
+  observationPage,
   parseRunId,
   PackedTexts,
   RunColumns,
@@ -209,13 +210,10 @@ export class SqliteStore implements Store {
     const after = options.cursor === undefined ? 0 : decodeCursor(options.cursor);
     const { clause, args } = whereClause(datasetId, options);
     const rows = this.db
-      .prepare(`SELECT seq, feature FROM observations WHERE ${clause} AND seq > ? ORDER BY seq LIMIT ?`)
+      .prepare(`SELECT seq, feature, lon, lat FROM observations WHERE ${clause} AND seq > ? ORDER BY seq LIMIT ?`)
       .raw()
-      .all(...args, after, options.limit + 1) as [number, string][];
-    const more = rows.length > options.limit;
-    if (more) rows.pop();
-    const last = rows[rows.length - 1];
-    return { features: rows.map((r) => r[1]), nextCursor: more && last !== undefined ? encodeCursor(last[0]) : null };
+      .all(...args, after, options.limit + 1) as [number, string, number, number][];
+    return observationPage(rows, options.limit);
   }
 
   async deleteObservation(datasetId: string, id: string): Promise<boolean> {

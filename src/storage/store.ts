@@ -168,6 +168,9 @@ export interface ListObservationsOptions extends ObservationQuery {
 export interface ObservationPage {
   /** stored feature texts in insertion order */
   features: string[];
+  /** each listed observation's position, degrees (for the page's bbox) */
+  lon: number[];
+  lat: number[];
   /** cursor for the next page, null on the last page */
   nextCursor: string | null;
 }

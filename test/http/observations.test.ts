@@ -2,6 +2,7 @@ import type { FastifyInstance } from 'fastify';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { buildApp } from '../../src/http/app.js';
 import { SMALL_BODY_BYTES } from '../../src/http/routes/observations.js';
+import { validateCollection } from '../reference/geojson-schema.js';
 import { expectMatchesSpec, pointsCollection, testConfig } from './helper.js';
 
 const GEO = { 'content-type': 'application/geo+json' };
@@ -137,6 +138,32 @@ describe('/v1/datasets/{id}/observations', () => {
     expect(again.json().code).toBe('observation-not-found');
     expectMatchesSpec(again, `${PATH}/{obsId}`, 'DELETE');
     expect(await count('list')).toBe(9);
+  });
+
+  it('GET gives the page a bbox that holds every listed observation, across the antimeridian too', async () => {
+    await app.inject({ method: 'POST', url: '/v1/datasets', headers: { 'content-type': 'application/json' }, payload: JSON.stringify({ id: 'boxes', settings: { eps: 50 } }) });
+    const west = [feature('w1', 8.123456789, 46.987654321), feature('w2', 8.2, 47.000000001), feature('w3', 7.99999999, 46.5)];
+    const seam = [feature('s1', 179.123456789, -16.5), feature('s2', -179.87654321, -16.999999999), feature('s3', 179.9, -16.1)];
+    await postTo('boxes', collection([...west, ...seam]));
+    const list = async (q: string): Promise<{ bbox?: number[]; features: { geometry: { coordinates: number[] } }[] }> => {
+      const res = await app.inject({ method: 'GET', url: `/v1/datasets/boxes/observations${q}` });
+      expectMatchesSpec(res, PATH, 'GET');
+      // source: the GeoJSON schema of the geojson-schema package (RFC 7946), bbox included
+      expect(validateCollection(res.json()), JSON.stringify(validateCollection.errors)).toBe(true);
+      return res.json();
+    };
+    const inside = (b: number[], [x, y]: number[]): boolean => y! >= b[1]! && y! <= b[3]! && (b[0]! <= b[2]! ? x! >= b[0]! && x! <= b[2]! : x! >= b[0]! || x! <= b[2]!);
+    const a = await list('?bbox=0,40,10,50');
+    // rounded outwards to 7 decimals
+    expect(a.bbox).toEqual([7.9999999, 46.5, 8.2, 47.0000001]);
+    for (const f of a.features) expect(inside(a.bbox!, f.geometry.coordinates)).toBe(true);
+    const b = await list('?bbox=170,-20,-170,-10');
+    // source: RFC 7946 §5.2, a box across the antimeridian has west > east
+    expect(b.bbox).toEqual([179.1234567, -17, -179.8765432, -16.1]);
+    for (const f of b.features) expect(inside(b.bbox!, f.geometry.coordinates)).toBe(true);
+    const none = await list('?bbox=0,0,1,1');
+    expect(none.features).toEqual([]);
+    expect(none.bbox).toBeUndefined();
   });
 
   it('refuses bad parameters, an empty body and an unknown dataset', async () => {

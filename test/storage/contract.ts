@@ -245,6 +245,10 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         }
         await rejects(store.listObservations('herons', { limit: 10, cursor: 'garbage!' }), 'invalid');
         await rejects(store.listObservations('herons', { limit: 0 }), 'invalid');
+        // each listed observation comes with its stored position
+        const page = await store.listObservations('herons', { limit: 300 });
+        expect(page.lon).toEqual(recs.slice(0, 300).map((r) => r.lon));
+        expect(page.lat).toEqual(recs.slice(0, 300).map((r) => r.lat));
       });
 
       it('a cursor stays valid while observations are added and removed', async () => {

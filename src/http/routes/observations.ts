@@ -10,6 +10,7 @@
  */
 import type { FastifyInstance, FastifyRequest } from 'fastify';
 import { EARTH_RADIUS_M } from '../../core/haversine.js';
+import { bboxOfPositions, COORDINATE_DECIMALS, featureCollectionString } from '../../geometry/geojson.js';
 import { readRecords, type RecordBatch, type RecordOptions } from '../../ingest/records.js';
 import { InputError, type InputProblem } from '../../ingest/types.js';
 import { parseCondition } from '../../run/settings.js';
@@ -149,6 +150,10 @@ function parseBbox(text: unknown): [number, number, number, number] {
   return [w, s, e, n];
 }
 
+const BBOX_SCALE = 10 ** COORDINATE_DECIMALS;
+const floorTo = (x: number): number => Math.floor(x * BBOX_SCALE) / BBOX_SCALE;
+const ceilTo = (x: number): number => Math.ceil(x * BBOX_SCALE) / BBOX_SCALE;
+
 const LIST_PARAMS = new Set(['bbox', 'datetime', 'where', 'limit', 'cursor']);
 
 async function readBatch(services: DatasetServices, body: Uint8Array, options: RecordOptions): Promise<RecordBatch> {
@@ -250,14 +255,18 @@ export function registerObservationRoutes(app: FastifyInstance, services: Datase
       if (err instanceof StoreError && err.code === 'invalid') throw new HttpProblem('invalid-parameter', err.message, { parameter: /cursor/.test(err.message) ? 'cursor' : 'query' });
       throw err;
     }
-    const links: string[] = [];
+    const links: Record<string, string>[] = [];
     if (page.nextCursor !== null) {
       const next = new URLSearchParams();
       for (const [k, v] of Object.entries(query)) if (k !== 'cursor') for (const x of [v].flat()) next.append(k, String(x));
       next.set('cursor', page.nextCursor);
-      links.push(JSON.stringify({ rel: 'next', type: 'application/geo+json', href: `/v1/datasets/${dataset.id}/observations?${next.toString()}` }));
+      links.push({ rel: 'next', type: 'application/geo+json', href: `/v1/datasets/${dataset.id}/observations?${next.toString()}` });
     }
-    const text = `{"type":"FeatureCollection","numberReturned":${page.features.length},"links":[${links.join(',')}],"features":[${page.features.join(',')}]}`;
+    // the bbox of this page's observations (RFC 7946 §5), west > east when they straddle the
+    // antimeridian; rounded outwards, as the features keep their coordinates as posted
+    const box = bboxOfPositions(page.lon, page.lat);
+    const bbox = box === null ? null : [floorTo(box[0]), floorTo(box[1]), ceilTo(box[2]), ceilTo(box[3])];
+    const text = featureCollectionString(page.features, bbox, { numberReturned: page.features.length, links });
     return reply.type('application/geo+json').send(text);
   });
 
