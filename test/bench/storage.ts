@@ -10,7 +10,7 @@
  * (dropped afterwards); skipped with a note when unreachable. Writes test/bench/storage-results.md.
  */
 import { createHash } from 'node:crypto';
-import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { cpus, loadavg, tmpdir } from 'node:os';
 import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -216,7 +216,10 @@ async function main(): Promise<void> {
     '',
   ];
   const out = join(dirname(fileURLToPath(import.meta.url)), 'storage-results.md');
-  writeFileSync(out, lines.join('\n'));
+  // the hand-written analysis from the first "## " heading on is kept
+  const previous = existsSync(out) ? readFileSync(out, 'utf8') : '';
+  const kept = previous.indexOf('\n## ');
+  writeFileSync(out, lines.join('\n') + (kept >= 0 ? previous.slice(kept) : ''));
   console.log(lines.join('\n'));
 }
 
