@@ -111,11 +111,12 @@ export class PostgresStore implements Store {
     this.pool.on('error', () => undefined);
   }
 
-  private async tx<T>(fn: (c: pg.PoolClient) => Promise<T>, begin = 'BEGIN'): Promise<T> {
+  /** Runs `fn` in a transaction; `begin` may carry statements after BEGIN (one round trip), whose results `fn` receives. */
+  private async tx<T>(fn: (c: pg.PoolClient, begun: pg.QueryResult[]) => Promise<T>, begin = 'BEGIN'): Promise<T> {
     const c = await this.pool.connect();
     try {
-      await c.query(begin);
-      const out = await fn(c);
+      const begun = (await c.query(begin)) as unknown as pg.QueryResult | pg.QueryResult[];
+      const out = await fn(c, Array.isArray(begun) ? begun : [begun]);
       await c.query('COMMIT');
       return out;
     } catch (e) {
@@ -200,11 +201,12 @@ export class PostgresStore implements Store {
 
   async ingest(datasetId: string, records: ObservationRecord[], options: IngestOptions): Promise<IngestResult> {
     checkRecords(records);
-    return this.tx(async (c) => {
-      // Locks the dataset row against other ingests of the same dataset (FK checks only take KEY SHARE, which this does not block).
+    // The dataset row is locked against other ingests of the same dataset (FK checks only take
+    // KEY SHARE, which this does not block), in the round trip of BEGIN; the hash lookup then
+    // runs in a snapshot taken after the lock, so it sees what an ingest before this one stored.
+    return this.tx(async (c, begun) => {
+      if (begun[1]?.rows.length !== 1) throw notFoundDataset(datasetId);
       // Named statements: each connection parses and plans them once.
-      const ds = await c.query({ name: 'roost-ingest-lock', text: 'SELECT 1 FROM datasets WHERE id = $1 FOR NO KEY UPDATE', values: [datasetId] });
-      if (ds.rows.length === 0) throw notFoundDataset(datasetId);
       const stored = new Map<string, string>();
       // One unique-index probe per id, whatever the statistics say: with `obs_id = ANY($2)` and
       // statistics from when the dataset was small, the server read every row of the dataset
@@ -222,7 +224,7 @@ export class PostgresStore implements Store {
         );
       }
       return plan.result;
-    });
+    }, `BEGIN; SELECT 1 FROM datasets WHERE id = ${pg.escapeLiteral(datasetId)} FOR NO KEY UPDATE`);
   }
 
   async listObservations(datasetId: string, options: ListObservationsOptions): Promise<ObservationPage> {
