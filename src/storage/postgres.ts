@@ -194,16 +194,22 @@ export class PostgresStore implements Store {
   }
 
   async deleteDataset(id: string): Promise<boolean> {
-    return ((await this.pool.query('DELETE FROM datasets WHERE id = $1', [id])).rowCount ?? 0) > 0;
+    // The row first: its lock waits for an ingest of the dataset under way (which holds the row
+    // locked) and keeps new ones out, so the observations deleted next are all there will be.
+    return this.tx(async (c) => {
+      if (((await c.query('DELETE FROM datasets WHERE id = $1', [id])).rowCount ?? 0) === 0) return false;
+      await c.query('DELETE FROM observations WHERE dataset_id = $1', [id]);
+      return true;
+    });
   }
 
   // ------------------------------------------------------------ observations
 
   async ingest(datasetId: string, records: ObservationRecord[], options: IngestOptions): Promise<IngestResult> {
     checkRecords(records);
-    // The dataset row is locked against other ingests of the same dataset (FK checks only take
-    // KEY SHARE, which this does not block), in the round trip of BEGIN; the hash lookup then
-    // runs in a snapshot taken after the lock, so it sees what an ingest before this one stored.
+    // The dataset row is locked against other ingests of the same dataset and against its
+    // deletion, in the round trip of BEGIN; the hash lookup then runs in a snapshot taken after
+    // the lock, so it sees what an ingest before this one stored.
     return this.tx(async (c, begun) => {
       if (begun[1]?.rows.length !== 1) throw notFoundDataset(datasetId);
       // Named statements: each connection parses and plans them once.

@@ -123,6 +123,22 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(await store.getRun('herons', run.id)).toBeNull();
         expect(await store.claimScheduledSlot('herons', '2024-05-01T02:00:00Z')).toBe(true);
       });
+
+      it('deleting a dataset while batches arrive from another store leaves no observation behind', async () => {
+        const other = await open();
+        for (let round = 0; round < 3; round++) {
+          await store.createDataset(DS);
+          const batches = Array.from({ length: 6 }, (_, k) => seededRecords(100 + round * 10 + k, 300).map((r) => ({ ...r, id: `${round}-${k}-${r.id}` })));
+          const posts = batches.map((b) => other.ingest('herons', b, KEEP).then(() => 'stored', (e: StoreError) => e.code));
+          await new Promise((resolve) => setTimeout(resolve, round * 3));
+          const deleted = await store.deleteDataset('herons');
+          const outcomes = await Promise.all(posts);
+          expect(deleted).toBe(true);
+          expect(outcomes.every((o) => o === 'stored' || o === 'not-found'), outcomes.join()).toBe(true);
+          // an observation of a dataset that no longer exists would be counted here
+          expect(await store.countObservations('herons')).toBe(0);
+        }
+      });
     });
 
     describe('ingestion', () => {

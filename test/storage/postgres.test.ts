@@ -4,7 +4,7 @@
  * not collide. When no server answers, the suite is reported as skipped with the reason.
  */
 import pg from 'pg';
-import { afterAll } from 'vitest';
+import { afterAll, describe, expect, it } from 'vitest';
 import { openPostgresStore } from '../../src/storage/postgres.js';
 import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
 import { runStoreContract } from './contract.js';
@@ -32,4 +32,26 @@ runStoreContract('postgres', {
       },
     };
   },
+});
+
+describe.skipIf(skipReason !== null)(`PostgreSQL schema${skipReason ? ` (skipped: ${skipReason})` : ''}`, () => {
+  it('has no foreign key from observations (ingest checks the dataset itself) and keeps those of runs', async () => {
+    const schema = `roost_test_${process.pid}_fk`;
+    await admin!.query(`DROP SCHEMA IF EXISTS ${schema} CASCADE`);
+    const s = openPostgresStore({ connectionString: TEST_DATABASE_URL, schema, poolSize: 2 });
+    try {
+      await s.migrate();
+      const fks = await admin!.query(
+        `SELECT c.relname AS table FROM pg_constraint k JOIN pg_class c ON c.oid = k.conrelid JOIN pg_namespace n ON n.oid = c.relnamespace WHERE n.nspname = $1 AND k.contype = 'f' ORDER BY 1`,
+        [schema],
+      );
+      const tables = (fks.rows as { table: string }[]).map((r) => r.table);
+      expect(tables).not.toContain('observations');
+      expect(tables).toContain('runs');
+      await expect(s.ingest('nowhere', [], { replace: false, partial: false })).rejects.toMatchObject({ code: 'not-found' });
+    } finally {
+      await s.close();
+      await admin!.query(`DROP SCHEMA IF EXISTS ${schema} CASCADE`);
+    }
+  });
 });
