@@ -11,6 +11,7 @@
  */
 import { createHash } from 'node:crypto';
 import { existsSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { spawnSync } from 'node:child_process';
 import { cpus, loadavg, tmpdir } from 'node:os';
 import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -154,14 +155,21 @@ async function sqliteFullRate(path: string): Promise<number> {
 /** Thrown to leave out an engine that BENCH_ENGINES does not name. */
 class SkipEngine extends Error {}
 
-async function main(): Promise<void> {
-  const load0 = loadavg()[0] as number;
+interface EngineOutcome {
+  rows: Figures[];
+  notes: string[];
+  /** SQLite with synchronous=FULL, obs/s; NaN when not measured */
+  fullRate: number;
+}
+
+/** The figures of the engines named, measured in this process. */
+async function measureHere(engines: string[]): Promise<EngineOutcome> {
   const rows: Figures[] = [];
   const notes: string[] = [];
   const dir = mkdtempSync(join(tmpdir(), 'roost-bench-'));
   let fullRate = NaN;
   try {
-    if (!ENGINES.includes('sqlite')) throw new SkipEngine();
+    if (!engines.includes('sqlite')) throw new SkipEngine();
     const sqlite = openSqliteStore({ path: join(dir, 'bench.db') });
     await sqlite.migrate();
     rows.push(await measure('SQLite (WAL, synchronous=NORMAL)', sqlite));
@@ -169,20 +177,20 @@ async function main(): Promise<void> {
     fullRate = await sqliteFullRate(join(dir, 'full.db'));
   } catch (e) {
     if (!(e instanceof SkipEngine)) throw e;
-    notes.push('SQLite not measured in this run (BENCH_ENGINES).');
   } finally {
     rmSync(dir, { recursive: true, force: true });
   }
 
   const admin = new pg.Client({ connectionString: PG_URL, connectionTimeoutMillis: 3000 });
-  let pgUp = ENGINES.includes('postgres');
-  if (!pgUp) notes.push('PostgreSQL not measured in this run (BENCH_ENGINES).');
-  else try {
-    await admin.connect();
-    await admin.query('DROP SCHEMA IF EXISTS roost_bench CASCADE');
-  } catch (e) {
-    pgUp = false;
-    notes.push(`PostgreSQL not measured: ${(e as Error).message}`);
+  let pgUp = engines.includes('postgres');
+  if (pgUp) {
+    try {
+      await admin.connect();
+      await admin.query('DROP SCHEMA IF EXISTS roost_bench CASCADE');
+    } catch (e) {
+      pgUp = false;
+      notes.push(`PostgreSQL not measured: ${(e as Error).message}`);
+    }
   }
   if (pgUp) {
     const store = openPostgresStore({ connectionString: PG_URL, schema: 'roost_bench' });
@@ -197,6 +205,43 @@ async function main(): Promise<void> {
     }
   }
   await admin.end().catch(() => undefined);
+  return { rows, notes, fullRate };
+}
+
+/**
+ * Each engine in a process of its own: measured one after the other in one process, the second
+ * engine ran in a heap the first had left large, which moved its figures by a quarter.
+ */
+function measureApart(engines: string[]): EngineOutcome {
+  const out: EngineOutcome = { rows: [], notes: [], fullRate: NaN };
+  for (const engine of engines) {
+    const child = spawnSync(process.execPath, [...process.execArgv, fileURLToPath(import.meta.url)], {
+      env: { ...process.env, BENCH_ENGINES: engine, BENCH_CHILD: '1' },
+      stdio: ['ignore', 'pipe', 'inherit'],
+      encoding: 'utf8',
+      maxBuffer: 1 << 20,
+    });
+    if (child.status !== 0) throw new Error(`the ${engine} benchmark process failed (exit ${child.status})`);
+    const got = JSON.parse(child.stdout.trim().split('\n').at(-1) as string) as EngineOutcome;
+    out.rows.push(...got.rows);
+    out.notes.push(...got.notes);
+    if (Number.isFinite(got.fullRate)) out.fullRate = got.fullRate;
+  }
+  return out;
+}
+
+async function main(): Promise<void> {
+  if (process.env.BENCH_CHILD) {
+    const got = await measureHere(ENGINES);
+    process.stdout.write(`${JSON.stringify(got, (_, v: unknown) => (typeof v === 'number' && !Number.isFinite(v) ? null : v))}\n`);
+    return;
+  }
+  const load0 = loadavg()[0] as number;
+  const known = ['sqlite', 'postgres'].filter((e) => ENGINES.includes(e));
+  const { rows, notes, fullRate: rate } = measureApart(known);
+  const fullRate = rate ?? NaN;
+  for (const e of ['sqlite', 'postgres']) if (!known.includes(e)) notes.push(`${e === 'sqlite' ? 'SQLite' : 'PostgreSQL'} not measured in this run (BENCH_ENGINES).`);
+  notes.push('Each engine was measured in a process of its own.');
 
   const f0 = (x: number): string => (Number.isFinite(x) ? Math.round(x).toLocaleString('en-US') : '–');
   const lines = [
