@@ -384,7 +384,10 @@ export class PostgresStore implements Store {
       const { seq } = await this.requireRunSeq(c, runId, 'FOR UPDATE');
       await c.query('DELETE FROM run_layers WHERE run_seq = $1', [seq]);
       await c.query('DELETE FROM run_hotspots WHERE run_seq = $1', [seq]);
-      await c.query('INSERT INTO run_layers (run_seq, layer, body) SELECT $1, * FROM unnest($2::text[], $3::text[])', [seq, [...RUN_LAYERS], RUN_LAYERS.map((l) => result.layers[l])]);
+      // One statement per layer with the text as a plain parameter: inside a text[] array the
+      // client escapes every quote and the server parses the array back (45 s against 7 s for a
+      // points layer of 1 000 000 features, 234 MB, measured).
+      for (const layer of RUN_LAYERS) await c.query({ name: 'roost-save-layer', text: 'INSERT INTO run_layers (run_seq, layer, body) VALUES ($1, $2, $3)', values: [seq, layer, result.layers[layer]] });
       const h = result.hotspots;
       if (h.length > 0) {
         await c.query(

@@ -48,6 +48,13 @@ describe.skipIf(skipReason !== null)(`PostgreSQL schema${skipReason ? ` (skipped
       const tables = (fks.rows as { table: string }[]).map((r) => r.table);
       expect(tables).not.toContain('observations');
       expect(tables).toContain('runs');
+      // run layers compressed with lz4 when the server was built with it ('l'), else the default ('')
+      const att = await admin!.query(`SELECT attcompression::text AS c FROM pg_attribute WHERE attrelid = '${schema}.run_layers'::regclass AND attname = 'body'`);
+      const probe = await admin!.connect();
+      const supported = await probe.query('BEGIN; CREATE TEMP TABLE lz4_probe (x text COMPRESSION lz4)').then(() => true, () => false);
+      await probe.query('ROLLBACK');
+      probe.release();
+      expect((att.rows[0] as { c: string }).c).toBe(supported ? 'l' : '');
       await expect(s.ingest('nowhere', [], { replace: false, partial: false })).rejects.toMatchObject({ code: 'not-found' });
     } finally {
       await s.close();
