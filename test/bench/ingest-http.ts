@@ -101,6 +101,7 @@ async function storedRun(label: string, storeConfig: StoreConfig, store: Store):
       if (run.status !== 'succeeded') continue;
       const t = run.timings_ms ?? {};
       const n = await store.countObservations('load');
+      console.error(`${label} run timings (ms): ${JSON.stringify(t)}`);
       return `| ${label} | a whole stored run (eps 250 m, min_points 5), in a worker thread: its load stage ${((t.load ?? NaN) / 1000).toFixed(2)} s | ${n} | ${((t.total ?? NaN) / 1000).toFixed(2)} s | ${Math.round(n / ((t.load ?? NaN) / 1000))} obs/s loaded |`;
     }
   } finally {
