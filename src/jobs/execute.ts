@@ -13,6 +13,7 @@ import { pointSet } from '../core/types.js';
 import { clusterObservations, type Stage } from '../run/cluster.js';
 import { resolveSettings, type ClusterSettings } from '../run/settings.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
+import { LAYER_PIECE_CHARS } from '../storage/common.js';
 import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
 import { StoreError } from '../storage/store.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
@@ -186,11 +187,12 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   t = lap('tracks', t);
   await check();
 
+  // in pieces as the store keeps them: a million points never become one 234 MB string
   const layers = {
-    hotspots: result.layers.hotspots.text(),
-    centres: result.layers.centres.text(),
-    noise: result.layers.noise.text(),
-    points: result.layers.points.text(),
+    hotspots: result.layers.hotspots.pieces(LAYER_PIECE_CHARS),
+    centres: result.layers.centres.pieces(LAYER_PIECE_CHARS),
+    noise: result.layers.noise.pieces(LAYER_PIECE_CHARS),
+    points: result.layers.points.pieces(LAYER_PIECE_CHARS),
   };
   const stored: RunHotspot[] = finished.map((f, k) => ({
     hotspotId: f.hotspot.hotspotId,

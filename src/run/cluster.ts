@@ -52,6 +52,23 @@ export class Layer {
     for (const c of this.produce()) parts.push(c);
     return parts.join('');
   }
+  /** The text in pieces of about `chars` characters or more (whole chunks joined), for storing. */
+  pieces(chars: number): string[] {
+    const out: string[] = [];
+    let parts: string[] = [];
+    let n = 0;
+    for (const c of this.produce()) {
+      parts.push(c);
+      n += c.length;
+      if (n >= chars) {
+        out.push(parts.join(''));
+        parts = [];
+        n = 0;
+      }
+    }
+    if (parts.length > 0 || out.length === 0) out.push(parts.join(''));
+    return out;
+  }
   /** The whole text as UTF-8 bytes in their own ArrayBuffer (safe to transfer to another thread). */
   bytes(): Buffer {
     const parts: Buffer[] = [];

@@ -207,17 +207,39 @@ export const MIGRATIONS: readonly Migration[] = [
   },
   {
     version: 4,
-    name: 'run layer bodies compressed with lz4 (PostgreSQL, where the server has it)',
-    sqlite: '-- unchanged',
-    // lz4 compresses a 234 MB points layer to 36 MB in less time than the default pglz takes
-    // for 65 MB (measured). Servers built without lz4 keep the default.
+    name: 'run result layers stored in pieces',
+    // A layer is kept as pieces of about a MiB (part 0, 1, …): a points layer of a million
+    // features is 234 MB, which as one value had to be built, sent and read back as one string,
+    // and a layer of some four million points would pass PostgreSQL's 1 GB limit for a value.
+    sqlite: `
+      CREATE TABLE run_layer_parts (
+        run_seq INTEGER NOT NULL REFERENCES runs(seq) ON DELETE CASCADE,
+        layer TEXT NOT NULL,
+        part INTEGER NOT NULL,
+        body TEXT NOT NULL,
+        PRIMARY KEY (run_seq, layer, part)
+      );
+      INSERT INTO run_layer_parts (run_seq, layer, part, body) SELECT run_seq, layer, 0, body FROM run_layers;
+      DROP TABLE run_layers;
+    `,
+    // lz4 compresses a 234 MB points layer to 36 MB in less time than the default pglz takes for
+    // 65 MB (measured); servers built without lz4 keep the default.
     postgres: `
+      CREATE TABLE run_layer_parts (
+        run_seq BIGINT NOT NULL REFERENCES runs(seq) ON DELETE CASCADE,
+        layer TEXT NOT NULL,
+        part INTEGER NOT NULL,
+        body TEXT NOT NULL,
+        PRIMARY KEY (run_seq, layer, part)
+      );
       DO $$
       BEGIN
-        ALTER TABLE run_layers ALTER COLUMN body SET COMPRESSION lz4;
+        ALTER TABLE run_layer_parts ALTER COLUMN body SET COMPRESSION lz4;
       EXCEPTION WHEN feature_not_supported OR invalid_parameter_value THEN
         NULL;
       END $$;
+      INSERT INTO run_layer_parts (run_seq, layer, part, body) SELECT run_seq, layer, 0, body FROM run_layers;
+      DROP TABLE run_layers;
     `,
   },
 ];

@@ -47,10 +47,13 @@ import {
   formatRunId,
   normaliseSlot,
   checkTrackCount,
+  joinPieces,
+  layerPieces,
   nowIso,
   observationPage,
   parseRunId,
   planIngest,
+  storedPieces,
   whereMatches,
 } from './common.js';
 import { MIGRATIONS } from './migrations.js';
@@ -379,15 +382,20 @@ export class PostgresStore implements Store {
   }
 
   async saveRunResult(runId: string, result: RunResult): Promise<void> {
-    for (const layer of RUN_LAYERS) if (typeof result.layers?.[layer] !== 'string') throw new StoreError('invalid', `result layer ${layer} must be GeoJSON text`);
+    const pieces = layerPieces(result);
     await this.tx(async (c) => {
       const { seq } = await this.requireRunSeq(c, runId, 'FOR UPDATE');
-      await c.query('DELETE FROM run_layers WHERE run_seq = $1', [seq]);
+      await c.query('DELETE FROM run_layer_parts WHERE run_seq = $1', [seq]);
       await c.query('DELETE FROM run_hotspots WHERE run_seq = $1', [seq]);
-      // One statement per layer with the text as a plain parameter: inside a text[] array the
-      // client escapes every quote and the server parses the array back (45 s against 7 s for a
+      // One statement per piece with the text as a plain parameter: a text[] array would make the
+      // client escape every quote and the server parse the array back (45 s against 7 s for a
       // points layer of 1 000 000 features, 234 MB, measured).
-      for (const layer of RUN_LAYERS) await c.query({ name: 'roost-save-layer', text: 'INSERT INTO run_layers (run_seq, layer, body) VALUES ($1, $2, $3)', values: [seq, layer, result.layers[layer]] });
+      for (const layer of RUN_LAYERS) {
+        const parts = pieces[layer];
+        for (let k = 0; k < parts.length; k++) {
+          await c.query({ name: 'roost-save-layer-part', text: 'INSERT INTO run_layer_parts (run_seq, layer, part, body) VALUES ($1, $2, $3, $4)', values: [seq, layer, k, parts[k]] });
+        }
+      }
       const h = result.hotspots;
       if (h.length > 0) {
         await c.query(
@@ -409,10 +417,21 @@ export class PostgresStore implements Store {
   }
 
   async getRunLayer(runId: string, layer: RunLayer): Promise<string | null> {
+    return joinPieces(await this.getRunLayerPieces(runId, layer));
+  }
+
+  async getRunLayerPieces(runId: string, layer: RunLayer): Promise<AsyncIterable<string> | null> {
     if (!RUN_LAYERS.includes(layer)) throw new StoreError('invalid', `layer must be one of ${RUN_LAYERS.join(', ')}`);
     const { seq } = await this.requireRunSeq(this.pool, runId);
-    const r = await this.pool.query('SELECT body FROM run_layers WHERE run_seq = $1 AND layer = $2', [seq, layer]);
-    return r.rows.length === 0 ? null : ((r.rows[0] as Row).body as string);
+    return storedPieces(async (from, count) => {
+      const r = await this.pool.query({
+        name: 'roost-layer-parts',
+        text: 'SELECT body FROM run_layer_parts WHERE run_seq = $1 AND layer = $2 AND part >= $3 ORDER BY part LIMIT $4',
+        values: [seq, layer, from, count],
+        rowMode: 'array',
+      });
+      return (r.rows as [string][]).map((x) => x[0]);
+    });
   }
 
   async getRunHotspots(runId: string): Promise<RunHotspot[]> {

@@ -45,12 +45,15 @@ import {
   formatRunId,
   normaliseSlot,
   checkTrackCount,
+  joinPieces,
+  layerPieces,
   nowIso,
   observationPage,
   parseRunId,
   PackedTexts,
   RunColumns,
   planIngest,
+  storedPieces,
   whereMatches,
 } from './common.js';
 import { MIGRATIONS } from './migrations.js';
@@ -395,13 +398,13 @@ export class SqliteStore implements Store {
   }
 
   async saveRunResult(runId: string, result: RunResult): Promise<void> {
-    for (const layer of RUN_LAYERS) if (typeof result.layers?.[layer] !== 'string') throw new StoreError('invalid', `result layer ${layer} must be GeoJSON text`);
+    const pieces = layerPieces(result);
     const tx = this.db.transaction(() => {
       const seq = this.requireRunSeq(runId);
-      this.db.prepare('DELETE FROM run_layers WHERE run_seq = ?').run(seq);
+      this.db.prepare('DELETE FROM run_layer_parts WHERE run_seq = ?').run(seq);
       this.db.prepare('DELETE FROM run_hotspots WHERE run_seq = ?').run(seq);
-      const layer = this.db.prepare('INSERT INTO run_layers (run_seq, layer, body) VALUES (?, ?, ?)');
-      for (const name of RUN_LAYERS) layer.run(seq, name, result.layers[name]);
+      const part = this.db.prepare('INSERT INTO run_layer_parts (run_seq, layer, part, body) VALUES (?, ?, ?, ?)');
+      for (const name of RUN_LAYERS) pieces[name].forEach((body, k) => part.run(seq, name, k, body));
       const hs = this.db.prepare('INSERT INTO run_hotspots (run_seq, hotspot_id, track_id, members, core_members, member_count, hull, figures) VALUES (?, ?, ?, ?, ?, ?, ?, ?)');
       for (const h of result.hotspots) {
         hs.run(seq, h.hotspotId, h.trackId, JSON.stringify(h.members), JSON.stringify(h.coreMembers), h.members.length, h.hull, json(h.figures ?? null));
@@ -411,10 +414,15 @@ export class SqliteStore implements Store {
   }
 
   async getRunLayer(runId: string, layer: RunLayer): Promise<string | null> {
+    return joinPieces(await this.getRunLayerPieces(runId, layer));
+  }
+
+  async getRunLayerPieces(runId: string, layer: RunLayer): Promise<AsyncIterable<string> | null> {
     if (!RUN_LAYERS.includes(layer)) throw new StoreError('invalid', `layer must be one of ${RUN_LAYERS.join(', ')}`);
     const seq = this.requireRunSeq(runId);
-    const body = this.db.prepare('SELECT body FROM run_layers WHERE run_seq = ? AND layer = ?').pluck().get(seq, layer) as string | undefined;
-    return body ?? null;
+    // each read a query of its own: a statement left iterating would keep the connection busy
+    const stmt = this.db.prepare('SELECT body FROM run_layer_parts WHERE run_seq = ? AND layer = ? AND part >= ? ORDER BY part LIMIT ?').pluck();
+    return storedPieces((from, count) => stmt.all(seq, layer, from, count) as string[]);
   }
 
   async getRunHotspots(runId: string): Promise<RunHotspot[]> {

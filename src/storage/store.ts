@@ -271,8 +271,11 @@ export interface RunHotspot {
 }
 
 export interface RunResult {
-  /** GeoJSON FeatureCollection texts */
-  layers: Record<RunLayer, string>;
+  /**
+   * GeoJSON FeatureCollection texts, each whole or as pieces to be joined in order. They are
+   * stored in pieces of about a MiB (see LAYER_PIECE_CHARS), so no layer is one huge value.
+   */
+  layers: Record<RunLayer, string | readonly string[]>;
   hotspots: RunHotspot[];
 }
 
@@ -344,6 +347,12 @@ export interface Store {
   saveRunResult(runId: string, result: RunResult): Promise<void>;
   /** A stored layer text; null when the run has no stored result. @throws StoreError 'not-found' for an unknown run */
   getRunLayer(runId: string, layer: RunLayer): Promise<string | null>;
+  /**
+   * A stored layer as its pieces in order (join them for the text), read a few at a time so that
+   * a large layer is never one string; null when the run has no stored result.
+   * @throws StoreError 'not-found' for an unknown run
+   */
+  getRunLayerPieces(runId: string, layer: RunLayer): Promise<AsyncIterable<string> | null>;
   /** The run's hotspots by hotspot id; empty when none were stored. @throws StoreError 'not-found' */
   getRunHotspots(runId: string): Promise<RunHotspot[]>;
   /** The hotspots carrying the track id, oldest run first. */

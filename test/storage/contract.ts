@@ -480,7 +480,31 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         ]);
         expect(await store.getTrack('other', 't1')).toEqual([]);
         await rejects(store.getRunLayer('r999999', 'noise'), 'not-found');
+        await rejects(store.getRunLayerPieces('r999999', 'noise'), 'not-found');
         await rejects(store.saveRunResult('r999999', { layers, hotspots: [] }), 'not-found');
+        await rejects(store.saveRunResult(r1.id, { layers: { ...layers, noise: [] }, hotspots: [] }), 'invalid');
+        await rejects(store.saveRunResult(r1.id, { layers: { ...layers, noise: 7 as unknown as string }, hotspots: [] }), 'invalid');
+      });
+
+      it('keep large layers in pieces, given whole or in pieces, and hand them out piece by piece', async () => {
+        const run = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        expect(await store.getRunLayerPieces(run.id, 'points')).toBeNull();
+        // about 20 Mi characters; the first piece boundary (1 Mi) falls inside a surrogate pair
+        const big = `${'x'.repeat((1 << 20) - 1)}😀é`.repeat(20);
+        expect(big.charCodeAt((1 << 20) - 1)).toBeGreaterThanOrEqual(0xd800);
+        const given = ['{"type":"FeatureCollection","features":[', '{"a":1}', ',{"b":"ü"}', ']}'];
+        await store.saveRunResult(run.id, { layers: { hotspots: given, centres: '{}', noise: '{}', points: big }, hotspots: [] });
+        const pieces: string[] = [];
+        for await (const p of (await store.getRunLayerPieces(run.id, 'points'))!) pieces.push(p);
+        expect(pieces.length).toBeGreaterThan(16); // more than two reads of eight
+        expect(pieces.every((p) => p.length <= 1 << 20)).toBe(true);
+        // no piece starts with the second half of a surrogate pair
+        expect(pieces.every((p) => !(p.charCodeAt(0) >= 0xdc00 && p.charCodeAt(0) <= 0xdfff))).toBe(true);
+        expect(pieces.join('') === big).toBe(true);
+        expect((await store.getRunLayer(run.id, 'points')) === big).toBe(true);
+        const kept: string[] = [];
+        for await (const p of (await store.getRunLayerPieces(run.id, 'hotspots'))!) kept.push(p);
+        expect(kept).toEqual(given);
       });
 
       it('each queued run is claimed by exactly one of many concurrent claimers on two stores', async () => {

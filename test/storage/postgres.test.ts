@@ -49,7 +49,7 @@ describe.skipIf(skipReason !== null)(`PostgreSQL schema${skipReason ? ` (skipped
       expect(tables).not.toContain('observations');
       expect(tables).toContain('runs');
       // run layers compressed with lz4 when the server was built with it ('l'), else the default ('')
-      const att = await admin!.query(`SELECT attcompression::text AS c FROM pg_attribute WHERE attrelid = '${schema}.run_layers'::regclass AND attname = 'body'`);
+      const att = await admin!.query(`SELECT attcompression::text AS c FROM pg_attribute WHERE attrelid = '${schema}.run_layer_parts'::regclass AND attname = 'body'`);
       const probe = await admin!.connect();
       const supported = await probe.query('BEGIN; CREATE TEMP TABLE lz4_probe (x text COMPRESSION lz4)').then(() => true, () => false);
       await probe.query('ROLLBACK');

@@ -4,6 +4,7 @@
  * they were saved (no recomputation). `/runs/latest` and `/runs/latest/{layer}` always name the
  * newest succeeded run, so a GIS can pull one URL every morning.
  */
+import { Readable } from 'node:stream';
 import type { FastifyInstance } from 'fastify';
 import { resolveSettings } from '../../run/settings.js';
 import { RUN_LAYERS, StoreError, type Run, type RunLayer } from '../../storage/store.js';
@@ -22,9 +23,10 @@ export function registerRunRoutes(app: FastifyInstance, services: DatasetService
 
   const sendLayer = async (run: Run, layer: RunLayer, reply: import('fastify').FastifyReply) => {
     if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
-    const text = await store.getRunLayer(run.id, layer);
-    if (text === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
-    return reply.type('application/geo+json').header('x-roost-run', run.id).send(text);
+    // streamed piece by piece as stored: a large layer never becomes one string here
+    const pieces = await store.getRunLayerPieces(run.id, layer);
+    if (pieces === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
+    return reply.type('application/geo+json').header('x-roost-run', run.id).send(Readable.from(pieces, { objectMode: false }));
   };
 
   app.post<{ Params: { id: string } }>('/v1/datasets/:id/runs', async (request, reply) => {
