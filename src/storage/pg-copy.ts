@@ -361,15 +361,16 @@ export class RunCopyQuery {
     });
   }
 
-  /** Called by pg when the query's turn comes. */
-  submit(connection: PgConnection): void {
+  /** Called by pg when the query's turn comes; an error returned is handed back to handleError. */
+  submit(connection: PgConnection): Error | undefined {
     this.connection = connection;
     const listeners = connection.stream.listeners('data') as ((chunk: Buffer) => void)[];
-    if (listeners.length !== 1) throw new Error(`expected pg to have one data listener on its socket, found ${listeners.length}`);
+    if (listeners.length !== 1) return new Error(`expected pg to have one data listener on its socket, found ${listeners.length}`);
     this.pgListener = listeners[0] as (chunk: Buffer) => void;
     connection.stream.removeListener('data', this.pgListener);
     connection.stream.on('data', this.onData);
     connection.query(this.text);
+    return undefined;
   }
 
   private readonly onData = (chunk: Buffer): void => {
