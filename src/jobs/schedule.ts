@@ -1,9 +1,10 @@
 /**
  * Scheduled runs inside the server. A dataset's schedule is a cron expression read in an IANA time
  * zone (croner: five fields, or six with seconds first); at each slot the scheduler claims the
- * slot in the store (`claimScheduledSlot`, true for exactly one caller per dataset and slot across
- * processes and instances) and only the winner creates the run, with trigger 'schedule'. The
- * run queue then executes it like any other.
+ * slot and creates its run in one transaction (`createScheduledRun`: a run for exactly one caller
+ * per dataset and slot across processes and instances, with trigger 'schedule'), so a crash cannot
+ * leave a slot claimed without its run, and a slot whose run could not be created is tried again
+ * at the next look. The run queue then executes it like any other.
  *
  * When it looks: at the next due slot of any dataset, and at least every `scanMs`, re-reading the
  * datasets each time, so a schedule created, changed or removed takes effect within `scanMs`.
@@ -184,9 +185,10 @@ export class Scheduler {
       // ahead of this clock, as with clocks of instances a little apart).
       const updated = Date.parse(d.updatedAt);
       const after = this.cursors.get(d.id) ?? Math.max(this.lastLook, updated <= now ? updated : -Infinity);
+      let done = true;
       try {
         const slots = dueSlots(d.schedule, new Date(after), new Date(now), 1);
-        if (slots.length > 0) await this.fire(d, slots[slots.length - 1]!, report);
+        if (slots.length > 0) done = await this.fire(d, slots[slots.length - 1]!, report);
         const upcoming = nextSlot(d.schedule, new Date(now));
         if (upcoming !== null) next = Math.min(next, upcoming.getTime());
         this.warned.delete(d.id);
@@ -197,7 +199,8 @@ export class Scheduler {
           this.options.log?.warn({ dataset: d.id, cron: d.schedule.cron, timezone: d.schedule.timezone, error: (err as Error).message }, 'dataset schedule not usable; fix it to have scheduled runs');
         }
       }
-      this.cursors.set(d.id, now);
+      if (done) this.cursors.set(d.id, now);
+      else this.cursors.set(d.id, after);
     }
     for (const id of this.cursors.keys()) if (!present.has(id)) this.cursors.delete(id);
     this.lastLook = now;
@@ -208,22 +211,25 @@ export class Scheduler {
   /** What the latest look did. */
   lastReport: TickReport = { created: [], lost: [] };
 
-  private async fire(d: Dataset, slot: Date, report: TickReport): Promise<void> {
+  /** @returns false when the run could not be created (nothing was claimed; the next look tries again) */
+  private async fire(d: Dataset, slot: Date, report: TickReport): Promise<boolean> {
     const slotIso = slot.toISOString();
     const { store } = this.options;
-    if (!(await store.claimScheduledSlot(d.id, slotIso))) {
-      report.lost.push({ datasetId: d.id, slot: slotIso });
-      return;
-    }
     const settings = Object.fromEntries(Object.entries(d.settings).filter(([, v]) => v !== null));
     try {
-      const run = await store.createRun({ datasetId: d.id, settings, trigger: 'schedule' });
+      const run = await store.createScheduledRun({ datasetId: d.id, settings, trigger: 'schedule' }, slotIso);
+      if (run === null) {
+        report.lost.push({ datasetId: d.id, slot: slotIso });
+        return true;
+      }
       report.created.push({ datasetId: d.id, slot: slotIso, runId: run.id });
       this.options.log?.info({ dataset: d.id, slot: slotIso, run: run.id }, 'scheduled run queued');
       this.options.onRun?.(run, slot);
+      return true;
     } catch (err) {
-      // the slot is claimed and will not be tried again; say so loudly
-      this.options.log?.error({ err, dataset: d.id, slot: slotIso }, 'scheduled run could not be created; this slot is skipped');
+      // the claim and the run are one transaction, so the slot is still free: try it again
+      this.options.log?.error({ err, dataset: d.id, slot: slotIso }, 'scheduled run could not be created; the next look tries again');
+      return false;
     }
   }
 }

@@ -9,6 +9,7 @@ import type {
   IngestOptions,
   IngestResult,
   NewDataset,
+  NewRun,
   ObservationPage,
   ObservationQuery,
   ObservationRecord,
@@ -19,7 +20,7 @@ import type {
   RunStatus,
   WhereCondition,
 } from './store.js';
-import { RUN_LAYERS, RUN_STATUSES, StoreError } from './store.js';
+import { RUN_LAYERS, RUN_STATUSES, RUN_TRIGGERS, StoreError } from './store.js';
 
 const DATASET_ID = /^[A-Za-z0-9._~-]{1,128}$/;
 
@@ -299,6 +300,12 @@ export async function joinPieces(pieces: AsyncIterable<string> | null): Promise<
   const parts: string[] = [];
   for await (const p of pieces) parts.push(p);
   return parts.join('');
+}
+
+/** @throws StoreError 'invalid' for an unknown trigger or settings that are not an object */
+export function checkNewRun(r: NewRun): void {
+  if (!RUN_TRIGGERS.includes(r.trigger)) throw new StoreError('invalid', `trigger must be one of ${RUN_TRIGGERS.join(', ')}`);
+  if (typeof r.settings !== 'object' || r.settings === null || Array.isArray(r.settings)) throw new StoreError('invalid', 'run settings must be a JSON object');
 }
 
 export function nowIso(): string {

@@ -32,12 +32,13 @@ import type {
   Store,
   TrackPoint,
 } from './store.js';
-import { RUN_LAYERS, RUN_TRIGGERS, StoreError } from './store.js';
+import { RUN_LAYERS, StoreError } from './store.js';
 import {
   batchIds,
   checkDatasetFields,
   checkDatasetId,
   checkLimit,
+  checkNewRun,
   checkQuery,
   checkRecords,
   checkRunPatch,
@@ -294,15 +295,26 @@ export class PostgresStore implements Store {
   // -------------------------------------------------------------------- runs
 
   async createRun(r: NewRun): Promise<Run> {
-    if (!RUN_TRIGGERS.includes(r.trigger)) throw new StoreError('invalid', `trigger must be one of ${RUN_TRIGGERS.join(', ')}`);
-    if (typeof r.settings !== 'object' || r.settings === null || Array.isArray(r.settings)) throw new StoreError('invalid', 'run settings must be a JSON object');
-    const now = nowIso();
+    checkNewRun(r);
     try {
-      const q = await this.pool.query(
-        `INSERT INTO runs (dataset_id, status, trigger, settings, created_at, updated_at) VALUES ($1, 'queued', $2, $3, $4, $4) RETURNING *`,
-        [r.datasetId, r.trigger, JSON.stringify(r.settings), now],
-      );
-      return runFromRow(q.rows[0] as Row);
+      return await insertRun(this.pool, r, nowIso());
+    } catch (e) {
+      if (pgCode(e) === '23503') throw notFoundDataset(r.datasetId);
+      throw e;
+    }
+  }
+
+  async createScheduledRun(r: NewRun, slotIso: string): Promise<Run | null> {
+    checkNewRun(r);
+    const slot = normaliseSlot(slotIso);
+    try {
+      // A competing claim of the same slot waits on the unique key until this transaction ends:
+      // it then finds the slot taken, or, when this one rolled back, claims it itself.
+      return await this.tx(async (c) => {
+        const now = nowIso();
+        const claimed = await c.query('INSERT INTO schedule_slots (dataset_id, slot, claimed_at) VALUES ($1, $2, $3) ON CONFLICT DO NOTHING', [r.datasetId, slot, now]);
+        return claimed.rowCount === 1 ? insertRun(c, r, now) : null;
+      });
     } catch (e) {
       if (pgCode(e) === '23503') throw notFoundDataset(r.datasetId);
       throw e;
@@ -528,6 +540,15 @@ class Literals implements Placeholders {
     if (typeof v === 'number' && Number.isFinite(v)) return `(${String(v)})`;
     throw new StoreError('invalid', `cannot write ${String(v)} into a statement`);
   }
+}
+
+/** Inserts a queued run; returns it. */
+async function insertRun(c: pg.Pool | pg.PoolClient, r: NewRun, now: string): Promise<Run> {
+  const q = await c.query(
+    `INSERT INTO runs (dataset_id, status, trigger, settings, created_at, updated_at) VALUES ($1, 'queued', $2, $3, $4, $4) RETURNING *`,
+    [r.datasetId, r.trigger, JSON.stringify(r.settings), now],
+  );
+  return runFromRow(q.rows[0] as Row);
 }
 
 function pgCode(e: unknown): string | undefined {

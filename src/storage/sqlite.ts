@@ -30,12 +30,13 @@ import type {
   Store,
   TrackPoint,
 } from './store.js';
-import { RUN_LAYERS, RUN_TRIGGERS, StoreError } from './store.js';
+import { RUN_LAYERS, StoreError } from './store.js';
 import {
   batchIds,
   checkDatasetFields,
   checkDatasetId,
   checkLimit,
+  checkNewRun,
   checkQuery,
   checkRecords,
   checkRunPatch,
@@ -301,18 +302,34 @@ export class SqliteStore implements Store {
   // -------------------------------------------------------------------- runs
 
   async createRun(r: NewRun): Promise<Run> {
-    if (!RUN_TRIGGERS.includes(r.trigger)) throw new StoreError('invalid', `trigger must be one of ${RUN_TRIGGERS.join(', ')}`);
-    if (typeof r.settings !== 'object' || r.settings === null || Array.isArray(r.settings)) throw new StoreError('invalid', 'run settings must be a JSON object');
-    const now = nowIso();
+    checkNewRun(r);
     const tx = this.db.transaction((): number => {
       this.requireDataset(r.datasetId);
-      return Number(
-        this.db
-          .prepare(`INSERT INTO runs (dataset_id, status, trigger, settings, created_at, updated_at, updated_ms) VALUES (?, 'queued', ?, ?, ?, ?, ?)`)
-          .run(r.datasetId, r.trigger, JSON.stringify(r.settings), now, now, Date.parse(now)).lastInsertRowid,
-      );
+      return this.insertRun(r, nowIso());
     });
     return this.runBySeq(tx.immediate()) as Run;
+  }
+
+  async createScheduledRun(r: NewRun, slotIso: string): Promise<Run | null> {
+    checkNewRun(r);
+    const slot = normaliseSlot(slotIso);
+    const tx = this.db.transaction((): number | null => {
+      this.requireDataset(r.datasetId);
+      const now = nowIso();
+      if (this.db.prepare('INSERT INTO schedule_slots (dataset_id, slot, claimed_at) VALUES (?, ?, ?) ON CONFLICT DO NOTHING').run(r.datasetId, slot, now).changes !== 1) return null;
+      return this.insertRun(r, now);
+    });
+    const seq = tx.immediate();
+    return seq === null ? null : this.runBySeq(seq);
+  }
+
+  /** Inserts a queued run inside the caller's transaction; returns its seq. */
+  private insertRun(r: NewRun, now: string): number {
+    return Number(
+      this.db
+        .prepare(`INSERT INTO runs (dataset_id, status, trigger, settings, created_at, updated_at, updated_ms) VALUES (?, 'queued', ?, ?, ?, ?, ?)`)
+        .run(r.datasetId, r.trigger, JSON.stringify(r.settings), now, now, Date.parse(now)).lastInsertRowid,
+    );
   }
 
   private runBySeq(seq: number): Run | null {

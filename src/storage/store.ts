@@ -364,6 +364,12 @@ export interface Store {
 
   /** True for exactly one caller per (dataset, slot) across processes and instances. @throws StoreError 'not-found' */
   claimScheduledSlot(datasetId: string, slotIso: string): Promise<boolean>;
+  /**
+   * Claims the slot and creates its run in one transaction: the run for exactly one caller per
+   * (dataset, slot), null for the others. A crash between the two cannot leave a slot claimed
+   * with no run. @throws StoreError 'not-found', 'invalid'
+   */
+  createScheduledRun(r: NewRun, slotIso: string): Promise<Run | null>;
 
   /**
    * Reserves `count` (≥ 1) new track numbers for the dataset and returns the first; the block is

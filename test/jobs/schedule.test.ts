@@ -103,6 +103,31 @@ describe('the scheduler on a fake clock', () => {
     expect(await scheduled()).toEqual([]);
   });
 
+  it('tries a slot again at the next look when its run could not be created, and claims nothing meanwhile', async () => {
+    at('2025-06-01T00:00:30Z');
+    let failures = 1;
+    const flaky = new Proxy(store, {
+      get(target, key, receiver) {
+        if (key === 'createScheduledRun' && failures > 0) {
+          return async () => {
+            failures--;
+            throw new Error('connection lost');
+          };
+        }
+        const v = Reflect.get(target, key, receiver) as unknown;
+        return typeof v === 'function' ? (v as (...a: unknown[]) => unknown).bind(target) : v;
+      },
+    });
+    const s = new Scheduler({ store: flaky, now: () => clock, settings: { catchUpMs: 60_000 }, log });
+    await s.tick();
+    expect(s.lastReport.created).toEqual([]);
+    expect(await scheduled()).toEqual([]);
+    at('2025-06-01T00:01:30Z');
+    await s.tick();
+    expect(s.lastReport.created.map((c) => c.slot)).toEqual(['2025-06-01T00:00:00.000Z']);
+    expect(await scheduled()).toHaveLength(1);
+  });
+
   it('catches up the latest slot missed just before start-up, and only the latest of several', async () => {
     at('2025-06-01T00:10:00Z'); // ten minutes after 02:00 CEST
     const late = new Scheduler({ store, now: () => clock, settings: { catchUpMs: 15 * 60_000 }, log });

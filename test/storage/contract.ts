@@ -552,6 +552,28 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         await rejects(store.claimScheduledSlot('nope', slot), 'not-found');
         await rejects(store.claimScheduledSlot('herons', 'tonight'), 'invalid');
       });
+
+      it('are claimed together with their run: one run per slot across racing stores, none for a slot taken', async () => {
+        await store.createDataset(DS);
+        const other = await open();
+        const slot = '2024-05-02T00:00:00.000Z';
+        const runs = await Promise.all(
+          Array.from({ length: 12 }, (_, i) => (i % 2 === 0 ? store : other).createScheduledRun({ datasetId: 'herons', settings: { eps: 90 }, trigger: 'schedule' }, slot)),
+        );
+        const made = runs.filter((r) => r !== null);
+        expect(made).toHaveLength(1);
+        expect(made[0]).toMatchObject({ datasetId: 'herons', status: 'queued', trigger: 'schedule', settings: { eps: 90 } });
+        expect((await store.listRuns('herons', { limit: 50 })).runs.map((r) => r.id)).toEqual([made[0]!.id]);
+        expect(await store.claimScheduledSlot('herons', slot)).toBe(false);
+        // a slot claimed on its own (as before) gets no run either
+        expect(await store.claimScheduledSlot('herons', '2024-05-03T00:00:00Z')).toBe(true);
+        expect(await other.createScheduledRun({ datasetId: 'herons', settings: {}, trigger: 'schedule' }, '2024-05-03T00:00:00Z')).toBeNull();
+        // refused: nothing claimed, so the slot stays free
+        await rejects(store.createScheduledRun({ datasetId: 'nope', settings: {}, trigger: 'schedule' }, slot), 'not-found');
+        await rejects(store.createScheduledRun({ datasetId: 'herons', settings: [] as unknown as Record<string, unknown>, trigger: 'schedule' }, '2024-05-04T00:00:00Z'), 'invalid');
+        await rejects(store.createScheduledRun({ datasetId: 'herons', settings: {}, trigger: 'schedule' }, 'tonight'), 'invalid');
+        expect(await store.claimScheduledSlot('herons', '2024-05-04T00:00:00Z')).toBe(true);
+      });
     });
 
     describe('track numbers', () => {
