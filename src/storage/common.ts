@@ -312,6 +312,13 @@ export function nowIso(): string {
   return new Date().toISOString();
 }
 
+/** A typed array of `size` elements that starts with `a`'s. */
+export function grown<T extends Float64Array | Int32Array | Uint32Array>(a: T, size: number): T {
+  const b = new (a.constructor as new (n: number) => T)(size);
+  b.set(a);
+  return b;
+}
+
 /**
  * Feature texts kept as a few large strings: joined by "\n" (canonical JSON text never holds a
  * raw line break; a chunk whose texts do have one is kept as separate strings instead), or as
@@ -413,14 +420,9 @@ export class PackedTexts implements FeatureTexts {
     const need = this.length + more;
     if (need <= this.start.length) return;
     const size = Math.max(need, this.start.length * 2);
-    const grow = <T extends Uint32Array | Int32Array>(a: T, make: (n: number) => T): T => {
-      const b = make(size);
-      b.set(a);
-      return b;
-    };
-    this.chunk = grow(this.chunk, (n) => new Uint32Array(n));
-    this.start = grow(this.start, (n) => new Int32Array(n));
-    this.end = grow(this.end, (n) => new Int32Array(n));
+    this.chunk = grown(this.chunk, size);
+    this.start = grown(this.start, size);
+    this.end = grown(this.end, size);
   }
 }
 
@@ -498,15 +500,11 @@ export class RunColumns {
     return { ids: this.ids, lon: cut(this.lon), lat: cut(this.lat), observedAt: cut(this.observedAt), weight: this.weighted ? cut(this.weight) : null, features };
   }
   private grow(): void {
-    const twice = (a: Float64Array): Float64Array => {
-      const b = new Float64Array(a.length * 2);
-      b.set(a);
-      return b;
-    };
-    this.seq = twice(this.seq);
-    this.lon = twice(this.lon);
-    this.lat = twice(this.lat);
-    this.observedAt = twice(this.observedAt);
-    this.weight = twice(this.weight);
+    const size = this.seq.length * 2;
+    this.seq = grown(this.seq, size);
+    this.lon = grown(this.lon, size);
+    this.lat = grown(this.lat, size);
+    this.observedAt = grown(this.observedAt, size);
+    this.weight = grown(this.weight, size);
   }
 }

@@ -19,7 +19,7 @@
  */
 import { isAscii } from 'node:buffer';
 import type { Socket } from 'node:net';
-import { PackedTexts, RunColumns } from './common.js';
+import { grown, PackedTexts, RunColumns } from './common.js';
 import type { RunInput } from './store.js';
 
 /** The select list the COPY must carry, in this order (the observations aliased `o`). */
@@ -280,15 +280,11 @@ export class RunCopyReader {
   }
 
   private growRegion(): void {
-    const twice = (a: Int32Array): Int32Array => {
-      const out = new Int32Array(a.length * 2);
-      out.set(a);
-      return out;
-    };
-    this.idStart = twice(this.idStart);
-    this.idEnd = twice(this.idEnd);
-    this.textStart = twice(this.textStart);
-    this.textEnd = twice(this.textEnd);
+    const size = this.idStart.length * 2;
+    this.idStart = grown(this.idStart, size);
+    this.idEnd = grown(this.idEnd, size);
+    this.textStart = grown(this.textStart, size);
+    this.textEnd = grown(this.textEnd, size);
   }
 }
 
