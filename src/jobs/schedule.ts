@@ -199,8 +199,7 @@ export class Scheduler {
           this.options.log?.warn({ dataset: d.id, cron: d.schedule.cron, timezone: d.schedule.timezone, error: (err as Error).message }, 'dataset schedule not usable; fix it to have scheduled runs');
         }
       }
-      if (done) this.cursors.set(d.id, now);
-      else this.cursors.set(d.id, after);
+      this.cursors.set(d.id, done ? now : after);
     }
     for (const id of this.cursors.keys()) if (!present.has(id)) this.cursors.delete(id);
     this.lastLook = now;

@@ -492,17 +492,6 @@ export class PostgresStore implements Store {
     return (r.rows as Row[]).map((x) => x.seq as number).sort((a, b) => a - b).map(formatRunId);
   }
 
-  async claimScheduledSlot(datasetId: string, slotIso: string): Promise<boolean> {
-    const slot = normaliseSlot(slotIso);
-    try {
-      const r = await this.pool.query('INSERT INTO schedule_slots (dataset_id, slot, claimed_at) VALUES ($1, $2, $3) ON CONFLICT DO NOTHING', [datasetId, slot, nowIso()]);
-      return r.rowCount === 1;
-    } catch (e) {
-      if (pgCode(e) === '23503') throw notFoundDataset(datasetId);
-      throw e;
-    }
-  }
-
   async reserveTrackNumbers(datasetId: string, count: number): Promise<number> {
     checkTrackCount(count);
     try {

@@ -498,15 +498,6 @@ export class SqliteStore implements Store {
     return tx.immediate().map(formatRunId);
   }
 
-  async claimScheduledSlot(datasetId: string, slotIso: string): Promise<boolean> {
-    const slot = normaliseSlot(slotIso);
-    const tx = this.db.transaction((): boolean => {
-      this.requireDataset(datasetId);
-      return this.db.prepare('INSERT INTO schedule_slots (dataset_id, slot, claimed_at) VALUES (?, ?, ?) ON CONFLICT DO NOTHING').run(datasetId, slot, nowIso()).changes === 1;
-    });
-    return tx.immediate();
-  }
-
   async reserveTrackNumbers(datasetId: string, count: number): Promise<number> {
     checkTrackCount(count);
     const tx = this.db.transaction((): number => {

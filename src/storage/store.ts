@@ -362,8 +362,6 @@ export interface Store {
   /** Runs left 'running' go back to 'queued' (progress 0, no worker). @returns their ids */
   requeueInterruptedRuns(filter?: InterruptedRunFilter): Promise<string[]>;
 
-  /** True for exactly one caller per (dataset, slot) across processes and instances. @throws StoreError 'not-found' */
-  claimScheduledSlot(datasetId: string, slotIso: string): Promise<boolean>;
   /**
    * Claims the slot and creates its run in one transaction: the run for exactly one caller per
    * (dataset, slot), null for the others. A crash between the two cannot leave a slot claimed

@@ -96,11 +96,13 @@ describe('the scheduler on a fake clock', () => {
 
   it('a slot already claimed (by another instance) creates no run here', async () => {
     at('2025-06-01T00:00:30Z');
-    expect(await store.claimScheduledSlot(DATASET.id, '2025-06-01T00:00:00Z')).toBe(true); // 02:00 CEST, taken elsewhere
+    const elsewhere = await store.createScheduledRun({ datasetId: DATASET.id, settings: {}, trigger: 'schedule' }, '2025-06-01T00:00:00Z'); // 02:00 CEST, taken elsewhere
+    expect(elsewhere).not.toBeNull();
     const s = new Scheduler({ store, now: () => clock, settings: { catchUpMs: 60_000 }, log });
     await s.tick();
     expect(s.lastReport).toEqual({ created: [], lost: [{ datasetId: DATASET.id, slot: '2025-06-01T00:00:00.000Z' }] });
-    expect(await scheduled()).toEqual([]);
+    // only the other instance's run
+    expect((await scheduled()).map((r) => r.id)).toEqual([elsewhere!.id]);
   });
 
   it('tries a slot again at the next look when its run could not be created, and claims nothing meanwhile', async () => {

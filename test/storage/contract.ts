@@ -116,12 +116,12 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         await store.createDataset(DS);
         await store.ingest('herons', seededRecords(1, 20), KEEP);
         const run = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
-        await store.claimScheduledSlot('herons', '2024-05-01T02:00:00Z');
+        await store.createScheduledRun({ datasetId: 'herons', settings: {}, trigger: 'schedule' }, '2024-05-01T02:00:00Z');
         await store.deleteDataset('herons');
         await store.createDataset(DS);
         expect(await store.countObservations('herons')).toBe(0);
         expect(await store.getRun('herons', run.id)).toBeNull();
-        expect(await store.claimScheduledSlot('herons', '2024-05-01T02:00:00Z')).toBe(true);
+        expect(await store.createScheduledRun({ datasetId: 'herons', settings: {}, trigger: 'schedule' }, '2024-05-01T02:00:00Z')).not.toBeNull();
       });
 
       it('deleting a dataset while batches arrive from another store leaves no observation behind', async () => {
@@ -540,39 +540,24 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
     });
 
     describe('schedule slots', () => {
-      it('are claimed exactly once across stores racing for the same slot', async () => {
-        await store.createDataset(DS);
-        const other = await open();
-        const slot = '2024-05-02T00:00:00.000Z';
-        const results = await Promise.all(Array.from({ length: 16 }, (_, i) => (i % 2 === 0 ? store : other).claimScheduledSlot('herons', slot)));
-        expect(results.filter((x) => x)).toHaveLength(1);
-        // the same instant written with an offset is the same slot; the next night is a new one
-        expect(await other.claimScheduledSlot('herons', '2024-05-02T02:00:00+02:00')).toBe(false);
-        expect(await other.claimScheduledSlot('herons', '2024-05-03T00:00:00Z')).toBe(true);
-        await rejects(store.claimScheduledSlot('nope', slot), 'not-found');
-        await rejects(store.claimScheduledSlot('herons', 'tonight'), 'invalid');
-      });
-
       it('are claimed together with their run: one run per slot across racing stores, none for a slot taken', async () => {
         await store.createDataset(DS);
         const other = await open();
         const slot = '2024-05-02T00:00:00.000Z';
-        const runs = await Promise.all(
-          Array.from({ length: 12 }, (_, i) => (i % 2 === 0 ? store : other).createScheduledRun({ datasetId: 'herons', settings: { eps: 90 }, trigger: 'schedule' }, slot)),
-        );
+        const claim = (s: Store, datasetId: string, at: string, settings: Record<string, unknown> = {}) => s.createScheduledRun({ datasetId, settings, trigger: 'schedule' }, at);
+        const runs = await Promise.all(Array.from({ length: 16 }, (_, i) => claim(i % 2 === 0 ? store : other, 'herons', slot, { eps: 90 })));
         const made = runs.filter((r) => r !== null);
         expect(made).toHaveLength(1);
         expect(made[0]).toMatchObject({ datasetId: 'herons', status: 'queued', trigger: 'schedule', settings: { eps: 90 } });
         expect((await store.listRuns('herons', { limit: 50 })).runs.map((r) => r.id)).toEqual([made[0]!.id]);
-        expect(await store.claimScheduledSlot('herons', slot)).toBe(false);
-        // a slot claimed on its own (as before) gets no run either
-        expect(await store.claimScheduledSlot('herons', '2024-05-03T00:00:00Z')).toBe(true);
-        expect(await other.createScheduledRun({ datasetId: 'herons', settings: {}, trigger: 'schedule' }, '2024-05-03T00:00:00Z')).toBeNull();
+        // the same instant written with an offset is the same slot; the next night is a new one
+        expect(await claim(other, 'herons', '2024-05-02T02:00:00+02:00')).toBeNull();
+        expect(await claim(other, 'herons', '2024-05-03T00:00:00Z')).not.toBeNull();
         // refused: nothing claimed, so the slot stays free
-        await rejects(store.createScheduledRun({ datasetId: 'nope', settings: {}, trigger: 'schedule' }, slot), 'not-found');
-        await rejects(store.createScheduledRun({ datasetId: 'herons', settings: [] as unknown as Record<string, unknown>, trigger: 'schedule' }, '2024-05-04T00:00:00Z'), 'invalid');
-        await rejects(store.createScheduledRun({ datasetId: 'herons', settings: {}, trigger: 'schedule' }, 'tonight'), 'invalid');
-        expect(await store.claimScheduledSlot('herons', '2024-05-04T00:00:00Z')).toBe(true);
+        await rejects(claim(store, 'nope', slot), 'not-found');
+        await rejects(claim(store, 'herons', '2024-05-04T00:00:00Z', [] as unknown as Record<string, unknown>), 'invalid');
+        await rejects(claim(store, 'herons', 'tonight'), 'invalid');
+        expect(await claim(store, 'herons', '2024-05-04T00:00:00Z')).not.toBeNull();
       });
     });
 
