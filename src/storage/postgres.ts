@@ -79,7 +79,7 @@ const WRITE_CHUNK = 5000;
 const INGEST_HASHES = `SELECT u.id, h.content_hash FROM unnest($2::text[]) AS u(id)
   CROSS JOIN LATERAL (SELECT content_hash FROM observations WHERE dataset_id = $1 AND obs_id = u.id) h`;
 
-/** New observations go in by COPY (text format): 1 000 rows in about 12 ms less than an INSERT over unnest()ed arrays, measured. */
+/** New observations go in by COPY (text format): 1 000 rows in 22 ms against 28 ms for an INSERT over unnest()ed arrays, measured. */
 const INGEST_COPY = 'COPY observations (dataset_id, obs_id, lon, lat, observed_at, weight, content_hash, feature) FROM STDIN';
 
 /** int8 (bigint) as a JavaScript number: sequences and epoch milliseconds stay far below 2^53. */
@@ -269,9 +269,8 @@ export class PostgresStore implements Store {
     const { from, clause } = whereClause(new Literals(), datasetId, query);
     const c = await this.pool.connect();
     try {
-      await c.query('BEGIN READ ONLY');
       // A scan joining another one already under way would start in the middle of the table.
-      await c.query('SET LOCAL synchronize_seqscans = off');
+      await c.query('BEGIN READ ONLY; SET LOCAL synchronize_seqscans = off');
       const copy = new RunCopyQuery(`COPY (SELECT ${RUN_COPY_COLUMNS} FROM ${from} WHERE ${clause}) TO STDOUT (FORMAT binary)`);
       c.query(copy as unknown as pg.Submittable);
       const input = await copy.result;
