@@ -159,12 +159,21 @@ function retryAfterMs(value: string | null): number | null {
   return Number.isNaN(at) ? null : Math.max(0, at - Date.now());
 }
 
+/** Told after each attempt that did not deliver, before the wait for the next one. */
+export type AttemptListener = (report: DeliveryReport) => void;
+
 /**
  * POSTs `body` to the webhook, signed, retrying as the module header says. Never throws; the
  * report tells what happened. `signal` stops waiting between attempts and aborts the one under way
- * (used at shutdown).
+ * (used at shutdown); `onAttempt` hears of every failed attempt (for logs, metrics and tests).
  */
-export async function deliverNotice(webhook: DatasetWebhook, body: string, settings: Partial<WebhookSettings> = {}, signal?: AbortSignal): Promise<DeliveryReport> {
+export async function deliverNotice(
+  webhook: DatasetWebhook,
+  body: string,
+  settings: Partial<WebhookSettings> = {},
+  signal?: AbortSignal,
+  onAttempt?: AttemptListener,
+): Promise<DeliveryReport> {
   const s = resolveWebhookSettings(settings);
   const delivery = randomUUID();
   let status: number | null = null;
@@ -201,6 +210,7 @@ export async function deliverNotice(webhook: DatasetWebhook, body: string, setti
       error = err.name === 'TimeoutError' ? `no answer within ${s.timeoutMs} ms` : `${err.message}${err.cause?.code ? ` (${err.cause.code})` : ''}`;
     }
     if (!retry || attempt === s.attempts) return { delivered: false, attempts: attempt, status, error };
+    onAttempt?.({ delivered: false, attempts: attempt, status, error });
     await sleep(waitMs, signal);
     delayMs = Math.min(s.maxDelayMs, delayMs * 2);
   }
@@ -215,11 +225,15 @@ export async function notifyRun(
   dataset: Dataset,
   run: Run,
   outcome: RunOutcome,
-  options: { settings?: Partial<WebhookSettings>; publicUrl?: string | null; log?: NoticeLog; signal?: AbortSignal } = {},
+  options: { settings?: Partial<WebhookSettings>; publicUrl?: string | null; log?: NoticeLog; signal?: AbortSignal; onAttempt?: AttemptListener } = {},
 ): Promise<DeliveryReport | null> {
   if (dataset.webhook === null) return null;
   const body = JSON.stringify(runNotice(dataset, run, outcome, options.publicUrl ?? null));
-  const report = await deliverNotice(dataset.webhook, body, options.settings, options.signal);
+  const onAttempt: AttemptListener = (rep) => {
+    options.log?.info({ dataset: dataset.id, run: run.id, attempts: rep.attempts, status: rep.status, error: rep.error }, 'run notice attempt failed; trying again');
+    options.onAttempt?.(rep);
+  };
+  const report = await deliverNotice(dataset.webhook, body, options.settings, options.signal, onAttempt);
   const fields = { dataset: dataset.id, run: run.id, attempts: report.attempts, status: report.status };
   if (report.delivered) options.log?.info(fields, 'run notice delivered');
   else options.log?.warn({ ...fields, error: report.error }, 'run notice not delivered; the run itself is unaffected');

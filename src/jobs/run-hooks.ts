@@ -18,6 +18,8 @@ export interface RoostHookOptions {
   log?: NoticeLog;
   /** told of every notice's outcome (for tests and metrics) */
   onNotice?: (runId: string, report: DeliveryReport) => void;
+  /** told of every failed attempt that will be tried again, before the wait (for tests and metrics) */
+  onAttempt?: (runId: string, report: DeliveryReport) => void;
 }
 
 export interface RoostHooks extends RunHooks {
@@ -39,7 +41,7 @@ export function createRoostHooks(options: RoostHookOptions = {}): RoostHooks {
       // the dataset as it is now: a webhook changed or removed during the run is respected
       const dataset = await ctx.store.getDataset(ctx.dataset.id);
       if (dataset === null || dataset.webhook === null) return;
-      const p = notifyRun(dataset, ctx.run, outcome, { settings: webhook, publicUrl: options.publicUrl ?? null, log: options.log, signal: stop.signal }).then(
+      const p = notifyRun(dataset, ctx.run, outcome, { settings: webhook, publicUrl: options.publicUrl ?? null, log: options.log, signal: stop.signal, onAttempt: (rep) => options.onAttempt?.(ctx.run.id, rep) }).then(
         (report) => {
           if (report) options.onNotice?.(ctx.run.id, report);
         },

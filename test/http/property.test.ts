@@ -9,8 +9,11 @@ import { SETTING_NAMES } from '../../src/run/settings.js';
 import { expectMatchesSpec, testApp } from './helper.js';
 
 const MEDIA_TYPES = ['application/geo+json', 'application/json', 'text/csv', 'application/geo+json-seq'] as const;
-/** runs per property; raise with ROOST_FC_RUNS for a longer hunt */
-const RUNS = Number(process.env.ROOST_FC_RUNS ?? 40);
+/** runs per property (the fixed examples count among them, so at least 5); raise with ROOST_FC_RUNS for a longer hunt */
+const RUNS = Math.max(5, Number(process.env.ROOST_FC_RUNS ?? 40));
+/** fixed so every run draws the same cases; ROOST_FC_SEED varies it on purpose */
+const SEED = Number(process.env.ROOST_FC_SEED ?? 20261202);
+console.log(`test/http/property.test.ts: fast-check seed ${SEED} (set ROOST_FC_SEED to vary), ${RUNS} runs per property`);
 
 const coordinate = fc.oneof(
   fc.double({ min: -200, max: 200, noNaN: true }),
@@ -56,6 +59,12 @@ const validCollection = fc.array(goodFeature, { minLength: 1, maxLength: 40 }).m
   type: 'FeatureCollection',
   features: features.map((f, i) => ({ ...f, id: `f${i}` })),
 }));
+
+/** A fixed collection of valid points that clusters at eps 300 m, min_points 2. */
+const VALID_DOC = {
+  type: 'FeatureCollection',
+  features: [0, 1, 2].map((i) => ({ type: 'Feature', id: `v${i}`, geometry: { type: 'Point', coordinates: [8.5 + i * 1e-4, 47.3] }, properties: { count: 1, kind: 'a' } })),
+};
 
 const collection = fc.oneof(
   { weight: 4, arbitrary: validCollection },
@@ -140,7 +149,8 @@ describe('random and malformed input', { timeout: 300_000 }, () => {
         const url = path === '/v1/k-distance' ? `${path}?${q.replace(/(^|&)(eps|layer)=[^&]*/g, '')}` : `${path}?${q}`;
         await check(url, 'application/geo+json', body);
       }),
-      { numRuns: RUNS },
+      // the examples reach the clustering whatever the random draws (a 200 on each path)
+      { numRuns: RUNS, seed: SEED, examples: [[JSON.stringify(VALID_DOC), 'eps=300&min_points=2', '/v1/cluster'], [JSON.stringify(VALID_DOC), 'min_points=2', '/v1/k-distance'], ['{"type":', 'eps=300', '/v1/cluster'], ['{"type":', 'min_points=2', '/v1/k-distance']] },
     );
     expectBoth('/v1/cluster application/geo+json');
     expectBoth('/v1/k-distance application/geo+json');
@@ -151,7 +161,7 @@ describe('random and malformed input', { timeout: 300_000 }, () => {
       fc.asyncProperty(csv, fc.constantFrom('', '&min_points=2', '&lon_column=x&lat_column=y', '&weight=count'), async (body, extra) => {
         await check(`/v1/cluster?eps=500${extra}`, 'text/csv', body);
       }),
-      { numRuns: RUNS },
+      { numRuns: RUNS, seed: SEED + 1, examples: [['lon,lat,count\n8.5,47.3,1\n8.5001,47.3001,2', '&min_points=2'], ['lon,lat\n8.5,not-a-number', '']] },
     );
     expectBoth('/v1/cluster text/csv');
   });
@@ -161,7 +171,7 @@ describe('random and malformed input', { timeout: 300_000 }, () => {
       fc.asyncProperty(sequence, async (body) => {
         await check('/v1/cluster?eps=500&min_points=2', 'application/geo+json-seq', body);
       }),
-      { numRuns: RUNS },
+      { numRuns: RUNS, seed: SEED + 2, examples: [[VALID_DOC.features.map((f) => `\u001e${JSON.stringify(f)}\n`).join('')], ['{"type":']] },
     );
     expectBoth('/v1/cluster application/geo+json-seq');
   });
@@ -171,7 +181,7 @@ describe('random and malformed input', { timeout: 300_000 }, () => {
       fc.asyncProperty(fc.uint8Array({ maxLength: 300 }), fc.constantFrom(...MEDIA_TYPES), fc.constantFrom('/v1/cluster?eps=100', '/v1/k-distance'), async (bytes, type, url) => {
         await check(url, type, Buffer.from(bytes));
       }),
-      { numRuns: RUNS },
+      { numRuns: RUNS, seed: SEED + 3 },
     );
   });
 });

@@ -218,10 +218,19 @@ describe('notices after stored runs', () => {
     servers.push(r.server);
     await store.createDataset({ ...DATASET, webhook: { url: r.url, secret: SECRET } });
     const reports: DeliveryReport[] = [];
-    const hooks = createRoostHooks({ webhook: { attempts: 5, firstDelayMs: 60_000, maxDelayMs: 60_000, timeoutMs: 1000 }, onNotice: (_id, rep) => reports.push(rep) });
+    // the client's own word that its first attempt was answered and it is now waiting to retry
+    // (waiting on the receiver instead raced the client reading the answer)
+    let firstFailed!: () => void;
+    const waiting = new Promise<void>((res) => (firstFailed = res));
+    const hooks = createRoostHooks({
+      webhook: { attempts: 5, firstDelayMs: 60_000, maxDelayMs: 60_000, timeoutMs: 1000 },
+      onNotice: (_id, rep) => reports.push(rep),
+      onAttempt: () => firstFailed(),
+    });
     await store.ingest(DATASET.id, grid('P', [12.5, 41.9], 0, 0, 3, 3), { replace: false, partial: false });
     await runOnce(store, DATASET.id, hooks);
-    while (r.got.length === 0) await new Promise((res) => setTimeout(res, 5));
+    await waiting;
+    expect(r.got).toHaveLength(1);
     await hooks.close(); // would wait a minute for the second attempt otherwise
     expect(reports).toEqual([{ delivered: false, attempts: 1, status: 500, error: 'stopped: the service is shutting down' }]);
   });
