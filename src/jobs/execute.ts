@@ -170,6 +170,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
           undefined,
           { source: 'stored', dataset: dataset.id, query: queryRecord(query) },
           texts,
+          input.ids,
         );
   if (result === null) throw new Error(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window`);
   t = lap('cluster', t);

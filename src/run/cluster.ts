@@ -22,6 +22,7 @@ import {
   featureStringWithProperties,
 } from '../geometry/geojson.js';
 import { hotspotHull, type HullGeometry } from '../geometry/hull.js';
+import { categoryNames, hotspotPropertiesText } from '../geometry/layer-fields.js';
 import { roundDecimals, roundMeters, roundSignificant } from '../geometry/rounding.js';
 import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
@@ -201,8 +202,18 @@ function categoryValues(features: InputFeature[], property: string): (string | n
   return out;
 }
 
-function hotspotProperties(f: HotspotFigures, features: InputFeature[]): Record<string, unknown> {
-  const medoid = features[f.medoid];
+/**
+ * The medoid's id as a string: the observation's own id (a stored observation's id, or the
+ * input feature's `id`), else its position in the input.
+ */
+function medoidId(f: HotspotFigures, features: InputFeature[], kept: ArrayLike<number>, ids?: ArrayLike<string>): string {
+  const input = kept[f.medoid];
+  if (ids !== undefined && ids[input] !== undefined) return ids[input];
+  const own = features[f.medoid].id;
+  return String(own ?? input);
+}
+
+function hotspotProperties(f: HotspotFigures, features: InputFeature[], medoid: string): Record<string, unknown> {
   return {
     hotspot_id: f.hotspot + 1,
     track_id: null,
@@ -215,7 +226,7 @@ function hotspotProperties(f: HotspotFigures, features: InputFeature[]): Record<
     weight_density_per_km2: sig(f.weightDensityPerKm2),
     radius_m: roundMeters(f.radiusMeters),
     centre: [round(f.centre[0], 7), round(f.centre[1], 7)],
-    medoid_id: medoid.id ?? f.medoid,
+    medoid_id: medoid,
     first_observed_at: f.firstObservedAt,
     last_observed_at: f.lastObservedAt,
     ...(f.categories ? { categories: f.categories } : {}),
@@ -379,6 +390,7 @@ export interface FeatureTextSource {
  * `featureTexts`, when given, holds the canonical text of every input feature (by position in
  * `all`); the points and noise layers are then written from those texts (same bytes, no
  * re-serialising), and `all.features` is read only for count_by, weights and medoid ids.
+ * `ids`, when given, holds each input observation's id (by position in `all`), for `medoid_id`.
  */
 export function clusterObservations(
   all: Observations,
@@ -387,6 +399,7 @@ export function clusterObservations(
   timer: Timer = new Timer(hooks),
   inputInfo: Record<string, unknown> = {},
   featureTexts?: FeatureTextSource,
+  ids?: ArrayLike<string>,
 ): ClusterResult {
   const filtered = applyFilter(all, { since: settings.since, until: settings.until, where: settings.where });
   const obs = filtered.observations;
@@ -445,7 +458,7 @@ export function clusterObservations(
     const own = members.slice(start[h], start[h + 1]);
     const coreMembers = new Int32Array(figures[h].coreCount);
     for (let k = 0, c = 0; k < own.length; k++) if (clustering.roles[own[k]] === ROLE_CORE) coreMembers[c++] = own[k];
-    resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], features) });
+    resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], features, medoidId(figures[h], features, filtered.kept, ids)) });
   }
   let noiseCount = 0;
   for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseCount++;
@@ -469,16 +482,20 @@ export function clusterObservations(
   const centresBbox = bboxOf(figures.map((f) => ({ type: 'Point' as const, coordinates: f.centre })));
   const noiseBbox = bboxOfPositions(noiseLon, noiseLat);
   const pointsBbox = bboxOfPositions(points.lon, points.lat);
+  // the layers' fixed fields (src/geometry/layer-fields.ts), read when a layer is written so that
+  // track ids filled in after clustering are included
+  const categories = categoryNames(resultHotspots.map((r) => r.properties));
+  const layerProperties = (r: ResultHotspot): string => hotspotPropertiesText(r.properties, categories);
   const layers: Record<LayerName, Layer> = {
     hotspots: new Layer(() => [
       featureCollectionString(
-        resultHotspots.map((r) => featureString(r.hull, r.properties, r.hotspotId)),
+        resultHotspots.map((r) => featureStringWithProperties(r.hull, layerProperties(r), r.hotspotId)),
         hotspotsBbox,
       ),
     ]),
     centres: new Layer(() => [
       featureCollectionString(
-        resultHotspots.map((r) => featureString({ type: 'Point', coordinates: r.figures.centre }, r.properties, r.hotspotId)),
+        resultHotspots.map((r) => featureStringWithProperties({ type: 'Point', coordinates: r.figures.centre }, layerProperties(r), r.hotspotId)),
         centresBbox,
       ),
     ]),
