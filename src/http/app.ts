@@ -10,6 +10,7 @@ import Fastify, { type FastifyError, type FastifyInstance, type FastifyReply, ty
 import underPressure from '@fastify/under-pressure';
 import swagger from '@fastify/swagger';
 import swaggerUi from '@fastify/swagger-ui';
+import { parse } from 'yaml';
 import { resolveSettings, SettingsError } from '../run/settings.js';
 import { BODY_MEDIA_TYPES, formatOf, rawBodyParser } from './body.js';
 import { DEFAULT_CONFIG, type ServerConfig } from './config.js';
@@ -28,6 +29,7 @@ import type { DatasetServices } from './routes/common.js';
 import { registerDatasetRoutes } from './routes/datasets.js';
 import { registerObservationRoutes } from './routes/observations.js';
 import { registerRunRoutes } from './routes/runs.js';
+import { featuresRoutes } from '../ogc/routes.js';
 
 /** The repository's OpenAPI document, two levels up from src/http and from dist/http alike. */
 export const OPENAPI_PATH = fileURLToPath(new URL('../../openapi.yaml', import.meta.url));
@@ -54,6 +56,16 @@ declare module 'fastify' {
   interface FastifyInstance {
     datasets: DatasetServices;
   }
+}
+
+/** The address clients reach this service at: the configured public URL, else the request's own. */
+function serviceUrl(request: FastifyRequest, publicUrl: string | undefined): string {
+  return publicUrl ? publicUrl.replace(/\/+$/, '') : `${request.protocol}://${request.host}`;
+}
+
+/** The OpenAPI document with its server list replaced by one address. */
+function withServer(spec: Readonly<Record<string, unknown>>, url: string): Record<string, unknown> {
+  return { ...spec, servers: [{ url, description: 'this service' }] };
 }
 
 /** A client-supplied request id is kept when it is short and plain, so logs can be joined. */
@@ -204,6 +216,8 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
       header.replace(/\s*upgrade-insecure-requests;/, '').replace(/ validator\.swagger\.io/, '').replace(/ https:/g, ''),
     // no calls to an outside validator: the page works offline
     uiConfig: { validatorUrl: null, deepLinking: true },
+    // "Try it out" calls the service the page was loaded from, whatever its address
+    transformSpecification: (spec, request) => withServer(spec, serviceUrl(request, config.publicUrl)),
   });
 
   app.get('/healthz', { config: { pressureHandler: () => undefined }, logLevel: 'warn' }, async () => ({
@@ -216,6 +230,14 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
 
   app.get('/openapi.yaml', async (_request, reply) => {
     return reply.type('application/yaml').send(openapiBytes);
+  });
+  // the same document as JSON (what OGC API clients read), naming the address it was fetched from
+  const openapiDoc = parse(openapiBytes.toString('utf8')) as Record<string, unknown>;
+  app.get('/openapi.json', async (request, reply) => {
+    // its own media type, or plain JSON for a client that asks for that but not for it
+    const accept = request.headers.accept ?? '';
+    const type = accept.includes('application/json') && !accept.includes('application/vnd.oai.openapi+json;version=3.1') ? 'application/json' : 'application/vnd.oai.openapi+json;version=3.1';
+    return reply.type(type).send(JSON.stringify(withServer(openapiDoc, serviceUrl(request, config.publicUrl))));
   });
 
   const admit = async (request: FastifyRequest): Promise<void> => {
@@ -340,6 +362,7 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   registerObservationRoutes(app, app.datasets);
   registerRunRoutes(app, app.datasets);
   registerChangeRoutes(app, { store });
+  await app.register(featuresRoutes, { store, publicUrl: config.publicUrl || null });
 
   // Registered last so the slow start-up above does not count as event-loop delay.
   await app.register(underPressure, {

@@ -18,6 +18,7 @@ import type {
   ListObservationsOptions,
   NewDataset,
   NewRun,
+  ObservationExtent,
   ObservationPage,
   ObservationQuery,
   ObservationRecord,
@@ -255,8 +256,27 @@ export class PostgresStore implements Store {
     return ((await this.pool.query('DELETE FROM observations WHERE dataset_id = $1 AND obs_id = $2', [datasetId, id])).rowCount ?? 0) > 0;
   }
 
-  async countObservations(datasetId: string): Promise<number> {
-    return (await this.pool.query('SELECT count(*)::int AS n FROM observations WHERE dataset_id = $1', [datasetId])).rows[0].n as number;
+  async countObservations(datasetId: string, query?: ObservationQuery): Promise<number> {
+    if (query === undefined) return (await this.pool.query('SELECT count(*)::int AS n FROM observations WHERE dataset_id = $1', [datasetId])).rows[0].n as number;
+    checkQuery(query);
+    const p = new Params();
+    const { from, clause } = whereClause(p, datasetId, query);
+    return (await this.pool.query({ text: `SELECT count(*)::int AS n FROM ${from} WHERE ${clause}`, values: p.values })).rows[0].n as number;
+  }
+
+  async getObservation(datasetId: string, id: string): Promise<string | null> {
+    const r = await this.pool.query({ text: 'SELECT feature FROM observations WHERE dataset_id = $1 AND obs_id = $2', values: [datasetId, id], rowMode: 'array' });
+    return r.rows.length === 0 ? null : String((r.rows[0] as [unknown])[0]);
+  }
+
+  async observationExtent(datasetId: string): Promise<ObservationExtent> {
+    const r = await this.pool.query({
+      text: 'SELECT count(*)::int, min(lon), min(lat), max(lon), max(lat), min(observed_at)::float8, max(observed_at)::float8 FROM observations WHERE dataset_id = $1',
+      values: [datasetId],
+      rowMode: 'array',
+    });
+    const [count, w, s, e, n, first, last] = r.rows[0] as [number, number | null, number | null, number | null, number | null, number | null, number | null];
+    return { count, bbox: count === 0 ? null : [Number(w), Number(s), Number(e), Number(n)], first, last };
   }
 
   /**

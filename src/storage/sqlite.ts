@@ -16,6 +16,7 @@ import type {
   ListObservationsOptions,
   NewDataset,
   NewRun,
+  ObservationExtent,
   ObservationPage,
   ObservationQuery,
   ObservationRecord,
@@ -224,8 +225,24 @@ export class SqliteStore implements Store {
     return this.db.prepare('DELETE FROM observations WHERE dataset_id = ? AND obs_id = ?').run(datasetId, id).changes > 0;
   }
 
-  async countObservations(datasetId: string): Promise<number> {
-    return this.db.prepare('SELECT count(*) FROM observations WHERE dataset_id = ?').pluck().get(datasetId) as number;
+  async countObservations(datasetId: string, query?: ObservationQuery): Promise<number> {
+    if (query === undefined) return this.db.prepare('SELECT count(*) FROM observations WHERE dataset_id = ?').pluck().get(datasetId) as number;
+    checkQuery(query);
+    const { clause, args } = whereClause(datasetId, query);
+    return this.db.prepare(`SELECT count(*) FROM observations WHERE ${clause}`).pluck().get(...args) as number;
+  }
+
+  async getObservation(datasetId: string, id: string): Promise<string | null> {
+    const row = this.db.prepare('SELECT feature FROM observations WHERE dataset_id = ? AND obs_id = ?').pluck().get(datasetId, id) as string | undefined;
+    return row ?? null;
+  }
+
+  async observationExtent(datasetId: string): Promise<ObservationExtent> {
+    const [count, w, s, e, n, first, last] = this.db
+      .prepare('SELECT count(*), min(lon), min(lat), max(lon), max(lat), min(observed_at), max(observed_at) FROM observations WHERE dataset_id = ?')
+      .raw()
+      .get(datasetId) as [number, number | null, number | null, number | null, number | null, number | null, number | null];
+    return { count, bbox: count === 0 ? null : [w!, s!, e!, n!], first, last };
   }
 
   async loadForRun(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<RunInput> {

@@ -165,6 +165,16 @@ export interface ListObservationsOptions extends ObservationQuery {
   limit: number;
 }
 
+/** Where and when a dataset's observations lie. */
+export interface ObservationExtent {
+  count: number;
+  /** [west, south, east, north] in degrees (least and greatest longitude and latitude), null when there are none */
+  bbox: [number, number, number, number] | null;
+  /** earliest and latest `observed_at`, epoch ms, null when no observation has a time */
+  first: number | null;
+  last: number | null;
+}
+
 export interface ObservationPage {
   /** stored feature texts in insertion order */
   features: string[];
@@ -321,7 +331,12 @@ export interface Store {
   listObservations(datasetId: string, options: ListObservationsOptions): Promise<ObservationPage>;
   /** Removes one observation (a retraction). @returns false when it was not stored */
   deleteObservation(datasetId: string, id: string): Promise<boolean>;
-  countObservations(datasetId: string): Promise<number>;
+  /** Observations of the dataset, or those matching the query. @throws StoreError 'invalid' for a bad query */
+  countObservations(datasetId: string, query?: ObservationQuery): Promise<number>;
+  /** One stored observation's feature text, null when it is not stored. */
+  getObservation(datasetId: string, id: string): Promise<string | null>;
+  /** Count, bounding box and time span of the dataset's observations. */
+  observationExtent(datasetId: string): Promise<ObservationExtent>;
   /** The matching observations as columns, in insertion order. */
   loadForRun(datasetId: string, query?: Omit<ObservationQuery, 'bbox'>): Promise<RunInput>;
   /** Positions of the given observations (for example a run's core members); unknown ids are left out. */

@@ -287,6 +287,26 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         await rejects(store.listObservations('herons', { bbox: [0, 10, 5, 0], limit: 5 }), 'invalid');
       });
 
+      it('counts matching observations, reads one by id, and gives the extent of a dataset', async () => {
+        const bbox: [number, number, number, number] = [170, 0, -170, 85];
+        expect(await store.countObservations('herons', { bbox })).toBe(recs.filter((r) => inBbox(r, bbox)).length);
+        expect(await store.countObservations('herons', {})).toBe(400);
+        expect(await store.getObservation('herons', recs[17]!.id)).toBe(recs[17]!.feature);
+        expect(await store.getObservation('herons', 'no-such-id')).toBeNull();
+        const extent = await store.observationExtent('herons');
+        const times = recs.flatMap((r) => (r.observedAt === null ? [] : [r.observedAt]));
+        expect(extent).toEqual({
+          count: 400,
+          bbox: [Math.min(...recs.map((r) => r.lon)), Math.min(...recs.map((r) => r.lat)), Math.max(...recs.map((r) => r.lon)), Math.max(...recs.map((r) => r.lat))],
+          first: Math.min(...times),
+          last: Math.max(...times),
+        });
+        await store.createDataset({ ...DS, id: 'empty' });
+        expect(await store.observationExtent('empty')).toEqual({ count: 0, bbox: null, first: null, last: null });
+        // another dataset's observation of the same id is not this one's
+        expect(await store.getObservation('empty', recs[17]!.id)).toBeNull();
+      });
+
       it('filters by time window [from, to), leaving out observations without a time', async () => {
         const from = T0 + 5 * DAY_MS;
         const to = T0 + 12 * DAY_MS;

@@ -17,6 +17,7 @@ import { parseCondition } from '../../run/settings.js';
 import type { Dataset, ListObservationsOptions, Store, WhereCondition } from '../../storage/store.js';
 import { StoreError } from '../../storage/store.js';
 import { formatOf } from '../body.js';
+import { sendTagged } from '../conditional.js';
 import { HttpProblem, MAX_LISTED_PROBLEMS } from '../errors.js';
 import { flag, integer, requireDataset, settingsProblem, storeProblem, type DatasetServices } from './common.js';
 
@@ -267,7 +268,7 @@ export function registerObservationRoutes(app: FastifyInstance, services: Datase
     const box = bboxOfPositions(page.lon, page.lat);
     const bbox = box === null ? null : [floorTo(box[0]), floorTo(box[1]), ceilTo(box[2]), ceilTo(box[3])];
     const text = featureCollectionString(page.features, bbox, { numberReturned: page.features.length, links });
-    return reply.type('application/geo+json').send(text);
+    return sendTagged(request, reply, 'application/geo+json', text);
   });
 
   app.delete<{ Params: { id: string; obsId: string } }>('/v1/datasets/:id/observations/:obsId', async (request, reply) => {

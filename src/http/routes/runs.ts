@@ -5,7 +5,11 @@
  * newest succeeded run, so a GIS can pull one URL every morning.
  */
 import { Readable } from 'node:stream';
-import type { FastifyInstance } from 'fastify';
+import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
+import { featureCollectionString } from '../../geometry/geojson.js';
+import { layerIndex, layerPage } from '../../ogc/layers.js';
+import { onlyParams, parseItemsQuery, parseLimit } from '../../ogc/query.js';
+import { notModified, sendTagged } from '../conditional.js';
 import { resolveSettings } from '../../run/settings.js';
 import { RUN_LAYERS, StoreError, type Run, type RunLayer } from '../../storage/store.js';
 import { HttpProblem } from '../errors.js';
@@ -18,15 +22,37 @@ function layerOf(name: string): RunLayer {
   return name as RunLayer;
 }
 
+/** What a result-layer address takes: without any, the whole layer as stored. */
+const LAYER_PARAMS = ['bbox', 'datetime', 'limit', 'cursor'];
+
 export function registerRunRoutes(app: FastifyInstance, services: DatasetServices): void {
   const { store, runner } = services;
 
-  const sendLayer = async (run: Run, layer: RunLayer, reply: import('fastify').FastifyReply) => {
+  const sendLayer = async (request: FastifyRequest, run: Run, layer: RunLayer, reply: FastifyReply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    onlyParams(query, LAYER_PARAMS);
+    const q = { ...parseItemsQuery(query, LAYER_PARAMS), limit: query.limit === undefined ? Number.MAX_SAFE_INTEGER : parseLimit(String(query.limit)) };
     if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
+    void reply.header('x-roost-run', run.id);
+    if (Object.keys(query).length > 0) {
+      // a page of the layer: its features as the run wrote them, with the link to the next page
+      const page = layerPage(await layerIndex(store, run.id, layer), q);
+      const links = [];
+      if (page.next !== null) {
+        const next = new URLSearchParams();
+        for (const [k, v] of Object.entries(query)) if (k !== 'cursor') next.set(k, String(v));
+        next.set('cursor', page.next);
+        links.push({ rel: 'next', type: 'application/geo+json', href: `${request.url.split('?')[0]}?${next.toString()}` });
+      }
+      const text = featureCollectionString(page.features, null, { numberMatched: page.matched, numberReturned: page.features.length, links });
+      return sendTagged(request, reply, 'application/geo+json', text, run.finishedAt);
+    }
+    // a stored layer never changes: the run and layer name it
+    if (notModified(request, reply, `"${run.id}.${layer}"`, run.finishedAt)) return reply.code(304).send();
     // streamed piece by piece as stored: a large layer never becomes one string here
     const pieces = await store.getRunLayerPieces(run.id, layer);
     if (pieces === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
-    return reply.type('application/geo+json').header('x-roost-run', run.id).send(Readable.from(pieces, { objectMode: false }));
+    return reply.type('application/geo+json').send(Readable.from(pieces, { objectMode: false }));
   };
 
   app.post<{ Params: { id: string } }>('/v1/datasets/:id/runs', async (request, reply) => {
@@ -78,7 +104,7 @@ export function registerRunRoutes(app: FastifyInstance, services: DatasetService
 
   app.get<{ Params: { id: string; layer: string } }>('/v1/datasets/:id/runs/latest/:layer', async (request, reply) => {
     const layer = layerOf(request.params.layer);
-    return sendLayer(await latest(request.params.id), layer, reply);
+    return sendLayer(request, await latest(request.params.id), layer, reply);
   });
 
   app.get<{ Params: { id: string; run: string } }>('/v1/datasets/:id/runs/:run', async (request) => {
@@ -89,7 +115,7 @@ export function registerRunRoutes(app: FastifyInstance, services: DatasetService
   app.get<{ Params: { id: string; run: string; layer: string } }>('/v1/datasets/:id/runs/:run/:layer', async (request, reply) => {
     const layer = layerOf(request.params.layer);
     await requireDataset(store, request.params.id);
-    return sendLayer(await requireRun(store, request.params.id, request.params.run), layer, reply);
+    return sendLayer(request, await requireRun(store, request.params.id, request.params.run), layer, reply);
   });
 
   app.post<{ Params: { id: string; run: string } }>('/v1/datasets/:id/runs/:run/cancel', async (request) => {

@@ -1,0 +1,332 @@
+/**
+ * OGC API – Features at /features: Part 1 Core with GeoJSON and HTML (OGC 17-069r4) and Part 2
+ * with CRS84 only (OGC 18-058r1). Collections are each dataset's stored observations and the
+ * four layers (hotspots, centres, noise, points) of its latest succeeded run, named
+ * `<dataset>.<kind>`. Links are absolute, built from the address the request came to (or the
+ * configured public URL). JSON or HTML by `f=` or the Accept header.
+ */
+import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
+import { featureCollectionString } from '../geometry/geojson.js';
+import { categoryNames, hotspotLayerFields, propertiesJsonSchema } from '../geometry/layer-fields.js';
+import { etagOf, notModified, sendTagged } from '../http/conditional.js';
+import { HttpProblem } from '../http/errors.js';
+import { RUN_LAYERS, StoreError, type Dataset, type Run, type RunLayer, type Store } from '../storage/store.js';
+import { escapeHtml, page, table, type Link } from './html.js';
+import { layerIndex, layerPage } from './layers.js';
+import { CRS84, DEFAULT_LIMIT, MAX_LIMIT, onlyParams, parseFormat, parseItemsQuery, type Bbox, type ItemsQuery } from './query.js';
+
+export const FEATURES_ROOT = '/features';
+
+/** The conformance classes declared; what each requires is tested in test/ogc/conformance.test.ts. */
+export const CONFORMANCE = [
+  'http://www.opengis.net/spec/ogcapi-features-1/1.0/conf/core',
+  'http://www.opengis.net/spec/ogcapi-features-1/1.0/conf/geojson',
+  'http://www.opengis.net/spec/ogcapi-features-1/1.0/conf/html',
+  'http://www.opengis.net/spec/ogcapi-features-2/1.0/conf/crs',
+] as const;
+
+const GEOJSON = 'application/geo+json';
+const JSON_TYPE = 'application/json';
+const HTML = 'text/html';
+const GREGORIAN = 'http://www.opengis.net/def/uom/ISO-8601/0/Gregorian';
+const OPENAPI_JSON = 'application/vnd.oai.openapi+json;version=3.1';
+
+export type CollectionKind = 'observations' | RunLayer;
+const KINDS: readonly CollectionKind[] = ['observations', ...RUN_LAYERS];
+
+const KIND_TEXT: Record<CollectionKind, string> = {
+  observations: 'stored observations, as posted',
+  hotspots: 'hotspot hulls of the latest succeeded run, with their figures',
+  centres: 'hotspot centres of the latest succeeded run, with their figures',
+  noise: 'observations in no hotspot in the latest succeeded run',
+  points: 'every observation of the latest succeeded run, with its hotspot and role',
+};
+
+export interface FeaturesOptions {
+  store: Store;
+  /** address clients use to reach the service (no trailing slash); absent: the request's own */
+  publicUrl?: string | null;
+}
+
+/** `<dataset>.<kind>`: the kind is after the last dot (kinds have none; dataset ids may). */
+export function collectionId(datasetId: string, kind: CollectionKind): string {
+  return `${datasetId}.${kind}`;
+}
+
+export function parseCollectionId(id: string): { datasetId: string; kind: CollectionKind } | null {
+  const dot = id.lastIndexOf('.');
+  if (dot <= 0) return null;
+  const kind = id.slice(dot + 1) as CollectionKind;
+  return KINDS.includes(kind) ? { datasetId: id.slice(0, dot), kind } : null;
+}
+
+/** Whether the answer should be HTML: `f` first, else an Accept header preferring text/html. */
+export function wantsHtml(request: FastifyRequest, f: 'json' | 'html' | null): boolean {
+  if (f !== null) return f === 'html';
+  const accept = (request.headers.accept ?? '').toLowerCase();
+  if (!accept.includes(HTML)) return false;
+  // the first listed of html and a JSON type wins (browsers list text/html first)
+  const h = accept.indexOf(HTML);
+  const j = Math.min(...['application/json', GEOJSON].map((t) => accept.indexOf(t)).filter((i) => i >= 0), Infinity);
+  return h < j;
+}
+
+function baseUrl(request: FastifyRequest, publicUrl: string | null | undefined): string {
+  if (publicUrl) return publicUrl.replace(/\/+$/, '');
+  return `${request.protocol}://${request.host}`;
+}
+
+/** The query string of a request with some parameters replaced (null removes one). */
+function withParams(query: Record<string, unknown>, changes: Record<string, string | null>): string {
+  const p = new URLSearchParams();
+  for (const [k, v] of Object.entries(query)) if (!(k in changes)) for (const x of [v].flat()) p.append(k, String(x));
+  for (const [k, v] of Object.entries(changes)) if (v !== null) p.set(k, v);
+  const s = p.toString();
+  return s === '' ? '' : '?' + s;
+}
+
+interface Resolved {
+  dataset: Dataset;
+  kind: CollectionKind;
+  /** the latest succeeded run, for layer collections */
+  run: Run | null;
+}
+
+export async function featuresRoutes(app: FastifyInstance, options: FeaturesOptions): Promise<void> {
+  const { store } = options;
+  const root = (request: FastifyRequest): string => baseUrl(request, options.publicUrl) + FEATURES_ROOT;
+
+  const resolve = async (id: string): Promise<Resolved> => {
+    const parsed = parseCollectionId(id);
+    const dataset = parsed === null ? null : await store.getDataset(parsed.datasetId);
+    if (parsed === null || dataset === null) {
+      throw new HttpProblem('not-found', `there is no collection ${JSON.stringify(id)}; GET ${FEATURES_ROOT}/collections lists them`);
+    }
+    if (parsed.kind === 'observations') return { dataset, kind: parsed.kind, run: null };
+    const run = await store.latestRun(dataset.id);
+    if (run === null) throw new HttpProblem('not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet, so there is no collection ${JSON.stringify(id)}`);
+    return { dataset, kind: parsed.kind, run };
+  };
+
+  const send = (request: FastifyRequest, reply: FastifyReply, html: boolean, json: unknown, htmlText: () => string, type = JSON_TYPE, lastModified: string | null = null): FastifyReply =>
+    html ? sendTagged(request, reply, 'text/html; charset=utf-8', htmlText(), lastModified) : sendTagged(request, reply, type, typeof json === 'string' ? json : JSON.stringify(json), lastModified);
+
+  /** Links to a resource in both representations: self for the one answered, alternate for the other. */
+  const selfLinks = (href: string, html: boolean, jsonType = JSON_TYPE, query = ''): Link[] => {
+    const sep = query === '' ? '?' : '&';
+    return [
+      { href: `${href}${query}${sep}f=${html ? 'html' : 'json'}`, rel: 'self', type: html ? HTML : jsonType, title: 'this document' },
+      { href: `${href}${query}${sep}f=${html ? 'json' : 'html'}`, rel: 'alternate', type: html ? jsonType : HTML, title: html ? 'this document as JSON' : 'this document as HTML' },
+    ];
+  };
+
+  /** The description of one collection (OGC 17-069r4 §7.14). */
+  const collectionJson = async (request: FastifyRequest, r: Resolved, html: boolean): Promise<Record<string, unknown>> => {
+    const id = collectionId(r.dataset.id, r.kind);
+    const href = `${root(request)}/collections/${id}`;
+    let bbox: Bbox | null = null;
+    let interval: [number | null, number | null] | null = null;
+    if (r.kind === 'observations') {
+      const extent = await store.observationExtent(r.dataset.id);
+      bbox = extent.bbox;
+      if (extent.first !== null) interval = [extent.first, extent.last];
+    } else {
+      const index = await layerIndex(store, r.run!.id, r.kind);
+      bbox = index.bbox;
+      interval = index.interval;
+    }
+    const iso = (t: number | null): string | null => (t === null ? null : new Date(t).toISOString());
+    return {
+      id,
+      title: `${r.dataset.name} — ${r.kind}`,
+      description: `Dataset ${r.dataset.id}: ${KIND_TEXT[r.kind]}${r.run ? ` (run ${r.run.id}, finished ${r.run.finishedAt})` : ''}.`,
+      itemType: 'feature',
+      crs: [CRS84],
+      storageCrs: CRS84,
+      ...(bbox || interval
+        ? {
+            extent: {
+              ...(bbox ? { spatial: { bbox: [bbox], crs: CRS84 } } : {}),
+              ...(interval ? { temporal: { interval: [[iso(interval[0]), iso(interval[1])]], trs: GREGORIAN } } : {}),
+            },
+          }
+        : {}),
+      links: [
+        ...selfLinks(href, html),
+        { href: `${href}/items?f=json`, rel: 'items', type: GEOJSON, title: 'the features as GeoJSON' },
+        { href: `${href}/items?f=html`, rel: 'items', type: HTML, title: 'the features as HTML' },
+        { href: `${href}/schema`, rel: 'describedby', type: 'application/schema+json', title: 'JSON Schema of the feature properties' },
+      ],
+    };
+  };
+
+  const listed = async (): Promise<Resolved[]> => {
+    const out: Resolved[] = [];
+    for (const dataset of await store.listDatasets()) {
+      out.push({ dataset, kind: 'observations', run: null });
+      const run = await store.latestRun(dataset.id);
+      if (run !== null) for (const kind of RUN_LAYERS) out.push({ dataset, kind, run });
+    }
+    return out;
+  };
+
+  app.get(FEATURES_ROOT, async (request, reply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    onlyParams(query, ['f']);
+    const html = wantsHtml(request, parseFormat(query.f as string | undefined));
+    const base = root(request);
+    const origin = baseUrl(request, options.publicUrl);
+    const links: Link[] = [
+      ...selfLinks(base, html),
+      { href: `${origin}/openapi.json`, rel: 'service-desc', type: OPENAPI_JSON, title: 'the API definition (OpenAPI 3.1, JSON)' },
+      { href: `${origin}/docs`, rel: 'service-doc', type: HTML, title: 'the API documentation' },
+      { href: `${base}/conformance`, rel: 'conformance', type: JSON_TYPE, title: 'conformance classes' },
+      { href: `${base}/collections`, rel: 'data', type: JSON_TYPE, title: 'the collections' },
+    ];
+    const doc = {
+      title: 'Roost',
+      description: 'Observations and the density-based hotspots found in them, as OGC API – Features collections.',
+      links,
+    };
+    return send(request, reply, html, doc, () => page(doc.title, [`<p>${escapeHtml(doc.description)}</p>`], links));
+  });
+
+  app.get(`${FEATURES_ROOT}/conformance`, async (request, reply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    onlyParams(query, ['f']);
+    const html = wantsHtml(request, parseFormat(query.f as string | undefined));
+    const doc = { conformsTo: CONFORMANCE, links: selfLinks(`${root(request)}/conformance`, html) };
+    return send(request, reply, html, doc, () => page('Conformance', ['<ul>' + CONFORMANCE.map((c) => `<li>${escapeHtml(c)}</li>`).join('') + '</ul>'], doc.links));
+  });
+
+  app.get(`${FEATURES_ROOT}/collections`, async (request, reply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    onlyParams(query, ['f']);
+    const html = wantsHtml(request, parseFormat(query.f as string | undefined));
+    const collections: Record<string, unknown>[] = [];
+    for (const r of await listed()) collections.push(await collectionJson(request, r, false));
+    const doc = { links: selfLinks(`${root(request)}/collections`, html), crs: [CRS84], collections };
+    return send(request, reply, html, doc, () =>
+      page(
+        'Collections',
+        collections.map((c) => `<section><h2><a href="${escapeHtml(`${root(request)}/collections/${String(c.id)}?f=html`)}">${escapeHtml(String(c.title))}</a></h2><p>${escapeHtml(String(c.description))}</p></section>`),
+        doc.links,
+      ),
+    );
+  });
+
+  app.get<{ Params: { collectionId: string } }>(`${FEATURES_ROOT}/collections/:collectionId`, async (request, reply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    onlyParams(query, ['f']);
+    const html = wantsHtml(request, parseFormat(query.f as string | undefined));
+    const r = await resolve(request.params.collectionId);
+    const doc = await collectionJson(request, r, html);
+    const { links, ...rest } = doc;
+    return send(request, reply, html, doc, () => page(String(doc.title), [table(rest)], links as Link[]), JSON_TYPE, r.run?.finishedAt ?? null);
+  });
+
+  app.get<{ Params: { collectionId: string } }>(`${FEATURES_ROOT}/collections/:collectionId/schema`, async (request, reply) => {
+    onlyParams((request.query ?? {}) as Record<string, unknown>, []);
+    const r = await resolve(request.params.collectionId);
+    return sendTagged(request, reply, 'application/schema+json', JSON.stringify(schemaOf(r)), r.run?.finishedAt ?? null);
+  });
+
+  app.get<{ Params: { collectionId: string } }>(`${FEATURES_ROOT}/collections/:collectionId/items`, async (request, reply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    const q = parseItemsQuery(query);
+    const html = wantsHtml(request, q.format);
+    const r = await resolve(request.params.collectionId);
+    const href = `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}/items`;
+    const { features, matched, next, prev } = r.kind === 'observations' ? await observationPage(store, r.dataset.id, q) : layerPage(await layerIndex(store, r.run!.id, r.kind), q);
+    const own = withParams(query, { f: null });
+    const links: Link[] = [
+      ...selfLinks(href, html, GEOJSON, own),
+      { href: `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}`, rel: 'collection', type: JSON_TYPE, title: 'the collection' },
+    ];
+    const fmt = html ? 'html' : 'json';
+    if (next !== null) links.push({ href: href + withParams(query, { cursor: next, f: fmt }), rel: 'next', type: html ? HTML : GEOJSON, title: 'next page' });
+    if (prev !== null) links.push({ href: href + withParams(query, { cursor: prev === '0' ? null : prev, f: fmt }), rel: 'prev', type: html ? HTML : GEOJSON, title: 'previous page' });
+    const timeStamp = new Date().toISOString();
+    const extra = { ...(matched === null ? {} : { numberMatched: matched }), numberReturned: features.length, timeStamp, links };
+    void reply.header('content-crs', `<${CRS84}>`);
+    if (html) return sendTagged(request, reply, 'text/html; charset=utf-8', itemsHtml(r, features, extra, links), r.run?.finishedAt ?? null);
+    // the tag leaves out timeStamp, which changes with every answer while the features do not
+    const text = featureCollectionString(features, null, extra);
+    if (notModified(request, reply, etagOf(featureCollectionString(features, null, { ...extra, timeStamp: undefined })), r.run?.finishedAt ?? null)) return reply.code(304).send();
+    return reply.type(GEOJSON).send(text);
+  });
+
+  app.get<{ Params: { collectionId: string; featureId: string } }>(`${FEATURES_ROOT}/collections/:collectionId/items/:featureId`, async (request, reply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    onlyParams(query, ['f', 'crs']);
+    parseItemsQuery(query, ['f', 'crs']);
+    const html = wantsHtml(request, parseFormat(query.f as string | undefined));
+    const r = await resolve(request.params.collectionId);
+    const fid = request.params.featureId;
+    let text: string | null;
+    if (r.kind === 'observations') text = await store.getObservation(r.dataset.id, fid);
+    else {
+      const index = await layerIndex(store, r.run!.id, r.kind);
+      const k = index.ids.indexOf(fid);
+      text = k < 0 ? null : index.features[k]!;
+    }
+    if (text === null) throw new HttpProblem('not-found', `collection ${collectionId(r.dataset.id, r.kind)} has no feature ${JSON.stringify(fid)}`);
+    const coll = `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}`;
+    const links: Link[] = [...selfLinks(`${coll}/items/${encodeURIComponent(fid)}`, html, GEOJSON), { href: coll, rel: 'collection', type: JSON_TYPE, title: 'the collection' }];
+    void reply.header('content-crs', `<${CRS84}>`);
+    if (html) {
+      const f = JSON.parse(text) as { properties: Record<string, unknown> | null; geometry: unknown };
+      return sendTagged(request, reply, 'text/html; charset=utf-8', page(`Feature ${fid}`, [table({ ...(f.properties ?? {}), geometry: f.geometry })], links), r.run?.finishedAt ?? null);
+    }
+    return sendTagged(request, reply, GEOJSON, text.slice(0, -1) + ',"links":' + JSON.stringify(links) + '}', r.run?.finishedAt ?? null);
+  });
+
+  /** JSON Schema of a collection's feature properties. */
+  function schemaOf(r: Resolved): Record<string, unknown> {
+    const id = collectionId(r.dataset.id, r.kind);
+    if (r.kind === 'hotspots' || r.kind === 'centres') {
+      const hotspots = (r.run!.summary?.['hotspots'] ?? []) as Record<string, unknown>[];
+      return propertiesJsonSchema(hotspotLayerFields(categoryNames(hotspots)), id);
+    }
+    const own = { description: "the observation's own properties as posted; their names and types are the posting app's", additionalProperties: true };
+    if (r.kind === 'observations') return { $schema: 'https://json-schema.org/draft/2020-12/schema', title: id, type: 'object', ...own, properties: { observed_at: { type: 'string', format: 'date-time' } } };
+    return {
+      $schema: 'https://json-schema.org/draft/2020-12/schema',
+      title: id,
+      type: 'object',
+      ...own,
+      required: ['hotspot_id', 'role'],
+      properties: {
+        hotspot_id: { type: ['integer', 'null'], description: "the observation's hotspot in the run; null for noise" },
+        role: { type: 'string', enum: ['core', 'border', 'noise'] },
+      },
+    };
+  }
+}
+
+/** A page of observations: the store pages by its own cursor, which is passed through. */
+async function observationPage(store: Store, datasetId: string, q: ItemsQuery): Promise<{ features: string[]; matched: number | null; next: string | null; prev: null }> {
+  const filter = { ...(q.bbox ? { bbox: q.bbox } : {}), ...(q.datetime ?? {}) };
+  try {
+    const p = await store.listObservations(datasetId, { ...filter, limit: q.limit, ...(q.cursor === null ? {} : { cursor: q.cursor }) });
+    const matched = await store.countObservations(datasetId, filter);
+    return { features: p.features, matched, next: p.nextCursor, prev: null };
+  } catch (err) {
+    if (err instanceof StoreError && err.code === 'invalid') throw new HttpProblem('invalid-parameter', err.message, { parameter: /cursor/.test(err.message) ? 'cursor' : 'query' });
+    throw err;
+  }
+}
+
+function itemsHtml(r: Resolved, features: string[], extra: { numberMatched?: number; numberReturned: number }, links: Link[]): string {
+  const rows = features.map((text) => {
+    const f = JSON.parse(text) as { id?: unknown; properties: Record<string, unknown> | null; geometry: { type: string; coordinates: unknown } | null };
+    return { id: f.id ?? null, geometry: f.geometry ? (f.geometry.type === 'Point' ? JSON.stringify(f.geometry.coordinates) : f.geometry.type) : null, ...(f.properties ?? {}) };
+  });
+  const cols = [...new Set(rows.flatMap((row) => Object.keys(row)))];
+  const head = '<tr>' + cols.map((c) => `<th>${escapeHtml(c)}</th>`).join('') + '</tr>';
+  const body = rows.map((row) => '<tr>' + cols.map((c) => `<td>${escapeHtml(String((row as Record<string, unknown>)[c] ?? ''))}</td>`).join('') + '</tr>').join('');
+  const count = `<p>${extra.numberReturned} features${extra.numberMatched === undefined ? '' : ` of ${extra.numberMatched}`}.</p>`;
+  return page(`${r.dataset.name} — ${r.kind}`, [count, `<table>${head}${body}</table>`], links);
+}
+
+export { DEFAULT_LIMIT, MAX_LIMIT };
