@@ -22,6 +22,8 @@ export const PROBLEMS = {
   'observation-not-found': { status: 404, title: 'No such observation in this dataset' },
   'run-not-found': { status: 404, title: 'No such run in this dataset' },
   'track-not-found': { status: 404, title: 'No such track in this dataset' },
+  'collection-not-found': { status: 404, title: 'No such feature collection' },
+  'feature-not-found': { status: 404, title: 'No such feature in this collection' },
   'no-earlier-run': { status: 404, title: 'There is no earlier succeeded run to compare with' },
   'dataset-exists': { status: 409, title: 'A dataset with this id exists' },
   'observation-conflict': { status: 409, title: 'Observations with these ids are stored with other content' },

@@ -100,11 +100,11 @@ export async function featuresRoutes(app: FastifyInstance, options: FeaturesOpti
     const parsed = parseCollectionId(id);
     const dataset = parsed === null ? null : await store.getDataset(parsed.datasetId);
     if (parsed === null || dataset === null) {
-      throw new HttpProblem('not-found', `there is no collection ${JSON.stringify(id)}; GET ${FEATURES_ROOT}/collections lists them`);
+      throw new HttpProblem('collection-not-found', `there is no collection ${JSON.stringify(id)}; GET ${FEATURES_ROOT}/collections lists them`);
     }
     if (parsed.kind === 'observations') return { dataset, kind: parsed.kind, run: null };
     const run = await store.latestRun(dataset.id);
-    if (run === null) throw new HttpProblem('not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet, so there is no collection ${JSON.stringify(id)}`);
+    if (run === null) throw new HttpProblem('collection-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet, so there is no collection ${JSON.stringify(id)}`);
     return { dataset, kind: parsed.kind, run };
   };
 
@@ -270,7 +270,7 @@ export async function featuresRoutes(app: FastifyInstance, options: FeaturesOpti
       const k = index.ids.indexOf(fid);
       text = k < 0 ? null : index.features[k]!;
     }
-    if (text === null) throw new HttpProblem('not-found', `collection ${collectionId(r.dataset.id, r.kind)} has no feature ${JSON.stringify(fid)}`);
+    if (text === null) throw new HttpProblem('feature-not-found', `collection ${collectionId(r.dataset.id, r.kind)} has no feature ${JSON.stringify(fid)}`);
     const coll = `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}`;
     const links: Link[] = [...selfLinks(`${coll}/items/${encodeURIComponent(fid)}`, html, GEOJSON), { href: coll, rel: 'collection', type: JSON_TYPE, title: 'the collection' }];
     void reply.header('content-crs', `<${CRS84}>`);
