@@ -142,6 +142,10 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
 
   let t = performance.now();
   const input = await store.loadForRun(dataset.id, query);
+  // A time window leaves out the observations without a time; count them for the summary and
+  // its warning (a second query: an observation posted in between may be counted or not).
+  const windowed = query.from !== undefined || query.to !== undefined;
+  const untimed = windowed ? await store.countObservations(dataset.id, { untimed: true, ...(query.where ? { where: query.where } : {}) }) : 0;
   t = lap('load', t);
   progress(STAGE_PERCENT.read, true);
   await check();
@@ -180,10 +184,14 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
             },
           },
           undefined,
-          { source: 'stored', dataset: dataset.id, query: queryRecord(query) },
+          { source: 'stored', dataset: dataset.id, query: queryRecord(query), left_out_untimed: untimed },
           texts,
+          input.ids,
         );
-  if (result === null) throw new Error(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window`);
+  if (result === null) {
+    const why = untimed > 0 ? `; ${untimed} observation(s) have no readable time and a time window applies: name their time with the dataset's time_column and time_format settings` : '';
+    throw new Error(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window${why}`);
+  }
   t = lap('cluster', t);
   await check();
 
