@@ -4,6 +4,7 @@
  *   roost cluster <input> --eps <metres> --min-points <n> --out-dir <dir> [options]
  *   roost suggest-eps <input> --min-points <n>
  *   roost serve [options]
+ *   roost keys create|list|revoke
  */
 import { readFile } from 'node:fs/promises';
 import { Command, Option } from 'commander';
@@ -12,6 +13,7 @@ import { clusterInput, LAYER_NAMES, suggestEpsInput, type InputFormat, type Stag
 import { resolveSettings, SettingsError } from '../run/settings.js';
 import { ROOST_VERSION } from '../run/version.js';
 import { writeResultFolder } from './output.js';
+import { keysCommand } from './keys.js';
 import { reclusterCommand } from './recluster.js';
 import { serveCommand } from './serve.js';
 
@@ -205,6 +207,7 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
 
   program.addCommand(serveCommand(setExit));
   program.addCommand(reclusterCommand(setExit));
+  program.addCommand(keysCommand(setExit));
 
   return program;
 }
