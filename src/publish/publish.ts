@@ -22,7 +22,7 @@
 import { hotspotHull } from '../geometry/hull.js';
 import { circlePositions } from '../geometry/hull.js';
 import { geometryAreaKm2 } from '../geometry/area.js';
-import { bboxOf, featureCollectionString, featureString, type GeometryLike } from '../geometry/geojson.js';
+import { bboxOf, featureCollectionString, featureString, roundCoord, type GeometryLike } from '../geometry/geojson.js';
 import { Grid, type Cell } from './grid.js';
 
 /** Every outline point is at least this share of generaliseM from every member (see the header). */
@@ -173,7 +173,7 @@ export function publishLayers(points: readonly PointFeature[], hotspots: readonl
     props.density_per_km2 = round(m.points.length / areaKm2, 3);
     const centre = source.centre as number[] | undefined;
     const cc = Array.isArray(centre) ? grid.cellOf(centre[0]!, centre[1]!) : cells[0]!;
-    props.centre = [cc.lon, cc.lat];
+    props.centre = [roundCoord(cc.lon), roundCoord(cc.lat)];
     if (options.countBy && allowed.has(options.countBy) && source.categories !== undefined) props.categories = source.categories;
     published.push(props);
     hotspotFeatures.push(featureString(outline, props, id));
