@@ -191,7 +191,8 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
           process.stdout.write(
             `k-distance curve, k = ${String(answer.k)} (min-points ${String(answer.min_points)}), ${String(answer.sampled)} of ${String(answer.observations)} observations\n`,
           );
-          process.stdout.write(answer.eps_meters === null ? `no knee found: ${String(answer.message)}\n` : `suggested eps: ${String(answer.eps_meters)} m (${String(answer.message)})\n`);
+          // the message says it all when there is no knee (it starts "No knee found"); else it explains the number
+          process.stdout.write(answer.eps_m === null ? `${String(answer.message)}\n` : `suggested eps: ${String(answer.eps_m)} m (${String(answer.message)})\n`);
           const warnings = (answer.warnings as { message: string }[] | undefined) ?? [];
           for (const w of warnings) process.stdout.write(`warning: ${w.message}\n`);
           const lines = ['rank\tmetres'];
