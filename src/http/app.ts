@@ -100,8 +100,8 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   await app.register(storePlugin, { databaseUrl: config.databaseUrl, dbPath: config.dbPath, store: options.store, storeConfig: options.storeConfig });
   const { workers, queueSize, runConcurrency, retryAfterS } = config;
   await app.register(pools, { workers, queueSize, runConcurrency, retryAfterS, pool: options.pool });
-  const { scheduleScanMs, webhookAttempts, webhookTimeoutMs, publicUrl } = config;
-  await app.register(runQueue, { runConcurrency, scheduleScanMs, webhookAttempts, webhookTimeoutMs, publicUrl, hooks: options.hooks });
+  const { scheduleScanMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl } = config;
+  await app.register(runQueue, { runConcurrency, scheduleScanMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl, hooks: options.hooks });
   await app.register(serviceRoutes);
   await app.register(clusterRoutes, { timeLimitMs: config.timeLimitMs, retryAfterS });
   await app.register(datasetRoutes);

@@ -96,7 +96,7 @@ describe('plugins alone', () => {
     app = await bare();
     await app.register(storePlugin, { databaseUrl: '', dbPath: ':memory:' });
     await app.register(pools, { ...POOLS, pool: echoPool() });
-    await app.register(runQueue, { runConcurrency: 1, scheduleScanMs: 0, webhookAttempts: 1, webhookTimeoutMs: 1000, publicUrl: '', hooks: defaultHooks() });
+    await app.register(runQueue, { runConcurrency: 1, scheduleScanMs: 0, webhookAttempts: 1, webhookTimeoutMs: 1000, allowPrivateWebhooks: false, publicUrl: '', hooks: defaultHooks() });
     await app.register(datasetRoutes);
     await app.register(runRoutes);
     await app.register(changeRoutes);

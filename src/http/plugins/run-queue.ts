@@ -21,7 +21,7 @@ declare module 'fastify' {
   }
 }
 
-export type RunQueueOptions = Pick<ServerConfig, 'runConcurrency' | 'scheduleScanMs' | 'webhookAttempts' | 'webhookTimeoutMs' | 'publicUrl'> & {
+export type RunQueueOptions = Pick<ServerConfig, 'runConcurrency' | 'scheduleScanMs' | 'webhookAttempts' | 'webhookTimeoutMs' | 'allowPrivateWebhooks' | 'publicUrl'> & {
   /** run hooks (track assignment, notices); default: tracks and signed notices */
   hooks?: RunHooks;
 };
@@ -30,7 +30,7 @@ async function runQueue(app: FastifyInstance, options: RunQueueOptions): Promise
   const { store, storeConfig, jobPool } = app;
   const serviceHooks = options.hooks
     ? null
-    : createRoostHooks({ webhook: { attempts: options.webhookAttempts, timeoutMs: options.webhookTimeoutMs }, publicUrl: options.publicUrl || null, log: app.log });
+    : createRoostHooks({ webhook: { attempts: options.webhookAttempts, timeoutMs: options.webhookTimeoutMs, allowPrivate: options.allowPrivateWebhooks }, publicUrl: options.publicUrl || null, log: app.log });
   const runner = new Runner({
     store,
     hooks: options.hooks ?? serviceHooks!,
