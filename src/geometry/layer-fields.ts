@@ -108,6 +108,28 @@ export function hotspotPropertiesText(props: Record<string, unknown>, categories
   return s + '}';
 }
 
+/**
+ * The JSON text of flat properties in their own order, the fields named in `reals` written as
+ * reals (with a decimal point) when they are numbers; for layers with fields of their own (the
+ * published layers).
+ */
+export function propertiesText(props: Record<string, unknown>, reals: ReadonlySet<string>): string {
+  let s = '{';
+  for (const [k, v] of Object.entries(props)) {
+    if (v === undefined) continue;
+    s += (s.length > 1 ? ',' : '') + JSON.stringify(k) + ':' + (reals.has(k) && typeof v === 'number' ? realText(v) : JSON.stringify(v));
+  }
+  return s + '}';
+}
+
+/** The category counts of a hotspot's layer properties (`count_<value>` fields), by value. */
+export function categoryCounts(props: Record<string, unknown>): Record<string, number> | undefined {
+  if (props['categories'] && typeof props['categories'] === 'object') return props['categories'] as Record<string, number>;
+  let out: Record<string, number> | undefined;
+  for (const [k, v] of Object.entries(props)) if (k.startsWith(CATEGORY_FIELD_PREFIX) && typeof v === 'number') (out ??= {})[k.slice(CATEGORY_FIELD_PREFIX.length)] = v;
+  return out;
+}
+
 /** A JSON Schema (draft 2020-12) of a layer's feature properties, for `describedby` links. */
 export function propertiesJsonSchema(fields: readonly LayerField[], title: string): Record<string, unknown> {
   const properties: Record<string, unknown> = {};

@@ -3,7 +3,8 @@
  * position of the next feature among those passing), at most `limit` of them. Shared by the
  * result-layer addresses under /v1 and the OGC API collections of result layers.
  */
-import type { RunLayer, Store } from '../storage/store.js';
+import type { LayerName } from '../run/layers.js';
+import type { Store } from '../storage/store.js';
 import { HttpProblem } from '../http/errors.js';
 import { LayerIndexCache, matching, type LayerIndex } from './layer-index.js';
 import type { ItemsQuery } from './query.js';
@@ -11,7 +12,7 @@ import type { ItemsQuery } from './query.js';
 const caches = new WeakMap<Store, LayerIndexCache>();
 
 /** The index of a succeeded run's layer, cached per store (runs' layers never change). */
-export async function layerIndex(store: Store, runId: string, layer: RunLayer): Promise<LayerIndex> {
+export async function layerIndex(store: Store, runId: string, layer: LayerName): Promise<LayerIndex> {
   let cache = caches.get(store);
   if (cache === undefined) caches.set(store, (cache = new LayerIndexCache()));
   return cache.get(`${runId}/${layer}`, async () => {

@@ -10,7 +10,8 @@ import { featureCollectionString } from '../geometry/geojson.js';
 import { categoryNames, hotspotLayerFields, propertiesJsonSchema } from '../geometry/layer-fields.js';
 import { etagOf, notModified, sendTagged } from '../http/conditional.js';
 import { HttpProblem } from '../http/errors.js';
-import { RUN_LAYERS, StoreError, type Dataset, type Run, type RunLayer, type Store } from '../storage/store.js';
+import { LAYER_NAMES, type LayerName } from '../run/layers.js';
+import { StoreError, type Dataset, type Run, type Store } from '../storage/store.js';
 import { escapeHtml, page, table, type Link } from './html.js';
 import { layerIndex, layerPage } from './layers.js';
 import { CRS84, DEFAULT_LIMIT, MAX_LIMIT, onlyParams, parseFormat, parseItemsQuery, type Bbox, type ItemsQuery } from './query.js';
@@ -31,8 +32,8 @@ const HTML = 'text/html';
 const GREGORIAN = 'http://www.opengis.net/def/uom/ISO-8601/0/Gregorian';
 const OPENAPI_JSON = 'application/vnd.oai.openapi+json;version=3.1';
 
-export type CollectionKind = 'observations' | RunLayer;
-const KINDS: readonly CollectionKind[] = ['observations', ...RUN_LAYERS];
+export type CollectionKind = 'observations' | LayerName;
+const KINDS: readonly CollectionKind[] = ['observations', ...LAYER_NAMES];
 
 const KIND_TEXT: Record<CollectionKind, string> = {
   observations: 'stored observations, as posted',
@@ -43,7 +44,8 @@ const KIND_TEXT: Record<CollectionKind, string> = {
 };
 
 export interface FeaturesOptions {
-  store: Store;
+  /** default: the app's store (the store plugin) */
+  store?: Store;
   /** address clients use to reach the service (no trailing slash); absent: the request's own */
   publicUrl?: string | null;
 }
@@ -92,8 +94,8 @@ interface Resolved {
   run: Run | null;
 }
 
-export async function featuresRoutes(app: FastifyInstance, options: FeaturesOptions): Promise<void> {
-  const { store } = options;
+export default async function featuresRoutes(app: FastifyInstance, options: FeaturesOptions = {}): Promise<void> {
+  const store = options.store ?? app.store;
   const root = (request: FastifyRequest): string => baseUrl(request, options.publicUrl) + FEATURES_ROOT;
 
   const resolve = async (id: string): Promise<Resolved> => {
@@ -165,7 +167,7 @@ export async function featuresRoutes(app: FastifyInstance, options: FeaturesOpti
     for (const dataset of await store.listDatasets()) {
       out.push({ dataset, kind: 'observations', run: null });
       const run = await store.latestRun(dataset.id);
-      if (run !== null) for (const kind of RUN_LAYERS) out.push({ dataset, kind, run });
+      if (run !== null) for (const kind of LAYER_NAMES) out.push({ dataset, kind, run });
     }
     return out;
   };

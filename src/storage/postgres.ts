@@ -10,12 +10,16 @@ import { pipeline } from 'node:stream/promises';
 import pg from 'pg';
 import { from as copyFrom } from 'pg-copy-streams';
 import type {
+  ApiKey,
+  AuditPage,
   Dataset,
   DatasetPatch,
   IngestOptions,
   IngestResult,
   InterruptedRunFilter,
   ListObservationsOptions,
+  NewApiKey,
+  NewAuditRecord,
   NewDataset,
   NewRun,
   ObservationExtent,
@@ -25,7 +29,6 @@ import type {
   Run,
   RunHotspot,
   RunInput,
-  RunLayer,
   RunPage,
   RunPatch,
   RunResult,
@@ -33,9 +36,14 @@ import type {
   Store,
   TrackPoint,
 } from './store.js';
-import { RUN_LAYERS, StoreError } from './store.js';
+import { LAYER_NAMES, type LayerName } from '../run/layers.js';
+import { StoreError } from './store.js';
 import {
+  auditPage,
   batchIds,
+  checkAuditRecord,
+  checkNewKey,
+  keyFromRow,
   checkDatasetFields,
   checkDatasetId,
   checkLimit,
@@ -256,12 +264,11 @@ export class PostgresStore implements Store {
     return ((await this.pool.query('DELETE FROM observations WHERE dataset_id = $1 AND obs_id = $2', [datasetId, id])).rowCount ?? 0) > 0;
   }
 
-  async countObservations(datasetId: string, query?: ObservationQuery): Promise<number> {
-    if (query === undefined) return (await this.pool.query('SELECT count(*)::int AS n FROM observations WHERE dataset_id = $1', [datasetId])).rows[0].n as number;
+  async countObservations(datasetId: string, query: ObservationQuery = {}): Promise<number> {
     checkQuery(query);
     const p = new Params();
     const { from, clause } = whereClause(p, datasetId, query);
-    return (await this.pool.query({ text: `SELECT count(*)::int AS n FROM ${from} WHERE ${clause}`, values: p.values })).rows[0].n as number;
+    return (await this.pool.query(`SELECT count(*)::int AS n FROM ${from} WHERE ${clause}`, p.values)).rows[0].n as number;
   }
 
   async getObservation(datasetId: string, id: string): Promise<string | null> {
@@ -421,7 +428,7 @@ export class PostgresStore implements Store {
       // One statement per piece with the text as a plain parameter: a text[] array would make the
       // client escape every quote and the server parse the array back (45 s against 7 s for a
       // points layer of 1 000 000 features, 234 MB, measured).
-      for (const layer of RUN_LAYERS) {
+      for (const layer of LAYER_NAMES) {
         const parts = pieces[layer];
         for (let k = 0; k < parts.length; k++) {
           await c.query({ name: 'roost-save-layer-part', text: 'INSERT INTO run_layer_parts (run_seq, layer, part, body) VALUES ($1, $2, $3, $4)', values: [seq, layer, k, parts[k]] });
@@ -447,12 +454,12 @@ export class PostgresStore implements Store {
     });
   }
 
-  async getRunLayer(runId: string, layer: RunLayer): Promise<string | null> {
+  async getRunLayer(runId: string, layer: LayerName): Promise<string | null> {
     return joinPieces(await this.getRunLayerPieces(runId, layer));
   }
 
-  async getRunLayerPieces(runId: string, layer: RunLayer): Promise<AsyncIterable<string> | null> {
-    if (!RUN_LAYERS.includes(layer)) throw new StoreError('invalid', `layer must be one of ${RUN_LAYERS.join(', ')}`);
+  async getRunLayerPieces(runId: string, layer: LayerName): Promise<AsyncIterable<string> | null> {
+    if (!LAYER_NAMES.includes(layer)) throw new StoreError('invalid', `layer must be one of ${LAYER_NAMES.join(', ')}`);
     const { seq } = await this.requireRunSeq(this.pool, runId);
     return storedPieces(async (from, count) => {
       const r = await this.pool.query({
@@ -524,6 +531,61 @@ export class PostgresStore implements Store {
       if (pgCode(e) === '23503') throw notFoundDataset(datasetId);
       throw e;
     }
+  }
+
+  // -------------------------------------------------------- keys and audit
+
+  async createKey(k: NewApiKey): Promise<ApiKey> {
+    checkNewKey(k);
+    try {
+      const r = await this.pool.query(
+        'INSERT INTO api_keys (id, token_hash, role, dataset_id, label, created_at) VALUES ($1, $2, $3, $4, $5, now()) RETURNING *',
+        [k.id, k.tokenHash, k.role, k.datasetId, k.label],
+      );
+      return keyFromRow(r.rows[0] as Row);
+    } catch (e) {
+      if (pgCode(e) === '23503') throw notFoundDataset(k.datasetId ?? '');
+      if (pgCode(e) === '23505') throw new StoreError('conflict', `a key with id ${JSON.stringify(k.id)} or the same token is already stored`);
+      throw e;
+    }
+  }
+
+  async findKey(tokenHash: string): Promise<ApiKey | null> {
+    const r = await this.pool.query('SELECT * FROM api_keys WHERE token_hash = $1 AND revoked_at IS NULL', [tokenHash]);
+    return r.rows.length === 0 ? null : keyFromRow(r.rows[0] as Row);
+  }
+
+  async listKeys(): Promise<ApiKey[]> {
+    const r = await this.pool.query('SELECT * FROM api_keys ORDER BY seq');
+    return (r.rows as Row[]).map(keyFromRow);
+  }
+
+  async revokeKey(id: string): Promise<ApiKey | null> {
+    const r = await this.pool.query(
+      'UPDATE api_keys SET revoked_at = COALESCE(revoked_at, now()) WHERE id = $1 RETURNING *',
+      [id],
+    );
+    return r.rows.length === 0 ? null : keyFromRow(r.rows[0] as Row);
+  }
+
+  async countKeys(): Promise<number> {
+    const r = await this.pool.query('SELECT count(*)::int AS n FROM api_keys WHERE revoked_at IS NULL');
+    return (r.rows[0] as Row).n as number;
+  }
+
+  async appendAudit(rec: NewAuditRecord): Promise<void> {
+    checkAuditRecord(rec);
+    await this.pool.query(
+      'INSERT INTO audit_records (at, key_id, actor, action, dataset_id, target, status) VALUES (now(), $1, $2, $3, $4, $5, $6)',
+      [rec.keyId, rec.actor, rec.action, rec.datasetId, rec.target, rec.status],
+    );
+  }
+
+  async listAudit(options: { limit: number; cursor?: string }): Promise<AuditPage> {
+    checkLimit(options.limit);
+    const before = options.cursor === undefined ? Number.MAX_SAFE_INTEGER : decodeCursor(options.cursor);
+    const r = await this.pool.query('SELECT * FROM audit_records WHERE seq < $1 ORDER BY seq DESC LIMIT $2', [before, options.limit + 1]);
+    return auditPage(r.rows as Row[], options.limit);
   }
 }
 
@@ -644,6 +706,7 @@ function whereClause(p: Placeholders, datasetId: string, q: ObservationQuery): {
   }
   if (q.from !== undefined) parts.push(`o.observed_at >= ${p.add(q.from)}`);
   if (q.to !== undefined) parts.push(`o.observed_at < ${p.add(q.to)}`);
+  if (q.untimed === true) parts.push('o.observed_at IS NULL');
   const matches = whereMatches(q.where);
   let from = 'observations o';
   if (matches.length > 0) {

@@ -7,6 +7,8 @@
 import { isAscii } from 'node:buffer';
 import Database from 'better-sqlite3';
 import type {
+  ApiKey,
+  AuditPage,
   Dataset,
   DatasetPatch,
   FeatureTexts,
@@ -14,6 +16,8 @@ import type {
   IngestResult,
   InterruptedRunFilter,
   ListObservationsOptions,
+  NewApiKey,
+  NewAuditRecord,
   NewDataset,
   NewRun,
   ObservationExtent,
@@ -22,7 +26,6 @@ import type {
   ObservationRecord,
   Run,
   RunHotspot,
-  RunLayer,
   RunPage,
   RunPatch,
   RunResult,
@@ -31,9 +34,14 @@ import type {
   Store,
   TrackPoint,
 } from './store.js';
-import { RUN_LAYERS, StoreError } from './store.js';
+import { LAYER_NAMES, type LayerName } from '../run/layers.js';
+import { StoreError } from './store.js';
 import {
+  auditPage,
   batchIds,
+  checkAuditRecord,
+  checkNewKey,
+  keyFromRow,
   checkDatasetFields,
   checkDatasetId,
   checkLimit,
@@ -225,8 +233,7 @@ export class SqliteStore implements Store {
     return this.db.prepare('DELETE FROM observations WHERE dataset_id = ? AND obs_id = ?').run(datasetId, id).changes > 0;
   }
 
-  async countObservations(datasetId: string, query?: ObservationQuery): Promise<number> {
-    if (query === undefined) return this.db.prepare('SELECT count(*) FROM observations WHERE dataset_id = ?').pluck().get(datasetId) as number;
+  async countObservations(datasetId: string, query: ObservationQuery = {}): Promise<number> {
     checkQuery(query);
     const { clause, args } = whereClause(datasetId, query);
     return this.db.prepare(`SELECT count(*) FROM observations WHERE ${clause}`).pluck().get(...args) as number;
@@ -438,7 +445,7 @@ export class SqliteStore implements Store {
       this.db.prepare('DELETE FROM run_layer_parts WHERE run_seq = ?').run(seq);
       this.db.prepare('DELETE FROM run_hotspots WHERE run_seq = ?').run(seq);
       const part = this.db.prepare('INSERT INTO run_layer_parts (run_seq, layer, part, body) VALUES (?, ?, ?, ?)');
-      for (const name of RUN_LAYERS) pieces[name].forEach((body, k) => part.run(seq, name, k, body));
+      for (const name of LAYER_NAMES) pieces[name].forEach((body, k) => part.run(seq, name, k, body));
       const hs = this.db.prepare('INSERT INTO run_hotspots (run_seq, hotspot_id, track_id, members, core_members, member_count, hull, figures) VALUES (?, ?, ?, ?, ?, ?, ?, ?)');
       for (const h of result.hotspots) {
         hs.run(seq, h.hotspotId, h.trackId, JSON.stringify(h.members), JSON.stringify(h.coreMembers), h.members.length, h.hull, json(h.figures ?? null));
@@ -447,12 +454,12 @@ export class SqliteStore implements Store {
     tx.immediate();
   }
 
-  async getRunLayer(runId: string, layer: RunLayer): Promise<string | null> {
+  async getRunLayer(runId: string, layer: LayerName): Promise<string | null> {
     return joinPieces(await this.getRunLayerPieces(runId, layer));
   }
 
-  async getRunLayerPieces(runId: string, layer: RunLayer): Promise<AsyncIterable<string> | null> {
-    if (!RUN_LAYERS.includes(layer)) throw new StoreError('invalid', `layer must be one of ${RUN_LAYERS.join(', ')}`);
+  async getRunLayerPieces(runId: string, layer: LayerName): Promise<AsyncIterable<string> | null> {
+    if (!LAYER_NAMES.includes(layer)) throw new StoreError('invalid', `layer must be one of ${LAYER_NAMES.join(', ')}`);
     const seq = this.requireRunSeq(runId);
     // each read a query of its own: a statement left iterating would keep the connection busy
     const stmt = this.db.prepare('SELECT body FROM run_layer_parts WHERE run_seq = ? AND layer = ? AND part >= ? ORDER BY part LIMIT ?').pluck();
@@ -526,6 +533,56 @@ export class SqliteStore implements Store {
       return last - count + 1;
     });
     return tx.immediate();
+  }
+
+  // -------------------------------------------------------- keys and audit
+
+  async createKey(k: NewApiKey): Promise<ApiKey> {
+    checkNewKey(k);
+    try {
+      this.db
+        .prepare('INSERT INTO api_keys (id, token_hash, role, dataset_id, label, created_at) VALUES (?, ?, ?, ?, ?, ?)')
+        .run(k.id, k.tokenHash, k.role, k.datasetId, k.label, nowIso());
+    } catch (e) {
+      const code = (e as { code?: string }).code;
+      if (code === 'SQLITE_CONSTRAINT_FOREIGNKEY') throw notFoundDataset(k.datasetId ?? '');
+      if (code === 'SQLITE_CONSTRAINT_UNIQUE') throw new StoreError('conflict', `a key with id ${JSON.stringify(k.id)} or the same token is already stored`);
+      throw e;
+    }
+    return keyFromRow(this.db.prepare('SELECT * FROM api_keys WHERE id = ?').get(k.id) as Row);
+  }
+
+  async findKey(tokenHash: string): Promise<ApiKey | null> {
+    const row = this.db.prepare('SELECT * FROM api_keys WHERE token_hash = ? AND revoked_at IS NULL').get(tokenHash) as Row | undefined;
+    return row === undefined ? null : keyFromRow(row);
+  }
+
+  async listKeys(): Promise<ApiKey[]> {
+    return (this.db.prepare('SELECT * FROM api_keys ORDER BY seq').all() as Row[]).map(keyFromRow);
+  }
+
+  async revokeKey(id: string): Promise<ApiKey | null> {
+    this.db.prepare('UPDATE api_keys SET revoked_at = ? WHERE id = ? AND revoked_at IS NULL').run(nowIso(), id);
+    const row = this.db.prepare('SELECT * FROM api_keys WHERE id = ?').get(id) as Row | undefined;
+    return row === undefined ? null : keyFromRow(row);
+  }
+
+  async countKeys(): Promise<number> {
+    return this.db.prepare('SELECT count(*) FROM api_keys WHERE revoked_at IS NULL').pluck().get() as number;
+  }
+
+  async appendAudit(r: NewAuditRecord): Promise<void> {
+    checkAuditRecord(r);
+    this.db
+      .prepare('INSERT INTO audit_records (at, key_id, actor, action, dataset_id, target, status) VALUES (?, ?, ?, ?, ?, ?, ?)')
+      .run(nowIso(), r.keyId, r.actor, r.action, r.datasetId, r.target, r.status);
+  }
+
+  async listAudit(options: { limit: number; cursor?: string }): Promise<AuditPage> {
+    checkLimit(options.limit);
+    const before = options.cursor === undefined ? Number.MAX_SAFE_INTEGER : decodeCursor(options.cursor);
+    const rows = this.db.prepare('SELECT * FROM audit_records WHERE seq < ? ORDER BY seq DESC LIMIT ?').all(before, options.limit + 1) as Row[];
+    return auditPage(rows, options.limit);
   }
 }
 
@@ -612,6 +669,7 @@ function whereClause(datasetId: string, q: ObservationQuery): { clause: string; 
     parts.push('observed_at < ?');
     args.push(q.to);
   }
+  if (q.untimed === true) parts.push('observed_at IS NULL');
   for (const m of whereMatches(q.where)) {
     const path = jsonPathLabel(m.property);
     // `->` gives the value's JSON text (its first character tells the type), `->>` its SQL value.

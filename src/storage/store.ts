@@ -54,6 +54,7 @@
  * Errors: `StoreError` with a code the HTTP layer maps: 'not-found' (404), 'conflict' (409),
  * 'invalid' (400).
  */
+import type { LayerName } from '../run/layers.js';
 
 /** Stable machine-readable kinds of store errors. */
 export type StoreErrorCode = 'not-found' | 'conflict' | 'invalid';
@@ -156,6 +157,8 @@ export interface ObservationQuery {
   /** epoch ms, exclusive */
   to?: number;
   where?: WhereCondition[];
+  /** only observations without a time (from and to must then be absent) */
+  untimed?: boolean;
 }
 
 export interface ListObservationsOptions extends ObservationQuery {
@@ -262,8 +265,6 @@ export interface RunPage {
   nextCursor: string | null;
 }
 
-export type RunLayer = 'hotspots' | 'centres' | 'noise' | 'points';
-export const RUN_LAYERS: readonly RunLayer[] = ['hotspots', 'centres', 'noise', 'points'];
 
 export interface RunHotspot {
   /** the hotspot's number in the run */
@@ -285,7 +286,7 @@ export interface RunResult {
    * GeoJSON FeatureCollection texts, each whole or as pieces to be joined in order. They are
    * stored in pieces of about a MiB (see LAYER_PIECE_CHARS), so no layer is one huge value.
    */
-  layers: Record<RunLayer, string | readonly string[]>;
+  layers: Record<LayerName, string | readonly string[]>;
   hotspots: RunHotspot[];
 }
 
@@ -304,6 +305,60 @@ export interface InterruptedRunFilter {
   workerId?: string;
   /** only runs whose last update is at least this many milliseconds old */
   staleMs?: number;
+}
+
+/** An API key's role (see src/auth/roles.ts). */
+export type KeyRole = 'reader' | 'contributor' | 'manager' | 'admin';
+
+export interface NewApiKey {
+  /** `k_` and 12 hex digits */
+  id: string;
+  /** SHA-256 of the token, lower-case hex; the token itself is never stored */
+  tokenHash: string;
+  role: KeyRole;
+  /** the one dataset the key may act on (it must exist); null: any */
+  datasetId: string | null;
+  /** who or what the key is for, free text up to 200 characters */
+  label: string | null;
+}
+
+/** A stored key as listings show it (never with its hash). */
+export interface ApiKey {
+  id: string;
+  role: KeyRole;
+  datasetId: string | null;
+  label: string | null;
+  /** RFC 3339 */
+  createdAt: string;
+  /** RFC 3339, null while the key is in force */
+  revokedAt: string | null;
+}
+
+/** One change or deletion, for the audit records. */
+export interface NewAuditRecord {
+  /** the key that made it; null in open mode or from the command line */
+  keyId: string | null;
+  /** 'key', 'open' (no key in the store) or 'command' (the roost command line) */
+  actor: 'key' | 'open' | 'command';
+  /** what was done: the HTTP method and route (`DELETE /v1/datasets/{id}`) or a command */
+  action: string;
+  /** the dataset it concerned, if any */
+  datasetId: string | null;
+  /** the resource (observation id, run id, key id), if any */
+  target: string | null;
+  /** the HTTP status answered (0 for commands) */
+  status: number;
+}
+
+export interface AuditRecord extends NewAuditRecord {
+  /** RFC 3339 */
+  at: string;
+}
+
+export interface AuditPage {
+  /** newest first */
+  records: AuditRecord[];
+  nextCursor: string | null;
 }
 
 export interface Store {
@@ -331,7 +386,7 @@ export interface Store {
   listObservations(datasetId: string, options: ListObservationsOptions): Promise<ObservationPage>;
   /** Removes one observation (a retraction). @returns false when it was not stored */
   deleteObservation(datasetId: string, id: string): Promise<boolean>;
-  /** Observations of the dataset, or those matching the query. @throws StoreError 'invalid' for a bad query */
+  /** Observations of a dataset, all of them or those matching a query (for example `{ untimed: true }` or a bbox). */
   countObservations(datasetId: string, query?: ObservationQuery): Promise<number>;
   /** One stored observation's feature text, null when it is not stored. */
   getObservation(datasetId: string, id: string): Promise<string | null>;
@@ -361,13 +416,13 @@ export interface Store {
   /** Stores a run's result, replacing any earlier one. @throws StoreError 'not-found' */
   saveRunResult(runId: string, result: RunResult): Promise<void>;
   /** A stored layer text; null when the run has no stored result. @throws StoreError 'not-found' for an unknown run */
-  getRunLayer(runId: string, layer: RunLayer): Promise<string | null>;
+  getRunLayer(runId: string, layer: LayerName): Promise<string | null>;
   /**
    * A stored layer as its pieces in order (join them for the text), read a few at a time so that
    * a large layer is never one string; null when the run has no stored result.
    * @throws StoreError 'not-found' for an unknown run
    */
-  getRunLayerPieces(runId: string, layer: RunLayer): Promise<AsyncIterable<string> | null>;
+  getRunLayerPieces(runId: string, layer: LayerName): Promise<AsyncIterable<string> | null>;
   /** The run's hotspots by hotspot id; empty when none were stored. @throws StoreError 'not-found' */
   getRunHotspots(runId: string): Promise<RunHotspot[]>;
   /** The hotspots carrying the track id, oldest run first. */
@@ -391,4 +446,22 @@ export interface Store {
    * @throws StoreError 'not-found' for an unknown dataset, 'invalid' for a bad count
    */
   reserveTrackNumbers(datasetId: string, count: number): Promise<number>;
+
+  /**
+   * Stores a new API key. @throws StoreError 'conflict' for an id or hash already stored,
+   * 'not-found' when the dataset does not exist, 'invalid' for a bad role, id, hash or label
+   */
+  createKey(k: NewApiKey): Promise<ApiKey>;
+  /** The key in force whose token has this hash; null when none (unknown or revoked). */
+  findKey(tokenHash: string): Promise<ApiKey | null>;
+  /** Every key, in force or revoked, oldest first. Keys of a deleted dataset are deleted with it. */
+  listKeys(): Promise<ApiKey[]>;
+  /** Revokes a key (it stays listed, with revokedAt). @returns the key, null when there is no such key */
+  revokeKey(id: string): Promise<ApiKey | null>;
+  /** How many keys are in force. */
+  countKeys(): Promise<number>;
+  /** Appends an audit record. */
+  appendAudit(r: NewAuditRecord): Promise<void>;
+  /** Audit records, newest first. @throws StoreError 'invalid' for a bad cursor or limit */
+  listAudit(options: { limit: number; cursor?: string }): Promise<AuditPage>;
 }

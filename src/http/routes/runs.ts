@@ -11,24 +11,25 @@ import { layerIndex, layerPage } from '../../ogc/layers.js';
 import { onlyParams, parseItemsQuery, parseLimit } from '../../ogc/query.js';
 import { notModified, sendTagged } from '../conditional.js';
 import { resolveSettings } from '../../run/settings.js';
-import { RUN_LAYERS, StoreError, type Run, type RunLayer } from '../../storage/store.js';
+import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
+import { StoreError, type Run } from '../../storage/store.js';
 import { HttpProblem } from '../errors.js';
-import { integer, jsonObject, requireDataset, requireRun, runJson, settingsProblem, type DatasetServices } from './common.js';
+import { integer, jsonObject, requireDataset, requireRun, runJson, settingsProblem } from './common.js';
 
-function layerOf(name: string): RunLayer {
-  if (!(RUN_LAYERS as readonly string[]).includes(name)) {
-    throw new HttpProblem('invalid-parameter', `layer must be one of ${RUN_LAYERS.join(', ')}, got ${JSON.stringify(name)}`, { parameter: 'layer' });
+function layerOf(name: string): LayerName {
+  if (!isLayerName(name)) {
+    throw new HttpProblem('invalid-parameter', `layer must be one of ${LAYER_NAMES.join(', ')}, got ${JSON.stringify(name)}`, { parameter: 'layer' });
   }
-  return name as RunLayer;
+  return name;
 }
 
 /** What a result-layer address takes: without any, the whole layer as stored. */
 const LAYER_PARAMS = ['bbox', 'datetime', 'limit', 'cursor'];
 
-export function registerRunRoutes(app: FastifyInstance, services: DatasetServices): void {
-  const { store, runner } = services;
+export default async function runRoutes(app: FastifyInstance): Promise<void> {
+  const { store, runner } = app;
 
-  const sendLayer = async (request: FastifyRequest, run: Run, layer: RunLayer, reply: FastifyReply) => {
+  const sendLayer = async (request: FastifyRequest, run: Run, layer: LayerName, reply: FastifyReply) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
     onlyParams(query, LAYER_PARAMS);
     const q = { ...parseItemsQuery(query, LAYER_PARAMS), limit: query.limit === undefined ? Number.MAX_SAFE_INTEGER : parseLimit(String(query.limit)) };
