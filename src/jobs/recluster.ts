@@ -9,12 +9,6 @@ import { type RoostHooks } from './run-hooks.js';
 import { TRANSITION_KINDS, type ChangesJson } from './tracking.js';
 import { StoreError, type Dataset, type Run, type Store } from '../storage/store.js';
 
-/** One dataset's outcome. */
-export interface ReclusterResult {
-  datasetId: string;
-  run: Run;
-}
-
 /** The one-line outcome printed for a run. */
 export function outcomeLine(run: Run): string {
   const head = `${run.datasetId} ${run.id} ${run.status}`;
