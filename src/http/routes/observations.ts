@@ -12,6 +12,7 @@ import type { FastifyInstance, FastifyRequest } from 'fastify';
 import { EARTH_RADIUS_M } from '../../core/haversine.js';
 import { bboxOfPositions, COORDINATE_DECIMALS, featureCollectionString } from '../../geometry/geojson.js';
 import { readRecords, type RecordBatch, type RecordOptions } from '../../ingest/records.js';
+import { compileTimeFormat } from '../../ingest/checks.js';
 import { InputError, type InputProblem } from '../../ingest/types.js';
 import { parseCondition } from '../../run/settings.js';
 import type { Dataset, ListObservationsOptions, Store, WhereCondition } from '../../storage/store.js';
@@ -171,10 +172,28 @@ async function readBatch(jobs: JobPool | null, body: Uint8Array, options: Record
   return out.batch;
 }
 
-function recordOptions(d: Dataset, format: RecordOptions['format'], partial: boolean): RecordOptions {
-  const s = d.settings;
+/** The reader's options a post may give, for this post only, over the dataset's settings of the same names. */
+export const READER_PARAMS = ['lon_column', 'lat_column', 'time_column', 'time_format'] as const;
+const POST_PARAMS = new Set<string>(['replace', 'partial', ...READER_PARAMS]);
+
+function recordOptions(d: Dataset, format: RecordOptions['format'], partial: boolean, query: Record<string, unknown>): RecordOptions {
   const text = (v: unknown): string | null => (typeof v === 'string' && v !== '' ? v : null);
-  return { format, idProperty: d.idProperty, weightProperty: text(s.weight), partial, lonColumn: text(s.lon_column), latColumn: text(s.lat_column) };
+  const setting = (name: string): string | null => text(query[name]) ?? text(d.settings[name]);
+  const timeFormat = setting('time_format');
+  if (timeFormat !== null) {
+    const f = compileTimeFormat(timeFormat);
+    if (typeof f === 'string') throw new HttpProblem('invalid-parameter', f, { parameter: 'time_format' });
+  }
+  return {
+    format,
+    idProperty: d.idProperty,
+    weightProperty: text(d.settings.weight),
+    partial,
+    lonColumn: setting('lon_column'),
+    latColumn: setting('lat_column'),
+    timeColumn: setting('time_column'),
+    timeFormat,
+  };
 }
 
 export default async function observationRoutes(app: FastifyInstance): Promise<void> {
@@ -183,14 +202,17 @@ export default async function observationRoutes(app: FastifyInstance): Promise<v
 
   app.post<{ Params: { id: string } }>('/v1/datasets/:id/observations', async (request: FastifyRequest<{ Params: { id: string } }>) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
-    for (const k of Object.keys(query)) if (k !== 'replace' && k !== 'partial') throw new HttpProblem('invalid-parameter', `${k}: unknown parameter; this endpoint takes replace and partial`, { parameter: k });
+    for (const k of Object.keys(query)) if (!POST_PARAMS.has(k)) throw new HttpProblem('invalid-parameter', `${k}: unknown parameter; this endpoint takes ${[...POST_PARAMS].join(', ')}`, { parameter: k });
+    for (const k of READER_PARAMS) {
+      if (query[k] !== undefined && (typeof query[k] !== 'string' || query[k] === '')) throw new HttpProblem('invalid-parameter', `${k}: give one non-empty name or pattern`, { parameter: k });
+    }
     const replace = flag(query, 'replace');
     const partial = flag(query, 'partial');
     const dataset = await requireDataset(store, request.params.id);
     const body = request.body as Uint8Array | undefined;
     if (!body || body.byteLength === 0) throw new HttpProblem('malformed-body', 'The request body is empty; send a GeoJSON Feature or FeatureCollection, CSV, or a GeoJSON text sequence.');
     const format = formatOf(request.headers['content-type']);
-    const batch = await readBatch(jobPool, body, recordOptions(dataset, format, partial));
+    const batch = await readBatch(jobPool, body, recordOptions(dataset, format, partial, query));
 
     const result = await store
       .ingest(dataset.id, batch.records, { replace, partial, rejected: batch.rejected.map((r) => ({ index: r.index, reason: r.message })) })
