@@ -24,6 +24,8 @@ export const PROBLEMS = {
   'observation-not-found': { status: 404, title: 'No such observation in this dataset' },
   'run-not-found': { status: 404, title: 'No such run in this dataset' },
   'track-not-found': { status: 404, title: 'No such track in this dataset' },
+  'key-not-found': { status: 404, title: 'No such API key' },
+  'not-published': { status: 404, title: 'The dataset publishes no layers' },
   'no-earlier-run': { status: 404, title: 'There is no earlier succeeded run to compare with' },
   'dataset-exists': { status: 409, title: 'A dataset with this id exists' },
   'observation-conflict': { status: 409, title: 'Observations with these ids are stored with other content' },
