@@ -24,7 +24,8 @@ async function auditPlugin(app: FastifyInstance): Promise<void> {
         actor: principal?.keyId ? 'key' : 'open',
         action: `${request.method} ${route}`,
         datasetId: params.id ?? null,
-        target: params.obsId ?? params.run ?? params.keyId ?? null,
+        // a creation names what it made in Location
+        target: params.obsId ?? params.run ?? params.keyId ?? (typeof reply.getHeader('location') === 'string' ? (reply.getHeader('location') as string) : null),
         status: reply.statusCode,
       });
     } catch (err) {
