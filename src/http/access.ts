@@ -121,6 +121,8 @@ export function registerAccess(app: FastifyInstance, options: AccessOptions): Ke
   app.addHook('onRequest', async (request: FastifyRequest) => {
     const route = request.routeOptions.url;
     if (route === undefined) return; // no such route: the not-found answer tells nothing
+    // CORS preflights carry no credentials by definition (Fetch standard); they change nothing
+    if (request.method === 'OPTIONS') return;
     const method = request.method === 'HEAD' ? 'GET' : request.method;
     const access = options.table.get(`${method} ${route}`) ?? (prefixes.some((p) => route === p || route.startsWith(p + '/')) ? 'public' : undefined);
     if (access === 'public') return;
