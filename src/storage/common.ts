@@ -19,13 +19,13 @@ import type {
   ObservationQuery,
   ObservationRecord,
   RunInput,
-  RunLayer,
   RunPatch,
   RunResult,
   RunStatus,
   WhereCondition,
 } from './store.js';
-import { RUN_LAYERS, RUN_STATUSES, RUN_TRIGGERS, StoreError } from './store.js';
+import { LAYER_NAMES, type LayerName } from '../run/layers.js';
+import { RUN_STATUSES, RUN_TRIGGERS, StoreError } from './store.js';
 
 const DATASET_ID = /^[A-Za-z0-9._~-]{1,128}$/;
 
@@ -81,6 +81,7 @@ export function checkQuery(q: ObservationQuery): void {
   }
   if (q.from !== undefined && !Number.isFinite(q.from)) throw new StoreError('invalid', 'from must be epoch milliseconds');
   if (q.to !== undefined && !Number.isFinite(q.to)) throw new StoreError('invalid', 'to must be epoch milliseconds');
+  if (q.untimed === true && (q.from !== undefined || q.to !== undefined)) throw new StoreError('invalid', 'untimed observations have no time: leave from and to out');
   for (const c of q.where ?? []) {
     if (typeof c.property !== 'string' || c.property === '' || typeof c.value !== 'string') throw new StoreError('invalid', 'where conditions must be {property, value} strings');
   }
@@ -268,9 +269,9 @@ export function cutText(text: string, size = LAYER_PIECE_CHARS): string[] {
 }
 
 /** A result's layers as the pieces to store. @throws StoreError 'invalid' when a layer is not text */
-export function layerPieces(result: RunResult): Record<RunLayer, string[]> {
-  const out = {} as Record<RunLayer, string[]>;
-  for (const layer of RUN_LAYERS) {
+export function layerPieces(result: RunResult): Record<LayerName, string[]> {
+  const out = {} as Record<LayerName, string[]>;
+  for (const layer of LAYER_NAMES) {
     const v = result.layers?.[layer] as unknown;
     if (typeof v === 'string') out[layer] = cutText(v);
     else if (Array.isArray(v) && v.length > 0 && v.every((x) => typeof x === 'string')) out[layer] = [...(v as string[])];
