@@ -90,8 +90,9 @@ export async function registerEdge(app: FastifyInstance, config: ServerConfig): 
     crossOriginResourcePolicy: { policy: corsOrigins.size > 0 ? 'cross-origin' : 'same-origin' },
   });
 
-  await app.register(cors, {
-    origin: corsOrigins.size === 0 ? false : (origin, cb) => cb(null, origin !== undefined && corsOrigins.has(origin)),
+  // with no origin listed there is nothing to allow: no CORS headers and no preflight route
+  if (corsOrigins.size > 0) await app.register(cors, {
+    origin: (origin, cb) => cb(null, origin !== undefined && corsOrigins.has(origin)),
     methods: ['GET', 'HEAD', 'POST', 'PATCH', 'DELETE'],
     allowedHeaders: ['authorization', 'content-type', 'x-request-id'],
     exposedHeaders: ['x-request-id', 'retry-after', 'ratelimit-limit', 'ratelimit-remaining', 'ratelimit-reset'],

@@ -19,3 +19,11 @@ describe('start-up without keys', () => {
     expect(startupAccess('0.0.0.0', 2, false)).toMatchObject({ ok: true, level: 'info', message: 'API keys are required (2 in force)' });
   });
 });
+
+describe('the server', () => {
+  it('refuses to listen beyond loopback with no key, before listening, and says how to create one', async () => {
+    const { startServer } = await import('../../src/http/server.js');
+    const { testConfig } = await import('./helper.js');
+    await expect(startServer(testConfig({ host: '0.0.0.0', port: 0 }), { handleSignals: false })).rejects.toThrow(/roost keys create --role admin/);
+  });
+});
