@@ -74,7 +74,7 @@ function roleMatrix(name: string, open: () => Promise<AccessService>, skip: stri
       }
       expect(mismatches).toEqual([]);
       expect(checked).toBeGreaterThan(OPERATIONS.length * WHO.length);
-    });
+    }, 120_000);
   });
 }
 
