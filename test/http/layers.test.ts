@@ -13,7 +13,7 @@ describe('result layers by address', () => {
   const data = pointsCollection(200, 21);
   const input = (JSON.parse(data) as { features: { id: string; geometry: { coordinates: [number, number] } }[] }).features;
   beforeAll(async () => {
-    app = await testApp();
+    app = await testApp({ allowedHosts: 'survey.example' });
     await app.inject({ method: 'POST', url: '/v1/datasets', headers: { 'content-type': 'application/json' }, payload: JSON.stringify({ id: 'd', settings: { eps: 60, min_points: 5 } }) });
     await app.inject({ method: 'POST', url: '/v1/datasets/d/observations', headers: GEO, payload: data });
     const run = await app.inject({ method: 'POST', url: '/v1/datasets/d/runs' });
