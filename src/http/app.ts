@@ -28,6 +28,7 @@ import type { DatasetServices } from './routes/common.js';
 import { registerDatasetRoutes } from './routes/datasets.js';
 import { registerObservationRoutes } from './routes/observations.js';
 import { registerRunRoutes } from './routes/runs.js';
+import { webRoutes } from './routes/web.js';
 
 /** The repository's OpenAPI document, two levels up from src/http and from dist/http alike. */
 export const OPENAPI_PATH = fileURLToPath(new URL('../../openapi.yaml', import.meta.url));
@@ -340,6 +341,7 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   registerObservationRoutes(app, app.datasets);
   registerRunRoutes(app, app.datasets);
   registerChangeRoutes(app, { store });
+  await app.register(webRoutes, { store, basemapStyle: config.basemapStyle });
 
   // Registered last so the slow start-up above does not count as event-loop delay.
   await app.register(underPressure, {

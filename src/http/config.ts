@@ -43,6 +43,8 @@ export interface ServerConfig {
   webhookTimeoutMs: number;
   /** the service's address as clients see it (for example https://roost.example.org), for absolute links in notices; '' gives paths */
   publicUrl: string;
+  /** a MapLibre style URL for the map page's background (the operator's usual tiles); '' uses the built-in offline background */
+  basemapStyle: string;
 }
 
 /**
@@ -72,6 +74,7 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   webhookAttempts: 5,
   webhookTimeoutMs: 10_000,
   publicUrl: '',
+  basemapStyle: '',
 });
 
 /** One option: its config key, command-line flag, environment variable, kind and help text. */
@@ -104,6 +107,7 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'webhookAttempts', flag: '--webhook-attempts', env: 'ROOST_WEBHOOK_ATTEMPTS', kind: 'integer', help: 'attempts to deliver a notice of change (back-off doubling from 2 s)' },
   { key: 'webhookTimeoutMs', flag: '--webhook-timeout-ms', env: 'ROOST_WEBHOOK_TIMEOUT_MS', kind: 'integer', help: 'time allowed for one notice delivery attempt, milliseconds' },
   { key: 'publicUrl', flag: '--public-url', env: 'ROOST_PUBLIC_URL', kind: 'string', help: 'address clients use to reach the service, for absolute links in notices' },
+  { key: 'basemapStyle', flag: '--basemap-style', env: 'ROOST_BASEMAP_STYLE', kind: 'string', help: 'MapLibre style URL for the map page background (default: the built-in offline land and coastlines)' },
 ];
 
 const LEVELS = new Set(['fatal', 'error', 'warn', 'info', 'debug', 'trace', 'silent']);
@@ -176,6 +180,7 @@ function check(config: ServerConfig): ServerConfig {
   atLeast('webhookAttempts', 1);
   atLeast('webhookTimeoutMs', 1);
   if (config.publicUrl !== '' && !/^https?:\/\/[^/]/i.test(config.publicUrl)) throw new ConfigError(`${spec('publicUrl')}: must be an http:// or https:// address`);
+  if (config.basemapStyle !== '' && !/^(https?:\/\/[^/]|\/)/i.test(config.basemapStyle)) throw new ConfigError(`${spec('basemapStyle')}: must be an http:// or https:// address or a path on this service`);
   if (config.databaseUrl !== '' && !/^postgres(ql)?:\/\//i.test(config.databaseUrl)) throw new ConfigError(`${spec('databaseUrl')}: must start with postgres:// or postgresql://`);
   return config;
 }
