@@ -45,6 +45,8 @@ export interface ServerConfig {
   publicUrl: string;
   /** a MapLibre style URL for the map page's background (the operator's usual tiles); '' uses the built-in offline background */
   basemapStyle: string;
+  /** let webhooks reach private-network and loopback addresses (and http: to this machine) */
+  allowPrivateWebhooks: boolean;
 }
 
 /**
@@ -75,6 +77,7 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   webhookTimeoutMs: 10_000,
   publicUrl: '',
   basemapStyle: '',
+  allowPrivateWebhooks: false,
 });
 
 /** One option: its config key, command-line flag, environment variable, kind and help text. */
@@ -82,7 +85,8 @@ export interface OptionSpec {
   key: keyof ServerConfig;
   flag: string;
   env: string;
-  kind: 'integer' | 'size' | 'string' | 'level';
+  /** 'switch': a flag without a value (on when given), or true/false/1/0 in the environment */
+  kind: 'integer' | 'size' | 'string' | 'level' | 'switch';
   help: string;
 }
 
@@ -108,6 +112,7 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'webhookTimeoutMs', flag: '--webhook-timeout-ms', env: 'ROOST_WEBHOOK_TIMEOUT_MS', kind: 'integer', help: 'time allowed for one notice delivery attempt, milliseconds' },
   { key: 'publicUrl', flag: '--public-url', env: 'ROOST_PUBLIC_URL', kind: 'string', help: 'address clients use to reach the service, for absolute links in notices' },
   { key: 'basemapStyle', flag: '--basemap-style', env: 'ROOST_BASEMAP_STYLE', kind: 'string', help: 'MapLibre style URL for the map page background (default: the built-in offline land and coastlines)' },
+  { key: 'allowPrivateWebhooks', flag: '--allow-private-webhooks', env: 'ROOST_ALLOW_PRIVATE_WEBHOOKS', kind: 'switch', help: 'let webhooks reach private-network and loopback addresses (http: only to this machine)' },
 ];
 
 const LEVELS = new Set(['fatal', 'error', 'warn', 'info', 'debug', 'trace', 'silent']);
@@ -134,7 +139,14 @@ export function parseSize(text: string, where: string): number {
   return Math.floor(Number(m[1]) * unit);
 }
 
-function convert(spec: OptionSpec, value: unknown, where: string): string | number {
+function convert(spec: OptionSpec, value: unknown, where: string): string | number | boolean {
+  if (spec.kind === 'switch') {
+    if (typeof value === 'boolean') return value;
+    const t = String(value).trim().toLowerCase();
+    if (t === 'true' || t === '1') return true;
+    if (t === 'false' || t === '0') return false;
+    throw new ConfigError(`${where}: "${String(value)}" is not true or false`);
+  }
   if (spec.kind === 'string') {
     if (typeof value !== 'string' || value.trim() === '') throw new ConfigError(`${where}: give a non-empty value`);
     return value.trim();
