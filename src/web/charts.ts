@@ -49,9 +49,9 @@ export function kDistanceChart(kd: KDistance, epsM: number | null, width: number
     x: { label: `observations, by distance to their ${kd.k}th nearest neighbour`, grid: false },
     y: { label: 'metres', grid: true, domain: [0, top] },
     marks: [
-      Plot.lineY(rows, { x: 'rank', y: 'meters', stroke: '#2e7589', strokeWidth: 2 }),
+      Plot.lineY(rows, { x: 'rank', y: 'meters', stroke: '#2c7088', strokeWidth: 2 }),
       Plot.ruleY(epsM === null ? [] : [epsM], { stroke: '#111', strokeDasharray: '4 3', ariaLabel: 'chosen eps', className: 'eps-rule' }),
-      Plot.dot(knee, { x: 'rank', y: 'meters', r: 6, stroke: '#111', strokeWidth: 2, fill: '#f5efc8', ariaLabel: 'knee', className: 'knee-marker' }),
+      Plot.dot(knee, { x: 'rank', y: 'meters', r: 6, stroke: '#111', strokeWidth: 2, fill: '#fbf5d3', ariaLabel: 'knee', className: 'knee-marker' }),
       Plot.text(knee, { x: 'rank', y: 'meters', text: (d: { meters: number }) => `knee ${Number(d.meters.toPrecision(4))} m`, dx: -10, dy: -12, textAnchor: 'end' }),
     ],
   });
@@ -79,7 +79,7 @@ export function reachabilityChart(rows: ReachabilityRow[], thresholdM: number | 
     x: { label: 'observations in OPTICS order', axis: 'bottom' },
     y: { label: 'reachability, metres', grid: true, domain: [0, top] },
     marks: [
-      Plot.rectY(data, { x1: (d: { order: number }) => d.order, x2: (d: { order: number }) => d.order + 1, y: 'height', fill: (d: { clustered: boolean }) => (d.clustered ? '#2e7589' : '#b9c2c7') }),
+      Plot.rectY(data, { x1: (d: { order: number }) => d.order, x2: (d: { order: number }) => d.order + 1, y: 'height', fill: (d: { clustered: boolean }) => (d.clustered ? '#2c7088' : '#b9c2c7') }),
       Plot.ruleY(thresholdM === null ? [] : [thresholdM], { stroke: '#111', strokeDasharray: '4 3', className: 'threshold-rule', ariaLabel: 'extraction threshold' }),
     ],
   });
@@ -99,8 +99,8 @@ export function trackCharts(history: TrackEntry[], width: number): Element {
   const rows = history.map((h, i) => ({ i, run: h.run_id, count: h.count, area: h.area_km2 }));
   const common = { width: Math.max(160, Math.floor(width / 2) - 8), height: 130, marginLeft: 44, x: { label: 'run', ticks: rows.length, tickFormat: (i: number) => rows[i]?.run.slice(-3) ?? '' } };
   wrap.append(
-    Plot.plot({ ...common, ariaLabel: 'observations per run', y: { label: 'observations', grid: true, zero: true }, marks: [Plot.line(rows, { x: 'i', y: 'count', stroke: '#2e7589' }), Plot.dot(rows, { x: 'i', y: 'count', fill: '#2e7589' })] }),
-    Plot.plot({ ...common, ariaLabel: 'area per run', y: { label: 'km²', grid: true, zero: true }, marks: [Plot.line(rows.filter((r) => r.area !== null), { x: 'i', y: 'area', stroke: '#283f6b' }), Plot.dot(rows.filter((r) => r.area !== null), { x: 'i', y: 'area', fill: '#283f6b' })] }),
+    Plot.plot({ ...common, ariaLabel: 'observations per run', y: { label: 'observations', grid: true, zero: true }, marks: [Plot.line(rows, { x: 'i', y: 'count', stroke: '#2c7088' }), Plot.dot(rows, { x: 'i', y: 'count', fill: '#2c7088' })] }),
+    Plot.plot({ ...common, ariaLabel: 'area per run', y: { label: 'km²', grid: true, zero: true }, marks: [Plot.line(rows.filter((r) => r.area !== null), { x: 'i', y: 'area', stroke: '#28386a' }), Plot.dot(rows.filter((r) => r.area !== null), { x: 'i', y: 'area', fill: '#28386a' })] }),
   );
   return wrap;
 }

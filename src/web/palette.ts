@@ -1,10 +1,10 @@
 /**
  * Roost's own sequential palette for shading hotspots, light (least) to dark (most). Chosen here:
- * lightness falls steadily from step to step (CIE L* from about 94 to 28), so the order reads the
+ * lightness falls steadily from step to step (CIE L* from about 96 to 25, at least 8 units a step), so the order reads the
  * same with any colour vision and in greyscale; the hue drifts from straw through green and teal
  * to indigo only to help tell neighbouring steps apart. No red, no diverging hot/cold scheme.
  */
-export const SEQUENTIAL = ['#f5efc8', '#cfe3a2', '#92c99b', '#4fa69a', '#2e7589', '#283f6b'] as const;
+export const SEQUENTIAL = ['#fbf5d3', '#c8dc96', '#8cc895', '#4aa496', '#2c7088', '#28386a'] as const;
 
 /** One class of the legend: values from `min` to `max` (inclusive) are painted `colour`. */
 export interface ShadeClass {
