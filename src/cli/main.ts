@@ -69,6 +69,8 @@ function settingsFromFlags(opts: Record<string, unknown>): Record<string, unknow
     min_cluster_size: opts.minClusterSize,
     lon_column: opts.lonColumn,
     lat_column: opts.latColumn,
+    time_column: opts.timeColumn,
+    time_format: opts.timeFormat,
   };
 }
 
@@ -167,6 +169,8 @@ export function buildProgram(setExit: (code: number) => void): Command {
       .option('--where <property=value>', 'keep observations whose property equals value (repeatable)', collect)
       .option('--lon-column <name>', 'CSV longitude column (default: found by common names)')
       .option('--lat-column <name>', 'CSV latitude column (default: found by common names)')
+      .option('--time-column <name>', 'property (CSV column) holding each observation\'s time (default: observed_at)')
+      .option('--time-format <pattern>', 'how that time is written, with YYYY, MM, DD, hh, mm, ss, e.g. DD.MM.YYYY (default: RFC 3339)')
       .option('--progress', 'report progress on stderr even when it is not a terminal');
 
   common(

@@ -16,16 +16,18 @@
 import { createRequire } from 'node:module';
 import type { InputFeature, Observations } from './types.js';
 import {
+  DEFAULT_TIME_RULE,
   ProblemList,
   TIME_PROPERTY,
   describe,
   fail,
   locate,
   malformedJsonMessage,
-  parseTimestamp,
   rangeProblem,
+  readTime,
   timeMessage,
   weightMessage,
+  type TimeRule,
 } from './checks.js';
 
 /** The parts of the `geojson-validation` package used here (it ships no type declarations). */
@@ -47,10 +49,12 @@ export interface FeatureListOptions {
   lines: ArrayLike<number> | null;
   /** per item, the message for a record that could not be parsed (reported as `malformed-json` in index order); null for none */
   unparsed?: (string | undefined)[] | null;
+  /** where the time is and how it is written; `observed_at` in RFC 3339 by default */
+  time?: TimeRule;
 }
 
 /** Reads a GeoJSON text (FeatureCollection or Feature). Throws InputError; never returns part of the input. */
-export function readGeoJson(text: string, weightProperty: string | null, maxProblems: number, maxFeatures: number): Observations {
+export function readGeoJson(text: string, weightProperty: string | null, maxProblems: number, maxFeatures: number, time: TimeRule = DEFAULT_TIME_RULE): Observations {
   let root: unknown;
   try {
     root = JSON.parse(text);
@@ -63,7 +67,7 @@ export function readGeoJson(text: string, weightProperty: string | null, maxProb
     fail('too-many-features', `the input has ${items.length} features; at most ${maxFeatures} are accepted in one request — split it`);
   }
   const problems = new ProblemList(maxProblems);
-  const obs = checkFeatureList(items, { weightProperty, noun: 'feature', lines: null }, problems);
+  const obs = checkFeatureList(items, { weightProperty, noun: 'feature', lines: null, time }, problems);
   problems.throwIfAny();
   return obs;
 }
@@ -139,6 +143,10 @@ class FeatureChecker {
       problems.add(null, undefined, 'unknown-property', unknownPropertyMessage(items, weightProperty, this.options.noun));
       checkWeight = false;
     }
+    const time = this.options.time ?? DEFAULT_TIME_RULE;
+    if (time.property !== TIME_PROPERTY && !anyHasProperty(items, time.property)) {
+      problems.add(null, undefined, 'unknown-property', `time_column: ${unknownPropertyMessage(items, time.property, this.options.noun)}`);
+    }
     const unparsed = this.options.unparsed ?? null;
     for (let i = 0; i < n; i++) {
       if (unparsed !== null && unparsed[i] !== undefined) {
@@ -196,17 +204,17 @@ class FeatureChecker {
           problems.add(i, id, 'bad-weight', weightMessage(this.where(i, id), weightProperty as string, own));
         }
       }
-      const t = p === null ? undefined : p[TIME_PROPERTY];
-      if (t === undefined || t === null) {
+      const t = p === null ? undefined : p[time.property];
+      if (t === undefined || t === null || (time.format !== null && t === '')) {
         observedAt[i] = NaN;
       } else {
-        const ms = typeof t === 'string' ? parseTimestamp(t) : NaN;
+        const ms = readTime(t, time);
         if (ms === ms) {
           observedAt[i] = ms;
           this.timed++;
         } else {
           observedAt[i] = NaN;
-          problems.add(i, id, 'bad-time', timeMessage(this.where(i, id), t));
+          problems.add(i, id, 'bad-time', timeMessage(this.where(i, id), t, time));
         }
       }
     }

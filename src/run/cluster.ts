@@ -226,8 +226,7 @@ function categoryValues(features: InputFeature[], property: string): (string | n
   return out;
 }
 
-function hotspotProperties(f: HotspotFigures, features: InputFeature[]): Record<string, unknown> {
-  const medoid = features[f.medoid];
+function hotspotProperties(f: HotspotFigures, medoidId: string | number): Record<string, unknown> {
   return {
     hotspot_id: f.hotspot + 1,
     track_id: null,
@@ -240,7 +239,7 @@ function hotspotProperties(f: HotspotFigures, features: InputFeature[]): Record<
     weight_density_per_km2: sig(f.weightDensityPerKm2),
     radius_m: roundMeters(f.radiusMeters),
     centre: [round(f.centre[0], 7), round(f.centre[1], 7)],
-    medoid_id: medoid.id ?? f.medoid,
+    medoid_id: medoidId,
     first_observed_at: f.firstObservedAt,
     last_observed_at: f.lastObservedAt,
     ...(f.categories ? { categories: f.categories } : {}),
@@ -341,6 +340,25 @@ export function pointFeatureFromText(text: string, hotspot: number, role: number
   return `{"type":"Feature"${id === '' ? '' : ',"id":' + id},"geometry":{"type":"Point","coordinates":${position}]},"properties":${properties}}`;
 }
 
+/**
+ * The warning for observations left out by a time window because their time could not be read:
+ * it names the time property and says how to name another one, so that a run over a few of the
+ * observations is not blamed on eps.
+ */
+function untimedWarnings(untimed: number, total: number, settings: ClusterSettings): ClusteringWarning[] {
+  if (untimed === 0) return [];
+  const column = settings.timeColumn ?? 'observed_at';
+  const how = settings.timeFormat === null ? 'as an RFC 3339 date-time' : `written ${settings.timeFormat}`;
+  return [
+    {
+      code: 'untimed-observations',
+      message:
+        `${untimed} of ${total} observations were left out because a time window applies and they have no time in "${column}" ${how}. ` +
+        'If their time is in another property or column, or written another way, name it with time_column and time_format (for example time_column=Datum, time_format=DD.MM.YYYY).',
+    },
+  ];
+}
+
 /** Plain words for why the convex hull of all observations (the Clark–Evans study area) could not be drawn. */
 function studyAreaFailure(err: Error): string {
   if (/lies more than|spread evenly round the globe/.test(err.message)) {
@@ -404,6 +422,8 @@ export interface FeatureTextSource {
  * `featureTexts`, when given, holds the canonical text of every input feature (by position in
  * `all`); the points and noise layers are then written from those texts (same bytes, no
  * re-serialising), and `all.features` is read only for count_by, weights and medoid ids.
+ * `ids`, when given, holds every input observation's id (by position in `all`), for stored
+ * observations whose id is a property (a dataset's id_property) rather than the GeoJSON id.
  */
 export function clusterObservations(
   all: Observations,
@@ -412,8 +432,12 @@ export function clusterObservations(
   timer: Timer = new Timer(hooks),
   inputInfo: Record<string, unknown> = {},
   featureTexts?: FeatureTextSource,
+  ids?: ArrayLike<string>,
 ): ClusterResult {
   const filtered = applyFilter(all, { since: settings.since, until: settings.until, where: settings.where });
+  // a stored run's window is applied by the store, which reports the untimed observations it left out
+  const earlierUntimed = typeof inputInfo.left_out_untimed === 'number' ? inputInfo.left_out_untimed : 0;
+  const untimed = filtered.info.left_out_untimed + earlierUntimed;
   const obs = filtered.observations;
   const { points, features } = obs;
 
@@ -465,12 +489,14 @@ export function clusterObservations(
   const whole = resultFigures(points, clustering, { studyAreaKm2, studyAreaProblem, nearest });
 
   timer.start('write');
+  /** the medoid's observation id: the stored id, else the GeoJSON id, else its input index */
+  const medoidIdOf = (i: number): string | number => (ids !== undefined ? (ids[filtered.kept[i]!] as string) : (features[i]!.id ?? i));
   const resultHotspots: ResultHotspot[] = [];
   for (let h = 0; h < clustering.count; h++) {
     const own = members.slice(start[h], start[h + 1]);
     const coreMembers = new Int32Array(figures[h].coreCount);
     for (let k = 0, c = 0; k < own.length; k++) if (clustering.roles[own[k]] === ROLE_CORE) coreMembers[c++] = own[k];
-    resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], features) });
+    resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], medoidIdOf(figures[h].medoid)) });
   }
   let noiseCount = 0;
   for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseCount++;
@@ -518,7 +544,7 @@ export function clusterObservations(
   const summary: Record<string, unknown> = {
     roost_version: ROOST_VERSION,
     parameters: { ...settingsRecord(settings), eps: epsMeters, eps_auto: settings.epsAuto },
-    input: { ...inputInfo, observations: all.points.n, kept: points.n, left_out_by_filter: all.points.n - points.n, ...filtered.info },
+    input: { ...inputInfo, observations: all.points.n, kept: points.n, left_out_by_filter: all.points.n - points.n, ...filtered.info, left_out_untimed: untimed },
     figures: {
       hotspots: whole.hotspots,
       observations: whole.observations,
@@ -531,7 +557,7 @@ export function clusterObservations(
       clark_evans: clarkEvansBlock(whole),
     },
     hotspots: resultHotspots.map((r) => r.properties),
-    warnings: [...clusteringWarnings(clustering), ...clarkEvansWarnings(whole)],
+    warnings: [...untimedWarnings(untimed, all.points.n + earlierUntimed, settings), ...clusteringWarnings(clustering), ...clarkEvansWarnings(whole)],
     cautions: CAUTIONS,
     timings_ms: timer.ms,
   };
@@ -555,6 +581,8 @@ export function clusterInput(
     weightProperty: settings.weightProperty,
     lonColumn: settings.lonColumn ?? undefined,
     latColumn: settings.latColumn ?? undefined,
+    timeColumn: settings.timeColumn,
+    timeFormat: settings.timeFormat,
   });
   return clusterObservations(obs, settings, hooks, timer, { format: format ?? 'detected' });
 }
@@ -572,6 +600,8 @@ export function suggestEpsInput(input: Buffer | string, format: InputFormat | un
     weightProperty: settings.weightProperty,
     lonColumn: settings.lonColumn ?? undefined,
     latColumn: settings.latColumn ?? undefined,
+    timeColumn: settings.timeColumn,
+    timeFormat: settings.timeFormat,
   });
   const { observations } = applyFilter(obs, { since: settings.since, until: settings.until, where: settings.where });
   const minPoints = Math.max(2, settings.minPoints);

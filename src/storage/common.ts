@@ -80,6 +80,7 @@ export function checkQuery(q: ObservationQuery): void {
   }
   if (q.from !== undefined && !Number.isFinite(q.from)) throw new StoreError('invalid', 'from must be epoch milliseconds');
   if (q.to !== undefined && !Number.isFinite(q.to)) throw new StoreError('invalid', 'to must be epoch milliseconds');
+  if (q.untimed === true && (q.from !== undefined || q.to !== undefined)) throw new StoreError('invalid', 'untimed observations have no time: leave from and to out');
   for (const c of q.where ?? []) {
     if (typeof c.property !== 'string' || c.property === '' || typeof c.value !== 'string') throw new StoreError('invalid', 'where conditions must be {property, value} strings');
   }

@@ -263,8 +263,11 @@ export class PostgresStore implements Store {
     return ((await this.pool.query('DELETE FROM observations WHERE dataset_id = $1 AND obs_id = $2', [datasetId, id])).rowCount ?? 0) > 0;
   }
 
-  async countObservations(datasetId: string): Promise<number> {
-    return (await this.pool.query('SELECT count(*)::int AS n FROM observations WHERE dataset_id = $1', [datasetId])).rows[0].n as number;
+  async countObservations(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<number> {
+    checkQuery(query);
+    const p = new Params();
+    const { from, clause } = whereClause(p, datasetId, query);
+    return (await this.pool.query(`SELECT count(*)::int AS n FROM ${from} WHERE ${clause}`, p.values)).rows[0].n as number;
   }
 
   /**
@@ -687,6 +690,7 @@ function whereClause(p: Placeholders, datasetId: string, q: ObservationQuery): {
   }
   if (q.from !== undefined) parts.push(`o.observed_at >= ${p.add(q.from)}`);
   if (q.to !== undefined) parts.push(`o.observed_at < ${p.add(q.to)}`);
+  if (q.untimed === true) parts.push('o.observed_at IS NULL');
   const matches = whereMatches(q.where);
   let from = 'observations o';
   if (matches.length > 0) {

@@ -232,8 +232,10 @@ export class SqliteStore implements Store {
     return this.db.prepare('DELETE FROM observations WHERE dataset_id = ? AND obs_id = ?').run(datasetId, id).changes > 0;
   }
 
-  async countObservations(datasetId: string): Promise<number> {
-    return this.db.prepare('SELECT count(*) FROM observations WHERE dataset_id = ?').pluck().get(datasetId) as number;
+  async countObservations(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<number> {
+    checkQuery(query);
+    const { clause, args } = whereClause(datasetId, query);
+    return this.db.prepare(`SELECT count(*) FROM observations WHERE ${clause}`).pluck().get(...args) as number;
   }
 
   async loadForRun(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<RunInput> {
@@ -653,6 +655,7 @@ function whereClause(datasetId: string, q: ObservationQuery): { clause: string; 
     parts.push('observed_at < ?');
     args.push(q.to);
   }
+  if (q.untimed === true) parts.push('observed_at IS NULL');
   for (const m of whereMatches(q.where)) {
     const path = jsonPathLabel(m.property);
     // `->` gives the value's JSON text (its first character tells the type), `->>` its SQL value.

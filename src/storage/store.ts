@@ -156,6 +156,8 @@ export interface ObservationQuery {
   /** epoch ms, exclusive */
   to?: number;
   where?: WhereCondition[];
+  /** only observations without a time (from and to must then be absent) */
+  untimed?: boolean;
 }
 
 export interface ListObservationsOptions extends ObservationQuery {
@@ -375,7 +377,8 @@ export interface Store {
   listObservations(datasetId: string, options: ListObservationsOptions): Promise<ObservationPage>;
   /** Removes one observation (a retraction). @returns false when it was not stored */
   deleteObservation(datasetId: string, id: string): Promise<boolean>;
-  countObservations(datasetId: string): Promise<number>;
+  /** Observations of a dataset, all of them or those matching a query (for example `{ untimed: true }`). */
+  countObservations(datasetId: string, query?: Omit<ObservationQuery, 'bbox'>): Promise<number>;
   /** The matching observations as columns, in insertion order. */
   loadForRun(datasetId: string, query?: Omit<ObservationQuery, 'bbox'>): Promise<RunInput>;
   /** Positions of the given observations (for example a run's core members); unknown ids are left out. */

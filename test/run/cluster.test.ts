@@ -121,3 +121,33 @@ describe('OPTICS ξ hotspots', () => {
     }
   });
 });
+
+describe('observations without a usable time', () => {
+  // 31 observations in one patch, dated in a "Datum" column written DD.MM.YYYY, two of them also
+  // with an RFC 3339 observed_at (as when two rows came from another source)
+  const rows = ['id,lon,lat,Datum,observed_at'];
+  for (let i = 0; i < 31; i++) rows.push(`o${i},${8 + (i % 6) * 0.0002},${47 + Math.floor(i / 6) * 0.0002},${String(1 + (i % 28)).padStart(2, '0')}.03.2026,${i < 2 ? '2026-03-10T00:00:00Z' : ''}`);
+  const csv = rows.join('\n') + '\n';
+  const window = { since: '2026-03-01', until: '2026-04-01' };
+
+  it('are counted and named in a warning when a window leaves them out', () => {
+    const result = clusterInput(csv, 'csv', resolveSettings({ eps: 60, min_points: 3, ...window }));
+    const s = result.summary as Summary & { input: Record<string, number> };
+    expect(s.input.kept).toBe(2);
+    expect(s.input.left_out_untimed).toBe(29);
+    const w = s.warnings.find((x) => x.code === 'untimed-observations');
+    expect(w?.message).toMatch(/^29 of 31 observations were left out because a time window applies and they have no time in "observed_at" as an RFC 3339 date-time\./);
+    expect(w?.message).toMatch(/time_column and time_format/);
+    // the warning comes first: it, not eps, is why so few were clustered
+    expect(s.warnings[0]?.code).toBe('untimed-observations');
+  });
+
+  it('are read from the column the settings name, in its format', () => {
+    const result = clusterInput(csv, 'csv', resolveSettings({ eps: 60, min_points: 3, ...window, time_column: 'Datum', time_format: 'DD.MM.YYYY' }));
+    const s = result.summary as Summary & { input: Record<string, number> };
+    expect(s.input.kept).toBe(31);
+    expect(s.input.left_out_untimed).toBe(0);
+    expect(s.warnings.map((w) => w.code)).not.toContain('untimed-observations');
+    expect(s.hotspots).toHaveLength(1);
+  });
+});

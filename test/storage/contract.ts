@@ -301,6 +301,19 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(await all(store, 'herons', { from: edge.observedAt! - 1, to: edge.observedAt!, limit: 10 })).not.toContain(edge.feature);
       });
 
+      it('counts all observations, those without a time, and those matching conditions', async () => {
+        expect(await store.countObservations('herons')).toBe(recs.length);
+        const untimed = recs.filter((r) => r.observedAt === null);
+        expect(untimed.length).toBeGreaterThan(0);
+        expect(await store.countObservations('herons', { untimed: true })).toBe(untimed.length);
+        const from = T0 + 5 * DAY_MS;
+        expect(await store.countObservations('herons', { from })).toBe(recs.filter((r) => r.observedAt !== null && r.observedAt >= from).length);
+        const species = JSON.parse(untimed[0]!.feature).properties.species as string;
+        const want = untimed.filter((r) => JSON.parse(r.feature).properties.species === species).length;
+        expect(await store.countObservations('herons', { untimed: true, where: [{ property: 'species', value: species }] })).toBe(want);
+        await rejects(store.countObservations('herons', { untimed: true, from }), 'invalid');
+      });
+
       it('filters by property values the way the file filter does', async () => {
         const conditions: [string, string][] = [['species', 'heron'], ['count', '2'], ['count', '2.5'], ['count', '2.50'], ['count', '02'], ['seen', 'true'], ['seen', 'false'], ['note', 'null'], ['note', 'ok'], ['missing', 'x']];
         for (const [property, value] of conditions) {
