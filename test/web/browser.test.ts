@@ -1,3 +1,5 @@
+/// <reference lib="dom" />
+/// <reference lib="dom.iterable" />
 /**
  * The map page and the report in a real browser: Debian's chromium driven by playwright-core
  * (no browser download). Screenshots of each page go to test-screenshots/ (not committed) so a
@@ -23,6 +25,13 @@ if (missing !== null && isCi()) throw new Error(`the browser suite cannot run un
 if (missing !== null) console.warn(`browser suite skipped: ${missing}`);
 
 type Json = Record<string, any>;
+
+declare global {
+  interface Window {
+    /** the page's map (src/web/page.ts and report.ts) */
+    roostMap?: import('maplibre-gl').Map;
+  }
+}
 
 async function finished(base: string, url: string, timeoutMs = 60_000): Promise<Json> {
   const end = Date.now() + timeoutMs;
@@ -84,7 +93,7 @@ describe.skipIf(missing !== null)(`the map page in chromium${missing ? ` (skippe
     const page = await open(`/datasets/${DEMO_DATASET}`);
     await page.screenshot({ path: join(SCREENSHOTS, 'dataset.png') });
     const api = (await (await fetch(`${base}/v1/datasets/${DEMO_DATASET}/runs/latest/hotspots`)).json()) as Json;
-    const want = api.features.map((f: Json) => f.properties.hotspot_id).sort((a: number, b: number) => a - b);
+    const want = (api.features as Json[]).map((f) => Number(f.properties.hotspot_id)).sort((a, b) => a - b);
     // the features the map rendered, not the page's text
     const drawn = await page.evaluate(() => [...new Set(window.roostMap!.queryRenderedFeatures({ layers: ['hotspot-fill'] }).map((f) => Number(f.properties.hotspot_id)))]);
     expect(drawn.sort((a, b) => a - b)).toEqual(want);
