@@ -229,11 +229,16 @@ async function datasetPage(id: string): Promise<void> {
   picker.addEventListener('change', () => void loadRun(picker.value, false).catch(fail));
   shadeBy.addEventListener('change', () => current && drawLegend(showRun(map, current, shadeBy.value as ShadeBy)));
   noiseToggle.addEventListener('change', async () => {
+    setState('loading');
     if (current && noiseToggle.checked && current.noise === null) {
       current.noise = await getJson<FC>(`/v1/datasets/${enc(id)}/runs/${enc(current.run.id)}/noise`);
       showRun(map, current, shadeBy.value as ShadeBy);
     }
+    const drawn = new Promise<void>((resolve) => map.once('idle', () => resolve()));
     setNoiseVisible(map, noiseToggle.checked);
+    map.triggerRepaint();
+    await drawn;
+    setState('ready');
   });
 
   await setupEpsChooser(id, dataset);

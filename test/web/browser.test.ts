@@ -156,7 +156,7 @@ describe.skipIf(missing !== null)(`the map page in chromium${missing ? ` (skippe
     expect(unnamed).toEqual([]);
     // the noise toggle draws the noise points
     await page.check('#noise-toggle');
-    await page.evaluate(() => new Promise((r) => window.roostMap!.once('idle', r)));
+    await page.waitForSelector('body[data-state="ready"]');
     const noise = await page.evaluate(() => window.roostMap!.queryRenderedFeatures({ layers: ['noise'] }).length);
     expect(noise).toBeGreaterThan(0);
     await page.screenshot({ path: join(SCREENSHOTS, 'noise.png') });
