@@ -9,7 +9,7 @@ import { scheduleProblem } from '../../jobs/schedule.js';
 import { resolveSettings } from '../../run/settings.js';
 import { StoreError, type DatasetPatch, type NewDataset } from '../../storage/store.js';
 import { HttpProblem } from '../errors.js';
-import { datasetJson, jsonObject, requireDataset, settingsProblem, type DatasetServices } from './common.js';
+import { datasetJson, jsonObject, requireDataset, settingsProblem } from './common.js';
 
 const FIELDS = ['id', 'name', 'settings', 'id_property', 'window', 'schedule', 'webhook'] as const;
 
@@ -95,8 +95,8 @@ function mergeSettings(base: Record<string, unknown>, patch: unknown): Record<st
   return out;
 }
 
-export function registerDatasetRoutes(app: FastifyInstance, services: DatasetServices): void {
-  const { store } = services;
+export default async function datasetRoutes(app: FastifyInstance): Promise<void> {
+  const { store } = app;
 
   app.post('/v1/datasets', async (request, reply) => {
     const doc = jsonObject(request);

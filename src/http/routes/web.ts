@@ -18,7 +18,6 @@ import { runQuery } from '../../jobs/execute.js';
 import { kDistancePreview } from '../../report/kdistance.js';
 import { renderReport, reportDataFromStore } from '../../report/report.js';
 import { resolveSettings } from '../../run/settings.js';
-import type { Store } from '../../storage/store.js';
 import { HttpProblem } from '../errors.js';
 import { requireDataset, requireRun, settingsProblem } from './common.js';
 
@@ -26,7 +25,6 @@ import { requireDataset, requireRun, settingsProblem } from './common.js';
 export const WEB_DIR = fileURLToPath(new URL('../../../dist/web', import.meta.url));
 
 export interface WebRouteOptions {
-  store: Store;
   /** a MapLibre style URL for the page's background; '' uses the built-in offline background */
   basemapStyle: string;
 }
@@ -41,8 +39,8 @@ function escapeAttr(s: string): string {
   return s.replace(/[&<>"']/g, (c) => `&#${c.charCodeAt(0)};`);
 }
 
-export async function webRoutes(app: FastifyInstance, options: WebRouteOptions): Promise<void> {
-  const { store } = options;
+export default async function webRoutes(app: FastifyInstance, options: WebRouteOptions): Promise<void> {
+  const store = app.store;
   const indexPath = `${WEB_DIR}/index.html`;
   const built = existsSync(indexPath);
   const page = built
