@@ -293,4 +293,10 @@ export const MIGRATIONS: readonly Migration[] = [
       );
     `,
   },
+  {
+    version: 6,
+    name: 'dataset publishing settings',
+    sqlite: 'ALTER TABLE datasets ADD COLUMN publish TEXT;',
+    postgres: 'ALTER TABLE datasets ADD COLUMN publish JSONB;',
+  },
 ];

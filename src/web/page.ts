@@ -5,7 +5,7 @@
 import './style.css';
 import workerUrl from 'maplibre-gl/dist/maplibre-gl-worker.mjs?url';
 import type { Map as MapLibreMap, MapLayerMouseEvent } from 'maplibre-gl';
-import { getJson } from './api.js';
+import { ApiError, getJson, storedKey, storeKey } from './api.js';
 import { maplibregl, openMap } from './basemap.js';
 import { kDistanceChart, kDistanceTop, reachabilityChart, trackCharts, type KDistance } from './charts.js';
 import {
@@ -56,8 +56,44 @@ function setState(state: string): void {
 }
 
 function fail(err: unknown): void {
+  if (err instanceof ApiError && (err.status === 401 || err.status === 403)) return askForKey(err);
   app.innerHTML = `<p class="error" role="alert">${escapeHtml((err as Error).message ?? String(err))}</p>`;
   setState('error');
+}
+
+/** The form for an API key, shown when the service asks for one (or refuses the one given). */
+function askForKey(err: ApiError): void {
+  const had = storedKey() !== null;
+  app.innerHTML = `<section class="landing"><h1>An API key is needed</h1>
+    <p role="alert">${escapeHtml(err.message)}</p>
+    <form id="key-form" class="key-form">
+      <label for="api-key">API key</label>
+      <input type="password" id="api-key" autocomplete="off" required />
+      <button type="submit">Use this key</button>
+    </form>
+    <p class="note">The key is kept in this browser tab only, until it is closed.${had ? ' The key given before was refused.' : ''}</p></section>`;
+  document.getElementById('key-form')!.addEventListener('submit', (e) => {
+    e.preventDefault();
+    storeKey((document.getElementById('api-key') as HTMLInputElement).value);
+    location.reload();
+  });
+  (document.getElementById('api-key') as HTMLInputElement).focus();
+  setState('key-needed');
+}
+
+/** Says in the header whether a key is in use, with a button to forget it. */
+function showKeyState(): void {
+  const header = document.querySelector('header.top')!;
+  header.querySelector('.key-state')?.remove();
+  if (storedKey() === null) return;
+  const span = document.createElement('span');
+  span.className = 'key-state';
+  span.innerHTML = 'API key in use <button type="button" id="forget-key">Forget the key</button>';
+  header.append(span);
+  document.getElementById('forget-key')!.addEventListener('click', () => {
+    storeKey(null);
+    location.reload();
+  });
 }
 
 async function landing(): Promise<void> {
@@ -332,6 +368,7 @@ async function setupEpsChooser(id: string, dataset: Dataset): Promise<void> {
 }
 
 async function route(): Promise<void> {
+  showKeyState();
   const m = /^\/datasets\/([^/]+)\/?$/.exec(location.pathname);
   if (m) await datasetPage(decodeURIComponent(m[1]));
   else await landing();

@@ -13,6 +13,7 @@ import { fileURLToPath } from 'node:url';
 import type { FastifyInstance } from 'fastify';
 import { chromium, type Browser, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { issueKey } from '../../src/auth/keys.js';
 import { buildApp } from '../../src/http/app.js';
 import { DEMO_DATASET, seedDemo } from '../../src/http/routes/demo.js';
 import { testConfig } from '../http/helper.js';
@@ -190,5 +191,32 @@ describe.skipIf(missing !== null)(`the map page in chromium${missing ? ` (skippe
     expect(asked).toEqual([`file://${file}`]);
     await context.close();
     expect(errors).toEqual([]);
+  });
+  // last: once a key exists, the service asks for one
+  it('asks for an API key once keys exist, keeps it for the tab, and shows the dataset with it', async () => {
+    const { token } = await issueKey(app.store, { role: 'reader', datasetId: null, label: 'map page test' });
+    app.keyPresence.forget();
+    const page = await browser.newPage({ viewport: { width: 1400, height: 900 } });
+    const own: string[] = [];
+    page.on('console', (m) => {
+      // the browser itself reports the 401 answers the page asks the key after; anything else counts
+      if (m.type() === 'error' && !/status of 401/.test(m.text())) own.push(m.text());
+    });
+    page.on('pageerror', (e) => own.push(e.message));
+    await page.goto(`${base}/datasets/${DEMO_DATASET}`);
+    await page.waitForSelector('body[data-state="key-needed"]');
+    await page.fill('#api-key', 'not-a-key');
+    await page.press('#api-key', 'Enter');
+    await page.waitForSelector('body[data-state="key-needed"]');
+    expect(await page.textContent('#app')).toMatch(/refused/);
+    await page.fill('#api-key', token);
+    await page.click('#key-form button');
+    await page.waitForSelector('body[data-state="ready"]', { timeout: 60_000 });
+    const drawn = await page.evaluate(() => new Set(window.roostMap!.queryRenderedFeatures({ layers: ['hotspot-fill'] }).map((f) => f.properties.hotspot_id)).size);
+    expect(drawn).toBe(latest.summary.figures.hotspots);
+    expect(await page.evaluate(() => sessionStorage.getItem('roost-api-key'))).toBe(token);
+    await page.screenshot({ path: join(SCREENSHOTS, 'with-key.png') });
+    await page.close();
+    expect(own).toEqual([]);
   });
 });

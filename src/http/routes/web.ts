@@ -39,6 +39,28 @@ function escapeAttr(s: string): string {
   return s.replace(/[&<>"']/g, (c) => `&#${c.charCodeAt(0)};`);
 }
 
+/**
+ * The page's Content-Security-Policy: its own scripts, styles and map worker, inline styles (the
+ * charts' SVG and the legend's swatches carry them), images from data: and blob: (map icons), and
+ * requests to this service only; with an operator's basemap style, its host and any https: host
+ * too, since a style names its tiles, glyphs and sprites wherever they are.
+ */
+export function pagePolicy(basemapStyle: string): string {
+  const outside = basemapStyle === '' ? '' : /^https?:/i.test(basemapStyle) ? ` ${new URL(basemapStyle).origin} https:` : '';
+  return [
+    "default-src 'self'",
+    "script-src 'self'",
+    "worker-src 'self' blob:",
+    "style-src 'self' 'unsafe-inline'",
+    `img-src 'self' data: blob:${outside}`,
+    `connect-src 'self'${outside}`,
+    "font-src 'self'",
+    "object-src 'none'",
+    "base-uri 'none'",
+    "frame-ancestors 'self'",
+  ].join('; ');
+}
+
 export default async function webRoutes(app: FastifyInstance, options: WebRouteOptions): Promise<void> {
   const store = app.store;
   const indexPath = `${WEB_DIR}/index.html`;
@@ -49,9 +71,10 @@ export default async function webRoutes(app: FastifyInstance, options: WebRouteO
   if (built) {
     await app.register(fastifyStatic, { root: `${WEB_DIR}/assets`, prefix: '/assets/', decorateReply: false, immutable: true, maxAge: '365d' });
   }
+  const csp = pagePolicy(options.basemapStyle);
   const sendPage = async (_request: unknown, reply: import('fastify').FastifyReply) => {
     if (page === null) throw new HttpProblem('not-found', 'The map page has not been built; run `npm run build` (npm ci does it) and restart the service.');
-    return reply.type('text/html; charset=utf-8').header('cache-control', 'no-cache').send(page);
+    return reply.type('text/html; charset=utf-8').header('cache-control', 'no-cache').header('content-security-policy', csp).send(page);
   };
   app.get('/', sendPage);
   app.get('/datasets/:id', sendPage);
