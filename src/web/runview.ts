@@ -62,12 +62,19 @@ export function shadeHotspots(hotspots: FC, by: ShadeBy): { data: FC; classes: S
   return { data, classes };
 }
 
+/** A hotspot's centre: `centre_lon`/`centre_lat` in layers, `centre` as a pair in summaries and changes. */
+export function centreOf(p: Record<string, unknown>): [number, number] | undefined {
+  if (Array.isArray(p.centre)) return p.centre as [number, number];
+  if (typeof p.centre_lon === 'number' && typeof p.centre_lat === 'number') return [p.centre_lon, p.centre_lat];
+  return undefined;
+}
+
 /** Point features at each changed hotspot's centre, carrying its transition kind. */
 function markPoints(changes: FC | null): FC {
   if (!changes) return EMPTY;
   const features: GeoJSON.Feature<GeoJSON.Geometry, Record<string, unknown>>[] = [];
   for (const f of changes.features) {
-    const centre = f.properties.centre as [number, number] | undefined;
+    const centre = centreOf(f.properties);
     if (!Array.isArray(centre) || f.properties.transition === 'survival') continue;
     features.push({ type: 'Feature', geometry: { type: 'Point', coordinates: centre }, properties: { transition: f.properties.transition, hotspot_id: f.properties.hotspot_id } });
   }
@@ -134,6 +141,8 @@ export const FIGURE_FIELDS: [string, string][] = [
   ['density_per_km2', 'per km²'],
   ['radius_m', 'radius, m'],
   ['centre', 'centre (lon, lat)'],
+  ['centre_lon', 'centre longitude'],
+  ['centre_lat', 'centre latitude'],
   ['medoid_id', 'medoid'],
   ['first_observed_at', 'first seen'],
   ['last_observed_at', 'last seen'],
@@ -151,7 +160,13 @@ export function figuresHtml(p: Record<string, unknown>): string {
       return `<dt>${label}</dt><dd data-field="${k}">${escapeHtml(text)}</dd>`;
     })
     .join('');
-  const cats = p.categories && typeof p.categories === 'object' ? Object.entries(p.categories as Record<string, number>) : [];
+  // counts by category: an object in summaries, one count_<value> field each in layers
+  const cats =
+    p.categories && typeof p.categories === 'object'
+      ? Object.entries(p.categories as Record<string, number>)
+      : Object.entries(p)
+          .filter(([k]) => k.startsWith('count_'))
+          .map(([k, v]) => [k.slice('count_'.length), v as number] as [string, number]);
   const catHtml = cats.length ? `<dt>by category</dt><dd data-field="categories">${cats.map(([k, n]) => `${escapeHtml(k)} ${n}`).join(', ')}</dd>` : '';
   return `<dl class="figures">${rows}${catHtml}</dl>`;
 }

@@ -103,7 +103,7 @@ describe.skipIf(missing !== null)(`the map page in chromium${missing ? ` (skippe
 
     // click the largest hotspot at its centre (inside its convex hull)
     const target = [...api.features].sort((a: Json, b: Json) => b.properties.count - a.properties.count)[0].properties;
-    const px = await page.evaluate((c) => window.roostMap!.project(c as [number, number]), target.centre);
+    const px = await page.evaluate((c) => window.roostMap!.project(c as [number, number]), [target.centre_lon, target.centre_lat]);
     const box = (await page.locator('#map').boundingBox())!;
     await page.mouse.click(box.x + px.x, box.y + px.y);
     await page.waitForSelector('#hotspot-panel dd[data-field="count"]');
