@@ -319,6 +319,7 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
     concurrency: config.runConcurrency,
     storeConfig,
     pool: storeConfig === null ? null : jobs,
+    heartbeatMs: config.runHeartbeatMs,
     log: app.log,
   });
   app.decorate('datasets', { store, runner, jobs } satisfies DatasetServices);

@@ -35,6 +35,8 @@ export interface ServerConfig {
   databaseUrl: string;
   /** stored runs executed at once by this process */
   runConcurrency: number;
+  /** time between renewals of a running run's lease, milliseconds; a run whose process died is taken over within 2 × this (src/jobs/lease.ts) */
+  runHeartbeatMs: number;
   /** longest time between two looks at the datasets' schedules, milliseconds; 0 turns scheduled runs off in this process */
   scheduleScanMs: number;
   /** attempts to deliver one notice of change, the first included */
@@ -67,6 +69,7 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   databaseUrl: '',
   // one run at a time leaves the other core to requests on a 2-core machine
   runConcurrency: 1,
+  runHeartbeatMs: 10_000,
   // see src/jobs/schedule.ts and src/jobs/notify.ts for the reasons behind these
   scheduleScanMs: 60_000,
   webhookAttempts: 5,
@@ -100,6 +103,7 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'dbPath', flag: '--db', env: 'ROOST_DB_PATH', kind: 'string', help: 'SQLite file for datasets, observations and runs' },
   { key: 'databaseUrl', flag: '--database-url', env: 'DATABASE_URL', kind: 'string', help: 'postgres:// URL of a shared database (instead of the SQLite file)' },
   { key: 'runConcurrency', flag: '--runs', env: 'ROOST_RUNS', kind: 'integer', help: 'stored runs executed at once by this process' },
+  { key: 'runHeartbeatMs', flag: '--run-heartbeat-ms', env: 'ROOST_RUN_HEARTBEAT_MS', kind: 'integer', help: 'time between renewals of a running run\'s lease, milliseconds; a run whose process died is taken over within twice this' },
   { key: 'scheduleScanMs', flag: '--schedule-scan-ms', env: 'ROOST_SCHEDULE_SCAN_MS', kind: 'integer', help: 'longest time between looks at dataset schedules, milliseconds (0 = no scheduled runs in this process)' },
   { key: 'webhookAttempts', flag: '--webhook-attempts', env: 'ROOST_WEBHOOK_ATTEMPTS', kind: 'integer', help: 'attempts to deliver a notice of change (back-off doubling from 2 s)' },
   { key: 'webhookTimeoutMs', flag: '--webhook-timeout-ms', env: 'ROOST_WEBHOOK_TIMEOUT_MS', kind: 'integer', help: 'time allowed for one notice delivery attempt, milliseconds' },
@@ -172,6 +176,7 @@ function check(config: ServerConfig): ServerConfig {
   atLeast('maxEventLoopDelayMs', 0);
   atLeast('retryAfterS', 0);
   atLeast('runConcurrency', 1);
+  atLeast('runHeartbeatMs', 100);
   atLeast('scheduleScanMs', 0);
   atLeast('webhookAttempts', 1);
   atLeast('webhookTimeoutMs', 1);

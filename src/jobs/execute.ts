@@ -6,8 +6,9 @@
  *
  * Progress is stored as a percentage at fixed points (load 5 %, index 35 %, clustering 40–75 %,
  * figures 80 %, layers 85 %, save 90 %) and at most once a second inside the clustering. Each
- * progress write is conditional on the run still being 'running', so a run cancelled from any
- * process (or instance) stops at its next progress point.
+ * write is conditional on the run still being 'running' under this claim (src/jobs/lease.ts), so
+ * a run cancelled from any process (or instance), or taken over after its lease ran out, stops at
+ * its next progress point and never overwrites the result of the process that took it over.
  */
 import { pointSet } from '../core/types.js';
 import { clusterObservations, type Stage } from '../run/cluster.js';
@@ -103,6 +104,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
     return now;
   };
   const interval = options.progressIntervalMs ?? 1000;
+  const claim = run.workerId ?? undefined;
   let lastWrite = 0;
   let pending: Promise<unknown> = Promise.resolve();
   let cancelled = false;
@@ -111,7 +113,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
     if (!force && now - lastWrite < interval) return;
     lastWrite = now;
     pending = pending
-      .then(() => store.updateRun(run.id, { progress: Math.round(percent) }, ['running']))
+      .then(() => store.updateRun(run.id, { progress: Math.round(percent) }, ['running'], claim))
       .catch((e: unknown) => {
         if (e instanceof StoreError && e.code === 'conflict') cancelled = true;
         else throw e;
@@ -205,12 +207,15 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   t = lap('layers', t);
   progress(90, true);
   await check();
-  await store.saveRunResult(run.id, { layers, hotspots: stored });
+  await store.saveRunResult(run.id, { layers, hotspots: stored }, claim).catch((e: unknown) => {
+    if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled('the run is no longer this process\'s');
+    throw e;
+  });
   lap('save', t);
   timings.total = Math.round((performance.now() - t0) * 10) / 10;
 
   const summary = { ...result.summary, changes: assignment.changes };
-  await store.updateRun(run.id, { status: 'succeeded', progress: 100, error: null, finishedAt: new Date().toISOString(), summary, timings }, ['running']).catch((e: unknown) => {
+  await store.updateRun(run.id, { status: 'succeeded', progress: 100, error: null, finishedAt: new Date().toISOString(), summary, timings }, ['running'], claim).catch((e: unknown) => {
     if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled();
     throw e;
   });

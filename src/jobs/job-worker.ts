@@ -24,6 +24,8 @@ export interface RunTask {
   store: StoreConfig;
   datasetId: string;
   runId: string;
+  /** the claim under which the main thread took the run (its workerId) */
+  claim: string;
   /** the main thread answers `{type:'tracks', hotspots}` with `{assignment}` or `{error}` */
   port: MessagePort;
 }
@@ -61,6 +63,7 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
     const [dataset, current] = await Promise.all([store.getDataset(task.datasetId), store.getRun(task.datasetId, task.runId)]);
     if (dataset === null || current === null) return { ok: false, cancelled: true, message: 'the dataset or run was deleted' };
     if (current.status !== 'running') return { ok: false, cancelled: true, message: `the run is ${current.status}` };
+    if (current.workerId !== task.claim) return { ok: false, cancelled: true, message: 'the run was taken over by another process' };
     const done = await executeRun(store, current, dataset, { assignTracks: (h) => askTracks(task.port, h) });
     return { ok: true, ...done };
   } catch (err) {

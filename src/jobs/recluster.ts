@@ -7,7 +7,9 @@
  * failed, 2 for bad usage (no dataset named, an unknown dataset, an unusable database option).
  */
 import { isPostgresUrl, openStore, DEFAULT_SQLITE_PATH } from '../storage/index.js';
+import { hostname } from 'node:os';
 import { executeRun } from './execute.js';
+import { DEFAULT_HEARTBEAT_MS, keepLease, leaseMs } from './lease.js';
 import { createRoostHooks, type RoostHooks } from './run-hooks.js';
 import { TRANSITION_KINDS, type ChangesJson } from './tracking.js';
 import { RECLUSTER_EXIT } from '../cli/recluster.js';
@@ -44,7 +46,7 @@ export async function reclusterDataset(store: Store, dataset: Dataset, hooks: Ro
   const created = await store.createRun({ datasetId: dataset.id, settings, trigger: 'command' });
   let run: Run;
   try {
-    run = await store.updateRun(created.id, { status: 'running', startedAt: new Date().toISOString() }, ['queued']);
+    run = await store.claimRun(created.id, `${hostname()}:${process.pid}:recluster`, leaseMs(DEFAULT_HEARTBEAT_MS));
   } catch (e) {
     if (!(e instanceof StoreError && e.code === 'conflict')) throw e;
     // a server's run queue claimed it between creation and start: its outcome is ours
@@ -55,10 +57,15 @@ export async function reclusterDataset(store: Store, dataset: Dataset, hooks: Ro
     }
   }
   const ctx = { store, dataset, run };
+  // renewed like a server's claim, so that a server takes the run over if this command dies
+  const controller = new AbortController();
+  const lease = keepLease(store, run, DEFAULT_HEARTBEAT_MS, () => controller.abort(new Error('the run is no longer this command\'s')));
   try {
-    await executeRun(store, run, dataset, { assignTracks: (h) => hooks.assignTracks(ctx, h) });
+    await executeRun(store, run, dataset, { signal: controller.signal, assignTracks: (h) => hooks.assignTracks(ctx, h) });
   } catch (e) {
-    await store.updateRun(run.id, { status: 'failed', error: (e as Error).message, finishedAt: new Date().toISOString() }, ['running']).catch(() => undefined);
+    await store.updateRun(run.id, { status: 'failed', error: (e as Error).message, finishedAt: new Date().toISOString() }, ['running'], run.workerId ?? undefined).catch(() => undefined);
+  } finally {
+    lease.stop();
   }
   const final = (await store.getRun(dataset.id, run.id))!;
   const status = final.status === 'succeeded' || final.status === 'failed' || final.status === 'cancelled' ? final.status : 'failed';

@@ -119,6 +119,29 @@ export function parseRunId(runId: string): number | null {
   return m === null ? null : Number(m[1]);
 }
 
+/**
+ * A claim's lease when the claimer names none, milliseconds. The run queue passes its own
+ * (src/jobs/lease.ts); this default fits a caller that renews every 10 s.
+ */
+export const DEFAULT_LEASE_MS = 15_000;
+
+/** @throws StoreError 'invalid' unless the lease is a whole number of milliseconds from 1 to a day */
+export function checkLease(workerId: string, leaseMs: number): void {
+  if (typeof workerId !== 'string' || workerId === '') throw new StoreError('invalid', 'a claim needs a worker id');
+  if (!Number.isSafeInteger(leaseMs) || leaseMs < 1 || leaseMs > 86_400_000) throw new StoreError('invalid', `lease must be 1 to 86 400 000 ms, got ${String(leaseMs)}`);
+}
+
+/**
+ * What a run says after its process stopped `times` times before it finished: queued again, or
+ * (at the limit) failed, with what the user can do.
+ */
+export function interruptedMessage(times: number, failed: boolean): string {
+  const head = `interrupted ${times} time${times === 1 ? '' : 's'}: the process running it stopped before it finished`;
+  return failed
+    ? `${head}; not tried again. A run this large may need more memory than the service has: narrow it (a shorter window, a where condition) or ask the operator to look at the service log for this run`
+    : `${head}; queued again`;
+}
+
 /** @throws StoreError 'invalid' for an unknown status or progress outside 0–100 */
 export function checkRunPatch(p: RunPatch): void {
   if (p.status !== undefined && !RUN_STATUSES.includes(p.status)) throw new StoreError('invalid', `status must be one of ${RUN_STATUSES.join(', ')}`);
