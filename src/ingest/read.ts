@@ -27,6 +27,8 @@ export interface ReadOptions {
   maxProblems?: number;
   /** most observations accepted; default unlimited */
   maxFeatures?: number;
+  /** the observations are to be stored: string values are held to the storable-text rule (src/ingest/limits.ts) */
+  storable?: boolean;
 }
 
 const RS = 0x1e;
@@ -100,9 +102,9 @@ export function readObservations(input: string | Buffer, options: ReadOptions = 
   const format = options.format ?? detectFormat(text);
   switch (format) {
     case 'geojson':
-      return readGeoJson(text, weightProperty, maxProblems, maxFeatures);
+      return readGeoJson(text, weightProperty, maxProblems, maxFeatures, options.storable);
     case 'geojson-seq':
-      return readGeoJsonSeq(text, weightProperty, maxProblems, maxFeatures);
+      return readGeoJsonSeq(text, weightProperty, maxProblems, maxFeatures, options.storable);
     case 'csv':
       return readCsv(text, {
         weightProperty,
@@ -111,6 +113,7 @@ export function readObservations(input: string | Buffer, options: ReadOptions = 
         delimiter: options.csvDelimiter,
         maxProblems,
         maxFeatures,
+        storable: options.storable,
       });
   }
 }

@@ -20,6 +20,7 @@ import { createHash } from 'node:crypto';
 import { parse as parseCsv } from 'csv-parse/sync';
 import type { ObservationRecord } from '../storage/store.js';
 import { DEFAULT_MAX_PROBLEMS } from './checks.js';
+import { idProblem } from './limits.js';
 import { sniffDelimiter } from './csv.js';
 import { readObservations, detectFormat, type InputFormat } from './read.js';
 import { InputError, type InputFeature, type InputProblem, type Observations } from './types.js';
@@ -67,7 +68,10 @@ export function featureId(f: InputFeature, idProperty: string | null): string | 
   if (raw === undefined || raw === null || raw === '') {
     return { code: 'missing-id', message: `has no id: give each observation an id in ${where}, so that a repeated post is recognised instead of stored twice` };
   }
-  if (typeof raw === 'string') return raw;
+  if (typeof raw === 'string') {
+    const p = idProblem(raw);
+    return p === null ? raw : { code: p.code, message: `has an unusable id: ${p.message}` };
+  }
   if (typeof raw === 'number' && Number.isFinite(raw)) return String(raw);
   return { code: 'bad-id', message: `has an id in ${where} that is neither a string nor a number (${JSON.stringify(raw)?.slice(0, 40)})` };
 }
@@ -165,6 +169,7 @@ export function readRecords(input: Buffer | string, options: RecordOptions): Rec
       format: f,
       // weights are optional here (the reader requires one on every feature when named): checked in toRecords
       weightProperty: null,
+      storable: true,
       lonColumn: options.lonColumn ?? undefined,
       latColumn: options.latColumn ?? undefined,
       maxProblems,

@@ -21,14 +21,31 @@ import type {
   WhereCondition,
 } from './store.js';
 import { RUN_LAYERS, RUN_STATUSES, RUN_TRIGGERS, StoreError } from './store.js';
+import { contentProblem, textFault } from '../ingest/limits.js';
 
+/** A new dataset's id: URL-safe, starting with a letter or digit (so never "." or ".."). */
+const NEW_DATASET_ID = /^[A-Za-z0-9][A-Za-z0-9._~-]{0,127}$/;
+/** Ids datasets created before that rule may have; anything else names no dataset. */
 const DATASET_ID = /^[A-Za-z0-9._~-]{1,128}$/;
 
-/** @throws StoreError 'invalid' when the id is not 1–128 URL-safe characters */
+/** @throws StoreError 'invalid' when the id is not 1–128 URL-safe characters starting with a letter or digit */
 export function checkDatasetId(id: string): void {
-  if (typeof id !== 'string' || !DATASET_ID.test(id)) {
-    throw new StoreError('invalid', `dataset id ${JSON.stringify(id)} must be 1 to 128 characters from A-Z a-z 0-9 . _ ~ -`);
+  if (typeof id !== 'string' || !NEW_DATASET_ID.test(id)) {
+    throw new StoreError('invalid', `dataset id ${JSON.stringify(id)} must be 1 to 128 characters from A-Z a-z 0-9 . _ ~ -, starting with a letter or digit`);
   }
+}
+
+/**
+ * Whether the text can name a dataset at all. Lookups with anything else find nothing without a
+ * query (a NUL, for one, cannot even be sent to PostgreSQL).
+ */
+export function canBeDatasetId(id: string): boolean {
+  return typeof id === 'string' && DATASET_ID.test(id);
+}
+
+/** Whether the text can be sent to either database as it is (no NUL, no lone surrogate). */
+export function plainText(s: string): boolean {
+  return typeof s === 'string' && textFault(s) === null;
 }
 
 function isPlainObject(v: unknown): v is Record<string, unknown> {
@@ -38,6 +55,9 @@ function isPlainObject(v: unknown): v is Record<string, unknown> {
 /** Checks the fields a new dataset or a patch carries. @throws StoreError 'invalid' */
 export function checkDatasetFields(d: DatasetPatch | NewDataset): void {
   if (d.name !== undefined && (typeof d.name !== 'string' || d.name.trim() === '')) throw new StoreError('invalid', 'dataset name must be a non-empty string');
+  // every text member, nested ones included, must be storable on both engines
+  const content = contentProblem({ name: d.name, settings: d.settings, id_property: d.idProperty, window: d.window, schedule: d.schedule, webhook: d.webhook }, true);
+  if (content !== null) throw new StoreError('invalid', `the dataset: ${content.message}`);
   if (d.settings !== undefined && !isPlainObject(d.settings)) throw new StoreError('invalid', 'dataset settings must be a JSON object, for example {"eps": 250, "min_points": 5}');
   if (d.idProperty !== undefined && d.idProperty !== null && (typeof d.idProperty !== 'string' || d.idProperty === '')) throw new StoreError('invalid', 'idProperty must be a property name or null');
   if (d.window !== undefined && d.window !== null && (typeof d.window !== 'string' || d.window === '')) throw new StoreError('invalid', 'window must be an ISO 8601 duration such as "P30D", or null');
@@ -77,6 +97,7 @@ export function checkQuery(q: ObservationQuery): void {
   if (q.to !== undefined && !Number.isFinite(q.to)) throw new StoreError('invalid', 'to must be epoch milliseconds');
   for (const c of q.where ?? []) {
     if (typeof c.property !== 'string' || c.property === '' || typeof c.value !== 'string') throw new StoreError('invalid', 'where conditions must be {property, value} strings');
+    if (!plainText(c.property) || !plainText(c.value)) throw new StoreError('invalid', 'a where condition holds a NUL character or a lone surrogate, which no stored observation can hold');
   }
 }
 

@@ -35,8 +35,10 @@ import type {
 import { RUN_LAYERS, StoreError } from './store.js';
 import {
   batchIds,
+  canBeDatasetId,
   checkDatasetFields,
   checkDatasetId,
+  plainText,
   checkLease,
   checkLimit,
   checkNewRun,
@@ -175,6 +177,7 @@ export class PostgresStore implements Store {
   }
 
   async getDataset(id: string): Promise<Dataset | null> {
+    if (!canBeDatasetId(id)) return null;
     const r = await this.pool.query('SELECT * FROM datasets WHERE id = $1', [id]);
     return r.rows.length === 0 ? null : datasetFromRow(r.rows[0] as Row);
   }
@@ -201,6 +204,7 @@ export class PostgresStore implements Store {
   }
 
   async deleteDataset(id: string): Promise<boolean> {
+    if (!canBeDatasetId(id)) return false;
     // The row first: its lock waits for an ingest of the dataset under way (which holds the row
     // locked) and keeps new ones out, so the observations deleted next are all there will be.
     return this.tx(async (c) => {
@@ -255,6 +259,7 @@ export class PostgresStore implements Store {
   }
 
   async deleteObservation(datasetId: string, id: string): Promise<boolean> {
+    if (!plainText(id)) return false;
     return ((await this.pool.query('DELETE FROM observations WHERE dataset_id = $1 AND obs_id = $2', [datasetId, id])).rowCount ?? 0) > 0;
   }
 
@@ -533,6 +538,7 @@ export class PostgresStore implements Store {
   }
 
   async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {
+    if (!plainText(trackId)) return [];
     const r = await this.pool.query(
       'SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = $1 AND r.dataset_id = $2 ORDER BY h.run_seq, h.hotspot_id',
       [trackId, datasetId],

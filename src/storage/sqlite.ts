@@ -33,8 +33,10 @@ import type {
 import { RUN_LAYERS, StoreError } from './store.js';
 import {
   batchIds,
+  canBeDatasetId,
   checkDatasetFields,
   checkDatasetId,
+  plainText,
   checkLease,
   checkLimit,
   checkNewRun,
@@ -153,6 +155,7 @@ export class SqliteStore implements Store {
   }
 
   async getDataset(id: string): Promise<Dataset | null> {
+    if (!canBeDatasetId(id)) return null;
     const row = this.db.prepare('SELECT * FROM datasets WHERE id = ?').get(id) as Row | undefined;
     return row === undefined ? null : datasetFromRow(row);
   }
@@ -182,6 +185,7 @@ export class SqliteStore implements Store {
   }
 
   async deleteDataset(id: string): Promise<boolean> {
+    if (!canBeDatasetId(id)) return false;
     return this.db.prepare('DELETE FROM datasets WHERE id = ?').run(id).changes > 0;
   }
 
@@ -224,6 +228,7 @@ export class SqliteStore implements Store {
   }
 
   async deleteObservation(datasetId: string, id: string): Promise<boolean> {
+    if (!plainText(id)) return false;
     return this.db.prepare('DELETE FROM observations WHERE dataset_id = ? AND obs_id = ?').run(datasetId, id).changes > 0;
   }
 
@@ -524,6 +529,7 @@ export class SqliteStore implements Store {
   }
 
   async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {
+    if (!plainText(trackId)) return [];
     const rows = this.db
       .prepare('SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = ? AND r.dataset_id = ? ORDER BY h.run_seq, h.hotspot_id')
       .all(trackId, datasetId) as Row[];
