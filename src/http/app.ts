@@ -322,9 +322,9 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
     heartbeatMs: config.runHeartbeatMs,
     log: app.log,
   });
-  app.decorate('datasets', { store, runner, jobs } satisfies DatasetServices);
+  app.decorate('datasets', { store, runner, jobs, scheduleMinIntervalMs: config.scheduleMinIntervalS * 1000 } satisfies DatasetServices);
   await runner.recover();
-  const scheduler = config.scheduleScanMs > 0 ? new Scheduler({ store, settings: { scanMs: config.scheduleScanMs }, onRun: () => runner.wake(), log: app.log }) : null;
+  const scheduler = config.scheduleScanMs > 0 ? new Scheduler({ store, settings: { scanMs: config.scheduleScanMs, minIntervalMs: config.scheduleMinIntervalS * 1000 }, onRun: () => runner.wake(), log: app.log }) : null;
   app.addHook('onReady', async () => {
     runner.start();
     scheduler?.start();

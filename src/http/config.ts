@@ -39,6 +39,8 @@ export interface ServerConfig {
   runHeartbeatMs: number;
   /** longest time between two looks at the datasets' schedules, milliseconds; 0 turns scheduled runs off in this process */
   scheduleScanMs: number;
+  /** shortest time allowed between two slots of a dataset's schedule, seconds (0: no floor) */
+  scheduleMinIntervalS: number;
   /** attempts to deliver one notice of change, the first included */
   webhookAttempts: number;
   /** time allowed for one notice delivery attempt, milliseconds */
@@ -72,6 +74,7 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   runHeartbeatMs: 10_000,
   // see src/jobs/schedule.ts and src/jobs/notify.ts for the reasons behind these
   scheduleScanMs: 60_000,
+  scheduleMinIntervalS: 300,
   webhookAttempts: 5,
   webhookTimeoutMs: 10_000,
   publicUrl: '',
@@ -105,6 +108,7 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'runConcurrency', flag: '--runs', env: 'ROOST_RUNS', kind: 'integer', help: 'stored runs executed at once by this process' },
   { key: 'runHeartbeatMs', flag: '--run-heartbeat-ms', env: 'ROOST_RUN_HEARTBEAT_MS', kind: 'integer', help: 'time between renewals of a running run\'s lease, milliseconds; a run whose process died is taken over within twice this' },
   { key: 'scheduleScanMs', flag: '--schedule-scan-ms', env: 'ROOST_SCHEDULE_SCAN_MS', kind: 'integer', help: 'longest time between looks at dataset schedules, milliseconds (0 = no scheduled runs in this process)' },
+  { key: 'scheduleMinIntervalS', flag: '--schedule-min-interval-s', env: 'ROOST_SCHEDULE_MIN_INTERVAL_S', kind: 'integer', help: 'shortest time allowed between two scheduled runs of a dataset, seconds (0 = no floor); schedules firing more often are refused' },
   { key: 'webhookAttempts', flag: '--webhook-attempts', env: 'ROOST_WEBHOOK_ATTEMPTS', kind: 'integer', help: 'attempts to deliver a notice of change (back-off doubling from 2 s)' },
   { key: 'webhookTimeoutMs', flag: '--webhook-timeout-ms', env: 'ROOST_WEBHOOK_TIMEOUT_MS', kind: 'integer', help: 'time allowed for one notice delivery attempt, milliseconds' },
   { key: 'publicUrl', flag: '--public-url', env: 'ROOST_PUBLIC_URL', kind: 'string', help: 'address clients use to reach the service, for absolute links in notices' },
@@ -178,6 +182,7 @@ function check(config: ServerConfig): ServerConfig {
   atLeast('runConcurrency', 1);
   atLeast('runHeartbeatMs', 100);
   atLeast('scheduleScanMs', 0);
+  atLeast('scheduleMinIntervalS', 0);
   atLeast('webhookAttempts', 1);
   atLeast('webhookTimeoutMs', 1);
   if (config.publicUrl !== '' && !/^https?:\/\/[^/]/i.test(config.publicUrl)) throw new ConfigError(`${spec('publicUrl')}: must be an http:// or https:// address`);

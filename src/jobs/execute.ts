@@ -12,12 +12,38 @@
  */
 import { pointSet } from '../core/types.js';
 import { clusterObservations, type Stage } from '../run/cluster.js';
-import { resolveSettings, type ClusterSettings } from '../run/settings.js';
+import { resolveSettings, SettingsError, type ClusterSettings } from '../run/settings.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
 import { LAYER_PIECE_CHARS } from '../storage/common.js';
 import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
 import { StoreError } from '../storage/store.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
+
+/**
+ * A run failure the user can act on (its message says what to change); any other error is the
+ * service's own, logged with the run id and shown to users only as `INTERNAL_RUN_ERROR`.
+ */
+export class RunError extends Error {
+  constructor(message: string) {
+    super(message);
+    this.name = 'RunError';
+  }
+}
+
+/** What a run's `error` says when it failed for a reason inside the service. */
+export function internalRunError(runId: string): string {
+  return `the run failed inside the service, not because of its observations or settings; try it again, and if it fails again ask the operator to look for run ${runId} in the service log`;
+}
+
+/** The message for the run's `error`, and whether the full error belongs in the log instead. */
+export function runFailureMessage(err: unknown, runId: string): { message: string; internal: boolean } {
+  if (err instanceof RunError) return { message: err.message, internal: false };
+  if ((err as { code?: unknown } | null)?.code === 'ERR_WORKER_OUT_OF_MEMORY') {
+    return { message: 'the run needed more memory than the service gives one run; narrow it (a shorter window, a where condition) or ask the operator for more memory', internal: false };
+  }
+  if (err instanceof SettingsError) return { message: `the run's settings cannot be used: ${err.message}; change them in the dataset (PATCH) or in the run request`, internal: false };
+  return { message: internalRunError(runId), internal: true };
+}
 
 /** A run stopped because it was cancelled (its status already says so). */
 export class RunCancelled extends Error {
@@ -173,7 +199,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
           { source: 'stored', dataset: dataset.id, query: queryRecord(query) },
           texts,
         );
-  if (result === null) throw new Error(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window`);
+  if (result === null) throw new RunError(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window`);
   t = lap('cluster', t);
   await check();
 

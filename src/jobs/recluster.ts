@@ -8,7 +8,7 @@
  */
 import { isPostgresUrl, openStore, DEFAULT_SQLITE_PATH } from '../storage/index.js';
 import { hostname } from 'node:os';
-import { executeRun } from './execute.js';
+import { executeRun, runFailureMessage } from './execute.js';
 import { DEFAULT_HEARTBEAT_MS, keepLease, leaseMs } from './lease.js';
 import { createRoostHooks, type RoostHooks } from './run-hooks.js';
 import { TRANSITION_KINDS, type ChangesJson } from './tracking.js';
@@ -41,7 +41,7 @@ export function outcomeLine(run: Run): string {
  * Creates a run for the dataset and executes it here. The run is started by a conditional change
  * from queued to running; when a server's run queue took it first, this waits for that outcome.
  */
-export async function reclusterDataset(store: Store, dataset: Dataset, hooks: RoostHooks, pollMs = 500): Promise<Run> {
+export async function reclusterDataset(store: Store, dataset: Dataset, hooks: RoostHooks, pollMs = 500, log?: (text: string) => void): Promise<Run> {
   const settings = Object.fromEntries(Object.entries(dataset.settings).filter(([, v]) => v !== null));
   const created = await store.createRun({ datasetId: dataset.id, settings, trigger: 'command' });
   let run: Run;
@@ -63,7 +63,9 @@ export async function reclusterDataset(store: Store, dataset: Dataset, hooks: Ro
   try {
     await executeRun(store, run, dataset, { signal: controller.signal, assignTracks: (h) => hooks.assignTracks(ctx, h) });
   } catch (e) {
-    await store.updateRun(run.id, { status: 'failed', error: (e as Error).message, finishedAt: new Date().toISOString() }, ['running'], run.workerId ?? undefined).catch(() => undefined);
+    const failure = runFailureMessage(e, run.id);
+    if (failure.internal) log?.(`run ${run.id} failed inside the service: ${(e as Error).stack ?? String(e)}`);
+    await store.updateRun(run.id, { status: 'failed', error: failure.message, finishedAt: new Date().toISOString() }, ['running'], run.workerId ?? undefined).catch(() => undefined);
   } finally {
     lease.stop();
   }
@@ -122,7 +124,7 @@ export async function reclusterAction(
     }
     let failed = 0;
     for (const d of datasets) {
-      const run = await reclusterDataset(store, d, hooks);
+      const run = await reclusterDataset(store, d, hooks, 500, (text) => io.err(`roost recluster: ${text}\n`));
       if (run.status !== 'succeeded') failed++;
       io.out(outcomeLine(run) + '\n');
     }

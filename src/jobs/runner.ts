@@ -22,7 +22,7 @@ import { MessageChannel } from 'node:worker_threads';
 import { hostname } from 'node:os';
 import type { StoreConfig } from '../storage/index.js';
 import { StoreError, type Run, type Store } from '../storage/store.js';
-import { executeRun, RunCancelled } from './execute.js';
+import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, RunContext, RunHooks, RunOutcome } from './hooks.js';
 import type { JobPool } from './job-pool.js';
 import { DEFAULT_HEARTBEAT_MS, keepLease, leaseMs, MAX_INTERRUPTIONS, takeoverScanMs } from './lease.js';
@@ -195,6 +195,7 @@ export class Runner {
           if (!res.ok) {
             if (res.cancelled) cancelled = true;
             else failure = res.message;
+            if (res.internal) this.log.error({ run: run.id, dataset: run.datasetId, error: res.internal.message, stack: res.internal.stack }, 'run failed inside the service');
           }
         } finally {
           port1.close();
@@ -204,7 +205,11 @@ export class Runner {
       }
     } catch (err) {
       if (err instanceof RunCancelled || signal.aborted) cancelled = true;
-      else failure = (err as Error).message;
+      else {
+        const f = runFailureMessage(err, run.id);
+        failure = f.message;
+        if (f.internal) this.log.error({ err, run: run.id, dataset: run.datasetId }, 'run failed inside the service');
+      }
     } finally {
       lease.stop();
     }

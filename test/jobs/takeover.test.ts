@@ -68,7 +68,7 @@ interface Server {
 /** Starts `roost serve` on a free port; resolves once it listens (bounded wait). */
 function serve(db: string[]): Promise<Server> {
   return new Promise((resolve, reject) => {
-    const args = ['--import', 'tsx', join(root, 'src/cli/bin.ts'), 'serve', '--port', '0', ...db, '--workers', '1', '--run-heartbeat-ms', String(HEARTBEAT_MS)];
+    const args = ['--import', 'tsx', join(root, 'src/cli/bin.ts'), 'serve', '--port', '0', ...db, '--workers', '1', '--run-heartbeat-ms', String(HEARTBEAT_MS), '--max-event-loop-delay-ms', '0'];
     const child = spawn(process.execPath, args, { cwd: root, stdio: ['ignore', 'pipe', 'pipe'], env: { ...process.env, DATABASE_URL: '' } });
     children.add(child);
     let out = '';

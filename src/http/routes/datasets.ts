@@ -35,7 +35,7 @@ function optionalText(doc: Record<string, unknown>, name: string): string | null
 }
 
 /** The fields of a create or patch body, checked; absent fields stay undefined. */
-function readFields(doc: Record<string, unknown>): DatasetPatch & { id?: string } {
+function readFields(doc: Record<string, unknown>, scheduleMinIntervalMs?: number): DatasetPatch & { id?: string } {
   for (const k of Object.keys(doc)) if (!(FIELDS as readonly string[]).includes(k)) bad(k, `unknown member; a dataset has ${FIELDS.join(', ')}`);
   const out: DatasetPatch & { id?: string } = {};
   if (doc.id !== undefined) {
@@ -62,7 +62,7 @@ function readFields(doc: Record<string, unknown>): DatasetPatch & { id?: string 
       bad('schedule', 'must be {"cron": "0 2 * * *", "timezone": "Europe/Zurich"} or null');
     }
     out.schedule = s === null ? null : { cron: s.cron as string, timezone: s.timezone as string };
-    const problem = out.schedule === null ? null : scheduleProblem(out.schedule);
+    const problem = out.schedule === null ? null : scheduleProblem(out.schedule, scheduleMinIntervalMs);
     if (problem !== null) bad('schedule', problem);
   }
   if (doc.webhook !== undefined) {
@@ -100,7 +100,7 @@ export function registerDatasetRoutes(app: FastifyInstance, services: DatasetSer
 
   app.post('/v1/datasets', async (request, reply) => {
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined });
+    const fields = readFields({ ...doc, settings: undefined }, services.scheduleMinIntervalMs);
     if (fields.id === undefined) bad('id', 'is required: 1 to 128 characters from A-Z a-z 0-9 . _ ~ -');
     if (doc.settings === undefined) bad('settings', 'is required, for example {"eps": 250, "min_points": 5}');
     const d: NewDataset = {
@@ -135,7 +135,7 @@ export function registerDatasetRoutes(app: FastifyInstance, services: DatasetSer
   app.patch<{ Params: { id: string } }>('/v1/datasets/:id', async (request) => {
     const current = await requireDataset(store, request.params.id);
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined });
+    const fields = readFields({ ...doc, settings: undefined }, services.scheduleMinIntervalMs);
     if (fields.id !== undefined && fields.id !== current.id) bad('id', 'cannot be changed; create a new dataset instead');
     delete fields.id;
     const patch: DatasetPatch = { ...fields };
