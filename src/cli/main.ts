@@ -4,14 +4,17 @@
  *   roost cluster <input> --eps <metres> --min-points <n> --out-dir <dir> [options]
  *   roost suggest-eps <input> --min-points <n>
  *   roost serve [options]
+ *   roost keys create|list|revoke
  */
 import { readFile } from 'node:fs/promises';
 import { Command, Option } from 'commander';
 import { InputError } from '../ingest/types.js';
 import { clusterInput, LAYER_NAMES, suggestEpsInput, type InputFormat, type Stage } from '../run/cluster.js';
 import { resolveSettings, SettingsError } from '../run/settings.js';
+import { publishedSummary, publishLayerTexts, PublishError, resolvePublishOptions, type PublishOptions } from '../publish/publish.js';
 import { ROOST_VERSION } from '../run/version.js';
 import { writeResultFolder } from './output.js';
+import { keysCommand } from './keys.js';
 import { reclusterCommand } from './recluster.js';
 import { serveCommand } from './serve.js';
 
@@ -65,6 +68,8 @@ function settingsFromFlags(opts: Record<string, unknown>): Record<string, unknow
     min_cluster_size: opts.minClusterSize,
     lon_column: opts.lonColumn,
     lat_column: opts.latColumn,
+    time_column: opts.timeColumn,
+    time_format: opts.timeFormat,
   };
 }
 
@@ -79,7 +84,7 @@ function fail(err: unknown): number {
     process.stderr.write('roost: nothing was written\n');
     return EXIT.input;
   }
-  if (err instanceof SettingsError) {
+  if (err instanceof SettingsError || err instanceof PublishError) {
     process.stderr.write(`roost: ${err.message}\nroost: nothing was written\n`);
     return EXIT.usage;
   }
@@ -93,6 +98,39 @@ function fail(err: unknown): number {
 }
 
 const collect = (value: string, previous: string[] = []): string[] => [...previous, value];
+
+/**
+ * Publishing options from `roost cluster` flags; null when --generalise-m is absent (exact layers).
+ * The other publishing flags need --generalise-m: publishing without generalising would show
+ * outlines drawn through observations.
+ */
+function publishFromFlags(opts: Record<string, unknown>, countBy: string | null): PublishOptions | null {
+  const given = ['minCount', 'withholdNoise', 'publishProperties'].filter((k) => opts[k] !== undefined);
+  if (opts.generaliseM === undefined) {
+    if (given.length > 0) throw new PublishError('generalise_m', '--min-count, --withhold-noise and --publish-properties make published layers, which need --generalise-m <metres>');
+    return null;
+  }
+  const number = (v: unknown, flag: string): number => {
+    const n = typeof v === 'string' && /^\s*\d+(\.\d+)?\s*$/.test(v) ? Number(v) : NaN;
+    if (Number.isNaN(n)) throw new PublishError(flag, `${flag} must be a number, got ${JSON.stringify(v)}`);
+    return n;
+  };
+  const props = typeof opts.publishProperties === 'string' ? opts.publishProperties.split(',').map((p) => p.trim()).filter((p) => p !== '') : [];
+  try {
+    return resolvePublishOptions(
+      {
+        generalise_m: number(opts.generaliseM, '--generalise-m'),
+        min_count: opts.minCount === undefined ? undefined : number(opts.minCount, '--min-count'),
+        noise: opts.withholdNoise ? 'withhold' : 'publish',
+        properties: props,
+      },
+      countBy,
+    );
+  } catch (e) {
+    if (e instanceof PublishError) throw new PublishError(e.field, e.message.replace(/^(generalise_m|min_count)/, (m) => `--${m.replace('_', '-')}`));
+    throw e;
+  }
+}
 
 /** Builds the command tree; `run` is the testable entry point. */
 export function buildProgram(setExit: (code: number) => void): Command {
@@ -112,6 +150,8 @@ export function buildProgram(setExit: (code: number) => void): Command {
       .option('--where <property=value>', 'keep observations whose property equals value (repeatable)', collect)
       .option('--lon-column <name>', 'CSV longitude column (default: found by common names)')
       .option('--lat-column <name>', 'CSV latitude column (default: found by common names)')
+      .option('--time-column <name>', 'property (CSV column) holding each observation\'s time (default: observed_at)')
+      .option('--time-format <pattern>', 'how that time is written, with YYYY, MM, DD, hh, mm, ss, e.g. DD.MM.YYYY (default: RFC 3339)')
       .option('--progress', 'report progress on stderr even when it is not a terminal');
 
   common(
@@ -130,12 +170,17 @@ export function buildProgram(setExit: (code: number) => void): Command {
     .addOption(new Option('--optics-extraction <how>', 'OPTICS: cut hotspots at eps or by the ξ method').choices(['eps', 'xi']))
     .option('--xi <x>', 'OPTICS ξ: relative reachability drop bounding a hotspot (default 0.05)')
     .option('--min-cluster-size <n>', 'OPTICS ξ: fewest observations in a hotspot (default: larger of min-points and 0.5 % of observations)')
+    .option('--generalise-m <metres>', 'write published layers instead: positions on a grid of this many metres, outlines from grid cells (see the README\'s Security section)')
+    .option('--min-count <n>', 'published layers: withhold hotspots of fewer observations (default 1)')
+    .option('--withhold-noise', 'published layers: leave noise out')
+    .option('--publish-properties <names>', 'published layers: comma-separated observation properties that may appear (default: none)')
     .addHelpText(
       'after',
       `
 Examples:
   roost cluster sightings.geojson --eps 250 --min-points 5 --out-dir result
   roost cluster counts.csv --eps 300 --weight birds --since 2026-05-01T00:00:00Z --out-dir may
+  roost cluster cases.geojson --eps 500 --min-points 5 --generalise-m 500 --min-count 10 --withhold-noise --out-dir public
   cat sightings.geojson | roost cluster - --eps auto --hull concave --count-by species --out-dir result
 
 Results are patterns, not causes; hotspots can mirror where observers went. See the README.`,
@@ -143,6 +188,7 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
     .action(async (input: string, opts: Record<string, unknown>) => {
       try {
         const settings = resolveSettings(settingsFromFlags(opts));
+        const publish = publishFromFlags(opts, settings.countBy);
         const data = await readInput(input);
         const showProgress = Boolean(opts.progress) || (process.stderr.isTTY && data.length > 5_000_000);
         const onProgress = progressReporter(showProgress);
@@ -151,6 +197,27 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
         onProgress('write', 0);
         const tWrite = performance.now();
         const timings = result.summary.timings_ms as Record<string, number>;
+        if (publish !== null) {
+          const text = (name: 'points' | 'hotspots'): string => [...result.layers[name].chunks()].join('');
+          const layers = publishLayerTexts(text('points'), text('hotspots'), publish);
+          await writeResultFolder(String(opts.outDir), [
+            ...LAYER_NAMES.map((name) => [`${name}.geojson`, [layers[name]]] as [string, Iterable<string>]),
+            [
+              'summary.json',
+              () => {
+                timings.write = Math.round(((timings.write ?? 0) + performance.now() - tWrite) * 10) / 10;
+                timings.total = Math.round((performance.now() - t0) * 10) / 10;
+                return JSON.stringify(publishedSummary(result.summary, layers), null, 2) + '\n';
+              },
+            ],
+          ]);
+          const w = layers.info;
+          process.stderr.write(
+            `roost: published ${w.hotspots.published} hotspot(s) and ${w.observations.published} generalised point(s) on a ${w.generalise_m} m grid; withheld ${w.hotspots.withheld} small hotspot(s) (${w.observations.withheld_in_small_hotspots} observations) and ${w.observations.withheld_noise} noise → ${String(opts.outDir)}\n`,
+          );
+          setExit(EXIT.ok);
+          return;
+        }
         // summary.json is written last so that its write stage includes the other files.
         await writeResultFolder(String(opts.outDir), [
           ...LAYER_NAMES.map((name) => [`${name}.geojson`, result.layers[name].chunks()] as [string, Iterable<string>]),
@@ -190,7 +257,8 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
           process.stdout.write(
             `k-distance curve, k = ${String(answer.k)} (min-points ${String(answer.min_points)}), ${String(answer.sampled)} of ${String(answer.observations)} observations\n`,
           );
-          process.stdout.write(answer.eps_meters === null ? `no knee found: ${String(answer.message)}\n` : `suggested eps: ${String(answer.eps_meters)} m (${String(answer.message)})\n`);
+          // the message says it all when there is no knee (it starts "No knee found"); else it explains the number
+          process.stdout.write(answer.eps_m === null ? `${String(answer.message)}\n` : `suggested eps: ${String(answer.eps_m)} m (${String(answer.message)})\n`);
           const warnings = (answer.warnings as { message: string }[] | undefined) ?? [];
           for (const w of warnings) process.stdout.write(`warning: ${w.message}\n`);
           const lines = ['rank\tmetres'];
@@ -205,6 +273,7 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
 
   program.addCommand(serveCommand(setExit));
   program.addCommand(reclusterCommand(setExit));
+  program.addCommand(keysCommand(setExit));
 
   return program;
 }

@@ -43,6 +43,10 @@ function describeDefault(key: keyof ServerConfig): string {
 export function serveCommand(setExit: (code: number) => void = (c) => (process.exitCode = c)): Command {
   const cmd = new Command('serve').description('start the HTTP service (environment variables in brackets)');
   for (const o of OPTIONS) {
+    if (o.kind === 'switch') {
+      cmd.option(o.flag, `${o.help} [${o.env}=1]`);
+      continue;
+    }
     const arg = o.kind === 'size' ? '<size>' : o.kind === 'string' ? '<text>' : o.kind === 'level' ? '<level>' : '<n>';
     cmd.option(`${o.flag} ${arg}`, `${o.help} [${o.env}] (default: ${describeDefault(o.key)})`);
   }

@@ -206,6 +206,6 @@ export function suggestEps(
   const message =
     eps === null
       ? `No knee found in the ${k}-distance curve${sampleNote}: try another min_points, or the data may have no density structure to find.`
-      : `The ${k}-distance curve bends at ${eps.toFixed(1)} m${sampleNote}: try eps ≈ ${Math.round(eps)} m with min_points ${minPoints}.`;
+      : `The ${k}-distance curve bends at ${Number(eps.toPrecision(4))} m${sampleNote}: try eps ≈ ${Number(eps.toPrecision(eps >= 100 ? 3 : 2))} m with min_points ${minPoints}.`;
   return { k, sampled: m, total: points.n, curve, kneeIndex: knee, epsMeters: eps, message };
 }

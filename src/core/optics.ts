@@ -11,9 +11,11 @@
  *   with the predecessor correction of Schubert & Gertz 2018 ("Improving the Cluster Structure
  *   Extracted from OPTICS Plots", LWDA 2018, Algorithm 2) and the corrected inequalities of
  *   Definitions 9 and 11 as in scikit-learn's `_xi_cluster` (BSD licence). ξ clusters are nested
- *   intervals of the ordering. The flat labelling gives every point the innermost (shortest)
- *   ξ cluster that contains it; a point in no ξ cluster is noise. So points of a loose parent
- *   cluster that lie in none of its dense children carry the parent's number.
+ *   intervals of the ordering. The flat labelling keeps the leaves only: shortest first, a ξ
+ *   cluster becomes a hotspot when none of its points already belongs to a shorter one, as
+ *   scikit-learn's `_extract_xi_labels` does. A parent that holds a hotspot is not one itself,
+ *   and its points in none of its children are noise: were they given the parent's number, the
+ *   parent's hull would enclose its children's hulls and hotspots would overlap.
  *
  * Distances are great-circle metres; "undefined" distances of the paper are Infinity. Ties are
  * broken by point id throughout, so the same input in the same order gives the same result.
@@ -51,7 +53,7 @@ export interface OpticsResult {
 export interface XiCluster {
   start: number;
   end: number;
-  /** hotspot number of the points whose innermost ξ cluster this is; −1 when inner clusters cover all of it */
+  /** hotspot number of this ξ cluster's points; −1 when it holds a shorter ξ cluster (a parent: its other points are noise) */
   label: number;
 }
 
@@ -505,12 +507,16 @@ export function extractXi(result: OpticsResult, options: XiOptions): { clusterin
     }
   }
 
-  // flat labelling: shortest interval first, each position takes the first interval that reaches it
+  // flat labelling: shortest interval first; an interval is labelled only when none of its
+  // positions is labelled yet, so only leaves become hotspots and parents' leftovers stay noise
+  // (source: scikit-learn `_extract_xi_labels`, BSD licence)
   const byLength = found.map((_, c) => c);
   byLength.sort((a, b) => found[a].end - found[a].start - (found[b].end - found[b].start) || found[a].start - found[b].start);
   const posLabel = new Int32Array(n).fill(-1);
   for (const c of byLength) {
-    for (let k = found[c].start; k <= found[c].end; k++) if (posLabel[k] === -1) posLabel[k] = c;
+    let free = true;
+    for (let k = found[c].start; k <= found[c].end && free; k++) if (posLabel[k] !== -1) free = false;
+    if (free) for (let k = found[c].start; k <= found[c].end; k++) posLabel[k] = c;
   }
   const labels = new Int32Array(n).fill(-1);
   for (let k = 0; k < n; k++) labels[order[k]] = posLabel[k];

@@ -76,7 +76,7 @@ export function clusteringWarnings(c: Clustering): ClusteringWarning[] {
     if (share > GIANT_HOTSPOT_SHARE) {
       out.push({
         code: 'one-giant-hotspot',
-        message: `Hotspot ${largest} holds ${pct(share)} of all points. Separate groups may have been chained together: try a smaller eps or a larger min_points, or OPTICS with ξ extraction to see nested hotspots.`,
+        message: `Hotspot ${largest + 1} holds ${pct(share)} of all points. Separate groups may have been chained together: try a smaller eps or a larger min_points, or OPTICS with ξ extraction to see nested hotspots.`,
       });
     }
   }

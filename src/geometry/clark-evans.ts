@@ -9,9 +9,12 @@ import { metersForChord2, unitVectors } from '../core/haversine.js';
 import type { SphereIndex } from '../core/sphere-index.js';
 import type { PointSet } from '../core/types.js';
 
+/** The three patterns Clark & Evans (1954) name: aggregation, randomness and uniform (even) spacing. */
+export type ClarkEvansPattern = 'aggregated' | 'random' | 'evenly-spaced';
+
 /** Result of the Clark–Evans test. */
 export interface ClarkEvans {
-  /** aggregation index R = observed / expected mean nearest-neighbour distance; 1 random, < 1 clustered, > 1 dispersed (2.1491 at most) */
+  /** aggregation index R = observed / expected mean nearest-neighbour distance; 1 random, < 1 aggregated, > 1 evenly spaced (2.1491 at most) */
   R: number;
   /** standard normal deviate of the difference between observed and expected mean distance */
   z: number;
@@ -23,8 +26,13 @@ export interface ClarkEvans {
   n: number;
   /** study area used for the density, km² */
   studyAreaKm2: number;
-  /** plain reading of z at the 5 % level, two-sided (|z| > 1.96) */
-  reading: 'clustered' | 'random-like' | 'dispersed';
+  /**
+   * the pattern in the paper's terms, read off z at the 5 % level, two-sided: `aggregated`
+   * (z < −1.96, observations nearer each other than at random), `evenly-spaced` (z > 1.96,
+   * farther apart than at random: the paper's regular, uniform spacing), else `random` (no
+   * departure from randomness at that level)
+   */
+  pattern: ClarkEvansPattern;
 }
 
 /** Two-sided 5 % critical value of the standard normal distribution. */
@@ -104,6 +112,34 @@ export function clarkEvans(nearestMeters: Float64Array, studyAreaKm2: number): C
   const standardError = SE_CONSTANT / Math.sqrt(n * density);
   const R = observedMeanMeters / expectedMeanMeters;
   const z = (observedMeanMeters - expectedMeanMeters) / standardError;
-  const reading = z < -Z_CRITICAL ? 'clustered' : z > Z_CRITICAL ? 'dispersed' : 'random-like';
-  return { R, z, observedMeanMeters, expectedMeanMeters, n, studyAreaKm2, reading };
+  const pattern: ClarkEvansPattern = z < -Z_CRITICAL ? 'aggregated' : z > Z_CRITICAL ? 'evenly-spaced' : 'random';
+  return { R, z, observedMeanMeters, expectedMeanMeters, n, studyAreaKm2, pattern };
+}
+
+/**
+ * The observations at distinct positions: the first observation of every exact (longitude,
+ * latitude) pair, in input order, without weights. Exact duplicates have a nearest-neighbour
+ * distance of 0 and pull R down whatever the pattern of the places is (an address list geocoded
+ * to building centroids, repeated visits to one trap); R over distinct positions shows the pattern
+ * of the places themselves.
+ *
+ * @returns the distinct positions, and `same` when every position is already distinct
+ */
+export function distinctPositions(points: PointSet): PointSet | 'same' {
+  const seen = new Set<string>();
+  const keep: number[] = [];
+  for (let i = 0; i < points.n; i++) {
+    const key = `${points.lon[i]},${points.lat[i]}`;
+    if (seen.has(key)) continue;
+    seen.add(key);
+    keep.push(i);
+  }
+  if (keep.length === points.n) return 'same';
+  const lon = new Float64Array(keep.length);
+  const lat = new Float64Array(keep.length);
+  for (let k = 0; k < keep.length; k++) {
+    lon[k] = points.lon[keep[k]];
+    lat[k] = points.lat[keep[k]];
+  }
+  return { n: keep.length, lon, lat, weight: null };
 }

@@ -9,7 +9,7 @@
 import { haversineMeters, toRadians } from '../core/haversine.js';
 import { ROLE_BORDER, ROLE_CORE, type Clustering, type PointSet } from '../core/types.js';
 import { meanFromSums } from './centre.js';
-import { clarkEvans, nearestNeighbourMeters, type ClarkEvans } from './clark-evans.js';
+import { clarkEvans, distinctPositions, nearestNeighbourMeters, type ClarkEvans } from './clark-evans.js';
 
 /** Figures of one hotspot. */
 export interface HotspotFigures {
@@ -225,15 +225,26 @@ export interface ResultFigures {
   totalWeight: number;
   /** Clark–Evans test over all observations, or null without a study area or with fewer than 2 observations */
   clarkEvans: ClarkEvans | null;
+  /** why the Clark–Evans test was not computed, in plain words; null when it was */
+  clarkEvansNotComputed: string | null;
+  /** observations that share their exact position with another one (nearest-neighbour distance 0); 0 when not computed */
+  sharedPositions: number;
+  /** distinct positions among the observations (equal to `observations` when none is shared) */
+  distinctPositions: number;
+  /** the Clark–Evans test over distinct positions only, in the same study area; null when no position is shared or the test was not computed */
+  clarkEvansDistinct: ClarkEvans | null;
 }
 
 /**
  * Figures of a whole result. The Clark–Evans test looks at all observations, noise included:
  * it asks whether the observations as a whole are more clustered than chance in the study area.
+ * Observations at exactly the same position pull R down whatever the places' pattern is, so when
+ * some share a position the test is also run over the distinct positions, in the same area.
  *
  * @param points observations
  * @param clustering labels (−1 noise)
  * @param options.studyAreaKm2 study area for Clark–Evans, km² (> 0), or null to skip the test
+ * @param options.studyAreaProblem why there is no study area (reported when studyAreaKm2 is null)
  * @param options.nearest nearest-neighbour distance per observation, metres, when already computed;
  *   computed with `nearestNeighbourMeters` otherwise
  * @throws RangeError when array lengths disagree or the study area is not positive
@@ -241,7 +252,7 @@ export interface ResultFigures {
 export function resultFigures(
   points: PointSet,
   clustering: Clustering,
-  options: { studyAreaKm2: number | null; nearest?: Float64Array },
+  options: { studyAreaKm2: number | null; studyAreaProblem?: string; nearest?: Float64Array },
 ): ResultFigures {
   const n = points.n;
   const labels = clustering.labels;
@@ -254,10 +265,24 @@ export function resultFigures(
     for (let i = 0; i < n; i++) totalWeight += points.weight[i];
   }
   let ce: ClarkEvans | null = null;
-  if (options.studyAreaKm2 !== null && n >= 2) {
+  let notComputed: string | null = null;
+  let shared = 0;
+  let distinct = n;
+  let ceDistinct: ClarkEvans | null = null;
+  if (n < 2) notComputed = `it needs at least 2 observations, and there ${n === 1 ? 'is 1' : `are ${n}`}`;
+  else if (options.studyAreaKm2 === null) notComputed = `there is no study area: ${options.studyAreaProblem ?? 'none was given'}`;
+  else {
     const nearest = options.nearest ?? nearestNeighbourMeters(points);
     if (nearest.length !== n) throw new RangeError(`nearest has ${nearest.length} distances for ${n} observations`);
     ce = clarkEvans(nearest, options.studyAreaKm2);
+    for (let i = 0; i < n; i++) if (nearest[i] === 0) shared++;
+    if (shared > 0) {
+      const d = distinctPositions(points);
+      if (d !== 'same') {
+        distinct = d.n;
+        if (d.n >= 2) ceDistinct = clarkEvans(nearestNeighbourMeters(d), options.studyAreaKm2);
+      }
+    }
   }
   const noise = n - clustered;
   return {
@@ -269,5 +294,9 @@ export function resultFigures(
     noiseShare: n > 0 ? noise / n : 0,
     totalWeight,
     clarkEvans: ce,
+    clarkEvansNotComputed: notComputed,
+    sharedPositions: shared,
+    distinctPositions: distinct,
+    clarkEvansDistinct: ceDistinct,
   };
 }

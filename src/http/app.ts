@@ -312,7 +312,7 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
       : { databaseUrl: config.databaseUrl || null, sqlitePath: config.dbPath };
   const store = options.store ?? (await openStore({ databaseUrl: config.databaseUrl || null, sqlitePath: config.dbPath }));
   const jobs = createJobPool(config.runConcurrency);
-  const serviceHooks = options.hooks ? null : createRoostHooks({ webhook: { attempts: config.webhookAttempts, timeoutMs: config.webhookTimeoutMs }, publicUrl: config.publicUrl || null, log: app.log });
+  const serviceHooks = options.hooks ? null : createRoostHooks({ webhook: { attempts: config.webhookAttempts, timeoutMs: config.webhookTimeoutMs, allowPrivate: config.allowPrivateWebhooks }, publicUrl: config.publicUrl || null, log: app.log });
   const runner = new Runner({
     store,
     hooks: options.hooks ?? serviceHooks!,

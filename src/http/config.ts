@@ -47,6 +47,8 @@ export interface ServerConfig {
   webhookTimeoutMs: number;
   /** the service's address as clients see it (for example https://roost.example.org), for absolute links in notices; '' gives paths */
   publicUrl: string;
+  /** let webhooks reach private-network and loopback addresses (and http: to this machine) */
+  allowPrivateWebhooks: boolean;
 }
 
 /**
@@ -78,6 +80,7 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   webhookAttempts: 5,
   webhookTimeoutMs: 10_000,
   publicUrl: '',
+  allowPrivateWebhooks: false,
 });
 
 /** One option: its config key, command-line flag, environment variable, kind and help text. */
@@ -85,7 +88,8 @@ export interface OptionSpec {
   key: keyof ServerConfig;
   flag: string;
   env: string;
-  kind: 'integer' | 'size' | 'string' | 'level';
+  /** 'switch': a flag without a value (on when given), or true/false/1/0 in the environment */
+  kind: 'integer' | 'size' | 'string' | 'level' | 'switch';
   help: string;
 }
 
@@ -112,6 +116,7 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'webhookAttempts', flag: '--webhook-attempts', env: 'ROOST_WEBHOOK_ATTEMPTS', kind: 'integer', help: 'attempts to deliver a notice of change (back-off doubling from 2 s)' },
   { key: 'webhookTimeoutMs', flag: '--webhook-timeout-ms', env: 'ROOST_WEBHOOK_TIMEOUT_MS', kind: 'integer', help: 'time allowed for one notice delivery attempt, milliseconds' },
   { key: 'publicUrl', flag: '--public-url', env: 'ROOST_PUBLIC_URL', kind: 'string', help: 'address clients use to reach the service, for absolute links in notices' },
+  { key: 'allowPrivateWebhooks', flag: '--allow-private-webhooks', env: 'ROOST_ALLOW_PRIVATE_WEBHOOKS', kind: 'switch', help: 'let webhooks reach private-network and loopback addresses (http: only to this machine)' },
 ];
 
 const LEVELS = new Set(['fatal', 'error', 'warn', 'info', 'debug', 'trace', 'silent']);
@@ -138,7 +143,14 @@ export function parseSize(text: string, where: string): number {
   return Math.floor(Number(m[1]) * unit);
 }
 
-function convert(spec: OptionSpec, value: unknown, where: string): string | number {
+function convert(spec: OptionSpec, value: unknown, where: string): string | number | boolean {
+  if (spec.kind === 'switch') {
+    if (typeof value === 'boolean') return value;
+    const t = String(value).trim().toLowerCase();
+    if (t === 'true' || t === '1') return true;
+    if (t === 'false' || t === '0') return false;
+    throw new ConfigError(`${where}: "${String(value)}" is not true or false`);
+  }
   if (spec.kind === 'string') {
     if (typeof value !== 'string' || value.trim() === '') throw new ConfigError(`${where}: give a non-empty value`);
     return value.trim();

@@ -193,10 +193,113 @@ export function parseTimestamp(s: string, dateOnly = false): number {
   return day + ((h * 60 + mi - offsetMin) * 60 + sec) * 1000 + ms;
 }
 
-/** The message for an `observed_at` value that is not an RFC 3339 date-time. */
-export function timeMessage(where: string, v: unknown): string {
-  return `${where}: ${TIME_PROPERTY} is ${describe(v)}; write an RFC 3339 date-time with an offset, for example "2024-05-01T06:30:00Z"`;
+/** The message for a time value that is neither RFC 3339 nor in the rule's format. */
+export function timeMessage(where: string, v: unknown, rule: TimeRule = DEFAULT_TIME_RULE): string {
+  if (rule.format !== null) {
+    return `${where}: ${rule.property} is ${describe(v)}, which is not a time written ${rule.format.pattern} (the time_format given)`;
+  }
+  return `${where}: ${rule.property} is ${describe(v)}; write an RFC 3339 date-time with an offset, for example "2024-05-01T06:30:00Z", or give its format with time_format (for example DD.MM.YYYY)`;
 }
+
+/** Where an observation's time is and how it is written. */
+export interface TimeRule {
+  /** property (CSV: column) holding the time; `observed_at` by default */
+  readonly property: string;
+  /** the format of the time text, or null for RFC 3339 */
+  readonly format: TimeFormat | null;
+}
+
+export const DEFAULT_TIME_RULE: TimeRule = Object.freeze({ property: TIME_PROPERTY, format: null });
+
+/**
+ * The time rule for a time column and format as given in the settings.
+ * @throws InputError `bad-time-format` for a pattern that cannot be used
+ */
+export function timeRule(column: string | null | undefined, format: string | null | undefined): TimeRule {
+  const property = column === null || column === undefined || column === '' ? TIME_PROPERTY : column;
+  if (format === null || format === undefined || format === '') return property === TIME_PROPERTY ? DEFAULT_TIME_RULE : { property, format: null };
+  const compiled = compileTimeFormat(format);
+  if (typeof compiled === 'string') fail('bad-time-format', compiled);
+  return { property, format: compiled };
+}
+
+/** Epoch milliseconds of a time value under the rule (a string in its format, or RFC 3339), NaN when unreadable. */
+export function readTime(v: unknown, rule: TimeRule): number {
+  if (typeof v !== 'string') return NaN;
+  return rule.format === null ? parseTimestamp(v) : parseFormattedTime(v.trim(), rule.format);
+}
+
+/**
+ * A time format for a column that does not hold RFC 3339: a pattern in the notation ISO 8601
+ * uses to describe representations — `YYYY` year, `MM` month, `DD` day, `hh` hour (00–23), `mm`
+ * minute, `ss` second — with any other characters standing for themselves, for example
+ * `DD.MM.YYYY`, `MM/DD/YYYY hh:mm` or `YYYYMMDD`. Times are read as UTC. Each field has exactly
+ * as many digits as its letters (source: ISO 8601-1:2019, 3.2, representation notation).
+ */
+export interface TimeFormat {
+  /** the pattern as given */
+  readonly pattern: string;
+  /** literal texts and fields in order */
+  readonly parts: readonly (string | 'YYYY' | 'MM' | 'DD' | 'hh' | 'mm' | 'ss')[];
+}
+
+const FORMAT_FIELDS = ['YYYY', 'MM', 'DD', 'hh', 'mm', 'ss'] as const;
+
+/**
+ * Compiles a time format pattern (see TimeFormat).
+ * @returns the format, or a message saying what is wrong with the pattern
+ */
+export function compileTimeFormat(pattern: string): TimeFormat | string {
+  const parts: (string | (typeof FORMAT_FIELDS)[number])[] = [];
+  const seen = new Set<string>();
+  let literal = '';
+  for (let i = 0; i < pattern.length; ) {
+    const field = FORMAT_FIELDS.find((f) => pattern.startsWith(f, i));
+    if (field !== undefined) {
+      if (seen.has(field)) return `time_format ${JSON.stringify(pattern)} has ${field} twice`;
+      seen.add(field);
+      if (literal !== '') parts.push(literal);
+      literal = '';
+      parts.push(field);
+      i += field.length;
+      continue;
+    }
+    const c = pattern[i] as string;
+    if (/[A-Za-z]/.test(c)) {
+      return `time_format ${JSON.stringify(pattern)} has an unknown letter ${JSON.stringify(c)} at ${i}; use YYYY, MM, DD, hh, mm and ss (for example DD.MM.YYYY or YYYY-MM-DD hh:mm), other characters are taken as written`;
+    }
+    literal += c;
+    i++;
+  }
+  if (literal !== '') parts.push(literal);
+  for (const need of ['YYYY', 'MM', 'DD'] as const) {
+    if (!seen.has(need)) return `time_format ${JSON.stringify(pattern)} has no ${need}; a time needs YYYY, MM and DD (for example DD.MM.YYYY)`;
+  }
+  if (seen.has('ss') && !seen.has('mm')) return `time_format ${JSON.stringify(pattern)} has ss without mm`;
+  if (seen.has('mm') && !seen.has('hh')) return `time_format ${JSON.stringify(pattern)} has mm without hh`;
+  return { pattern, parts };
+}
+
+/** Epoch milliseconds of a text written in the given format (UTC), or NaN when it does not match. */
+export function parseFormattedTime(s: string, format: TimeFormat): number {
+  const v: Record<string, number> = { YYYY: 0, MM: 0, DD: 0, hh: 0, mm: 0, ss: 0 };
+  let i = 0;
+  for (const part of format.parts) {
+    if ((FORMAT_FIELDS as readonly string[]).includes(part)) {
+      const value = digits(s, i, part.length);
+      if (value < 0) return NaN;
+      v[part] = value;
+      i += part.length;
+    } else {
+      if (!s.startsWith(part, i)) return NaN;
+      i += part.length;
+    }
+  }
+  if (i !== s.length) return NaN;
+  if (v.MM < 1 || v.MM > 12 || v.DD < 1 || v.DD > daysInMonth(v.YYYY, v.MM) || v.hh > 23 || v.mm > 59 || v.ss > 59) return NaN;
+  return (daysFromCivil(v.YYYY, v.MM, v.DD) * 86_400 + (v.hh * 60 + v.mm) * 60 + v.ss) * 1000;
+}
+
 
 /** The message for a weight that is not a finite number ≥ 0. */
 export function weightMessage(where: string, property: string, v: unknown): string {

@@ -16,7 +16,7 @@
  */
 import { parse } from 'csv-parse/sync';
 import type { InputFeature, Observations } from './types.js';
-import { ProblemList, TIME_PROPERTY, fail, parseDecimal, parseTimestamp, rangeProblem, timeMessage, weightMessage } from './checks.js';
+import { DEFAULT_TIME_RULE, ProblemList, TIME_PROPERTY, fail, parseDecimal, rangeProblem, readTime, timeMessage, weightMessage, type TimeRule } from './checks.js';
 import { propertyListMessage } from './geojson.js';
 import { contentProblem } from './limits.js';
 
@@ -29,6 +29,8 @@ export const LATITUDE_HEADERS = ['latitude', 'lat', 'y'] as const;
 
 export interface CsvOptions {
   weightProperty: string | null;
+  /** the time column (matched exactly when named; `observed_at` in any case by default) and its format */
+  time?: TimeRule;
   lonColumn?: string;
   latColumn?: string;
   /** field delimiter, one character; sniffed from the header line when absent */
@@ -109,7 +111,11 @@ function readRecords(records: string[][], lines: RecordLines | null, delimiter: 
   }
 
   const idCol = lower.indexOf('id');
-  const timeCol = lower.indexOf(TIME_PROPERTY);
+  const time = options.time ?? DEFAULT_TIME_RULE;
+  const timeCol = time.property === TIME_PROPERTY ? lower.indexOf(TIME_PROPERTY) : header.indexOf(time.property);
+  if (timeCol < 0 && time.property !== TIME_PROPERTY) {
+    problems.add(null, undefined, 'unknown-property', `time_column: ${propertyListMessage(time.property, 'column', header).replace('properties found', 'columns found')}`);
+  }
   const weightProperty = options.weightProperty;
   const weightCol = weightProperty === null ? -1 : header.indexOf(weightProperty);
   if (weightProperty !== null && weightCol < 0) {
@@ -174,12 +180,12 @@ function readRecords(records: string[][], lines: RecordLines | null, delimiter: 
     if (timeCol >= 0) {
       const cell = (record[timeCol] as string).trim();
       if (cell !== '') {
-        const ms = parseTimestamp(cell);
+        const ms = readTime(cell, time);
         if (ms === ms) {
           observedAt[r] = ms;
           timed++;
         } else {
-          problems.add(r, id, 'bad-time', timeMessage(rowName(r, lines, id), cell));
+          problems.add(r, id, 'bad-time', timeMessage(rowName(r, lines, id), cell, time));
         }
       }
     }

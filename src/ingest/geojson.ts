@@ -16,16 +16,18 @@
 import { createRequire } from 'node:module';
 import type { InputFeature, Observations } from './types.js';
 import {
+  DEFAULT_TIME_RULE,
   ProblemList,
   TIME_PROPERTY,
   describe,
   fail,
   locate,
   malformedJsonMessage,
-  parseTimestamp,
   rangeProblem,
+  readTime,
   timeMessage,
   weightMessage,
+  type TimeRule,
 } from './checks.js';
 import { contentProblem } from './limits.js';
 
@@ -50,10 +52,12 @@ export interface FeatureListOptions {
   unparsed?: (string | undefined)[] | null;
   /** the observations are to be stored: string values must be storable text too (src/ingest/limits.ts) */
   storable?: boolean;
+  /** where the time is and how it is written; `observed_at` in RFC 3339 by default */
+  time?: TimeRule;
 }
 
 /** Reads a GeoJSON text (FeatureCollection or Feature). Throws InputError; never returns part of the input. */
-export function readGeoJson(text: string, weightProperty: string | null, maxProblems: number, maxFeatures: number, storable = false): Observations {
+export function readGeoJson(text: string, weightProperty: string | null, maxProblems: number, maxFeatures: number, time: TimeRule = DEFAULT_TIME_RULE, storable = false): Observations {
   let root: unknown;
   try {
     root = JSON.parse(text);
@@ -66,7 +70,7 @@ export function readGeoJson(text: string, weightProperty: string | null, maxProb
     fail('too-many-features', `the input has ${items.length} features; at most ${maxFeatures} are accepted in one request — split it`);
   }
   const problems = new ProblemList(maxProblems);
-  const obs = checkFeatureList(items, { weightProperty, noun: 'feature', lines: null, storable }, problems);
+  const obs = checkFeatureList(items, { weightProperty, noun: 'feature', lines: null, time, storable }, problems);
   problems.throwIfAny();
   return obs;
 }
@@ -142,6 +146,10 @@ class FeatureChecker {
       problems.add(null, undefined, 'unknown-property', unknownPropertyMessage(items, weightProperty, this.options.noun));
       checkWeight = false;
     }
+    const time = this.options.time ?? DEFAULT_TIME_RULE;
+    if (time.property !== TIME_PROPERTY && !anyHasProperty(items, time.property)) {
+      problems.add(null, undefined, 'unknown-property', `time_column: ${unknownPropertyMessage(items, time.property, this.options.noun)}`);
+    }
     const unparsed = this.options.unparsed ?? null;
     const storable = this.options.storable ?? false;
     for (let i = 0; i < n; i++) {
@@ -207,17 +215,17 @@ class FeatureChecker {
           problems.add(i, id, 'bad-weight', weightMessage(this.where(i, id), weightProperty as string, own));
         }
       }
-      const t = p === null ? undefined : p[TIME_PROPERTY];
-      if (t === undefined || t === null) {
+      const t = p === null ? undefined : p[time.property];
+      if (t === undefined || t === null || (time.format !== null && t === '')) {
         observedAt[i] = NaN;
       } else {
-        const ms = typeof t === 'string' ? parseTimestamp(t) : NaN;
+        const ms = readTime(t, time);
         if (ms === ms) {
           observedAt[i] = ms;
           this.timed++;
         } else {
           observedAt[i] = NaN;
-          problems.add(i, id, 'bad-time', timeMessage(this.where(i, id), t));
+          problems.add(i, id, 'bad-time', timeMessage(this.where(i, id), t, time));
         }
       }
     }

@@ -3,7 +3,7 @@
  * listing what is wrong (index, id, code, message) — never part of the input.
  */
 import type { Observations } from './types.js';
-import { DEFAULT_MAX_PROBLEMS, fail } from './checks.js';
+import { DEFAULT_MAX_PROBLEMS, fail, timeRule } from './checks.js';
 import { readGeoJson } from './geojson.js';
 import { readCsv } from './csv.js';
 import { readGeoJsonSeq } from './seq.js';
@@ -21,6 +21,10 @@ export interface ReadOptions {
   lonColumn?: string;
   /** CSV: header of the latitude column; default the first of latitude, lat, y (any case) */
   latColumn?: string;
+  /** property (CSV: column) holding each observation's time; default `observed_at` */
+  timeColumn?: string | null;
+  /** how that time is written (see TimeFormat: `DD.MM.YYYY`, `YYYY-MM-DD hh:mm`, …); default RFC 3339 */
+  timeFormat?: string | null;
   /** CSV: field delimiter, one character; default sniffed from the header line (`,` `;` tab `|`) */
   csvDelimiter?: string;
   /** most problems listed in the InputError (the total is still counted); default 100 */
@@ -99,15 +103,17 @@ export function readObservations(input: string | Buffer, options: ReadOptions = 
   if (text.charCodeAt(0) === 0xfeff) text = text.slice(1);
   if (text.trim().length === 0) fail('empty-input', 'the input is empty; send a GeoJSON FeatureCollection of Point features or a CSV with a header row');
 
+  const time = timeRule(options.timeColumn, options.timeFormat);
   const format = options.format ?? detectFormat(text);
   switch (format) {
     case 'geojson':
-      return readGeoJson(text, weightProperty, maxProblems, maxFeatures, options.storable);
+      return readGeoJson(text, weightProperty, maxProblems, maxFeatures, time, options.storable);
     case 'geojson-seq':
-      return readGeoJsonSeq(text, weightProperty, maxProblems, maxFeatures, options.storable);
+      return readGeoJsonSeq(text, weightProperty, maxProblems, maxFeatures, time, options.storable);
     case 'csv':
       return readCsv(text, {
         weightProperty,
+        time,
         lonColumn: options.lonColumn,
         latColumn: options.latColumn,
         delimiter: options.csvDelimiter,

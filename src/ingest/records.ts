@@ -37,6 +37,9 @@ export interface RecordOptions {
   /** CSV column names */
   lonColumn?: string | null;
   latColumn?: string | null;
+  /** property (CSV: column) holding the time, and how it is written (see ReadOptions) */
+  timeColumn?: string | null;
+  timeFormat?: string | null;
 }
 
 /** One rejected feature: where it was in the input, its id when it had one, and why. */
@@ -172,6 +175,8 @@ export function readRecords(input: Buffer | string, options: RecordOptions): Rec
       storable: true,
       lonColumn: options.lonColumn ?? undefined,
       latColumn: options.latColumn ?? undefined,
+      timeColumn: options.timeColumn,
+      timeFormat: options.timeFormat,
       maxProblems,
     });
   const maxProblems = options.partial ? Number.MAX_SAFE_INTEGER : DEFAULT_MAX_PROBLEMS;

@@ -69,15 +69,27 @@ export function windowProblem(text: string): string | null {
 
 /**
  * The start of a window that ends at `endMs`: years and months step back in the calendar (UTC),
- * weeks, days, hours, minutes and seconds by their length. @returns epoch milliseconds
+ * weeks, days, hours, minutes and seconds by their length. A day that the target month does not
+ * have becomes its last day: P1M back from 31 March is 28 (or 29) February, not 3 March, as in
+ * the TC39 Temporal proposal's date arithmetic, whose default overflow "constrain" clamps the day
+ * (from memory). @returns epoch milliseconds
  */
 export function windowStart(duration: string, endMs: number): number {
   const m = DURATION.exec(duration);
   if (m === null || windowProblem(duration) !== null) throw new RangeError(windowProblem(duration) ?? 'bad window');
   const n = (i: number): number => (m[i] === undefined ? 0 : Number(m[i]));
   const d = new Date(endMs);
-  d.setUTCFullYear(d.getUTCFullYear() - n(1), d.getUTCMonth() - n(2));
+  const months = d.getUTCFullYear() * 12 + d.getUTCMonth() - n(1) * 12 - n(2);
+  const year = Math.floor(months / 12);
+  const month = months - year * 12;
+  // day 0 of the next month is the last day of this one
+  const lastDay = new Date(Date.UTC(2000, month + 1, 0)).getUTCDate() - (month === 1 && !isLeapYear(year) ? 1 : 0);
+  d.setUTCFullYear(year, month, Math.min(d.getUTCDate(), lastDay));
   return d.getTime() - (((n(3) * 7 + n(4)) * 24 + n(5)) * 60 + n(6)) * 60_000 - Math.round(n(7) * 1000);
+}
+
+function isLeapYear(y: number): boolean {
+  return (y % 4 === 0 && y % 100 !== 0) || y % 400 === 0;
 }
 
 /**
@@ -158,6 +170,10 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
 
   let t = performance.now();
   const input = await store.loadForRun(dataset.id, query);
+  // A time window leaves out the observations without a time; count them for the summary and
+  // its warning (a second query: an observation posted in between may be counted or not).
+  const windowed = query.from !== undefined || query.to !== undefined;
+  const untimed = windowed ? await store.countObservations(dataset.id, { untimed: true, ...(query.where ? { where: query.where } : {}) }) : 0;
   t = lap('load', t);
   progress(STAGE_PERCENT.read, true);
   await check();
@@ -196,10 +212,14 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
             },
           },
           undefined,
-          { source: 'stored', dataset: dataset.id, query: queryRecord(query) },
+          { source: 'stored', dataset: dataset.id, query: queryRecord(query), left_out_untimed: untimed },
           texts,
+          input.ids,
         );
-  if (result === null) throw new RunError(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window`);
+  if (result === null) {
+    const why = untimed > 0 ? `; ${untimed} observation(s) have no readable time and a time window applies: name their time with the dataset's time_column and time_format settings` : '';
+    throw new RunError(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window${why}`);
+  }
   t = lap('cluster', t);
   await check();
 

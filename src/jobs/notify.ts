@@ -20,11 +20,18 @@
  * honoured), for at most `attempts` attempts in all. Any other answer outside 2xx (a redirect, 4xx)
  * is final: the receiver has said no, and asking again will not change it. A failed notice is
  * logged and never changes the run's outcome.
+ *
+ * Addresses: every attempt checks the URL again and connects only to addresses that pass the rules
+ * of webhook-address.ts, checked inside the connection's own name look-up (so a name that now
+ * resolves to a private address is refused, and the address checked is the one connected to). A
+ * refused address is final.
  */
 import { createHmac, randomUUID, timingSafeEqual } from 'node:crypto';
+import { Agent, fetch } from 'undici';
 import type { Dataset, DatasetWebhook, Run } from '../storage/store.js';
 import type { RunOutcome } from './hooks.js';
 import type { TransitionKind } from '../tracks/match.js';
+import { checkWebhookUrl, guardedLookup, WebhookAddressError } from './webhook-address.js';
 
 /** Header carrying the signature. */
 export const SIGNATURE_HEADER = 'Roost-Signature';
@@ -41,6 +48,8 @@ export interface WebhookSettings {
   maxDelayMs: number;
   /** time allowed for one attempt (connect, send, answer), milliseconds; default 10 000 */
   timeoutMs: number;
+  /** allow private-network and loopback receivers (and http: to loopback); default false */
+  allowPrivate: boolean;
 }
 
 /**
@@ -53,6 +62,7 @@ export const DEFAULT_WEBHOOK_SETTINGS: Readonly<WebhookSettings> = Object.freeze
   firstDelayMs: 2_000,
   maxDelayMs: 60_000,
   timeoutMs: 10_000,
+  allowPrivate: false,
 });
 
 /** Where notices are logged (a pino or Fastify logger fits). */
@@ -64,13 +74,14 @@ export interface NoticeLog {
 /** Defaults merged with `settings`, checked; throws a RangeError naming the bad setting. */
 export function resolveWebhookSettings(settings: Partial<WebhookSettings> = {}): WebhookSettings {
   const s = { ...DEFAULT_WEBHOOK_SETTINGS, ...Object.fromEntries(Object.entries(settings).filter(([, v]) => v !== undefined)) } as WebhookSettings;
-  const whole = (name: keyof WebhookSettings, min: number): void => {
+  const whole = (name: 'attempts' | 'firstDelayMs' | 'maxDelayMs' | 'timeoutMs', min: number): void => {
     if (!Number.isSafeInteger(s[name]) || s[name] < min) throw new RangeError(`Webhook setting ${name} must be a whole number ≥ ${min}, got ${String(s[name])}.`);
   };
   whole('attempts', 1);
   whole('firstDelayMs', 0);
   whole('maxDelayMs', 0);
   whole('timeoutMs', 1);
+  if (typeof s.allowPrivate !== 'boolean') throw new RangeError(`Webhook setting allowPrivate must be true or false, got ${String(s.allowPrivate)}.`);
   return s;
 }
 
@@ -183,9 +194,13 @@ export async function deliverNotice(
     if (signal?.aborted) return { delivered: false, attempts: attempt - 1, status, error: 'stopped: the service is shutting down' };
     let retry = true;
     let waitMs = delayMs;
+    let agent: Agent | null = null;
     try {
+      const checked = checkWebhookUrl(webhook.url, s.allowPrivate);
+      agent = new Agent({ connect: { lookup: guardedLookup(s.allowPrivate, checked.loopbackOnly) } });
       const timeout = AbortSignal.timeout(s.timeoutMs);
-      const res = await fetch(webhook.url, {
+      const res = await fetch(checked.url, {
+        dispatcher: agent,
         method: 'POST',
         body,
         redirect: 'manual',
@@ -207,7 +222,15 @@ export async function deliverNotice(
     } catch (e) {
       status = null;
       const err = e as Error & { cause?: { code?: string; message?: string } };
-      error = err.name === 'TimeoutError' ? `no answer within ${s.timeoutMs} ms` : `${err.message}${err.cause?.code ? ` (${err.cause.code})` : ''}`;
+      const refused = e instanceof WebhookAddressError ? e : err.cause instanceof WebhookAddressError ? err.cause : null;
+      if (refused !== null) {
+        error = refused.message;
+        retry = false;
+      } else {
+        error = err.name === 'TimeoutError' ? `no answer within ${s.timeoutMs} ms` : `${err.message}${err.cause?.code ? ` (${err.cause.code})` : ''}`;
+      }
+    } finally {
+      void agent?.close().catch(() => undefined);
     }
     if (!retry || attempt === s.attempts) return { delivered: false, attempts: attempt, status, error };
     onAttempt?.({ delivered: false, attempts: attempt, status, error });

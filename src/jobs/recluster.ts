@@ -107,6 +107,7 @@ export async function reclusterAction(
   }
   const hooks = createRoostHooks({
     publicUrl: env.ROOST_PUBLIC_URL || null,
+    webhook: { allowPrivate: env.ROOST_ALLOW_PRIVATE_WEBHOOKS === '1' || env.ROOST_ALLOW_PRIVATE_WEBHOOKS === 'true' },
     log: { info: () => undefined, warn: (o, msg) => io.err(`roost recluster: ${msg} (dataset ${String(o['dataset'])}, run ${String(o['run'])}: ${String(o['error'])})\n`) },
   });
   try {

@@ -18,6 +18,7 @@
  * (`changes`), the changes endpoint and the notice of change.
  */
 import type { HullGeometry } from '../geometry/hull.js';
+import { roundDecimals, roundMeters, roundSignificant } from '../geometry/rounding.js';
 import type { RunHotspot as StoredHotspot, Store } from '../storage/store.js';
 import { formatTrackId, matchRuns, type RunHotspot, type TrackSettings, type Transition, type TransitionKind } from '../tracks/match.js';
 import type { FinishedHotspot, RunContext, TrackAssignment } from './hooks.js';
@@ -68,11 +69,8 @@ export interface ChangesJson {
   transitions: TransitionJson[];
 }
 
-const round = (x: number, decimals: number): number => {
-  const f = 10 ** decimals;
-  const r = Math.round(x * f) / f;
-  return r === 0 ? 0 : r;
-};
+const round = roundDecimals;
+const sigOrNull = (x: number | null): number | null => (x === null ? null : roundSignificant(x));
 const roundOrNull = (x: number | null, decimals: number): number | null => (x === null ? null : round(x, decimals));
 
 /** Transitions per kind, with a zero for every kind that does not occur. */
@@ -95,10 +93,10 @@ export function transitionJson(t: Transition, trackOf?: { from?: (hotspotId: num
   if (t.change) {
     out.change = {
       count_delta: round(t.change.countDelta, 6),
-      count_ratio: roundOrNull(t.change.countRatio, 6),
-      area_delta_km2: round(t.change.areaDeltaKm2, 6),
-      density_ratio: roundOrNull(t.change.densityRatio, 6),
-      moved_m: round(t.change.movedMeters, 1),
+      count_ratio: sigOrNull(t.change.countRatio),
+      area_delta_km2: roundSignificant(t.change.areaDeltaKm2),
+      density_ratio: sigOrNull(t.change.densityRatio),
+      moved_m: roundMeters(t.change.movedMeters),
     };
   }
   return out;

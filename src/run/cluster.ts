@@ -8,10 +8,10 @@ import { suggestEps } from '../core/kdistance.js';
 import { extractDbscan, extractXi, optics } from '../core/optics.js';
 import { SphereIndex } from '../core/sphere-index.js';
 import { ROLE_CORE, ROLE_NAMES, type Clustering, type PointSet } from '../core/types.js';
-import { clusteringWarnings } from '../core/warnings.js';
+import { clusteringWarnings, type ClusteringWarning } from '../core/warnings.js';
 import { geometryAreaKm2 } from '../geometry/area.js';
-import { clarkEvans, nearestNeighbourMeters } from '../geometry/clark-evans.js';
-import { hotspotFigures, resultFigures, type HotspotFigures } from '../geometry/figures.js';
+import { nearestNeighbourMeters, type ClarkEvans } from '../geometry/clark-evans.js';
+import { hotspotFigures, resultFigures, type HotspotFigures, type ResultFigures } from '../geometry/figures.js';
 import {
   bboxOf,
   bboxOfPositions,
@@ -22,6 +22,7 @@ import {
   featureStringWithProperties,
 } from '../geometry/geojson.js';
 import { hotspotHull, HullSpreadError, type HullGeometry } from '../geometry/hull.js';
+import { roundDecimals, roundMeters, roundSignificant } from '../geometry/rounding.js';
 import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
@@ -124,11 +125,8 @@ export interface ClusterHooks {
   signal?: AbortSignal;
 }
 
-const round = (x: number, decimals: number): number => {
-  const f = 10 ** decimals;
-  const r = Math.round(x * f) / f;
-  return r === 0 ? 0 : r;
-};
+const round = roundDecimals;
+const sig = roundSignificant;
 
 class Timer {
   readonly ms: Record<string, number> = {};
@@ -164,14 +162,20 @@ function resolveEps(points: PointSet, settings: ClusterSettings): number {
  * no source).
  */
 export function defaultMinClusterSize(n: number, minPoints: number): number {
-  return Math.max(minPoints, 2, Math.ceil(0.005 * n));
+  return Math.max(minPoints, 2, Math.ceil(DEFAULT_MIN_CLUSTER_SHARE * n));
 }
+
+/** The share of the observations that makes the default smallest ξ hotspot when larger than min_points. */
+export const DEFAULT_MIN_CLUSTER_SHARE = 0.005;
+
+/** OPTICS searches up to this many times eps unless optics_max_eps is given. */
+export const DEFAULT_OPTICS_MAX_EPS_FACTOR = 3;
 
 function runMethod(points: PointSet, index: SphereIndex, epsMeters: number, settings: ClusterSettings, progress: (d: number) => void): Clustering {
   if (settings.method === 'dbscan') {
     return dbscan(points, { epsMeters, minPoints: settings.minPoints, index, onProgress: progress });
   }
-  const maxEps = settings.opticsMaxEpsMeters ?? 3 * epsMeters;
+  const maxEps = settings.opticsMaxEpsMeters ?? DEFAULT_OPTICS_MAX_EPS_FACTOR * epsMeters;
   const ordering = optics(points, { maxEpsMeters: maxEps, minPoints: settings.minPoints, onProgress: progress });
   if (settings.opticsExtraction === 'eps') return extractDbscan(ordering, Math.min(epsMeters, maxEps));
   return extractXi(ordering, { xi: settings.xi, minClusterSize: settings.minClusterSize ?? defaultMinClusterSize(points.n, settings.minPoints) }).clustering;
@@ -197,21 +201,20 @@ function categoryValues(features: InputFeature[], property: string): (string | n
   return out;
 }
 
-function hotspotProperties(f: HotspotFigures, features: InputFeature[]): Record<string, unknown> {
-  const medoid = features[f.medoid];
+function hotspotProperties(f: HotspotFigures, medoidId: string | number): Record<string, unknown> {
   return {
     hotspot_id: f.hotspot + 1,
     track_id: null,
     count: f.count,
     core_count: f.coreCount,
     border_count: f.borderCount,
-    weight: round(f.weight, 6),
-    area_km2: round(f.areaKm2, 6),
-    density_per_km2: round(f.densityPerKm2, 3),
-    weight_density_per_km2: round(f.weightDensityPerKm2, 3),
-    radius_m: round(f.radiusMeters, 1),
+    weight: sig(f.weight),
+    area_km2: sig(f.areaKm2),
+    density_per_km2: sig(f.densityPerKm2),
+    weight_density_per_km2: sig(f.weightDensityPerKm2),
+    radius_m: roundMeters(f.radiusMeters),
     centre: [round(f.centre[0], 7), round(f.centre[1], 7)],
-    medoid_id: medoid.id ?? f.medoid,
+    medoid_id: medoidId,
     first_observed_at: f.firstObservedAt,
     last_observed_at: f.lastObservedAt,
     ...(f.categories ? { categories: f.categories } : {}),
@@ -312,6 +315,78 @@ export function pointFeatureFromText(text: string, hotspot: number, role: number
   return `{"type":"Feature"${id === '' ? '' : ',"id":' + id},"geometry":{"type":"Point","coordinates":${position}]},"properties":${properties}}`;
 }
 
+/**
+ * The warning for observations left out by a time window because their time could not be read:
+ * it names the time property and says how to name another one, so that a run over a few of the
+ * observations is not blamed on eps.
+ */
+function untimedWarnings(untimed: number, total: number, settings: ClusterSettings): ClusteringWarning[] {
+  if (untimed === 0) return [];
+  const column = settings.timeColumn ?? 'observed_at';
+  const how = settings.timeFormat === null ? 'as an RFC 3339 date-time' : `written ${settings.timeFormat}`;
+  return [
+    {
+      code: 'untimed-observations',
+      message:
+        `${untimed} of ${total} observations were left out because a time window applies and they have no time in "${column}" ${how}. ` +
+        'If their time is in another property or column, or written another way, name it with time_column and time_format (for example time_column=Datum, time_format=DD.MM.YYYY).',
+    },
+  ];
+}
+
+/** Plain words for why the convex hull of all observations (the Clark–Evans study area) could not be drawn. */
+function studyAreaFailure(err: Error): string {
+  if (/lies more than|spread evenly round the globe/.test(err.message)) {
+    return 'the observations spread too far round the globe (some lie more than 80° from their mean position) for a convex hull, the study area, to be drawn on the sphere';
+  }
+  return `the convex hull of all observations could not be drawn (${err.message.replace(/^hotspotHull: /, '')})`;
+}
+
+/** One Clark–Evans result as written in summaries: the pattern first, then R and z, then what they rest on. */
+function clarkEvansFigures(ce: ClarkEvans): Record<string, unknown> {
+  return {
+    pattern: ce.pattern,
+    R: sig(ce.R),
+    z: sig(ce.z),
+    nearest_neighbour_m: { mean: roundMeters(ce.observedMeanMeters), mean_if_random: roundMeters(ce.expectedMeanMeters) },
+  };
+}
+
+/**
+ * The Clark–Evans block of a summary. Always present: when the test could not be run,
+ * `computed` is false and `not_computed` says why. When observations share exact positions,
+ * `distinct_positions` holds the test over one observation per position, in the same area.
+ */
+function clarkEvansBlock(whole: ResultFigures): Record<string, unknown> {
+  const ce = whole.clarkEvans;
+  if (ce === null) return { computed: false, not_computed: whole.clarkEvansNotComputed };
+  return {
+    computed: true,
+    ...clarkEvansFigures(ce),
+    study_area: { kind: 'convex hull of all observations', km2: sig(ce.studyAreaKm2) },
+    shared_positions: whole.sharedPositions,
+    distinct_positions: whole.clarkEvansDistinct === null ? null : { count: whole.distinctPositions, ...clarkEvansFigures(whole.clarkEvansDistinct) },
+  };
+}
+
+/** Warnings about the Clark–Evans figure: why it is missing, or what shared positions do to it. */
+function clarkEvansWarnings(whole: ResultFigures): ClusteringWarning[] {
+  if (whole.clarkEvans === null) {
+    return [{ code: 'clark-evans-not-computed', message: `The Clark–Evans index was not computed: ${whole.clarkEvansNotComputed}.` }];
+  }
+  if (whole.sharedPositions === 0) return [];
+  const d = whole.clarkEvansDistinct;
+  const distinct = d === null ? '' : ` Over the ${whole.distinctPositions} distinct positions R is ${sig(d.R, 4)} (${d.pattern}).`;
+  return [
+    {
+      code: 'shared-positions',
+      message:
+        `${whole.sharedPositions} of ${whole.observations} observations share their exact position with another one, which pulls the Clark–Evans R down (to ${sig(whole.clarkEvans.R, 4)}) whatever the pattern of the places.${distinct} ` +
+        'Repeated positions often come from geocoding to a building or a grid, or from repeated visits to one place.',
+    },
+  ];
+}
+
 /** Canonical feature texts by input position (see pointFeatureFromText). */
 export interface FeatureTextSource {
   at(index: number): string | undefined;
@@ -322,6 +397,8 @@ export interface FeatureTextSource {
  * `featureTexts`, when given, holds the canonical text of every input feature (by position in
  * `all`); the points and noise layers are then written from those texts (same bytes, no
  * re-serialising), and `all.features` is read only for count_by, weights and medoid ids.
+ * `ids`, when given, holds every input observation's id (by position in `all`), for stored
+ * observations whose id is a property (a dataset's id_property) rather than the GeoJSON id.
  */
 export function clusterObservations(
   all: Observations,
@@ -330,8 +407,12 @@ export function clusterObservations(
   timer: Timer = new Timer(hooks),
   inputInfo: Record<string, unknown> = {},
   featureTexts?: FeatureTextSource,
+  ids?: ArrayLike<string>,
 ): ClusterResult {
   const filtered = applyFilter(all, { since: settings.since, until: settings.until, where: settings.where });
+  // a stored run's window is applied by the store, which reports the untimed observations it left out
+  const earlierUntimed = typeof inputInfo.left_out_untimed === 'number' ? inputInfo.left_out_untimed : 0;
+  const untimed = filtered.info.left_out_untimed + earlierUntimed;
   const obs = filtered.observations;
   const { points, features } = obs;
 
@@ -381,25 +462,26 @@ export function clusterObservations(
 
   // Clark–Evans over the convex hull of all observations (the stated study area).
   let studyAreaKm2: number | null = null;
-  let studyAreaNote = 'convex hull of all observations';
+  let studyAreaProblem: string | undefined;
   if (points.n >= 3) {
     try {
       studyAreaKm2 = geometryAreaKm2(hotspotHull(points.lon, points.lat, { kind: 'convex', bufferMeters: epsMeters / 2 }));
     } catch (err) {
-      if (!(err instanceof HullSpreadError)) throw err;
-      studyAreaNote = 'not computed: the observations spread over more than a hemisphere';
+      studyAreaProblem = studyAreaFailure(err as Error);
     }
-  }
+  } else studyAreaProblem = 'fewer than 3 observations outline no area';
   const nearest = points.n >= 2 && studyAreaKm2 ? nearestNeighbourMeters(points, index) : undefined;
-  const whole = resultFigures(points, clustering, { studyAreaKm2, nearest });
+  const whole = resultFigures(points, clustering, { studyAreaKm2, studyAreaProblem, nearest });
 
   timer.start('write');
+  /** the medoid's observation id: the stored id, else the GeoJSON id, else its input index */
+  const medoidIdOf = (i: number): string | number => (ids !== undefined ? (ids[filtered.kept[i]!] as string) : (features[i]!.id ?? i));
   const resultHotspots: ResultHotspot[] = [];
   for (let h = 0; h < clustering.count; h++) {
     const own = members.slice(start[h], start[h + 1]);
     const coreMembers = new Int32Array(figures[h].coreCount);
     for (let k = 0, c = 0; k < own.length; k++) if (clustering.roles[own[k]] === ROLE_CORE) coreMembers[c++] = own[k];
-    resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], features) });
+    resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], medoidIdOf(figures[h].medoid)) });
   }
   let noiseCount = 0;
   for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseCount++;
@@ -446,7 +528,7 @@ export function clusterObservations(
   const summary: Record<string, unknown> = {
     roost_version: ROOST_VERSION,
     parameters: { ...settingsRecord(settings), eps: epsMeters, eps_auto: settings.epsAuto },
-    input: { ...inputInfo, observations: all.points.n, kept: points.n, left_out_by_filter: all.points.n - points.n, ...filtered.info },
+    input: { ...inputInfo, observations: all.points.n, kept: points.n, left_out_by_filter: all.points.n - points.n, ...filtered.info, left_out_untimed: untimed },
     figures: {
       hotspots: whole.hotspots,
       observations: whole.observations,
@@ -455,21 +537,11 @@ export function clusterObservations(
       core,
       clustered_share: round(whole.clusteredShare, 6),
       noise_share: round(whole.noiseShare, 6),
-      total_weight: round(whole.totalWeight, 6),
-      clark_evans: whole.clarkEvans
-        ? {
-            R: round(whole.clarkEvans.R, 6),
-            z: round(whole.clarkEvans.z, 4),
-            observed_mean_nn_m: round(whole.clarkEvans.observedMeanMeters, 3),
-            expected_mean_nn_m: round(whole.clarkEvans.expectedMeanMeters, 3),
-            reading: whole.clarkEvans.reading,
-            study_area_km2: round(whole.clarkEvans.studyAreaKm2, 6),
-            study_area: studyAreaNote,
-          }
-        : null,
+      total_weight: sig(whole.totalWeight),
+      clark_evans: clarkEvansBlock(whole),
     },
     hotspots: resultHotspots.map((r) => r.properties),
-    warnings: clusteringWarnings(clustering),
+    warnings: [...untimedWarnings(untimed, all.points.n + earlierUntimed, settings), ...clusteringWarnings(clustering), ...clarkEvansWarnings(whole)],
     cautions: CAUTIONS,
     timings_ms: timer.ms,
   };
@@ -493,6 +565,8 @@ export function clusterInput(
     weightProperty: settings.weightProperty,
     lonColumn: settings.lonColumn ?? undefined,
     latColumn: settings.latColumn ?? undefined,
+    timeColumn: settings.timeColumn,
+    timeFormat: settings.timeFormat,
   });
   return clusterObservations(obs, settings, hooks, timer, { format: format ?? 'detected' });
 }
@@ -510,6 +584,8 @@ export function suggestEpsInput(input: Buffer | string, format: InputFormat | un
     weightProperty: settings.weightProperty,
     lonColumn: settings.lonColumn ?? undefined,
     latColumn: settings.latColumn ?? undefined,
+    timeColumn: settings.timeColumn,
+    timeFormat: settings.timeFormat,
   });
   const { observations } = applyFilter(obs, { since: settings.since, until: settings.until, where: settings.where });
   const minPoints = Math.max(2, settings.minPoints);
@@ -521,10 +597,11 @@ export function suggestEpsInput(input: Buffer | string, format: InputFormat | un
     k: s.k,
     observations: s.total,
     sampled: s.sampled,
-    eps_meters: s.epsMeters === null ? null : round(s.epsMeters, 1),
+    // four significant figures: a suggestion to read and type, which must not become 0 for a dense set
+    eps_m: s.epsMeters === null ? null : sig(s.epsMeters, 4),
     knee_index: s.kneeIndex,
     message: s.message,
     warnings,
-    curve: { rank: s.curve.rank, meters: s.curve.meters.map((m) => round(m, 2)) },
+    curve: { rank: s.curve.rank, meters: s.curve.meters.map((m) => sig(m, 4)) },
   };
 }

@@ -5,6 +5,8 @@
  */
 import { textFault } from '../ingest/limits.js';
 
+import { compileTimeFormat } from '../ingest/checks.js';
+
 export type Method = 'dbscan' | 'optics';
 export type HullKindSetting = 'convex' | 'concave';
 export type OpticsExtraction = 'eps' | 'xi';
@@ -44,6 +46,10 @@ export interface ClusterSettings {
   lonColumn: string | null;
   /** CSV: latitude column name (found by common header names when null) */
   latColumn: string | null;
+  /** property (CSV: column) holding each observation's time; `observed_at` when null */
+  timeColumn: string | null;
+  /** how that time is written, as a pattern of YYYY, MM, DD, hh, mm, ss (for example DD.MM.YYYY); RFC 3339 when null */
+  timeFormat: string | null;
 }
 
 /**
@@ -68,6 +74,8 @@ export const DEFAULT_SETTINGS: Readonly<ClusterSettings> = Object.freeze({
   minClusterSize: null,
   lonColumn: null,
   latColumn: null,
+  timeColumn: null,
+  timeFormat: null,
 });
 
 /** Setting names as the API, the command line (as --kebab-case) and stored datasets spell them. */
@@ -88,6 +96,8 @@ export const SETTING_NAMES = [
   'min_cluster_size',
   'lon_column',
   'lat_column',
+  'time_column',
+  'time_format',
 ] as const;
 export type SettingName = (typeof SETTING_NAMES)[number];
 
@@ -230,6 +240,15 @@ export function resolveSettings(input: Record<string, unknown>, base: Readonly<C
       case 'lat_column':
         s.latColumn = text(name, raw);
         break;
+      case 'time_column':
+        s.timeColumn = text(name, raw);
+        break;
+      case 'time_format': {
+        const f = compileTimeFormat(text(name, raw));
+        if (typeof f === 'string') throw new SettingsError(name, f.replace(/^time_format /, ''));
+        s.timeFormat = f.pattern;
+        break;
+      }
     }
   }
   if (!s.epsAuto && !(s.epsMeters > 0)) {
@@ -263,5 +282,7 @@ export function settingsRecord(s: ClusterSettings): Record<SettingName, unknown>
     min_cluster_size: s.minClusterSize,
     lon_column: s.lonColumn,
     lat_column: s.latColumn,
+    time_column: s.timeColumn,
+    time_format: s.timeFormat,
   };
 }

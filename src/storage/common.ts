@@ -4,7 +4,12 @@
  * in their SQL.
  */
 import type {
+  ApiKey,
+  AuditPage,
+  AuditRecord,
   DatasetPatch,
+  NewApiKey,
+  NewAuditRecord,
   FeatureTexts,
   IngestOptions,
   IngestResult,
@@ -95,6 +100,7 @@ export function checkQuery(q: ObservationQuery): void {
   }
   if (q.from !== undefined && !Number.isFinite(q.from)) throw new StoreError('invalid', 'from must be epoch milliseconds');
   if (q.to !== undefined && !Number.isFinite(q.to)) throw new StoreError('invalid', 'to must be epoch milliseconds');
+  if (q.untimed === true && (q.from !== undefined || q.to !== undefined)) throw new StoreError('invalid', 'untimed observations have no time: leave from and to out');
   for (const c of q.where ?? []) {
     if (typeof c.property !== 'string' || c.property === '' || typeof c.value !== 'string') throw new StoreError('invalid', 'where conditions must be {property, value} strings');
     if (!plainText(c.property) || !plainText(c.value)) throw new StoreError('invalid', 'a where condition holds a NUL character or a lone surrogate, which no stored observation can hold');
@@ -551,4 +557,51 @@ export class RunColumns {
     this.observedAt = grown(this.observedAt, size);
     this.weight = grown(this.weight, size);
   }
+}
+
+const KEY_ROLES = ['reader', 'contributor', 'manager', 'admin'];
+
+/** Checks a new key's fields. @throws StoreError 'invalid' */
+export function checkNewKey(k: NewApiKey): void {
+  if (typeof k.id !== 'string' || !/^k_[0-9a-f]{12}$/.test(k.id)) throw new StoreError('invalid', 'key id must be "k_" and 12 hex digits');
+  if (typeof k.tokenHash !== 'string' || !/^[0-9a-f]{64}$/.test(k.tokenHash)) throw new StoreError('invalid', 'tokenHash must be a SHA-256 in lower-case hex');
+  if (!KEY_ROLES.includes(k.role)) throw new StoreError('invalid', `role must be one of ${KEY_ROLES.join(', ')}`);
+  if (k.datasetId !== null) checkDatasetId(k.datasetId);
+  if (k.label !== null && (typeof k.label !== 'string' || k.label.length > 200)) throw new StoreError('invalid', 'label must be text of at most 200 characters, or null');
+}
+
+/** Checks an audit record's fields. @throws StoreError 'invalid' */
+export function checkAuditRecord(r: NewAuditRecord): void {
+  if (!['key', 'open', 'command'].includes(r.actor)) throw new StoreError('invalid', 'actor must be key, open or command');
+  if (typeof r.action !== 'string' || r.action === '') throw new StoreError('invalid', 'action must be non-empty text');
+  if (!Number.isSafeInteger(r.status)) throw new StoreError('invalid', 'status must be a whole number');
+}
+
+/** A key row (either engine) as an ApiKey. */
+export function keyFromRow(row: Record<string, unknown>): ApiKey {
+  const iso = (v: unknown): string | null => (v === null || v === undefined ? null : v instanceof Date ? v.toISOString() : String(v));
+  return {
+    id: row.id as string,
+    role: row.role as ApiKey['role'],
+    datasetId: (row.dataset_id as string | null) ?? null,
+    label: (row.label as string | null) ?? null,
+    createdAt: iso(row.created_at)!,
+    revokedAt: iso(row.revoked_at),
+  };
+}
+
+/** Audit rows (either engine, newest first, one more than `limit` when there is a next page) as a page. */
+export function auditPage(rows: Record<string, unknown>[], limit: number): AuditPage {
+  const page = rows.slice(0, limit);
+  const records: AuditRecord[] = page.map((row) => ({
+    at: row.at instanceof Date ? row.at.toISOString() : String(row.at),
+    keyId: (row.key_id as string | null) ?? null,
+    actor: row.actor as AuditRecord['actor'],
+    action: row.action as string,
+    datasetId: (row.dataset_id as string | null) ?? null,
+    target: (row.target as string | null) ?? null,
+    status: Number(row.status),
+  }));
+  const last = page[page.length - 1];
+  return { records, nextCursor: rows.length > limit && last !== undefined ? encodeCursor(Number(last.seq)) : null };
 }

@@ -244,6 +244,57 @@ export const MIGRATIONS: readonly Migration[] = [
   },
   {
     version: 5,
+    name: 'API keys and audit records',
+    // Keys are stored as the SHA-256 of their token only (see src/auth/tokens.ts). A key limited
+    // to a dataset is deleted with it, so a dataset created again under the same id does not
+    // inherit the old keys. Audit records outlive what they describe.
+    sqlite: `
+      CREATE TABLE api_keys (
+        seq INTEGER PRIMARY KEY,
+        id TEXT NOT NULL UNIQUE,
+        token_hash TEXT NOT NULL UNIQUE,
+        role TEXT NOT NULL CHECK (role IN ('reader', 'contributor', 'manager', 'admin')),
+        dataset_id TEXT REFERENCES datasets(id) ON DELETE CASCADE,
+        label TEXT,
+        created_at TEXT NOT NULL,
+        revoked_at TEXT
+      );
+      CREATE TABLE audit_records (
+        seq INTEGER PRIMARY KEY,
+        at TEXT NOT NULL,
+        key_id TEXT,
+        actor TEXT NOT NULL,
+        action TEXT NOT NULL,
+        dataset_id TEXT,
+        target TEXT,
+        status INTEGER NOT NULL
+      );
+    `,
+    postgres: `
+      CREATE TABLE api_keys (
+        seq BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY,
+        id TEXT NOT NULL UNIQUE,
+        token_hash TEXT NOT NULL UNIQUE,
+        role TEXT NOT NULL CHECK (role IN ('reader', 'contributor', 'manager', 'admin')),
+        dataset_id TEXT REFERENCES datasets(id) ON DELETE CASCADE,
+        label TEXT,
+        created_at TIMESTAMPTZ NOT NULL,
+        revoked_at TIMESTAMPTZ
+      );
+      CREATE TABLE audit_records (
+        seq BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY,
+        at TIMESTAMPTZ NOT NULL,
+        key_id TEXT,
+        actor TEXT NOT NULL,
+        action TEXT NOT NULL,
+        dataset_id TEXT,
+        target TEXT,
+        status INTEGER NOT NULL
+      );
+    `,
+  },
+  {
+    version: 6,
     name: 'run leases and interruption counts',
     // A running run holds a lease its process renews (src/jobs/lease.ts); any instance takes over
     // a run whose lease ran out. Runs running when this is applied get the old staleness bound

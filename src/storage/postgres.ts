@@ -10,12 +10,16 @@ import { pipeline } from 'node:stream/promises';
 import pg from 'pg';
 import { from as copyFrom } from 'pg-copy-streams';
 import type {
+  ApiKey,
+  AuditPage,
   Dataset,
   DatasetPatch,
   IngestOptions,
   IngestResult,
   InterruptedRunFilter,
   ListObservationsOptions,
+  NewApiKey,
+  NewAuditRecord,
   NewDataset,
   NewRun,
   ObservationPage,
@@ -34,8 +38,12 @@ import type {
 } from './store.js';
 import { RUN_LAYERS, StoreError } from './store.js';
 import {
+  auditPage,
   batchIds,
   canBeDatasetId,
+  checkAuditRecord,
+  checkNewKey,
+  keyFromRow,
   checkDatasetFields,
   checkDatasetId,
   plainText,
@@ -263,8 +271,11 @@ export class PostgresStore implements Store {
     return ((await this.pool.query('DELETE FROM observations WHERE dataset_id = $1 AND obs_id = $2', [datasetId, id])).rowCount ?? 0) > 0;
   }
 
-  async countObservations(datasetId: string): Promise<number> {
-    return (await this.pool.query('SELECT count(*)::int AS n FROM observations WHERE dataset_id = $1', [datasetId])).rows[0].n as number;
+  async countObservations(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<number> {
+    checkQuery(query);
+    const p = new Params();
+    const { from, clause } = whereClause(p, datasetId, query);
+    return (await this.pool.query(`SELECT count(*)::int AS n FROM ${from} WHERE ${clause}`, p.values)).rows[0].n as number;
   }
 
   /**
@@ -585,6 +596,61 @@ export class PostgresStore implements Store {
       throw e;
     }
   }
+
+  // -------------------------------------------------------- keys and audit
+
+  async createKey(k: NewApiKey): Promise<ApiKey> {
+    checkNewKey(k);
+    try {
+      const r = await this.pool.query(
+        'INSERT INTO api_keys (id, token_hash, role, dataset_id, label, created_at) VALUES ($1, $2, $3, $4, $5, now()) RETURNING *',
+        [k.id, k.tokenHash, k.role, k.datasetId, k.label],
+      );
+      return keyFromRow(r.rows[0] as Row);
+    } catch (e) {
+      if (pgCode(e) === '23503') throw notFoundDataset(k.datasetId ?? '');
+      if (pgCode(e) === '23505') throw new StoreError('conflict', `a key with id ${JSON.stringify(k.id)} or the same token is already stored`);
+      throw e;
+    }
+  }
+
+  async findKey(tokenHash: string): Promise<ApiKey | null> {
+    const r = await this.pool.query('SELECT * FROM api_keys WHERE token_hash = $1 AND revoked_at IS NULL', [tokenHash]);
+    return r.rows.length === 0 ? null : keyFromRow(r.rows[0] as Row);
+  }
+
+  async listKeys(): Promise<ApiKey[]> {
+    const r = await this.pool.query('SELECT * FROM api_keys ORDER BY seq');
+    return (r.rows as Row[]).map(keyFromRow);
+  }
+
+  async revokeKey(id: string): Promise<ApiKey | null> {
+    const r = await this.pool.query(
+      'UPDATE api_keys SET revoked_at = COALESCE(revoked_at, now()) WHERE id = $1 RETURNING *',
+      [id],
+    );
+    return r.rows.length === 0 ? null : keyFromRow(r.rows[0] as Row);
+  }
+
+  async countKeys(): Promise<number> {
+    const r = await this.pool.query('SELECT count(*)::int AS n FROM api_keys WHERE revoked_at IS NULL');
+    return (r.rows[0] as Row).n as number;
+  }
+
+  async appendAudit(rec: NewAuditRecord): Promise<void> {
+    checkAuditRecord(rec);
+    await this.pool.query(
+      'INSERT INTO audit_records (at, key_id, actor, action, dataset_id, target, status) VALUES (now(), $1, $2, $3, $4, $5, $6)',
+      [rec.keyId, rec.actor, rec.action, rec.datasetId, rec.target, rec.status],
+    );
+  }
+
+  async listAudit(options: { limit: number; cursor?: string }): Promise<AuditPage> {
+    checkLimit(options.limit);
+    const before = options.cursor === undefined ? Number.MAX_SAFE_INTEGER : decodeCursor(options.cursor);
+    const r = await this.pool.query('SELECT * FROM audit_records WHERE seq < $1 ORDER BY seq DESC LIMIT $2', [before, options.limit + 1]);
+    return auditPage(r.rows as Row[], options.limit);
+  }
 }
 
 /** Where a value goes into a statement. */
@@ -706,6 +772,7 @@ function whereClause(p: Placeholders, datasetId: string, q: ObservationQuery): {
   }
   if (q.from !== undefined) parts.push(`o.observed_at >= ${p.add(q.from)}`);
   if (q.to !== undefined) parts.push(`o.observed_at < ${p.add(q.to)}`);
+  if (q.untimed === true) parts.push('o.observed_at IS NULL');
   const matches = whereMatches(q.where);
   let from = 'observations o';
   if (matches.length > 0) {

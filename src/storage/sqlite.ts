@@ -7,6 +7,8 @@
 import { isAscii } from 'node:buffer';
 import Database from 'better-sqlite3';
 import type {
+  ApiKey,
+  AuditPage,
   Dataset,
   DatasetPatch,
   FeatureTexts,
@@ -14,6 +16,8 @@ import type {
   IngestResult,
   InterruptedRunFilter,
   ListObservationsOptions,
+  NewApiKey,
+  NewAuditRecord,
   NewDataset,
   NewRun,
   ObservationPage,
@@ -32,8 +36,12 @@ import type {
 } from './store.js';
 import { RUN_LAYERS, StoreError } from './store.js';
 import {
+  auditPage,
   batchIds,
   canBeDatasetId,
+  checkAuditRecord,
+  checkNewKey,
+  keyFromRow,
   checkDatasetFields,
   checkDatasetId,
   plainText,
@@ -232,8 +240,10 @@ export class SqliteStore implements Store {
     return this.db.prepare('DELETE FROM observations WHERE dataset_id = ? AND obs_id = ?').run(datasetId, id).changes > 0;
   }
 
-  async countObservations(datasetId: string): Promise<number> {
-    return this.db.prepare('SELECT count(*) FROM observations WHERE dataset_id = ?').pluck().get(datasetId) as number;
+  async countObservations(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<number> {
+    checkQuery(query);
+    const { clause, args } = whereClause(datasetId, query);
+    return this.db.prepare(`SELECT count(*) FROM observations WHERE ${clause}`).pluck().get(...args) as number;
   }
 
   async loadForRun(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<RunInput> {
@@ -584,6 +594,56 @@ export class SqliteStore implements Store {
     });
     return tx.immediate();
   }
+
+  // -------------------------------------------------------- keys and audit
+
+  async createKey(k: NewApiKey): Promise<ApiKey> {
+    checkNewKey(k);
+    try {
+      this.db
+        .prepare('INSERT INTO api_keys (id, token_hash, role, dataset_id, label, created_at) VALUES (?, ?, ?, ?, ?, ?)')
+        .run(k.id, k.tokenHash, k.role, k.datasetId, k.label, nowIso());
+    } catch (e) {
+      const code = (e as { code?: string }).code;
+      if (code === 'SQLITE_CONSTRAINT_FOREIGNKEY') throw notFoundDataset(k.datasetId ?? '');
+      if (code === 'SQLITE_CONSTRAINT_UNIQUE') throw new StoreError('conflict', `a key with id ${JSON.stringify(k.id)} or the same token is already stored`);
+      throw e;
+    }
+    return keyFromRow(this.db.prepare('SELECT * FROM api_keys WHERE id = ?').get(k.id) as Row);
+  }
+
+  async findKey(tokenHash: string): Promise<ApiKey | null> {
+    const row = this.db.prepare('SELECT * FROM api_keys WHERE token_hash = ? AND revoked_at IS NULL').get(tokenHash) as Row | undefined;
+    return row === undefined ? null : keyFromRow(row);
+  }
+
+  async listKeys(): Promise<ApiKey[]> {
+    return (this.db.prepare('SELECT * FROM api_keys ORDER BY seq').all() as Row[]).map(keyFromRow);
+  }
+
+  async revokeKey(id: string): Promise<ApiKey | null> {
+    this.db.prepare('UPDATE api_keys SET revoked_at = ? WHERE id = ? AND revoked_at IS NULL').run(nowIso(), id);
+    const row = this.db.prepare('SELECT * FROM api_keys WHERE id = ?').get(id) as Row | undefined;
+    return row === undefined ? null : keyFromRow(row);
+  }
+
+  async countKeys(): Promise<number> {
+    return this.db.prepare('SELECT count(*) FROM api_keys WHERE revoked_at IS NULL').pluck().get() as number;
+  }
+
+  async appendAudit(r: NewAuditRecord): Promise<void> {
+    checkAuditRecord(r);
+    this.db
+      .prepare('INSERT INTO audit_records (at, key_id, actor, action, dataset_id, target, status) VALUES (?, ?, ?, ?, ?, ?, ?)')
+      .run(nowIso(), r.keyId, r.actor, r.action, r.datasetId, r.target, r.status);
+  }
+
+  async listAudit(options: { limit: number; cursor?: string }): Promise<AuditPage> {
+    checkLimit(options.limit);
+    const before = options.cursor === undefined ? Number.MAX_SAFE_INTEGER : decodeCursor(options.cursor);
+    const rows = this.db.prepare('SELECT * FROM audit_records WHERE seq < ? ORDER BY seq DESC LIMIT ?').all(before, options.limit + 1) as Row[];
+    return auditPage(rows, options.limit);
+  }
 }
 
 /**
@@ -671,6 +731,7 @@ function whereClause(datasetId: string, q: ObservationQuery): { clause: string; 
     parts.push('observed_at < ?');
     args.push(q.to);
   }
+  if (q.untimed === true) parts.push('observed_at IS NULL');
   for (const m of whereMatches(q.where)) {
     const path = jsonPathLabel(m.property);
     // `->` gives the value's JSON text (its first character tells the type), `->>` its SQL value.

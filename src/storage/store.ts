@@ -162,6 +162,8 @@ export interface ObservationQuery {
   /** epoch ms, exclusive */
   to?: number;
   where?: WhereCondition[];
+  /** only observations without a time (from and to must then be absent) */
+  untimed?: boolean;
 }
 
 export interface ListObservationsOptions extends ObservationQuery {
@@ -306,6 +308,60 @@ export interface InterruptedRunFilter {
   staleMs?: number;
 }
 
+/** An API key's role (see src/auth/roles.ts). */
+export type KeyRole = 'reader' | 'contributor' | 'manager' | 'admin';
+
+export interface NewApiKey {
+  /** `k_` and 12 hex digits */
+  id: string;
+  /** SHA-256 of the token, lower-case hex; the token itself is never stored */
+  tokenHash: string;
+  role: KeyRole;
+  /** the one dataset the key may act on (it must exist); null: any */
+  datasetId: string | null;
+  /** who or what the key is for, free text up to 200 characters */
+  label: string | null;
+}
+
+/** A stored key as listings show it (never with its hash). */
+export interface ApiKey {
+  id: string;
+  role: KeyRole;
+  datasetId: string | null;
+  label: string | null;
+  /** RFC 3339 */
+  createdAt: string;
+  /** RFC 3339, null while the key is in force */
+  revokedAt: string | null;
+}
+
+/** One change or deletion, for the audit records. */
+export interface NewAuditRecord {
+  /** the key that made it; null in open mode or from the command line */
+  keyId: string | null;
+  /** 'key', 'open' (no key in the store) or 'command' (the roost command line) */
+  actor: 'key' | 'open' | 'command';
+  /** what was done: the HTTP method and route (`DELETE /v1/datasets/{id}`) or a command */
+  action: string;
+  /** the dataset it concerned, if any */
+  datasetId: string | null;
+  /** the resource (observation id, run id, key id), if any */
+  target: string | null;
+  /** the HTTP status answered (0 for commands) */
+  status: number;
+}
+
+export interface AuditRecord extends NewAuditRecord {
+  /** RFC 3339 */
+  at: string;
+}
+
+export interface AuditPage {
+  /** newest first */
+  records: AuditRecord[];
+  nextCursor: string | null;
+}
+
 export interface Store {
   /** 'sqlite' or 'postgres' */
   readonly engine: 'sqlite' | 'postgres';
@@ -331,7 +387,8 @@ export interface Store {
   listObservations(datasetId: string, options: ListObservationsOptions): Promise<ObservationPage>;
   /** Removes one observation (a retraction). @returns false when it was not stored */
   deleteObservation(datasetId: string, id: string): Promise<boolean>;
-  countObservations(datasetId: string): Promise<number>;
+  /** Observations of a dataset, all of them or those matching a query (for example `{ untimed: true }`). */
+  countObservations(datasetId: string, query?: Omit<ObservationQuery, 'bbox'>): Promise<number>;
   /** The matching observations as columns, in insertion order. */
   loadForRun(datasetId: string, query?: Omit<ObservationQuery, 'bbox'>): Promise<RunInput>;
   /** Positions of the given observations (for example a run's core members); unknown ids are left out. */
@@ -403,4 +460,22 @@ export interface Store {
    * @throws StoreError 'not-found' for an unknown dataset, 'invalid' for a bad count
    */
   reserveTrackNumbers(datasetId: string, count: number): Promise<number>;
+
+  /**
+   * Stores a new API key. @throws StoreError 'conflict' for an id or hash already stored,
+   * 'not-found' when the dataset does not exist, 'invalid' for a bad role, id, hash or label
+   */
+  createKey(k: NewApiKey): Promise<ApiKey>;
+  /** The key in force whose token has this hash; null when none (unknown or revoked). */
+  findKey(tokenHash: string): Promise<ApiKey | null>;
+  /** Every key, in force or revoked, oldest first. Keys of a deleted dataset are deleted with it. */
+  listKeys(): Promise<ApiKey[]>;
+  /** Revokes a key (it stays listed, with revokedAt). @returns the key, null when there is no such key */
+  revokeKey(id: string): Promise<ApiKey | null>;
+  /** How many keys are in force. */
+  countKeys(): Promise<number>;
+  /** Appends an audit record. */
+  appendAudit(r: NewAuditRecord): Promise<void>;
+  /** Audit records, newest first. @throws StoreError 'invalid' for a bad cursor or limit */
+  listAudit(options: { limit: number; cursor?: string }): Promise<AuditPage>;
 }

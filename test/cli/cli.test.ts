@@ -208,7 +208,19 @@ describe('the compiled command', () => {
     expect(s.status).toBe(0);
     const answer = JSON.parse(s.stdout);
     expect(answer.k).toBe(9);
-    expect(answer.eps_meters).toBeGreaterThan(10);
+    expect(answer.eps_m).toBeGreaterThan(10);
     expect(answer.curve.meters.length).toBe(answer.curve.rank.length);
+  });
+
+  it('says once, in plain words, when the k-distance curve has no knee', { timeout: 60_000 }, () => {
+    const three = JSON.stringify({
+      type: 'FeatureCollection',
+      features: [[8, 47], [8.001, 47], [8, 47.001]].map((c) => ({ type: 'Feature', geometry: { type: 'Point', coordinates: c }, properties: {} })),
+    });
+    const s = spawnSync(process.execPath, [BIN, 'suggest-eps', '-', '--min-points', '5'], { input: three, encoding: 'utf8' });
+    expect(s.status).toBe(0);
+    const lines = s.stdout.split('\n');
+    expect(lines[1]).toBe('No knee found: 3 points are too few for a 4-distance curve; add points or lower min_points below 4.');
+    expect(s.stdout.match(/no knee found/gi)).toHaveLength(1);
   });
 });

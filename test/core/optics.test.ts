@@ -324,22 +324,30 @@ describe('extractXi', () => {
     }
   });
 
-  it('labels each point with its innermost cluster, numbered by lowest point id, with consistent roles', () => {
+  it('labels the leaf clusters only, leaving points of a parent in none of its children as noise, numbered by lowest point id', () => {
     const { p } = nestedSet(8);
     const res = optics(p, { maxEpsMeters: 3000, minPoints: 10 });
     const { clustering, clusters } = extractXi(res, { xi: 0.05 });
     const pos = new Int32Array(p.n);
     res.order.forEach((id, k) => (pos[id] = k));
+    const inside = (a: { start: number; end: number }, b: { start: number; end: number }): boolean => a !== b && a.start >= b.start && a.end <= b.end;
+    // the set has a parent (the dense core inside its looser patch), so there is something to leave out
+    expect(clusters.some((c) => clusters.some((d) => inside(d, c)))).toBe(true);
+    for (const c of clusters) {
+      // source: scikit-learn `_extract_xi_labels`: a ξ cluster is labelled only when none of its
+      // points is already labelled by a shorter one, i.e. it holds no other ξ cluster
+      const isLeaf = !clusters.some((d) => inside(d, c));
+      expect(c.label >= 0).toBe(isLeaf);
+    }
+    let leftover = 0;
     for (let i = 0; i < p.n; i++) {
-      let best: { start: number; end: number; label: number } | null = null;
-      for (const c of clusters) {
-        if (pos[i] < c.start || pos[i] > c.end) continue;
-        if (!best || c.end - c.start < best.end - best.start) best = c;
-      }
-      expect(clustering.labels[i]).toBe(best ? best.label : -1);
+      const leaf = clusters.find((c) => c.label >= 0 && pos[i] >= c.start && pos[i] <= c.end);
+      expect(clustering.labels[i]).toBe(leaf ? leaf.label : -1);
+      if (!leaf && clusters.some((c) => pos[i] >= c.start && pos[i] <= c.end)) leftover++;
       const role = clustering.labels[i] < 0 ? ROLE_NOISE : res.coreDistance[i] < Infinity ? ROLE_CORE : ROLE_BORDER;
       expect(clustering.roles[i]).toBe(role);
     }
+    expect(leftover).toBeGreaterThan(0);
     // labels 0..count-1 first appear in increasing point id
     let next = 0;
     for (let i = 0; i < p.n; i++) {

@@ -132,7 +132,7 @@ describe('clarkEvans', () => {
     expect(ce.R).toBeCloseTo(2, 4);
     expect(ce.observedMeanMeters).toBeCloseTo(a, 2);
     expect(ce.expectedMeanMeters).toBeCloseTo(a / 2, 6);
-    expect(ce.reading).toBe('dispersed');
+    expect(ce.pattern).toBe('evenly-spaced');
     expect(ce.z).toBeGreaterThan(1.96);
   });
 
@@ -179,7 +179,7 @@ describe('clarkEvans', () => {
     const ce = clarkEvans(nearestNeighbourMeters(p), areaKm2);
     expect(ce.R).toBeLessThan(1);
     expect(ce.z).toBeLessThan(-1.96);
-    expect(ce.reading).toBe('clustered');
+    expect(ce.pattern).toBe('aggregated');
     expect(ce.n).toBe(p.n);
     expect(ce.studyAreaKm2).toBe(areaKm2);
   });
@@ -191,14 +191,14 @@ describe('clarkEvans', () => {
     const same = clarkEvans(Float64Array.of(1, 1, 1, 1), areaKm2);
     expect(same.R).toBeCloseTo(1, 12);
     expect(same.z).toBeCloseTo(0, 9);
-    expect(same.reading).toBe('random-like');
+    expect(same.pattern).toBe('random');
     const closer = clarkEvans(Float64Array.of(0.5, 0.5, 0.5, 0.5), areaKm2);
     expect(closer.R).toBeCloseTo(0.5, 12);
     expect(closer.z).toBeCloseTo(-0.5 / 0.26136, 9); // −1.913: not beyond 1.96
-    expect(closer.reading).toBe('random-like');
+    expect(closer.pattern).toBe('random');
     const closest = clarkEvans(Float64Array.of(0.4, 0.4, 0.4, 0.4), areaKm2);
     expect(closest.z).toBeCloseTo(-0.6 / 0.26136, 9); // −2.296
-    expect(closest.reading).toBe('clustered');
+    expect(closest.pattern).toBe('aggregated');
   });
 
   it('rejects too few observations, a non-positive area and missing distances', () => {

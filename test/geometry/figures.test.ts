@@ -150,6 +150,10 @@ describe('resultFigures', () => {
       noiseShare: 0.4,
       totalWeight: 7.5,
       clarkEvans: null,
+      clarkEvansNotComputed: 'there is no study area: none was given',
+      sharedPositions: 0,
+      distinctPositions: 5,
+      clarkEvansDistinct: null,
     });
   });
 
@@ -171,7 +175,47 @@ describe('resultFigures', () => {
   it('leaves Clark–Evans out with fewer than two observations, and gives zero shares for none', () => {
     const one = resultFigures(pointSet([1], [1]), clustering([-1], [0], 0), { studyAreaKm2: 10 });
     expect(one.clarkEvans).toBeNull();
+    expect(one.clarkEvansNotComputed).toBe('it needs at least 2 observations, and there is 1');
+    const far = resultFigures(pointSet([1, 2, 3], [1, 2, 1]), clustering([-1, -1, -1], [0, 0, 0], 0), { studyAreaKm2: null, studyAreaProblem: 'the hull could not be drawn' });
+    expect(far.clarkEvansNotComputed).toBe('there is no study area: the hull could not be drawn');
     const none = resultFigures(pointSet([], []), clustering([], [], 0), { studyAreaKm2: 10 });
     expect(none).toMatchObject({ observations: 0, clusteredShare: 0, noiseShare: 0, totalWeight: 0, clarkEvans: null });
   });
+
+  it('counts observations that share a position and runs Clark–Evans over the distinct positions too', () => {
+    // A 30 × 30 square lattice of spacing a, every position observed twice (as when addresses are
+    // geocoded to one point per building): over all observations every nearest neighbour is at 0,
+    // so R = 0 whatever the places' pattern; over the distinct positions the lattice shows.
+    const a = 200;
+    const side = 30;
+    const step = (a / EARTH_RADIUS_M) / RAD;
+    const lon: number[] = [];
+    const lat: number[] = [];
+    for (let r = 0; r < side; r++) {
+      for (let c = 0; c < side; c++) {
+        for (let copy = 0; copy < 2; copy++) {
+          lon.push(10 + c * step);
+          lat.push(r * step);
+        }
+      }
+    }
+    const p = pointSet(lon, lat);
+    const labels = new Int32Array(p.n).fill(-1);
+    const areaKm2 = (side * side * a * a) / 1e6;
+    const f = resultFigures(p, { labels, roles: new Uint8Array(p.n), count: 0 }, { studyAreaKm2: areaKm2 });
+    expect(f.sharedPositions).toBe(p.n);
+    expect(f.distinctPositions).toBe(side * side);
+    expect(f.clarkEvans?.R).toBe(0);
+    // source: Clark & Evans 1954, r̄_E = 1/(2√ρ) with ρ = 1/a² gives R = 2 for a square lattice
+    // (the lattice is 6 km across near the equator, where the ground spacing stays a within 0.01 %)
+    expect(f.clarkEvansDistinct?.R).toBeCloseTo(2, 3);
+    expect(f.clarkEvansDistinct?.pattern).toBe('evenly-spaced');
+    expect(f.clarkEvansDistinct?.n).toBe(side * side);
+    // without shared positions there is no second test
+    const once = resultFigures(pointSet(lon.filter((_, i) => i % 2 === 0), lat.filter((_, i) => i % 2 === 0)), { labels: labels.subarray(0, side * side), roles: new Uint8Array(side * side), count: 0 }, { studyAreaKm2: areaKm2 });
+    expect(once.sharedPositions).toBe(0);
+    expect(once.clarkEvansDistinct).toBeNull();
+    expect(once.clarkEvans?.R).toBeCloseTo(2, 3);
+  });
 });
+

@@ -43,7 +43,8 @@ function stop(server: Server): Promise<void> {
 }
 
 const SECRET = 'correct horse battery staple';
-const FAST = { firstDelayMs: 30, maxDelayMs: 1000, attempts: 4, timeoutMs: 2000 };
+/** the receivers here listen on loopback, which only private webhooks may reach */
+const FAST = { firstDelayMs: 30, maxDelayMs: 1000, attempts: 4, timeoutMs: 2000, allowPrivate: true };
 
 /** The receiver side, written from the documentation alone (not with verifySignature). */
 function receiverAccepts(secret: string, raw: string, header: string): boolean {
@@ -73,7 +74,7 @@ describe('signatures', () => {
   it('refuses unusable retry settings', () => {
     expect(() => resolveWebhookSettings({ attempts: 0 })).toThrow(/attempts/);
     expect(() => resolveWebhookSettings({ timeoutMs: 1.5 })).toThrow(/timeoutMs/);
-    expect(resolveWebhookSettings({})).toEqual({ attempts: 5, firstDelayMs: 2000, maxDelayMs: 60000, timeoutMs: 10000 });
+    expect(resolveWebhookSettings({})).toEqual({ attempts: 5, firstDelayMs: 2000, maxDelayMs: 60000, timeoutMs: 10000, allowPrivate: false });
   });
 });
 
@@ -133,13 +134,13 @@ describe('delivery', () => {
     await new Promise<void>((resolve) => silent.listen(0, '127.0.0.1', resolve));
     servers.push(silent);
     const port = (silent.address() as AddressInfo).port;
-    const slow = await deliverNotice({ url: `http://127.0.0.1:${port}/`, secret: SECRET }, '{}', { attempts: 2, firstDelayMs: 1, maxDelayMs: 1, timeoutMs: 100 });
+    const slow = await deliverNotice({ url: `http://127.0.0.1:${port}/`, secret: SECRET }, '{}', { attempts: 2, firstDelayMs: 1, maxDelayMs: 1, timeoutMs: 100, allowPrivate: true });
     expect(slow).toEqual({ delivered: false, attempts: 2, status: null, error: 'no answer within 100 ms' });
     const closed = createServer();
     await new Promise<void>((resolve) => closed.listen(0, '127.0.0.1', resolve));
     const gonePort = (closed.address() as AddressInfo).port;
     await new Promise((r) => closed.close(r));
-    const gone = await deliverNotice({ url: `http://127.0.0.1:${gonePort}/`, secret: SECRET }, '{}', { attempts: 2, firstDelayMs: 1, maxDelayMs: 1, timeoutMs: 1000 });
+    const gone = await deliverNotice({ url: `http://127.0.0.1:${gonePort}/`, secret: SECRET }, '{}', { attempts: 2, firstDelayMs: 1, maxDelayMs: 1, timeoutMs: 1000, allowPrivate: true });
     expect(gone).toMatchObject({ delivered: false, attempts: 2, status: null });
     expect(gone.error).toMatch(/ECONNREFUSED/);
   });
@@ -223,7 +224,7 @@ describe('notices after stored runs', () => {
     let firstFailed!: () => void;
     const waiting = new Promise<void>((res) => (firstFailed = res));
     const hooks = createRoostHooks({
-      webhook: { attempts: 5, firstDelayMs: 60_000, maxDelayMs: 60_000, timeoutMs: 1000 },
+      webhook: { attempts: 5, firstDelayMs: 60_000, maxDelayMs: 60_000, timeoutMs: 1000, allowPrivate: true },
       onNotice: (_id, rep) => reports.push(rep),
       onAttempt: () => firstFailed(),
     });

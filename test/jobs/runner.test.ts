@@ -46,6 +46,18 @@ describe('time windows', () => {
     for (const bad of ['P', 'PT', '30D', 'P1.5D', 'P-1D', 'P30d']) expect(windowProblem(bad), bad).not.toBeNull();
   });
 
+  it('clamps a day the target month does not have to its last day', () => {
+    // source: TC39 Temporal, PlainDate.prototype.subtract with overflow "constrain" (the default):
+    // 2026-03-31 minus one month is 2026-02-28; 2024-02-29 minus one year is 2023-02-28 (from memory)
+    expect(new Date(windowStart('P1M', Date.parse('2026-03-31T12:00:00Z'))).toISOString()).toBe('2026-02-28T12:00:00.000Z');
+    expect(new Date(windowStart('P1M', Date.parse('2024-03-31T00:00:00Z'))).toISOString()).toBe('2024-02-29T00:00:00.000Z');
+    expect(new Date(windowStart('P1Y', Date.parse('2024-02-29T06:00:00Z'))).toISOString()).toBe('2023-02-28T06:00:00.000Z');
+    expect(new Date(windowStart('P3M', Date.parse('2026-05-31T00:00:00Z'))).toISOString()).toBe('2026-02-28T00:00:00.000Z');
+    expect(new Date(windowStart('P1M', Date.parse('2026-01-31T00:00:00Z'))).toISOString()).toBe('2025-12-31T00:00:00.000Z');
+    expect(new Date(windowStart('P1Y2M', Date.parse('2026-04-30T00:00:00Z'))).toISOString()).toBe('2025-02-28T00:00:00.000Z');
+    expect(new Date(windowStart('P1M1D', Date.parse('2026-03-31T00:00:00Z'))).toISOString()).toBe('2026-02-27T00:00:00.000Z');
+  });
+
   it('narrows the window with since, until and where', () => {
     const created = Date.parse('2026-05-01T00:00:00Z');
     const s = resolveSettings({ eps: 10, since: '2026-04-20T00:00:00Z', where: 'plant=balsam' });

@@ -67,4 +67,11 @@ describe('resolveSettings', () => {
     expect(resolveSettings(rec as Record<string, unknown>)).toEqual(s);
     expect(DEFAULT_SETTINGS.minPoints).toBe(5);
   });
+
+  it('takes a time column and a time format, refusing a format it cannot read', () => {
+    const s = resolveSettings({ eps: 10, time_column: 'Datum', time_format: 'DD.MM.YYYY' });
+    expect(s.timeColumn).toBe('Datum');
+    expect(s.timeFormat).toBe('DD.MM.YYYY');
+    expect(() => resolveSettings({ eps: 10, time_format: 'dd.mm.yyyy' })).toThrow(/^time_format: "dd\.mm\.yyyy" has an unknown letter "d"/);
+  });
 });

@@ -301,6 +301,19 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(await all(store, 'herons', { from: edge.observedAt! - 1, to: edge.observedAt!, limit: 10 })).not.toContain(edge.feature);
       });
 
+      it('counts all observations, those without a time, and those matching conditions', async () => {
+        expect(await store.countObservations('herons')).toBe(recs.length);
+        const untimed = recs.filter((r) => r.observedAt === null);
+        expect(untimed.length).toBeGreaterThan(0);
+        expect(await store.countObservations('herons', { untimed: true })).toBe(untimed.length);
+        const from = T0 + 5 * DAY_MS;
+        expect(await store.countObservations('herons', { from })).toBe(recs.filter((r) => r.observedAt !== null && r.observedAt >= from).length);
+        const species = JSON.parse(untimed[0]!.feature).properties.species as string;
+        const want = untimed.filter((r) => JSON.parse(r.feature).properties.species === species).length;
+        expect(await store.countObservations('herons', { untimed: true, where: [{ property: 'species', value: species }] })).toBe(want);
+        await rejects(store.countObservations('herons', { untimed: true, from }), 'invalid');
+      });
+
       it('filters by property values the way the file filter does', async () => {
         const conditions: [string, string][] = [['species', 'heron'], ['count', '2'], ['count', '2.5'], ['count', '2.50'], ['count', '02'], ['seen', 'true'], ['seen', 'false'], ['note', 'null'], ['note', 'ok'], ['missing', 'x']];
         for (const [property, value] of conditions) {
@@ -630,6 +643,68 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         await rejects(claim(store, 'herons', '2024-05-04T00:00:00Z', [] as unknown as Record<string, unknown>), 'invalid');
         await rejects(claim(store, 'herons', 'tonight'), 'invalid');
         expect(await claim(store, 'herons', '2024-05-04T00:00:00Z')).not.toBeNull();
+      });
+    });
+
+    describe('keys and audit records', () => {
+      const hash = (n: number): string => n.toString(16).padStart(64, '0');
+      it('store a key by its hash only, find it until revoked, and count keys in force', async () => {
+        expect(await store.countKeys()).toBe(0);
+        const k = await store.createKey({ id: 'k_00000000000a', tokenHash: hash(1), role: 'admin', datasetId: null, label: 'first admin' });
+        expect(k).toMatchObject({ id: 'k_00000000000a', role: 'admin', datasetId: null, label: 'first admin', revokedAt: null });
+        expect(Object.keys(k).sort()).toEqual(['createdAt', 'datasetId', 'id', 'label', 'revokedAt', 'role']);
+        expect(await store.findKey(hash(1))).toEqual(k);
+        expect(await store.findKey(hash(2))).toBeNull();
+        // another store (process or instance) sees the same keys
+        const other = await open();
+        expect(await other.findKey(hash(1))).toEqual(k);
+        expect(await other.countKeys()).toBe(1);
+        const revoked = await other.revokeKey(k.id);
+        expect(revoked?.revokedAt).not.toBeNull();
+        expect(await store.findKey(hash(1))).toBeNull();
+        expect(await store.countKeys()).toBe(0);
+        // revoking again keeps the first time; an unknown id is null
+        expect((await store.revokeKey(k.id))?.revokedAt).toBe(revoked?.revokedAt);
+        expect(await store.revokeKey('k_0000000000ff')).toBeNull();
+        expect((await store.listKeys()).map((x) => x.id)).toEqual([k.id]);
+      });
+
+      it('refuse a duplicate id or token, an unknown dataset and bad fields', async () => {
+        await store.createDataset(DS);
+        await store.createKey({ id: 'k_000000000001', tokenHash: hash(1), role: 'reader', datasetId: 'herons', label: null });
+        await rejects(store.createKey({ id: 'k_000000000001', tokenHash: hash(2), role: 'reader', datasetId: null, label: null }), 'conflict');
+        await rejects(store.createKey({ id: 'k_000000000002', tokenHash: hash(1), role: 'reader', datasetId: null, label: null }), 'conflict');
+        await rejects(store.createKey({ id: 'k_000000000003', tokenHash: hash(3), role: 'reader', datasetId: 'nope', label: null }), 'not-found');
+        await rejects(store.createKey({ id: 'k_000000000004', tokenHash: hash(4), role: 'owner' as never, datasetId: null, label: null }), 'invalid');
+        await rejects(store.createKey({ id: 'key-5', tokenHash: hash(5), role: 'reader', datasetId: null, label: null }), 'invalid');
+        await rejects(store.createKey({ id: 'k_000000000006', tokenHash: 'not-a-hash', role: 'reader', datasetId: null, label: null }), 'invalid');
+        expect((await store.listKeys()).map((k) => k.id)).toEqual(['k_000000000001']);
+      });
+
+      it('delete a dataset-limited key with its dataset, so a new dataset of that id does not inherit it', async () => {
+        await store.createDataset(DS);
+        await store.createKey({ id: 'k_000000000001', tokenHash: hash(1), role: 'manager', datasetId: 'herons', label: null });
+        await store.createKey({ id: 'k_000000000002', tokenHash: hash(2), role: 'admin', datasetId: null, label: null });
+        expect(await store.deleteDataset('herons')).toBe(true);
+        await store.createDataset(DS);
+        expect(await store.findKey(hash(1))).toBeNull();
+        expect((await store.listKeys()).map((k) => k.id)).toEqual(['k_000000000002']);
+      });
+
+      it('keep audit records newest first, in pages', async () => {
+        for (let i = 0; i < 5; i++) {
+          await store.appendAudit({ keyId: i % 2 === 0 ? 'k_000000000001' : null, actor: i % 2 === 0 ? 'key' : 'open', action: `POST /x/${i}`, datasetId: i === 0 ? null : 'herons', target: null, status: 200 + i });
+        }
+        const first = await store.listAudit({ limit: 2 });
+        expect(first.records.map((r) => r.action)).toEqual(['POST /x/4', 'POST /x/3']);
+        expect(first.records[0]).toMatchObject({ keyId: 'k_000000000001', actor: 'key', datasetId: 'herons', target: null, status: 204 });
+        expect(Number.isNaN(Date.parse(first.records[0]!.at))).toBe(false);
+        const second = await store.listAudit({ limit: 2, cursor: first.nextCursor! });
+        const third = await store.listAudit({ limit: 2, cursor: second.nextCursor! });
+        expect([...second.records, ...third.records].map((r) => r.action)).toEqual(['POST /x/2', 'POST /x/1', 'POST /x/0']);
+        expect(third.nextCursor).toBeNull();
+        await rejects(store.listAudit({ limit: 2, cursor: 'bogus' }), 'invalid');
+        await rejects(store.appendAudit({ keyId: null, actor: 'someone' as never, action: 'x', datasetId: null, target: null, status: 0 }), 'invalid');
       });
     });
 
