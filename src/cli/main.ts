@@ -9,7 +9,8 @@
 import { readFile } from 'node:fs/promises';
 import { Command, Option } from 'commander';
 import { InputError } from '../ingest/types.js';
-import { clusterInput, LAYER_NAMES, suggestEpsInput, type InputFormat, type Stage } from '../run/cluster.js';
+import { clusterInput, suggestEpsInput, type InputFormat, type Stage } from '../run/cluster.js';
+import { LAYER_NAMES } from '../run/layers.js';
 import { resolveSettings, SettingsError } from '../run/settings.js';
 import { publishedSummary, publishLayerTexts, PublishError, resolvePublishOptions, type PublishOptions } from '../publish/publish.js';
 import { ROOST_VERSION } from '../run/version.js';

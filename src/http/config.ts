@@ -3,6 +3,7 @@
  * command-line flags. Bad values are rejected here, before anything listens.
  */
 import { availableParallelism } from 'node:os';
+import { DEFAULT_SQLITE_PATH } from '../storage/defaults.js';
 
 export interface ServerConfig {
   /** TCP port to listen on; 0 picks a free port */
@@ -69,7 +70,7 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   maxEventLoopDelayMs: 1_000,
   retryAfterS: 5,
   logLevel: 'info',
-  dbPath: 'roost.db',
+  dbPath: DEFAULT_SQLITE_PATH,
   databaseUrl: '',
   // one run at a time leaves the other core to requests on a 2-core machine
   runConcurrency: 1,

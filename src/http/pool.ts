@@ -1,9 +1,9 @@
 /**
  * The pool of worker threads that does the heavy work, with a bounded queue and cancellation.
- * Runs the compiled worker (dist/http/worker.js) in production and the TypeScript source
- * through tsx when the service itself runs from source (tests, `tsx src/cli/main.ts serve`).
+ * Its threads start from the shared worker entry (src/workers/entry.ts).
  */
 import { Piscina } from 'piscina';
+import { workerEntry } from '../workers/location.js';
 import type { WorkResult, WorkTask } from './work.js';
 
 export interface WorkPool {
@@ -37,15 +37,6 @@ export interface WorkPoolOptions {
   workers: number;
   /** tasks that may wait for a worker, at least 0 */
   queueSize: number;
-}
-
-/** Where the worker module is and how to start it, depending on whether this file is compiled. */
-function workerEntry(): { filename: string; execArgv: string[] | undefined } {
-  const here = import.meta.url;
-  if (/\.ts$/.test(new URL(here).pathname)) {
-    return { filename: new URL('./worker.ts', here).href, execArgv: ['--import', 'tsx'] };
-  }
-  return { filename: new URL('./worker.js', here).href, execArgv: undefined };
 }
 
 /** Starts `options.workers` threads at once, so the first request does not pay their start-up. */

@@ -2,14 +2,12 @@
  * What the main thread sends to a worker and what comes back. Bodies travel as transferred
  * bytes both ways, so neither side copies or re-parses the other's data.
  */
+import type { LayerName } from '../run/layers.js';
 import type { ProblemCode } from './errors.js';
 
 /** Input formats, named as the clustering pipeline names them. */
 export type BodyFormat = 'geojson' | 'csv' | 'geojson-seq';
 
-/** The layers `?layer=` can pick from a clustering result. */
-export const LAYERS = ['hotspots', 'centres', 'noise', 'points'] as const;
-export type Layer = (typeof LAYERS)[number];
 
 export interface WorkTask {
   op: 'cluster' | 'k-distance';
@@ -19,7 +17,7 @@ export interface WorkTask {
   /** settings from the query string, as the client wrote them (strings or string arrays) */
   query: Record<string, unknown>;
   /** for `cluster`: one layer alone, or null for the whole result document */
-  layer: Layer | null;
+  layer: LayerName | null;
 }
 
 /** Success: the response body, ready to send, with its media type. */

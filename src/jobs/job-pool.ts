@@ -1,9 +1,10 @@
 /**
  * The threads that do the heavy work of stored datasets (src/jobs/job-worker.ts): one per
  * concurrent run plus one, so that reading a posted batch never waits behind a long run.
- * Runs the compiled worker in production and the TypeScript source through tsx otherwise.
+ * Its threads start from the shared worker entry (src/workers/entry.ts).
  */
 import { Piscina } from 'piscina';
+import { workerEntry } from '../workers/location.js';
 import type { JobTask, RecordsOutcome, RecordsTask, RunOutcomeMessage, RunTask } from './job-worker.js';
 
 export interface JobPool {
@@ -12,12 +13,6 @@ export interface JobPool {
   /** Executes a claimed run in a worker; aborting `signal` ends the worker thread at once. */
   run(task: Omit<RunTask, 'op'>, signal: AbortSignal): Promise<RunOutcomeMessage>;
   close(): Promise<void>;
-}
-
-function workerEntry(): { filename: string; execArgv: string[] | undefined } {
-  const here = import.meta.url;
-  if (/\.ts$/.test(new URL(here).pathname)) return { filename: new URL('./job-worker.ts', here).href, execArgv: ['--import', 'tsx'] };
-  return { filename: new URL('./job-worker.js', here).href, execArgv: undefined };
 }
 
 /** A pool of `runs + 1` threads, started on first use and stopped after a minute idle. */

@@ -29,6 +29,7 @@ import type { InputFeature, Observations } from '../ingest/types.js';
 import { CAUTIONS } from './cautions.js';
 import { SettingsError, settingsRecord, type ClusterSettings } from './settings.js';
 import { ROOST_VERSION } from './version.js';
+import type { LayerName } from './layers.js';
 
 export type { InputFormat };
 
@@ -86,8 +87,6 @@ export class Layer {
   }
 }
 
-export const LAYER_NAMES = ['hotspots', 'centres', 'noise', 'points'] as const;
-export type LayerName = (typeof LAYER_NAMES)[number];
 
 /** One hotspot of a result, for callers that store or track hotspots (not only write files). */
 export interface ResultHotspot {

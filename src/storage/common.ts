@@ -19,13 +19,13 @@ import type {
   ObservationQuery,
   ObservationRecord,
   RunInput,
-  RunLayer,
   RunPatch,
   RunResult,
   RunStatus,
   WhereCondition,
 } from './store.js';
-import { RUN_LAYERS, RUN_STATUSES, RUN_TRIGGERS, StoreError } from './store.js';
+import { LAYER_NAMES, type LayerName } from '../run/layers.js';
+import { RUN_STATUSES, RUN_TRIGGERS, StoreError } from './store.js';
 import { contentProblem, textFault } from '../ingest/limits.js';
 
 /** A new dataset's id: URL-safe, starting with a letter or digit (so never "." or ".."). */
@@ -312,9 +312,9 @@ export function cutText(text: string, size = LAYER_PIECE_CHARS): string[] {
 }
 
 /** A result's layers as the pieces to store. @throws StoreError 'invalid' when a layer is not text */
-export function layerPieces(result: RunResult): Record<RunLayer, string[]> {
-  const out = {} as Record<RunLayer, string[]>;
-  for (const layer of RUN_LAYERS) {
+export function layerPieces(result: RunResult): Record<LayerName, string[]> {
+  const out = {} as Record<LayerName, string[]>;
+  for (const layer of LAYER_NAMES) {
     const v = result.layers?.[layer] as unknown;
     if (typeof v === 'string') out[layer] = cutText(v);
     else if (Array.isArray(v) && v.length > 0 && v.every((x) => typeof x === 'string')) out[layer] = [...(v as string[])];

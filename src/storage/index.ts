@@ -2,6 +2,7 @@
  * Choosing and opening the store: `DATABASE_URL` starting with postgres:// or postgresql:// selects
  * PostgreSQL; anything else (or nothing) the SQLite file at `sqlitePath`.
  */
+import { DEFAULT_SQLITE_PATH } from './defaults.js';
 import { openPostgresStore } from './postgres.js';
 import { openSqliteStore } from './sqlite.js';
 import type { Store } from './store.js';
@@ -15,7 +16,7 @@ export type { PostgresStoreOptions } from './postgres.js';
 export interface StoreConfig {
   /** postgres:// or postgresql:// URL; anything else (or absent) means SQLite */
   databaseUrl?: string | null;
-  /** SQLite file; default `roost.db` in the working directory */
+  /** SQLite file; default DEFAULT_SQLITE_PATH in the working directory */
   sqlitePath?: string;
   /** SQLite synchronous mode; default 'NORMAL' (see the durability note in store.ts) */
   sqliteSynchronous?: 'NORMAL' | 'FULL';
@@ -27,8 +28,7 @@ export interface StoreConfig {
   migrate?: boolean;
 }
 
-/** The default SQLite file name, in the working directory. */
-export const DEFAULT_SQLITE_PATH = 'roost.db';
+export { DEFAULT_SQLITE_PATH } from './defaults.js';
 
 /** True when the URL names a PostgreSQL database. */
 export function isPostgresUrl(url: string | null | undefined): url is string {

@@ -28,7 +28,6 @@ import type {
   Run,
   RunHotspot,
   RunInput,
-  RunLayer,
   RunPage,
   RunPatch,
   RunResult,
@@ -36,7 +35,8 @@ import type {
   Store,
   TrackPoint,
 } from './store.js';
-import { RUN_LAYERS, StoreError } from './store.js';
+import { LAYER_NAMES, type LayerName } from '../run/layers.js';
+import { StoreError } from './store.js';
 import {
   auditPage,
   batchIds,
@@ -491,7 +491,7 @@ export class PostgresStore implements Store {
       // One statement per piece with the text as a plain parameter: a text[] array would make the
       // client escape every quote and the server parse the array back (45 s against 7 s for a
       // points layer of 1 000 000 features, 234 MB, measured).
-      for (const layer of RUN_LAYERS) {
+      for (const layer of LAYER_NAMES) {
         const parts = pieces[layer];
         for (let k = 0; k < parts.length; k++) {
           await c.query({ name: 'roost-save-layer-part', text: 'INSERT INTO run_layer_parts (run_seq, layer, part, body) VALUES ($1, $2, $3, $4)', values: [seq, layer, k, parts[k]] });
@@ -517,12 +517,12 @@ export class PostgresStore implements Store {
     });
   }
 
-  async getRunLayer(runId: string, layer: RunLayer): Promise<string | null> {
+  async getRunLayer(runId: string, layer: LayerName): Promise<string | null> {
     return joinPieces(await this.getRunLayerPieces(runId, layer));
   }
 
-  async getRunLayerPieces(runId: string, layer: RunLayer): Promise<AsyncIterable<string> | null> {
-    if (!RUN_LAYERS.includes(layer)) throw new StoreError('invalid', `layer must be one of ${RUN_LAYERS.join(', ')}`);
+  async getRunLayerPieces(runId: string, layer: LayerName): Promise<AsyncIterable<string> | null> {
+    if (!LAYER_NAMES.includes(layer)) throw new StoreError('invalid', `layer must be one of ${LAYER_NAMES.join(', ')}`);
     const { seq } = await this.requireRunSeq(this.pool, runId);
     return storedPieces(async (from, count) => {
       const r = await this.pool.query({

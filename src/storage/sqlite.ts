@@ -25,7 +25,6 @@ import type {
   ObservationRecord,
   Run,
   RunHotspot,
-  RunLayer,
   RunPage,
   RunPatch,
   RunResult,
@@ -34,7 +33,8 @@ import type {
   Store,
   TrackPoint,
 } from './store.js';
-import { RUN_LAYERS, StoreError } from './store.js';
+import { LAYER_NAMES, type LayerName } from '../run/layers.js';
+import { StoreError } from './store.js';
 import {
   auditPage,
   batchIds,
@@ -504,7 +504,7 @@ export class SqliteStore implements Store {
       this.db.prepare('DELETE FROM run_layer_parts WHERE run_seq = ?').run(seq);
       this.db.prepare('DELETE FROM run_hotspots WHERE run_seq = ?').run(seq);
       const part = this.db.prepare('INSERT INTO run_layer_parts (run_seq, layer, part, body) VALUES (?, ?, ?, ?)');
-      for (const name of RUN_LAYERS) pieces[name].forEach((body, k) => part.run(seq, name, k, body));
+      for (const name of LAYER_NAMES) pieces[name].forEach((body, k) => part.run(seq, name, k, body));
       const hs = this.db.prepare('INSERT INTO run_hotspots (run_seq, hotspot_id, track_id, members, core_members, member_count, hull, figures) VALUES (?, ?, ?, ?, ?, ?, ?, ?)');
       for (const h of result.hotspots) {
         hs.run(seq, h.hotspotId, h.trackId, JSON.stringify(h.members), JSON.stringify(h.coreMembers), h.members.length, h.hull, json(h.figures ?? null));
@@ -513,12 +513,12 @@ export class SqliteStore implements Store {
     tx.immediate();
   }
 
-  async getRunLayer(runId: string, layer: RunLayer): Promise<string | null> {
+  async getRunLayer(runId: string, layer: LayerName): Promise<string | null> {
     return joinPieces(await this.getRunLayerPieces(runId, layer));
   }
 
-  async getRunLayerPieces(runId: string, layer: RunLayer): Promise<AsyncIterable<string> | null> {
-    if (!RUN_LAYERS.includes(layer)) throw new StoreError('invalid', `layer must be one of ${RUN_LAYERS.join(', ')}`);
+  async getRunLayerPieces(runId: string, layer: LayerName): Promise<AsyncIterable<string> | null> {
+    if (!LAYER_NAMES.includes(layer)) throw new StoreError('invalid', `layer must be one of ${LAYER_NAMES.join(', ')}`);
     const seq = this.requireRunSeq(runId);
     // each read a query of its own: a statement left iterating would keep the connection busy
     const stmt = this.db.prepare('SELECT body FROM run_layer_parts WHERE run_seq = ? AND layer = ? AND part >= ? ORDER BY part LIMIT ?').pluck();

@@ -60,6 +60,7 @@
  * Errors: `StoreError` with a code the HTTP layer maps: 'not-found' (404), 'conflict' (409),
  * 'invalid' (400).
  */
+import type { LayerName } from '../run/layers.js';
 
 /** Stable machine-readable kinds of store errors. */
 export type StoreErrorCode = 'not-found' | 'conflict' | 'invalid';
@@ -264,8 +265,6 @@ export interface RunPage {
   nextCursor: string | null;
 }
 
-export type RunLayer = 'hotspots' | 'centres' | 'noise' | 'points';
-export const RUN_LAYERS: readonly RunLayer[] = ['hotspots', 'centres', 'noise', 'points'];
 
 export interface RunHotspot {
   /** the hotspot's number in the run */
@@ -287,7 +286,7 @@ export interface RunResult {
    * GeoJSON FeatureCollection texts, each whole or as pieces to be joined in order. They are
    * stored in pieces of about a MiB (see LAYER_PIECE_CHARS), so no layer is one huge value.
    */
-  layers: Record<RunLayer, string | readonly string[]>;
+  layers: Record<LayerName, string | readonly string[]>;
   hotspots: RunHotspot[];
 }
 
@@ -430,13 +429,13 @@ export interface Store {
    */
   saveRunResult(runId: string, result: RunResult, ifWorker?: string): Promise<void>;
   /** A stored layer text; null when the run has no stored result. @throws StoreError 'not-found' for an unknown run */
-  getRunLayer(runId: string, layer: RunLayer): Promise<string | null>;
+  getRunLayer(runId: string, layer: LayerName): Promise<string | null>;
   /**
    * A stored layer as its pieces in order (join them for the text), read a few at a time so that
    * a large layer is never one string; null when the run has no stored result.
    * @throws StoreError 'not-found' for an unknown run
    */
-  getRunLayerPieces(runId: string, layer: RunLayer): Promise<AsyncIterable<string> | null>;
+  getRunLayerPieces(runId: string, layer: LayerName): Promise<AsyncIterable<string> | null>;
   /** The run's hotspots by hotspot id; empty when none were stored. @throws StoreError 'not-found' */
   getRunHotspots(runId: string): Promise<RunHotspot[]>;
   /** The hotspots carrying the track id, oldest run first. */

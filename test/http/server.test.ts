@@ -99,7 +99,7 @@ describe('the listener', { timeout: 60_000 }, () => {
     expect(lines.some((l) => l.msg === 'closed')).toBe(true);
   });
 
-  it.skipIf(!existsSync(`${ROOT}dist/http/worker.js`))('runs from the compiled files in dist (worker loaded as JavaScript)', async () => {
+  it.skipIf(!existsSync(`${ROOT}dist/workers/entry.js`))('runs from the compiled files in dist (worker loaded as JavaScript)', async () => {
     const script = [
       "const { buildApp } = await import('./dist/http/app.js');",
       "const { resolveConfig } = await import('./dist/http/config.js');",

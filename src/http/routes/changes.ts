@@ -14,13 +14,12 @@
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { bboxOf, featureCollectionString, featureString, type GeometryLike } from '../../geometry/geojson.js';
 import { compareStoredRuns, type TransitionJson } from '../../jobs/tracking.js';
-import type { Run, RunHotspot, Store } from '../../storage/store.js';
+import type { Run, RunHotspot } from '../../storage/store.js';
 import { resolveTrackSettings, type TrackSettings } from '../../tracks/settings.js';
 import { HttpProblem } from '../errors.js';
 import { requireDataset, requireRun } from './common.js';
 
 export interface ChangeRouteOptions {
-  store: Store;
   /** thresholds used to compare runs; default DEFAULT_TRACK_SETTINGS (keep equal to the run hooks') */
   trackSettings?: Partial<TrackSettings>;
 }
@@ -70,8 +69,8 @@ function runRef(r: Run): Record<string, unknown> {
 }
 
 /** Adds GET /v1/datasets/{id}/changes and GET /v1/datasets/{id}/tracks/{track}. Throws a RangeError for bad track settings. */
-export function registerChangeRoutes(app: FastifyInstance, options: ChangeRouteOptions): void {
-  const { store } = options;
+export default async function changeRoutes(app: FastifyInstance, options: ChangeRouteOptions): Promise<void> {
+  const { store } = app;
   const settings = resolveTrackSettings(options.trackSettings);
 
   const succeeded = async (datasetId: string, runId: string, name: string): Promise<Run> => {

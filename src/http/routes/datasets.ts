@@ -9,7 +9,7 @@ import { scheduleProblem } from '../../jobs/schedule.js';
 import { resolveSettings } from '../../run/settings.js';
 import { StoreError, type DatasetPatch, type NewDataset } from '../../storage/store.js';
 import { HttpProblem } from '../errors.js';
-import { datasetJson, jsonObject, requireDataset, settingsProblem, type DatasetServices } from './common.js';
+import { datasetJson, jsonObject, requireDataset, settingsProblem } from './common.js';
 
 const FIELDS = ['id', 'name', 'settings', 'id_property', 'window', 'schedule', 'webhook'] as const;
 
@@ -95,13 +95,13 @@ function mergeSettings(base: Record<string, unknown>, patch: unknown): Record<st
   return out;
 }
 
-export function registerDatasetRoutes(app: FastifyInstance, services: DatasetServices): void {
-  const { store } = services;
+export default async function datasetRoutes(app: FastifyInstance): Promise<void> {
+  const { store } = app;
 
   app.post('/v1/datasets', async (request, reply) => {
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, services.scheduleMinIntervalMs);
-    if (fields.id === undefined) bad('id', 'is required: 1 to 128 characters from A-Z a-z 0-9 . _ ~ -');
+    const fields = readFields({ ...doc, settings: undefined }, app.datasets.scheduleMinIntervalMs);
+    if (fields.id === undefined) bad('id', 'is required: 1 to 128 characters from A-Z a-z 0-9 . _ ~ -, starting with a letter or digit');
     if (doc.settings === undefined) bad('settings', 'is required, for example {"eps": 250, "min_points": 5}');
     const d: NewDataset = {
       id: fields.id,
@@ -135,7 +135,7 @@ export function registerDatasetRoutes(app: FastifyInstance, services: DatasetSer
   app.patch<{ Params: { id: string } }>('/v1/datasets/:id', async (request) => {
     const current = await requireDataset(store, request.params.id);
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, services.scheduleMinIntervalMs);
+    const fields = readFields({ ...doc, settings: undefined }, app.datasets.scheduleMinIntervalMs);
     if (fields.id !== undefined && fields.id !== current.id) bad('id', 'cannot be changed; create a new dataset instead');
     delete fields.id;
     const patch: DatasetPatch = { ...fields };

@@ -18,7 +18,8 @@ import type { Dataset, ListObservationsOptions, Store, WhereCondition } from '..
 import { StoreError } from '../../storage/store.js';
 import { formatOf } from '../body.js';
 import { HttpProblem, MAX_LISTED_PROBLEMS } from '../errors.js';
-import { flag, integer, requireDataset, settingsProblem, storeProblem, type DatasetServices } from './common.js';
+import type { JobPool } from '../../jobs/job-pool.js';
+import { flag, integer, requireDataset, settingsProblem, storeProblem } from './common.js';
 
 /** Bodies up to this many bytes are read on the main thread. */
 export const SMALL_BODY_BYTES = 64 * 1024;
@@ -156,8 +157,8 @@ const ceilTo = (x: number): number => Math.ceil(x * BBOX_SCALE) / BBOX_SCALE;
 
 const LIST_PARAMS = new Set(['bbox', 'datetime', 'where', 'limit', 'cursor']);
 
-async function readBatch(services: DatasetServices, body: Uint8Array, options: RecordOptions): Promise<RecordBatch> {
-  if (services.jobs === null || body.byteLength <= SMALL_BODY_BYTES) {
+async function readBatch(jobs: JobPool | null, body: Uint8Array, options: RecordOptions): Promise<RecordBatch> {
+  if (jobs === null || body.byteLength <= SMALL_BODY_BYTES) {
     try {
       return readRecords(Buffer.from(body.buffer, body.byteOffset, body.byteLength), options);
     } catch (err) {
@@ -165,7 +166,7 @@ async function readBatch(services: DatasetServices, body: Uint8Array, options: R
       throw err;
     }
   }
-  const out = await services.jobs.records({ body, options });
+  const out = await jobs.records({ body, options });
   if (!out.ok) inputProblem(out.problems, out.total, out.message);
   return out.batch;
 }
@@ -176,8 +177,8 @@ function recordOptions(d: Dataset, format: RecordOptions['format'], partial: boo
   return { format, idProperty: d.idProperty, weightProperty: text(s.weight), partial, lonColumn: text(s.lon_column), latColumn: text(s.lat_column) };
 }
 
-export function registerObservationRoutes(app: FastifyInstance, services: DatasetServices): void {
-  const { store } = services;
+export default async function observationRoutes(app: FastifyInstance): Promise<void> {
+  const { store, jobPool } = app;
   const lookup = new HotspotLookup(store);
 
   app.post<{ Params: { id: string } }>('/v1/datasets/:id/observations', async (request: FastifyRequest<{ Params: { id: string } }>) => {
@@ -189,7 +190,7 @@ export function registerObservationRoutes(app: FastifyInstance, services: Datase
     const body = request.body as Uint8Array | undefined;
     if (!body || body.byteLength === 0) throw new HttpProblem('malformed-body', 'The request body is empty; send a GeoJSON Feature or FeatureCollection, CSV, or a GeoJSON text sequence.');
     const format = formatOf(request.headers['content-type']);
-    const batch = await readBatch(services, body, recordOptions(dataset, format, partial));
+    const batch = await readBatch(jobPool, body, recordOptions(dataset, format, partial));
 
     const result = await store
       .ingest(dataset.id, batch.records, { replace, partial, rejected: batch.rejected.map((r) => ({ index: r.index, reason: r.message })) })

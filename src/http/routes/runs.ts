@@ -5,23 +5,24 @@
  * newest succeeded run, so a GIS can pull one URL every morning.
  */
 import { Readable } from 'node:stream';
-import type { FastifyInstance } from 'fastify';
+import type { FastifyInstance, FastifyReply } from 'fastify';
 import { resolveSettings } from '../../run/settings.js';
-import { RUN_LAYERS, StoreError, type Run, type RunLayer } from '../../storage/store.js';
+import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
+import { StoreError, type Run } from '../../storage/store.js';
 import { HttpProblem } from '../errors.js';
-import { integer, jsonObject, requireDataset, requireRun, runJson, settingsProblem, type DatasetServices } from './common.js';
+import { integer, jsonObject, requireDataset, requireRun, runJson, settingsProblem } from './common.js';
 
-function layerOf(name: string): RunLayer {
-  if (!(RUN_LAYERS as readonly string[]).includes(name)) {
-    throw new HttpProblem('invalid-parameter', `layer must be one of ${RUN_LAYERS.join(', ')}, got ${JSON.stringify(name)}`, { parameter: 'layer' });
+function layerOf(name: string): LayerName {
+  if (!isLayerName(name)) {
+    throw new HttpProblem('invalid-parameter', `layer must be one of ${LAYER_NAMES.join(', ')}, got ${JSON.stringify(name)}`, { parameter: 'layer' });
   }
-  return name as RunLayer;
+  return name;
 }
 
-export function registerRunRoutes(app: FastifyInstance, services: DatasetServices): void {
-  const { store, runner } = services;
+export default async function runRoutes(app: FastifyInstance): Promise<void> {
+  const { store, runner } = app;
 
-  const sendLayer = async (run: Run, layer: RunLayer, reply: import('fastify').FastifyReply) => {
+  const sendLayer = async (run: Run, layer: LayerName, reply: FastifyReply) => {
     if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
     // streamed piece by piece as stored: a large layer never becomes one string here
     const pieces = await store.getRunLayerPieces(run.id, layer);
