@@ -17,6 +17,8 @@ export const PROBLEMS = {
   'malformed-body': { status: 400, title: 'The request body cannot be read' },
   'invalid-parameter': { status: 400, title: 'A parameter is unknown or has an invalid value' },
   'bad-request': { status: 400, title: 'The request is not valid HTTP for this service' },
+  'request-timeout': { status: 408, title: 'The request body did not arrive in time' },
+  'uri-too-long': { status: 414, title: 'The request path is longer than this service reads' },
   'not-found': { status: 404, title: 'No such resource' },
   'dataset-not-found': { status: 404, title: 'No such dataset' },
   'observation-not-found': { status: 404, title: 'No such observation in this dataset' },

@@ -40,6 +40,8 @@ export interface RecordOptions {
   /** property (CSV: column) holding the time, and how it is written (see ReadOptions) */
   timeColumn?: string | null;
   timeFormat?: string | null;
+  /** most observations in one batch (more: a `too-many-features` problem); default unlimited */
+  maxFeatures?: number;
 }
 
 /** One rejected feature: where it was in the input, its id when it had one, and why. */
@@ -178,6 +180,7 @@ export function readRecords(input: Buffer | string, options: RecordOptions): Rec
       timeColumn: options.timeColumn,
       timeFormat: options.timeFormat,
       maxProblems,
+      maxFeatures: options.maxFeatures,
     });
   const maxProblems = options.partial ? Number.MAX_SAFE_INTEGER : DEFAULT_MAX_PROBLEMS;
   let obs: Observations;

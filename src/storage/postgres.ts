@@ -456,6 +456,11 @@ export class PostgresStore implements Store {
     });
   }
 
+  async countRuns(status: RunStatus): Promise<number> {
+    checkStatuses([status]);
+    return (await this.pool.query('SELECT count(*)::int AS n FROM runs WHERE status = $1', [status])).rows[0].n as number;
+  }
+
   async getRun(datasetId: string, runId: string): Promise<Run | null> {
     const seq = parseRunId(runId);
     if (seq === null) return null;

@@ -470,6 +470,11 @@ export class SqliteStore implements Store {
     return this.runBySeq(tx.immediate()) as Run;
   }
 
+  async countRuns(status: RunStatus): Promise<number> {
+    checkStatuses([status]);
+    return this.db.prepare('SELECT count(*) FROM runs WHERE status = ?').pluck().get(status) as number;
+  }
+
   async getRun(datasetId: string, runId: string): Promise<Run | null> {
     const seq = parseRunId(runId);
     if (seq === null) return null;

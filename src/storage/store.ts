@@ -417,6 +417,8 @@ export interface Store {
    * @throws StoreError 'not-found', 'conflict', 'invalid'
    */
   updateRun(runId: string, patch: RunPatch, ifStatus?: RunStatus[], ifWorker?: string): Promise<Run>;
+  /** Runs with the status across all datasets (for example how many wait in the queue). */
+  countRuns(status: RunStatus): Promise<number>;
   /** @returns null when the dataset has no such run */
   getRun(datasetId: string, runId: string): Promise<Run | null>;
   /** Newest first. */

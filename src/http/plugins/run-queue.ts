@@ -43,7 +43,7 @@ async function runQueue(app: FastifyInstance, options: RunQueueOptions): Promise
   });
   app.decorate('runner', runner);
   const minIntervalMs = (options.scheduleMinIntervalS ?? DEFAULT_CONFIG.scheduleMinIntervalS) * 1000;
-  app.decorate('datasets', { store, runner, jobs: jobPool, scheduleMinIntervalMs: minIntervalMs } satisfies DatasetServices);
+  app.decorate('datasets', { store, runner, jobs: jobPool } satisfies DatasetServices);
   await runner.recover();
   const scheduler = options.scheduleScanMs > 0 ? new Scheduler({ store, settings: { scanMs: options.scheduleScanMs, minIntervalMs }, onRun: () => runner.wake(), log: app.log }) : null;
   app.addHook('onReady', async () => {

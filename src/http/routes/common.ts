@@ -15,8 +15,6 @@ export interface DatasetServices {
   runner: Runner;
   /** worker threads for reading large posted batches; null reads them on the main thread */
   jobs: JobPool | null;
-  /** shortest time allowed between two slots of a schedule, milliseconds (0: no floor; default 5 minutes) */
-  scheduleMinIntervalMs?: number;
 }
 
 /** Largest JSON body read on the main thread (dataset definitions, run overrides), bytes. */

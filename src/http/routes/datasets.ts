@@ -95,12 +95,17 @@ function mergeSettings(base: Record<string, unknown>, patch: unknown): Record<st
   return out;
 }
 
-export default async function datasetRoutes(app: FastifyInstance): Promise<void> {
+export interface DatasetRouteOptions {
+  /** shortest time allowed between two slots of a schedule, milliseconds (0: no floor); default 5 minutes */
+  scheduleMinIntervalMs?: number;
+}
+
+export default async function datasetRoutes(app: FastifyInstance, options: DatasetRouteOptions = {}): Promise<void> {
   const { store } = app;
 
   app.post('/v1/datasets', async (request, reply) => {
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, app.datasets.scheduleMinIntervalMs);
+    const fields = readFields({ ...doc, settings: undefined }, options.scheduleMinIntervalMs);
     if (fields.id === undefined) bad('id', 'is required: 1 to 128 characters from A-Z a-z 0-9 . _ ~ -, starting with a letter or digit');
     if (doc.settings === undefined) bad('settings', 'is required, for example {"eps": 250, "min_points": 5}');
     const d: NewDataset = {
@@ -135,7 +140,7 @@ export default async function datasetRoutes(app: FastifyInstance): Promise<void>
   app.patch<{ Params: { id: string } }>('/v1/datasets/:id', async (request) => {
     const current = await requireDataset(store, request.params.id);
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, app.datasets.scheduleMinIntervalMs);
+    const fields = readFields({ ...doc, settings: undefined }, options.scheduleMinIntervalMs);
     if (fields.id !== undefined && fields.id !== current.id) bad('id', 'cannot be changed; create a new dataset instead');
     delete fields.id;
     const patch: DatasetPatch = { ...fields };

@@ -19,6 +19,7 @@ export default async function serviceRoutes(app: FastifyInstance): Promise<void>
     workers: app.workPool.threads,
     queued: app.workPool.queued,
     in_progress: app.admission.inProgress,
+    uploading: app.uploads.inProgress,
   }));
 
   app.get('/openapi.yaml', async (_request, reply) => {
