@@ -34,6 +34,8 @@ export class ChordTree {
   private filled = 0;
   /** the k smallest squared chords found so far, ascending */
   private best = new Float64Array(16);
+  /** point id of best[0] */
+  private bestId = -1;
 
   /** @param xyz unit vectors, stride 3 (see `unitVectors`) */
   constructor(xyz: Float64Array) {
@@ -151,7 +153,18 @@ export class ChordTree {
     this.k = k;
     if (this.best.length < k) this.best = new Float64Array(k);
     this.filled = 0;
-    this.search(0, this.n - 1);
+    this.bestId = -1;
+    if (this.n > 0) this.search(0, this.n - 1);
+  }
+
+  /**
+   * The point nearest to an arbitrary unit vector (for example a new observation's), with its
+   * squared chord; index −1 and Infinity when the tree is empty. Of equally near points, the one
+   * the search meets first.
+   */
+  nearestTo(x: number, y: number, z: number): { index: number; chord2: number } {
+    this.query(x, y, z, -1, 1);
+    return this.filled === 0 ? { index: -1, chord2: Infinity } : { index: this.bestId, chord2: this.best[0] };
   }
 
   /** Worst of the kept distances, Infinity while fewer than k are kept. */
@@ -174,6 +187,7 @@ export class ChordTree {
       p--;
     }
     best[p] = d2;
+    if (p === 0) this.bestId = this.ids[a];
   }
 
   private search(left: number, right: number): void {

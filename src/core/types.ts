@@ -19,9 +19,7 @@ export interface PointSet {
 export const ROLE_NOISE = 0;
 export const ROLE_CORE = 1;
 export const ROLE_BORDER = 2;
-export type RoleCode = typeof ROLE_NOISE | typeof ROLE_CORE | typeof ROLE_BORDER;
 export const ROLE_NAMES = ['noise', 'core', 'border'] as const;
-export type RoleName = (typeof ROLE_NAMES)[number];
 
 /** A partition of a point set into hotspots and noise. */
 export interface Clustering {

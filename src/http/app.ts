@@ -21,7 +21,12 @@ import runQueue from './plugins/run-queue.js';
 import shutdown from './plugins/shutdown.js';
 import storePlugin from './plugins/store.js';
 import type { WorkPool } from './pool.js';
+import access from './plugins/access.js';
+import audit from './plugins/audit.js';
+import edge from './plugins/edge.js';
 import changeRoutes from './routes/changes.js';
+import keyRoutes from './routes/keys.js';
+import publishedRoutes from './routes/published.js';
 import clusterRoutes from './routes/cluster.js';
 import datasetRoutes from './routes/datasets.js';
 import observationRoutes from './routes/observations.js';
@@ -46,6 +51,12 @@ export interface AppOptions {
   /** run hooks (track assignment, notices); default: the configured service hooks */
   hooks?: RunHooks;
 }
+
+/** Never written to the logs: bearer tokens and webhook secrets, wherever a logger meets them. */
+export const LOG_REDACT = {
+  paths: ['req.headers.authorization', 'request.headers.authorization', 'headers.authorization', 'authorization', 'token', '*.token', 'secret', '*.secret', 'webhook.secret', '*.webhook.secret'],
+  censor: '[hidden]',
+};
 
 /** A client-supplied request id is kept when it is short and plain, so logs can be joined. */
 const REQUEST_ID = /^[A-Za-z0-9._:-]{1,128}$/;
@@ -89,7 +100,7 @@ function frameworkErrors(error: FastifyError, request: FastifyRequest, reply: Fa
 /** The Fastify instance with the server-level settings: limits, timeouts, request ids. */
 function createServer(config: ServerConfig, logger: AppOptions['logger']): FastifyInstance {
   return Fastify({
-    logger: logger ?? { level: config.logLevel },
+    logger: logger ?? { level: config.logLevel, redact: LOG_REDACT },
     bodyLimit: config.bodyLimitBytes,
     requestTimeout: config.requestTimeoutMs,
     keepAliveTimeout: config.keepAliveTimeoutMs,
@@ -120,16 +131,22 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   await app.register(shutdown, { retryAfterS: config.retryAfterS });
   await app.register(bodies, { bodyLimitBytes: config.bodyLimitBytes, uploads: config.uploads, uploadTimeoutMs: config.uploadTimeoutMs, retryAfterS: config.retryAfterS });
   await app.register(storePlugin, { databaseUrl: config.databaseUrl, dbPath: config.dbPath, store: options.store, storeConfig: options.storeConfig });
+  // the edge and access checks reach every route group registered after them
+  await app.register(edge, { config });
+  await app.register(access);
+  await app.register(audit);
   const { workers, queueSize, runConcurrency, retryAfterS } = config;
   await app.register(pools, { workers, queueSize, runConcurrency, retryAfterS, pool: options.pool });
   const { scheduleScanMs, scheduleMinIntervalS, runHeartbeatMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl } = config;
   await app.register(runQueue, { runConcurrency, scheduleScanMs, scheduleMinIntervalS, runHeartbeatMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl, hooks: options.hooks });
   await app.register(serviceRoutes);
   await app.register(clusterRoutes, { timeLimitMs: config.timeLimitMs, retryAfterS });
-  await app.register(datasetRoutes, { scheduleMinIntervalMs: config.scheduleMinIntervalS * 1000 });
+  await app.register(datasetRoutes, { allowPrivateWebhooks, scheduleMinIntervalMs: config.scheduleMinIntervalS * 1000 });
   await app.register(observationRoutes, { maxPostFeatures: config.maxPostFeatures });
   await app.register(runRoutes, { layerStreams: config.layerStreams, maxQueuedRuns: config.maxQueuedRuns, retryAfterS });
   await app.register(changeRoutes);
+  await app.register(publishedRoutes);
+  await app.register(keyRoutes);
   // registered last so the slow start-up above does not count as event-loop delay; its hook
   // reaches every route group all the same
   await app.register(underPressure, {

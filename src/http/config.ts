@@ -60,6 +60,14 @@ export interface ServerConfig {
   publicUrl: string;
   /** let webhooks reach private-network and loopback addresses (and http: to this machine) */
   allowPrivateWebhooks: boolean;
+  /** listen beyond loopback with no API key in the store (anyone who can reach it may do anything) */
+  open: boolean;
+  /** host names answered besides the loopback names, the listening address and the public URL's host, comma-separated */
+  allowedHosts: string;
+  /** web origins allowed to call the service from a browser (CORS), comma-separated; '' allows none */
+  corsOrigins: string;
+  /** requests per minute per key, or per address without a key; 0 turns the limit off */
+  rateLimitPerMinute: number;
 }
 
 /**
@@ -103,6 +111,12 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   webhookTimeoutMs: 10_000,
   publicUrl: '',
   allowPrivateWebhooks: false,
+  open: false,
+  allowedHosts: '',
+  corsOrigins: '',
+  // ten a second, sustained, per key: far above a survey phone or a map, well below what costs
+  // the service (common practice, no source)
+  rateLimitPerMinute: 600,
 });
 
 /** One option: its config key, command-line flag, environment variable, kind and help text. */
@@ -143,6 +157,10 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'webhookAttempts', flag: '--webhook-attempts', env: 'ROOST_WEBHOOK_ATTEMPTS', kind: 'integer', help: 'attempts to deliver a notice of change (back-off doubling from 2 s)' },
   { key: 'webhookTimeoutMs', flag: '--webhook-timeout-ms', env: 'ROOST_WEBHOOK_TIMEOUT_MS', kind: 'integer', help: 'time allowed for one notice delivery attempt, milliseconds' },
   { key: 'publicUrl', flag: '--public-url', env: 'ROOST_PUBLIC_URL', kind: 'string', help: 'address clients use to reach the service, for absolute links in notices' },
+  { key: 'open', flag: '--open', env: 'ROOST_OPEN', kind: 'switch', help: 'listen beyond loopback although no API key exists (anyone who can reach it may do anything)' },
+  { key: 'allowedHosts', flag: '--allowed-hosts', env: 'ROOST_ALLOWED_HOSTS', kind: 'string', help: 'host names answered besides loopback, the listening address and the public URL\'s host (comma-separated)' },
+  { key: 'corsOrigins', flag: '--cors-origins', env: 'ROOST_CORS_ORIGINS', kind: 'string', help: 'web origins allowed to call from a browser, e.g. https://map.example.org (comma-separated)' },
+  { key: 'rateLimitPerMinute', flag: '--rate-limit', env: 'ROOST_RATE_LIMIT', kind: 'integer', help: 'requests per minute per key, or per address without one (0 = no limit)' },
   { key: 'allowPrivateWebhooks', flag: '--allow-private-webhooks', env: 'ROOST_ALLOW_PRIVATE_WEBHOOKS', kind: 'switch', help: 'let webhooks reach private-network and loopback addresses (http: only to this machine)' },
 ];
 
@@ -196,6 +214,13 @@ function convert(spec: OptionSpec, value: unknown, where: string): string | numb
   return n;
 }
 
+function listOf(text: string): string[] {
+  return text
+    .split(',')
+    .map((x) => x.trim())
+    .filter((x) => x !== '');
+}
+
 function check(config: ServerConfig): ServerConfig {
   const spec = (key: keyof ServerConfig): string => {
     const o = OPTIONS.find((s) => s.key === key)!;
@@ -229,6 +254,17 @@ function check(config: ServerConfig): ServerConfig {
   atLeast('scheduleMinIntervalS', 0);
   atLeast('webhookAttempts', 1);
   atLeast('webhookTimeoutMs', 1);
+  atLeast('rateLimitPerMinute', 0);
+  for (const o of listOf(config.corsOrigins)) {
+    let ok = false;
+    try {
+      const u = new URL(o);
+      ok = (u.protocol === 'https:' || u.protocol === 'http:') && u.origin === o.replace(/\/+$/, '');
+    } catch {
+      ok = false;
+    }
+    if (!ok) throw new ConfigError(`${spec('corsOrigins')}: ${JSON.stringify(o)} is not a web origin such as https://map.example.org (scheme, host and port only)`);
+  }
   if (config.publicUrl !== '' && !/^https?:\/\/[^/]/i.test(config.publicUrl)) throw new ConfigError(`${spec('publicUrl')}: must be an http:// or https:// address`);
   if (config.databaseUrl !== '' && !/^postgres(ql)?:\/\//i.test(config.databaseUrl)) throw new ConfigError(`${spec('databaseUrl')}: must start with postgres:// or postgresql://`);
   return config;

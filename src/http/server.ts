@@ -4,7 +4,8 @@
  */
 import type { FastifyInstance } from 'fastify';
 import { buildApp } from './app.js';
-import type { ServerConfig } from './config.js';
+import { ConfigError, type ServerConfig } from './config.js';
+import { startupAccess } from './open-mode.js';
 
 export interface RunningServer {
   app: FastifyInstance;
@@ -18,12 +19,19 @@ export interface RunningServer {
 }
 
 /**
- * Builds the application and listens on config.host:config.port.
+ * Builds the application and listens on config.host:config.port. Refuses (ConfigError) to listen
+ * beyond loopback with no API key in the store unless config.open (see open-mode.ts).
  * With `handleSignals` (default true) the first SIGTERM/SIGINT closes gracefully and exits;
  * a second one exits at once.
  */
 export async function startServer(config: ServerConfig, options: { handleSignals?: boolean } = {}): Promise<RunningServer> {
   const app = await buildApp({ config });
+  const decision = startupAccess(config.host, await app.store.countKeys(), config.open);
+  if (!decision.ok) {
+    await app.close();
+    throw new ConfigError(decision.message);
+  }
+  app.log[decision.level]({ host: config.host }, decision.message);
   const url = await app.listen({ port: config.port, host: config.host });
 
   let closing: Promise<void> | null = null;

@@ -7,7 +7,9 @@
  *   header matching (case-insensitive, spaces trimmed) `longitude, lon, lng, long, x` and
  *   `latitude, lat, y`. Numbers use a decimal point (`12.5`, not `12,5`).
  * - Rows become GeoJSON Point features. A column named `id` (any case) becomes the feature id, a
- *   string as written; empty means no id. Every other column except the two position columns
+ *   string as written; empty means no id — unless an id property is named (a dataset's
+ *   id_property): then the ids are that property's, and every column, `id` included, stays a
+ *   property. Every other column except the two position columns
  *   becomes a property holding the cell text as written — only the weight column is turned into
  *   a number, because nothing else in the product needs numbers and guessing types loses
  *   leading zeros and codes like "007".
@@ -31,6 +33,8 @@ export interface CsvOptions {
   weightProperty: string | null;
   /** the time column (matched exactly when named; `observed_at` in any case by default) and its format */
   time?: TimeRule;
+  /** the column holding the observation ids (a dataset's id_property); null or absent: an `id` column becomes the feature id */
+  idProperty?: string | null;
   lonColumn?: string;
   latColumn?: string;
   /** field delimiter, one character; sniffed from the header line when absent */
@@ -110,7 +114,11 @@ function readRecords(records: string[][], lines: RecordLines | null, delimiter: 
     return EMPTY;
   }
 
-  const idCol = lower.indexOf('id');
+  const idProperty = options.idProperty ?? null;
+  // with an id property the ids stay properties (where the id rule looks for them); the column
+  // is still used to name rows in messages
+  const idCol = idProperty === null ? lower.indexOf('id') : -1;
+  const nameCol = idProperty === null ? idCol : header.indexOf(idProperty);
   const time = options.time ?? DEFAULT_TIME_RULE;
   const timeCol = time.property === TIME_PROPERTY ? lower.indexOf(TIME_PROPERTY) : header.indexOf(time.property);
   if (timeCol < 0 && time.property !== TIME_PROPERTY) {
@@ -136,7 +144,7 @@ function readRecords(records: string[][], lines: RecordLines | null, delimiter: 
 
   for (let r = 0; r < n; r++) {
     const record = records[r + 1] as string[];
-    const idCell = idCol >= 0 && idCol < record.length ? (record[idCol] as string) : '';
+    const idCell = nameCol >= 0 && nameCol < record.length ? (record[nameCol] as string) : '';
     const id = idCell === '' ? undefined : idCell;
     if (record.length !== width) {
       problems.add(r, id, 'bad-row', `${rowName(r, lines, id)}: has ${record.length} field${record.length === 1 ? '' : 's'}; the header has ${width} — check the delimiter ${JSON.stringify(delimiter)} and the quoting`);
@@ -190,7 +198,7 @@ function readRecords(records: string[][], lines: RecordLines | null, delimiter: 
       }
     }
     const feature: InputFeature = { type: 'Feature', geometry: { type: 'Point', coordinates: [x, y] }, properties };
-    if (id !== undefined) feature.id = id;
+    if (id !== undefined && idCol >= 0) feature.id = id;
     features[r] = feature;
     const content = contentProblem(feature, options.storable ?? false);
     if (content !== null) {

@@ -25,6 +25,8 @@ export interface ReadOptions {
   timeColumn?: string | null;
   /** how that time is written (see TimeFormat: `DD.MM.YYYY`, `YYYY-MM-DD hh:mm`, …); default RFC 3339 */
   timeFormat?: string | null;
+  /** CSV: the column holding observation ids (a dataset's id_property), kept as a property; default: an `id` column becomes the feature id */
+  idProperty?: string | null;
   /** CSV: field delimiter, one character; default sniffed from the header line (`,` `;` tab `|`) */
   csvDelimiter?: string;
   /** most problems listed in the InputError (the total is still counted); default 100 */
@@ -114,6 +116,7 @@ export function readObservations(input: string | Buffer, options: ReadOptions = 
       return readCsv(text, {
         weightProperty,
         time,
+        idProperty: options.idProperty,
         lonColumn: options.lonColumn,
         latColumn: options.latColumn,
         delimiter: options.csvDelimiter,

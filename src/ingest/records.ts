@@ -106,7 +106,10 @@ export function toRecords(
       problems.push({ index: i, id, code: 'bad-weight', message: `feature ${i} has a weight "${weightProperty}" of ${JSON.stringify(given)?.slice(0, 40)}; give a number ≥ 0, or leave it out for weight 1` });
       continue;
     }
-    const text = JSON.stringify(f);
+    // CSV: the weight column becomes a number, as the reader makes it when it reads for a run,
+    // so a file posted to the service and one given to the command line keep the same properties
+    const numeric = weightFromText && typeof given === 'string' && typeof w === 'number' && f.properties;
+    const text = JSON.stringify(numeric ? { ...f, properties: withProperty(f.properties as Record<string, unknown>, weightProperty as string, w) } : f);
     const t = observedAt === null ? NaN : observedAt[i]!;
     records.push({
       id,
@@ -120,6 +123,13 @@ export function toRecords(
     indices.push(i);
   }
   return { records, indices, problems };
+}
+
+/** A copy of properties with one member's value replaced, in the same member order. */
+function withProperty(p: Record<string, unknown>, name: string, value: unknown): Record<string, unknown> {
+  const out: Record<string, unknown> = {};
+  for (const k of Object.keys(p)) Object.defineProperty(out, k, { value: k === name ? value : p[k], enumerable: true, writable: true, configurable: true });
+  return out;
 }
 
 function toRejected(p: InputProblem): RejectedFeature {
@@ -179,6 +189,7 @@ export function readRecords(input: Buffer | string, options: RecordOptions): Rec
       latColumn: options.latColumn ?? undefined,
       timeColumn: options.timeColumn,
       timeFormat: options.timeFormat,
+      idProperty: options.idProperty,
       maxProblems,
       maxFeatures: options.maxFeatures,
     });

@@ -1,30 +1,15 @@
 /**
- * `roost recluster --dataset <id>` / `roost recluster --all`: one run per dataset, executed in
- * this process, for external schedulers (system cron, container cron jobs). It uses the same
- * database as the server (DATABASE_URL, else the SQLite file from --db, ROOST_DB_PATH or roost.db),
- * the dataset's own settings, track matching and notices, and records each run with trigger
- * 'command'. One line per dataset on stdout; exit code 0 when every run succeeded, 1 when any
- * failed, 2 for bad usage (no dataset named, an unknown dataset, an unusable database option).
+ * Re-clustering stored datasets once, for external schedulers (system cron, container cron
+ * jobs): one run per dataset, executed in this process with the dataset's own settings, track
+ * matching and notices, recorded with trigger 'command'. The command around it (`roost
+ * recluster`: options, usage messages, exit codes) is src/cli/recluster.ts.
  */
-import { isPostgresUrl, openStore, DEFAULT_SQLITE_PATH } from '../storage/index.js';
 import { hostname } from 'node:os';
 import { executeRun, runFailureMessage } from './execute.js';
 import { DEFAULT_HEARTBEAT_MS, keepLease, leaseMs } from './lease.js';
-import { createRoostHooks, type RoostHooks } from './run-hooks.js';
+import { type RoostHooks } from './run-hooks.js';
 import { TRANSITION_KINDS, type ChangesJson } from './tracking.js';
-import { RECLUSTER_EXIT } from '../cli/recluster.js';
 import { StoreError, type Dataset, type Run, type Store } from '../storage/store.js';
-
-export interface ReclusterIo {
-  out: (text: string) => void;
-  err: (text: string) => void;
-}
-
-/** One dataset's outcome. */
-export interface ReclusterResult {
-  datasetId: string;
-  run: Run;
-}
 
 /** The one-line outcome printed for a run. */
 export function outcomeLine(run: Run): string {
@@ -73,66 +58,4 @@ export async function reclusterDataset(store: Store, dataset: Dataset, hooks: Ro
   const status = final.status === 'succeeded' || final.status === 'failed' || final.status === 'cancelled' ? final.status : 'failed';
   await hooks.afterRun({ ...ctx, run: final }, { status, summary: final.summary, error: final.error });
   return final;
-}
-
-/** The options of `roost recluster`. */
-export interface ReclusterOptions {
-  dataset?: string[];
-  all?: boolean;
-  db?: string;
-}
-
-/**
- * Runs `roost recluster`: one run per named dataset (or all), executed here, one outcome line each.
- * `setExit` receives the exit code (see RECLUSTER_EXIT).
- */
-export async function reclusterAction(
-  opts: ReclusterOptions,
-  setExit: (code: number) => void,
-  io: ReclusterIo,
-  env: Record<string, string | undefined>,
-): Promise<void> {
-  const usage = (msg: string): void => {
-    io.err(`roost recluster: ${msg}\n`);
-    setExit(RECLUSTER_EXIT.usage);
-  };
-  if ((opts.dataset === undefined) === (opts.all !== true)) return usage('name the datasets with --dataset <id> (repeatable), or give --all');
-  const databaseUrl = env.DATABASE_URL ?? null;
-  if (databaseUrl !== null && databaseUrl !== '' && !isPostgresUrl(databaseUrl)) return usage('DATABASE_URL must start with postgres:// or postgresql://');
-  let store: Store;
-  try {
-    store = await openStore({ databaseUrl, sqlitePath: opts.db ?? env.ROOST_DB_PATH ?? DEFAULT_SQLITE_PATH });
-  } catch (e) {
-    return usage(`cannot open the database: ${(e as Error).message}`);
-  }
-  const hooks = createRoostHooks({
-    publicUrl: env.ROOST_PUBLIC_URL || null,
-    webhook: { allowPrivate: env.ROOST_ALLOW_PRIVATE_WEBHOOKS === '1' || env.ROOST_ALLOW_PRIVATE_WEBHOOKS === 'true' },
-    log: { info: () => undefined, warn: (o, msg) => io.err(`roost recluster: ${msg} (dataset ${String(o['dataset'])}, run ${String(o['run'])}: ${String(o['error'])})\n`) },
-  });
-  try {
-    let datasets: Dataset[];
-    if (opts.all) {
-      datasets = await store.listDatasets();
-      if (datasets.length === 0) io.out('no datasets\n');
-    } else {
-      datasets = [];
-      for (const id of opts.dataset!) {
-        const d = await store.getDataset(id);
-        if (d === null) return usage(`there is no dataset ${JSON.stringify(id)}; nothing was run`);
-        datasets.push(d);
-      }
-    }
-    let failed = 0;
-    for (const d of datasets) {
-      const run = await reclusterDataset(store, d, hooks, 500, (text) => io.err(`roost recluster: ${text}\n`));
-      if (run.status !== 'succeeded') failed++;
-      io.out(outcomeLine(run) + '\n');
-    }
-    await hooks.idle(); // notices are part of the job
-    setExit(failed > 0 ? RECLUSTER_EXIT.failed : RECLUSTER_EXIT.ok);
-  } finally {
-    await hooks.close();
-    await store.close();
-  }
 }

@@ -117,9 +117,15 @@ export function guardedLookup(allowPrivate: boolean, loopbackOnly: boolean, reso
 
 /**
  * Checks a webhook URL fully: the checks of checkWebhookUrl, then every address its host
- * resolves to. Throws WebhookAddressError (refused, or the name does not resolve).
+ * resolves to. Throws WebhookAddressError when refused, and when the name does not resolve unless
+ * `unresolved` is 'accept' (a name may be registered later; every delivery checks again).
  */
-export async function checkWebhookAddress(text: string, allowPrivate: boolean, resolve: typeof dnsLookup = dnsLookup): Promise<CheckedWebhookUrl> {
+export async function checkWebhookAddress(
+  text: string,
+  allowPrivate: boolean,
+  resolve: typeof dnsLookup = dnsLookup,
+  unresolved: 'refuse' | 'accept' = 'refuse',
+): Promise<CheckedWebhookUrl> {
   const checked = checkWebhookUrl(text, allowPrivate);
   const host = checked.url.hostname.replace(/^\[|\]$/g, '');
   if (isIP(host) !== 0) return checked;
@@ -127,6 +133,7 @@ export async function checkWebhookAddress(text: string, allowPrivate: boolean, r
     guardedLookup(allowPrivate, checked.loopbackOnly, resolve)(host, { all: true }, (err) => {
       if (err === null) return ok();
       if (err instanceof WebhookAddressError) return fail(err);
+      if (unresolved === 'accept') return ok();
       fail(new WebhookAddressError(`the webhook host ${host} cannot be resolved (${err.code ?? err.message})`));
     });
   });

@@ -276,3 +276,20 @@ export function publishedSummary(summary: Record<string, unknown>, layers: Publi
     timings_ms: summary.timings_ms,
   };
 }
+
+const PUBLISH_MEMBERS = ['public', 'generalise_m', 'min_count', 'noise', 'properties'];
+
+/**
+ * A dataset's `publish` member as given in a request, checked and with defaults filled in
+ * ({public, generalise_m, min_count, noise, properties}); null stays null (nothing published).
+ * Throws PublishError naming the member ('' when `publish` itself is not an object).
+ */
+export function checkPublishBlock(input: unknown): Record<string, unknown> | null {
+  if (input === null) return null;
+  if (typeof input !== 'object' || Array.isArray(input)) throw new PublishError('', 'publish must be an object such as {"public": true, "generalise_m": 500, "min_count": 10} or null');
+  const doc = input as Record<string, unknown>;
+  for (const k of Object.keys(doc)) if (!PUBLISH_MEMBERS.includes(k)) throw new PublishError(k, `${k}: unknown member; publish has ${PUBLISH_MEMBERS.join(', ')}`);
+  if (doc.public !== undefined && typeof doc.public !== 'boolean') throw new PublishError('public', `public must be true or false, got ${JSON.stringify(doc.public)}`);
+  const o = resolvePublishOptions(doc);
+  return { public: doc.public === true, generalise_m: o.generaliseM, min_count: o.minCount, noise: o.noise, properties: o.properties };
+}

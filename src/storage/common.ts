@@ -69,6 +69,7 @@ export function checkDatasetFields(d: DatasetPatch | NewDataset): void {
   if (d.schedule !== undefined && d.schedule !== null && (!isPlainObject(d.schedule) || typeof d.schedule.cron !== 'string' || typeof d.schedule.timezone !== 'string')) {
     throw new StoreError('invalid', 'schedule must be {"cron": "...", "timezone": "..."} or null');
   }
+  if (d.publish !== undefined && d.publish !== null && !isPlainObject(d.publish)) throw new StoreError('invalid', 'publish must be a JSON object or null');
   if (d.webhook !== undefined && d.webhook !== null && (!isPlainObject(d.webhook) || typeof d.webhook.url !== 'string' || typeof d.webhook.secret !== 'string')) {
     throw new StoreError('invalid', 'webhook must be {"url": "...", "secret": "..."} or null');
   }

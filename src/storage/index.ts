@@ -35,22 +35,6 @@ export function isPostgresUrl(url: string | null | undefined): url is string {
   return typeof url === 'string' && /^postgres(ql)?:\/\//i.test(url);
 }
 
-/**
- * Reads the store configuration from the environment: DATABASE_URL, ROOST_DB_PATH (SQLite file,
- * default roost.db), ROOST_DB_SCHEMA (PostgreSQL schema, default public), ROOST_DB_SYNCHRONOUS
- * (NORMAL or FULL).
- */
-export function storeConfigFromEnv(env: NodeJS.ProcessEnv = process.env): StoreConfig {
-  const sync = env.ROOST_DB_SYNCHRONOUS?.toUpperCase();
-  if (sync !== undefined && sync !== 'NORMAL' && sync !== 'FULL') throw new Error(`ROOST_DB_SYNCHRONOUS must be NORMAL or FULL, not ${JSON.stringify(env.ROOST_DB_SYNCHRONOUS)}`);
-  return {
-    databaseUrl: env.DATABASE_URL ?? null,
-    sqlitePath: env.ROOST_DB_PATH ?? DEFAULT_SQLITE_PATH,
-    sqliteSynchronous: sync,
-    pgSchema: env.ROOST_DB_SCHEMA ?? undefined,
-  };
-}
-
 /** Opens the configured store and (by default) applies pending migrations. */
 export async function openStore(config: StoreConfig = {}): Promise<Store> {
   const store: Store = isPostgresUrl(config.databaseUrl)

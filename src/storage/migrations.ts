@@ -295,6 +295,12 @@ export const MIGRATIONS: readonly Migration[] = [
   },
   {
     version: 6,
+    name: 'dataset publishing settings',
+    sqlite: 'ALTER TABLE datasets ADD COLUMN publish TEXT;',
+    postgres: 'ALTER TABLE datasets ADD COLUMN publish JSONB;',
+  },
+  {
+    version: 7,
     name: 'run leases and interruption counts',
     // A running run holds a lease its process renews (src/jobs/lease.ts); any instance takes over
     // a run whose lease ran out. Runs running when this is applied get the old staleness bound

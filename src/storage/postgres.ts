@@ -174,8 +174,8 @@ export class PostgresStore implements Store {
     const now = nowIso();
     try {
       const r = await this.pool.query(
-        'INSERT INTO datasets (id, name, settings, id_property, time_window, schedule, webhook, created_at, updated_at) VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $8) RETURNING *',
-        [d.id, d.name, JSON.stringify(d.settings), d.idProperty, d.window, json(d.schedule), json(d.webhook), now],
+        'INSERT INTO datasets (id, name, settings, id_property, time_window, schedule, webhook, publish, created_at, updated_at) VALUES ($1, $2, $3, $4, $5, $6, $7, $9, $8, $8) RETURNING *',
+        [d.id, d.name, JSON.stringify(d.settings), d.idProperty, d.window, json(d.schedule), json(d.webhook), now, json(d.publish ?? null)],
       );
       return datasetFromRow(r.rows[0] as Row);
     } catch (e) {
@@ -205,6 +205,7 @@ export class PostgresStore implements Store {
     if (patch.window !== undefined) sets.push(`time_window = ${p.add(patch.window)}`);
     if (patch.schedule !== undefined) sets.push(`schedule = ${p.add(json(patch.schedule))}`);
     if (patch.webhook !== undefined) sets.push(`webhook = ${p.add(json(patch.webhook))}`);
+    if (patch.publish !== undefined) sets.push(`publish = ${p.add(json(patch.publish))}`);
     sets.push(`updated_at = ${p.add(nowIso())}`);
     const r = await this.pool.query(`UPDATE datasets SET ${sets.join(', ')} WHERE id = ${p.add(id)} RETURNING *`, p.values);
     if (r.rows.length === 0) throw notFoundDataset(id);
@@ -741,6 +742,7 @@ function datasetFromRow(r: Row): Dataset {
     window: r.time_window as string | null,
     schedule: (r.schedule ?? null) as Dataset['schedule'],
     webhook: (r.webhook ?? null) as Dataset['webhook'],
+    publish: (r.publish ?? null) as Dataset['publish'],
     createdAt: iso(r.created_at) as string,
     updatedAt: iso(r.updated_at) as string,
   };

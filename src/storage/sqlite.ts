@@ -153,8 +153,8 @@ export class SqliteStore implements Store {
     const now = nowIso();
     try {
       this.db
-        .prepare('INSERT INTO datasets (id, name, settings, id_property, time_window, schedule, webhook, created_at, updated_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)')
-        .run(d.id, d.name, JSON.stringify(d.settings), d.idProperty, d.window, json(d.schedule), json(d.webhook), now, now);
+        .prepare('INSERT INTO datasets (id, name, settings, id_property, time_window, schedule, webhook, publish, created_at, updated_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)')
+        .run(d.id, d.name, JSON.stringify(d.settings), d.idProperty, d.window, json(d.schedule), json(d.webhook), json(d.publish ?? null), now, now);
     } catch (e) {
       if ((e as { code?: string }).code === 'SQLITE_CONSTRAINT_PRIMARYKEY') throw new StoreError('conflict', `dataset ${JSON.stringify(d.id)} already exists; choose another id or update it`);
       throw e;
@@ -186,6 +186,7 @@ export class SqliteStore implements Store {
     if (patch.window !== undefined) put('time_window', patch.window);
     if (patch.schedule !== undefined) put('schedule', json(patch.schedule));
     if (patch.webhook !== undefined) put('webhook', json(patch.webhook));
+    if (patch.publish !== undefined) put('publish', json(patch.publish));
     put('updated_at', nowIso());
     const info = this.db.prepare(`UPDATE datasets SET ${sets.join(', ')} WHERE id = ?`).run(...args, id);
     if (info.changes === 0) throw notFoundDataset(id);
@@ -681,6 +682,7 @@ function datasetFromRow(r: Row): Dataset {
     window: r.time_window as string | null,
     schedule: parseJson(r.schedule),
     webhook: parseJson(r.webhook),
+    publish: parseJson(r.publish),
     createdAt: r.created_at as string,
     updatedAt: r.updated_at as string,
   };

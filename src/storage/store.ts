@@ -99,9 +99,15 @@ export interface NewDataset {
   window: string | null;
   schedule: DatasetSchedule | null;
   webhook: DatasetWebhook | null;
+  /**
+   * how the dataset's runs are published (API names: public, generalise_m, min_count, noise,
+   * properties; checked by src/publish/publish.ts, kept here as given); absent or null: not published
+   */
+  publish?: Record<string, unknown> | null;
 }
 
 export interface Dataset extends NewDataset {
+  publish: Record<string, unknown> | null;
   /** RFC 3339, UTC, millisecond precision */
   createdAt: string;
   updatedAt: string;

@@ -10,7 +10,10 @@
  * hotspot-sized hulls the planar clipping of straight lon/lat edges is what the hulls themselves
  * draw (they are written with edges densified to lon/lat straight lines).
  */
-import { area as turfArea, feature, featureCollection, intersect as turfIntersect, union as turfUnion } from '@turf/turf';
+import { area as turfArea } from '@turf/area';
+import { feature, featureCollection } from '@turf/helpers';
+import { intersect as turfIntersect } from '@turf/intersect';
+import { union as turfUnion } from '@turf/union';
 import type { Feature, MultiPolygon, Polygon } from 'geojson';
 import type { HullGeometry } from '../geometry/hull.js';
 

@@ -32,7 +32,7 @@ describe('the listener', { timeout: 60_000 }, () => {
       expect(res.status).toBe(200);
       expect(await res.json()).toMatchObject({ status: 'ok' });
       const port = Number(new URL(server.url).port);
-      const reply = await rawExchange(port, 'POST /v1/cluster HTTP/1.1\r\nHost: x\r\nContent-Length: twelve\r\n\r\n');
+      const reply = await rawExchange(port, 'POST /v1/cluster HTTP/1.1\r\nHost: 127.0.0.1\r\nContent-Length: twelve\r\n\r\n');
       expect(reply).toMatch(/^HTTP\/1\.1 400 /);
       expect(reply).toContain('application/problem+json');
       const body = JSON.parse(reply.slice(reply.indexOf('\r\n\r\n') + 4));
@@ -49,7 +49,7 @@ describe('the listener', { timeout: 60_000 }, () => {
     let closed: Promise<void> | undefined;
     const reply = await rawExchange(
       port,
-      `POST /v1/cluster?eps=100&layer=centres HTTP/1.1\r\nHost: x\r\nContent-Type: application/geo+json\r\nContent-Length: ${Buffer.byteLength(payload)}\r\n\r\n${payload}`,
+      `POST /v1/cluster?eps=100&layer=centres HTTP/1.1\r\nHost: 127.0.0.1\r\nContent-Type: application/geo+json\r\nContent-Length: ${Buffer.byteLength(payload)}\r\n\r\n${payload}`,
       async () => {
         // close once the request is being worked on
         for (;;) {
@@ -60,7 +60,7 @@ describe('the listener', { timeout: 60_000 }, () => {
         closed = server.close();
         await new Promise((r) => setTimeout(r, 50));
       },
-      'GET /healthz HTTP/1.1\r\nHost: x\r\n\r\n',
+      'GET /healthz HTTP/1.1\r\nHost: 127.0.0.1\r\n\r\n',
     );
     await closed;
     const statuses = [...reply.matchAll(/HTTP\/1\.1 (\d{3})/g)].map((m) => Number(m[1]));

@@ -65,6 +65,10 @@ describe('roost recluster', () => {
     expect(unknown.code).toBe(RECLUSTER_EXIT.usage);
     expect(unknown.err).toMatch(/no dataset "nope"/);
     expect((await recluster(['--all', '--db', path], { DATABASE_URL: 'mysql://x' })).code).toBe(RECLUSTER_EXIT.usage);
+    // its settings come from the service's one config table, checked the same way
+    const badUrl = await recluster(['--all', '--db', path], { ROOST_PUBLIC_URL: 'ftp://example.org' });
+    expect(badUrl.code).toBe(RECLUSTER_EXIT.usage);
+    expect(badUrl.err).toMatch(/ROOST_PUBLIC_URL.*must be an http:\/\/ or https:\/\/ address/);
     expect((await store.listRuns(DATASET.id, { limit: 10 })).runs).toEqual([]);
   });
 });

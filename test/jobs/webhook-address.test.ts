@@ -80,6 +80,8 @@ describe('webhook URLs', () => {
     await expect(checkWebhookAddress('https://sneaky.example/h', false, dns)).rejects.toThrow(/10\.0\.0\.7/);
     await expect(checkWebhookAddress('https://meta.example/h', true, dns)).rejects.toThrow(/169\.254\.169\.254/);
     await expect(checkWebhookAddress('https://missing.example/h', false, dns)).rejects.toThrow(/cannot be resolved/);
+    await expect(checkWebhookAddress('https://missing.example/h', false, dns, 'accept')).resolves.toBeTruthy();
+    await expect(checkWebhookAddress('https://sneaky.example/h', false, dns, 'accept')).rejects.toThrow(/10\.0\.0\.7/);
   });
 
   it('check again at each connection: a name that now resolves to a private address is refused then', async () => {

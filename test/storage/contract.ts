@@ -646,6 +646,22 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
       });
     });
 
+    describe('publishing settings', () => {
+      it('are stored with the dataset as given, changed by a patch and cleared with null', async () => {
+        const created = await store.createDataset(DS);
+        expect(created.publish).toBeNull();
+        const publish = { public: true, generalise_m: 250, min_count: 10, noise: 'withhold', properties: ['species'] };
+        const changed = await store.updateDataset('herons', { publish });
+        expect(changed.publish).toEqual(publish);
+        expect((await (await open()).getDataset('herons'))?.publish).toEqual(publish);
+        expect((await store.updateDataset('herons', { name: 'Renamed' })).publish).toEqual(publish);
+        expect((await store.updateDataset('herons', { publish: null })).publish).toBeNull();
+        const withIt = await store.createDataset({ ...DS, id: 'egrets', publish: { public: false, generalise_m: 100 } });
+        expect(withIt.publish).toEqual({ public: false, generalise_m: 100 });
+        await rejects(store.updateDataset('herons', { publish: [] as never }), 'invalid');
+      });
+    });
+
     describe('keys and audit records', () => {
       const hash = (n: number): string => n.toString(16).padStart(64, '0');
       it('store a key by its hash only, find it until revoked, and count keys in force', async () => {

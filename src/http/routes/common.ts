@@ -90,6 +90,7 @@ export function datasetJson(d: Dataset, observations?: number): Record<string, u
     window: d.window,
     schedule: d.schedule,
     webhook: d.webhook === null ? null : { url: d.webhook.url },
+    publish: d.publish,
     created_at: d.createdAt,
     updated_at: d.updatedAt,
     ...(observations === undefined ? {} : { observations }),

@@ -8,10 +8,19 @@ import { windowProblem } from '../../jobs/execute.js';
 import { scheduleProblem } from '../../jobs/schedule.js';
 import { resolveSettings } from '../../run/settings.js';
 import { StoreError, type DatasetPatch, type NewDataset } from '../../storage/store.js';
+import { checkPublishBlock, PublishError } from '../../publish/publish.js';
+import { checkWebhookAddress, checkWebhookUrl, WebhookAddressError } from '../../jobs/webhook-address.js';
 import { HttpProblem } from '../errors.js';
 import { datasetJson, jsonObject, requireDataset, settingsProblem } from './common.js';
 
-const FIELDS = ['id', 'name', 'settings', 'id_property', 'window', 'schedule', 'webhook'] as const;
+const FIELDS = ['id', 'name', 'settings', 'id_property', 'window', 'schedule', 'webhook', 'publish'] as const;
+
+export interface DatasetRouteOptions {
+  /** let webhooks reach private-network and loopback addresses (see src/jobs/webhook-address.ts) */
+  allowPrivateWebhooks?: boolean;
+  /** shortest time allowed between two slots of a schedule, milliseconds (0: no floor); default 5 minutes */
+  scheduleMinIntervalMs?: number;
+}
 
 function bad(parameter: string, detail: string): never {
   throw new HttpProblem('invalid-parameter', `${parameter}: ${detail}`, { parameter });
@@ -35,7 +44,7 @@ function optionalText(doc: Record<string, unknown>, name: string): string | null
 }
 
 /** The fields of a create or patch body, checked; absent fields stay undefined. */
-function readFields(doc: Record<string, unknown>, scheduleMinIntervalMs?: number): DatasetPatch & { id?: string } {
+function readFields(doc: Record<string, unknown>, allowPrivateWebhooks: boolean, scheduleMinIntervalMs?: number): DatasetPatch & { id?: string } {
   for (const k of Object.keys(doc)) if (!(FIELDS as readonly string[]).includes(k)) bad(k, `unknown member; a dataset has ${FIELDS.join(', ')}`);
   const out: DatasetPatch & { id?: string } = {};
   if (doc.id !== undefined) {
@@ -71,17 +80,37 @@ function readFields(doc: Record<string, unknown>, scheduleMinIntervalMs?: number
       if (typeof w !== 'object' || typeof w.url !== 'string' || typeof w.secret !== 'string' || w.secret === '') {
         bad('webhook', 'must be {"url": "https://…", "secret": "…"} or null');
       }
-      let url: URL | null = null;
       try {
-        url = new URL(w.url);
-      } catch {
-        url = null;
+        // the URL is never echoed: it may carry a password
+        checkWebhookUrl(w.url as string, allowPrivateWebhooks);
+      } catch (err) {
+        if (err instanceof WebhookAddressError) bad('webhook', err.message);
+        throw err;
       }
-      if (url === null || (url.protocol !== 'https:' && url.protocol !== 'http:')) bad('webhook', `url must be an http or https URL, got ${JSON.stringify(w.url)}`);
     }
     out.webhook = w === null ? null : { url: w.url as string, secret: w.secret as string };
   }
+  if (doc.publish !== undefined) {
+    try {
+      out.publish = checkPublishBlock(doc.publish);
+    } catch (err) {
+      if (err instanceof PublishError) bad(err.field === '' ? 'publish' : `publish.${err.field}`, err.message);
+      throw err;
+    }
+  }
   return out;
+}
+
+/** Every address the webhook's host resolves to now must be allowed (checked again at each delivery). */
+async function checkWebhookHost(webhook: DatasetPatch['webhook'], allowPrivateWebhooks: boolean): Promise<void> {
+  if (webhook === undefined || webhook === null) return;
+  try {
+    // a name that does not resolve yet is kept: every delivery checks again
+    await checkWebhookAddress(webhook.url, allowPrivateWebhooks, undefined, 'accept');
+  } catch (err) {
+    if (err instanceof WebhookAddressError) bad('webhook', err.message);
+    throw err;
+  }
 }
 
 /** RFC 7396 merge of flat settings: members of `patch` replace, null removes. */
@@ -95,17 +124,13 @@ function mergeSettings(base: Record<string, unknown>, patch: unknown): Record<st
   return out;
 }
 
-export interface DatasetRouteOptions {
-  /** shortest time allowed between two slots of a schedule, milliseconds (0: no floor); default 5 minutes */
-  scheduleMinIntervalMs?: number;
-}
-
 export default async function datasetRoutes(app: FastifyInstance, options: DatasetRouteOptions = {}): Promise<void> {
   const { store } = app;
+  const allowPrivate = options.allowPrivateWebhooks === true;
 
   app.post('/v1/datasets', async (request, reply) => {
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, options.scheduleMinIntervalMs);
+    const fields = readFields({ ...doc, settings: undefined }, allowPrivate, options.scheduleMinIntervalMs);
     if (fields.id === undefined) bad('id', 'is required: 1 to 128 characters from A-Z a-z 0-9 . _ ~ -, starting with a letter or digit');
     if (doc.settings === undefined) bad('settings', 'is required, for example {"eps": 250, "min_points": 5}');
     const d: NewDataset = {
@@ -116,7 +141,9 @@ export default async function datasetRoutes(app: FastifyInstance, options: Datas
       window: fields.window ?? null,
       schedule: fields.schedule ?? null,
       webhook: fields.webhook ?? null,
+      publish: fields.publish ?? null,
     };
+    await checkWebhookHost(d.webhook, allowPrivate);
     try {
       const created = await store.createDataset(d);
       return reply.code(201).header('location', `/v1/datasets/${created.id}`).send(datasetJson(created, 0));
@@ -140,7 +167,8 @@ export default async function datasetRoutes(app: FastifyInstance, options: Datas
   app.patch<{ Params: { id: string } }>('/v1/datasets/:id', async (request) => {
     const current = await requireDataset(store, request.params.id);
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, options.scheduleMinIntervalMs);
+    const fields = readFields({ ...doc, settings: undefined }, allowPrivate, options.scheduleMinIntervalMs);
+    await checkWebhookHost(fields.webhook, allowPrivate);
     if (fields.id !== undefined && fields.id !== current.id) bad('id', 'cannot be changed; create a new dataset instead');
     delete fields.id;
     const patch: DatasetPatch = { ...fields };

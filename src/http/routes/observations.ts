@@ -3,17 +3,19 @@
  * listing with bbox / datetime / property filters and cursor paging, and retracting one.
  *
  * Bodies up to SMALL_BODY_BYTES are read on the main thread (a phone's single sighting should
- * not pay a thread hop); larger ones in a worker thread. The answer to a post of one
- * observation says which hotspot of the latest succeeded run it falls in: within that run's eps
- * of one of the hotspot's core members (the DBSCAN reachability rule), the nearest such core
- * member deciding between hotspots.
+ * not pay a thread hop); larger ones in a worker thread. The answer to a post says where each
+ * observation stands against the latest succeeded run's hotspots (see src/run/which-hotspot.ts):
+ * the hotspot it falls in, whether it lies inside that hull, the hotspot's size, or the nearest
+ * hotspot when it is in none.
  */
 import type { FastifyInstance, FastifyRequest } from 'fastify';
-import { EARTH_RADIUS_M } from '../../core/haversine.js';
+import type { HullGeometry } from '../../geometry/hull.js';
 import { bboxOfPositions, COORDINATE_DECIMALS, featureCollectionString } from '../../geometry/geojson.js';
 import { readRecords, type RecordBatch, type RecordOptions } from '../../ingest/records.js';
+import { compileTimeFormat } from '../../ingest/checks.js';
 import { InputError, type InputProblem } from '../../ingest/types.js';
 import { parseCondition } from '../../run/settings.js';
+import { WhichHotspot, type LookupHotspot, type Placement } from '../../run/which-hotspot.js';
 import type { Dataset, ListObservationsOptions, Store, WhereCondition } from '../../storage/store.js';
 import { StoreError } from '../../storage/store.js';
 import { formatOf } from '../body.js';
@@ -22,83 +24,49 @@ import { HttpProblem, MAX_LISTED_PROBLEMS } from '../errors.js';
 import { JobQueueFull, type JobPool } from '../../jobs/job-pool.js';
 import { flag, integer, requireDataset, settingsProblem, storeProblem } from './common.js';
 
+/** A post of a collection is answered with the placement of at most this many observations. */
+export const MAX_PLACEMENTS = 1000;
+
 /** Bodies up to this many bytes are read on the main thread. */
 export const SMALL_BODY_BYTES = 64 * 1024;
 
-const RAD = Math.PI / 180;
-
-/** Core members of one run's hotspots as columns, for the immediate answer. */
-interface CoreIndex {
-  runId: string;
-  epsMeters: number;
-  lon: Float64Array;
-  lat: Float64Array;
-  hotspot: Int32Array;
-  trackIds: (string | null)[];
-}
-
-/** Ground distance in metres (haversine on the IUGG mean radius). */
-function meters(lon1: number, lat1: number, lon2: number, lat2: number): number {
-  const dLat = (lat2 - lat1) * RAD;
-  const dLon = (lon2 - lon1) * RAD;
-  const a = Math.sin(dLat / 2) ** 2 + Math.cos(lat1 * RAD) * Math.cos(lat2 * RAD) * Math.sin(dLon / 2) ** 2;
-  return 2 * EARTH_RADIUS_M * Math.asin(Math.min(1, Math.sqrt(a)));
-}
-
-/** Which hotspot of the latest succeeded run a position falls in; core members cached per run. */
+/**
+ * The latest succeeded run of each dataset as a WhichHotspot (its hotspots' core members, hulls
+ * and sizes), built once per run and kept until a newer run succeeds.
+ */
 export class HotspotLookup {
-  private readonly cache = new Map<string, CoreIndex>();
+  private readonly cache = new Map<string, { runId: string; which: WhichHotspot }>();
   constructor(private readonly store: Store) {}
 
-  private async index(datasetId: string, runId: string, epsMeters: number): Promise<CoreIndex> {
-    const key = `${datasetId}\u0000${runId}`;
-    const hit = this.cache.get(key);
-    if (hit) return hit;
+  private async build(datasetId: string, runId: string, epsMeters: number): Promise<WhichHotspot> {
+    const hit = this.cache.get(datasetId);
+    if (hit !== undefined && hit.runId === runId) return hit.which;
     const hotspots = await this.store.getRunHotspots(runId);
-    const ids = hotspots.flatMap((h) => h.coreMembers);
-    const pos = await this.store.getPositions(datasetId, ids);
-    const lon = new Float64Array(ids.length);
-    const lat = new Float64Array(ids.length);
-    const hotspot = new Int32Array(ids.length);
-    let k = 0;
-    for (const h of hotspots) {
+    const pos = await this.store.getPositions(datasetId, hotspots.flatMap((h) => h.coreMembers));
+    const lookup: LookupHotspot[] = hotspots.map((h) => {
+      const lon: number[] = [];
+      const lat: number[] = [];
       for (const id of h.coreMembers) {
         const p = pos.get(id);
         if (p === undefined) continue; // retracted since the run
-        lon[k] = p.lon;
-        lat[k] = p.lat;
-        hotspot[k++] = h.hotspotId;
+        lon.push(p.lon);
+        lat.push(p.lat);
       }
-    }
-    const idx: CoreIndex = { runId, epsMeters, lon: lon.subarray(0, k), lat: lat.subarray(0, k), hotspot: hotspot.subarray(0, k), trackIds: [] };
-    for (const h of hotspots) idx.trackIds[h.hotspotId] = h.trackId;
-    // one entry per dataset: an older run's entry is dropped when a newer one is cached
-    for (const other of this.cache.keys()) if (other.startsWith(`${datasetId}\u0000`)) this.cache.delete(other);
-    this.cache.set(key, idx);
-    return idx;
+      const area = Number(h.figures?.area_km2);
+      return { hotspotId: h.hotspotId, trackId: h.trackId, hull: JSON.parse(h.hull) as HullGeometry, count: h.members.length, areaKm2: Number.isFinite(area) ? area : null, coreLon: lon, coreLat: lat };
+    });
+    const which = new WhichHotspot(lookup, epsMeters);
+    this.cache.set(datasetId, { runId, which });
+    return which;
   }
 
-  /** The hotspot the position falls in, or null; `run` is null when the dataset has no succeeded run. */
-  async find(datasetId: string, lon: number, lat: number): Promise<{ run: string | null; hotspot: Record<string, unknown> | null }> {
+  /** Where each position stands against the latest succeeded run's hotspots; `run` is null when the dataset has none. */
+  async place(datasetId: string, positions: readonly { lon: number; lat: number }[]): Promise<{ run: string | null; placements: Placement[] | null }> {
     const run = await this.store.latestRun(datasetId);
     const eps = Number((run?.summary?.parameters as Record<string, unknown> | undefined)?.eps);
-    if (run === null || !(eps > 0)) return { run: null, hotspot: null };
-    const idx = await this.index(datasetId, run.id, eps);
-    // a latitude band first: one degree of latitude is at least 110 km everywhere
-    const band = eps / 110_000;
-    let best = -1;
-    let bestM = Infinity;
-    for (let i = 0; i < idx.lon.length; i++) {
-      if (Math.abs(idx.lat[i]! - lat) > band) continue;
-      const m = meters(lon, lat, idx.lon[i]!, idx.lat[i]!);
-      if (m <= eps && m < bestM) {
-        bestM = m;
-        best = i;
-      }
-    }
-    if (best < 0) return { run: run.id, hotspot: null };
-    const h = idx.hotspot[best]!;
-    return { run: run.id, hotspot: { hotspot_id: h, track_id: idx.trackIds[h] ?? null, nearest_core_m: Math.round(bestM * 10) / 10 } };
+    if (run === null || !(eps > 0)) return { run: null, placements: null };
+    const which = await this.build(datasetId, run.id, eps);
+    return { run: run.id, placements: positions.map((p) => which.place(p.lon, p.lat)) };
   }
 }
 
@@ -175,10 +143,29 @@ async function readBatch(jobs: JobPool | null, body: Uint8Array, options: Record
   return out.batch;
 }
 
-function recordOptions(d: Dataset, format: RecordOptions['format'], partial: boolean, maxFeatures: number): RecordOptions {
-  const s = d.settings;
+/** The reader's options a post may give, for this post only, over the dataset's settings of the same names. */
+export const READER_PARAMS = ['lon_column', 'lat_column', 'time_column', 'time_format'] as const;
+const POST_PARAMS = new Set<string>(['replace', 'partial', ...READER_PARAMS]);
+
+function recordOptions(d: Dataset, format: RecordOptions['format'], partial: boolean, query: Record<string, unknown>, maxFeatures: number): RecordOptions {
   const text = (v: unknown): string | null => (typeof v === 'string' && v !== '' ? v : null);
-  return { format, idProperty: d.idProperty, weightProperty: text(s.weight), partial, lonColumn: text(s.lon_column), latColumn: text(s.lat_column), maxFeatures };
+  const setting = (name: string): string | null => text(query[name]) ?? text(d.settings[name]);
+  const timeFormat = setting('time_format');
+  if (timeFormat !== null) {
+    const f = compileTimeFormat(timeFormat);
+    if (typeof f === 'string') throw new HttpProblem('invalid-parameter', f, { parameter: 'time_format' });
+  }
+  return {
+    format,
+    idProperty: d.idProperty,
+    weightProperty: text(d.settings.weight),
+    partial,
+    lonColumn: setting('lon_column'),
+    latColumn: setting('lat_column'),
+    timeColumn: setting('time_column'),
+    timeFormat,
+    maxFeatures,
+  };
 }
 
 export interface ObservationRouteOptions {
@@ -193,14 +180,17 @@ export default async function observationRoutes(app: FastifyInstance, options: O
 
   app.post<{ Params: { id: string } }>('/v1/datasets/:id/observations', async (request: FastifyRequest<{ Params: { id: string } }>) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
-    for (const k of Object.keys(query)) if (k !== 'replace' && k !== 'partial') throw new HttpProblem('invalid-parameter', `${k}: unknown parameter; this endpoint takes replace and partial`, { parameter: k });
+    for (const k of Object.keys(query)) if (!POST_PARAMS.has(k)) throw new HttpProblem('invalid-parameter', `${k}: unknown parameter; this endpoint takes ${[...POST_PARAMS].join(', ')}`, { parameter: k });
+    for (const k of READER_PARAMS) {
+      if (query[k] !== undefined && (typeof query[k] !== 'string' || query[k] === '')) throw new HttpProblem('invalid-parameter', `${k}: give one non-empty name or pattern`, { parameter: k });
+    }
     const replace = flag(query, 'replace');
     const partial = flag(query, 'partial');
     const dataset = await requireDataset(store, request.params.id);
     const body = request.body as Uint8Array | undefined;
     if (!body || body.byteLength === 0) throw new HttpProblem('malformed-body', 'The request body is empty; send a GeoJSON Feature or FeatureCollection, CSV, or a GeoJSON text sequence.');
     const format = formatOf(request.headers['content-type']);
-    const batch = await readBatch(jobPool, body, recordOptions(dataset, format, partial, maxFeatures));
+    const batch = await readBatch(jobPool, body, recordOptions(dataset, format, partial, query, maxFeatures));
 
     const result = await store
       .ingest(dataset.id, batch.records, { replace, partial, rejected: batch.rejected.map((r) => ({ index: r.index, reason: r.message })) })
@@ -233,10 +223,18 @@ export default async function observationRoutes(app: FastifyInstance, options: O
     };
     if (batch.records.length === 1 && rejections.length === 0) {
       const r = batch.records[0]!;
-      const found = await lookup.find(dataset.id, r.lon, r.lat);
+      const found = await lookup.place(dataset.id, [r]);
       answer.observation_id = r.id;
       answer.latest_run = found.run;
-      answer.hotspot = found.hotspot;
+      answer.hotspot = found.placements?.[0]?.hotspot ?? null;
+      answer.nearest_hotspot = found.placements?.[0]?.nearest_hotspot ?? null;
+    } else if (batch.records.length > 0) {
+      // a collection: where each stored observation stands, in input order, up to MAX_PLACEMENTS
+      const shown = batch.records.slice(0, MAX_PLACEMENTS);
+      const found = await lookup.place(dataset.id, shown);
+      answer.latest_run = found.run;
+      answer.placements = found.placements === null ? [] : shown.map((r, k) => ({ index: batch.indices[k], observation_id: r.id, ...found.placements![k]! }));
+      answer.placements_total = batch.records.length;
     }
     return answer;
   });

@@ -1,0 +1,25 @@
+/**
+ * Access control for every route group registered after it (see ../access.ts): the table comes
+ * from openapi.yaml's `x-roost-access` declarations. Decorates `app.keyPresence`, which key
+ * routes tell when a key is created or revoked.
+ */
+import { readFileSync } from 'node:fs';
+import type { FastifyInstance } from 'fastify';
+import fp from 'fastify-plugin';
+import { parse } from 'yaml';
+import { accessTable, registerAccess, type KeyPresence } from '../access.js';
+import { OPENAPI_PATH } from '../contract.js';
+
+declare module 'fastify' {
+  interface FastifyInstance {
+    keyPresence: KeyPresence;
+  }
+}
+
+async function accessPlugin(app: FastifyInstance): Promise<void> {
+  const table = accessTable(parse(readFileSync(OPENAPI_PATH, 'utf8')) as { paths: Record<string, Record<string, unknown>> });
+  // the documentation page's own files (scripts, styles, the document it shows) are public like /docs
+  app.decorate('keyPresence', registerAccess(app, { store: app.store, table, publicPrefixes: ['/docs'] }));
+}
+
+export default fp(accessPlugin, { name: 'roost-access', fastify: '5.x', dependencies: ['roost-store'] });
