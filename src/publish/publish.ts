@@ -22,7 +22,8 @@
 import { hotspotHull } from '../geometry/hull.js';
 import { circlePositions } from '../geometry/hull.js';
 import { geometryAreaKm2 } from '../geometry/area.js';
-import { bboxOf, featureCollectionString, featureString, roundCoord, type GeometryLike } from '../geometry/geojson.js';
+import { bboxOf, featureCollectionString, featureString, featureStringWithProperties, roundCoord, type GeometryLike } from '../geometry/geojson.js';
+import { CATEGORY_FIELD_PREFIX, categoryCounts, propertiesText } from '../geometry/layer-fields.js';
 import { Grid, type Cell } from './grid.js';
 
 /** Every outline point is at least this share of generaliseM from every member (see the header). */
@@ -104,6 +105,9 @@ interface HotspotFeature {
   properties: Record<string, unknown> | null;
 }
 
+/** Published hotspot fields written as reals whatever their value (see src/geometry/layer-fields.ts). */
+const PUBLISHED_REALS: ReadonlySet<string> = new Set(['weight', 'radius_m', 'area_km2', 'density_per_km2', 'centre_lon', 'centre_lat']);
+
 /** Figures copied as they are; everything else is recomputed or dropped. */
 const KEPT_FIGURES = ['hotspot_id', 'track_id', 'count', 'core_count', 'border_count', 'weight', 'radius_m'] as const;
 
@@ -171,15 +175,19 @@ export function publishLayers(points: readonly PointFeature[], hotspots: readonl
     props.count = m.points.length;
     props.area_km2 = round(areaKm2, 6);
     props.density_per_km2 = round(m.points.length / areaKm2, 3);
-    const centre = source.centre as number[] | undefined;
-    const cc = Array.isArray(centre) ? grid.cellOf(centre[0]!, centre[1]!) : cells[0]!;
-    props.centre = [roundCoord(cc.lon), roundCoord(cc.lat)];
-    if (options.countBy && allowed.has(options.countBy) && source.categories !== undefined) props.categories = source.categories;
+    // the layers' flat fields (src/geometry/layer-fields.ts); a summary's figures give `centre`
+    const centre = Array.isArray(source.centre) ? (source.centre as number[]) : typeof source.centre_lon === 'number' ? [source.centre_lon, source.centre_lat as number] : undefined;
+    const cc = centre ? grid.cellOf(centre[0]!, centre[1]!) : cells[0]!;
+    props.centre_lon = roundCoord(cc.lon);
+    props.centre_lat = roundCoord(cc.lat);
+    const counts = categoryCounts(source);
+    if (options.countBy && allowed.has(options.countBy) && counts !== undefined) for (const [c, n] of Object.entries(counts)) props[CATEGORY_FIELD_PREFIX + c] = n;
     published.push(props);
-    hotspotFeatures.push(featureString(outline, props, id));
+    const text = propertiesText(props, PUBLISHED_REALS);
+    hotspotFeatures.push(featureStringWithProperties(outline, text, id));
     outlines.push(outline);
     const point: GeometryLike = { type: 'Point', coordinates: [cc.lon, cc.lat] };
-    centreFeatures.push(featureString(point, props, id));
+    centreFeatures.push(featureStringWithProperties(point, text, id));
     centres.push(point);
   }
 

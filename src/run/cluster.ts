@@ -22,6 +22,7 @@ import {
   featureStringWithProperties,
 } from '../geometry/geojson.js';
 import { hotspotHull, HullSpreadError, type HullGeometry } from '../geometry/hull.js';
+import { categoryNames, hotspotPropertiesText } from '../geometry/layer-fields.js';
 import { roundDecimals, roundMeters, roundSignificant } from '../geometry/rounding.js';
 import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
@@ -200,7 +201,7 @@ function categoryValues(features: InputFeature[], property: string): (string | n
   return out;
 }
 
-function hotspotProperties(f: HotspotFigures, medoidId: string | number): Record<string, unknown> {
+function hotspotProperties(f: HotspotFigures, medoidId: string): Record<string, unknown> {
   return {
     hotspot_id: f.hotspot + 1,
     track_id: null,
@@ -474,7 +475,8 @@ export function clusterObservations(
 
   timer.start('write');
   /** the medoid's observation id: the stored id, else the GeoJSON id, else its input index */
-  const medoidIdOf = (i: number): string | number => (ids !== undefined ? (ids[filtered.kept[i]!] as string) : (features[i]!.id ?? i));
+  // the observation's own id, always as a string (a stored id, the feature's id, else its input position)
+  const medoidIdOf = (i: number): string => (ids !== undefined ? (ids[filtered.kept[i]!] as string) : String(features[i]!.id ?? filtered.kept[i]!));
   const resultHotspots: ResultHotspot[] = [];
   for (let h = 0; h < clustering.count; h++) {
     const own = members.slice(start[h], start[h + 1]);
@@ -504,16 +506,20 @@ export function clusterObservations(
   const centresBbox = bboxOf(figures.map((f) => ({ type: 'Point' as const, coordinates: f.centre })));
   const noiseBbox = bboxOfPositions(noiseLon, noiseLat);
   const pointsBbox = bboxOfPositions(points.lon, points.lat);
+  // the layers' fixed fields (src/geometry/layer-fields.ts), read when a layer is written so that
+  // track ids filled in after clustering are included
+  const categories = categoryNames(resultHotspots.map((r) => r.properties));
+  const layerProperties = (r: ResultHotspot): string => hotspotPropertiesText(r.properties, categories);
   const layers: Record<LayerName, Layer> = {
     hotspots: new Layer(() => [
       featureCollectionString(
-        resultHotspots.map((r) => featureString(r.hull, r.properties, r.hotspotId)),
+        resultHotspots.map((r) => featureStringWithProperties(r.hull, layerProperties(r), r.hotspotId)),
         hotspotsBbox,
       ),
     ]),
     centres: new Layer(() => [
       featureCollectionString(
-        resultHotspots.map((r) => featureString({ type: 'Point', coordinates: r.figures.centre }, r.properties, r.hotspotId)),
+        resultHotspots.map((r) => featureStringWithProperties({ type: 'Point', coordinates: r.figures.centre }, layerProperties(r), r.hotspotId)),
         centresBbox,
       ),
     ]),

@@ -13,9 +13,9 @@ import { buildApp, OPENAPI_PATH } from '../../src/http/app.js';
 import { resolveConfig, type ServerConfig } from '../../src/http/config.js';
 import { rng } from '../reference/seeded.js';
 
-/** A test configuration: one worker, no load shedding by event-loop delay (tests block the loop). */
+/** A test configuration: one worker, no load shedding by event-loop delay (tests block the loop), no rate limit (tests poll; test/http/edge.test.ts sets one). */
 export function testConfig(overrides: Partial<Record<keyof ServerConfig, unknown>> = {}): ServerConfig {
-  return resolveConfig({ workers: 1, queueSize: 4, maxEventLoopDelayMs: 0, logLevel: 'silent', dbPath: ':memory:', ...overrides }, {});
+  return resolveConfig({ workers: 1, queueSize: 4, maxEventLoopDelayMs: 0, logLevel: 'silent', dbPath: ':memory:', rateLimitPerMinute: 0, ...overrides }, {});
 }
 
 export async function testApp(overrides: Partial<Record<keyof ServerConfig, unknown>> = {}): Promise<FastifyInstance> {

@@ -32,7 +32,8 @@ describe('placements in the answer to an observation post', () => {
       if (Date.now() > end) throw new Error('run not finished in 60 s');
       await new Promise((r) => setTimeout(r, 50));
     }
-    first = JSON.parse((await app.inject({ method: 'GET', url: '/v1/datasets/p/runs/latest/hotspots' })).body).features[0].properties;
+    const props = JSON.parse((await app.inject({ method: 'GET', url: '/v1/datasets/p/runs/latest/hotspots' })).body).features[0].properties;
+    first = { ...props, centre: [props.centre_lon, props.centre_lat] };
   });
   afterAll(async () => {
     await app.close();

@@ -91,7 +91,8 @@ describe('runs on a SQLite file (worker threads)', () => {
     expectMatchesSpec(latest, '/v1/datasets/{id}/runs/latest', 'GET');
     const runId = latest.json().id as string;
     const hotspots = JSON.parse((await app.inject({ method: 'GET', url: '/v1/datasets/same/runs/latest/hotspots' })).body);
-    const centre = hotspots.features[0].properties.centre as [number, number];
+    const { centre_lon, centre_lat } = hotspots.features[0].properties as { centre_lon: number; centre_lat: number };
+    const centre = [centre_lon, centre_lat];
     const inside = await app.inject({
       method: 'POST',
       url: '/v1/datasets/same/observations',

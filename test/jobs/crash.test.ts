@@ -27,7 +27,7 @@ interface Server {
 /** Starts `roost serve` on a free port; resolves with its URL once it listens (bounded wait). */
 function serve(db: string): Promise<Server> {
   return new Promise((resolve, reject) => {
-    const child = spawn(process.execPath, ['--import', 'tsx', join(root, 'src/cli/bin.ts'), 'serve', '--port', '0', '--db', db, '--workers', '1'], { cwd: root, stdio: ['ignore', 'pipe', 'pipe'] });
+    const child = spawn(process.execPath, ['--import', 'tsx', join(root, 'src/cli/bin.ts'), 'serve', '--port', '0', '--db', db, '--workers', '1', '--rate-limit', '0'], { cwd: root, stdio: ['ignore', 'pipe', 'pipe'] });
     children.add(child);
     let out = '';
     const timer = setTimeout(() => reject(new Error(`server did not start: ${out}`)), 30_000);
