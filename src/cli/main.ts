@@ -7,10 +7,11 @@
  *   roost keys create|list|revoke
  */
 import { readFile } from 'node:fs/promises';
+import { basename } from 'node:path';
 import { Command, Option } from 'commander';
 import { InputError } from '../ingest/types.js';
-import { clusterInput, suggestEpsInput, type InputFormat, type Stage } from '../run/cluster.js';
-import { LAYER_NAMES } from '../run/layers.js';
+import { clusterInput, suggestEpsInput, type ClusterResult, type InputFormat, type Stage } from '../run/cluster.js';
+import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { resolveSettings, SettingsError } from '../run/settings.js';
 import { publishedSummary, publishLayerTexts, PublishError, resolvePublishOptions, type PublishOptions } from '../publish/publish.js';
 import { ROOST_VERSION } from '../run/version.js';
@@ -98,6 +99,24 @@ function fail(err: unknown): number {
   return EXIT.failure;
 }
 
+/** report.html for a command-line result (see src/report/report.ts). */
+async function reportFile(result: ClusterResult, input: string): Promise<[string, Iterable<string>][]> {
+  const { renderReport, reportData } = await import('../report/report.js');
+  const text = (name: LayerName): string => result.layers[name].text();
+  const data = await reportData({
+    title: `${input === '-' ? 'standard input' : basename(input)}: ${String((result.summary.figures as { hotspots: number }).hotspots)} hotspot(s)`,
+    dataset: null,
+    run: null,
+    summary: result.summary,
+    hotspots: text('hotspots'),
+    centres: text('centres'),
+    noise: text('noise'),
+    points: () => text('points'),
+    observations: () => result.observations.points,
+  });
+  return [['report.html', [renderReport(data)]]];
+}
+
 const collect = (value: string, previous: string[] = []): string[] => [...previous, value];
 
 /**
@@ -171,6 +190,7 @@ export function buildProgram(setExit: (code: number) => void): Command {
     .addOption(new Option('--optics-extraction <how>', 'OPTICS: cut hotspots at eps or by the ξ method').choices(['eps', 'xi']))
     .option('--xi <x>', 'OPTICS ξ: relative reachability drop bounding a hotspot (default 0.05)')
     .option('--min-cluster-size <n>', 'OPTICS ξ: fewest observations in a hotspot (default: larger of min-points and 0.5 % of observations)')
+    .option('--report', 'also write report.html: the map, figures, k-distance or reachability plot, warnings and cautions in one file that opens with no network')
     .option('--generalise-m <metres>', 'write published layers instead: positions on a grid of this many metres, outlines from grid cells (see the README\'s Security section)')
     .option('--min-count <n>', 'published layers: withhold hotspots of fewer observations (default 1)')
     .option('--withhold-noise', 'published layers: leave noise out')
@@ -190,6 +210,7 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
       try {
         const settings = resolveSettings(settingsFromFlags(opts));
         const publish = publishFromFlags(opts, settings.countBy);
+        if (publish !== null && opts.report) throw new PublishError('generalise_m', '--report shows exact positions and cannot be combined with --generalise-m; write the report from an unpublished result');
         const data = await readInput(input);
         const showProgress = Boolean(opts.progress) || (process.stderr.isTTY && data.length > 5_000_000);
         const onProgress = progressReporter(showProgress);
@@ -219,9 +240,11 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
           setExit(EXIT.ok);
           return;
         }
+        const report = opts.report ? await reportFile(result, input) : [];
         // summary.json is written last so that its write stage includes the other files.
         await writeResultFolder(String(opts.outDir), [
           ...LAYER_NAMES.map((name) => [`${name}.geojson`, result.layers[name].chunks()] as [string, Iterable<string>]),
+          ...report,
           [
             'summary.json',
             () => {

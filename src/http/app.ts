@@ -32,6 +32,7 @@ import datasetRoutes from './routes/datasets.js';
 import observationRoutes from './routes/observations.js';
 import runRoutes from './routes/runs.js';
 import serviceRoutes from './routes/service.js';
+import webRoutes from './routes/web.js';
 
 export { OPENAPI_PATH } from './contract.js';
 
@@ -147,6 +148,7 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   await app.register(changeRoutes);
   await app.register(publishedRoutes);
   await app.register(keyRoutes);
+  await app.register(webRoutes, { basemapStyle: config.basemapStyle });
   // registered last so the slow start-up above does not count as event-loop delay; its hook
   // reaches every route group all the same
   await app.register(underPressure, {

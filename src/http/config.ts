@@ -58,6 +58,8 @@ export interface ServerConfig {
   webhookTimeoutMs: number;
   /** the service's address as clients see it (for example https://roost.example.org), for absolute links in notices; '' gives paths */
   publicUrl: string;
+  /** a MapLibre style URL for the map page's background (the operator's usual tiles); '' uses the built-in offline background */
+  basemapStyle: string;
   /** let webhooks reach private-network and loopback addresses (and http: to this machine) */
   allowPrivateWebhooks: boolean;
   /** listen beyond loopback with no API key in the store (anyone who can reach it may do anything) */
@@ -110,6 +112,7 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   webhookAttempts: 5,
   webhookTimeoutMs: 10_000,
   publicUrl: '',
+  basemapStyle: '',
   allowPrivateWebhooks: false,
   open: false,
   allowedHosts: '',
@@ -161,6 +164,7 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'allowedHosts', flag: '--allowed-hosts', env: 'ROOST_ALLOWED_HOSTS', kind: 'string', help: 'host names answered besides loopback, the listening address and the public URL\'s host (comma-separated)' },
   { key: 'corsOrigins', flag: '--cors-origins', env: 'ROOST_CORS_ORIGINS', kind: 'string', help: 'web origins allowed to call from a browser, e.g. https://map.example.org (comma-separated)' },
   { key: 'rateLimitPerMinute', flag: '--rate-limit', env: 'ROOST_RATE_LIMIT', kind: 'integer', help: 'requests per minute per key, or per address without one (0 = no limit)' },
+  { key: 'basemapStyle', flag: '--basemap-style', env: 'ROOST_BASEMAP_STYLE', kind: 'string', help: 'MapLibre style URL for the map page background (default: the built-in offline land and coastlines)' },
   { key: 'allowPrivateWebhooks', flag: '--allow-private-webhooks', env: 'ROOST_ALLOW_PRIVATE_WEBHOOKS', kind: 'switch', help: 'let webhooks reach private-network and loopback addresses (http: only to this machine)' },
 ];
 
@@ -266,6 +270,7 @@ function check(config: ServerConfig): ServerConfig {
     if (!ok) throw new ConfigError(`${spec('corsOrigins')}: ${JSON.stringify(o)} is not a web origin such as https://map.example.org (scheme, host and port only)`);
   }
   if (config.publicUrl !== '' && !/^https?:\/\/[^/]/i.test(config.publicUrl)) throw new ConfigError(`${spec('publicUrl')}: must be an http:// or https:// address`);
+  if (config.basemapStyle !== '' && !/^(https?:\/\/[^/]|\/)/i.test(config.basemapStyle)) throw new ConfigError(`${spec('basemapStyle')}: must be an http:// or https:// address or a path on this service`);
   if (config.databaseUrl !== '' && !/^postgres(ql)?:\/\//i.test(config.databaseUrl)) throw new ConfigError(`${spec('databaseUrl')}: must start with postgres:// or postgresql://`);
   return config;
 }

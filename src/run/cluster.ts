@@ -5,7 +5,7 @@
  */
 import { dbscan } from '../core/dbscan.js';
 import { suggestEps } from '../core/kdistance.js';
-import { extractDbscan, extractXi, optics } from '../core/optics.js';
+import { extractDbscan, extractXi, optics, type OpticsResult } from '../core/optics.js';
 import { SphereIndex } from '../core/sphere-index.js';
 import { ROLE_CORE, ROLE_NAMES, type Clustering, type PointSet } from '../core/types.js';
 import { clusteringWarnings, type ClusteringWarning } from '../core/warnings.js';
@@ -171,14 +171,39 @@ export const DEFAULT_MIN_CLUSTER_SHARE = 0.005;
 /** OPTICS searches up to this many times eps unless optics_max_eps is given. */
 export const DEFAULT_OPTICS_MAX_EPS_FACTOR = 3;
 
-function runMethod(points: PointSet, index: SphereIndex, epsMeters: number, settings: ClusterSettings, progress: (d: number) => void): Clustering {
+function runMethod(
+  points: PointSet,
+  index: SphereIndex,
+  epsMeters: number,
+  settings: ClusterSettings,
+  progress: (d: number) => void,
+): { clustering: Clustering; ordering: OpticsResult | null } {
   if (settings.method === 'dbscan') {
-    return dbscan(points, { epsMeters, minPoints: settings.minPoints, index, onProgress: progress });
+    return { clustering: dbscan(points, { epsMeters, minPoints: settings.minPoints, index, onProgress: progress }), ordering: null };
   }
   const maxEps = settings.opticsMaxEpsMeters ?? DEFAULT_OPTICS_MAX_EPS_FACTOR * epsMeters;
   const ordering = optics(points, { maxEpsMeters: maxEps, minPoints: settings.minPoints, onProgress: progress });
-  if (settings.opticsExtraction === 'eps') return extractDbscan(ordering, Math.min(epsMeters, maxEps));
-  return extractXi(ordering, { xi: settings.xi, minClusterSize: settings.minClusterSize ?? defaultMinClusterSize(points.n, settings.minPoints) }).clustering;
+  if (settings.opticsExtraction === 'eps') return { clustering: extractDbscan(ordering, Math.min(epsMeters, maxEps)), ordering };
+  return {
+    clustering: extractXi(ordering, { xi: settings.xi, minClusterSize: settings.minClusterSize ?? defaultMinClusterSize(points.n, settings.minPoints) }).clustering,
+    ordering,
+  };
+}
+
+/**
+ * The members OPTICS adds to each point feature, as JSON text (leading comma): `optics_order`,
+ * the point's 0-based position in the cluster ordering, and `reachability_m`, its reachability
+ * distance in metres (null where undefined: the first point of each part of the ordering, and
+ * points reached from no core point within optics_max_eps). Together they draw the reachability
+ * plot: bars of height reachability_m in optics_order.
+ */
+function opticsMembers(ordering: OpticsResult): (i: number) => string {
+  const position = new Int32Array(ordering.order.length);
+  for (let k = 0; k < ordering.order.length; k++) position[ordering.order[k]] = k;
+  return (i) => {
+    const r = ordering.reachability[i];
+    return `,"optics_order":${position[i]},"reachability_m":${Number.isFinite(r) ? roundMeters(r) : 'null'}`;
+  };
 }
 
 /** Members of every hotspot as one CSR layout: hotspot h owns members[start[h] .. start[h+1]). */
@@ -227,13 +252,13 @@ function hotspotProperties(f: HotspotFigures, medoidId: string): Record<string, 
  * The two members are appended to the properties' JSON text rather than to a copied object: a
  * million spread copies cost more than the whole clustering.
  */
-export function pointFeature(f: InputFeature, hotspot: number, role: number): string {
+export function pointFeature(f: InputFeature, hotspot: number, role: number, extra = ''): string {
   const own = f.properties;
-  const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"}`;
+  const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"${extra}}`;
   let props: string;
   if (own === null || own === undefined) props = '{' + added;
   else if (Object.hasOwn(own, 'hotspot_id') || Object.hasOwn(own, 'role')) {
-    props = JSON.stringify({ ...own, hotspot_id: hotspot >= 0 ? hotspot + 1 : null, role: ROLE_NAMES[role] });
+    props = JSON.stringify({ ...own, hotspot_id: hotspot >= 0 ? hotspot + 1 : null, role: ROLE_NAMES[role], ...(extra ? (JSON.parse(`{${extra.slice(1)}}`) as object) : {}) });
   } else {
     const text = JSON.stringify(own);
     props = text.length === 2 ? '{' + added : text.slice(0, -1) + ',' + added;
@@ -284,7 +309,7 @@ const POINT_HEAD = '{"type":"Point","coordinates":[';
  * path does not cover (an id that is not a string or number, a geometry with other members,
  * properties already holding `hotspot_id` or `role`) are parsed and go through pointFeature.
  */
-export function pointFeatureFromText(text: string, hotspot: number, role: number): string {
+export function pointFeatureFromText(text: string, hotspot: number, role: number, extra = ''): string {
   let id = '';
   let geometry = '';
   let props = '';
@@ -304,13 +329,13 @@ export function pointFeatureFromText(text: string, hotspot: number, role: number
   const idOk = id === '' || id.charCodeAt(0) === 34 || Number.isFinite(Number(id));
   const propsOk = props === '' || props === 'null' || (props.charCodeAt(0) === 123 && !props.includes('"hotspot_id"') && !props.includes('"role"'));
   if (!ok || !idOk || !propsOk || !geometry.startsWith(POINT_HEAD) || !geometry.endsWith(']}') || geometry.includes('[', POINT_HEAD.length)) {
-    return pointFeature(JSON.parse(text) as InputFeature, hotspot, role);
+    return pointFeature(JSON.parse(text) as InputFeature, hotspot, role, extra);
   }
   const coords = geometry.slice(POINT_HEAD.length, -2).split(',');
-  if (coords.length < 2) return pointFeature(JSON.parse(text) as InputFeature, hotspot, role);
+  if (coords.length < 2) return pointFeature(JSON.parse(text) as InputFeature, hotspot, role, extra);
   let position = '[';
   for (let k = 0; k < coords.length; k++) position += (k ? ',' : '') + coordText(Number(coords[k]));
-  const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"}`;
+  const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"${extra}}`;
   const properties = props === '' || props === 'null' || props === '{}' ? '{' + added : props.slice(0, -1) + ',' + added;
   return `{"type":"Feature"${id === '' ? '' : ',"id":' + id},"geometry":{"type":"Point","coordinates":${position}]},"properties":${properties}}`;
 }
@@ -421,7 +446,7 @@ export function clusterObservations(
   const index = new SphereIndex(points, epsMeters);
 
   timer.start('cluster');
-  const clustering = runMethod(points, index, epsMeters, settings, (d) => hooks.onProgress?.('cluster', d));
+  const { clustering, ordering } = runMethod(points, index, epsMeters, settings, (d) => hooks.onProgress?.('cluster', d));
 
   timer.start('figures');
   const { start, members } = membersByHotspot(clustering);
@@ -496,10 +521,11 @@ export function clusterObservations(
   }
   const { labels, roles } = clustering;
   const kept = filtered.kept;
+  const extra = ordering === null ? () => '' : opticsMembers(ordering);
   function* pointFeatures(noiseOnly: boolean): Generator<string> {
     for (let i = 0; i < points.n; i++) {
       if (noiseOnly && labels[i] >= 0) continue;
-      yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i]) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i]);
+      yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i], extra(i)) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i], extra(i));
     }
   }
   const hotspotsBbox = bboxOf(hulls);

@@ -16,9 +16,13 @@ const pkg = JSON.parse(readFileSync(join(ROOT, 'package.json'), 'utf8')) as {
   devDependencies: Record<string, string>;
 };
 
+/** src/web is browser code: Vite bundles it and its packages into dist/web at build time, so they are development dependencies. */
+const BUNDLED = join(ROOT, 'src', 'web');
+
 function sourceFiles(dir: string): string[] {
   return readdirSync(dir).flatMap((name) => {
     const p = join(dir, name);
+    if (p === BUNDLED) return [];
     return statSync(p).isDirectory() ? sourceFiles(p) : p.endsWith('.ts') ? [p] : [];
   });
 }

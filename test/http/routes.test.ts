@@ -70,9 +70,10 @@ describe('service routes', () => {
   it('every route is in the spec and every spec operation is served', async () => {
     const documented = new Set<string>();
     for (const [path, item] of Object.entries(spec.paths)) for (const m of Object.keys(item)) documented.add(`${m.toUpperCase()} ${path}`);
-    // the documentation page's own helpers (/docs/json, /docs/static/…) belong to the page, not the API
+    // the documentation page's own helpers (/docs/json, /docs/static/…) and the map page's files
+    // (/assets/…) belong to the pages, not the API
     // Fastify writes path parameters as :name, OpenAPI as {name}
-    const served = routes.filter((r) => !r.url.startsWith('/docs/')).map((r) => `${r.method} ${r.url.replace(/:(\w+)/g, '{$1}')}`);
+    const served = routes.filter((r) => !r.url.startsWith('/docs/') && !r.url.startsWith('/assets/')).map((r) => `${r.method} ${r.url.replace(/:(\w+)/g, '{$1}')}`);
     expect(new Set(served)).toEqual(documented);
     for (const key of documented) {
       const [method, template] = key.split(' ') as ['GET' | 'POST' | 'PATCH' | 'DELETE', string];

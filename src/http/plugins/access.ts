@@ -18,8 +18,9 @@ declare module 'fastify' {
 
 async function accessPlugin(app: FastifyInstance): Promise<void> {
   const table = accessTable(parse(readFileSync(OPENAPI_PATH, 'utf8')) as { paths: Record<string, Record<string, unknown>> });
-  // the documentation page's own files (scripts, styles, the document it shows) are public like /docs
-  app.decorate('keyPresence', registerAccess(app, { store: app.store, table, publicPrefixes: ['/docs'] }));
+  // the documentation page's and the map page's own files (scripts, styles, the document it shows)
+  // are public like the pages; the data they show is read from the API, with a key
+  app.decorate('keyPresence', registerAccess(app, { store: app.store, table, publicPrefixes: ['/docs', '/assets'] }));
 }
 
 export default fp(accessPlugin, { name: 'roost-access', fastify: '5.x', dependencies: ['roost-store'] });
