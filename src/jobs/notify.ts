@@ -117,6 +117,10 @@ export interface RunNotice {
   previous_run: string | null;
   counts: Record<TransitionKind, number> | null;
   links: { run: string; hotspots: string; changes: string };
+  /** whether the links are absolute URLs (the service has --public-url) or paths on the service that sent the notice */
+  links_are: 'absolute' | 'paths';
+  /** with paths only: how to get absolute links */
+  links_note?: string;
 }
 
 /**
@@ -134,6 +138,9 @@ export function runNotice(dataset: Dataset, run: Run, outcome: RunOutcome, publi
     previous_run: changes?.previous_run ?? null,
     counts: changes?.counts ?? null,
     links: { run: `${base}/runs/${run.id}`, hotspots: `${base}/runs/${run.id}/hotspots`, changes: `${base}/changes?to=${run.id}` },
+    ...(publicUrl === null
+      ? { links_are: 'paths' as const, links_note: 'The links are paths on the Roost service that sent this notice; start it with --public-url (ROOST_PUBLIC_URL) for absolute links.' }
+      : { links_are: 'absolute' as const }),
   };
 }
 

@@ -185,6 +185,7 @@ describe('notices after stored runs', () => {
         hotspots: `https://roost.example.org/v1/datasets/nests/runs/${r2.id}/hotspots`,
         changes: `https://roost.example.org/v1/datasets/nests/changes?to=${r2.id}`,
       },
+      links_are: 'absolute',
     });
     for (const g of r.got) expect(receiverAccepts(SECRET, g.body, g.headers['roost-signature'] as string)).toBe(true);
     await hooks.close();

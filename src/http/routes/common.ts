@@ -3,6 +3,7 @@
  * on the main thread (small documents only), the JSON shapes of datasets and runs, and the
  * mapping of store errors to problems.
  */
+import { nextSlot } from '../../jobs/schedule.js';
 import type { FastifyRequest } from 'fastify';
 import type { JobPool } from '../../jobs/job-pool.js';
 import type { Runner } from '../../jobs/runner.js';
@@ -79,6 +80,19 @@ export function integer(query: Record<string, unknown>, name: string, dflt: numb
   return n;
 }
 
+/**
+ * When the dataset's schedule next fires (RFC 3339, UTC), or null without a usable schedule.
+ * The scheduled run is created at that slot, or within --schedule-scan-ms of it.
+ */
+function nextRunAt(d: Dataset, now = new Date()): string | null {
+  if (d.schedule === null) return null;
+  try {
+    return nextSlot(d.schedule, now)?.toISOString() ?? null;
+  } catch {
+    return null; // stored before the checks of today; the scheduler warns about it
+  }
+}
+
 /** A dataset as the API shows it (the webhook secret is never shown). */
 export function datasetJson(d: Dataset, observations?: number): Record<string, unknown> {
   const base = `/v1/datasets/${d.id}`;
@@ -89,6 +103,7 @@ export function datasetJson(d: Dataset, observations?: number): Record<string, u
     id_property: d.idProperty,
     window: d.window,
     schedule: d.schedule,
+    next_run_at: nextRunAt(d),
     webhook: d.webhook === null ? null : { url: d.webhook.url },
     publish: d.publish,
     created_at: d.createdAt,

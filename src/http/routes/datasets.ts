@@ -67,8 +67,10 @@ function readFields(doc: Record<string, unknown>, allowPrivateWebhooks: boolean,
   }
   if (doc.schedule !== undefined) {
     const s = doc.schedule as Record<string, unknown> | null;
-    if (s !== null && (typeof s !== 'object' || typeof s.cron !== 'string' || typeof s.timezone !== 'string')) {
-      bad('schedule', 'must be {"cron": "0 2 * * *", "timezone": "Europe/Zurich"} or null');
+    if (s !== null && (typeof s !== 'object' || Array.isArray(s))) bad('schedule', 'must be {"cron": "0 2 * * *", "timezone": "Europe/Zurich"} or null');
+    if (s !== null && typeof s.cron !== 'string') bad('schedule', 'has no cron expression: give "cron", for example "0 2 * * *" (every night at 02:00)');
+    if (s !== null && typeof s.timezone !== 'string') {
+      bad('schedule', 'has no time zone: give "timezone", an IANA time zone name such as "Europe/Berlin" or "UTC", in which the cron expression is read');
     }
     out.schedule = s === null ? null : { cron: s.cron as string, timezone: s.timezone as string };
     const problem = out.schedule === null ? null : scheduleProblem(out.schedule, scheduleMinIntervalMs);
