@@ -98,7 +98,7 @@ export async function reclusterAction(
     }
     let failed = 0;
     for (const d of datasets) {
-      const run = await reclusterDataset(store, d, hooks);
+      const run = await reclusterDataset(store, d, hooks, 500, (text) => io.err(`roost recluster: ${text}\n`));
       if (run.status !== 'succeeded') failed++;
       io.out(outcomeLine(run) + '\n');
     }

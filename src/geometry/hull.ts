@@ -78,7 +78,15 @@ function frameAt(cx: number, cy: number, cz: number): Frame {
   return { cx, cy, cz, ex, ey, ez, nx: cy * ez - cz * ey, ny: cz * ex - cx * ez, nz: cx * ey - cy * ex };
 }
 
-/** Projects positions (degrees) into xs/ys; throws if any lies too far from the centre. */
+/** Members spread too widely for a hull (more than MAX_SPREAD_DEG from their centre, or evenly round the globe). */
+export class HullSpreadError extends Error {
+  constructor(message: string) {
+    super(message);
+    this.name = 'HullSpreadError';
+  }
+}
+
+/** Projects positions (degrees) into xs/ys; throws HullSpreadError if any lies too far from the centre. */
 function project(f: Frame, lon: ArrayLike<number>, lat: ArrayLike<number>, xs: Float64Array, ys: Float64Array): void {
   for (let i = 0; i < lon.length; i++) {
     const la = lat[i] * RAD, lo = lon[i] * RAD;
@@ -86,9 +94,9 @@ function project(f: Frame, lon: ArrayLike<number>, lat: ArrayLike<number>, xs: F
     const px = c * Math.cos(lo), py = c * Math.sin(lo), pz = Math.sin(la);
     const d = px * f.cx + py * f.cy + pz * f.cz;
     if (!(d >= MIN_DOT)) {
-      throw new Error(
-        `hotspotHull: member ${i} at [${lon[i]}, ${lat[i]}] lies more than ${MAX_SPREAD_DEG}° from the hotspot's centre; ` +
-        'a hull needs its members within one hemisphere (use a smaller eps)');
+      throw new HullSpreadError(
+        `member ${i} at [${lon[i]}, ${lat[i]}] lies more than ${MAX_SPREAD_DEG}° from the centre; ` +
+        'a hull needs its members within one hemisphere');
     }
     xs[i] = (px * f.ex + py * f.ey + pz * f.ez) / d;
     ys[i] = (px * f.nx + py * f.ny + pz * f.nz) / d;
@@ -257,7 +265,7 @@ export function hullVertices(lon: ArrayLike<number>, lat: ArrayLike<number>, opt
     sx += c * Math.cos(lo); sy += c * Math.sin(lo); sz += Math.sin(la);
   }
   const len = Math.hypot(sx, sy, sz);
-  if (!(len > 1e-9 * n)) throw new Error('hotspotHull: members are spread evenly round the globe; they have no mean position');
+  if (!(len > 1e-9 * n)) throw new HullSpreadError('the members are spread evenly round the globe; they have no mean position');
   const frame = frameAt(sx / len, sy / len, sz / len);
   const xs = new Float64Array(n), ys = new Float64Array(n);
   project(frame, lon, lat, xs, ys);

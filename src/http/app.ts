@@ -7,7 +7,7 @@
  */
 import { randomUUID } from 'node:crypto';
 import type { Duplex } from 'node:stream';
-import Fastify, { type FastifyInstance, type FastifyReply, type FastifyRequest } from 'fastify';
+import Fastify, { type FastifyError, type FastifyInstance, type FastifyReply, type FastifyRequest } from 'fastify';
 import underPressure from '@fastify/under-pressure';
 import type { RunHooks } from '../jobs/hooks.js';
 import type { StoreConfig } from '../storage/index.js';
@@ -80,6 +80,25 @@ function badHttp(err: NodeJS.ErrnoException & { rawPacket?: unknown }, socket: D
   );
 }
 
+/**
+ * Answers what the router refuses before any route or hook runs (a path with bad percent-encoding,
+ * a path segment too long) as a problem like every other error.
+ */
+function frameworkErrors(error: FastifyError, request: FastifyRequest, reply: FastifyReply): void {
+  const problem =
+    error.code === 'FST_ERR_MAX_PARAM_LENGTH'
+      ? new HttpProblem('uri-too-long', 'A segment of the path is longer than this service reads; ids are at most 256 characters.')
+      : error.code === 'FST_ERR_BAD_URL'
+        ? new HttpProblem('bad-request', 'The path has a bad percent-encoding: every % must be followed by two hex digits, and the bytes must be UTF-8 text.')
+        : new HttpProblem('bad-request', 'The request cannot be routed.');
+  request.log.info({ code: problem.code, detail: problem.message }, 'request refused');
+  void reply
+    .code(problem.status)
+    .header('x-request-id', request.id)
+    .type(PROBLEM_MEDIA_TYPE)
+    .send(JSON.stringify(problem.body(String(request.id))));
+}
+
 /** The Fastify instance with the server-level settings: limits, timeouts, request ids. */
 function createServer(config: ServerConfig, logger: AppOptions['logger']): FastifyInstance {
   return Fastify({
@@ -91,6 +110,9 @@ function createServer(config: ServerConfig, logger: AppOptions['logger']): Fasti
     return503OnClosing: false,
     requestIdHeader: false,
     clientErrorHandler: badHttp,
+    // ids are at most 256 characters (src/ingest/limits.ts), escaped up to three times as long
+    routerOptions: { maxParamLength: 3 * 256 },
+    frameworkErrors,
     genReqId: (req) => {
       const given = req.headers['x-request-id'];
       return typeof given === 'string' && REQUEST_ID.test(given) ? given : randomUUID();
@@ -109,7 +131,7 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
 
   await app.register(problems);
   await app.register(shutdown, { retryAfterS: config.retryAfterS });
-  await app.register(bodies, { bodyLimitBytes: config.bodyLimitBytes });
+  await app.register(bodies, { bodyLimitBytes: config.bodyLimitBytes, uploads: config.uploads, uploadTimeoutMs: config.uploadTimeoutMs, retryAfterS: config.retryAfterS });
   await app.register(storePlugin, { databaseUrl: config.databaseUrl, dbPath: config.dbPath, store: options.store, storeConfig: options.storeConfig });
   // the edge and access checks reach every route group registered after them
   await app.register(edge, { config });
@@ -117,13 +139,13 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   await app.register(audit);
   const { workers, queueSize, runConcurrency, retryAfterS } = config;
   await app.register(pools, { workers, queueSize, runConcurrency, retryAfterS, pool: options.pool });
-  const { scheduleScanMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl } = config;
-  await app.register(runQueue, { runConcurrency, scheduleScanMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl, hooks: options.hooks });
+  const { scheduleScanMs, scheduleMinIntervalS, runHeartbeatMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl } = config;
+  await app.register(runQueue, { runConcurrency, scheduleScanMs, scheduleMinIntervalS, runHeartbeatMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl, hooks: options.hooks });
   await app.register(serviceRoutes, { publicUrl });
   await app.register(clusterRoutes, { timeLimitMs: config.timeLimitMs, retryAfterS });
-  await app.register(datasetRoutes, { allowPrivateWebhooks });
-  await app.register(observationRoutes);
-  await app.register(runRoutes);
+  await app.register(datasetRoutes, { allowPrivateWebhooks, scheduleMinIntervalMs: config.scheduleMinIntervalS * 1000 });
+  await app.register(observationRoutes, { maxPostFeatures: config.maxPostFeatures });
+  await app.register(runRoutes, { layerStreams: config.layerStreams, maxQueuedRuns: config.maxQueuedRuns, retryAfterS });
   await app.register(changeRoutes);
   await app.register(publishedRoutes);
   await app.register(keyRoutes);

@@ -1,8 +1,8 @@
 /**
  * Request bodies are collected as raw bytes and never parsed on the main thread: a worker reads
- * them. When the client declares Content-Length, the bytes are copied chunk by chunk into one
- * buffer of that size as they arrive, so no large copy ever blocks the event loop; the buffer
- * owns its memory and can be transferred to a worker without copying.
+ * them. The chunks are kept as they arrive and joined once into a buffer of the exact size,
+ * which owns its memory and can be transferred to a worker without copying. Content-Length is
+ * trusted for nothing but an early 413.
  */
 import type { FastifyRequest } from 'fastify';
 import { HttpProblem } from './errors.js';
@@ -35,35 +35,87 @@ function tooLarge(limitBytes: number): HttpProblem {
   );
 }
 
-/** Smallest first allocation when the size is not declared, in bytes. */
-const FIRST_CHUNK_BYTES = 64 * 1024;
+/**
+ * The bodies being received at once, across every route that reads one. A body holds an upload
+ * slot from its first byte to its last, and no longer; a client sending slowly holds only that,
+ * never a worker or a place in the waiting line, and is cut at the deadline.
+ */
+export interface UploadAllowance {
+  /** bodies being received now */
+  readonly inProgress: number;
+}
+
+export interface BodyOptions {
+  /** largest accepted body, bytes */
+  limitBytes: number;
+  /** bodies received at once; one more is answered 503 before it is read */
+  uploads: number;
+  /** time allowed for a whole body to arrive, milliseconds; a slower sender gets 408 and the connection is closed */
+  uploadTimeoutMs: number;
+  /** seconds a turned-away client is asked to wait */
+  retryAfterS: number;
+}
 
 /**
- * A Fastify content-type parser that yields the body as a Uint8Array in its own ArrayBuffer,
- * refusing (413) bodies over `limitBytes` before reading them when Content-Length says so, and
- * as soon as the count passes the limit otherwise.
+ * A Fastify content-type parser that yields the body as a Uint8Array in its own ArrayBuffer.
+ * Bodies over `limitBytes` are refused (413) before they are read when Content-Length says so,
+ * and as soon as the count passes the limit otherwise. Nothing is allocated from what
+ * Content-Length declares: the chunks are kept as they arrive and joined once at the end, so a
+ * client declaring 256 MiB and sending nothing costs nothing. Each body takes an upload slot
+ * (503 with Retry-After when all are taken) and must arrive within `uploadTimeoutMs` (408).
  */
-export function rawBodyParser(limitBytes: number) {
-  return (request: FastifyRequest, payload: NodeJS.ReadableStream, done: (err: Error | null, body?: Uint8Array) => void): void => {
+export function rawBodyParser(options: BodyOptions): { parser: (request: FastifyRequest, payload: NodeJS.ReadableStream, done: (err: Error | null, body?: Uint8Array) => void) => void; allowance: UploadAllowance } {
+  const { limitBytes } = options;
+  let uploading = 0;
+  const allowance: UploadAllowance = {
+    get inProgress() {
+      return uploading;
+    },
+  };
+  const parser = (request: FastifyRequest, payload: NodeJS.ReadableStream, done: (err: Error | null, body?: Uint8Array) => void): void => {
     const header = request.headers['content-length'];
     const declared = header === undefined ? NaN : Number(header);
     if (declared > limitBytes) {
       done(tooLarge(limitBytes));
       return;
     }
+    if (uploading >= options.uploads) {
+      // the body stays unread: the answer closes the connection
+      done(
+        new HttpProblem('overloaded', `${options.uploads} request bodies are being received already; retry later.`, {}, { 'retry-after': String(options.retryAfterS), connection: 'close' }),
+      );
+      return;
+    }
+    uploading++;
     const known = Number.isSafeInteger(declared) && declared >= 0;
-    let buffer = ownBuffer(known ? declared : Math.min(FIRST_CHUNK_BYTES, limitBytes));
+    const chunks: Buffer[] = [];
     let received = 0;
     let finished = false;
 
     const finish = (err: Error | null, body?: Uint8Array): void => {
       if (finished) return;
       finished = true;
+      uploading--;
+      clearTimeout(deadline);
       payload.removeListener('data', onData);
       payload.removeListener('end', onEnd);
       payload.removeListener('error', onError);
+      payload.removeListener('close', onClose);
       done(err, body);
     };
+    const deadline = setTimeout(() => {
+      finish(
+        new HttpProblem(
+          'request-timeout',
+          `The request body did not arrive within ${options.uploadTimeoutMs} ms (${received} bytes came); send it faster or in smaller parts, or ask the operator to raise --upload-timeout-ms.`,
+          { upload_timeout_ms: options.uploadTimeoutMs },
+          { connection: 'close' },
+        ),
+      );
+      // stop reading: what is still on its way is not wanted
+      payload.pause();
+    }, options.uploadTimeoutMs);
+    deadline.unref();
     const onData = (chunk: Buffer | string): void => {
       const bytes = typeof chunk === 'string' ? Buffer.from(chunk) : chunk;
       const next = received + bytes.length;
@@ -71,17 +123,11 @@ export function rawBodyParser(limitBytes: number) {
         finish(tooLarge(limitBytes));
         return;
       }
-      if (next > buffer.length) {
-        if (known) {
-          finish(new HttpProblem('bad-request', 'The request body is longer than its Content-Length header says.'));
-          return;
-        }
-        // growing by doubling keeps the total copying linear in the body size
-        const grown = ownBuffer(Math.min(limitBytes, Math.max(next, buffer.length * 2)));
-        buffer.copy(grown, 0, 0, received);
-        buffer = grown;
+      if (known && next > declared) {
+        finish(new HttpProblem('bad-request', 'The request body is longer than its Content-Length header says.'));
+        return;
       }
-      bytes.copy(buffer, received);
+      chunks.push(bytes);
       received = next;
     };
     const onEnd = (): void => {
@@ -89,15 +135,28 @@ export function rawBodyParser(limitBytes: number) {
         finish(new HttpProblem('bad-request', 'The request body is shorter than its Content-Length header says.'));
         return;
       }
-      // a view on the exact bytes; with a declared length it spans the whole ArrayBuffer
-      finish(null, new Uint8Array(buffer.buffer, buffer.byteOffset, received));
+      // one copy into a buffer of its own, which can be transferred to a worker as it is
+      const body = ownBuffer(received);
+      let at = 0;
+      for (const c of chunks) {
+        c.copy(body, at);
+        at += c.length;
+      }
+      chunks.length = 0;
+      finish(null, new Uint8Array(body.buffer, body.byteOffset, received));
     };
     const onError = (err: Error): void => {
       finish(new HttpProblem('bad-request', `The request body could not be received: ${err.message}`));
     };
+    // the client went away in the middle: the slot is free at once
+    const onClose = (): void => {
+      if (!finished) finish(new HttpProblem('bad-request', 'The client closed the connection before its body arrived.'));
+    };
     payload.on('data', onData);
     payload.on('end', onEnd);
     payload.on('error', onError);
+    payload.on('close', onClose);
     payload.resume();
   };
+  return { parser, allowance };
 }

@@ -20,6 +20,16 @@ export interface ServerConfig {
   timeLimitMs: number;
   /** time allowed to receive a whole request (upload included) in milliseconds */
   requestTimeoutMs: number;
+  /** request bodies received at once; one more is answered 503 before it is read */
+  uploads: number;
+  /** time allowed for a request body to arrive, milliseconds; slower senders get 408 */
+  uploadTimeoutMs: number;
+  /** most observations in one POST …/observations; more is a 413 */
+  maxPostFeatures: number;
+  /** layer GETs streamed at once; one more is answered 503 */
+  layerStreams: number;
+  /** runs waiting in the queue (all datasets, all instances); a run asked for beyond that is answered 503 */
+  maxQueuedRuns: number;
   /** idle keep-alive connection lifetime in milliseconds */
   keepAliveTimeoutMs: number;
   /** on SIGTERM/SIGINT, time given to requests in flight before connections are cut, in milliseconds */
@@ -36,8 +46,12 @@ export interface ServerConfig {
   databaseUrl: string;
   /** stored runs executed at once by this process */
   runConcurrency: number;
+  /** time between renewals of a running run's lease, milliseconds; a run whose process died is taken over within 2 × this (src/jobs/lease.ts) */
+  runHeartbeatMs: number;
   /** longest time between two looks at the datasets' schedules, milliseconds; 0 turns scheduled runs off in this process */
   scheduleScanMs: number;
+  /** shortest time allowed between two slots of a dataset's schedule, seconds (0: no floor) */
+  scheduleMinIntervalS: number;
   /** attempts to deliver one notice of change, the first included */
   webhookAttempts: number;
   /** time allowed for one notice delivery attempt, milliseconds */
@@ -71,6 +85,17 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   queueSize: 8,
   timeLimitMs: 120_000,
   requestTimeoutMs: 300_000,
+  // bodies in receipt hold memory up to the body limit each; 16 keeps that bounded while many
+  // phones post small batches at once (our choice)
+  uploads: 16,
+  // a 256 MiB body at 5 MB/s; slower clients should send smaller batches (our choice)
+  uploadTimeoutMs: 60_000,
+  // a batch is one transaction and one worker task; 100 000 observations are some 25 MB of
+  // GeoJSON, stored in about 3 s (our choice: larger loads go in several posts)
+  maxPostFeatures: 100_000,
+  // each stream reads a layer a few MiB at a time from the store (our choice)
+  layerStreams: 8,
+  maxQueuedRuns: 100,
   keepAliveTimeoutMs: 5_000,
   shutdownGraceMs: 10_000,
   maxEventLoopDelayMs: 1_000,
@@ -80,8 +105,10 @@ export const DEFAULT_CONFIG: Readonly<ServerConfig> = Object.freeze({
   databaseUrl: '',
   // one run at a time leaves the other core to requests on a 2-core machine
   runConcurrency: 1,
+  runHeartbeatMs: 10_000,
   // see src/jobs/schedule.ts and src/jobs/notify.ts for the reasons behind these
   scheduleScanMs: 60_000,
+  scheduleMinIntervalS: 300,
   webhookAttempts: 5,
   webhookTimeoutMs: 10_000,
   publicUrl: '',
@@ -114,6 +141,11 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'queueSize', flag: '--queue-size', env: 'ROOST_QUEUE_SIZE', kind: 'integer', help: 'requests that may wait for a worker; beyond that, 503' },
   { key: 'timeLimitMs', flag: '--time-limit-ms', env: 'ROOST_TIME_LIMIT_MS', kind: 'integer', help: 'time allowed for one request\'s work, milliseconds' },
   { key: 'requestTimeoutMs', flag: '--request-timeout-ms', env: 'ROOST_REQUEST_TIMEOUT_MS', kind: 'integer', help: 'time allowed to receive a whole request, milliseconds' },
+  { key: 'uploads', flag: '--uploads', env: 'ROOST_UPLOADS', kind: 'integer', help: 'request bodies received at once; one more is answered 503 before it is read' },
+  { key: 'uploadTimeoutMs', flag: '--upload-timeout-ms', env: 'ROOST_UPLOAD_TIMEOUT_MS', kind: 'integer', help: 'time allowed for a request body to arrive, milliseconds; slower senders get 408' },
+  { key: 'maxPostFeatures', flag: '--max-post-features', env: 'ROOST_MAX_POST_FEATURES', kind: 'integer', help: 'most observations in one post to a dataset; more is a 413' },
+  { key: 'layerStreams', flag: '--layer-streams', env: 'ROOST_LAYER_STREAMS', kind: 'integer', help: 'stored layers sent at once; one more GET is answered 503' },
+  { key: 'maxQueuedRuns', flag: '--max-queued-runs', env: 'ROOST_MAX_QUEUED_RUNS', kind: 'integer', help: 'runs waiting in the queue; a run asked for beyond that is answered 503' },
   { key: 'keepAliveTimeoutMs', flag: '--keep-alive-timeout-ms', env: 'ROOST_KEEP_ALIVE_TIMEOUT_MS', kind: 'integer', help: 'idle keep-alive lifetime, milliseconds' },
   { key: 'shutdownGraceMs', flag: '--shutdown-grace-ms', env: 'ROOST_SHUTDOWN_GRACE_MS', kind: 'integer', help: 'time for requests in flight on SIGTERM/SIGINT, milliseconds' },
   { key: 'maxEventLoopDelayMs', flag: '--max-event-loop-delay-ms', env: 'ROOST_MAX_EVENT_LOOP_DELAY_MS', kind: 'integer', help: 'event-loop delay above which requests are shed with 503, milliseconds (0 = never shed)' },
@@ -122,7 +154,9 @@ export const OPTIONS: readonly OptionSpec[] = [
   { key: 'dbPath', flag: '--db', env: 'ROOST_DB_PATH', kind: 'string', help: 'SQLite file for datasets, observations and runs' },
   { key: 'databaseUrl', flag: '--database-url', env: 'DATABASE_URL', kind: 'string', help: 'postgres:// URL of a shared database (instead of the SQLite file)' },
   { key: 'runConcurrency', flag: '--runs', env: 'ROOST_RUNS', kind: 'integer', help: 'stored runs executed at once by this process' },
+  { key: 'runHeartbeatMs', flag: '--run-heartbeat-ms', env: 'ROOST_RUN_HEARTBEAT_MS', kind: 'integer', help: 'time between renewals of a running run\'s lease, milliseconds; a run whose process died is taken over within twice this' },
   { key: 'scheduleScanMs', flag: '--schedule-scan-ms', env: 'ROOST_SCHEDULE_SCAN_MS', kind: 'integer', help: 'longest time between looks at dataset schedules, milliseconds (0 = no scheduled runs in this process)' },
+  { key: 'scheduleMinIntervalS', flag: '--schedule-min-interval-s', env: 'ROOST_SCHEDULE_MIN_INTERVAL_S', kind: 'integer', help: 'shortest time allowed between two scheduled runs of a dataset, seconds (0 = no floor); schedules firing more often are refused' },
   { key: 'webhookAttempts', flag: '--webhook-attempts', env: 'ROOST_WEBHOOK_ATTEMPTS', kind: 'integer', help: 'attempts to deliver a notice of change (back-off doubling from 2 s)' },
   { key: 'webhookTimeoutMs', flag: '--webhook-timeout-ms', env: 'ROOST_WEBHOOK_TIMEOUT_MS', kind: 'integer', help: 'time allowed for one notice delivery attempt, milliseconds' },
   { key: 'publicUrl', flag: '--public-url', env: 'ROOST_PUBLIC_URL', kind: 'string', help: 'address clients use to reach the service, for absolute links in notices' },
@@ -209,12 +243,19 @@ function check(config: ServerConfig): ServerConfig {
   atLeast('queueSize', 0);
   atLeast('timeLimitMs', 1);
   atLeast('requestTimeoutMs', 0);
+  atLeast('uploads', 1);
+  atLeast('uploadTimeoutMs', 1);
+  atLeast('maxPostFeatures', 1);
+  atLeast('layerStreams', 1);
+  atLeast('maxQueuedRuns', 1);
   atLeast('keepAliveTimeoutMs', 0);
   atLeast('shutdownGraceMs', 0);
   atLeast('maxEventLoopDelayMs', 0);
   atLeast('retryAfterS', 0);
   atLeast('runConcurrency', 1);
+  atLeast('runHeartbeatMs', 100);
   atLeast('scheduleScanMs', 0);
+  atLeast('scheduleMinIntervalS', 0);
   atLeast('webhookAttempts', 1);
   atLeast('webhookTimeoutMs', 1);
   atLeast('rateLimitPerMinute', 0);

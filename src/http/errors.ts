@@ -19,6 +19,8 @@ export const PROBLEMS = {
   'bad-request': { status: 400, title: 'The request is not valid HTTP for this service' },
   'unauthorized': { status: 401, title: 'An API key is needed' },
   'forbidden': { status: 403, title: 'The API key may not do this' },
+  'request-timeout': { status: 408, title: 'The request body did not arrive in time' },
+  'uri-too-long': { status: 414, title: 'The request path is longer than this service reads' },
   'not-found': { status: 404, title: 'No such resource' },
   'dataset-not-found': { status: 404, title: 'No such dataset' },
   'observation-not-found': { status: 404, title: 'No such observation in this dataset' },

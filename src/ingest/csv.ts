@@ -20,6 +20,7 @@ import { parse } from 'csv-parse/sync';
 import type { InputFeature, Observations } from './types.js';
 import { DEFAULT_TIME_RULE, ProblemList, TIME_PROPERTY, fail, parseDecimal, rangeProblem, readTime, timeMessage, weightMessage, type TimeRule } from './checks.js';
 import { propertyListMessage } from './geojson.js';
+import { contentProblem } from './limits.js';
 
 /** What readRecords returns when a problem with the header makes the rows meaningless. */
 const EMPTY: Observations = { points: { n: 0, lon: new Float64Array(0), lat: new Float64Array(0), weight: null }, features: [], observedAt: null };
@@ -40,6 +41,8 @@ export interface CsvOptions {
   delimiter?: string;
   maxProblems: number;
   maxFeatures: number;
+  /** the rows are to be stored: cells are held to the storable-text rule (src/ingest/limits.ts) */
+  storable?: boolean;
 }
 
 /** Reads CSV text with a header row into Observations. Throws InputError; never returns part of the input. */
@@ -197,6 +200,11 @@ function readRecords(records: string[][], lines: RecordLines | null, delimiter: 
     const feature: InputFeature = { type: 'Feature', geometry: { type: 'Point', coordinates: [x, y] }, properties };
     if (id !== undefined && idCol >= 0) feature.id = id;
     features[r] = feature;
+    const content = contentProblem(feature, options.storable ?? false);
+    if (content !== null) {
+      const named = content.code === 'bad-id' ? undefined : id;
+      problems.add(r, named, content.code, `${rowName(r, lines, named)}: ${content.message.replace('member name', 'column name')}`);
+    }
   }
   return { points: { n, lon, lat, weight }, features, observedAt: timed > 0 ? observedAt : null };
 }

@@ -29,6 +29,7 @@ import {
   weightMessage,
   type TimeRule,
 } from './checks.js';
+import { contentProblem } from './limits.js';
 
 /** The parts of the `geojson-validation` package used here (it ships no type declarations). */
 interface GeoJsonValidation {
@@ -49,12 +50,14 @@ export interface FeatureListOptions {
   lines: ArrayLike<number> | null;
   /** per item, the message for a record that could not be parsed (reported as `malformed-json` in index order); null for none */
   unparsed?: (string | undefined)[] | null;
+  /** the observations are to be stored: string values must be storable text too (src/ingest/limits.ts) */
+  storable?: boolean;
   /** where the time is and how it is written; `observed_at` in RFC 3339 by default */
   time?: TimeRule;
 }
 
 /** Reads a GeoJSON text (FeatureCollection or Feature). Throws InputError; never returns part of the input. */
-export function readGeoJson(text: string, weightProperty: string | null, maxProblems: number, maxFeatures: number, time: TimeRule = DEFAULT_TIME_RULE): Observations {
+export function readGeoJson(text: string, weightProperty: string | null, maxProblems: number, maxFeatures: number, time: TimeRule = DEFAULT_TIME_RULE, storable = false): Observations {
   let root: unknown;
   try {
     root = JSON.parse(text);
@@ -67,7 +70,7 @@ export function readGeoJson(text: string, weightProperty: string | null, maxProb
     fail('too-many-features', `the input has ${items.length} features; at most ${maxFeatures} are accepted in one request — split it`);
   }
   const problems = new ProblemList(maxProblems);
-  const obs = checkFeatureList(items, { weightProperty, noun: 'feature', lines: null, time }, problems);
+  const obs = checkFeatureList(items, { weightProperty, noun: 'feature', lines: null, time, storable }, problems);
   problems.throwIfAny();
   return obs;
 }
@@ -148,6 +151,7 @@ class FeatureChecker {
       problems.add(null, undefined, 'unknown-property', `time_column: ${unknownPropertyMessage(items, time.property, this.options.noun)}`);
     }
     const unparsed = this.options.unparsed ?? null;
+    const storable = this.options.storable ?? false;
     for (let i = 0; i < n; i++) {
       if (unparsed !== null && unparsed[i] !== undefined) {
         problems.add(i, undefined, 'malformed-json', unparsed[i] as string);
@@ -185,6 +189,13 @@ class FeatureChecker {
       if (!good && !this.slowFeature(f, i)) continue;
 
       const id = f.id;
+      const content = contentProblem(f, storable);
+      if (content !== null) {
+        // nothing else is read from a feature that breaks a limit
+        problems.add(i, typeof id === 'number' || (typeof id === 'string' && content.code !== 'bad-id') ? id : undefined, content.code, `${this.where(i, content.code === 'bad-id' ? undefined : id)}: ${content.message}`);
+        observedAt[i] = NaN;
+        continue;
+      }
       if (id !== undefined && id !== null && typeof id !== 'string' && typeof id !== 'number') {
         problems.add(i, undefined, 'bad-id', `${this.where(i, undefined)}: id is ${describe(id)}; a feature id must be a string or a number`);
       }

@@ -33,6 +33,8 @@ export interface ReadOptions {
   maxProblems?: number;
   /** most observations accepted; default unlimited */
   maxFeatures?: number;
+  /** the observations are to be stored: string values are held to the storable-text rule (src/ingest/limits.ts) */
+  storable?: boolean;
 }
 
 const RS = 0x1e;
@@ -107,9 +109,9 @@ export function readObservations(input: string | Buffer, options: ReadOptions = 
   const format = options.format ?? detectFormat(text);
   switch (format) {
     case 'geojson':
-      return readGeoJson(text, weightProperty, maxProblems, maxFeatures, time);
+      return readGeoJson(text, weightProperty, maxProblems, maxFeatures, time, options.storable);
     case 'geojson-seq':
-      return readGeoJsonSeq(text, weightProperty, maxProblems, maxFeatures, time);
+      return readGeoJsonSeq(text, weightProperty, maxProblems, maxFeatures, time, options.storable);
     case 'csv':
       return readCsv(text, {
         weightProperty,
@@ -120,6 +122,7 @@ export function readObservations(input: string | Buffer, options: ReadOptions = 
         delimiter: options.csvDelimiter,
         maxProblems,
         maxFeatures,
+        storable: options.storable,
       });
   }
 }

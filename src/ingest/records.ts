@@ -20,6 +20,7 @@ import { createHash } from 'node:crypto';
 import { parse as parseCsv } from 'csv-parse/sync';
 import type { ObservationRecord } from '../storage/store.js';
 import { DEFAULT_MAX_PROBLEMS } from './checks.js';
+import { idProblem } from './limits.js';
 import { sniffDelimiter } from './csv.js';
 import { readObservations, detectFormat, type InputFormat } from './read.js';
 import { InputError, type InputFeature, type InputProblem, type Observations } from './types.js';
@@ -39,6 +40,8 @@ export interface RecordOptions {
   /** property (CSV: column) holding the time, and how it is written (see ReadOptions) */
   timeColumn?: string | null;
   timeFormat?: string | null;
+  /** most observations in one batch (more: a `too-many-features` problem); default unlimited */
+  maxFeatures?: number;
 }
 
 /** One rejected feature: where it was in the input, its id when it had one, and why. */
@@ -70,7 +73,10 @@ export function featureId(f: InputFeature, idProperty: string | null): string | 
   if (raw === undefined || raw === null || raw === '') {
     return { code: 'missing-id', message: `has no id: give each observation an id in ${where}, so that a repeated post is recognised instead of stored twice` };
   }
-  if (typeof raw === 'string') return raw;
+  if (typeof raw === 'string') {
+    const p = idProblem(raw);
+    return p === null ? raw : { code: p.code, message: `has an unusable id: ${p.message}` };
+  }
   if (typeof raw === 'number' && Number.isFinite(raw)) return String(raw);
   return { code: 'bad-id', message: `has an id in ${where} that is neither a string nor a number (${JSON.stringify(raw)?.slice(0, 40)})` };
 }
@@ -178,12 +184,14 @@ export function readRecords(input: Buffer | string, options: RecordOptions): Rec
       format: f,
       // weights are optional here (the reader requires one on every feature when named): checked in toRecords
       weightProperty: null,
+      storable: true,
       lonColumn: options.lonColumn ?? undefined,
       latColumn: options.latColumn ?? undefined,
       timeColumn: options.timeColumn,
       timeFormat: options.timeFormat,
       idProperty: options.idProperty,
       maxProblems,
+      maxFeatures: options.maxFeatures,
     });
   const maxProblems = options.partial ? Number.MAX_SAFE_INTEGER : DEFAULT_MAX_PROBLEMS;
   let obs: Observations;

@@ -16,7 +16,7 @@ import { checkFeatureList } from './geojson.js';
 const RS = '\u001e';
 
 /** Reads a GeoJSON text sequence or newline-delimited GeoJSON. Throws InputError; never returns part of the input. */
-export function readGeoJsonSeq(text: string, weightProperty: string | null, maxProblems: number, maxFeatures: number, time: TimeRule = DEFAULT_TIME_RULE): Observations {
+export function readGeoJsonSeq(text: string, weightProperty: string | null, maxProblems: number, maxFeatures: number, time: TimeRule = DEFAULT_TIME_RULE, storable = false): Observations {
   const useRs = text.indexOf(RS) !== -1;
   const texts: string[] = [];
   const lines: number[] = [];
@@ -56,7 +56,7 @@ export function readGeoJsonSeq(text: string, weightProperty: string | null, maxP
       unparsed[i] = malformedJsonMessage(t, err, `${locate('record', i, undefined, useRs ? undefined : lines[i])}: `, 'the record');
     }
   }
-  const obs = checkFeatureList(items, { weightProperty, noun: 'record', lines: useRs ? null : lines, unparsed, time }, problems);
+  const obs = checkFeatureList(items, { weightProperty, noun: 'record', lines: useRs ? null : lines, unparsed, time, storable }, problems);
   problems.throwIfAny();
   return obs;
 }

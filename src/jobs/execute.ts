@@ -6,17 +6,44 @@
  *
  * Progress is stored as a percentage at fixed points (load 5 %, index 35 %, clustering 40–75 %,
  * figures 80 %, layers 85 %, save 90 %) and at most once a second inside the clustering. Each
- * progress write is conditional on the run still being 'running', so a run cancelled from any
- * process (or instance) stops at its next progress point.
+ * write is conditional on the run still being 'running' under this claim (src/jobs/lease.ts), so
+ * a run cancelled from any process (or instance), or taken over after its lease ran out, stops at
+ * its next progress point and never overwrites the result of the process that took it over.
  */
 import { pointSet } from '../core/types.js';
 import { clusterObservations, type Stage } from '../run/cluster.js';
-import { resolveSettings, type ClusterSettings } from '../run/settings.js';
+import { resolveSettings, SettingsError, type ClusterSettings } from '../run/settings.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
 import { LAYER_PIECE_CHARS } from '../storage/common.js';
 import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
 import { StoreError } from '../storage/store.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
+
+/**
+ * A run failure the user can act on (its message says what to change); any other error is the
+ * service's own, logged with the run id and shown to users only as `INTERNAL_RUN_ERROR`.
+ */
+export class RunError extends Error {
+  constructor(message: string) {
+    super(message);
+    this.name = 'RunError';
+  }
+}
+
+/** What a run's `error` says when it failed for a reason inside the service. */
+export function internalRunError(runId: string): string {
+  return `the run failed inside the service, not because of its observations or settings; try it again, and if it fails again ask the operator to look for run ${runId} in the service log`;
+}
+
+/** The message for the run's `error`, and whether the full error belongs in the log instead. */
+export function runFailureMessage(err: unknown, runId: string): { message: string; internal: boolean } {
+  if (err instanceof RunError) return { message: err.message, internal: false };
+  if ((err as { code?: unknown } | null)?.code === 'ERR_WORKER_OUT_OF_MEMORY') {
+    return { message: 'the run needed more memory than the service gives one run; narrow it (a shorter window, a where condition) or ask the operator for more memory', internal: false };
+  }
+  if (err instanceof SettingsError) return { message: `the run's settings cannot be used: ${err.message}; change them in the dataset (PATCH) or in the run request`, internal: false };
+  return { message: internalRunError(runId), internal: true };
+}
 
 /** A run stopped because it was cancelled (its status already says so). */
 export class RunCancelled extends Error {
@@ -115,6 +142,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
     return now;
   };
   const interval = options.progressIntervalMs ?? 1000;
+  const claim = run.workerId ?? undefined;
   let lastWrite = 0;
   let pending: Promise<unknown> = Promise.resolve();
   let cancelled = false;
@@ -123,7 +151,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
     if (!force && now - lastWrite < interval) return;
     lastWrite = now;
     pending = pending
-      .then(() => store.updateRun(run.id, { progress: Math.round(percent) }, ['running']))
+      .then(() => store.updateRun(run.id, { progress: Math.round(percent) }, ['running'], claim))
       .catch((e: unknown) => {
         if (e instanceof StoreError && e.code === 'conflict') cancelled = true;
         else throw e;
@@ -190,7 +218,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
         );
   if (result === null) {
     const why = untimed > 0 ? `; ${untimed} observation(s) have no readable time and a time window applies: name their time with the dataset's time_column and time_format settings` : '';
-    throw new Error(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window${why}`);
+    throw new RunError(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window${why}`);
   }
   t = lap('cluster', t);
   await check();
@@ -225,12 +253,15 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   t = lap('layers', t);
   progress(90, true);
   await check();
-  await store.saveRunResult(run.id, { layers, hotspots: stored });
+  await store.saveRunResult(run.id, { layers, hotspots: stored }, claim).catch((e: unknown) => {
+    if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled('the run is no longer this process\'s');
+    throw e;
+  });
   lap('save', t);
   timings.total = Math.round((performance.now() - t0) * 10) / 10;
 
   const summary = { ...result.summary, changes: assignment.changes };
-  await store.updateRun(run.id, { status: 'succeeded', progress: 100, error: null, finishedAt: new Date().toISOString(), summary, timings }, ['running']).catch((e: unknown) => {
+  await store.updateRun(run.id, { status: 'succeeded', progress: 100, error: null, finishedAt: new Date().toISOString(), summary, timings }, ['running'], claim).catch((e: unknown) => {
     if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled();
     throw e;
   });

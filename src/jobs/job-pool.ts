@@ -15,6 +15,17 @@ export interface JobPool {
   close(): Promise<void>;
 }
 
+/** Posted batches waiting to be read beyond those being read (our choice; more are turned away). */
+export const MAX_WAITING_BATCHES = 16;
+
+/** The pool's waiting line for posted batches is full. */
+export class JobQueueFull extends Error {
+  constructor() {
+    super('every thread reading posted batches is busy and the waiting line is full');
+    this.name = 'JobQueueFull';
+  }
+}
+
 /** A pool of `runs + 1` threads, started on first use and stopped after a minute idle. */
 export function createJobPool(runs: number): JobPool {
   const { filename, execArgv } = workerEntry();
@@ -25,10 +36,17 @@ export function createJobPool(runs: number): JobPool {
     maxThreads: runs + 1,
     idleTimeout: 60_000,
     concurrentTasksPerWorker: 1,
+    // runs never wait here (the runner hands over at most `runs`), so this bounds posted batches
+    maxQueue: MAX_WAITING_BATCHES + runs,
   });
   return {
     async records(task) {
-      return (await piscina.run({ op: 'records', ...task }, { transferList: [task.body.buffer as ArrayBuffer] })) as RecordsOutcome;
+      try {
+        return (await piscina.run({ op: 'records', ...task }, { transferList: [task.body.buffer as ArrayBuffer] })) as RecordsOutcome;
+      } catch (err) {
+        if (err instanceof Error && /queue is at limit|no task queue available/i.test(err.message)) throw new JobQueueFull();
+        throw err;
+      }
     },
     async run(task, signal) {
       return (await piscina.run({ op: 'run', ...task }, { signal, transferList: [task.port as unknown as ArrayBuffer] })) as RunOutcomeMessage;

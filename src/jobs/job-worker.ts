@@ -10,7 +10,7 @@ import type { MessagePort } from 'node:worker_threads';
 import { readRecords, type RecordBatch, type RecordOptions } from '../ingest/records.js';
 import { InputError, type InputProblem } from '../ingest/types.js';
 import { openStore, type StoreConfig } from '../storage/index.js';
-import { executeRun, RunCancelled } from './execute.js';
+import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
 
 export interface RecordsTask {
@@ -24,6 +24,8 @@ export interface RunTask {
   store: StoreConfig;
   datasetId: string;
   runId: string;
+  /** the claim under which the main thread took the run (its workerId) */
+  claim: string;
   /** the main thread answers `{type:'tracks', hotspots}` with `{assignment}` or `{error}` */
   port: MessagePort;
 }
@@ -34,7 +36,7 @@ export type RecordsOutcome = { ok: true; batch: RecordBatch } | { ok: false; pro
 
 export type RunOutcomeMessage =
   | { ok: true; summary: Record<string, unknown>; timings: Record<string, number>; hotspots: number }
-  | { ok: false; cancelled: boolean; message: string; stack?: string };
+  | { ok: false; cancelled: boolean; message: string; internal?: { message: string; stack?: string } };
 
 function records(task: RecordsTask): RecordsOutcome {
   try {
@@ -61,11 +63,15 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
     const [dataset, current] = await Promise.all([store.getDataset(task.datasetId), store.getRun(task.datasetId, task.runId)]);
     if (dataset === null || current === null) return { ok: false, cancelled: true, message: 'the dataset or run was deleted' };
     if (current.status !== 'running') return { ok: false, cancelled: true, message: `the run is ${current.status}` };
+    if (current.workerId !== task.claim) return { ok: false, cancelled: true, message: 'the run was taken over by another process' };
     const done = await executeRun(store, current, dataset, { assignTracks: (h) => askTracks(task.port, h) });
     return { ok: true, ...done };
   } catch (err) {
     const e = err instanceof Error ? err : new Error(String(err));
-    return { ok: false, cancelled: err instanceof RunCancelled, message: e.message, stack: e.stack };
+    if (err instanceof RunCancelled) return { ok: false, cancelled: true, message: e.message };
+    // what users may read goes in the run; the service's own failures go to the log, with the run id
+    const failure = runFailureMessage(err, task.runId);
+    return { ok: false, cancelled: false, message: failure.message, ...(failure.internal ? { internal: { message: e.message, stack: e.stack } } : {}) };
   } finally {
     task.port.close();
     await store.close();

@@ -4,7 +4,9 @@
  * matching and notices, recorded with trigger 'command'. The command around it (`roost
  * recluster`: options, usage messages, exit codes) is src/cli/recluster.ts.
  */
-import { executeRun } from './execute.js';
+import { hostname } from 'node:os';
+import { executeRun, runFailureMessage } from './execute.js';
+import { DEFAULT_HEARTBEAT_MS, keepLease, leaseMs } from './lease.js';
 import { type RoostHooks } from './run-hooks.js';
 import { TRANSITION_KINDS, type ChangesJson } from './tracking.js';
 import { StoreError, type Dataset, type Run, type Store } from '../storage/store.js';
@@ -24,12 +26,12 @@ export function outcomeLine(run: Run): string {
  * Creates a run for the dataset and executes it here. The run is started by a conditional change
  * from queued to running; when a server's run queue took it first, this waits for that outcome.
  */
-export async function reclusterDataset(store: Store, dataset: Dataset, hooks: RoostHooks, pollMs = 500): Promise<Run> {
+export async function reclusterDataset(store: Store, dataset: Dataset, hooks: RoostHooks, pollMs = 500, log?: (text: string) => void): Promise<Run> {
   const settings = Object.fromEntries(Object.entries(dataset.settings).filter(([, v]) => v !== null));
   const created = await store.createRun({ datasetId: dataset.id, settings, trigger: 'command' });
   let run: Run;
   try {
-    run = await store.updateRun(created.id, { status: 'running', startedAt: new Date().toISOString() }, ['queued']);
+    run = await store.claimRun(created.id, `${hostname()}:${process.pid}:recluster`, leaseMs(DEFAULT_HEARTBEAT_MS));
   } catch (e) {
     if (!(e instanceof StoreError && e.code === 'conflict')) throw e;
     // a server's run queue claimed it between creation and start: its outcome is ours
@@ -40,10 +42,17 @@ export async function reclusterDataset(store: Store, dataset: Dataset, hooks: Ro
     }
   }
   const ctx = { store, dataset, run };
+  // renewed like a server's claim, so that a server takes the run over if this command dies
+  const controller = new AbortController();
+  const lease = keepLease(store, run, DEFAULT_HEARTBEAT_MS, () => controller.abort(new Error('the run is no longer this command\'s')));
   try {
-    await executeRun(store, run, dataset, { assignTracks: (h) => hooks.assignTracks(ctx, h) });
+    await executeRun(store, run, dataset, { signal: controller.signal, assignTracks: (h) => hooks.assignTracks(ctx, h) });
   } catch (e) {
-    await store.updateRun(run.id, { status: 'failed', error: (e as Error).message, finishedAt: new Date().toISOString() }, ['running']).catch(() => undefined);
+    const failure = runFailureMessage(e, run.id);
+    if (failure.internal) log?.(`run ${run.id} failed inside the service: ${(e as Error).stack ?? String(e)}`);
+    await store.updateRun(run.id, { status: 'failed', error: failure.message, finishedAt: new Date().toISOString() }, ['running'], run.workerId ?? undefined).catch(() => undefined);
+  } finally {
+    lease.stop();
   }
   const final = (await store.getRun(dataset.id, run.id))!;
   const status = final.status === 'succeeded' || final.status === 'failed' || final.status === 'cancelled' ? final.status : 'failed';

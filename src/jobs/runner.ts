@@ -4,12 +4,14 @@
  * (in a worker thread with its own store connection; on this thread only for an in-memory store),
  * calls the run hooks, and records the outcome.
  *
- * Crash recovery (`recover`, at start-up): runs left 'running' by a process that died are put back
- * in the queue, since a run only reads stored observations and saving its result replaces any
- * earlier one, so running it again is safe. A run interrupted three times is marked failed
- * instead, so that a run that kills its process (memory, say) does not do so forever. On
- * PostgreSQL, where several instances share the queue, only runs without a heartbeat for
- * `staleMs` are touched (a live instance updates its runs every `heartbeatMs`).
+ * Crash recovery: every claim is a lease renewed every `heartbeatMs` (src/jobs/lease.ts). At
+ * start-up and every heartbeat / 4, any process puts runs whose lease ran out (their process
+ * died) back in the queue and claims from it, since a run only reads stored observations and
+ * saving its result replaces any earlier one, so running it again is safe. A run interrupted
+ * MAX_INTERRUPTIONS times is marked failed instead, so that a run that kills its process (memory,
+ * say) does not do so forever. This works the same on PostgreSQL and on a SQLite file shared by
+ * several processes: a run is running again elsewhere at most 1.75 heartbeats after its process's
+ * last renewal.
  *
  * Cancelling: a queued run is cancelled at once; a running one here is stopped at once (its
  * worker thread is ended); a running one in another process stops at its next progress write or
@@ -20,9 +22,12 @@ import { MessageChannel } from 'node:worker_threads';
 import { hostname } from 'node:os';
 import type { StoreConfig } from '../storage/index.js';
 import { StoreError, type Run, type Store } from '../storage/store.js';
-import { executeRun, RunCancelled } from './execute.js';
+import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, RunContext, RunHooks, RunOutcome } from './hooks.js';
 import type { JobPool } from './job-pool.js';
+import { DEFAULT_HEARTBEAT_MS, keepLease, leaseMs, MAX_INTERRUPTIONS, takeoverScanMs } from './lease.js';
+
+export { MAX_INTERRUPTIONS } from './lease.js';
 
 export interface RunnerLog {
   info(obj: object, msg: string): void;
@@ -41,81 +46,79 @@ export interface RunnerOptions {
   pool: JobPool | null;
   /** how often the queue is looked at for runs queued by other processes, milliseconds; default 2000 */
   pollMs?: number;
-  /** how often a running run's heartbeat is written, milliseconds; default 30 000 */
+  /** time between renewals of a running run's lease, milliseconds; default DEFAULT_HEARTBEAT_MS (see src/jobs/lease.ts) */
   heartbeatMs?: number;
-  /** PostgreSQL: a run without heartbeat this long is taken as interrupted, milliseconds; default 120 000 */
-  staleMs?: number;
   log?: RunnerLog;
 }
-
-/** Interruptions after which a run is failed instead of queued again. */
-export const MAX_INTERRUPTIONS = 3;
-
-const INTERRUPTED = /^interrupted (\d+) times?/;
 
 const quiet: RunnerLog = { info: () => undefined, warn: () => undefined, error: () => undefined };
 
 interface InFlight {
+  runId: string;
   controller: AbortController;
   done: Promise<void>;
-  /** why this process aborted it: 'cancel' (the run is cancelled) or 'close' (shutting down, queued again) */
-  reason: 'cancel' | 'close' | null;
+  /**
+   * why this process aborted it: 'cancel' (the run is cancelled), 'close' (shutting down, queued
+   * again) or 'lost' (its lease was taken over: the run is another process's now)
+   */
+  reason: 'cancel' | 'close' | 'lost' | null;
 }
 
 export class Runner {
+  /** this process's run queue; each claim adds a number of its own (see claimId) */
   readonly workerId = `${hostname()}:${process.pid}:${randomUUID().slice(0, 8)}`;
+  /** runs executing here, by claim id */
   private readonly inFlight = new Map<string, InFlight>();
+  private claims = 0;
   private filling: Promise<void> | null = null;
   private refill = false;
   private closed = false;
   private poll: NodeJS.Timeout | null = null;
+  private scan: NodeJS.Timeout | null = null;
+  private scanning = false;
+  private readonly heartbeatMs: number;
   private readonly log: RunnerLog;
 
   constructor(private readonly options: RunnerOptions) {
     if (!Number.isInteger(options.concurrency) || options.concurrency < 1) throw new RangeError(`concurrency must be a whole number ≥ 1, got ${options.concurrency}`);
     if (options.storeConfig !== null && options.pool === null) throw new RangeError('a worker pool is needed to execute runs in worker threads');
+    this.heartbeatMs = options.heartbeatMs ?? DEFAULT_HEARTBEAT_MS;
+    if (!Number.isInteger(this.heartbeatMs) || this.heartbeatMs < 4) throw new RangeError(`heartbeatMs must be a whole number ≥ 4, got ${this.heartbeatMs}`);
     this.log = options.log ?? quiet;
   }
 
   /** Runs executing in this process now. */
   get running(): string[] {
-    return [...this.inFlight.keys()];
+    return [...this.inFlight.values()].map((e) => e.runId);
   }
 
   /**
-   * Puts runs left 'running' by a dead process back in the queue (or fails those interrupted
-   * MAX_INTERRUPTIONS times). @returns the ids queued again and failed
+   * Puts runs whose lease ran out (their process stopped) back in the queue, or fails those
+   * interrupted MAX_INTERRUPTIONS times. Called at start-up and every heartbeat / 4 once started.
+   * @returns the ids queued again and failed
    */
   async recover(): Promise<{ requeued: string[]; failed: string[] }> {
-    const { store } = this.options;
-    const filter = store.engine === 'postgres' ? { staleMs: this.options.staleMs ?? 120_000 } : {};
-    const ids = await store.requeueInterruptedRuns(filter);
-    const requeued: string[] = [];
-    const failed: string[] = [];
-    for (const id of ids) {
-      try {
-        const run = await store.updateRun(id, {}, ['queued']);
-        const times = Number(INTERRUPTED.exec(run.error ?? '')?.[1] ?? 0) + 1;
-        if (times >= MAX_INTERRUPTIONS) {
-          await store.updateRun(id, { status: 'failed', finishedAt: new Date().toISOString(), error: `interrupted ${times} times by the process stopping; not tried again` }, ['queued']);
-          failed.push(id);
-        } else {
-          await store.updateRun(id, { error: `interrupted ${times} time${times > 1 ? 's' : ''} by the process stopping; queued again` }, ['queued']);
-          requeued.push(id);
-        }
-      } catch (e) {
-        if (!(e instanceof StoreError && e.code === 'conflict')) throw e; // claimed meanwhile by another instance
-      }
-    }
-    if (ids.length > 0) this.log.warn({ requeued, failed }, 'runs interrupted by a stopped process');
-    return { requeued, failed };
+    const out = await this.options.store.reclaimExpiredRuns(MAX_INTERRUPTIONS);
+    if (out.requeued.length + out.failed.length > 0) this.log.warn(out, 'runs interrupted by a stopped process');
+    return out;
   }
 
-  /** Starts taking runs: now and every pollMs. */
+  /** Starts taking runs: now and every pollMs; and taking over runs whose lease ran out. */
   start(): void {
     if (this.poll !== null || this.closed) return;
     this.poll = setInterval(() => this.wake(), this.options.pollMs ?? 2000);
     this.poll.unref();
+    this.scan = setInterval(() => {
+      if (this.scanning || this.closed) return;
+      this.scanning = true;
+      this.recover()
+        .then((r) => {
+          if (r.requeued.length > 0) this.wake();
+        })
+        .catch((err: unknown) => this.log.error({ err }, 'could not look for runs whose process stopped'))
+        .finally(() => (this.scanning = false));
+    }, takeoverScanMs(this.heartbeatMs));
+    this.scan.unref();
     this.wake();
   }
 
@@ -139,19 +142,20 @@ export class Runner {
 
   private async fill(): Promise<void> {
     while (!this.closed && this.inFlight.size < this.options.concurrency) {
-      const run = await this.options.store.claimNextRun(this.workerId);
+      const run = await this.options.store.claimNextRun(`${this.workerId}:${++this.claims}`, leaseMs(this.heartbeatMs));
       if (run === null) return;
       this.launch(run);
     }
   }
 
   private launch(run: Run): void {
-    const entry: InFlight = { controller: new AbortController(), done: Promise.resolve(), reason: null };
-    this.inFlight.set(run.id, entry);
+    const claim = run.workerId!;
+    const entry: InFlight = { runId: run.id, controller: new AbortController(), done: Promise.resolve(), reason: null };
+    this.inFlight.set(claim, entry);
     entry.done = this.execute(run, entry)
       .catch((err: unknown) => this.log.error({ err, run: run.id }, 'run bookkeeping failed'))
       .finally(() => {
-        this.inFlight.delete(run.id);
+        this.inFlight.delete(claim);
         this.wake();
       });
   }
@@ -162,12 +166,18 @@ export class Runner {
     if (dataset === null) return; // deleted with its runs
     const ctx: RunContext = { store, dataset, run };
     const signal = entry.controller.signal;
-    const heartbeat = setInterval(() => {
-      store.updateRun(run.id, {}, ['running']).catch((e: unknown) => {
-        if (e instanceof StoreError) entry.controller.abort(new RunCancelled('the run is no longer running'));
-      });
-    }, this.options.heartbeatMs ?? 30_000);
-    heartbeat.unref();
+    const claim = run.workerId!;
+    const lease = keepLease(
+      store,
+      run,
+      this.heartbeatMs,
+      () => {
+        // cancelled (its status says so) or taken over after the lease ran out
+        entry.reason ??= 'lost';
+        entry.controller.abort(new RunCancelled('the run is no longer this process\'s'));
+      },
+      (err) => this.log.warn({ err, run: run.id }, 'could not renew the run\'s lease; trying again at the next heartbeat'),
+    );
     this.log.info({ run: run.id, dataset: dataset.id }, 'run started');
     let failure: string | null = null;
     let cancelled = false;
@@ -181,10 +191,11 @@ export class Runner {
           );
         });
         try {
-          const res = await this.options.pool!.run({ store: this.options.storeConfig, datasetId: run.datasetId, runId: run.id, port: port2 }, signal);
+          const res = await this.options.pool!.run({ store: this.options.storeConfig, datasetId: run.datasetId, runId: run.id, claim, port: port2 }, signal);
           if (!res.ok) {
             if (res.cancelled) cancelled = true;
             else failure = res.message;
+            if (res.internal) this.log.error({ run: run.id, dataset: run.datasetId, error: res.internal.message, stack: res.internal.stack }, 'run failed inside the service');
           }
         } finally {
           port1.close();
@@ -194,19 +205,31 @@ export class Runner {
       }
     } catch (err) {
       if (err instanceof RunCancelled || signal.aborted) cancelled = true;
-      else failure = (err as Error).message;
+      else {
+        const f = runFailureMessage(err, run.id);
+        failure = f.message;
+        if (f.internal) this.log.error({ err, run: run.id, dataset: run.datasetId }, 'run failed inside the service');
+      }
     } finally {
-      clearInterval(heartbeat);
+      lease.stop();
     }
 
     if (entry.reason === 'close') {
       // shutting down: the run goes back to the queue for the next start (or another instance)
-      await store.updateRun(run.id, { status: 'queued', progress: 0, startedAt: null }, ['running']).catch(() => undefined);
+      await store.updateRun(run.id, { status: 'queued', progress: 0, startedAt: null }, ['running'], claim).catch(() => undefined);
       return;
+    }
+    if (entry.reason === 'lost') {
+      const now = await store.getRun(run.datasetId, run.id).catch(() => null);
+      if (now !== null && now.status !== 'cancelled') {
+        // another process holds it now and reports its outcome
+        this.log.warn({ run: run.id, status: now.status }, 'run taken over by another process after its lease ran out; stopped here');
+        return;
+      }
     }
     if (failure !== null) {
       this.log.warn({ run: run.id, error: failure }, 'run failed');
-      await store.updateRun(run.id, { status: 'failed', error: failure, finishedAt: new Date().toISOString() }, ['running']).catch((e: unknown) => {
+      await store.updateRun(run.id, { status: 'failed', error: failure, finishedAt: new Date().toISOString() }, ['running'], claim).catch((e: unknown) => {
         if (!(e instanceof StoreError && e.code === 'conflict')) throw e;
         cancelled = true;
       });
@@ -232,8 +255,8 @@ export class Runner {
     const run = await store.getRun(datasetId, runId);
     if (run === null) return null;
     const updated = await store.updateRun(runId, { status: 'cancelled', finishedAt: new Date().toISOString(), error: 'cancelled on request' }, ['queued', 'running']);
-    const entry = this.inFlight.get(runId);
-    if (entry) {
+    for (const entry of this.inFlight.values()) {
+      if (entry.runId !== runId) continue;
       entry.reason = 'cancel';
       entry.controller.abort(new RunCancelled());
     }
@@ -252,6 +275,7 @@ export class Runner {
   async close(): Promise<void> {
     this.closed = true;
     if (this.poll) clearInterval(this.poll);
+    if (this.scan) clearInterval(this.scan);
     await this.filling;
     for (const e of this.inFlight.values()) {
       e.reason = 'close';

@@ -22,6 +22,12 @@
  * - patterns that fire every so many minutes or hours keep firing through both hours of the night
  *   clocks go back, as elapsed time asks.
  * A slot is the UTC instant it fires at, so nothing else about time zones reaches the store.
+ *
+ * How often: a schedule may fire at most once every `minIntervalMs` (default 5 minutes, the
+ * server's --schedule-min-interval-s). A schedule firing more often is refused when a dataset is
+ * created or changed, and one stored before the floor was raised is not run (and logged), so no
+ * dataset can fill the database with runs: a schedule of every second once grew it by 34 MB in
+ * 30 s.
  */
 import { Cron } from 'croner';
 import type { Dataset, DatasetSchedule, Run, Store } from '../storage/store.js';
@@ -32,10 +38,18 @@ export interface SchedulerSettings {
   scanMs: number;
   /** at start-up, slots this far in the past still count as due, milliseconds; default 900 000 (15 min) */
   catchUpMs: number;
+  /** shortest time allowed between two slots of a schedule, milliseconds; default 300 000 (5 min); 0: no floor */
+  minIntervalMs: number;
 }
 
+/** Default floor on schedule frequency, milliseconds (our choice: a run every 5 minutes is already far more than a nightly re-clustering needs). */
+export const DEFAULT_MIN_SCHEDULE_INTERVAL_MS = 300_000;
+
 /** Defaults (our choice): a minute keeps schedule edits prompt at one small query per minute. */
-export const DEFAULT_SCHEDULER_SETTINGS: Readonly<SchedulerSettings> = Object.freeze({ scanMs: 60_000, catchUpMs: 900_000 });
+export const DEFAULT_SCHEDULER_SETTINGS: Readonly<SchedulerSettings> = Object.freeze({ scanMs: 60_000, catchUpMs: 900_000, minIntervalMs: DEFAULT_MIN_SCHEDULE_INTERVAL_MS });
+
+/** Slots looked at to find a schedule's shortest interval: more than a day of 5-minute slots. */
+const INTERVAL_SAMPLE = 1000;
 
 /** Where the scheduler logs (a pino or Fastify logger fits). */
 export interface ScheduleLog {
@@ -48,21 +62,43 @@ function pattern(schedule: DatasetSchedule): Cron {
   return new Cron(schedule.cron, { timezone: schedule.timezone, paused: true });
 }
 
+/** "5 minutes", "90 seconds", "1 hour" */
+function duration(ms: number): string {
+  const s = Math.round(ms / 1000);
+  const [n, unit] = s % 3600 === 0 && s >= 3600 ? [s / 3600, 'hour'] : s % 60 === 0 && s >= 60 ? [s / 60, 'minute'] : [s, 'second'];
+  return `${n} ${unit}${n === 1 ? '' : 's'}`;
+}
+
 /**
- * Why a schedule cannot be used (bad cron expression, unknown time zone, never fires), or null
+ * Why a schedule cannot be used (bad cron expression, unknown time zone, never fires, fires more
+ * often than once every `minIntervalMs` over its next INTERVAL_SAMPLE slots from `from`), or null
  * when it can. For checking a dataset definition before it is stored.
  */
-export function scheduleProblem(schedule: DatasetSchedule): string | null {
+export function scheduleProblem(schedule: DatasetSchedule, minIntervalMs = DEFAULT_MIN_SCHEDULE_INTERVAL_MS, from: Date = new Date()): string | null {
   if (typeof schedule?.cron !== 'string' || typeof schedule.timezone !== 'string') return 'a schedule needs "cron" and "timezone" texts';
   try {
     Intl.DateTimeFormat('en', { timeZone: schedule.timezone });
   } catch {
     return `timezone ${JSON.stringify(schedule.timezone)} is not an IANA time zone name such as Europe/Berlin or UTC`;
   }
+  let cron: Cron;
   try {
-    if (pattern(schedule).nextRun() === null) return `cron ${JSON.stringify(schedule.cron)} never fires`;
+    cron = pattern(schedule);
+    if (cron.nextRun(from) === null) return `cron ${JSON.stringify(schedule.cron)} never fires`;
   } catch (e) {
     return `cron ${JSON.stringify(schedule.cron)} is not usable: ${(e as Error).message}`;
+  }
+  if (minIntervalMs > 0) {
+    let prev = cron.nextRun(from);
+    for (let k = 0; k < INTERVAL_SAMPLE && prev !== null; k++) {
+      const next = cron.nextRun(prev);
+      if (next === null) break;
+      const gap = next.getTime() - prev.getTime();
+      if (gap < minIntervalMs) {
+        return `cron ${JSON.stringify(schedule.cron)} fires ${duration(gap)} apart (at ${prev.toISOString()} and ${next.toISOString()}); this service runs a schedule at most once every ${duration(minIntervalMs)}, for example "*/${Math.max(1, Math.ceil(minIntervalMs / 60_000))} * * * *" or "0 2 * * *" (nightly)`;
+      }
+      prev = next;
+    }
   }
   return null;
 }
@@ -113,6 +149,8 @@ export class Scheduler {
   private readonly now: () => number;
   private readonly cursors = new Map<string, number>();
   private readonly warned = new Map<string, string>();
+  /** the floor check of each schedule seen ("cron timezone" → problem or null) */
+  private readonly frequency = new Map<string, string | null>();
   /** when the datasets were last looked at (at start-up: the start of the catch-up window) */
   private lastLook: number;
   private timer: NodeJS.Timeout | null = null;
@@ -121,7 +159,7 @@ export class Scheduler {
 
   constructor(private readonly options: SchedulerOptions) {
     this.settings = { ...DEFAULT_SCHEDULER_SETTINGS, ...Object.fromEntries(Object.entries(options.settings ?? {}).filter(([, v]) => v !== undefined)) } as SchedulerSettings;
-    for (const k of ['scanMs', 'catchUpMs'] as const) {
+    for (const k of ['scanMs', 'catchUpMs', 'minIntervalMs'] as const) {
       const v = this.settings[k];
       if (!Number.isSafeInteger(v) || v < (k === 'scanMs' ? 1 : 0)) throw new RangeError(`scheduler setting ${k} must be a whole number of milliseconds${k === 'scanMs' ? ' ≥ 1' : ' ≥ 0'}, got ${String(v)}`);
     }
@@ -187,6 +225,11 @@ export class Scheduler {
       const after = this.cursors.get(d.id) ?? Math.max(this.lastLook, updated <= now ? updated : -Infinity);
       let done = true;
       try {
+        // stored before the floor was raised: not run, and said once
+        const key = `${d.schedule.cron} ${d.schedule.timezone}`;
+        if (!this.frequency.has(key)) this.frequency.set(key, scheduleProblem(d.schedule, this.settings.minIntervalMs, new Date(now)));
+        const tooOften = this.frequency.get(key);
+        if (tooOften != null && / apart /.test(tooOften)) throw new Error(tooOften);
         const slots = dueSlots(d.schedule, new Date(after), new Date(now), 1);
         if (slots.length > 0) done = await this.fire(d, slots[slots.length - 1]!, report);
         const upcoming = nextSlot(d.schedule, new Date(now));

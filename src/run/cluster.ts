@@ -21,7 +21,7 @@ import {
   featureString,
   featureStringWithProperties,
 } from '../geometry/geojson.js';
-import { hotspotHull, type HullGeometry } from '../geometry/hull.js';
+import { hotspotHull, HullSpreadError, type HullGeometry } from '../geometry/hull.js';
 import { categoryNames, hotspotPropertiesText } from '../geometry/layer-fields.js';
 import { roundDecimals, roundMeters, roundSignificant } from '../geometry/rounding.js';
 import { applyFilter } from '../ingest/filter.js';
@@ -461,11 +461,21 @@ export function clusterObservations(
       lonBuf[k] = points.lon[members[k]];
       latBuf[k] = points.lat[members[k]];
     }
-    const hull = hotspotHull(lonBuf.subarray(a, b), latBuf.subarray(a, b), {
-      kind: settings.hull,
-      concavity: settings.concavity,
-      bufferMeters: epsMeters / 2,
-    });
+    let hull: HullGeometry;
+    try {
+      hull = hotspotHull(lonBuf.subarray(a, b), latBuf.subarray(a, b), {
+        kind: settings.hull,
+        concavity: settings.concavity,
+        bufferMeters: epsMeters / 2,
+      });
+    } catch (err) {
+      if (!(err instanceof HullSpreadError)) throw err;
+      // chains of neighbours can reach round the globe at any eps: the settings, not the service, must change
+      throw new SettingsError(
+        'eps',
+        `at ${epsMeters} m, hotspot ${h + 1} joins ${b - a} observations reaching more than 80° from their centre (${err.message}), which no hull can outline; use a smaller eps or a larger min_points`,
+      );
+    }
     hulls.push(hull);
     areaKm2[h] = geometryAreaKm2(hull);
   }

@@ -3,6 +3,7 @@
  * stored datasets all name settings the same way (snake_case, as in the API) and pass them
  * through `resolveSettings`, so a setting means the same thing everywhere.
  */
+import { textFault } from '../ingest/limits.js';
 
 import { compileTimeFormat } from '../ingest/checks.js';
 
@@ -110,8 +111,14 @@ export class SettingsError extends Error {
   }
 }
 
-/** Largest eps accepted: a quarter of the Earth's circumference keeps every hotspot within a hemisphere. */
-export const MAX_EPS_METERS = 10_000_000;
+/**
+ * Largest eps accepted, metres. A hotspot of one or two observations, or of observations in a
+ * line, is outlined by a buffer of eps / 2 around them, and a buffer is drawn up to 1 000 km
+ * (src/geometry/hull.ts); 2 000 km is also far beyond any survey's sense of "near".
+ */
+export const MAX_EPS_METERS = 2_000_000;
+/** Largest OPTICS search radius, metres: a quarter of the Earth's circumference. */
+export const MAX_OPTICS_EPS_METERS = 10_000_000;
 
 function numberSetting(name: string, raw: unknown, opts: { min: number; max: number; integer?: boolean; exclusiveMin?: boolean }): number {
   const v = typeof raw === 'number' ? raw : typeof raw === 'string' && raw.trim() !== '' ? Number(raw) : NaN;
@@ -146,14 +153,20 @@ function instant(name: string, raw: unknown): string {
 
 /** Parses one `property=value` condition. */
 export function parseCondition(raw: unknown): { property: string; value: string } {
+  let c: { property: string; value: string };
   if (typeof raw === 'object' && raw !== null && 'property' in raw && 'value' in raw) {
     const { property, value } = raw as { property: unknown; value: unknown };
-    return { property: text('where', property), value: String(value) };
+    c = { property: text('where', property), value: String(value) };
+  } else {
+    const s = text('where', raw);
+    const eq = s.indexOf('=');
+    if (eq <= 0) throw new SettingsError('where', `must look like property=value, got ${JSON.stringify(s)}`);
+    c = { property: s.slice(0, eq), value: s.slice(eq + 1) };
   }
-  const s = text('where', raw);
-  const eq = s.indexOf('=');
-  if (eq <= 0) throw new SettingsError('where', `must look like property=value, got ${JSON.stringify(s)}`);
-  return { property: s.slice(0, eq), value: s.slice(eq + 1) };
+  // no stored observation can hold these (src/ingest/limits.ts), and PostgreSQL cannot be asked for them
+  const fault = textFault(c.property) ?? textFault(c.value);
+  if (fault !== null) throw new SettingsError('where', `holds ${fault}; no observation can match it — remove it`);
+  return c;
 }
 
 /**
@@ -209,7 +222,7 @@ export function resolveSettings(input: Record<string, unknown>, base: Readonly<C
         s.countBy = text(name, raw);
         break;
       case 'optics_max_eps':
-        s.opticsMaxEpsMeters = numberSetting(name, raw, { min: 0, max: MAX_EPS_METERS, exclusiveMin: true });
+        s.opticsMaxEpsMeters = numberSetting(name, raw, { min: 0, max: MAX_OPTICS_EPS_METERS, exclusiveMin: true });
         break;
       case 'optics_extraction':
         s.opticsExtraction = choice(name, raw, ['eps', 'xi'] as const);

@@ -26,14 +26,31 @@ import type {
 } from './store.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { RUN_STATUSES, RUN_TRIGGERS, StoreError } from './store.js';
+import { contentProblem, textFault } from '../ingest/limits.js';
 
+/** A new dataset's id: URL-safe, starting with a letter or digit (so never "." or ".."). */
+const NEW_DATASET_ID = /^[A-Za-z0-9][A-Za-z0-9._~-]{0,127}$/;
+/** Ids datasets created before that rule may have; anything else names no dataset. */
 const DATASET_ID = /^[A-Za-z0-9._~-]{1,128}$/;
 
-/** @throws StoreError 'invalid' when the id is not 1–128 URL-safe characters */
+/** @throws StoreError 'invalid' when the id is not 1–128 URL-safe characters starting with a letter or digit */
 export function checkDatasetId(id: string): void {
-  if (typeof id !== 'string' || !DATASET_ID.test(id)) {
-    throw new StoreError('invalid', `dataset id ${JSON.stringify(id)} must be 1 to 128 characters from A-Z a-z 0-9 . _ ~ -`);
+  if (typeof id !== 'string' || !NEW_DATASET_ID.test(id)) {
+    throw new StoreError('invalid', `dataset id ${JSON.stringify(id)} must be 1 to 128 characters from A-Z a-z 0-9 . _ ~ -, starting with a letter or digit`);
   }
+}
+
+/**
+ * Whether the text can name a dataset at all. Lookups with anything else find nothing without a
+ * query (a NUL, for one, cannot even be sent to PostgreSQL).
+ */
+export function canBeDatasetId(id: string): boolean {
+  return typeof id === 'string' && DATASET_ID.test(id);
+}
+
+/** Whether the text can be sent to either database as it is (no NUL, no lone surrogate). */
+export function plainText(s: string): boolean {
+  return typeof s === 'string' && textFault(s) === null;
 }
 
 function isPlainObject(v: unknown): v is Record<string, unknown> {
@@ -43,6 +60,9 @@ function isPlainObject(v: unknown): v is Record<string, unknown> {
 /** Checks the fields a new dataset or a patch carries. @throws StoreError 'invalid' */
 export function checkDatasetFields(d: DatasetPatch | NewDataset): void {
   if (d.name !== undefined && (typeof d.name !== 'string' || d.name.trim() === '')) throw new StoreError('invalid', 'dataset name must be a non-empty string');
+  // every text member, nested ones included, must be storable on both engines
+  const content = contentProblem({ name: d.name, settings: d.settings, id_property: d.idProperty, window: d.window, schedule: d.schedule, webhook: d.webhook }, true);
+  if (content !== null) throw new StoreError('invalid', `the dataset: ${content.message}`);
   if (d.settings !== undefined && !isPlainObject(d.settings)) throw new StoreError('invalid', 'dataset settings must be a JSON object, for example {"eps": 250, "min_points": 5}');
   if (d.idProperty !== undefined && d.idProperty !== null && (typeof d.idProperty !== 'string' || d.idProperty === '')) throw new StoreError('invalid', 'idProperty must be a property name or null');
   if (d.window !== undefined && d.window !== null && (typeof d.window !== 'string' || d.window === '')) throw new StoreError('invalid', 'window must be an ISO 8601 duration such as "P30D", or null');
@@ -84,6 +104,7 @@ export function checkQuery(q: ObservationQuery): void {
   if (q.untimed === true && (q.from !== undefined || q.to !== undefined)) throw new StoreError('invalid', 'untimed observations have no time: leave from and to out');
   for (const c of q.where ?? []) {
     if (typeof c.property !== 'string' || c.property === '' || typeof c.value !== 'string') throw new StoreError('invalid', 'where conditions must be {property, value} strings');
+    if (!plainText(c.property) || !plainText(c.value)) throw new StoreError('invalid', 'a where condition holds a NUL character or a lone surrogate, which no stored observation can hold');
   }
 }
 
@@ -124,6 +145,29 @@ export function formatRunId(seq: number): string {
 export function parseRunId(runId: string): number | null {
   const m = typeof runId === 'string' ? /^r(\d{1,15})$/.exec(runId) : null;
   return m === null ? null : Number(m[1]);
+}
+
+/**
+ * A claim's lease when the claimer names none, milliseconds. The run queue passes its own
+ * (src/jobs/lease.ts); this default fits a caller that renews every 10 s.
+ */
+export const DEFAULT_LEASE_MS = 15_000;
+
+/** @throws StoreError 'invalid' unless the lease is a whole number of milliseconds from 1 to a day */
+export function checkLease(workerId: string, leaseMs: number): void {
+  if (typeof workerId !== 'string' || workerId === '') throw new StoreError('invalid', 'a claim needs a worker id');
+  if (!Number.isSafeInteger(leaseMs) || leaseMs < 1 || leaseMs > 86_400_000) throw new StoreError('invalid', `lease must be 1 to 86 400 000 ms, got ${String(leaseMs)}`);
+}
+
+/**
+ * What a run says after its process stopped `times` times before it finished: queued again, or
+ * (at the limit) failed, with what the user can do.
+ */
+export function interruptedMessage(times: number, failed: boolean): string {
+  const head = `interrupted ${times} time${times === 1 ? '' : 's'}: the process running it stopped before it finished`;
+  return failed
+    ? `${head}; not tried again. A run this large may need more memory than the service has: narrow it (a shorter window, a where condition) or ask the operator to look at the service log for this run`
+    : `${head}; queued again`;
 }
 
 /** @throws StoreError 'invalid' for an unknown status or progress outside 0–100 */

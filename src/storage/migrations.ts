@@ -299,4 +299,23 @@ export const MIGRATIONS: readonly Migration[] = [
     sqlite: 'ALTER TABLE datasets ADD COLUMN publish TEXT;',
     postgres: 'ALTER TABLE datasets ADD COLUMN publish JSONB;',
   },
+  {
+    version: 7,
+    name: 'run leases and interruption counts',
+    // A running run holds a lease its process renews (src/jobs/lease.ts); any instance takes over
+    // a run whose lease ran out. Runs running when this is applied get the old staleness bound
+    // (two minutes after their last update) as their lease.
+    sqlite: `
+      ALTER TABLE runs ADD COLUMN lease_until_ms INTEGER;
+      ALTER TABLE runs ADD COLUMN interruptions INTEGER NOT NULL DEFAULT 0;
+      UPDATE runs SET lease_until_ms = updated_ms + 120000 WHERE status = 'running';
+      CREATE INDEX runs_running ON runs (status, lease_until_ms);
+    `,
+    postgres: `
+      ALTER TABLE runs ADD COLUMN lease_until TIMESTAMPTZ;
+      ALTER TABLE runs ADD COLUMN interruptions INTEGER NOT NULL DEFAULT 0;
+      UPDATE runs SET lease_until = updated_at + interval '120 seconds' WHERE status = 'running';
+      CREATE INDEX runs_running ON runs (lease_until) WHERE status = 'running';
+    `,
+  },
 ];

@@ -41,13 +41,18 @@ import { StoreError } from './store.js';
 import {
   auditPage,
   batchIds,
+  canBeDatasetId,
   checkAuditRecord,
   checkNewKey,
   keyFromRow,
   checkDatasetFields,
   checkDatasetId,
+  plainText,
+  checkLease,
   checkLimit,
   checkNewRun,
+  DEFAULT_LEASE_MS,
+  interruptedMessage,
   checkQuery,
   checkRecords,
   checkRunPatch,
@@ -181,6 +186,7 @@ export class PostgresStore implements Store {
   }
 
   async getDataset(id: string): Promise<Dataset | null> {
+    if (!canBeDatasetId(id)) return null;
     const r = await this.pool.query('SELECT * FROM datasets WHERE id = $1', [id]);
     return r.rows.length === 0 ? null : datasetFromRow(r.rows[0] as Row);
   }
@@ -208,6 +214,7 @@ export class PostgresStore implements Store {
   }
 
   async deleteDataset(id: string): Promise<boolean> {
+    if (!canBeDatasetId(id)) return false;
     // The row first: its lock waits for an ingest of the dataset under way (which holds the row
     // locked) and keeps new ones out, so the observations deleted next are all there will be.
     return this.tx(async (c) => {
@@ -262,6 +269,7 @@ export class PostgresStore implements Store {
   }
 
   async deleteObservation(datasetId: string, id: string): Promise<boolean> {
+    if (!plainText(id)) return false;
     return ((await this.pool.query('DELETE FROM observations WHERE dataset_id = $1 AND obs_id = $2', [datasetId, id])).rowCount ?? 0) > 0;
   }
 
@@ -355,16 +363,18 @@ export class PostgresStore implements Store {
     return r.rows[0] as { seq: number; status: RunStatus };
   }
 
-  async claimNextRun(workerId: string): Promise<Run | null> {
+  async claimNextRun(workerId: string, leaseMs = DEFAULT_LEASE_MS): Promise<Run | null> {
+    checkLease(workerId, leaseMs);
     // Under READ COMMITTED the locked row is re-checked after a competing claim commits and may no
     // longer be queued; the statement then finds nothing although other runs wait, so try again.
     for (let attempt = 0; attempt < 5; attempt++) {
       const now = nowIso();
+      // the lease runs on the database's clock, which every instance shares
       const r = await this.pool.query(
-        `UPDATE runs SET status = 'running', worker_id = $1, started_at = $2, updated_at = $2
+        `UPDATE runs SET status = 'running', worker_id = $1, started_at = $2, updated_at = $2, lease_until = now() + $3 * interval '1 millisecond'
          WHERE seq = (SELECT seq FROM runs WHERE status = 'queued' ORDER BY seq LIMIT 1 FOR UPDATE SKIP LOCKED)
          RETURNING *`,
-        [workerId, now],
+        [workerId, now, leaseMs],
       );
       if (r.rows.length > 0) return runFromRow(r.rows[0] as Row);
       const left = await this.pool.query(`SELECT EXISTS (SELECT 1 FROM runs WHERE status = 'queued') AS any`);
@@ -373,15 +383,84 @@ export class PostgresStore implements Store {
     return null;
   }
 
-  async updateRun(runId: string, patch: RunPatch, ifStatus?: RunStatus[]): Promise<Run> {
+  async claimRun(runId: string, workerId: string, leaseMs = DEFAULT_LEASE_MS): Promise<Run> {
+    checkLease(workerId, leaseMs);
+    return this.tx(async (c) => {
+      const { seq, status } = await this.requireRunSeq(c, runId, 'FOR UPDATE');
+      if (status !== 'queued') throw new StoreError('conflict', `run ${runId} is ${status}, not queued`);
+      const now = nowIso();
+      const r = await c.query(
+        `UPDATE runs SET status = 'running', worker_id = $1, started_at = $2, updated_at = $2, lease_until = now() + $3 * interval '1 millisecond' WHERE seq = $4 RETURNING *`,
+        [workerId, now, leaseMs, seq],
+      );
+      return runFromRow(r.rows[0] as Row);
+    });
+  }
+
+  async renewRunLease(runId: string, workerId: string, leaseMs: number): Promise<boolean> {
+    checkLease(workerId, leaseMs);
+    const seq = parseRunId(runId);
+    if (seq === null) return false;
+    const r = await this.pool.query(
+      `UPDATE runs SET lease_until = now() + $1 * interval '1 millisecond', updated_at = $2 WHERE seq = $3 AND status = 'running' AND worker_id = $4`,
+      [leaseMs, nowIso(), seq, workerId],
+    );
+    return r.rowCount === 1;
+  }
+
+  async reclaimExpiredRuns(maxInterruptions: number): Promise<{ requeued: string[]; failed: string[] }> {
+    return this.tx(async (c) => {
+      const now = nowIso();
+      // A run reclaimed by a competing call meanwhile is re-checked after that call commits, is no
+      // longer 'running' with an expired lease, and is left alone.
+      const r = await c.query(
+        `UPDATE runs SET
+           interruptions = interruptions + 1,
+           status = CASE WHEN interruptions + 1 >= $1 THEN 'failed' ELSE 'queued' END,
+           progress = CASE WHEN interruptions + 1 >= $1 THEN progress ELSE 0 END,
+           worker_id = CASE WHEN interruptions + 1 >= $1 THEN worker_id ELSE NULL END,
+           started_at = CASE WHEN interruptions + 1 >= $1 THEN started_at ELSE NULL END,
+           finished_at = CASE WHEN interruptions + 1 >= $1 THEN $2::timestamptz ELSE NULL END,
+           lease_until = NULL,
+           updated_at = $2
+         WHERE status = 'running' AND lease_until < now()
+         RETURNING seq, status, interruptions`,
+        [maxInterruptions, now],
+      );
+      const rows = (r.rows as Row[]).map((x) => ({ seq: Number(x.seq), failed: x.status === 'failed', times: x.interruptions as number })).sort((a, b) => a.seq - b.seq);
+      if (rows.length > 0) {
+        await c.query('UPDATE runs SET error = x.e FROM unnest($1::bigint[], $2::text[]) AS x(s, e) WHERE runs.seq = x.s', [
+          rows.map((x) => x.seq),
+          rows.map((x) => interruptedMessage(x.times, x.failed)),
+        ]);
+      }
+      return { requeued: rows.filter((x) => !x.failed).map((x) => formatRunId(x.seq)), failed: rows.filter((x) => x.failed).map((x) => formatRunId(x.seq)) };
+    });
+  }
+
+  /** Throws 'conflict' unless the run's status is one of `ifStatus` and (when given) `ifWorker` holds it; locks the row. */
+  private async requireClaim(c: pg.PoolClient, runId: string, ifStatus: RunStatus[] | undefined, ifWorker: string | undefined): Promise<number> {
+    const seq = parseRunId(runId);
+    const r = seq === null ? null : await c.query('SELECT seq, status, worker_id FROM runs WHERE seq = $1 FOR UPDATE', [seq]);
+    if (r === null || r.rows.length === 0) throw new StoreError('not-found', `there is no run ${JSON.stringify(runId)}`);
+    const row = r.rows[0] as { seq: number; status: RunStatus; worker_id: string | null };
+    if (ifStatus !== undefined && !ifStatus.includes(row.status)) throw new StoreError('conflict', `run ${runId} is ${row.status}, not ${ifStatus.join(' or ')}`);
+    if (ifWorker !== undefined && row.worker_id !== ifWorker) throw new StoreError('conflict', `run ${runId} was taken over by another process`);
+    return Number(row.seq);
+  }
+
+  async updateRun(runId: string, patch: RunPatch, ifStatus?: RunStatus[], ifWorker?: string): Promise<Run> {
     checkRunPatch(patch);
     if (ifStatus !== undefined) checkStatuses(ifStatus);
     return this.tx(async (c) => {
-      const { seq, status } = await this.requireRunSeq(c, runId, 'FOR UPDATE');
-      if (ifStatus !== undefined && !ifStatus.includes(status)) throw new StoreError('conflict', `run ${runId} is ${status}, not ${ifStatus.join(' or ')}`);
+      const seq = await this.requireClaim(c, runId, ifStatus, ifWorker);
       const p = new Params();
       const sets: string[] = [];
-      if (patch.status !== undefined) sets.push(`status = ${p.add(patch.status)}`);
+      if (patch.status !== undefined) {
+        sets.push(`status = ${p.add(patch.status)}`);
+        // a lease belongs to a running run only
+        if (patch.status !== 'running') sets.push('lease_until = NULL');
+      }
       if (patch.progress !== undefined) sets.push(`progress = ${p.add(patch.progress)}`);
       if (patch.error !== undefined) sets.push(`error = ${p.add(patch.error)}`);
       if (patch.startedAt !== undefined) sets.push(`started_at = ${p.add(patch.startedAt)}`);
@@ -392,6 +471,11 @@ export class PostgresStore implements Store {
       const r = await c.query(`UPDATE runs SET ${sets.join(', ')} WHERE seq = ${p.add(seq)} RETURNING *`, p.values);
       return runFromRow(r.rows[0] as Row);
     });
+  }
+
+  async countRuns(status: RunStatus): Promise<number> {
+    checkStatuses([status]);
+    return (await this.pool.query('SELECT count(*)::int AS n FROM runs WHERE status = $1', [status])).rows[0].n as number;
   }
 
   async getRun(datasetId: string, runId: string): Promise<Run | null> {
@@ -420,10 +504,10 @@ export class PostgresStore implements Store {
     return r.rows.length === 0 ? null : runFromRow(r.rows[0] as Row);
   }
 
-  async saveRunResult(runId: string, result: RunResult): Promise<void> {
+  async saveRunResult(runId: string, result: RunResult, ifWorker?: string): Promise<void> {
     const pieces = layerPieces(result);
     await this.tx(async (c) => {
-      const { seq } = await this.requireRunSeq(c, runId, 'FOR UPDATE');
+      const seq = await this.requireClaim(c, runId, ifWorker === undefined ? undefined : ['running'], ifWorker);
       await c.query('DELETE FROM run_layer_parts WHERE run_seq = $1', [seq]);
       await c.query('DELETE FROM run_hotspots WHERE run_seq = $1', [seq]);
       // One statement per piece with the text as a plain parameter: a text[] array would make the
@@ -487,6 +571,7 @@ export class PostgresStore implements Store {
   }
 
   async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {
+    if (!plainText(trackId)) return [];
     const r = await this.pool.query(
       'SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = $1 AND r.dataset_id = $2 ORDER BY h.run_seq, h.hotspot_id',
       [trackId, datasetId],
@@ -503,12 +588,12 @@ export class PostgresStore implements Store {
   async markInterruptedRuns(reason: string, filter: InterruptedRunFilter = {}): Promise<string[]> {
     const now = nowIso();
     const p = new Params();
-    return this.interrupted(p, filter, `status = 'failed', error = ${p.add(reason)}, finished_at = ${p.add(now)}, updated_at = ${p.add(now)}`);
+    return this.interrupted(p, filter, `status = 'failed', error = ${p.add(reason)}, finished_at = ${p.add(now)}, lease_until = NULL, updated_at = ${p.add(now)}`);
   }
 
   async requeueInterruptedRuns(filter: InterruptedRunFilter = {}): Promise<string[]> {
     const p = new Params();
-    return this.interrupted(p, filter, `status = 'queued', progress = 0, worker_id = NULL, started_at = NULL, updated_at = ${p.add(nowIso())}`);
+    return this.interrupted(p, filter, `status = 'queued', progress = 0, worker_id = NULL, started_at = NULL, lease_until = NULL, updated_at = ${p.add(nowIso())}`);
   }
 
   private async interrupted(p: Params, filter: InterruptedRunFilter, set: string): Promise<string[]> {
@@ -693,6 +778,8 @@ function runFromRow(r: Row): Run {
     startedAt: iso(r.started_at),
     finishedAt: iso(r.finished_at),
     updatedAt: iso(r.updated_at) as string,
+    leaseUntil: iso(r.lease_until),
+    interruptions: (r.interruptions as number | undefined) ?? 0,
     summary: (r.summary ?? null) as Record<string, unknown> | null,
     timings: (r.timings ?? null) as Record<string, number> | null,
   };

@@ -39,13 +39,18 @@ import { StoreError } from './store.js';
 import {
   auditPage,
   batchIds,
+  canBeDatasetId,
   checkAuditRecord,
   checkNewKey,
   keyFromRow,
   checkDatasetFields,
   checkDatasetId,
+  plainText,
+  checkLease,
   checkLimit,
   checkNewRun,
+  DEFAULT_LEASE_MS,
+  interruptedMessage,
   checkQuery,
   checkRecords,
   checkRunPatch,
@@ -159,6 +164,7 @@ export class SqliteStore implements Store {
   }
 
   async getDataset(id: string): Promise<Dataset | null> {
+    if (!canBeDatasetId(id)) return null;
     const row = this.db.prepare('SELECT * FROM datasets WHERE id = ?').get(id) as Row | undefined;
     return row === undefined ? null : datasetFromRow(row);
   }
@@ -189,6 +195,7 @@ export class SqliteStore implements Store {
   }
 
   async deleteDataset(id: string): Promise<boolean> {
+    if (!canBeDatasetId(id)) return false;
     return this.db.prepare('DELETE FROM datasets WHERE id = ?').run(id).changes > 0;
   }
 
@@ -231,6 +238,7 @@ export class SqliteStore implements Store {
   }
 
   async deleteObservation(datasetId: string, id: string): Promise<boolean> {
+    if (!plainText(id)) return false;
     return this.db.prepare('DELETE FROM observations WHERE dataset_id = ? AND obs_id = ?').run(datasetId, id).changes > 0;
   }
 
@@ -368,36 +376,100 @@ export class SqliteStore implements Store {
     return seq;
   }
 
-  async claimNextRun(workerId: string): Promise<Run | null> {
+  async claimNextRun(workerId: string, leaseMs = DEFAULT_LEASE_MS): Promise<Run | null> {
+    checkLease(workerId, leaseMs);
     const tx = this.db.transaction((): number | null => {
       const seq = this.db.prepare(`SELECT seq FROM runs WHERE status = 'queued' ORDER BY seq LIMIT 1`).pluck().get() as number | undefined;
       if (seq === undefined) return null;
-      const now = nowIso();
-      this.db
-        .prepare(`UPDATE runs SET status = 'running', worker_id = ?, started_at = ?, updated_at = ?, updated_ms = ? WHERE seq = ?`)
-        .run(workerId, now, now, Date.parse(now), seq);
+      this.claim(seq, workerId, leaseMs);
       return seq;
     });
     const seq = tx.immediate();
     return seq === null ? null : this.runBySeq(seq);
   }
 
-  async updateRun(runId: string, patch: RunPatch, ifStatus?: RunStatus[]): Promise<Run> {
+  async claimRun(runId: string, workerId: string, leaseMs = DEFAULT_LEASE_MS): Promise<Run> {
+    checkLease(workerId, leaseMs);
+    const tx = this.db.transaction((): number => {
+      const seq = this.requireRunSeq(runId);
+      const status = this.db.prepare('SELECT status FROM runs WHERE seq = ?').pluck().get(seq) as RunStatus;
+      if (status !== 'queued') throw new StoreError('conflict', `run ${runId} is ${status}, not queued`);
+      this.claim(seq, workerId, leaseMs);
+      return seq;
+    });
+    return this.runBySeq(tx.immediate()) as Run;
+  }
+
+  /** Marks a queued run running under a new lease, inside the caller's transaction. */
+  private claim(seq: number, workerId: string, leaseMs: number): void {
+    const now = nowIso();
+    const ms = Date.parse(now);
+    this.db
+      .prepare(`UPDATE runs SET status = 'running', worker_id = ?, started_at = ?, updated_at = ?, updated_ms = ?, lease_until_ms = ? WHERE seq = ?`)
+      .run(workerId, now, now, ms, ms + leaseMs, seq);
+  }
+
+  async renewRunLease(runId: string, workerId: string, leaseMs: number): Promise<boolean> {
+    checkLease(workerId, leaseMs);
+    const seq = parseRunId(runId);
+    if (seq === null) return false;
+    const now = Date.now();
+    const changed = this.db
+      .prepare(`UPDATE runs SET lease_until_ms = ?, updated_at = ?, updated_ms = ? WHERE seq = ? AND status = 'running' AND worker_id = ?`)
+      .run(now + leaseMs, new Date(now).toISOString(), now, seq, workerId).changes;
+    return changed === 1;
+  }
+
+  async reclaimExpiredRuns(maxInterruptions: number): Promise<{ requeued: string[]; failed: string[] }> {
+    const tx = this.db.transaction(() => {
+      const now = nowIso();
+      const ms = Date.parse(now);
+      const rows = this.db.prepare(`SELECT seq, interruptions FROM runs WHERE status = 'running' AND lease_until_ms < ? ORDER BY seq`).all(ms) as { seq: number; interruptions: number }[];
+      const requeue = this.db.prepare(
+        `UPDATE runs SET status = 'queued', progress = 0, worker_id = NULL, started_at = NULL, lease_until_ms = NULL, interruptions = ?, error = ?, updated_at = ?, updated_ms = ? WHERE seq = ?`,
+      );
+      const fail = this.db.prepare(`UPDATE runs SET status = 'failed', lease_until_ms = NULL, interruptions = ?, error = ?, finished_at = ?, updated_at = ?, updated_ms = ? WHERE seq = ?`);
+      const out = { requeued: [] as string[], failed: [] as string[] };
+      for (const r of rows) {
+        const times = r.interruptions + 1;
+        if (times >= maxInterruptions) {
+          fail.run(times, interruptedMessage(times, true), now, now, ms, r.seq);
+          out.failed.push(formatRunId(r.seq));
+        } else {
+          requeue.run(times, interruptedMessage(times, false), now, ms, r.seq);
+          out.requeued.push(formatRunId(r.seq));
+        }
+      }
+      return out;
+    });
+    return tx.immediate();
+  }
+
+  /** Throws 'conflict' unless the run's status is one of `ifStatus` and (when given) `ifWorker` holds it. */
+  private requireClaim(runId: string, seq: number, ifStatus: RunStatus[] | undefined, ifWorker: string | undefined): void {
+    if (ifStatus === undefined && ifWorker === undefined) return;
+    const row = this.db.prepare('SELECT status, worker_id FROM runs WHERE seq = ?').get(seq) as { status: RunStatus; worker_id: string | null };
+    if (ifStatus !== undefined && !ifStatus.includes(row.status)) throw new StoreError('conflict', `run ${runId} is ${row.status}, not ${ifStatus.join(' or ')}`);
+    if (ifWorker !== undefined && row.worker_id !== ifWorker) throw new StoreError('conflict', `run ${runId} was taken over by another process`);
+  }
+
+  async updateRun(runId: string, patch: RunPatch, ifStatus?: RunStatus[], ifWorker?: string): Promise<Run> {
     checkRunPatch(patch);
     if (ifStatus !== undefined) checkStatuses(ifStatus);
     const tx = this.db.transaction((): number => {
       const seq = this.requireRunSeq(runId);
-      if (ifStatus !== undefined) {
-        const status = this.db.prepare('SELECT status FROM runs WHERE seq = ?').pluck().get(seq) as RunStatus;
-        if (!ifStatus.includes(status)) throw new StoreError('conflict', `run ${runId} is ${status}, not ${ifStatus.join(' or ')}`);
-      }
+      this.requireClaim(runId, seq, ifStatus, ifWorker);
       const sets: string[] = [];
       const args: unknown[] = [];
       const put = (col: string, v: unknown): void => {
         sets.push(`${col} = ?`);
         args.push(v);
       };
-      if (patch.status !== undefined) put('status', patch.status);
+      if (patch.status !== undefined) {
+        put('status', patch.status);
+        // a lease belongs to a running run only
+        if (patch.status !== 'running') put('lease_until_ms', null);
+      }
       if (patch.progress !== undefined) put('progress', patch.progress);
       if (patch.error !== undefined) put('error', patch.error);
       if (patch.startedAt !== undefined) put('started_at', patch.startedAt);
@@ -411,6 +483,11 @@ export class SqliteStore implements Store {
       return seq;
     });
     return this.runBySeq(tx.immediate()) as Run;
+  }
+
+  async countRuns(status: RunStatus): Promise<number> {
+    checkStatuses([status]);
+    return this.db.prepare('SELECT count(*) FROM runs WHERE status = ?').pluck().get(status) as number;
   }
 
   async getRun(datasetId: string, runId: string): Promise<Run | null> {
@@ -439,10 +516,11 @@ export class SqliteStore implements Store {
     return row === undefined ? null : runFromRow(row);
   }
 
-  async saveRunResult(runId: string, result: RunResult): Promise<void> {
+  async saveRunResult(runId: string, result: RunResult, ifWorker?: string): Promise<void> {
     const pieces = layerPieces(result);
     const tx = this.db.transaction(() => {
       const seq = this.requireRunSeq(runId);
+      if (ifWorker !== undefined) this.requireClaim(runId, seq, ['running'], ifWorker);
       this.db.prepare('DELETE FROM run_layer_parts WHERE run_seq = ?').run(seq);
       this.db.prepare('DELETE FROM run_hotspots WHERE run_seq = ?').run(seq);
       const part = this.db.prepare('INSERT INTO run_layer_parts (run_seq, layer, part, body) VALUES (?, ?, ?, ?)');
@@ -481,6 +559,7 @@ export class SqliteStore implements Store {
   }
 
   async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {
+    if (!plainText(trackId)) return [];
     const rows = this.db
       .prepare('SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = ? AND r.dataset_id = ? ORDER BY h.run_seq, h.hotspot_id')
       .all(trackId, datasetId) as Row[];
@@ -495,12 +574,12 @@ export class SqliteStore implements Store {
 
   async markInterruptedRuns(reason: string, filter: InterruptedRunFilter = {}): Promise<string[]> {
     const now = nowIso();
-    return this.interrupted(filter, `status = 'failed', error = ?, finished_at = ?, updated_at = ?, updated_ms = ?`, [reason, now, now, Date.parse(now)]);
+    return this.interrupted(filter, `status = 'failed', error = ?, finished_at = ?, lease_until_ms = NULL, updated_at = ?, updated_ms = ?`, [reason, now, now, Date.parse(now)]);
   }
 
   async requeueInterruptedRuns(filter: InterruptedRunFilter = {}): Promise<string[]> {
     const now = nowIso();
-    return this.interrupted(filter, `status = 'queued', progress = 0, worker_id = NULL, started_at = NULL, updated_at = ?, updated_ms = ?`, [now, Date.parse(now)]);
+    return this.interrupted(filter, `status = 'queued', progress = 0, worker_id = NULL, started_at = NULL, lease_until_ms = NULL, updated_at = ?, updated_ms = ?`, [now, Date.parse(now)]);
   }
 
   private interrupted(filter: InterruptedRunFilter, set: string, setArgs: unknown[]): string[] {
@@ -637,6 +716,8 @@ function runFromRow(r: Row): Run {
     startedAt: r.started_at as string | null,
     finishedAt: r.finished_at as string | null,
     updatedAt: r.updated_at as string,
+    leaseUntil: r.lease_until_ms == null ? null : new Date(r.lease_until_ms as number).toISOString(),
+    interruptions: (r.interruptions as number | undefined) ?? 0,
     summary: parseJson(r.summary),
     timings: parseJson(r.timings),
   };

@@ -40,10 +40,16 @@
  *
  * Runs are jobs: queued → running → succeeded | failed | cancelled. `claimNextRun` hands the oldest
  * queued run to exactly one claimer (SQLite: an IMMEDIATE transaction, which holds the database's
- * single write lock; PostgreSQL: `FOR UPDATE SKIP LOCKED`). After a crash, `markInterruptedRuns`
- * fails the runs left running and `requeueInterruptedRuns` puts them back in the queue; both take
- * an optional worker id or staleness bound so that one instance of several does not touch runs
- * another live instance is working on.
+ * single write lock; PostgreSQL: `FOR UPDATE SKIP LOCKED`). A claim is a lease: the claimer's id
+ * (unique per claim) is kept in `workerId` and the run is its own until `leaseUntil`, which the
+ * claimer renews (`renewRunLease`). `reclaimExpiredRuns` puts runs whose lease ran out back in the
+ * queue, or fails them after too many interruptions; it may be called by any process at any time.
+ * Lease times are the database's clock on PostgreSQL (instances on several machines agree) and the
+ * process's clock on SQLite (all processes on one machine). The writes a claimer makes to its run
+ * (`updateRun`, `saveRunResult`) take its claim id (`ifWorker`) and fail with 'conflict' once the
+ * run was taken over, so a process that lost its lease cannot overwrite the new claimer's work.
+ * `markInterruptedRuns` and `requeueInterruptedRuns` do the same for runs chosen by worker id or
+ * staleness, for operators' tools.
  *
  * Durability (SQLite): WAL with synchronous=NORMAL by default. A committed transaction survives a
  * crash of the process (SIGKILL included); on power loss or an operating-system crash the last
@@ -249,6 +255,10 @@ export interface Run {
   finishedAt: string | null;
   /** last change of any kind (a heartbeat for `staleMs`) */
   updatedAt: string;
+  /** RFC 3339: while 'running', the claim holds until then unless renewed; null otherwise */
+  leaseUntil: string | null;
+  /** times the run's process stopped (its lease ran out) before it finished */
+  interruptions: number;
   summary: Record<string, unknown> | null;
   /** stage → milliseconds */
   timings: Record<string, number> | null;
@@ -405,22 +415,41 @@ export interface Store {
 
   /** @throws StoreError 'not-found' for an unknown dataset */
   createRun(r: NewRun): Promise<Run>;
-  /** Takes the oldest queued run, marks it running (startedAt now) and returns it; null when none is queued. */
-  claimNextRun(workerId: string): Promise<Run | null>;
+  /**
+   * Takes the oldest queued run, marks it running (startedAt now) under a lease of `leaseMs`
+   * (default DEFAULT_LEASE_MS) held by `workerId`, and returns it; null when none is queued.
+   */
+  claimNextRun(workerId: string, leaseMs?: number): Promise<Run | null>;
+  /** Claims one queued run as claimNextRun would. @throws StoreError 'not-found', 'conflict' when it is not queued */
+  claimRun(runId: string, workerId: string, leaseMs?: number): Promise<Run>;
+  /** Extends the lease to `leaseMs` from now. @returns false when the run is no longer running under this claim */
+  renewRunLease(runId: string, workerId: string, leaseMs: number): Promise<boolean>;
+  /**
+   * Runs 'running' whose lease has run out count one more interruption and go back to the queue
+   * (progress 0, no worker), or are failed once they reach `maxInterruptions`.
+   * @returns the ids queued again and failed
+   */
+  reclaimExpiredRuns(maxInterruptions: number): Promise<{ requeued: string[]; failed: string[] }>;
   /**
    * Changes a run. With `ifStatus`, changes it only when its current status is one of those, else
-   * throws 'conflict' (so a cancelled run is not marked succeeded by a late worker).
+   * throws 'conflict' (so a cancelled run is not marked succeeded by a late worker). With
+   * `ifWorker`, only while that claim holds the run (else 'conflict').
    * @throws StoreError 'not-found', 'conflict', 'invalid'
    */
-  updateRun(runId: string, patch: RunPatch, ifStatus?: RunStatus[]): Promise<Run>;
+  updateRun(runId: string, patch: RunPatch, ifStatus?: RunStatus[], ifWorker?: string): Promise<Run>;
+  /** Runs with the status across all datasets (for example how many wait in the queue). */
+  countRuns(status: RunStatus): Promise<number>;
   /** @returns null when the dataset has no such run */
   getRun(datasetId: string, runId: string): Promise<Run | null>;
   /** Newest first. */
   listRuns(datasetId: string, options: { limit: number; cursor?: string }): Promise<RunPage>;
   /** The newest run (creation order) with the status, default 'succeeded'; `before` restricts to runs created before that run. */
   latestRun(datasetId: string, status?: RunStatus, before?: string): Promise<Run | null>;
-  /** Stores a run's result, replacing any earlier one. @throws StoreError 'not-found' */
-  saveRunResult(runId: string, result: RunResult): Promise<void>;
+  /**
+   * Stores a run's result, replacing any earlier one; with `ifWorker`, only while that claim holds
+   * the run 'running'. @throws StoreError 'not-found', 'conflict'
+   */
+  saveRunResult(runId: string, result: RunResult, ifWorker?: string): Promise<void>;
   /** A stored layer text; null when the run has no stored result. @throws StoreError 'not-found' for an unknown run */
   getRunLayer(runId: string, layer: LayerName): Promise<string | null>;
   /**

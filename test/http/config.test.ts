@@ -49,7 +49,7 @@ function parse(limit: number, chunks: Buffer[], contentLength?: number): Promise
   const stream = new PassThrough();
   const request = { headers: contentLength === undefined ? {} : { 'content-length': String(contentLength) } } as unknown as FastifyRequest;
   const result = new Promise<Uint8Array>((resolve, reject) => {
-    rawBodyParser(limit)(request, stream, (err, body) => (err ? reject(err) : resolve(body!)));
+    rawBodyParser({ limitBytes: limit, uploads: 4, uploadTimeoutMs: 60_000, retryAfterS: 1 }).parser(request, stream, (err, body) => (err ? reject(err) : resolve(body!)));
   });
   for (const c of chunks) stream.write(c);
   stream.end();
@@ -76,6 +76,21 @@ describe('raw body collection', () => {
   it('refuses bodies whose length disagrees with Content-Length', async () => {
     await expect(parse(1000, [a, b], 5)).rejects.toMatchObject({ code: 'bad-request' });
     await expect(parse(1000, [a], 100)).rejects.toMatchObject({ code: 'bad-request' });
+  });
+
+  it('allocates nothing from a declared Content-Length: a body declared huge and never sent holds no memory', async () => {
+    const stream = new PassThrough();
+    const request = { headers: { 'content-length': String(200 * 1024 * 1024) } } as unknown as FastifyRequest;
+    const before = process.memoryUsage().arrayBuffers;
+    const { parser, allowance } = rawBodyParser({ limitBytes: 256 * 1024 * 1024, uploads: 4, uploadTimeoutMs: 60_000, retryAfterS: 1 });
+    const result = new Promise<unknown>((resolve) => parser(request, stream, (err) => resolve(err)));
+    stream.write(a);
+    expect(allowance.inProgress).toBe(1);
+    // 200 MiB declared: a buffer of that size would show here at once
+    expect(process.memoryUsage().arrayBuffers - before).toBeLessThan(16 * 1024 * 1024);
+    stream.destroy();
+    expect(await result).toMatchObject({ code: 'bad-request' });
+    expect(allowance.inProgress).toBe(0);
   });
 
   it('refuses bodies over the limit, declared or counted', async () => {

@@ -63,6 +63,11 @@ describe('/v1/datasets', () => {
       [{ id: 'x7', settings: { eps: 10 }, schedule: { cron: '0 2 * * *' } }, 'schedule'],
       [{ id: 'x8', settings: { eps: 10 }, schedule: { cron: '0 2 * * *', timezone: 'Mars/Olympus' } }, 'schedule'],
       [{ id: 'x9', settings: { eps: 10 }, schedule: { cron: 'every night', timezone: 'UTC' } }, 'schedule'],
+      // more often than the floor (default once every 5 minutes)
+      [{ id: 'x10', settings: { eps: 10 }, schedule: { cron: '* * * * * *', timezone: 'UTC' } }, 'schedule'],
+      [{ id: 'x11', settings: { eps: 10 }, schedule: { cron: '*/2 * * * *', timezone: 'UTC' } }, 'schedule'],
+      [{ id: '.', settings: { eps: 10 } }, 'id'],
+      [{ id: '..', settings: { eps: 10 } }, 'id'],
     ];
     for (const [body, parameter] of cases) {
       const res = await post(body);
@@ -72,6 +77,21 @@ describe('/v1/datasets', () => {
     }
     const broken = await app.inject({ method: 'POST', url: '/v1/datasets', headers: JSON_TYPE, payload: '{"id":' });
     expect(broken.json().code).toBe('malformed-body');
+  });
+
+  it('refuses a schedule firing more often than the floor with a 400 saying so, and takes one every 5 minutes', async () => {
+    const res = await post({ id: 'eager', settings: { eps: 10 }, schedule: { cron: '* * * * *', timezone: 'UTC' } });
+    expect(res.statusCode).toBe(400);
+    expect(res.json().detail).toMatch(/fires 1 minute apart .*at most once every 5 minutes/);
+    expect((await post({ id: 'steady', settings: { eps: 10 }, schedule: { cron: '*/5 * * * *', timezone: 'UTC' } })).statusCode).toBe(201);
+    const patched = await app.inject({ method: 'PATCH', url: '/v1/datasets/steady', headers: JSON_TYPE, payload: JSON.stringify({ schedule: { cron: '*/1 * * * *', timezone: 'UTC' } }) });
+    expect(patched.statusCode).toBe(400);
+    // the floor is the operator's to set
+    const lax = await buildApp({ config: testConfig({ dbPath: ':memory:', scheduleMinIntervalS: 60 }), logger: false });
+    await lax.ready();
+    const minutely = await lax.inject({ method: 'POST', url: '/v1/datasets', headers: JSON_TYPE, payload: JSON.stringify({ id: 'eager', settings: { eps: 10 }, schedule: { cron: '* * * * *', timezone: 'UTC' } }) });
+    expect(minutely.statusCode).toBe(201);
+    await lax.close();
   });
 
   it('PATCH merges settings (null removes a member), replaces other members and checks the result', async () => {

@@ -15,7 +15,7 @@ const end = Date.parse(endIso);
 const step = Number(stepText);
 const stores = Array.from({ length: Number(instancesText) }, () => openPostgresStore({ connectionString: url, schema, poolSize: 2 }));
 let clock = start;
-const schedulers = stores.map((store) => new Scheduler({ store, now: () => clock, settings: { catchUpMs: 0 } }));
+const schedulers = stores.map((store) => new Scheduler({ store, now: () => clock, settings: { catchUpMs: 0, minIntervalMs: 0 } }));
 await Promise.all(stores.map((s) => s.getDataset('warm-up'))); // connections open before the race
 process.stdout.write('ready\n');
 const lines = createInterface({ input: process.stdin });

@@ -6,15 +6,20 @@ import { resolveSettings } from '../../src/run/settings.js';
 import { openSqliteStore } from '../../src/storage/sqlite.js';
 
 describe('crash recovery', () => {
-  it('queues interrupted runs again, and fails one interrupted MAX_INTERRUPTIONS times', async () => {
+  it('queues runs whose lease ran out again, and fails one interrupted MAX_INTERRUPTIONS times', async () => {
     const store = openSqliteStore({ path: ':memory:' });
     await store.migrate();
     await store.createDataset({ id: 'd', name: 'd', settings: { eps: 10 }, idProperty: null, window: null, schedule: null, webhook: null });
     const run = await store.createRun({ datasetId: 'd', settings: { eps: 10 }, trigger: 'request' });
     const runner = new Runner({ store, hooks: defaultHooks(), concurrency: 1, storeConfig: null, pool: null });
     for (let time = 1; time <= MAX_INTERRUPTIONS; time++) {
-      expect((await store.claimNextRun('dead-process'))!.id).toBe(run.id);
-      const { requeued, failed } = await runner.recover();
+      // a claimer that dies at once: its 1 ms lease runs out on the next clock tick
+      expect((await store.claimNextRun(`dead-process:${time}`, 1))!.id).toBe(run.id);
+      let { requeued, failed } = await runner.recover();
+      for (let guard = 0; guard < 1000 && requeued.length + failed.length === 0; guard++) {
+        await new Promise((r) => setTimeout(r, 2));
+        ({ requeued, failed } = await runner.recover());
+      }
       const now = (await store.getRun('d', run.id))!;
       if (time < MAX_INTERRUPTIONS) {
         expect(requeued).toEqual([run.id]);

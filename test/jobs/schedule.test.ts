@@ -49,6 +49,26 @@ describe('due slots', () => {
     expect(scheduleProblem({ cron: '0 2 * * *', timezone: 'Mars/Olympus' })).toMatch(/IANA time zone/);
     expect(scheduleProblem({ cron: '0 0 30 2 *', timezone: 'UTC' })).toMatch(/never fires|not usable/); // 30 February
   });
+
+  it('refuses schedules firing more often than the floor (default every 5 minutes), wherever in the sample the short gap is', () => {
+    const from = new Date('2025-06-01T00:00:00Z');
+    const utc = (cron: string, floorMs?: number): string | null => scheduleProblem({ cron, timezone: 'UTC' }, floorMs, from);
+    expect(utc('* * * * * *')).toMatch(/fires 1 second apart .*at most once every 5 minutes/);
+    expect(utc('* * * * *')).toMatch(/fires 1 minute apart/);
+    expect(utc('*/4 * * * *')).toMatch(/fires 4 minutes apart/);
+    expect(utc('*/5 * * * *')).toBeNull();
+    expect(utc('0 2 * * *')).toBeNull();
+    // two slots a minute apart once a night, the first of them 2 hours after the sample starts
+    expect(utc('0,1 2 * * *')).toMatch(/fires 1 minute apart \(at 2025-06-01T02:00:00.000Z/);
+    // and once a year, many slots into the sample
+    expect(utc('0 0,12 * * *')).toBeNull();
+    expect(utc('0 0 1 1 *,30 0 1 1 *')).not.toBeNull();
+    // configurable, 0 switching the floor off
+    expect(utc('* * * * *', 60_000)).toBeNull();
+    expect(utc('* * * * * *', 0)).toBeNull();
+    // a daylight-saving night in Berlin does not make a half-hourly schedule fire more often
+    expect(scheduleProblem({ cron: '*/30 * * * *', timezone: 'Europe/Berlin' }, 30 * 60_000, new Date('2025-10-25T12:00:00Z'))).toBeNull();
+  });
 });
 
 describe('the scheduler on a fake clock', () => {
@@ -174,6 +194,25 @@ describe('the scheduler on a fake clock', () => {
     expect(warnings.filter((w) => /not usable/.test(w))).toHaveLength(1);
   });
 
+  it('does not run a stored schedule that fires more often than the floor, and says so once', async () => {
+    await store.createDataset({ ...DATASET, id: 'eager', schedule: { cron: '* * * * *', timezone: 'UTC' } });
+    await store.createDataset({ ...DATASET, id: 'nightly', schedule: { cron: '0 11 * * *', timezone: 'UTC' } });
+    at('2025-06-01T10:30:00Z');
+    const s = new Scheduler({ store, now: () => clock, settings: { catchUpMs: 0 }, log });
+    await s.tick();
+    at('2025-06-01T11:00:00Z');
+    await s.tick();
+    expect(s.lastReport.created.map((c) => c.datasetId)).toEqual(['nightly']);
+    expect(warnings.filter((w) => /not usable/.test(w))).toHaveLength(1);
+    // with the floor lowered it runs
+    const lax = new Scheduler({ store, now: () => clock, settings: { catchUpMs: 0, minIntervalMs: 60_000 }, log });
+    at('2025-06-01T11:00:30Z');
+    await lax.tick();
+    at('2025-06-01T11:01:00Z');
+    await lax.tick();
+    expect(lax.lastReport.created.map((c) => c.datasetId)).toEqual(['eager']);
+  });
+
   it('refuses unusable settings', () => {
     expect(() => new Scheduler({ store, settings: { scanMs: 0 } })).toThrow(/scanMs/);
     expect(() => new Scheduler({ store, settings: { catchUpMs: -1 } })).toThrow(/catchUpMs/);
@@ -185,7 +224,7 @@ describe('the scheduler on the real clock', () => {
     const { store, dispose } = await tempStore();
     await store.createDataset({ ...DATASET, schedule: { cron: '* * * * * *', timezone: 'UTC' } }); // every second
     const created: string[] = [];
-    const s = new Scheduler({ store, settings: { catchUpMs: 0, scanMs: 60_000 }, onRun: (r) => created.push(r.id) });
+    const s = new Scheduler({ store, settings: { catchUpMs: 0, scanMs: 60_000, minIntervalMs: 0 }, onRun: (r) => created.push(r.id) });
     s.start();
     for (let i = 0; i < 100 && created.length < 2; i++) await new Promise((r) => setTimeout(r, 50));
     await s.stop();

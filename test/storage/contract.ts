@@ -570,6 +570,78 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect((await store.getRun('herons', d.id))!.status).toBe('queued');
         expect((await store.claimNextRun('new'))?.id).toBe(a.id);
       });
+
+      /** Calls reclaimExpiredRuns until it reclaims something (a lease of 1 ms runs out on the next clock tick). */
+      const reclaimOnce = async (s: Store, max = 3): Promise<{ requeued: string[]; failed: string[] }> => {
+        for (let guard = 0; guard < 1000; guard++) {
+          const r = await s.reclaimExpiredRuns(max);
+          if (r.requeued.length + r.failed.length > 0) return r;
+          await new Promise((res) => setTimeout(res, 2));
+        }
+        throw new Error('no lease ran out');
+      };
+
+      it('hold a lease: renewed only by their claim, taken over by any store once it runs out, failed after too many interruptions', async () => {
+        const other = await open();
+        const a = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const b = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const held = (await store.claimNextRun('w1:1', 60_000))!;
+        expect(held).toMatchObject({ id: a.id, workerId: 'w1:1', interruptions: 0 });
+        expect(Date.parse(held.leaseUntil!) - Date.parse(held.startedAt!)).toBeGreaterThan(50_000);
+        expect(await store.renewRunLease(a.id, 'w1:1', 60_000)).toBe(true);
+        expect(await other.renewRunLease(a.id, 'someone-else', 60_000)).toBe(false);
+        // a live lease is never taken over
+        expect(await other.reclaimExpiredRuns(3)).toEqual({ requeued: [], failed: [] });
+        // b's claimer dies: its 1 ms lease runs out and another store puts it back in the queue
+        expect((await store.claimNextRun('w2:1', 1))!.id).toBe(b.id);
+        expect(await reclaimOnce(other)).toEqual({ requeued: [b.id], failed: [] });
+        const back = (await store.getRun('herons', b.id))!;
+        expect(back).toMatchObject({ status: 'queued', workerId: null, startedAt: null, leaseUntil: null, interruptions: 1, progress: 0 });
+        expect(back.error).toMatch(/^interrupted 1 time: .*queued again$/);
+        // the dead claimer's late writes are refused once another claim holds the run
+        const again = (await other.claimNextRun('w3:1', 60_000))!;
+        expect(again.id).toBe(b.id);
+        expect(await store.renewRunLease(b.id, 'w2:1', 60_000)).toBe(false);
+        await rejects(store.updateRun(b.id, { progress: 50 }, ['running'], 'w2:1'), 'conflict');
+        await rejects(store.saveRunResult(b.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: '{}' }, hotspots: [] }, 'w2:1'), 'conflict');
+        expect(await store.getRunLayer(b.id, 'points')).toBeNull();
+        await store.saveRunResult(b.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: '{"mine":1}' }, hotspots: [] }, 'w3:1');
+        expect(await store.getRunLayer(b.id, 'points')).toBe('{"mine":1}');
+        const finished = await other.updateRun(b.id, { status: 'succeeded', progress: 100 }, ['running'], 'w3:1');
+        expect(finished).toMatchObject({ status: 'succeeded', leaseUntil: null, error: 'interrupted 1 time: the process running it stopped before it finished; queued again' });
+        // a run interrupted the most times allowed is failed, with what to do
+        await store.updateRun(a.id, { status: 'cancelled' });
+        const c = await store.createRun({ datasetId: 'other', settings: {}, trigger: 'request' });
+        for (let time = 1; time <= 2; time++) {
+          await rejects(store.claimRun(c.id, 'x', 0), 'invalid');
+          expect((await store.claimRun(c.id, `w4:${time}`, 1)).workerId).toBe(`w4:${time}`);
+          await rejects(store.claimRun(c.id, 'w5', 1), 'conflict');
+          const r = await reclaimOnce(time % 2 === 0 ? store : other, 2);
+          expect(r).toEqual(time < 2 ? { requeued: [c.id], failed: [] } : { requeued: [], failed: [c.id] });
+        }
+        const failed = (await store.getRun('other', c.id))!;
+        expect(failed).toMatchObject({ status: 'failed', interruptions: 2, leaseUntil: null });
+        expect(failed.finishedAt).not.toBeNull();
+        expect(failed.error).toMatch(/^interrupted 2 times: .*not tried again\. .*narrow it/);
+      });
+
+      it('are taken over exactly once when many stores look for expired leases at the same time', async () => {
+        const others = [store, await open(), await open()];
+        const ids: string[] = [];
+        for (let i = 0; i < 6; i++) {
+          const r = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+          await store.claimRun(r.id, `dead:${i}`, 1);
+          ids.push(r.id);
+        }
+        const seen: string[] = [];
+        for (let guard = 0; guard < 1000 && seen.length < ids.length; guard++) {
+          const got = await Promise.all(Array.from({ length: 9 }, (_, i) => others[i % 3]!.reclaimExpiredRuns(3)));
+          for (const g of got) seen.push(...g.requeued, ...g.failed);
+          if (seen.length < ids.length) await new Promise((res) => setTimeout(res, 2));
+        }
+        expect(seen.sort()).toEqual(ids);
+        for (const id of ids) expect(await store.getRun('herons', id)).toMatchObject({ status: 'queued', interruptions: 1 });
+      });
     });
 
     describe('schedule slots', () => {

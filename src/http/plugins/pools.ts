@@ -5,17 +5,23 @@
  * the bound on memory held by their bodies. Both pools start from one worker entry
  * (src/workers/entry.ts) and stop with the app.
  */
-import type { FastifyInstance, FastifyRequest } from 'fastify';
+import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import fp from 'fastify-plugin';
 import { createJobPool, type JobPool } from '../../jobs/job-pool.js';
 import { HttpProblem } from '../errors.js';
 import { createWorkPool, type WorkPool } from '../pool.js';
 
-/** Admission of requests to the work pool: at most workers + queueSize at a time. */
+/**
+ * Admission of requests to the work pool: at most workers + queueSize at a time. A request is
+ * admitted once its body has arrived (a slow upload holds an upload slot, not a worker), and
+ * frees its place when it is answered or its connection closes, whichever comes first.
+ */
 export interface Admission {
-  /** an onRequest hook: admits the request or answers 503 */
-  admit(request: FastifyRequest): Promise<void>;
-  /** an onResponse / onRequestAbort hook: releases what `admit` took */
+  /** an onRequest hook: answers 503 at once, before any upload, when the service is full now */
+  check(request: FastifyRequest): Promise<void>;
+  /** a preHandler hook (after the body arrived): admits the request or answers 503 */
+  admit(request: FastifyRequest, reply: FastifyReply): Promise<void>;
+  /** releases what `admit` took (also done by itself when the connection closes); safe to call twice */
   release(request: FastifyRequest): Promise<void>;
   /** requests admitted and not yet answered */
   readonly inProgress: number;
@@ -49,20 +55,25 @@ function createAdmission(options: PoolsOptions): Admission {
   let admitted = 0;
   const capacity = options.workers + options.queueSize;
   const retryAfter = { 'retry-after': String(options.retryAfterS) };
+  const full = (): HttpProblem => new HttpProblem('overloaded', `All ${options.workers} workers are busy and ${options.queueSize} requests wait; retry later.`, {}, retryAfter);
+  const release = async (request: FastifyRequest): Promise<void> => {
+    if ((request as Admitted)[ADMITTED]) {
+      (request as Admitted)[ADMITTED] = false;
+      admitted--;
+    }
+  };
   return {
-    async admit(request) {
-      if (admitted >= capacity) {
-        throw new HttpProblem('overloaded', `All ${options.workers} workers are busy and ${options.queueSize} requests wait; retry later.`, {}, retryAfter);
-      }
+    async check() {
+      if (admitted >= capacity) throw full();
+    },
+    async admit(request, reply) {
+      if (admitted >= capacity) throw full();
       admitted++;
       (request as Admitted)[ADMITTED] = true;
+      // 'close' comes once the answer is sent or the connection is gone, whatever the framework's hooks do
+      reply.raw.once('close', () => void release(request));
     },
-    async release(request) {
-      if ((request as Admitted)[ADMITTED]) {
-        (request as Admitted)[ADMITTED] = false;
-        admitted--;
-      }
-    },
+    release,
     get inProgress() {
       return admitted;
     },

@@ -1,7 +1,8 @@
 /**
  * The run queue: the runner that executes queued runs (in the job pool when the store can be
  * opened from a worker thread) and the scheduler that queues the datasets' scheduled runs.
- * Runs a dead process left running are queued again before this process takes any; both start
+ * Runs whose process died (their lease ran out, src/jobs/lease.ts) are queued again before this
+ * process takes any, and looked for again every quarter heartbeat; both start
  * when the app is ready and stop before the pools and the store close.
  */
 import type { FastifyInstance } from 'fastify';
@@ -10,7 +11,7 @@ import type { RunHooks } from '../../jobs/hooks.js';
 import { createRoostHooks } from '../../jobs/run-hooks.js';
 import { Runner } from '../../jobs/runner.js';
 import { Scheduler } from '../../jobs/schedule.js';
-import type { ServerConfig } from '../config.js';
+import { DEFAULT_CONFIG, type ServerConfig } from '../config.js';
 import type { DatasetServices } from '../routes/common.js';
 
 declare module 'fastify' {
@@ -21,7 +22,7 @@ declare module 'fastify' {
   }
 }
 
-export type RunQueueOptions = Pick<ServerConfig, 'runConcurrency' | 'scheduleScanMs' | 'webhookAttempts' | 'webhookTimeoutMs' | 'allowPrivateWebhooks' | 'publicUrl'> & {
+export type RunQueueOptions = Partial<Pick<ServerConfig, 'scheduleMinIntervalS' | 'runHeartbeatMs'>> & Pick<ServerConfig, 'runConcurrency' | 'scheduleScanMs' | 'webhookAttempts' | 'webhookTimeoutMs' | 'allowPrivateWebhooks' | 'publicUrl'> & {
   /** run hooks (track assignment, notices); default: tracks and signed notices */
   hooks?: RunHooks;
 };
@@ -37,12 +38,14 @@ async function runQueue(app: FastifyInstance, options: RunQueueOptions): Promise
     concurrency: options.runConcurrency,
     storeConfig,
     pool: storeConfig === null ? null : jobPool,
+    heartbeatMs: options.runHeartbeatMs,
     log: app.log,
   });
   app.decorate('runner', runner);
+  const minIntervalMs = (options.scheduleMinIntervalS ?? DEFAULT_CONFIG.scheduleMinIntervalS) * 1000;
   app.decorate('datasets', { store, runner, jobs: jobPool } satisfies DatasetServices);
   await runner.recover();
-  const scheduler = options.scheduleScanMs > 0 ? new Scheduler({ store, settings: { scanMs: options.scheduleScanMs }, onRun: () => runner.wake(), log: app.log }) : null;
+  const scheduler = options.scheduleScanMs > 0 ? new Scheduler({ store, settings: { scanMs: options.scheduleScanMs, minIntervalMs }, onRun: () => runner.wake(), log: app.log }) : null;
   app.addHook('onReady', async () => {
     runner.start();
     scheduler?.start();

@@ -1,8 +1,9 @@
 /**
  * POST /v1/cluster and POST /v1/k-distance: the body is collected as bytes and handed to the work
- * pool, which reads, checks, clusters and encodes it; the answer comes back as bytes. Requests are
- * admitted (or turned away with 503) and their query-string settings checked before the body is
- * received, so a typo or a full service costs no upload.
+ * pool, which reads, checks, clusters and encodes it; the answer comes back as bytes. A full
+ * service (503) and query-string settings are checked before the body is received, so a typo or a
+ * full service costs no upload; the request takes its place in the work pool only once its body
+ * has arrived (src/http/plugins/pools.ts), and a client that goes away ends its work at once.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
@@ -107,7 +108,8 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
   };
 
   const heavy = (op: WorkTask['op']) => ({
-    onRequest: [admission.admit, async (request: FastifyRequest) => checkSettings(readQuery(request, op).settings)],
+    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request, op).settings)],
+    preHandler: admission.admit,
     onResponse: admission.release,
     onRequestAbort: admission.release,
     handler: (request: FastifyRequest, reply: FastifyReply) => work(request, reply, op),

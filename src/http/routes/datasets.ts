@@ -18,6 +18,8 @@ const FIELDS = ['id', 'name', 'settings', 'id_property', 'window', 'schedule', '
 export interface DatasetRouteOptions {
   /** let webhooks reach private-network and loopback addresses (see src/jobs/webhook-address.ts) */
   allowPrivateWebhooks?: boolean;
+  /** shortest time allowed between two slots of a schedule, milliseconds (0: no floor); default 5 minutes */
+  scheduleMinIntervalMs?: number;
 }
 
 function bad(parameter: string, detail: string): never {
@@ -42,7 +44,7 @@ function optionalText(doc: Record<string, unknown>, name: string): string | null
 }
 
 /** The fields of a create or patch body, checked; absent fields stay undefined. */
-function readFields(doc: Record<string, unknown>, allowPrivateWebhooks: boolean): DatasetPatch & { id?: string } {
+function readFields(doc: Record<string, unknown>, allowPrivateWebhooks: boolean, scheduleMinIntervalMs?: number): DatasetPatch & { id?: string } {
   for (const k of Object.keys(doc)) if (!(FIELDS as readonly string[]).includes(k)) bad(k, `unknown member; a dataset has ${FIELDS.join(', ')}`);
   const out: DatasetPatch & { id?: string } = {};
   if (doc.id !== undefined) {
@@ -71,7 +73,7 @@ function readFields(doc: Record<string, unknown>, allowPrivateWebhooks: boolean)
       bad('schedule', 'has no time zone: give "timezone", an IANA time zone name such as "Europe/Berlin" or "UTC", in which the cron expression is read');
     }
     out.schedule = s === null ? null : { cron: s.cron as string, timezone: s.timezone as string };
-    const problem = out.schedule === null ? null : scheduleProblem(out.schedule);
+    const problem = out.schedule === null ? null : scheduleProblem(out.schedule, scheduleMinIntervalMs);
     if (problem !== null) bad('schedule', problem);
   }
   if (doc.webhook !== undefined) {
@@ -130,8 +132,8 @@ export default async function datasetRoutes(app: FastifyInstance, options: Datas
 
   app.post('/v1/datasets', async (request, reply) => {
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, allowPrivate);
-    if (fields.id === undefined) bad('id', 'is required: 1 to 128 characters from A-Z a-z 0-9 . _ ~ -');
+    const fields = readFields({ ...doc, settings: undefined }, allowPrivate, options.scheduleMinIntervalMs);
+    if (fields.id === undefined) bad('id', 'is required: 1 to 128 characters from A-Z a-z 0-9 . _ ~ -, starting with a letter or digit');
     if (doc.settings === undefined) bad('settings', 'is required, for example {"eps": 250, "min_points": 5}');
     const d: NewDataset = {
       id: fields.id,
@@ -167,7 +169,7 @@ export default async function datasetRoutes(app: FastifyInstance, options: Datas
   app.patch<{ Params: { id: string } }>('/v1/datasets/:id', async (request) => {
     const current = await requireDataset(store, request.params.id);
     const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, allowPrivate);
+    const fields = readFields({ ...doc, settings: undefined }, allowPrivate, options.scheduleMinIntervalMs);
     await checkWebhookHost(fields.webhook, allowPrivate);
     if (fields.id !== undefined && fields.id !== current.id) bad('id', 'cannot be changed; create a new dataset instead');
     delete fields.id;

@@ -20,8 +20,9 @@ import type { Dataset, ListObservationsOptions, Store, WhereCondition } from '..
 import { StoreError } from '../../storage/store.js';
 import { formatOf } from '../body.js';
 import { sendTagged } from '../conditional.js';
+import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem, MAX_LISTED_PROBLEMS } from '../errors.js';
-import type { JobPool } from '../../jobs/job-pool.js';
+import { JobQueueFull, type JobPool } from '../../jobs/job-pool.js';
 import { flag, integer, requireDataset, settingsProblem, storeProblem } from './common.js';
 
 /** A post of a collection is answered with the placement of at most this many observations. */
@@ -79,9 +80,9 @@ function problemList(problems: { index: number | null; id?: string | number; cod
 }
 
 function inputProblem(problems: InputProblem[], total: number, message: string): never {
+  if (problems.some((p) => p.code === 'too-many-features')) throw new HttpProblem('body-too-large', message);
   const unreadable = problems.length > 0 && problems.every((p) => p.index === null);
   if (unreadable) throw new HttpProblem('malformed-body', message, problemList(problems, total));
-  if (problems.some((p) => p.code === 'too-many-features')) throw new HttpProblem('body-too-large', message);
   throw new HttpProblem('invalid-observations', message, problemList(problems, total));
 }
 
@@ -135,7 +136,10 @@ async function readBatch(jobs: JobPool | null, body: Uint8Array, options: Record
       throw err;
     }
   }
-  const out = await jobs.records({ body, options });
+  const out = await jobs.records({ body, options }).catch((err: unknown) => {
+    if (err instanceof JobQueueFull) throw new HttpProblem('overloaded', 'Every thread reading posted batches is busy and the waiting line is full; retry later.', {}, { 'retry-after': String(DEFAULT_CONFIG.retryAfterS) });
+    throw err;
+  });
   if (!out.ok) inputProblem(out.problems, out.total, out.message);
   return out.batch;
 }
@@ -144,7 +148,7 @@ async function readBatch(jobs: JobPool | null, body: Uint8Array, options: Record
 export const READER_PARAMS = ['lon_column', 'lat_column', 'time_column', 'time_format'] as const;
 const POST_PARAMS = new Set<string>(['replace', 'partial', ...READER_PARAMS]);
 
-function recordOptions(d: Dataset, format: RecordOptions['format'], partial: boolean, query: Record<string, unknown>): RecordOptions {
+function recordOptions(d: Dataset, format: RecordOptions['format'], partial: boolean, query: Record<string, unknown>, maxFeatures: number): RecordOptions {
   const text = (v: unknown): string | null => (typeof v === 'string' && v !== '' ? v : null);
   const setting = (name: string): string | null => text(query[name]) ?? text(d.settings[name]);
   const timeFormat = setting('time_format');
@@ -161,10 +165,17 @@ function recordOptions(d: Dataset, format: RecordOptions['format'], partial: boo
     latColumn: setting('lat_column'),
     timeColumn: setting('time_column'),
     timeFormat,
+    maxFeatures,
   };
 }
 
-export default async function observationRoutes(app: FastifyInstance): Promise<void> {
+export interface ObservationRouteOptions {
+  /** most observations in one post (more: 413); default DEFAULT_CONFIG.maxPostFeatures */
+  maxPostFeatures?: number;
+}
+
+export default async function observationRoutes(app: FastifyInstance, options: ObservationRouteOptions = {}): Promise<void> {
+  const maxFeatures = options.maxPostFeatures ?? DEFAULT_CONFIG.maxPostFeatures;
   const { store, jobPool } = app;
   const lookup = new HotspotLookup(store);
 
@@ -180,7 +191,7 @@ export default async function observationRoutes(app: FastifyInstance): Promise<v
     const body = request.body as Uint8Array | undefined;
     if (!body || body.byteLength === 0) throw new HttpProblem('malformed-body', 'The request body is empty; send a GeoJSON Feature or FeatureCollection, CSV, or a GeoJSON text sequence.');
     const format = formatOf(request.headers['content-type']);
-    const batch = await readBatch(jobPool, body, recordOptions(dataset, format, partial, query));
+    const batch = await readBatch(jobPool, body, recordOptions(dataset, format, partial, query, maxFeatures));
 
     const result = await store
       .ingest(dataset.id, batch.records, { replace, partial, rejected: batch.rejected.map((r) => ({ index: r.index, reason: r.message })) })

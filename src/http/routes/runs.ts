@@ -13,6 +13,7 @@ import { notModified, sendTagged } from '../conditional.js';
 import { resolveSettings } from '../../run/settings.js';
 import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
 import { StoreError, type Run } from '../../storage/store.js';
+import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem } from '../errors.js';
 import { integer, jsonObject, requireDataset, requireRun, runJson, settingsProblem } from './common.js';
 
@@ -26,8 +27,20 @@ function layerOf(name: string): LayerName {
 /** What a result-layer address takes: without any, the whole layer as stored. */
 const LAYER_PARAMS = ['bbox', 'datetime', 'limit', 'cursor'];
 
-export default async function runRoutes(app: FastifyInstance): Promise<void> {
+export interface RunRouteOptions {
+  /** layers sent at once; one more GET is answered 503 (default DEFAULT_CONFIG.layerStreams) */
+  layerStreams?: number;
+  /** runs waiting in the queue beyond which a new one is answered 503 (default DEFAULT_CONFIG.maxQueuedRuns) */
+  maxQueuedRuns?: number;
+  retryAfterS?: number;
+}
+
+export default async function runRoutes(app: FastifyInstance, options: RunRouteOptions = {}): Promise<void> {
   const { store, runner } = app;
+  const layerStreams = options.layerStreams ?? DEFAULT_CONFIG.layerStreams;
+  const maxQueuedRuns = options.maxQueuedRuns ?? DEFAULT_CONFIG.maxQueuedRuns;
+  const retryAfter = { 'retry-after': String(options.retryAfterS ?? DEFAULT_CONFIG.retryAfterS) };
+  let streaming = 0;
 
   const sendLayer = async (request: FastifyRequest, run: Run, layer: LayerName, reply: FastifyReply) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
@@ -50,10 +63,26 @@ export default async function runRoutes(app: FastifyInstance): Promise<void> {
     }
     // a stored layer never changes: the run and layer name it
     if (notModified(request, reply, `"${run.id}.${layer}"`, run.finishedAt)) return reply.code(304).send();
-    // streamed piece by piece as stored: a large layer never becomes one string here
-    const pieces = await store.getRunLayerPieces(run.id, layer);
-    if (pieces === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
-    return reply.type('application/geo+json').send(Readable.from(pieces, { objectMode: false }));
+    // a bounded number of layers on their way at once: each holds a store connection and buffers
+    if (streaming >= layerStreams) throw new HttpProblem('overloaded', `${layerStreams} layers are being sent already; retry later.`, {}, retryAfter);
+    streaming++;
+    let held = true;
+    const free = (): void => {
+      if (held) {
+        held = false;
+        streaming--;
+      }
+    };
+    reply.raw.once('close', free);
+    try {
+      // streamed piece by piece as stored: a large layer never becomes one string here
+      const pieces = await store.getRunLayerPieces(run.id, layer);
+      if (pieces === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
+      return await reply.type('application/geo+json').send(Readable.from(pieces, { objectMode: false }));
+    } catch (err) {
+      free();
+      throw err;
+    }
   };
 
   app.post<{ Params: { id: string } }>('/v1/datasets/:id/runs', async (request, reply) => {
@@ -72,6 +101,9 @@ export default async function runRoutes(app: FastifyInstance): Promise<void> {
     } catch (err) {
       settingsProblem(err);
     }
+    // a bounded queue: a client asking for runs in a loop cannot pile up work (or rows) without end
+    const waiting = await store.countRuns('queued');
+    if (waiting >= maxQueuedRuns) throw new HttpProblem('overloaded', `${waiting} runs wait in the queue already; retry later.`, {}, retryAfter);
     const run = await store.createRun({ datasetId: dataset.id, settings, trigger: 'request' });
     runner.wake();
     return reply.code(202).header('location', `/v1/datasets/${dataset.id}/runs/${run.id}`).send(runJson(run));

@@ -38,6 +38,7 @@ export default async function serviceRoutes(app: FastifyInstance, options: Servi
     workers: app.workPool.threads,
     queued: app.workPool.queued,
     in_progress: app.admission.inProgress,
+    uploading: app.uploads.inProgress,
   }));
 
   app.get('/openapi.yaml', async (_request, reply) => {
