@@ -1,0 +1,265 @@
+/**
+ * Soak benchmark (not a test): `roost serve` in a process of its own on a fresh SQLite file,
+ * under a mixed load for a bounded time — observation posts, clustering requests, stored runs,
+ * layer GETs, clients that vanish before their answer, and slow senders — while /healthz is
+ * sampled every 100 ms and the service's resident memory every 5 s. Then the load stops and the
+ * service is asked whether anything is still held (stuck slots). Writes test/bench/soak-results.md.
+ *
+ *   npm run bench:soak [-- --duration 180]
+ */
+import { spawn, type ChildProcess } from 'node:child_process';
+import { mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { request as httpRequest } from 'node:http';
+import { connect } from 'node:net';
+import { cpus, loadavg, tmpdir, totalmem } from 'node:os';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { rng } from '../reference/seeded.js';
+
+const ROOT = fileURLToPath(new URL('../../', import.meta.url));
+const SEED = Number(process.env.SOAK_SEED ?? 20261203);
+
+function arg(name: string, fallback: number): number {
+  const i = process.argv.indexOf(`--${name}`);
+  return i >= 0 ? Number(process.argv[i + 1]) : fallback;
+}
+const DURATION_S = arg('duration', 180);
+const UPLOAD_TIMEOUT_MS = 5000;
+
+/** Seeded points around a few centres, as a FeatureCollection; ids from `prefix`. */
+function collection(n: number, prefix: string, random: () => number): string {
+  const f: string[] = [];
+  for (let i = 0; i < n; i++) {
+    const g = i % 6;
+    const spread = i % 5 === 4 ? 0.05 : 0.0008;
+    const lon = 8.5 + g * 0.02 + (random() - 0.5) * spread;
+    const lat = 47.3 + g * 0.01 + (random() - 0.5) * spread;
+    f.push(`{"type":"Feature","id":"${prefix}${i}","geometry":{"type":"Point","coordinates":[${lon.toFixed(6)},${lat.toFixed(6)}]},"properties":{"kind":"${g % 2 ? 'a' : 'b'}","observed_at":"2026-11-0${1 + (i % 9)}T10:00:00Z"}}`);
+  }
+  return `{"type":"FeatureCollection","features":[${f.join(',')}]}`;
+}
+
+async function startService(db: string): Promise<{ url: string; child: ChildProcess }> {
+  const args = ['--import', 'tsx', 'src/cli/bin.ts', 'serve', '--port', '0', '--db', db, '--workers', '1', '--upload-timeout-ms', String(UPLOAD_TIMEOUT_MS), '--log-level', 'info'];
+  const child = spawn(process.execPath, args, { cwd: ROOT, stdio: ['ignore', 'pipe', 'inherit'] });
+  let out = '';
+  child.stdout!.setEncoding('utf8');
+  const url = await new Promise<string>((resolve, reject) => {
+    const onData = (d: string): void => {
+      out += d;
+      const m = /"url":"(http:\/\/[^"]+)"/.exec(out);
+      if (m) {
+        child.stdout!.removeListener('data', onData);
+        child.stdout!.resume();
+        resolve(m[1]!);
+      }
+    };
+    child.stdout!.on('data', onData);
+    child.on('exit', (code) => reject(new Error(`service exited ${code}: ${out}`)));
+  });
+  return { url, child };
+}
+
+/** Resident memory of a process, MiB (Linux /proc). */
+function rssMiB(pid: number): number {
+  const m = /VmRSS:\s+(\d+) kB/.exec(readFileSync(`/proc/${pid}/status`, 'utf8'));
+  return m ? Number(m[1]) / 1024 : NaN;
+}
+
+const counts = new Map<string, number>();
+function count(kind: string, status: number | string): void {
+  const k = `${kind} ${status}`;
+  counts.set(k, (counts.get(k) ?? 0) + 1);
+}
+
+async function call(kind: string, url: string, init?: RequestInit): Promise<Response | null> {
+  try {
+    const res = await fetch(url, init);
+    await res.arrayBuffer();
+    count(kind, res.status);
+    return res;
+  } catch {
+    count(kind, 'connection error');
+    return null;
+  }
+}
+
+/** Posts the body and destroys the connection as soon as it is sent. */
+function vanish(url: string, body: Buffer): Promise<void> {
+  return new Promise((resolve) => {
+    const u = new URL(url);
+    const req = httpRequest({ host: u.hostname, port: u.port, path: u.pathname + u.search, method: 'POST', headers: { 'content-type': 'application/geo+json', 'content-length': body.length } });
+    req.on('error', () => resolve());
+    req.on('close', () => resolve());
+    req.end(body, () => {
+      req.destroy();
+      count('vanishing client', 'gone');
+    });
+  });
+}
+
+/** Declares a body of 10 MB and sends a byte a second until the service answers or hangs up. */
+function slowSender(base: string): Promise<void> {
+  return new Promise((resolve) => {
+    const u = new URL(base);
+    const socket = connect(Number(u.port), u.hostname, () => {
+      socket.write(`POST /v1/cluster?eps=60 HTTP/1.1\r\nHost: ${u.host}\r\nContent-Type: application/geo+json\r\nContent-Length: 10000000\r\n\r\n{`);
+      const drip = setInterval(() => socket.write(' '), 1000);
+      let text = '';
+      socket.on('data', (d: Buffer) => (text += d.toString()));
+      const end = (): void => {
+        clearInterval(drip);
+        const m = /^HTTP\/1\.1 (\d{3})/.exec(text);
+        count('slow sender', m ? Number(m[1]) : 'cut without answer');
+        resolve();
+      };
+      socket.on('close', end);
+      socket.on('error', () => undefined);
+    });
+    socket.on('error', () => resolve());
+  });
+}
+
+function quantile(sorted: number[], q: number): number {
+  return sorted.length === 0 ? NaN : sorted[Math.min(sorted.length - 1, Math.floor(q * sorted.length))]!;
+}
+
+async function main(): Promise<void> {
+  const dir = mkdtempSync(join(tmpdir(), 'roost-soak-'));
+  const { url, child } = await startService(join(dir, 'soak.db'));
+  const pid = child.pid!;
+  const random = rng(SEED).next;
+  const t0 = Date.now();
+  const until = t0 + DURATION_S * 1000;
+  const live = (): boolean => Date.now() < until;
+  const JSON_TYPE = { 'content-type': 'application/json' };
+  const GEO = { 'content-type': 'application/geo+json' };
+  await call('setup', `${url}/v1/datasets`, { method: 'POST', headers: JSON_TYPE, body: JSON.stringify({ id: 'soak', settings: { eps: 80, min_points: 5 } }) });
+  await call('setup', `${url}/v1/datasets/soak/observations`, { method: 'POST', headers: GEO, body: collection(5000, 'seed-', random) });
+
+  const rss: { t: number; mib: number }[] = [];
+  const health: number[] = [];
+  let worstAt = 0;
+  let worst = 0;
+  const loops: Promise<void>[] = [];
+  const loop = (fn: () => Promise<void>): void => {
+    loops.push(
+      (async () => {
+        while (live()) await fn();
+      })(),
+    );
+  };
+  // resident memory every 5 s
+  loops.push(
+    (async () => {
+      while (live()) {
+        rss.push({ t: (Date.now() - t0) / 1000, mib: rssMiB(pid) });
+        await new Promise((r) => setTimeout(r, 5000));
+      }
+    })(),
+  );
+  // /healthz every 100 ms
+  loop(async () => {
+    const s = performance.now();
+    const res = await call('healthz', `${url}/healthz`);
+    const ms = performance.now() - s;
+    if (res !== null) {
+      if (ms > worst) {
+        worst = ms;
+        worstAt = (Date.now() - t0) / 1000;
+      }
+      health.push(ms);
+    }
+    await new Promise((r) => setTimeout(r, 100));
+  });
+  // two posters of 500 new observations each time
+  let batch = 0;
+  for (let p = 0; p < 2; p++) loop(async () => void (await call('observation post', `${url}/v1/datasets/soak/observations`, { method: 'POST', headers: GEO, body: collection(500, `b${batch++}-`, random) })));
+  // two clients clustering 2 000 points
+  const clusterBody = collection(2000, 'c', random);
+  for (let c = 0; c < 2; c++) loop(async () => void (await call('cluster', `${url}/v1/cluster?eps=60&min_points=5&layer=centres`, { method: 'POST', headers: GEO, body: clusterBody })));
+  // a stored run asked for every 10 s
+  loop(async () => {
+    await call('run request', `${url}/v1/datasets/soak/runs`, { method: 'POST', headers: JSON_TYPE, body: '{}' });
+    await new Promise((r) => setTimeout(r, 10_000));
+  });
+  // two clients pulling the latest points layer
+  for (let g = 0; g < 2; g++) {
+    loop(async () => {
+      await call('layer GET', `${url}/v1/datasets/soak/runs/latest/points`);
+      await new Promise((r) => setTimeout(r, 200));
+    });
+  }
+  // a client that vanishes after sending each clustering request
+  const vanishBody = Buffer.from(collection(3000, 'v', random));
+  loop(async () => {
+    await vanish(`${url}/v1/cluster?eps=60&min_points=5`, vanishBody);
+    await new Promise((r) => setTimeout(r, 250));
+  });
+  // two slow senders at a time, each cut at the upload time limit
+  for (let s = 0; s < 2; s++) loop(() => slowSender(url));
+
+  await Promise.all(loops);
+  const loadEnd = Date.now();
+  // after the load: nothing may stay held once the last answers are out
+  let after: Record<string, unknown> = {};
+  for (let i = 0; i < 100; i++) {
+    after = (await (await fetch(`${url}/healthz`)).json()) as Record<string, unknown>;
+    if (after.in_progress === 0 && after.uploading === 0 && after.queued === 0) break;
+    await new Promise((r) => setTimeout(r, 100));
+  }
+  const settledMs = Date.now() - loadEnd;
+  rss.push({ t: (Date.now() - t0) / 1000, mib: rssMiB(pid) });
+  child.kill('SIGTERM');
+  await new Promise((r) => child.once('exit', r));
+  rmSync(dir, { recursive: true, force: true });
+
+  const sorted = [...health].sort((a, b) => a - b);
+  const warmed = rss.filter((r) => r.t >= 30);
+  const warm = warmed.length > 0 ? warmed : rss;
+  const byKind = [...counts.entries()].sort(([a], [b]) => a.localeCompare(b));
+  const fivehundreds = byKind.filter(([k]) => / 5\d\d$/.test(k) && !/ 503$/.test(k)).reduce((n, [, v]) => n + v, 0);
+  const lines = [
+    '# Soak benchmark',
+    '',
+    `\`npm run bench:soak -- --duration ${DURATION_S}\`, ${new Date().toISOString()}, Node ${process.version}, ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, load average at the end ${loadavg().map((x) => x.toFixed(2)).join(' ')}, seed ${SEED}.`,
+    '',
+    `Service: \`roost serve --workers 1 --upload-timeout-ms ${UPLOAD_TIMEOUT_MS}\` on a fresh SQLite file, in a process of its own. Load for ${DURATION_S} s: two clients posting batches of 500 new observations, two clients clustering 2,000 points, a stored run asked for every 10 s, two clients pulling the latest points layer, one client vanishing after sending each 3,000-point clustering request, two slow senders (a byte a second) at all times, /healthz every 100 ms.`,
+    '',
+    '## /healthz',
+    '',
+    '| samples | p50 | p99 | worst | worst at |',
+    '| ---: | ---: | ---: | ---: | ---: |',
+    `| ${sorted.length} | ${quantile(sorted, 0.5).toFixed(1)} ms | ${quantile(sorted, 0.99).toFixed(1)} ms | ${sorted[sorted.length - 1]?.toFixed(1)} ms | ${worstAt.toFixed(0)} s |`,
+    '',
+    '## Resident memory of the service (MiB)',
+    '',
+    '| t (s) | RSS |',
+    '| ---: | ---: |',
+    ...rss.filter((_, i) => i % 3 === 0 || i === rss.length - 1).map((r) => `| ${r.t.toFixed(0)} | ${r.mib.toFixed(0)} |`),
+    '',
+    `After warm-up (t ≥ 30 s): min ${Math.min(...warm.map((r) => r.mib)).toFixed(0)} MiB, max ${Math.max(...warm.map((r) => r.mib)).toFixed(0)} MiB, last ${warm[warm.length - 1]?.mib.toFixed(0)} MiB.`,
+    '',
+    '## Answers by kind and status',
+    '',
+    '| kind | status | count |',
+    '| --- | --- | ---: |',
+    ...byKind.map(([k, v]) => {
+      const i = k.lastIndexOf(' ');
+      const kind = /connection error|cut without answer|gone$/.test(k) ? k.replace(/ (connection error|cut without answer|gone)$/, '') : k.slice(0, i);
+      const status = /connection error|cut without answer|gone$/.test(k) ? k.slice(kind.length + 1) : k.slice(i + 1);
+      return `| ${kind} | ${status} | ${v} |`;
+    }),
+    '',
+    `500-class answers other than 503: ${fivehundreds}.`,
+    '',
+    '## Held at the end',
+    '',
+    `/healthz ${settledMs} ms after the load stopped: \`${JSON.stringify(after)}\` (stuck slots: in_progress ${String(after.in_progress)}, uploading ${String(after.uploading)}, queued ${String(after.queued)}).`,
+    '',
+  ];
+  writeFileSync(new URL('./soak-results.md', import.meta.url), lines.join('\n'));
+  console.log(lines.join('\n'));
+}
+
+await main();
