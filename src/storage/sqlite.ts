@@ -33,9 +33,12 @@ import type {
   RunInput,
   Store,
   TrackPoint,
+  ListTracksOptions,
+  TrackPage,
 } from './store.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { StoreError } from './store.js';
+import { trackListSql, trackPage } from './track-list.js';
 import {
   auditPage,
   batchIds,
@@ -561,7 +564,7 @@ export class SqliteStore implements Store {
   async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {
     if (!plainText(trackId)) return [];
     const rows = this.db
-      .prepare('SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = ? AND r.dataset_id = ? ORDER BY h.run_seq, h.hotspot_id')
+      .prepare(`SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = ? AND r.dataset_id = ? AND r.status = 'succeeded' ORDER BY h.run_seq, h.hotspot_id`)
       .all(trackId, datasetId) as Row[];
     return rows.map((r) => ({
       runId: formatRunId(r.run_seq as number),
@@ -570,6 +573,13 @@ export class SqliteStore implements Store {
       hull: r.hull as string,
       figures: parseJson(r.figures),
     }));
+  }
+
+  async listTracks(datasetId: string, options: ListTracksOptions): Promise<TrackPage> {
+    const args: unknown[] = [];
+    const sql = trackListSql('sqlite', (v) => (args.push(v), '?'), datasetId, options);
+    const rows = this.db.prepare(sql).all(...args) as Row[];
+    return trackPage(rows, options.limit, (v) => (v ?? null) as string | null, parseJson);
   }
 
   async markInterruptedRuns(reason: string, filter: InterruptedRunFilter = {}): Promise<string[]> {
