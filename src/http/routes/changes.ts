@@ -143,7 +143,7 @@ export default async function changeRoutes(app: FastifyInstance, options: Change
         to: runRef(to),
         counts: c.counts,
         member_share: c.memberShare,
-        track_settings: { survival_threshold: settings.survivalThreshold, split_threshold: settings.splitThreshold, hull_overlap_fallback: settings.hullOverlapFallback, min_member_overlap_share: settings.minMemberOverlapShare },
+        track_settings: { survival_threshold: settings.survivalThreshold, split_threshold: settings.splitThreshold, hull_overlap_fallback: settings.hullOverlapFallback, min_member_overlap_share: settings.minMemberOverlapShare, shrink_survival: settings.shrinkSurvival },
         transitions: c.transitions.map((t) => withFigures(t, fromById, toById)),
         links: { from: `${base}/runs/${from.id}`, to: `${base}/runs/${to.id}`, geojson: `${base}/changes?from=${from.id}&to=${to.id}&format=geojson` },
       };
@@ -175,6 +175,7 @@ export default async function changeRoutes(app: FastifyInstance, options: Change
         if (t.kind === 'split') extra['overlap'] = t.overlap[k];
         else if (t.kind !== 'emergence') extra['overlap'] = t.overlap;
         if (t.change) Object.assign(extra, t.change);
+        if (t.shrink) extra['shrink'] = true;
         add(toById.get(e.hotspot_id)!, to, t, extra);
       });
     }
