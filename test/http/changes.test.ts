@@ -6,7 +6,7 @@
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import type { FastifyInstance } from 'fastify';
+import type { FastifyInstance, LightMyRequestResponse } from 'fastify';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { buildApp } from '../../src/http/app.js';
 import type { ObservationRecord } from '../../src/storage/store.js';
@@ -166,12 +166,12 @@ describe('changes and track history over HTTP', () => {
       const ids: string[] = [];
       let url: string | null = '/v1/datasets/nests/tracks?limit=2';
       while (url !== null) {
-        const page = await app.inject({ method: 'GET', url });
+        const page: LightMyRequestResponse = await app.inject({ method: 'GET', url });
         expect(page.statusCode).toBe(200);
         expectMatchesSpec(page, '/v1/datasets/{id}/tracks', 'GET');
-        const b = page.json();
+        const b = page.json() as { tracks: { track_id: string }[]; next: string | null };
         expect(b.tracks.length).toBeLessThanOrEqual(2);
-        ids.push(...b.tracks.map((t: { track_id: string }) => t.track_id));
+        ids.push(...b.tracks.map((t) => t.track_id));
         url = b.next;
       }
       expect(ids).toEqual(['t000001', 't000002', 't000003']);
