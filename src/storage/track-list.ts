@@ -7,19 +7,20 @@
  * is the order they were first given out; the cursor is the last track id of the page, so a page
  * never repeats or skips a track while later runs add new ones (they sort after it).
  */
-import { checkLimit, formatRunId, plainText } from './common.js';
+import { formatRunId } from './runs.js';
+import { checkLimit, plainText } from './validation.js';
 import { StoreError, type ListTracksOptions, type TrackSummary } from './store.js';
 
 /** Largest page of tracks. */
-export const MAX_TRACK_PAGE = 1000;
+const MAX_TRACK_PAGE = 1000;
 
 /** Opaque cursor after one track id (base64url of a small JSON object). */
-export function encodeTrackCursor(trackId: string): string {
+function encodeTrackCursor(trackId: string): string {
   return Buffer.from(JSON.stringify({ t: trackId })).toString('base64url');
 }
 
 /** @throws StoreError 'invalid' when the cursor was not made by `encodeTrackCursor` */
-export function decodeTrackCursor(cursor: string): string {
+function decodeTrackCursor(cursor: string): string {
   try {
     const v = JSON.parse(Buffer.from(cursor, 'base64url').toString('utf8')) as { t?: unknown };
     if (typeof v.t === 'string' && v.t !== '' && plainText(v.t)) return v.t;
