@@ -10,9 +10,9 @@ import { readFile } from 'node:fs/promises';
 import { basename } from 'node:path';
 import { Command, Option } from 'commander';
 import { InputError } from '../ingest/types.js';
-import { clusterInput, clusterObservations, suggestEpsInput, type ClusterResult, type InputFormat, type Stage } from '../run/cluster.js';
+import { suggestEpsInput, type ClusterResult, type InputFormat, type Stage } from '../run/cluster.js';
 import { readObservations } from '../ingest/read.js';
-import { assess, splitEffort, type EffortPoints } from '../trust/assess.js';
+import { assess, clusterCases, type EffortPoints } from '../trust/assess.js';
 import { resolveTrustSettings, type TrustSettings } from '../trust/options.js';
 import { readStudyArea, type StudyArea } from '../trust/study-area.js';
 import { defaultThreads } from '../trust/trials.js';
@@ -180,26 +180,6 @@ async function effortFromFile(path: string, settings: ClusterSettings): Promise<
   return { lon: obs.points.lon, lat: obs.points.lat, source: 'file' };
 }
 
-/**
- * Reads and clusters the input. With an effort marker (--effort-where) the marked observations
- * are split off first: they are effort points, and only the others (the cases) are clustered.
- */
-function clusterCases(data: Buffer, format: InputFormat | undefined, settings: ClusterSettings, trust: TrustSettings, onProgress: (stage: Stage, done: number) => void): { result: ClusterResult; effort: EffortPoints | null } {
-  if (trust.effortWhere === null) return { result: clusterInput(data, format, settings, { onProgress }), effort: null };
-  const all = readObservations(data, {
-    format,
-    weightProperty: settings.weightProperty,
-    lonColumn: settings.lonColumn ?? undefined,
-    latColumn: settings.latColumn ?? undefined,
-    timeColumn: settings.timeColumn,
-    timeFormat: settings.timeFormat,
-  });
-  const split = splitEffort(all, trust.effortWhere);
-  const ids = split.cases.features.map((f, k) => String(f.id ?? split.caseIndex[k]));
-  const result = clusterObservations(split.cases, settings, { onProgress }, undefined, { format: format ?? 'detected', effort_points: split.effort.lon.length }, undefined, ids);
-  return { result, effort: split.effort };
-}
-
 /** Simulation and resample progress on stderr, at most twice a second. */
 function trialReporter(enabled: boolean): (what: string, done: number, total: number) => void {
   let last = 0;
@@ -296,7 +276,7 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
         const showProgress = Boolean(opts.progress) || (process.stderr.isTTY && (data.length > 5_000_000 || trials));
         const onProgress = progressReporter(showProgress);
         const t0 = performance.now();
-        const { result, effort } = clusterCases(data, formatFromPath(input, opts.format as string | undefined), settings, trust, onProgress);
+        const { result, effort } = clusterCases(data, formatFromPath(input, opts.format as string | undefined), settings, trust, { onProgress });
         if (trials) await assess(result, settings, { settings: trust, studyArea, effort: fileEffort ?? effort, threads, onProgress: trialReporter(showProgress) });
         onProgress('write', 0);
         const tWrite = performance.now();

@@ -7,7 +7,8 @@
 import { applyFilter } from '../ingest/filter.js';
 import type { Observations } from '../ingest/types.js';
 import { hotspotHull } from '../geometry/hull.js';
-import { defaultMinClusterSize, type ClusterResult } from '../run/cluster.js';
+import { clusterInput, clusterObservations, defaultMinClusterSize, type ClusterHooks, type ClusterResult, type InputFormat } from '../run/cluster.js';
+import { readObservations } from '../ingest/read.js';
 import { SettingsError, type ClusterSettings } from '../run/settings.js';
 import { roundSignificant } from '../geometry/rounding.js';
 import { hotspotStatistics, monteCarloPValues, type ChanceSpec } from './chance.js';
@@ -70,6 +71,26 @@ export function splitEffort(obs: Observations, marker: { property: string; value
     caseIndex,
     effort: { lon: Float64Array.from(marked, (i) => points.lon[i]), lat: Float64Array.from(marked, (i) => points.lat[i]), source: 'property marker' },
   };
+}
+
+/**
+ * Reads and clusters the input. With an effort marker (--effort-where) the marked observations
+ * are split off first: they are effort points, and only the others (the cases) are clustered.
+ */
+export function clusterCases(data: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings, trust: TrustSettings, hooks: ClusterHooks = {}): { result: ClusterResult; effort: EffortPoints | null } {
+  if (trust.effortWhere === null) return { result: clusterInput(data, format, settings, hooks), effort: null };
+  const all = readObservations(data, {
+    format,
+    weightProperty: settings.weightProperty,
+    lonColumn: settings.lonColumn ?? undefined,
+    latColumn: settings.latColumn ?? undefined,
+    timeColumn: settings.timeColumn,
+    timeFormat: settings.timeFormat,
+  });
+  const split = splitEffort(all, trust.effortWhere);
+  const ids = split.cases.features.map((f, k) => String(f.id ?? split.caseIndex[k]));
+  const result = clusterObservations(split.cases, settings, hooks, undefined, { format: format ?? 'detected', effort_points: split.effort.lon.length }, undefined, ids);
+  return { result, effort: split.effort };
 }
 
 interface Prepared {
