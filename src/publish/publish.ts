@@ -22,6 +22,7 @@
 import { hotspotHull } from '../geometry/hull.js';
 import { circlePositions } from '../geometry/hull.js';
 import { geometryAreaKm2 } from '../geometry/area.js';
+import { roundSignificant } from '../geometry/rounding.js';
 import { bboxOf, featureCollectionString, featureString, featureStringWithProperties, roundCoord, type GeometryLike } from '../geometry/geojson.js';
 import { CATEGORY_FIELD_PREFIX, categoryCounts, propertiesText } from '../geometry/layer-fields.js';
 import { Grid, type Cell } from './grid.js';
@@ -173,8 +174,9 @@ export function publishLayers(points: readonly PointFeature[], hotspots: readonl
     const props: Record<string, unknown> = {};
     for (const k of KEPT_FIGURES) if (source[k] !== undefined) props[k] = source[k];
     props.count = m.points.length;
-    props.area_km2 = round(areaKm2, 6);
-    props.density_per_km2 = round(m.points.length / areaKm2, 3);
+    // significant figures, as the exact layers keep them: a sparse hotspot's density is not 0
+    props.area_km2 = roundSignificant(areaKm2);
+    props.density_per_km2 = roundSignificant(m.points.length / areaKm2);
     // the layers' flat fields (src/geometry/layer-fields.ts); a summary's figures give `centre`
     const centre = Array.isArray(source.centre) ? (source.centre as number[]) : typeof source.centre_lon === 'number' ? [source.centre_lon, source.centre_lat as number] : undefined;
     const cc = centre ? grid.cellOf(centre[0]!, centre[1]!) : cells[0]!;

@@ -167,6 +167,20 @@ describe('published layers', () => {
     expect(b.points).toBe(a.points);
   });
 
+  it('area and density keep 7 significant figures: a sparse hotspot over a large outline still shows its density', () => {
+    // ten observations a degree of longitude apart at 50° N (about 72 km), chained by an eps of 100 km
+    const features = Array.from({ length: 10 }, (_, i) => ({ type: 'Feature', id: `s${i}`, geometry: { type: 'Point', coordinates: [10 + i, 50] }, properties: {} }));
+    const result = clusterInput(Buffer.from(JSON.stringify({ type: 'FeatureCollection', features })), 'geojson', resolveSettings({ eps: 100_000, min_points: 2 }));
+    const text = (name: 'points' | 'hotspots') => [...result.layers[name].chunks()].join('');
+    const published = publishLayerTexts(text('points'), text('hotspots'), { generaliseM: 50_000, minCount: 1, noise: 'withhold', properties: [] });
+    const h = (JSON.parse(published.hotspots) as Fc).features[0]!.properties as { count: number; area_km2: number; density_per_km2: number };
+    expect(h.count).toBe(10);
+    expect(h.area_km2).toBeGreaterThan(10_000); // an outline of 80 km circles along some 640 km
+    expect(h.area_km2).toBe(Number(h.area_km2.toPrecision(7)));
+    expect(h.density_per_km2).toBeGreaterThan(0); // below 0.0005 per km², which 3 decimals made 0
+    expect(Math.abs(h.density_per_km2 / (10 / h.area_km2) - 1)).toBeLessThan(1e-6);
+  });
+
   it('refuses unusable options, naming the field', () => {
     const bad = (o: Record<string, unknown>, field: string) => {
       expect(() => resolvePublishOptions(o)).toThrow(PublishError);
