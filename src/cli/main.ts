@@ -72,6 +72,8 @@ function settingsFromFlags(opts: Record<string, unknown>): Record<string, unknow
     lat_column: opts.latColumn,
     time_column: opts.timeColumn,
     time_format: opts.timeFormat,
+    reference: opts.reference,
+    validation: opts.validation,
   };
 }
 
@@ -190,6 +192,8 @@ export function buildProgram(setExit: (code: number) => void): Command {
     .addOption(new Option('--optics-extraction <how>', 'OPTICS: cut hotspots at eps or by the ξ method').choices(['eps', 'xi']))
     .option('--xi <x>', 'OPTICS ξ: relative reachability drop bounding a hotspot (default 0.05)')
     .option('--min-cluster-size <n>', 'OPTICS ξ: fewest observations in a hotspot (default: larger of min-points and 0.5 % of observations)')
+    .option('--reference <property>', 'score hotspots against the known groups in this property (purity, adjusted Rand index, NMI) and give each its majority value')
+    .option('--validation', 'add the silhouette and DBCV of the result to the summary (on a seeded sample of 2000 observations above that many)')
     .option('--report', 'also write report.html: the map, figures, k-distance or reachability plot, warnings and cautions in one file that opens with no network')
     .option('--generalise-m <metres>', 'write published layers instead: positions on a grid of this many metres, outlines from grid cells (see the README\'s Security section)')
     .option('--min-count <n>', 'published layers: withhold hotspots of fewer observations (default 1)')
@@ -203,6 +207,7 @@ Examples:
   roost cluster counts.csv --eps 300 --weight birds --since 2026-05-01T00:00:00Z --out-dir may
   roost cluster cases.geojson --eps 500 --min-points 5 --generalise-m 500 --min-count 10 --withhold-noise --out-dir public
   cat sightings.geojson | roost cluster - --eps auto --hull concave --count-by species --out-dir result
+  roost cluster nests.geojson --eps 200 --validation --reference colony --out-dir scored
 
 Results are patterns, not causes; hotspots can mirror where observers went. See the README.`,
     )
