@@ -3,6 +3,7 @@
  *
  *   roost cluster <input> --eps <metres> --min-points <n> --out-dir <dir> [options]
  *   roost suggest-eps <input> --min-points <n>
+ *   roost sweep <input> --eps <list> --min-points <list>
  *   roost serve [options]
  *   roost keys create|list|revoke
  */
@@ -11,6 +12,8 @@ import { basename } from 'node:path';
 import { Command, Option } from 'commander';
 import { InputError } from '../ingest/types.js';
 import { clusterInput, suggestEpsInput, type ClusterResult, type InputFormat, type Stage } from '../run/cluster.js';
+import { sweepInput, sweepTable } from '../run/sweep.js';
+import { sweepGrid, SweepError } from '../trust/sweep.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { resolveSettings, SettingsError } from '../run/settings.js';
 import { publishedSummary, publishLayerTexts, PublishError, resolvePublishOptions, type PublishOptions } from '../publish/publish.js';
@@ -88,7 +91,7 @@ function fail(err: unknown): number {
     process.stderr.write('roost: nothing was written\n');
     return EXIT.input;
   }
-  if (err instanceof SettingsError || err instanceof PublishError) {
+  if (err instanceof SettingsError || err instanceof PublishError || err instanceof SweepError) {
     process.stderr.write(`roost: ${err.message}\nroost: nothing was written\n`);
     return EXIT.usage;
   }
@@ -293,6 +296,59 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
           const lines = ['rank\tmetres'];
           for (let i = 0; i < curve.rank.length; i++) lines.push(`${curve.rank[i]}\t${curve.meters[i]}`);
           process.stdout.write(lines.join('\n') + '\n');
+        }
+        setExit(EXIT.ok);
+      } catch (err) {
+        setExit(fail(err));
+      }
+    });
+
+  program
+    .command('sweep')
+    .description('cluster at every eps × min_points pair (DBSCAN) and print hotspots, noise share and the adjusted Rand index between neighbouring settings')
+    .argument('<input>', 'GeoJSON, CSV or GeoJSON text sequence file, or - for stdin')
+    .requiredOption('--eps <list>', 'eps values in metres: a list (100,150,250) or a range start:stop:step (100:300:50)')
+    .requiredOption('--min-points <list>', 'min_points values: a list (3,5,10) or a range (3:12:3)')
+    .addOption(new Option('--format <format>', 'input format (default: from the file name, else sniffed)').choices(['geojson', 'csv', 'geojson-seq']))
+    .option('--weight <property>', 'numeric property holding each observation\'s weight (e.g. animals seen)')
+    .option('--since <time>', 'keep observations observed at or after this RFC 3339 time')
+    .option('--until <time>', 'keep observations observed before this RFC 3339 time')
+    .option('--where <property=value>', 'keep observations whose property equals value (repeatable)', collect)
+    .option('--lon-column <name>', 'CSV longitude column (default: found by common names)')
+    .option('--lat-column <name>', 'CSV latitude column (default: found by common names)')
+    .option('--time-column <name>', 'property (CSV column) holding each observation\'s time (default: observed_at)')
+    .option('--time-format <pattern>', 'how that time is written, e.g. DD.MM.YYYY (default: RFC 3339)')
+    .option('--json', 'print the whole answer as JSON')
+    .option('--progress', 'report progress on stderr even when it is not a terminal')
+    .addHelpText(
+      'after',
+      `
+Examples:
+  roost sweep sightings.geojson --eps 100:300:50 --min-points 3,5,10
+  roost sweep counts.csv --eps 150,250,400 --min-points 5:20:5 --weight birds --json
+
+At most 20 values per axis and 100 settings in all.`,
+    )
+    .action(async (input: string, opts: Record<string, unknown>) => {
+      try {
+        const grid = sweepGrid(opts.eps, opts.minPoints);
+        const settings = resolveSettings({ ...settingsFromFlags({ ...opts, eps: undefined, minPoints: undefined }), eps: 'auto' });
+        const data = await readInput(input);
+        const total = grid.epsMeters.length * grid.minPoints.length;
+        const show = Boolean(opts.progress) || process.stderr.isTTY;
+        let last = 0;
+        const answer = sweepInput(data, formatFromPath(input, opts.format as string | undefined), settings, grid, {
+          onProgress: (done, all, at) => {
+            const now = Date.now();
+            if (!show || (done < all && now - last < 500)) return;
+            last = now;
+            process.stderr.write(`roost: sweep ${done}/${all} (eps ${at.epsMeters} m, min_points ${at.minPoints})\n`);
+          },
+        });
+        if (opts.json) process.stdout.write(JSON.stringify(answer, null, 2) + '\n');
+        else {
+          process.stdout.write(`sweep: ${String(answer.observations)} observations, DBSCAN at ${total} settings; ari_next_eps and ari_next_min_points compare each setting with the next one along that axis (noise as one group)\n`);
+          process.stdout.write(sweepTable(answer));
         }
         setExit(EXIT.ok);
       } catch (err) {

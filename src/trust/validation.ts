@@ -297,16 +297,33 @@ export interface AgreementFigures {
   nmi: number | null;
 }
 
-/** Contingency counts of two label arrays (each label any integer), as a sparse table. */
-function contingency(a: ArrayLike<number>, b: ArrayLike<number>): { cells: Map<string, number>; rows: Map<number, number>; cols: Map<number, number> } {
-  const cells = new Map<string, number>();
-  const rows = new Map<number, number>();
-  const cols = new Map<number, number>();
-  for (let i = 0; i < a.length; i++) {
-    const key = a[i] + ',' + b[i];
+/**
+ * Contingency counts of two label arrays (each label any integer), as a sparse table keyed by
+ * numbers: both sides are first made dense (0..k-1), so a cell's key is row × columns + column.
+ */
+function contingency(a: ArrayLike<number>, b: ArrayLike<number>): { cells: Map<number, number>; rows: number[]; cols: number[] } {
+  const n = a.length;
+  const da = new Int32Array(n);
+  const db = new Int32Array(n);
+  const ia = new Map<number, number>();
+  const ib = new Map<number, number>();
+  for (let i = 0; i < n; i++) {
+    let x = ia.get(a[i]);
+    if (x === undefined) ia.set(a[i], (x = ia.size));
+    da[i] = x;
+    let y = ib.get(b[i]);
+    if (y === undefined) ib.set(b[i], (y = ib.size));
+    db[i] = y;
+  }
+  const rows = new Array<number>(ia.size).fill(0);
+  const cols = new Array<number>(ib.size).fill(0);
+  const cells = new Map<number, number>();
+  const width = ib.size;
+  for (let i = 0; i < n; i++) {
+    rows[da[i]]++;
+    cols[db[i]]++;
+    const key = da[i] * width + db[i];
     cells.set(key, (cells.get(key) ?? 0) + 1);
-    rows.set(a[i], (rows.get(a[i]) ?? 0) + 1);
-    cols.set(b[i], (cols.get(b[i]) ?? 0) + 1);
   }
   return { cells, rows, cols };
 }
@@ -326,22 +343,23 @@ export function agreement(clusters: ArrayLike<number>, classes: ArrayLike<number
   const { cells, rows, cols } = contingency(clusters, classes);
   if (n === 0) return { observations: 0, clusters: 0, classes: 0, purity: null, randIndex: null, adjustedRandIndex: null, nmi: null };
 
+  const width = cols.length;
   // purity: for each cluster the count of its most frequent class
-  const majority = new Map<number, number>();
+  const majority = new Array<number>(rows.length).fill(0);
   for (const [key, c] of cells) {
-    const k = Number(key.slice(0, key.indexOf(',')));
-    if (c > (majority.get(k) ?? 0)) majority.set(k, c);
+    const k = Math.floor(key / width);
+    if (c > majority[k]) majority[k] = c;
   }
   let pure = 0;
-  for (const c of majority.values()) pure += c;
+  for (const c of majority) pure += c;
 
   // pair counts
   let sumCells = 0;
   for (const c of cells.values()) sumCells += pairs(c);
   let sumRows = 0;
-  for (const c of rows.values()) sumRows += pairs(c);
+  for (const c of rows) sumRows += pairs(c);
   let sumCols = 0;
-  for (const c of cols.values()) sumCols += pairs(c);
+  for (const c of cols) sumCols += pairs(c);
   const total = pairs(n);
   // together in both, together in the clustering only, in the reference only, apart in both
   const tp = sumCells;
@@ -354,24 +372,23 @@ export function agreement(clusters: ArrayLike<number>, classes: ArrayLike<number
 
   // mutual information and entropies, natural logarithms (the base cancels in NMI)
   let nmi: number;
-  if ((rows.size === 1 && cols.size === 1)) nmi = 1;
+  if (rows.length === 1 && cols.length === 1) nmi = 1;
   else {
     let mi = 0;
     for (const [key, c] of cells) {
-      const comma = key.indexOf(',');
-      const r = rows.get(Number(key.slice(0, comma)))!;
-      const s = cols.get(Number(key.slice(comma + 1)))!;
+      const r = rows[Math.floor(key / width)];
+      const s = cols[key % width];
       mi += (c / n) * Math.log((c * n) / (r * s));
     }
-    const entropy = (m: Map<number, number>): number => {
+    const entropy = (m: number[]): number => {
       let h = 0;
-      for (const c of m.values()) h -= (c / n) * Math.log(c / n);
+      for (const c of m) h -= (c / n) * Math.log(c / n);
       return h;
     };
     const mean = (entropy(rows) + entropy(cols)) / 2;
     nmi = mi <= 0 || mean === 0 ? 0 : Math.min(1, mi / mean);
   }
-  return { observations: n, clusters: rows.size, classes: cols.size, purity: pure / n, randIndex, adjustedRandIndex, nmi };
+  return { observations: n, clusters: rows.length, classes: cols.length, purity: pure / n, randIndex, adjustedRandIndex, nmi };
 }
 
 /** One hotspot's majority reference value and its share of the members that have a value. */

@@ -1,5 +1,5 @@
 /**
- * POST /v1/cluster and POST /v1/k-distance: the body is collected as bytes and handed to the work
+ * POST /v1/cluster, POST /v1/k-distance and POST /v1/sweep: the body is collected as bytes and handed to the work
  * pool, which reads, checks, clusters and encodes it; the answer comes back as bytes. A full
  * service (503) and query-string settings are checked before the body is received, so a typo or a
  * full service costs no upload; the request takes its place in the work pool only once its body
@@ -8,6 +8,8 @@
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
 import { resolveSettings, SettingsError } from '../../run/settings.js';
+import { sweepRequest } from '../../run/sweep.js';
+import { SweepError } from '../../trust/sweep.js';
 import { formatOf } from '../body.js';
 import type { ServerConfig } from '../config.js';
 import { HttpProblem } from '../errors.js';
@@ -30,11 +32,12 @@ function readQuery(request: FastifyRequest, op: WorkTask['op']): { layer: LayerN
  * eps may still come in the body's settings member (or is not needed, for k-distance), so its
  * absence is left to the worker's full check.
  */
-function checkSettings(settings: Record<string, unknown>): void {
+function checkSettings(settings: Record<string, unknown>, op: WorkTask['op']): void {
   try {
-    resolveSettings({ eps: 'auto', ...settings });
+    if (op === 'sweep') sweepRequest(settings, true);
+    else resolveSettings({ eps: 'auto', ...settings });
   } catch (err) {
-    if (err instanceof SettingsError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
+    if (err instanceof SettingsError || err instanceof SweepError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
     throw err;
   }
 }
@@ -108,7 +111,7 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
   };
 
   const heavy = (op: WorkTask['op']) => ({
-    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request, op).settings)],
+    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request, op).settings, op)],
     preHandler: admission.admit,
     onResponse: admission.release,
     onRequestAbort: admission.release,
@@ -117,4 +120,5 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
 
   app.post('/v1/cluster', heavy('cluster'));
   app.post('/v1/k-distance', heavy('k-distance'));
+  app.post('/v1/sweep', heavy('sweep'));
 }
