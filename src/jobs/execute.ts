@@ -14,7 +14,7 @@ import { pointSet } from '../core/types.js';
 import { clusterObservations, type Stage } from '../run/cluster.js';
 import { resolveSettings, SettingsError, type ClusterSettings } from '../run/settings.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
-import { LAYER_PIECE_CHARS } from '../storage/common.js';
+import { LAYER_PIECE_CHARS } from '../storage/layer-pieces.js';
 import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
 import { StoreError } from '../storage/store.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';

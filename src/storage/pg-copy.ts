@@ -19,7 +19,7 @@
  */
 import { isAscii } from 'node:buffer';
 import type { Socket } from 'node:net';
-import { grown, PackedTexts, RunColumns } from './common.js';
+import { grown, PackedTexts, RunColumns } from './columns.js';
 import type { RunInput } from './store.js';
 
 /** The select list the COPY must carry, in this order (the observations aliased `o`). */

@@ -38,39 +38,13 @@ import type {
 } from './store.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { StoreError } from './store.js';
-import {
-  auditPage,
-  batchIds,
-  canBeDatasetId,
-  checkAuditRecord,
-  checkNewKey,
-  keyFromRow,
-  checkDatasetFields,
-  checkDatasetId,
-  plainText,
-  checkLease,
-  checkLimit,
-  checkNewRun,
-  DEFAULT_LEASE_MS,
-  interruptedMessage,
-  checkQuery,
-  checkRecords,
-  checkRunPatch,
-  checkStatuses,
-  decodeCursor,
-  encodeCursor,
-  formatRunId,
-  normaliseSlot,
-  checkTrackCount,
-  joinPieces,
-  layerPieces,
-  nowIso,
-  observationPage,
-  parseRunId,
-  planIngest,
-  storedPieces,
-  whereMatches,
-} from './common.js';
+import { auditPage, decodeCursor, encodeCursor, observationPage } from './cursors.js';
+import { batchIds, planIngest } from './ingest-plan.js';
+import { keyFromRow } from './key-rows.js';
+import { joinPieces, layerPieces, storedPieces } from './layer-pieces.js';
+import { DEFAULT_LEASE_MS, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
+import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
+import { whereMatches } from './where-match.js';
 import { MIGRATIONS } from './migrations.js';
 import { RUN_COPY_COLUMNS, RunCopyQuery } from './pg-copy.js';
 

@@ -36,41 +36,14 @@ import type {
 } from './store.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { StoreError } from './store.js';
-import {
-  auditPage,
-  batchIds,
-  canBeDatasetId,
-  checkAuditRecord,
-  checkNewKey,
-  keyFromRow,
-  checkDatasetFields,
-  checkDatasetId,
-  plainText,
-  checkLease,
-  checkLimit,
-  checkNewRun,
-  DEFAULT_LEASE_MS,
-  interruptedMessage,
-  checkQuery,
-  checkRecords,
-  checkRunPatch,
-  checkStatuses,
-  decodeCursor,
-  encodeCursor,
-  formatRunId,
-  normaliseSlot,
-  checkTrackCount,
-  joinPieces,
-  layerPieces,
-  nowIso,
-  observationPage,
-  parseRunId,
-  PackedTexts,
-  RunColumns,
-  planIngest,
-  storedPieces,
-  whereMatches,
-} from './common.js';
+import { PackedTexts, RunColumns } from './columns.js';
+import { auditPage, decodeCursor, encodeCursor, observationPage } from './cursors.js';
+import { batchIds, planIngest } from './ingest-plan.js';
+import { keyFromRow } from './key-rows.js';
+import { joinPieces, layerPieces, storedPieces } from './layer-pieces.js';
+import { DEFAULT_LEASE_MS, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
+import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
+import { whereMatches } from './where-match.js';
 import { MIGRATIONS } from './migrations.js';
 
 export interface SqliteStoreOptions {

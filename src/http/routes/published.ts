@@ -10,7 +10,7 @@
  */
 import type { FastifyInstance } from 'fastify';
 import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
-import { joinPieces } from '../../storage/common.js';
+import { joinPieces } from '../../storage/layer-pieces.js';
 import type { Dataset, Run } from '../../storage/store.js';
 import { publishLayerTexts, PublishError, resolvePublishOptions, type PublishedLayers } from '../../publish/publish.js';
 import { HttpProblem } from '../errors.js';

@@ -1,0 +1,63 @@
+/** Result layers cut into pieces of about a MiB for storing, and read back piece by piece. */
+import type { RunResult } from './store.js';
+import { StoreError } from './store.js';
+import { LAYER_NAMES, type LayerName } from '../run/layers.js';
+
+/** Characters per stored piece of a result layer: about 1 MiB of ASCII text. */
+export const LAYER_PIECE_CHARS = 1 << 20;
+/** Stored pieces read per query when a layer is served: a few MiB in memory at a time. */
+const LAYER_PIECES_PER_READ = 8;
+
+/** Cuts a text into pieces of at most `size` characters, never between the two halves of a surrogate pair. */
+export function cutText(text: string, size = LAYER_PIECE_CHARS): string[] {
+  const out: string[] = [];
+  for (let at = 0; at < text.length; ) {
+    let end = Math.min(text.length, at + size);
+    const last = text.charCodeAt(end - 1);
+    if (end < text.length && last >= 0xd800 && last <= 0xdbff) end--;
+    out.push(text.slice(at, end));
+    at = end;
+  }
+  return out.length > 0 ? out : [''];
+}
+
+/** A result's layers as the pieces to store. @throws StoreError 'invalid' when a layer is not text */
+export function layerPieces(result: RunResult): Record<LayerName, string[]> {
+  const out = {} as Record<LayerName, string[]>;
+  for (const layer of LAYER_NAMES) {
+    const v = result.layers?.[layer] as unknown;
+    if (typeof v === 'string') out[layer] = cutText(v);
+    else if (Array.isArray(v) && v.length > 0 && v.every((x) => typeof x === 'string')) out[layer] = [...(v as string[])];
+    else throw new StoreError('invalid', `result layer ${layer} must be GeoJSON text, whole or in pieces`);
+  }
+  return out;
+}
+
+/**
+ * A stored layer read piece by piece through `read(fromPart, count)`: null when it has no piece,
+ * else its pieces in order. Each read is its own query, so a result saved again while a layer is
+ * being served could mix; a run's result is saved once, before the run is marked succeeded.
+ */
+export async function storedPieces(read: (fromPart: number, count: number) => Promise<string[]> | string[]): Promise<AsyncIterable<string> | null> {
+  const first = await read(0, LAYER_PIECES_PER_READ);
+  if (first.length === 0) return null;
+  return (async function* () {
+    let batch = first;
+    let at = 0;
+    for (;;) {
+      yield* batch;
+      if (batch.length < LAYER_PIECES_PER_READ) return;
+      at += batch.length;
+      batch = await read(at, LAYER_PIECES_PER_READ);
+      if (batch.length === 0) return;
+    }
+  })();
+}
+
+/** All pieces joined, or null. */
+export async function joinPieces(pieces: AsyncIterable<string> | null): Promise<string | null> {
+  if (pieces === null) return null;
+  const parts: string[] = [];
+  for await (const p of pieces) parts.push(p);
+  return parts.join('');
+}
