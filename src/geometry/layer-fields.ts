@@ -17,7 +17,7 @@
  */
 
 /** A field's type as GIS formats know it. */
-export type FieldType = 'integer' | 'real' | 'string' | 'datetime';
+export type FieldType = 'integer' | 'real' | 'string' | 'datetime' | 'boolean';
 
 export interface LayerField {
   name: string;
@@ -47,8 +47,26 @@ export const HOTSPOT_FIELDS: readonly LayerField[] = [
 ];
 
 /**
+ * Fields written after the fixed ones only in runs that asked for a Monte Carlo test or for
+ * resampling (src/trust/assess.ts), on every hotspot of such a run. A dataset's nightly runs share
+ * their settings, so a GIS appending them meets the same fields every night; a field that was
+ * null in every run would be typed as text by GIS readers, which is why they are left out rather
+ * than written as null.
+ */
+export const TRUST_FIELDS: readonly LayerField[] = [
+  { name: 'p_value', type: 'real', nullable: false, description: 'Monte Carlo p-value under the run\'s null model' },
+  { name: 'significant', type: 'boolean', nullable: false, description: 'whether p_value is at most the significance level' },
+  { name: 'stability', type: 'real', nullable: false, description: 'mean Jaccard similarity with the best-matching hotspot over resamples, 0–1' },
+];
+
+/** The trust fields a run's hotspots carry (all of its hotspots carry the same ones). */
+export function trustFieldsOf(hotspots: readonly Record<string, unknown>[]): LayerField[] {
+  return TRUST_FIELDS.filter((f) => hotspots.some((h) => h[f.name] !== undefined && h[f.name] !== null));
+}
+
+/**
  * Fields a run writes on every one of its hotspots when its settings ask for them, after the fixed
- * fields and before the category counts: with `reference`, the hotspot's majority reference value
+ * fields and the trust fields, before the category counts: with `reference`, the hotspot's majority reference value
  * and its share of the members that have a value (null when none has one).
  */
 export const OPTIONAL_HOTSPOT_FIELDS: readonly LayerField[] = [
@@ -85,6 +103,9 @@ function valueText(field: LayerField, v: unknown): string {
     case 'string':
     case 'datetime':
       return JSON.stringify(String(v));
+    case 'boolean':
+      if (typeof v !== 'boolean') throw new Error(`layer field ${field.name}: ${String(v)} is not true or false`);
+      return String(v);
   }
 }
 
@@ -98,10 +119,11 @@ export function categoryNames(hotspots: readonly Record<string, unknown>[]): str
   return [...names].sort();
 }
 
-/** The fields of a run's hotspots and centres layers: the fixed ones, the optional ones asked for, then one count per category. */
-export function hotspotLayerFields(categories: readonly string[], optional: readonly LayerField[] = []): LayerField[] {
+/** The fields of a run's hotspots and centres layers: the fixed ones, the trust fields it has, the optional ones asked for, then one count per category. */
+export function hotspotLayerFields(categories: readonly string[], trust: readonly LayerField[] = [], optional: readonly LayerField[] = []): LayerField[] {
   return [
     ...HOTSPOT_FIELDS,
+    ...trust,
     ...optional,
     ...categories.map((c): LayerField => ({ name: CATEGORY_FIELD_PREFIX + c, type: 'integer', nullable: false, description: `members whose count_by property is ${JSON.stringify(c)}` })),
   ];
@@ -118,6 +140,9 @@ export function hotspotPropertiesText(props: Record<string, unknown>, categories
   let s = '{';
   for (const field of HOTSPOT_FIELDS) {
     s += (s.length > 1 ? ',' : '') + JSON.stringify(field.name) + ':' + valueText(field, flat[field.name]);
+  }
+  for (const field of TRUST_FIELDS) {
+    if (flat[field.name] !== undefined && flat[field.name] !== null) s += ',' + JSON.stringify(field.name) + ':' + valueText(field, flat[field.name]);
   }
   for (const field of OPTIONAL_HOTSPOT_FIELDS) if (Object.hasOwn(props, field.name)) s += ',' + JSON.stringify(field.name) + ':' + valueText(field, props[field.name]);
   const counts = (props['categories'] ?? {}) as Record<string, number>;
@@ -152,7 +177,15 @@ export function propertiesJsonSchema(fields: readonly LayerField[], title: strin
   const properties: Record<string, unknown> = {};
   for (const f of fields) {
     const base =
-      f.type === 'real' ? { type: 'number' } : f.type === 'integer' ? { type: 'integer' } : f.type === 'datetime' ? { type: 'string', format: 'date-time' } : { type: 'string' };
+      f.type === 'real'
+        ? { type: 'number' }
+        : f.type === 'integer'
+          ? { type: 'integer' }
+          : f.type === 'boolean'
+            ? { type: 'boolean' }
+            : f.type === 'datetime'
+              ? { type: 'string', format: 'date-time' }
+              : { type: 'string' };
     properties[f.name] = { ...base, ...(f.nullable ? { type: [base.type, 'null'] } : {}), description: f.description, 'x-roost-field-type': f.type };
   }
   return {

@@ -10,6 +10,7 @@ import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
 import { resolveSettings, SettingsError } from '../../run/settings.js';
 import { sweepRequest } from '../../run/sweep.js';
 import { SweepError } from '../../trust/sweep.js';
+import { resolveTrustSettings, splitTrustSettings } from '../../trust/options.js';
 import { formatOf } from '../body.js';
 import type { ServerConfig } from '../config.js';
 import { HttpProblem } from '../errors.js';
@@ -34,8 +35,17 @@ function readQuery(request: FastifyRequest, op: WorkTask['op']): { layer: LayerN
  */
 function checkSettings(settings: Record<string, unknown>, op: WorkTask['op']): void {
   try {
-    if (op === 'sweep') sweepRequest(settings, true);
-    else resolveSettings({ eps: 'auto', ...settings });
+    if (op === 'sweep') {
+      sweepRequest(settings, true);
+      return;
+    }
+    if (op === 'k-distance') {
+      resolveSettings({ eps: 'auto', ...settings });
+      return;
+    }
+    const { clustering, trust } = splitTrustSettings(settings);
+    resolveSettings({ eps: 'auto', ...clustering });
+    resolveTrustSettings(trust, undefined, true);
   } catch (err) {
     if (err instanceof SettingsError || err instanceof SweepError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
     throw err;
