@@ -10,9 +10,14 @@ import { readFile } from 'node:fs/promises';
 import { basename } from 'node:path';
 import { Command, Option } from 'commander';
 import { InputError } from '../ingest/types.js';
-import { clusterInput, suggestEpsInput, type ClusterResult, type InputFormat, type Stage } from '../run/cluster.js';
+import { suggestEpsInput, type ClusterResult, type InputFormat, type Stage } from '../run/cluster.js';
+import { readObservations } from '../ingest/read.js';
+import { assess, clusterCases, type EffortPoints } from '../trust/assess.js';
+import { resolveTrustSettings, type TrustSettings } from '../trust/options.js';
+import { readStudyArea, type StudyArea } from '../trust/study-area.js';
+import { defaultThreads } from '../trust/trials.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
-import { resolveSettings, SettingsError } from '../run/settings.js';
+import { resolveSettings, SettingsError, type ClusterSettings } from '../run/settings.js';
 import { publishedSummary, publishLayerTexts, PublishError, resolvePublishOptions, type PublishOptions } from '../publish/publish.js';
 import { ROOST_VERSION } from '../run/version.js';
 import { writeResultFolder } from './output.js';
@@ -152,6 +157,41 @@ function publishFromFlags(opts: Record<string, unknown>, countBy: string | null)
   }
 }
 
+function trustFromFlags(opts: Record<string, unknown>): TrustSettings {
+  return resolveTrustSettings(
+    {
+      simulations: opts.simulations,
+      seed: opts.seed,
+      null_model: opts.null,
+      effort_where: opts.effortWhere,
+      resamples: opts.resamples,
+      resample_share: opts.resampleShare,
+      significance_level: opts.significanceLevel,
+    },
+    undefined,
+    opts.effort !== undefined,
+  );
+}
+
+/** Effort points from a file of observations (GeoJSON, CSV or a text sequence): their positions only. */
+async function effortFromFile(path: string, settings: ClusterSettings): Promise<EffortPoints> {
+  const obs = readObservations(await readInput(path), { format: formatFromPath(path, undefined), lonColumn: settings.lonColumn ?? undefined, latColumn: settings.latColumn ?? undefined });
+  if (obs.points.n === 0) throw new SettingsError('effort', `${path} holds no effort points`);
+  return { lon: obs.points.lon, lat: obs.points.lat, source: 'file' };
+}
+
+/** Simulation and resample progress on stderr, at most twice a second. */
+function trialReporter(enabled: boolean): (what: string, done: number, total: number) => void {
+  let last = 0;
+  return (what, done, total) => {
+    if (!enabled) return;
+    const now = Date.now();
+    if (done < total && now - last < 500) return;
+    last = now;
+    process.stderr.write(`roost: ${what} ${done}/${total}\n`);
+  };
+}
+
 /** Builds the command tree; `run` is the testable entry point. */
 export function buildProgram(setExit: (code: number) => void): Command {
   const program = new Command('roost')
@@ -190,6 +230,16 @@ export function buildProgram(setExit: (code: number) => void): Command {
     .addOption(new Option('--optics-extraction <how>', 'OPTICS: cut hotspots at eps or by the ξ method').choices(['eps', 'xi']))
     .option('--xi <x>', 'OPTICS ξ: relative reachability drop bounding a hotspot (default 0.05)')
     .option('--min-cluster-size <n>', 'OPTICS ξ: fewest observations in a hotspot (default: larger of min-points and 0.5 % of observations)')
+    .option('--simulations <n>', 'Monte Carlo test: simulations under the null model, giving each hotspot a p_value (99 when --null is given alone)')
+    .option('--seed <n>', 'seed of the simulations and resamples: the same seed gives the same p-values and stabilities (default 1)')
+    .addOption(new Option('--null <model>', 'null model of the test: csr (uniform in the study area) or effort (random labelling over cases and effort points)').choices(['csr', 'effort']))
+    .option('--effort <file>', 'effort null model: a file of points where observers looked (GeoJSON, CSV or text sequence)')
+    .option('--effort-where <property=value>', 'effort null model: the observations with this property value are effort points, the others cases')
+    .option('--study-area <file>', 'csr null model: a GeoJSON Polygon or MultiPolygon to place points in (default: convex hull of the observations)')
+    .option('--significance-level <x>', 'hotspots with p_value at most this are marked significant (default 0.05)')
+    .option('--resamples <n>', 'stability: resamples of the observations, giving each hotspot a stability (mean Jaccard with its best match)')
+    .option('--resample-share <x>', 'stability: share of the observations each resample keeps (default 0.8)')
+    .option('--threads <n>', 'worker threads for simulations and resamples (default: the machine\'s parallelism); results do not depend on it')
     .option('--report', 'also write report.html: the map, figures, k-distance or reachability plot, warnings and cautions in one file that opens with no network')
     .option('--generalise-m <metres>', 'write published layers instead: positions on a grid of this many metres, outlines from grid cells (see the README\'s Security section)')
     .option('--min-count <n>', 'published layers: withhold hotspots of fewer observations (default 1)')
@@ -201,6 +251,8 @@ export function buildProgram(setExit: (code: number) => void): Command {
 Examples:
   roost cluster sightings.geojson --eps 250 --min-points 5 --out-dir result
   roost cluster counts.csv --eps 300 --weight birds --since 2026-05-01T00:00:00Z --out-dir may
+  roost cluster nests.geojson --eps 250 --null csr --simulations 99 --seed 7 --resamples 50 --out-dir tested
+  roost cluster cases.geojson --eps 400 --null effort --effort visits.geojson --out-dir tested
   roost cluster cases.geojson --eps 500 --min-points 5 --generalise-m 500 --min-count 10 --withhold-noise --out-dir public
   cat sightings.geojson | roost cluster - --eps auto --hull concave --count-by species --out-dir result
 
@@ -209,13 +261,23 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
     .action(async (input: string, opts: Record<string, unknown>) => {
       try {
         const settings = resolveSettings(settingsFromFlags(opts));
+        const trust = trustFromFlags(opts);
+        const threads = opts.threads === undefined ? defaultThreads() : Number(opts.threads);
+        if (!Number.isInteger(threads) || threads < 1 || threads > 256) throw new SettingsError('threads', `--threads must be a whole number from 1 to 256, got ${JSON.stringify(opts.threads)}`);
+        if (opts.effort !== undefined && trust.effortWhere !== null) throw new SettingsError('effort', 'give effort points either as a file (--effort) or by a marker (--effort-where), not both');
+        if (opts.effort !== undefined && trust.nullModel !== 'effort') throw new SettingsError('effort', '--effort gives effort points, which only the effort null model uses; add --null effort');
+        if (opts.studyArea !== undefined && (trust.simulations === 0 || trust.nullModel !== 'csr')) throw new SettingsError('study_area', '--study-area is where the csr null model places points; add --null csr');
         const publish = publishFromFlags(opts, settings.countBy);
         if (publish !== null && opts.report) throw new PublishError('generalise_m', '--report shows exact positions and cannot be combined with --generalise-m; write the report from an unpublished result');
+        const studyArea: StudyArea | null = opts.studyArea === undefined ? null : readStudyArea((await readInput(String(opts.studyArea))).toString('utf8'));
+        const fileEffort = opts.effort === undefined ? null : await effortFromFile(String(opts.effort), settings);
         const data = await readInput(input);
-        const showProgress = Boolean(opts.progress) || (process.stderr.isTTY && data.length > 5_000_000);
+        const trials = trust.simulations > 0 || trust.resamples > 0;
+        const showProgress = Boolean(opts.progress) || (process.stderr.isTTY && (data.length > 5_000_000 || trials));
         const onProgress = progressReporter(showProgress);
         const t0 = performance.now();
-        const result = clusterInput(data, formatFromPath(input, opts.format as string | undefined), settings, { onProgress });
+        const { result, effort } = clusterCases(data, formatFromPath(input, opts.format as string | undefined), settings, trust, { onProgress });
+        if (trials) await assess(result, settings, { settings: trust, studyArea, effort: fileEffort ?? effort, threads, onProgress: trialReporter(showProgress) });
         onProgress('write', 0);
         const tWrite = performance.now();
         const timings = result.summary.timings_ms as Record<string, number>;

@@ -17,7 +17,7 @@
  */
 
 /** A field's type as GIS formats know it. */
-export type FieldType = 'integer' | 'real' | 'string' | 'datetime';
+export type FieldType = 'integer' | 'real' | 'string' | 'datetime' | 'boolean';
 
 export interface LayerField {
   name: string;
@@ -46,6 +46,24 @@ export const HOTSPOT_FIELDS: readonly LayerField[] = [
   { name: 'last_observed_at', type: 'datetime', nullable: true, description: 'latest observed_at among the members' },
 ];
 
+/**
+ * Fields written after the fixed ones only in runs that asked for a Monte Carlo test or for
+ * resampling (src/trust/assess.ts), on every hotspot of such a run. A dataset's nightly runs share
+ * their settings, so a GIS appending them meets the same fields every night; a field that was
+ * null in every run would be typed as text by GIS readers, which is why they are left out rather
+ * than written as null.
+ */
+export const TRUST_FIELDS: readonly LayerField[] = [
+  { name: 'p_value', type: 'real', nullable: false, description: 'Monte Carlo p-value under the run\'s null model' },
+  { name: 'significant', type: 'boolean', nullable: false, description: 'whether p_value is at most the significance level' },
+  { name: 'stability', type: 'real', nullable: false, description: 'mean Jaccard similarity with the best-matching hotspot over resamples, 0–1' },
+];
+
+/** The trust fields a run's hotspots carry (all of its hotspots carry the same ones). */
+export function trustFieldsOf(hotspots: readonly Record<string, unknown>[]): LayerField[] {
+  return TRUST_FIELDS.filter((f) => hotspots.some((h) => h[f.name] !== undefined && h[f.name] !== null));
+}
+
 /** Prefix of the per-category count fields. */
 export const CATEGORY_FIELD_PREFIX = 'count_';
 
@@ -70,6 +88,9 @@ function valueText(field: LayerField, v: unknown): string {
     case 'string':
     case 'datetime':
       return JSON.stringify(String(v));
+    case 'boolean':
+      if (typeof v !== 'boolean') throw new Error(`layer field ${field.name}: ${String(v)} is not true or false`);
+      return String(v);
   }
 }
 
@@ -83,10 +104,11 @@ export function categoryNames(hotspots: readonly Record<string, unknown>[]): str
   return [...names].sort();
 }
 
-/** The fields of a run's hotspots and centres layers: the fixed ones, then one count per category. */
-export function hotspotLayerFields(categories: readonly string[]): LayerField[] {
+/** The fields of a run's hotspots and centres layers: the fixed ones, the trust fields it has, then one count per category. */
+export function hotspotLayerFields(categories: readonly string[], trust: readonly LayerField[] = []): LayerField[] {
   return [
     ...HOTSPOT_FIELDS,
+    ...trust,
     ...categories.map((c): LayerField => ({ name: CATEGORY_FIELD_PREFIX + c, type: 'integer', nullable: false, description: `members whose count_by property is ${JSON.stringify(c)}` })),
   ];
 }
@@ -102,6 +124,9 @@ export function hotspotPropertiesText(props: Record<string, unknown>, categories
   let s = '{';
   for (const field of HOTSPOT_FIELDS) {
     s += (s.length > 1 ? ',' : '') + JSON.stringify(field.name) + ':' + valueText(field, flat[field.name]);
+  }
+  for (const field of TRUST_FIELDS) {
+    if (flat[field.name] !== undefined && flat[field.name] !== null) s += ',' + JSON.stringify(field.name) + ':' + valueText(field, flat[field.name]);
   }
   const counts = (props['categories'] ?? {}) as Record<string, number>;
   for (const c of categories) s += ',' + JSON.stringify(CATEGORY_FIELD_PREFIX + c) + ':' + String(Object.hasOwn(counts, c) ? counts[c] : 0);
@@ -135,7 +160,15 @@ export function propertiesJsonSchema(fields: readonly LayerField[], title: strin
   const properties: Record<string, unknown> = {};
   for (const f of fields) {
     const base =
-      f.type === 'real' ? { type: 'number' } : f.type === 'integer' ? { type: 'integer' } : f.type === 'datetime' ? { type: 'string', format: 'date-time' } : { type: 'string' };
+      f.type === 'real'
+        ? { type: 'number' }
+        : f.type === 'integer'
+          ? { type: 'integer' }
+          : f.type === 'boolean'
+            ? { type: 'boolean' }
+            : f.type === 'datetime'
+              ? { type: 'string', format: 'date-time' }
+              : { type: 'string' };
     properties[f.name] = { ...base, ...(f.nullable ? { type: [base.type, 'null'] } : {}), description: f.description, 'x-roost-field-type': f.type };
   }
   return {

@@ -23,6 +23,13 @@ export interface paths {
          *     Settings come from the query string or, for JSON bodies, from a `settings` member of the
          *     FeatureCollection (`{"type":"FeatureCollection","settings":{"eps":250},"features":[…]}`);
          *     a setting given in both places takes the query string's value.
+         *
+         *     With `null_model` (or `simulations`) every hotspot gets a Monte Carlo `p_value` and
+         *     `significant`; with `resamples` a `stability` (see the README's "Can a hotspot be
+         *     trusted?"). The csr null model places points in the convex hull of the observations, or in
+         *     a polygon given as `study_area` in the body's `settings` member (a GeoJSON Polygon or
+         *     MultiPolygon); the effort null model takes as effort points the observations marked by
+         *     `effort_where`. The simulations run in the request's worker thread, inside the time limit.
          */
         post: operations["cluster"];
         delete?: never;
@@ -1475,6 +1482,12 @@ export interface components {
             categories?: {
                 [key: string]: number;
             };
+            /** @description Monte Carlo p-value under the run's null model; only in runs that asked for a test. */
+            p_value?: number;
+            /** @description Whether p_value is at most the significance level; only with p_value. */
+            significant?: boolean;
+            /** @description Mean Jaccard similarity with the best-matching hotspot over resamples; only in runs that asked for resampling. */
+            stability?: number;
         };
         OgcLink: {
             /** Format: uri */
@@ -1550,6 +1563,12 @@ export interface components {
             first_observed_at: string | null;
             /** Format: date-time */
             last_observed_at: string | null;
+            /** @description Monte Carlo p-value under the run's null model; only in runs that asked for a test. */
+            p_value?: number;
+            /** @description Whether p_value is at most the significance level; only with p_value. */
+            significant?: boolean;
+            /** @description Mean Jaccard similarity with the best-matching hotspot over resamples; only in runs that asked for resampling. */
+            stability?: number;
         } & {
             [key: string]: number;
         };
@@ -1573,6 +1592,35 @@ export interface components {
             cautions: string[];
             timings_ms: {
                 [key: string]: number;
+            };
+            /** @description Present when a Monte Carlo test was asked for: its null model and what the p-values rest on. */
+            chance?: {
+                /** @enum {string} */
+                null_model: "csr" | "effort";
+                simulations: number;
+                seed: number;
+                /**
+                 * @description What is compared: the hotspot's count, or its summed weight when a weight property is named.
+                 * @enum {string}
+                 */
+                statistic: "count" | "weight";
+                /** @description csr: kind (convex hull of all observations, or polygon given) and km2. */
+                study_area?: Record<string, unknown>;
+                /** @description effort: source (file, property marker, dataset), cases and effort_points. */
+                effort?: Record<string, unknown>;
+                smallest_possible_p: number;
+                significance_level: number;
+                significant_hotspots: number;
+                /** @description min, median and max of the simulations' largest hotspot statistic. */
+                simulated_largest?: Record<string, unknown>;
+                note?: string;
+            };
+            /** @description Present when resampling was asked for. */
+            stability?: {
+                resamples: number;
+                resample_share: number;
+                seed: number;
+                method?: string;
             };
         };
         /**
@@ -1982,6 +2030,23 @@ export interface components {
         optics_extraction: "eps" | "xi";
         /** @description OPTICS ξ: the relative drop in reachability that bounds a hotspot, 0 < ξ < 1. */
         xi: number;
+        /** @description Monte Carlo test: simulations under the null model (Besag & Diggle 1977); p-values go down to 1 / (1 + simulations). 0 (no test) unless null_model or effort_where is given, then 99. */
+        simulations: number;
+        /** @description Seed of the simulations and resamples; the same seed gives the same p-values and stabilities. */
+        seed: number;
+        /** @description The null model of the Monte Carlo test: csr (the same number of points uniform on the sphere in the study area) or effort (random labelling over cases and the effort points named by effort_where). */
+        null_model: "csr" | "effort";
+        /**
+         * @description Effort null model: the observations whose property equals the value (property=value) are effort points; only the others (cases) are clustered.
+         * @example kind=visit
+         */
+        effort_where: string;
+        /** @description Hotspots with p_value at most this are marked significant. */
+        significance_level: number;
+        /** @description Stability: resamples of the observations (without replacement); each hotspot gets the mean Jaccard similarity with its best match (Hennig 2007). 0: none. */
+        resamples: number;
+        /** @description Stability: share of the observations each resample keeps. */
+        resample_share: number;
         /** @description OPTICS ξ: the fewest observations a hotspot may have; default the larger of min_points and 0.5 % of the observations (rounded up). */
         min_cluster_size: number;
         /** @description CSV: the longitude column; by default the first of longitude, lon, lng, long, x (any case). */
@@ -2169,6 +2234,23 @@ export interface operations {
                  * @example DD.MM.YYYY
                  */
                 time_format?: components["parameters"]["time_format"];
+                /** @description Monte Carlo test: simulations under the null model (Besag & Diggle 1977); p-values go down to 1 / (1 + simulations). 0 (no test) unless null_model or effort_where is given, then 99. */
+                simulations?: components["parameters"]["simulations"];
+                /** @description Seed of the simulations and resamples; the same seed gives the same p-values and stabilities. */
+                seed?: components["parameters"]["seed"];
+                /** @description The null model of the Monte Carlo test: csr (the same number of points uniform on the sphere in the study area) or effort (random labelling over cases and the effort points named by effort_where). */
+                null_model?: components["parameters"]["null_model"];
+                /**
+                 * @description Effort null model: the observations whose property equals the value (property=value) are effort points; only the others (cases) are clustered.
+                 * @example kind=visit
+                 */
+                effort_where?: components["parameters"]["effort_where"];
+                /** @description Hotspots with p_value at most this are marked significant. */
+                significance_level?: components["parameters"]["significance_level"];
+                /** @description Stability: resamples of the observations (without replacement); each hotspot gets the mean Jaccard similarity with its best match (Hennig 2007). 0: none. */
+                resamples?: components["parameters"]["resamples"];
+                /** @description Stability: share of the observations each resample keeps. */
+                resample_share?: components["parameters"]["resample_share"];
                 /**
                  * @description Answer with this layer alone, as `application/geo+json`: `hotspots` (hull polygons with
                  *     figures), `centres`, `noise`, or `points` (every input observation with its properties

@@ -7,8 +7,11 @@
 import { Buffer } from 'node:buffer';
 import { Piscina } from 'piscina';
 import { InputError } from '../ingest/types.js';
-import { clusterInput, resultDocument, suggestEpsInput } from '../run/cluster.js';
+import { resultDocument, suggestEpsInput } from '../run/cluster.js';
 import { resolveSettings, SettingsError } from '../run/settings.js';
+import { assessHere, clusterCases } from '../trust/assess.js';
+import { resolveTrustSettings, splitTrustSettings } from '../trust/options.js';
+import { readStudyArea } from '../trust/study-area.js';
 import { MAX_LISTED_PROBLEMS } from './errors.js';
 import type { WorkRejected, WorkResult, WorkTask } from './work.js';
 
@@ -91,11 +94,19 @@ export default function work(task: WorkTask): WorkResult {
     // the query string wins over the body's settings member, parameter by parameter
     // k-distance is how eps is chosen, so it needs none
     const base = task.op === 'k-distance' ? { eps: 'auto' } : {};
-    const settings = resolveSettings({ ...base, ...fromBody.settings, ...task.query });
     if (task.op === 'k-distance') {
+      const settings = resolveSettings({ ...base, ...fromBody.settings, ...task.query });
       return done('application/json', JSON.stringify(suggestEpsInput(body, task.format, settings)));
     }
-    const result = clusterInput(body, task.format, settings);
+    // the study area of the csr null model is a polygon, given only in the body's settings member
+    const { study_area: areaGiven, ...given } = { ...fromBody.settings, ...task.query };
+    const { clustering, trust: trustGiven } = splitTrustSettings(given);
+    const settings = resolveSettings(clustering);
+    const trust = resolveTrustSettings(trustGiven);
+    const studyArea = areaGiven === undefined || areaGiven === null ? null : readStudyArea(JSON.stringify(areaGiven));
+    if (studyArea !== null && (trust.simulations === 0 || trust.nullModel !== 'csr')) throw new SettingsError('study_area', 'is where the csr null model places points; ask for null_model=csr');
+    const { result, effort } = clusterCases(body, task.format, settings, trust);
+    if (trust.simulations > 0 || trust.resamples > 0) assessHere(result, settings, { settings: trust, studyArea, effort });
     if (task.layer === null) return done('application/json', resultDocument(result));
     return done('application/geo+json', result.layers[task.layer].bytes());
   } catch (err) {

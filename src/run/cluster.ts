@@ -191,6 +191,15 @@ function runMethod(
 }
 
 /**
+ * The clustering alone (no hulls, figures or layers) of a point set at an eps already resolved,
+ * with the settings' method: what the Monte Carlo test and the resampling repeat many times.
+ */
+export function clusterPoints(points: PointSet, epsMeters: number, settings: ClusterSettings): Clustering {
+  const index = new SphereIndex(points, epsMeters);
+  return runMethod(points, index, epsMeters, settings, () => undefined).clustering;
+}
+
+/**
  * The members OPTICS adds to each point feature, as JSON text (leading comma): `optics_order`,
  * the point's 0-based position in the cluster ordering, and `reachability_m`, its reachability
  * distance in metres (null where undefined: the first point of each part of the ordering, and

@@ -124,7 +124,7 @@ describe.skipIf(skipReason !== null)(`GDAL reads the service${skipReason ? ` (sk
   it('types the hotspot fields as the layer declares them', async () => {
     const { stdout } = await gdal('ogrinfo', ['-ro', '-so', `OAPIF:${base}/features`, 'survey.hotspots']);
     const types = fieldTypes(stdout);
-    const gdalType = { real: 'Real', integer: 'Integer', string: 'String', datetime: 'DateTime' } as const;
+    const gdalType = { real: 'Real', integer: 'Integer', string: 'String', datetime: 'DateTime', boolean: 'Integer(Boolean)' } as const;
     for (const f of HOTSPOT_FIELDS) {
       // track_id is set in stored runs; null-only fields would be typed String anyway
       expect(types[f.name], f.name).toBe(gdalType[f.type]);

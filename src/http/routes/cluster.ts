@@ -8,6 +8,7 @@
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import type { LayerName } from '../../run/layers.js';
 import { resolveSettings, SettingsError } from '../../run/settings.js';
+import { resolveTrustSettings, splitTrustSettings } from '../../trust/options.js';
 import { formatOf } from '../body.js';
 import type { ServerConfig } from '../config.js';
 import { HttpProblem } from '../errors.js';
@@ -30,9 +31,15 @@ function readQuery(request: FastifyRequest): { layer: LayerName | null; settings
  * eps may still come in the body's settings member (or is not needed, for k-distance), so its
  * absence is left to the worker's full check.
  */
-function checkSettings(settings: Record<string, unknown>): void {
+function checkSettings(settings: Record<string, unknown>, op: WorkTask['op']): void {
   try {
-    resolveSettings({ eps: 'auto', ...settings });
+    if (op === 'k-distance') {
+      resolveSettings({ eps: 'auto', ...settings });
+      return;
+    }
+    const { clustering, trust } = splitTrustSettings(settings);
+    resolveSettings({ eps: 'auto', ...clustering });
+    resolveTrustSettings(trust, undefined, true);
   } catch (err) {
     if (err instanceof SettingsError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
     throw err;
@@ -108,7 +115,7 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
   };
 
   const heavy = (op: WorkTask['op']) => ({
-    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request).settings)],
+    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request).settings, op)],
     preHandler: admission.admit,
     onResponse: admission.release,
     onRequestAbort: admission.release,
