@@ -32,11 +32,6 @@ export function takeoverScanMs(heartbeatMs: number): number {
   return Math.max(1, Math.floor(heartbeatMs / 4));
 }
 
-/** Longest time from a claimer's last renewal to the run being claimed again elsewhere, milliseconds. */
-export function takeoverBoundMs(heartbeatMs: number): number {
-  return leaseMs(heartbeatMs) + takeoverScanMs(heartbeatMs);
-}
-
 /**
  * Renews the lease of a run this process claimed every heartbeat, until `stop()`. `onLost` is
  * called once when the store says the run is no longer this claim's (cancelled, finished

@@ -57,6 +57,8 @@ export interface TransitionJson {
   covered?: number;
   /** survival only */
   change?: SurvivalChangeJson;
+  /** survival only, when the shrink rule judged it (see src/tracks/match.ts) */
+  shrink?: true;
 }
 
 /** How the tracks changed between two runs, as stored in a run summary's `changes`. */
@@ -99,6 +101,7 @@ export function transitionJson(t: Transition, trackOf?: { from?: (hotspotId: num
       moved_m: roundMeters(t.change.movedMeters),
     };
   }
+  if (t.shrink) out.shrink = true;
   return out;
 }
 

@@ -35,6 +35,8 @@ import type {
   RunStatus,
   Store,
   TrackPoint,
+  ListTracksOptions,
+  TrackPage,
 } from './store.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { StoreError } from './store.js';
@@ -45,6 +47,7 @@ import { joinPieces, layerPieces, storedPieces } from './layer-pieces.js';
 import { DEFAULT_LEASE_MS, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
 import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
 import { whereMatches } from './where-match.js';
+import { trackListSql, trackPage } from './track-list.js';
 import { MIGRATIONS } from './migrations.js';
 import { RUN_COPY_COLUMNS, RunCopyQuery } from './pg-copy.js';
 
@@ -547,7 +550,7 @@ export class PostgresStore implements Store {
   async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {
     if (!plainText(trackId)) return [];
     const r = await this.pool.query(
-      'SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = $1 AND r.dataset_id = $2 ORDER BY h.run_seq, h.hotspot_id',
+      `SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = $1 AND r.dataset_id = $2 AND r.status = 'succeeded' ORDER BY h.run_seq, h.hotspot_id`,
       [trackId, datasetId],
     );
     return (r.rows as Row[]).map((x) => ({
@@ -557,6 +560,13 @@ export class PostgresStore implements Store {
       hull: x.hull as string,
       figures: (x.figures ?? null) as Record<string, unknown> | null,
     }));
+  }
+
+  async listTracks(datasetId: string, options: ListTracksOptions): Promise<TrackPage> {
+    const p = new Params();
+    const sql = trackListSql('postgres', (v) => p.add(v), datasetId, options);
+    const r = await this.pool.query(sql, p.values);
+    return trackPage(r.rows as Row[], options.limit, iso, (v) => (v ?? null) as Record<string, unknown> | null);
   }
 
   async markInterruptedRuns(reason: string, filter: InterruptedRunFilter = {}): Promise<string[]> {

@@ -33,6 +33,8 @@ import type {
   RunInput,
   Store,
   TrackPoint,
+  ListTracksOptions,
+  TrackPage,
 } from './store.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { StoreError } from './store.js';
@@ -44,6 +46,7 @@ import { joinPieces, layerPieces, storedPieces } from './layer-pieces.js';
 import { DEFAULT_LEASE_MS, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
 import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
 import { whereMatches } from './where-match.js';
+import { trackListSql, trackPage } from './track-list.js';
 import { MIGRATIONS } from './migrations.js';
 
 export interface SqliteStoreOptions {
@@ -534,7 +537,7 @@ export class SqliteStore implements Store {
   async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {
     if (!plainText(trackId)) return [];
     const rows = this.db
-      .prepare('SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = ? AND r.dataset_id = ? ORDER BY h.run_seq, h.hotspot_id')
+      .prepare(`SELECT h.run_seq, h.hotspot_id, h.member_count, h.hull, h.figures FROM run_hotspots h JOIN runs r ON r.seq = h.run_seq WHERE h.track_id = ? AND r.dataset_id = ? AND r.status = 'succeeded' ORDER BY h.run_seq, h.hotspot_id`)
       .all(trackId, datasetId) as Row[];
     return rows.map((r) => ({
       runId: formatRunId(r.run_seq as number),
@@ -543,6 +546,13 @@ export class SqliteStore implements Store {
       hull: r.hull as string,
       figures: parseJson(r.figures),
     }));
+  }
+
+  async listTracks(datasetId: string, options: ListTracksOptions): Promise<TrackPage> {
+    const args: unknown[] = [];
+    const sql = trackListSql('sqlite', (v) => (args.push(v), '?'), datasetId, options);
+    const rows = this.db.prepare(sql).all(...args) as Row[];
+    return trackPage(rows, options.limit, (v) => (v ?? null) as string | null, parseJson);
   }
 
   async markInterruptedRuns(reason: string, filter: InterruptedRunFilter = {}): Promise<string[]> {

@@ -315,6 +315,45 @@ export interface TrackPoint {
   figures: Record<string, unknown> | null;
 }
 
+/** A run named in a track listing. */
+export interface TrackRunRef {
+  id: string;
+  /** RFC 3339 */
+  createdAt: string;
+  finishedAt: string | null;
+}
+
+/** One track of a dataset, as the listing of tracks shows it. */
+export interface TrackSummary {
+  trackId: string;
+  /** succeeded runs that have a hotspot on the track */
+  runCount: number;
+  /** the first and the last of those runs */
+  firstRun: TrackRunRef;
+  lastRun: TrackRunRef;
+  /** whether the last of them is the dataset's latest succeeded run */
+  active: boolean;
+  /** the track's hotspot in its last run: number, member count and figures */
+  hotspotId: number;
+  memberCount: number;
+  figures: Record<string, unknown> | null;
+}
+
+export interface ListTracksOptions {
+  /** 1 to 1000 */
+  limit: number;
+  /** from the previous page's nextCursor */
+  cursor?: string;
+  /** true: only tracks in the latest succeeded run; false: only tracks that ended; absent: all */
+  active?: boolean;
+}
+
+export interface TrackPage {
+  /** by track id, shorter ids first (the order they were given out) */
+  tracks: TrackSummary[];
+  nextCursor: string | null;
+}
+
 /** Restricts crash recovery to one worker's runs or to runs not updated for a while. */
 export interface InterruptedRunFilter {
   /** only runs claimed by this worker */
@@ -460,8 +499,13 @@ export interface Store {
   getRunLayerPieces(runId: string, layer: LayerName): Promise<AsyncIterable<string> | null>;
   /** The run's hotspots by hotspot id; empty when none were stored. @throws StoreError 'not-found' */
   getRunHotspots(runId: string): Promise<RunHotspot[]>;
-  /** The hotspots carrying the track id, oldest run first. */
+  /** The hotspots of succeeded runs carrying the track id, oldest run first. */
   getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]>;
+  /**
+   * A page of the dataset's tracks (those on a hotspot of a succeeded run), in track id order,
+   * shorter ids first. An unknown dataset has none. @throws StoreError 'invalid' for a bad limit or cursor
+   */
+  listTracks(datasetId: string, options: ListTracksOptions): Promise<TrackPage>;
   /** Runs left 'running' become 'failed' with the reason. @returns their ids */
   markInterruptedRuns(reason: string, filter?: InterruptedRunFilter): Promise<string[]>;
   /** Runs left 'running' go back to 'queued' (progress 0, no worker). @returns their ids */

@@ -16,6 +16,20 @@
  *   together they cover ≥ τ of X, and X has no match. MONIC asks that no single Yi reach τ; when two
  *   or more reach τ (possible only at exactly τ = 0.5 by members, or with overlapping hulls) none of
  *   them is "the only" match, and we call it a split, since the split conditions all hold.
+ * - survival with a shrink (our addition, on by default: shrinkSurvival): X, which none of the rules
+ *   above continues, survives as a new hotspot Y that none of them uses when Y is X's only
+ *   new hotspot such that
+ *     1. Y has fewer members than X,
+ *     2. at least τ of Y's hull area lies inside X's hull (Y is in X's place), and
+ *     3. by members: Y holds at least one member of X and at least τ of X's members that are in
+ *        any new hotspot (X's remains gather in Y); by hulls no further condition.
+ *   MONIC counts only members (or, with its ageing weights, fresh members) towards overlap, so a
+ *   hotspot of 8 whose 6 members were retracted or left a sliding window, and whose other 2 are in
+ *   a hotspot on the same spot, scores 2/8 < τ and would be a disappearance and an emergence in the
+ *   same place. MONIC's internal transitions name what happened to it, a survival that shrank;
+ *   this rule reports that. Such a transition carries `shrink: true` and its overlap is still
+ *   overlap(X, Y), below τ. When two hotspots X want the same Y, the one sharing more members
+ *   (hulls: the larger overlap × member count) has it, ties to the lower old hotspotId.
  * - disappearance: none of the above.
  * - emergence: a new hotspot that is in no survival, absorption or split.
  * Exactly τ (and exactly τ_split) counts as reaching it.
@@ -44,7 +58,7 @@
  */
 import { haversineMeters } from '../core/haversine.js';
 import type { HullGeometry } from '../geometry/hull.js';
-import { coveredShare, hullAreaM2, hullPairs, memberIndex, memberPairs, partBoxes, type OverlapPair } from './overlap.js';
+import { boxesMeet, coveredShare, hullAreaM2, hullPairs, intersectionAreaM2, memberIndex, memberPairs, partBoxes, type OverlapPair } from './overlap.js';
 import { resolveTrackSettings, type TrackSettings } from './settings.js';
 
 export { DEFAULT_TRACK_SETTINGS, resolveTrackSettings, type TrackSettings } from './settings.js';
@@ -110,6 +124,8 @@ export interface Transition {
   covered?: number;
   /** survival only */
   change?: SurvivalChange;
+  /** survival only, and only when the shrink rule judged it (the overlap is then below τ) */
+  shrink?: true;
 }
 
 /** Result of matching a run against the previous one. */
@@ -276,6 +292,38 @@ export function matchRuns(
     continued[i] = 1;
   }
 
+  // Shrinks: an old hotspot no rule continued, into a smaller new hotspot in its place that no rule used.
+  const shrinkInto = new Int32Array(prev.length).fill(-1);
+  if (s.shrinkSurvival) {
+    const used = new Uint8Array(cur.length);
+    for (let c = 0; c < cur.length; c++) if (matchedBy[c].length > 0) used[c] = 1;
+    for (const parts of splitParts) for (const p of parts ?? []) used[p.cur] = 1;
+    const curArea = new Map<number, number>();
+    const shrinks: { i: number; p: OverlapPair }[] = [];
+    for (let i = 0; i < prev.length; i++) {
+      if (matchOf[i] >= 0 || splitParts[i] !== null) continue;
+      const x = prev[i];
+      const xBoxes = partBoxes(x.hull);
+      const fits = pairs[i].filter((p) => {
+        const y = cur[p.cur];
+        if (used[p.cur] || y.members.length >= x.members.length) return false;
+        if (!onHull[i] && !(p.shared >= s.survivalThreshold * byMembers[i].sharedTotal)) return false;
+        if (!curArea.has(p.cur)) curArea.set(p.cur, hullAreaM2(y.hull));
+        const yArea = curArea.get(p.cur) as number;
+        if (!(yArea > 0) || !boxesMeet(xBoxes, partBoxes(y.hull))) return false;
+        const inside = intersectionAreaM2(x.hull, y.hull, `previous hotspot ${x.hotspotId} and new hotspot ${y.hotspotId}`) / yArea;
+        return inside >= s.survivalThreshold - s.hullTolerance;
+      });
+      if (fits.length === 1) shrinks.push({ i, p: fits[0] });
+    }
+    shrinks.sort((a, b) => b.p.shared - a.p.shared || a.i - b.i);
+    for (const { i, p } of shrinks) {
+      if (trackOf[p.cur] !== null) continue;
+      trackOf[p.cur] = prev[i].trackId;
+      shrinkInto[i] = p.cur;
+    }
+  }
+
   // New tracks for split parts left over and for emergences, in new hotspotId order.
   const gen = newTrackId ?? trackIdsAfter(prevTracks);
   const issued = new Set<string>();
@@ -323,6 +371,15 @@ export function matchRuns(
       transitions.push({
         kind: 'split', from: [fromEnd(i)], to: parts.map((p) => toEnd(p.cur)), overlap: parts.map((p) => p.overlap), basis,
         covered: splitCovered[i],
+      });
+      continue;
+    }
+    const into = shrinkInto[i];
+    if (into >= 0) {
+      inTransition[into] = 1;
+      transitions.push({
+        kind: 'survival', from: [fromEnd(i)], to: [toEnd(into)], overlap: [sharedWith(i, into).overlap], basis,
+        change: survivalChange(prev[i], cur[into]), shrink: true,
       });
       continue;
     }

@@ -16,6 +16,10 @@
  * - minMemberOverlapShare = 0.5 (our choice, tied to τ): when fewer than half of the previous run's
  *   hotspot members are found in the new run's hotspots, even an unchanged hotspot would on average
  *   score an overlap below τ by members, so members are no longer evidence and hulls decide.
+ * - shrinkSurvival = true (our choice): a hotspot that lost most of its members but whose remains
+ *   gather in one smaller hotspot in its place survives as that hotspot (a survival with a shrink,
+ *   MONIC's size transition) instead of disappearing while a new hotspot emerges on the same spot.
+ *   The rule uses τ and no threshold of its own (see match.ts).
  */
 
 /** Thresholds of hotspot tracking; every share is a fraction in [0, 1]. */
@@ -41,6 +45,11 @@ export interface TrackSettings {
    * In [0, 0.01]; default 1e-9. Member overlaps are exact ratios of integers and need no tolerance.
    */
   hullTolerance: number;
+  /**
+   * Whether a hotspot that would disappear survives as a smaller hotspot in its place that would
+   * otherwise emerge (the shrink rule in match.ts); default true.
+   */
+  shrinkSurvival: boolean;
 }
 
 /** Default tracking settings; see the module header for the reasons behind each value. */
@@ -50,6 +59,7 @@ export const DEFAULT_TRACK_SETTINGS: Readonly<TrackSettings> = Object.freeze({
   hullOverlapFallback: true,
   minMemberOverlapShare: 0.5,
   hullTolerance: 1e-9,
+  shrinkSurvival: true,
 });
 
 function share(name: string, value: unknown, low: number, lowOpen: boolean, high: number): number {
@@ -80,8 +90,8 @@ export function resolveTrackSettings(settings: Partial<TrackSettings> = {}): Tra
   share('splitThreshold', merged.splitThreshold, 0, true, merged.survivalThreshold);
   share('minMemberOverlapShare', merged.minMemberOverlapShare, 0, false, 1);
   share('hullTolerance', merged.hullTolerance, 0, false, 0.01);
-  if (typeof merged.hullOverlapFallback !== 'boolean') {
-    throw new RangeError(`Track setting hullOverlapFallback must be true or false, got ${String(merged.hullOverlapFallback)}.`);
+  for (const flag of ['hullOverlapFallback', 'shrinkSurvival'] as const) {
+    if (typeof merged[flag] !== 'boolean') throw new RangeError(`Track setting ${flag} must be true or false, got ${String(merged[flag])}.`);
   }
   return merged;
 }

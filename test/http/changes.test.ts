@@ -1,12 +1,12 @@
 /**
- * /v1/datasets/{id}/changes and /v1/datasets/{id}/tracks/{track} through the HTTP app, with runs
+ * /v1/datasets/{id}/changes, /v1/datasets/{id}/tracks and /v1/datasets/{id}/tracks/{track} through the HTTP app, with runs
  * executed in a worker thread on a SQLite file (track ids asked of the main thread): JSON and
  * GeoJSON answers checked against openapi.yaml, and every refusal.
  */
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import type { FastifyInstance } from 'fastify';
+import type { FastifyInstance, LightMyRequestResponse } from 'fastify';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { buildApp } from '../../src/http/app.js';
 import type { ObservationRecord } from '../../src/storage/store.js';
@@ -132,6 +132,75 @@ describe('changes and track history over HTTP', () => {
       const ended = (await app.inject({ method: 'GET', url: '/v1/datasets/nests/tracks/t000002' })).json();
       expect(ended.active).toBe(false);
       expect(ended.history).toHaveLength(1);
+    });
+
+    it('the dataset\'s tracks are listed a page at a time, with an ETag, the active ones or the ended ones', async () => {
+      const res = await app.inject({ method: 'GET', url: '/v1/datasets/nests/tracks' });
+      expect(res.statusCode).toBe(200);
+      expectMatchesSpec(res, '/v1/datasets/{id}/tracks', 'GET');
+      const body = res.json();
+      expect(body.latest_run).toBe(r2);
+      expect(body.next).toBeNull();
+      expect(body.tracks.map((t: { track_id: string; active: boolean; runs: number }) => [t.track_id, t.active, t.runs])).toEqual([
+        ['t000001', true, 2],
+        ['t000002', false, 1],
+        ['t000003', true, 1],
+      ]);
+      const kept = body.tracks[0];
+      expect(kept.first_run.id).toBe(r1);
+      expect(kept.last_run.id).toBe(r2);
+      // the last hotspot's figures, as the track's history gives them for that run
+      const history = (await app.inject({ method: 'GET', url: kept.history })).json().history;
+      const lastSeen = history[history.length - 1];
+      expect([kept.hotspot_id, kept.count, kept.area_km2, kept.density_per_km2, kept.centre]).toEqual([lastSeen.hotspot_id, lastSeen.count, lastSeen.area_km2, lastSeen.density_per_km2, lastSeen.centre]);
+      expect(body.tracks[1].last_run.id).toBe(r1);
+
+      // the same answer again is 304 for a client holding its ETag
+      const etag = res.headers.etag as string;
+      expect(etag).toMatch(/^"/);
+      const again = await app.inject({ method: 'GET', url: '/v1/datasets/nests/tracks', headers: { 'if-none-match': etag } });
+      expect(again.statusCode).toBe(304);
+      expect(again.body).toBe('');
+
+      // pages of two, following next
+      const ids: string[] = [];
+      let url: string | null = '/v1/datasets/nests/tracks?limit=2';
+      while (url !== null) {
+        const page: LightMyRequestResponse = await app.inject({ method: 'GET', url });
+        expect(page.statusCode).toBe(200);
+        expectMatchesSpec(page, '/v1/datasets/{id}/tracks', 'GET');
+        const b = page.json() as { tracks: { track_id: string }[]; next: string | null };
+        expect(b.tracks.length).toBeLessThanOrEqual(2);
+        ids.push(...b.tracks.map((t) => t.track_id));
+        url = b.next;
+      }
+      expect(ids).toEqual(['t000001', 't000002', 't000003']);
+
+      const active = (await app.inject({ method: 'GET', url: '/v1/datasets/nests/tracks?active=true&limit=1' })).json();
+      expect(active.tracks.map((t: { track_id: string }) => t.track_id)).toEqual(['t000001']);
+      expect(active.next).toMatch(/active=true/);
+      expect((await app.inject({ method: 'GET', url: active.next })).json().tracks.map((t: { track_id: string }) => t.track_id)).toEqual(['t000003']);
+      const ended = (await app.inject({ method: 'GET', url: '/v1/datasets/nests/tracks?active=false' })).json();
+      expect(ended.tracks.map((t: { track_id: string }) => t.track_id)).toEqual(['t000002']);
+    });
+
+    it('refuses a listing of tracks it cannot give, with documented problems', async () => {
+      const cases: [string, number, string, string | undefined][] = [
+        ['/v1/datasets/nope/tracks', 404, 'dataset-not-found', undefined],
+        ['/v1/datasets/nests/tracks?active=yes', 400, 'invalid-parameter', 'active'],
+        ['/v1/datasets/nests/tracks?limit=0', 400, 'invalid-parameter', 'limit'],
+        ['/v1/datasets/nests/tracks?limit=1001', 400, 'invalid-parameter', 'limit'],
+        ['/v1/datasets/nests/tracks?cursor=abc', 400, 'invalid-parameter', 'cursor'],
+        ['/v1/datasets/nests/tracks?since=r000001', 400, 'invalid-parameter', 'since'],
+      ];
+      for (const [url, status, code, parameter] of cases) {
+        const res = await app.inject({ method: 'GET', url });
+        expect(res.statusCode, url).toBe(status);
+        expect(res.headers['content-type'], url).toMatch(/^application\/problem\+json/);
+        expect(res.json().code, url).toBe(code);
+        if (parameter !== undefined) expect(res.json().parameter, url).toBe(parameter);
+        expectMatchesSpec(res, '/v1/datasets/{id}/tracks', 'GET');
+      }
     });
 
     it('every hotspot feature of the stored runs carries its track id', async () => {

@@ -101,8 +101,8 @@ describe('track assignment on stored runs', () => {
     });
   });
 
-  it('uses the given thresholds: with τ above the share kept, a shrunken hotspot ends and a new track starts', async () => {
-    const strict = createRoostHooks({ trackSettings: { survivalThreshold: 0.9, splitThreshold: 0.5 } });
+  it('uses the given thresholds: with τ above the share kept (and no shrink rule), a shrunken hotspot ends and a new track starts', async () => {
+    const strict = createRoostHooks({ trackSettings: { survivalThreshold: 0.9, splitThreshold: 0.5, shrinkSurvival: false } });
     await store.ingest(DATASET.id, Y, KEEP); // 12 points
     await runOnce(store, DATASET.id, strict);
     for (const r of Y.slice(8)) await store.deleteObservation(DATASET.id, r.id); // 8 of 12 stay: overlap 0.67
@@ -110,5 +110,25 @@ describe('track assignment on stored runs', () => {
     expect(changes(r2).counts).toEqual({ emergence: 1, survival: 0, split: 0, absorption: 0, disappearance: 1 });
     expect(await tracks(r2.id)).toEqual(['t000002']);
     await strict.close();
+  });
+
+  it('a hotspot that lost most of its members keeps its track when its remains gather in its place: a survival with a shrink', async () => {
+    await store.ingest(DATASET.id, [...X, ...Y], KEEP); // 9 and 12 points
+    const r1 = await runOnce(store, DATASET.id, hooks);
+    expect(await tracks(r1.id)).toEqual(['t000001', 't000002']);
+    // 9 of Y's 12 retracted; its first column (3 points) stays and 2 new sightings join it in Y's outline
+    for (const r of Y.slice(3)) await store.deleteObservation(DATASET.id, r.id);
+    await store.ingest(DATASET.id, grid('N', ORIGIN, 3010, 10, 1, 2), KEEP);
+    const r2 = await runOnce(store, DATASET.id, hooks);
+    const c = changes(r2);
+    expect(c.member_share).toBeCloseTo(12 / 21, 6); // members judge the run
+    expect(c.counts).toEqual({ emergence: 0, survival: 2, split: 0, absorption: 0, disappearance: 0 });
+    const shrunk = c.transitions.find((t) => t.from[0]?.track_id === 't000002')!;
+    expect(shrunk).toMatchObject({ kind: 'survival', shrink: true, overlap: [0.25], basis: 'members', to: [{ track_id: 't000002' }] });
+    expect(shrunk.change!.count_delta).toBe(-7);
+    expect(await tracks(r2.id)).toEqual(['t000001', 't000002']);
+    // the changes between the two stored runs say the same
+    const again = await compareStoredRuns(store, r1.id, r2.id);
+    expect(again.transitions).toEqual(c.transitions);
   });
 });

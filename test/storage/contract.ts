@@ -4,7 +4,7 @@
  * happens between processes or instances.
  */
 import { afterEach, beforeEach, describe, expect, it } from 'vitest';
-import type { NewDataset, ObservationRecord, Store } from '../../src/storage/store.js';
+import type { NewDataset, ObservationRecord, Store, TrackSummary } from '../../src/storage/store.js';
 import { StoreError } from '../../src/storage/store.js';
 import { DAY_MS, T0, fromText, propertyMatches, record, seededRecords } from './fixtures.js';
 
@@ -507,6 +507,10 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         await store.saveRunResult(r2.id, { layers, hotspots: [{ hotspotId: 0, trackId: 't1', members: ['a', 'b'], coreMembers: ['a'], hull }] });
         for (const l of ['hotspots', 'centres', 'noise', 'points'] as const) expect(await store.getRunLayer(r1.id, l)).toBe(layers[l]);
         expect(await store.getRunHotspots(r1.id)).toEqual([hotspots[1], hotspots[0]]);
+        // a track's history is made of succeeded runs only
+        expect(await store.getTrack('herons', 't1')).toEqual([]);
+        await store.updateRun(r1.id, { status: 'succeeded' });
+        await store.updateRun(r2.id, { status: 'succeeded' });
         expect(await store.getTrack('herons', 't1')).toEqual([
           { runId: r1.id, hotspotId: 1, memberCount: 3, hull, figures: { area_km2: 1.5 } },
           { runId: r2.id, hotspotId: 0, memberCount: 2, hull, figures: null },
@@ -517,6 +521,62 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         await rejects(store.saveRunResult('r999999', { layers, hotspots: [] }), 'not-found');
         await rejects(store.saveRunResult(r1.id, { layers: { ...layers, noise: [] }, hotspots: [] }), 'invalid');
         await rejects(store.saveRunResult(r1.id, { layers: { ...layers, noise: 7 as unknown as string }, hotspots: [] }), 'invalid');
+      });
+
+      it('list a dataset\'s tracks in track id order with paging, the active ones and the ended ones', async () => {
+        const hull = '{"type":"Polygon","coordinates":[[[0,0],[1,0],[0,1],[0,0]]]}';
+        const layers = { hotspots: '{}', centres: '{}', noise: '{}', points: '{}' };
+        const spot = (hotspotId: number, trackId: string | null, n: number, figures: Record<string, unknown> | null = null) => ({
+          hotspotId, trackId, members: Array.from({ length: n }, (_, k) => `${hotspotId}-${k}`), coreMembers: [], hull, figures,
+        });
+        const finished = async (datasetId: string, status: 'succeeded' | 'cancelled', hotspots: ReturnType<typeof spot>[]) => {
+          const run = await store.createRun({ datasetId, settings: {}, trigger: 'schedule' });
+          await store.saveRunResult(run.id, { layers, hotspots });
+          return store.updateRun(run.id, { status, finishedAt: '2026-05-02T02:00:05.000Z' });
+        };
+        expect(await store.listTracks('herons', { limit: 10 })).toEqual({ tracks: [], nextCursor: null });
+        const r1 = await finished('herons', 'succeeded', [spot(1, 't000001', 4), spot(2, 't000002', 6), spot(3, 't000010', 5), spot(4, null, 3)]);
+        await finished('other', 'succeeded', [spot(1, 't000001', 9), spot(2, 't000003', 9)]);
+        const r3 = await finished('herons', 'succeeded', [spot(1, 't000010', 7), spot(2, 't000001', 5, { count: 5, area_km2: 0.25 }), spot(3, 't1000000', 8)]);
+        // a run cancelled after saving its result, and a run still queued, add nothing
+        await finished('herons', 'cancelled', [spot(1, 't000002', 6), spot(2, 't000099', 4)]);
+        await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+
+        const seen: TrackSummary[] = [];
+        let cursor: string | undefined;
+        for (let guard = 0; guard < 10; guard++) {
+          const page = await store.listTracks('herons', { limit: 3, cursor });
+          expect(page.tracks.length).toBeLessThanOrEqual(3);
+          seen.push(...page.tracks);
+          if (page.nextCursor === null) break;
+          cursor = page.nextCursor;
+        }
+        // shorter ids first: t000010 before t1000000, which a plain text order would reverse
+        expect(seen.map((t) => t.trackId)).toEqual(['t000001', 't000002', 't000010', 't1000000']);
+        const ref = (r: typeof r1) => ({ id: r.id, createdAt: r.createdAt, finishedAt: '2026-05-02T02:00:05.000Z' });
+        expect(seen[0]).toEqual({ trackId: 't000001', runCount: 2, firstRun: ref(r1), lastRun: ref(r3), active: true, hotspotId: 2, memberCount: 5, figures: { count: 5, area_km2: 0.25 } });
+        expect(seen[1]).toEqual({ trackId: 't000002', runCount: 1, firstRun: ref(r1), lastRun: ref(r1), active: false, hotspotId: 2, memberCount: 6, figures: null });
+        expect(seen[2]).toMatchObject({ trackId: 't000010', runCount: 2, active: true, hotspotId: 1, memberCount: 7 });
+        expect(seen[3]).toMatchObject({ trackId: 't1000000', runCount: 1, firstRun: ref(r3), active: true, hotspotId: 3 });
+        expect((await store.getTrack('herons', 't000002')).map((p) => p.runId)).toEqual([r1.id]);
+
+        const active = await store.listTracks('herons', { limit: 10, active: true });
+        expect(active.tracks.map((t) => t.trackId)).toEqual(['t000001', 't000010', 't1000000']);
+        expect((await store.listTracks('herons', { limit: 10, active: false })).tracks.map((t) => t.trackId)).toEqual(['t000002']);
+        const first = await store.listTracks('herons', { limit: 1, active: true });
+        expect((await store.listTracks('herons', { limit: 5, active: true, cursor: first.nextCursor! })).tracks.map((t) => t.trackId)).toEqual(['t000010', 't1000000']);
+        // a track given out after a page was read comes on a later page, none is repeated or skipped
+        const page1 = await store.listTracks('herons', { limit: 2 });
+        await finished('herons', 'succeeded', [spot(1, 't000011', 4)]);
+        const page2 = await store.listTracks('herons', { limit: 10, cursor: page1.nextCursor! });
+        expect(page2.tracks.map((t) => [t.trackId, t.active])).toEqual([['t000010', false], ['t000011', true], ['t1000000', false]]);
+
+        expect((await store.listTracks('other', { limit: 10 })).tracks.map((t) => t.trackId)).toEqual(['t000001', 't000003']);
+        expect(await store.listTracks('nope', { limit: 10 })).toEqual({ tracks: [], nextCursor: null });
+        await rejects(store.listTracks('herons', { limit: 0 }), 'invalid');
+        await rejects(store.listTracks('herons', { limit: 1001 }), 'invalid');
+        await rejects(store.listTracks('herons', { limit: 5, cursor: 'not-a-cursor' }), 'invalid');
+        await rejects(store.listTracks('herons', { limit: 5, cursor: Buffer.from('{"t":"a\\u0000"}').toString('base64url') }), 'invalid');
       });
 
       it('keep large layers in pieces, given whole or in pieces, and hand them out piece by piece', async () => {

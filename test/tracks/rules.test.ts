@@ -19,8 +19,9 @@ describe('thresholds at their boundaries', () => {
     expect(kinds(at)).toEqual(['survival']);
     expect(at.transitions[0].overlap).toEqual([0.5]);
     expect(trackOf(at, 1)).toBe('tA');
-    // Members only: 4 of 10 is below τ.
-    const below = matchRuns(prev, [spot(1, ids('a', 1, 4), BOX_A)], { hullOverlapFallback: false });
+    // Members only: 4 of 10 is below τ (without the shrink rule, which would keep the track of a
+    // smaller hotspot in the same place; see 'a survival with a shrink' below).
+    const below = matchRuns(prev, [spot(1, ids('a', 1, 4), BOX_A)], { hullOverlapFallback: false, shrinkSurvival: false });
     expect(kinds(below)).toEqual(['disappearance', 'emergence']);
     expect(trackOf(below, 1)).not.toBe('tA');
     // With the defaults, 4 of 10 is also the whole run's member share (0.4 < 0.5): the hulls decide,
@@ -32,7 +33,7 @@ describe('thresholds at their boundaries', () => {
 
   it('a custom τ = 0.3 is met by 3 of 10 members', () => {
     const prev = [spot(1, ids('a', 1, 10), BOX_A, 'tA')];
-    const settings = { survivalThreshold: 0.3, splitThreshold: 0.1, hullOverlapFallback: false };
+    const settings = { survivalThreshold: 0.3, splitThreshold: 0.1, hullOverlapFallback: false, shrinkSurvival: false };
     expect(kinds(matchRuns(prev, [spot(1, ids('a', 1, 3), BOX_A)], settings))).toEqual(['survival']);
     expect(kinds(matchRuns(prev, [spot(1, ids('a', 1, 2), BOX_A)], settings))).toEqual(['disappearance', 'emergence']);
   });
@@ -153,6 +154,81 @@ describe('hull overlap when membership changed', () => {
   });
 });
 
+describe('a survival with a shrink', () => {
+  // A hotspot that stays put in every case, so that the run as a whole keeps most of its members
+  // (member share ≥ 0.5) and member overlap, not hull overlap, judges the shrinking one.
+  const STAY = (track: string | null): RunHotspot => spot(9, ids('z', 1, 10), far(5), track);
+  const INNER: [number, number, number, number] = [10.005, 50.002, 10.012, 50.007]; // inside BOX_A
+
+  it('a hotspot of 8 that lost 6 members and keeps 2 in a smaller hotspot in its place survives, with shrink', () => {
+    const prev = [spot(1, ids('a', 1, 8), BOX_A, 'tA'), STAY('tZ')];
+    const cur = [spot(1, [...ids('a', 1, 2), ...ids('n', 1, 2)], INNER), STAY(null)];
+    const r = matchRuns(prev, cur);
+    expect(r.memberShare).toBe(12 / 18);
+    expect(kinds(r)).toEqual(['survival', 'survival']);
+    const t = r.transitions[0];
+    expect(t).toMatchObject({ from: [{ hotspotId: 1, trackId: 'tA' }], to: [{ hotspotId: 1, trackId: 'tA' }], overlap: [0.25], basis: 'members', shrink: true });
+    expect(t.change!.countDelta).toBe(-4);
+    expect(t.change!.areaDeltaKm2).toBeLessThan(0);
+    expect(r.transitions[1].shrink).toBeUndefined(); // a survival by overlap says nothing of the kind
+    expect(trackOf(r, 1)).toBe('tA');
+    // the rule switched off: the disappearance and the emergence it replaces
+    const off = matchRuns(prev, cur, { shrinkSurvival: false });
+    expect(kinds(off)).toEqual(['disappearance', 'survival', 'emergence']);
+    expect(trackOf(off, 1)).not.toBe('tA');
+  });
+
+  it('not when the new hotspot is elsewhere, is not smaller, or lies mostly outside the old outline', () => {
+    const prev = [spot(1, ids('a', 1, 8), BOX_A, 'tA'), STAY('tZ')];
+    const elsewhere = matchRuns(prev, [spot(1, ids('a', 1, 2), far(0)), STAY(null)]);
+    expect(kinds(elsewhere)).toEqual(['disappearance', 'survival', 'emergence']);
+    const larger = matchRuns(prev, [spot(1, [...ids('a', 1, 2), ...ids('n', 1, 6)], INNER), STAY(null)]);
+    expect(kinds(larger)).toEqual(['disappearance', 'survival', 'emergence']);
+    // 10.015–10.035 E: a quarter of its area lies in BOX_A (10.00–10.02 E), below τ
+    const offset = matchRuns(prev, [spot(1, ids('a', 1, 2), [10.015, 50.0, 10.035, 50.01]), STAY(null)]);
+    expect(kinds(offset)).toEqual(['disappearance', 'survival', 'emergence']);
+    // 10.01–10.03 E: half of it lies in BOX_A, which reaches τ
+    const half = matchRuns(prev, [spot(1, ids('a', 1, 2), [10.01, 50.0, 10.03, 50.01]), STAY(null)]);
+    expect(kinds(half)).toEqual(['survival', 'survival']);
+    expect(half.transitions[0].shrink).toBe(true);
+  });
+
+  it('not when most of what stayed clustered went elsewhere, nor when it went to two hotspots alike', () => {
+    const prev = [spot(1, ids('a', 1, 8), BOX_A, 'tA'), STAY('tZ')];
+    // 1 of the 4 still clustered is in the place; 3 went to a hotspot far away (3/8 < τ, and no split)
+    const scattered = matchRuns(prev, [spot(1, ['a1'], INNER), spot(2, ids('a', 2, 4), far(1)), STAY(null)]);
+    expect(kinds(scattered)).toEqual(['disappearance', 'survival', 'emergence', 'emergence']);
+    // 1 and 1 in two small hotspots both inside the old outline: no single successor
+    const twins = matchRuns(prev, [spot(1, ['a1'], [10.001, 50.001, 10.004, 50.004]), spot(2, ['a2'], [10.015, 50.005, 10.018, 50.008]), STAY(null)]);
+    expect(kinds(twins)).toEqual(['disappearance', 'survival', 'emergence', 'emergence']);
+  });
+
+  it('by hulls (a sliding window shares no ids): a small hotspot inside the old outline continues it', () => {
+    const prev = [spot(1, ids('o', 1, 10), BOX_A, 'tA')];
+    const cur = [spot(1, ids('p', 1, 4), INNER)];
+    const r = matchRuns(prev, cur);
+    expect(r.memberShare).toBe(0);
+    expect(kinds(r)).toEqual(['survival']);
+    expect(r.transitions[0]).toMatchObject({ basis: 'hull', shrink: true });
+    // source (expected value): area of a latitude–longitude rectangle on a sphere; Δλ 0.007° of 0.02°
+    const latShare = (Math.sin(50.007 * RAD) - Math.sin(50.002 * RAD)) / (Math.sin(50.01 * RAD) - Math.sin(50.0 * RAD));
+    expect(r.transitions[0].overlap[0]).toBeCloseTo((0.007 / 0.02) * latShare, 9);
+    expect(kinds(matchRuns(prev, cur, { shrinkSurvival: false }))).toEqual(['disappearance', 'emergence']);
+  });
+
+  it('two old hotspots wanting the same new one: the one sharing more members has it', () => {
+    const prev = [spot(1, ids('a', 1, 8), BOX_A, 'tA'), spot(2, ids('b', 1, 8), BOX_A, 'tB'), STAY('tZ'), spot(8, ids('y', 1, 10), far(6), 'tY')];
+    const cur = [spot(1, [...ids('a', 1, 3), 'b1'], INNER), STAY(null), spot(8, ids('y', 1, 10), far(6))];
+    const r = matchRuns(prev, cur);
+    expect(r.transitions.map((t) => [t.kind, t.from.map((f) => f.trackId).join(), t.shrink ?? false])).toEqual([
+      ['survival', 'tA', true],
+      ['disappearance', 'tB', false],
+      ['survival', 'tY', false],
+      ['survival', 'tZ', false],
+    ]);
+  });
+});
+
 describe('track ids', () => {
   it('formats t + six digits', () => {
     expect(formatTrackId(42)).toBe('t000042');
@@ -221,7 +297,8 @@ describe('bad input is refused with a message that says what to do', () => {
     expect(() => matchRuns([], [], { minMemberOverlapShare: 1.5 })).toThrow(/minMemberOverlapShare/);
     expect(() => matchRuns([], [], { threshold: 0.5 } as never)).toThrow(/Unknown track setting threshold/);
     expect(() => matchRuns([], [], { hullOverlapFallback: 'yes' } as never)).toThrow(/true or false/);
-    expect(DEFAULT_TRACK_SETTINGS).toMatchObject({ survivalThreshold: 0.5, splitThreshold: 0.25, hullOverlapFallback: true, minMemberOverlapShare: 0.5 });
+    expect(() => matchRuns([], [], { shrinkSurvival: 1 } as never)).toThrow(/shrinkSurvival must be true or false/);
+    expect(DEFAULT_TRACK_SETTINGS).toMatchObject({ survivalThreshold: 0.5, splitThreshold: 0.25, hullOverlapFallback: true, minMemberOverlapShare: 0.5, shrinkSurvival: true });
   });
 
   it('hotspots', () => {

@@ -9,15 +9,20 @@
  * default pair they are what the later run recorded in its summary, and any two runs can be
  * compared; track ids are those the runs were stored with.
  *
+ * GET /v1/datasets/{id}/tracks: the dataset's tracks, a page at a time (`limit`, `cursor`), in the
+ * order they were given out, each with its first and last run and its hotspot's figures in the
+ * last; `active=true` keeps those in the latest succeeded run, `active=false` those that ended.
+ *
  * GET /v1/datasets/{id}/tracks/{track}: one entry per run the track was seen in, oldest first.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { bboxOf, featureCollectionString, featureString, type GeometryLike } from '../../geometry/geojson.js';
 import { compareStoredRuns, type TransitionJson } from '../../jobs/tracking.js';
-import type { Run, RunHotspot } from '../../storage/store.js';
+import { StoreError, type Run, type RunHotspot, type TrackRunRef } from '../../storage/store.js';
 import { resolveTrackSettings, type TrackSettings } from '../../tracks/settings.js';
+import { sendTagged } from '../conditional.js';
 import { HttpProblem } from '../errors.js';
-import { requireDataset, requireRun } from './common.js';
+import { integer, requireDataset, requireRun } from './common.js';
 
 export interface ChangeRouteOptions {
   /** thresholds used to compare runs; default DEFAULT_TRACK_SETTINGS (keep equal to the run hooks') */
@@ -58,7 +63,20 @@ function runRef(r: Run): Record<string, unknown> {
   return { id: r.id, created_at: r.createdAt, finished_at: r.finishedAt, trigger: r.trigger };
 }
 
-/** Adds GET /v1/datasets/{id}/changes and GET /v1/datasets/{id}/tracks/{track}. Throws a RangeError for bad track settings. */
+function trackRunRef(r: TrackRunRef): Record<string, unknown> {
+  return { id: r.id, created_at: r.createdAt, finished_at: r.finishedAt };
+}
+
+/** `active`: absent (all tracks), true or false. */
+function activeParam(query: Record<string, unknown>): boolean | undefined {
+  const v = query['active'];
+  if (v === undefined || v === '') return undefined;
+  if (v === 'true') return true;
+  if (v === 'false') return false;
+  throw new HttpProblem('invalid-parameter', `active must be true or false, got ${JSON.stringify(v)}`, { parameter: 'active' });
+}
+
+/** Adds GET /v1/datasets/{id}/changes, GET /v1/datasets/{id}/tracks and GET /v1/datasets/{id}/tracks/{track}. Throws a RangeError for bad track settings. */
 export default async function changeRoutes(app: FastifyInstance, options: ChangeRouteOptions): Promise<void> {
   const { store } = app;
   const settings = resolveTrackSettings(options.trackSettings);
@@ -114,7 +132,7 @@ export default async function changeRoutes(app: FastifyInstance, options: Change
         to: runRef(to),
         counts: c.counts,
         member_share: c.memberShare,
-        track_settings: { survival_threshold: settings.survivalThreshold, split_threshold: settings.splitThreshold, hull_overlap_fallback: settings.hullOverlapFallback, min_member_overlap_share: settings.minMemberOverlapShare },
+        track_settings: { survival_threshold: settings.survivalThreshold, split_threshold: settings.splitThreshold, hull_overlap_fallback: settings.hullOverlapFallback, min_member_overlap_share: settings.minMemberOverlapShare, shrink_survival: settings.shrinkSurvival },
         transitions: c.transitions.map((t) => withFigures(t, fromById, toById)),
         links: { from: `${base}/runs/${from.id}`, to: `${base}/runs/${to.id}`, geojson: `${base}/changes?from=${from.id}&to=${to.id}&format=geojson` },
       };
@@ -146,11 +164,60 @@ export default async function changeRoutes(app: FastifyInstance, options: Change
         if (t.kind === 'split') extra['overlap'] = t.overlap[k];
         else if (t.kind !== 'emergence') extra['overlap'] = t.overlap;
         if (t.change) Object.assign(extra, t.change);
+        if (t.shrink) extra['shrink'] = true;
         add(toById.get(e.hotspot_id)!, to, t, extra);
       });
     }
     const text = featureCollectionString(features, bboxOf(geometries), { dataset: dataset.id, from_run: from.id, to_run: to.id, counts: c.counts });
     return reply.type(GEOJSON).send(text);
+  });
+
+  app.get<{ Params: { id: string } }>('/v1/datasets/:id/tracks', async (request, reply) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    only(query, ['limit', 'cursor', 'active']);
+    const dataset = await requireDataset(store, request.params.id);
+    const limit = integer(query, 'limit', 100, 1, 1000);
+    const active = activeParam(query);
+    const cursor = query['cursor'];
+    if (cursor !== undefined && typeof cursor !== 'string') throw new HttpProblem('invalid-parameter', 'cursor must be given once, as the next link gives it', { parameter: 'cursor' });
+    let page;
+    try {
+      page = await store.listTracks(dataset.id, { limit, cursor, active });
+    } catch (err) {
+      if (err instanceof StoreError && err.code === 'invalid') throw new HttpProblem('invalid-parameter', err.message, { parameter: 'cursor' });
+      throw err;
+    }
+    const latest = await store.latestRun(dataset.id);
+    const base = `/v1/datasets/${dataset.id}`;
+    let next: string | null = null;
+    if (page.nextCursor !== null) {
+      const q = new URLSearchParams({ limit: String(limit) });
+      if (active !== undefined) q.set('active', String(active));
+      q.set('cursor', page.nextCursor);
+      next = `${base}/tracks?${q.toString()}`;
+    }
+    const body = {
+      dataset: dataset.id,
+      latest_run: latest?.id ?? null,
+      tracks: page.tracks.map((t) => {
+        const f = t.figures ?? {};
+        return {
+          track_id: t.trackId,
+          active: t.active,
+          runs: t.runCount,
+          first_run: trackRunRef(t.firstRun),
+          last_run: trackRunRef(t.lastRun),
+          hotspot_id: t.hotspotId,
+          count: f['count'] ?? t.memberCount,
+          area_km2: f['area_km2'] ?? null,
+          density_per_km2: f['density_per_km2'] ?? null,
+          centre: f['centre'] ?? null,
+          history: `${base}/tracks/${encodeURIComponent(t.trackId)}`,
+        };
+      }),
+      next,
+    };
+    return sendTagged(request, reply, 'application/json; charset=utf-8', JSON.stringify(body));
   });
 
   app.get<{ Params: { id: string; track: string } }>('/v1/datasets/:id/tracks/:track', async (request) => {
