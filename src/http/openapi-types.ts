@@ -363,6 +363,29 @@ export interface paths {
         patch?: never;
         trace?: never;
     };
+    "/v1/datasets/{id}/tracks": {
+        parameters: {
+            query?: never;
+            header?: never;
+            path?: never;
+            cookie?: never;
+        };
+        /**
+         * The dataset's tracks, a page at a time
+         * @description Every track a succeeded run of the dataset gave a hotspot, in the order the tracks were
+         *     given out (by track id, shorter ids first), with the first and the last run it was seen
+         *     in and its hotspot's figures in the last. Tracks given out after a page was read come on
+         *     later pages; none is repeated or skipped. Follow `next` for the following page.
+         */
+        get: operations["listTracks"];
+        put?: never;
+        post?: never;
+        delete?: never;
+        options?: never;
+        head?: never;
+        patch?: never;
+        trace?: never;
+    };
     "/v1/datasets/{id}/tracks/{track}": {
         parameters: {
             query?: never;
@@ -1165,6 +1188,11 @@ export interface components {
             /** @description Split only: share of the old hotspot covered by all parts. */
             covered?: number;
             change?: components["schemas"]["SurvivalChange"];
+            /**
+             * @description Survival only: present when the shrink rule judged it (the hotspot lost more than it kept, and its remains gather in one smaller hotspot in its place); `overlap` is then below the survival threshold.
+             * @constant
+             */
+            shrink?: true;
         };
         RunRef: {
             id: string;
@@ -1195,6 +1223,38 @@ export interface components {
             links: {
                 [key: string]: string;
             };
+        };
+        /** @description A run named in a track listing. */
+        TrackRun: {
+            id: string;
+            /** Format: date-time */
+            created_at: string;
+            /** Format: date-time */
+            finished_at: string | null;
+        };
+        TrackList: {
+            dataset: string;
+            /** @description The latest succeeded run, whose tracks are the active ones; null before the first. */
+            latest_run: string | null;
+            tracks: {
+                track_id: string;
+                /** @description Whether the latest succeeded run still has this track. */
+                active: boolean;
+                /** @description Succeeded runs that have a hotspot on this track. */
+                runs: number;
+                first_run: components["schemas"]["TrackRun"];
+                last_run: components["schemas"]["TrackRun"];
+                /** @description The track's hotspot in its last run. */
+                hotspot_id: number;
+                /** @description Observations in that hotspot. */
+                count: number;
+                area_km2: number | null;
+                density_per_km2: number | null;
+                centre: components["schemas"]["Position"] | null;
+                /** @description The track's history, run by run. */
+                history: string;
+            }[];
+            next: string | null;
         };
         Track: {
             dataset: string;
@@ -3107,6 +3167,44 @@ export interface operations {
                 };
             };
             409: components["responses"]["RunNotReady"];
+            421: components["responses"]["HostNotAllowed"];
+            429: components["responses"]["TooManyRequests"];
+            500: components["responses"]["InternalError"];
+        };
+    };
+    listTracks: {
+        parameters: {
+            query?: {
+                /** @description `true`: only the tracks in the latest succeeded run; `false`: only the tracks that ended. Absent: all. */
+                active?: "true" | "false";
+                limit?: number;
+                /** @description From the previous page's `next` link. */
+                cursor?: string;
+            };
+            header?: never;
+            path: {
+                /** @description The dataset's id. */
+                id: components["parameters"]["datasetId"];
+            };
+            cookie?: never;
+        };
+        requestBody?: never;
+        responses: {
+            /** @description One page of tracks; `next` is the following page, or null. */
+            200: {
+                headers: {
+                    ETag: components["headers"]["ETag"];
+                    [name: string]: unknown;
+                };
+                content: {
+                    "application/json": components["schemas"]["TrackList"];
+                };
+            };
+            304: components["responses"]["NotModified"];
+            400: components["responses"]["BadRequest"];
+            401: components["responses"]["Unauthorized"];
+            403: components["responses"]["Forbidden"];
+            404: components["responses"]["DatasetNotFound"];
             421: components["responses"]["HostNotAllowed"];
             429: components["responses"]["TooManyRequests"];
             500: components["responses"]["InternalError"];

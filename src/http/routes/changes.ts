@@ -22,7 +22,7 @@ import { StoreError, type Run, type RunHotspot, type TrackRunRef } from '../../s
 import { resolveTrackSettings, type TrackSettings } from '../../tracks/settings.js';
 import { sendTagged } from '../conditional.js';
 import { HttpProblem } from '../errors.js';
-import { integer, requireDataset, requireRun } from './common.js';
+import { requireDataset, requireRun } from './common.js';
 
 export interface ChangeRouteOptions {
   /** thresholds used to compare runs; default DEFAULT_TRACK_SETTINGS (keep equal to the run hooks') */
@@ -174,9 +174,8 @@ export default async function changeRoutes(app: FastifyInstance, options: Change
 
   app.get<{ Params: { id: string } }>('/v1/datasets/:id/tracks', async (request, reply) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
-    only(query, ['limit', 'cursor', 'active']);
     const dataset = await requireDataset(store, request.params.id);
-    const limit = integer(query, 'limit', 100, 1, 1000);
+    const limit = (query.limit as number | undefined) ?? 100;
     const active = activeParam(query);
     const cursor = query['cursor'];
     if (cursor !== undefined && typeof cursor !== 'string') throw new HttpProblem('invalid-parameter', 'cursor must be given once, as the next link gives it', { parameter: 'cursor' });
