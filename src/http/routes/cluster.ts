@@ -6,7 +6,7 @@
  * has arrived (src/http/plugins/pools.ts), and a client that goes away ends its work at once.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
-import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
+import type { LayerName } from '../../run/layers.js';
 import { resolveSettings, SettingsError } from '../../run/settings.js';
 import { sweepRequest } from '../../run/sweep.js';
 import { SweepError } from '../../trust/sweep.js';
@@ -19,13 +19,13 @@ import type { WorkResult, WorkTask } from '../work.js';
 
 export type ClusterRouteOptions = Pick<ServerConfig, 'timeLimitMs' | 'retryAfterS'>;
 
-/** Splits the query string into the service's own `layer` and the clustering settings. */
-function readQuery(request: FastifyRequest, op: WorkTask['op']): { layer: LayerName | null; settings: Record<string, unknown> } {
+/**
+ * Splits the query string into the service's own `layer` (/v1/cluster only; the route schema has
+ * checked it) and the clustering settings.
+ */
+function readQuery(request: FastifyRequest): { layer: LayerName | null; settings: Record<string, unknown> } {
   const { layer, ...settings } = (request.query ?? {}) as Record<string, unknown>;
-  if (layer === undefined) return { layer: null, settings };
-  if (op !== 'cluster') throw new HttpProblem('invalid-parameter', '"layer" applies to /v1/cluster only', { parameter: 'layer' });
-  if (!isLayerName(layer)) throw new HttpProblem('invalid-parameter', `"layer" must be one of ${LAYER_NAMES.join(', ')}`, { parameter: 'layer' });
-  return { layer, settings };
+  return { layer: (layer as LayerName | undefined) ?? null, settings };
 }
 
 /**
@@ -97,7 +97,7 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
       throw new HttpProblem('malformed-body', 'The request body is empty; send a GeoJSON FeatureCollection, CSV, or GeoJSON text sequence.');
     }
     const format = formatOf(request.headers['content-type'])!;
-    const { layer, settings } = readQuery(request, op);
+    const { layer, settings } = readQuery(request);
     const controller = new AbortController();
     const why = { clientGone: false, timedOut: false };
     const timer = setTimeout(() => {
@@ -121,7 +121,7 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
   };
 
   const heavy = (op: WorkTask['op']) => ({
-    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request, op).settings, op)],
+    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request).settings, op)],
     preHandler: admission.admit,
     onResponse: admission.release,
     onRequestAbort: admission.release,
