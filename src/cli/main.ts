@@ -3,6 +3,7 @@
  *
  *   roost cluster <input> --eps <metres> --min-points <n> --out-dir <dir> [options]
  *   roost suggest-eps <input> --min-points <n>
+ *   roost sweep <input> --eps <list> --min-points <list>
  *   roost serve [options]
  *   roost keys create|list|revoke
  */
@@ -16,6 +17,8 @@ import { assess, clusterCases, type EffortPoints } from '../trust/assess.js';
 import { resolveTrustSettings, type TrustSettings } from '../trust/options.js';
 import { readStudyArea, type StudyArea } from '../trust/study-area.js';
 import { defaultThreads } from '../trust/trials.js';
+import { sweepInput, sweepTable } from '../run/sweep.js';
+import { sweepGrid, SweepError } from '../trust/sweep.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { resolveSettings, SettingsError, type ClusterSettings } from '../run/settings.js';
 import { publishedSummary, publishLayerTexts, PublishError, resolvePublishOptions, type PublishOptions } from '../publish/publish.js';
@@ -77,6 +80,8 @@ function settingsFromFlags(opts: Record<string, unknown>): Record<string, unknow
     lat_column: opts.latColumn,
     time_column: opts.timeColumn,
     time_format: opts.timeFormat,
+    reference: opts.reference,
+    validation: opts.validation,
   };
 }
 
@@ -91,7 +96,7 @@ function fail(err: unknown): number {
     process.stderr.write('roost: nothing was written\n');
     return EXIT.input;
   }
-  if (err instanceof SettingsError || err instanceof PublishError) {
+  if (err instanceof SettingsError || err instanceof PublishError || err instanceof SweepError) {
     process.stderr.write(`roost: ${err.message}\nroost: nothing was written\n`);
     return EXIT.usage;
   }
@@ -230,6 +235,8 @@ export function buildProgram(setExit: (code: number) => void): Command {
     .addOption(new Option('--optics-extraction <how>', 'OPTICS: cut hotspots at eps or by the ξ method').choices(['eps', 'xi']))
     .option('--xi <x>', 'OPTICS ξ: relative reachability drop bounding a hotspot (default 0.05)')
     .option('--min-cluster-size <n>', 'OPTICS ξ: fewest observations in a hotspot (default: larger of min-points and 0.5 % of observations)')
+    .option('--reference <property>', 'score hotspots against the known groups in this property (purity, adjusted Rand index, NMI) and give each its majority value')
+    .option('--validation', 'add the silhouette and DBCV of the result to the summary (on a seeded sample of 2000 observations above that many)')
     .option('--simulations <n>', 'Monte Carlo test: simulations under the null model, giving each hotspot a p_value (99 when --null is given alone)')
     .option('--seed <n>', 'seed of the simulations and resamples: the same seed gives the same p-values and stabilities (default 1)')
     .addOption(new Option('--null <model>', 'null model of the test: csr (uniform in the study area) or effort (random labelling over cases and effort points)').choices(['csr', 'effort']))
@@ -255,6 +262,7 @@ Examples:
   roost cluster cases.geojson --eps 400 --null effort --effort visits.geojson --out-dir tested
   roost cluster cases.geojson --eps 500 --min-points 5 --generalise-m 500 --min-count 10 --withhold-noise --out-dir public
   cat sightings.geojson | roost cluster - --eps auto --hull concave --count-by species --out-dir result
+  roost cluster nests.geojson --eps 200 --validation --reference colony --out-dir scored
 
 Results are patterns, not causes; hotspots can mirror where observers went. See the README.`,
     )
@@ -350,6 +358,59 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
           const lines = ['rank\tmetres'];
           for (let i = 0; i < curve.rank.length; i++) lines.push(`${curve.rank[i]}\t${curve.meters[i]}`);
           process.stdout.write(lines.join('\n') + '\n');
+        }
+        setExit(EXIT.ok);
+      } catch (err) {
+        setExit(fail(err));
+      }
+    });
+
+  program
+    .command('sweep')
+    .description('cluster at every eps × min_points pair (DBSCAN) and print hotspots, noise share and the adjusted Rand index between neighbouring settings')
+    .argument('<input>', 'GeoJSON, CSV or GeoJSON text sequence file, or - for stdin')
+    .requiredOption('--eps <list>', 'eps values in metres: a list (100,150,250) or a range start:stop:step (100:300:50)')
+    .requiredOption('--min-points <list>', 'min_points values: a list (3,5,10) or a range (3:12:3)')
+    .addOption(new Option('--format <format>', 'input format (default: from the file name, else sniffed)').choices(['geojson', 'csv', 'geojson-seq']))
+    .option('--weight <property>', 'numeric property holding each observation\'s weight (e.g. animals seen)')
+    .option('--since <time>', 'keep observations observed at or after this RFC 3339 time')
+    .option('--until <time>', 'keep observations observed before this RFC 3339 time')
+    .option('--where <property=value>', 'keep observations whose property equals value (repeatable)', collect)
+    .option('--lon-column <name>', 'CSV longitude column (default: found by common names)')
+    .option('--lat-column <name>', 'CSV latitude column (default: found by common names)')
+    .option('--time-column <name>', 'property (CSV column) holding each observation\'s time (default: observed_at)')
+    .option('--time-format <pattern>', 'how that time is written, e.g. DD.MM.YYYY (default: RFC 3339)')
+    .option('--json', 'print the whole answer as JSON')
+    .option('--progress', 'report progress on stderr even when it is not a terminal')
+    .addHelpText(
+      'after',
+      `
+Examples:
+  roost sweep sightings.geojson --eps 100:300:50 --min-points 3,5,10
+  roost sweep counts.csv --eps 150,250,400 --min-points 5:20:5 --weight birds --json
+
+At most 20 values per axis and 100 settings in all.`,
+    )
+    .action(async (input: string, opts: Record<string, unknown>) => {
+      try {
+        const grid = sweepGrid(opts.eps, opts.minPoints);
+        const settings = resolveSettings({ ...settingsFromFlags({ ...opts, eps: undefined, minPoints: undefined }), eps: 'auto' });
+        const data = await readInput(input);
+        const total = grid.epsMeters.length * grid.minPoints.length;
+        const show = Boolean(opts.progress) || process.stderr.isTTY;
+        let last = 0;
+        const answer = sweepInput(data, formatFromPath(input, opts.format as string | undefined), settings, grid, {
+          onProgress: (done, all, at) => {
+            const now = Date.now();
+            if (!show || (done < all && now - last < 500)) return;
+            last = now;
+            process.stderr.write(`roost: sweep ${done}/${all} (eps ${at.epsMeters} m, min_points ${at.minPoints})\n`);
+          },
+        });
+        if (opts.json) process.stdout.write(JSON.stringify(answer, null, 2) + '\n');
+        else {
+          process.stdout.write(`sweep: ${String(answer.observations)} observations, DBSCAN at ${total} settings; ari_next_eps and ari_next_min_points compare each setting with the next one along that axis (noise as one group)\n`);
+          process.stdout.write(sweepTable(answer));
         }
         setExit(EXIT.ok);
       } catch (err) {

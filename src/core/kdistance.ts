@@ -37,7 +37,7 @@ function seeded(seed: number): () => number {
 }
 
 /** `count` distinct ids out of 0..n-1 by a seeded partial Fisher–Yates shuffle, in ascending order. */
-function sampleIds(n: number, count: number, seed: number): Int32Array {
+export function sampleIds(n: number, count: number, seed: number): Int32Array {
   const ids = new Int32Array(n);
   for (let i = 0; i < n; i++) ids[i] = i;
   const rand = seeded(seed);

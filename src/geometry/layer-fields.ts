@@ -64,6 +64,21 @@ export function trustFieldsOf(hotspots: readonly Record<string, unknown>[]): Lay
   return TRUST_FIELDS.filter((f) => hotspots.some((h) => h[f.name] !== undefined && h[f.name] !== null));
 }
 
+/**
+ * Fields a run writes on every one of its hotspots when its settings ask for them, after the fixed
+ * fields and the trust fields, before the category counts: with `reference`, the hotspot's majority reference value
+ * and its share of the members that have a value (null when none has one).
+ */
+export const OPTIONAL_HOTSPOT_FIELDS: readonly LayerField[] = [
+  { name: 'reference_majority', type: 'string', nullable: true, description: "the most frequent value of the reference property among the members (ties: the first in code-unit order)" },
+  { name: 'reference_share', type: 'real', nullable: true, description: 'share of the members with a reference value that have the majority value, 0–1' },
+];
+
+/** The optional fields a run's hotspots carry (those present on any of them), in their fixed order. */
+export function optionalFieldsOf(hotspots: readonly Record<string, unknown>[]): LayerField[] {
+  return OPTIONAL_HOTSPOT_FIELDS.filter((f) => hotspots.some((h) => Object.hasOwn(h, f.name)));
+}
+
 /** Prefix of the per-category count fields. */
 export const CATEGORY_FIELD_PREFIX = 'count_';
 
@@ -104,11 +119,12 @@ export function categoryNames(hotspots: readonly Record<string, unknown>[]): str
   return [...names].sort();
 }
 
-/** The fields of a run's hotspots and centres layers: the fixed ones, the trust fields it has, then one count per category. */
-export function hotspotLayerFields(categories: readonly string[], trust: readonly LayerField[] = []): LayerField[] {
+/** The fields of a run's hotspots and centres layers: the fixed ones, the trust fields it has, the optional ones asked for, then one count per category. */
+export function hotspotLayerFields(categories: readonly string[], trust: readonly LayerField[] = [], optional: readonly LayerField[] = []): LayerField[] {
   return [
     ...HOTSPOT_FIELDS,
     ...trust,
+    ...optional,
     ...categories.map((c): LayerField => ({ name: CATEGORY_FIELD_PREFIX + c, type: 'integer', nullable: false, description: `members whose count_by property is ${JSON.stringify(c)}` })),
   ];
 }
@@ -128,6 +144,7 @@ export function hotspotPropertiesText(props: Record<string, unknown>, categories
   for (const field of TRUST_FIELDS) {
     if (flat[field.name] !== undefined && flat[field.name] !== null) s += ',' + JSON.stringify(field.name) + ':' + valueText(field, flat[field.name]);
   }
+  for (const field of OPTIONAL_HOTSPOT_FIELDS) if (Object.hasOwn(props, field.name)) s += ',' + JSON.stringify(field.name) + ':' + valueText(field, props[field.name]);
   const counts = (props['categories'] ?? {}) as Record<string, number>;
   for (const c of categories) s += ',' + JSON.stringify(CATEGORY_FIELD_PREFIX + c) + ':' + String(Object.hasOwn(counts, c) ? counts[c] : 0);
   return s + '}';

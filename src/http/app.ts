@@ -18,6 +18,7 @@ import bodies from './plugins/bodies.js';
 import pools from './plugins/pools.js';
 import problems from './plugins/problems.js';
 import runQueue from './plugins/run-queue.js';
+import schemas from './plugins/schemas.js';
 import shutdown from './plugins/shutdown.js';
 import storePlugin from './plugins/store.js';
 import type { WorkPool } from './pool.js';
@@ -138,6 +139,7 @@ export async function buildApp(options: AppOptions = {}): Promise<FastifyInstanc
   await app.register(access);
   await app.register(audit);
   const { workers, queueSize, runConcurrency, retryAfterS } = config;
+  await app.register(schemas);
   await app.register(pools, { workers, queueSize, runConcurrency, retryAfterS, pool: options.pool });
   const { scheduleScanMs, scheduleMinIntervalS, runHeartbeatMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl } = config;
   await app.register(runQueue, { runConcurrency, scheduleScanMs, scheduleMinIntervalS, runHeartbeatMs, webhookAttempts, webhookTimeoutMs, allowPrivateWebhooks, publicUrl, hooks: options.hooks });

@@ -10,7 +10,7 @@ export type BodyFormat = 'geojson' | 'csv' | 'geojson-seq';
 
 
 export interface WorkTask {
-  op: 'cluster' | 'k-distance';
+  op: 'cluster' | 'k-distance' | 'sweep';
   /** the raw request body; its ArrayBuffer is transferred to the worker */
   body: Uint8Array;
   format: BodyFormat;

@@ -9,6 +9,8 @@ import { Piscina } from 'piscina';
 import { InputError } from '../ingest/types.js';
 import { resultDocument, suggestEpsInput } from '../run/cluster.js';
 import { resolveSettings, SettingsError } from '../run/settings.js';
+import { sweepInput, sweepRequest } from '../run/sweep.js';
+import { SweepError } from '../trust/sweep.js';
 import { assessHere, clusterCases } from '../trust/assess.js';
 import { resolveTrustSettings, splitTrustSettings } from '../trust/options.js';
 import { readStudyArea } from '../trust/study-area.js';
@@ -94,6 +96,10 @@ export default function work(task: WorkTask): WorkResult {
     // the query string wins over the body's settings member, parameter by parameter
     // k-distance is how eps is chosen, so it needs none
     const base = task.op === 'k-distance' ? { eps: 'auto' } : {};
+    if (task.op === 'sweep') {
+      const { grid, settings: sweepSettings } = sweepRequest({ ...fromBody.settings, ...task.query });
+      return done('application/json', JSON.stringify(sweepInput(body, task.format, sweepSettings, grid!)));
+    }
     if (task.op === 'k-distance') {
       const settings = resolveSettings({ ...base, ...fromBody.settings, ...task.query });
       return done('application/json', JSON.stringify(suggestEpsInput(body, task.format, settings)));
@@ -110,7 +116,7 @@ export default function work(task: WorkTask): WorkResult {
     if (task.layer === null) return done('application/json', resultDocument(result));
     return done('application/geo+json', result.layers[task.layer].bytes());
   } catch (err) {
-    if (err instanceof SettingsError) {
+    if (err instanceof SettingsError || err instanceof SweepError) {
       return { ok: false, code: 'invalid-parameter', detail: err.message, extensions: { parameter: err.parameter } };
     }
     if (err instanceof InputError) return rejectInput(err);

@@ -7,7 +7,7 @@
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { featureCollectionString } from '../geometry/geojson.js';
-import { categoryNames, hotspotLayerFields, propertiesJsonSchema, trustFieldsOf } from '../geometry/layer-fields.js';
+import { categoryNames, hotspotLayerFields, optionalFieldsOf, propertiesJsonSchema, trustFieldsOf } from '../geometry/layer-fields.js';
 import { etagOf, notModified, sendTagged } from '../http/conditional.js';
 import { HttpProblem } from '../http/errors.js';
 import { LAYER_NAMES, type LayerName } from '../run/layers.js';
@@ -288,7 +288,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const id = collectionId(r.dataset.id, r.kind);
     if (r.kind === 'hotspots' || r.kind === 'centres') {
       const hotspots = (r.run!.summary?.['hotspots'] ?? []) as Record<string, unknown>[];
-      return propertiesJsonSchema(hotspotLayerFields(categoryNames(hotspots), trustFieldsOf(hotspots)), id);
+      return propertiesJsonSchema(hotspotLayerFields(categoryNames(hotspots), trustFieldsOf(hotspots), optionalFieldsOf(hotspots)), id);
     }
     const own = { description: "the observation's own properties as posted; their names and types are the posting app's", additionalProperties: true };
     if (r.kind === 'observations') return { $schema: 'https://json-schema.org/draft/2020-12/schema', title: id, type: 'object', ...own, properties: { observed_at: { type: 'string', format: 'date-time' } } };

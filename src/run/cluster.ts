@@ -31,6 +31,7 @@ import { CAUTIONS } from './cautions.js';
 import { SettingsError, settingsRecord, type ClusterSettings } from './settings.js';
 import { ROOST_VERSION } from './version.js';
 import type { LayerName } from './layers.js';
+import { validationBlock, validationFigures } from './validation.js';
 
 export type { InputFormat };
 
@@ -506,6 +507,7 @@ export function clusterObservations(
   } else studyAreaProblem = 'fewer than 3 observations outline no area';
   const nearest = points.n >= 2 && studyAreaKm2 ? nearestNeighbourMeters(points, index) : undefined;
   const whole = resultFigures(points, clustering, { studyAreaKm2, studyAreaProblem, nearest });
+  const validation = validationFigures(points, clustering, settings, settings.referenceProperty ? categoryValues(features, settings.referenceProperty) : null);
 
   timer.start('write');
   /** the medoid's observation id: the stored id, else the GeoJSON id, else its input index */
@@ -516,7 +518,13 @@ export function clusterObservations(
     const own = members.slice(start[h], start[h + 1]);
     const coreMembers = new Int32Array(figures[h].coreCount);
     for (let k = 0, c = 0; k < own.length; k++) if (clustering.roles[own[k]] === ROLE_CORE) coreMembers[c++] = own[k];
-    resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties: hotspotProperties(figures[h], medoidIdOf(figures[h].medoid)) });
+    const properties = hotspotProperties(figures[h], medoidIdOf(figures[h].medoid));
+    if (validation.reference) {
+      const r = validation.reference.hotspots[h];
+      properties.reference_majority = r.majority;
+      properties.reference_share = r.share === null ? null : round(r.share, 6);
+    }
+    resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties });
   }
   let noiseCount = 0;
   for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseCount++;
@@ -580,6 +588,7 @@ export function clusterObservations(
       total_weight: sig(whole.totalWeight),
       clark_evans: clarkEvansBlock(whole),
     },
+    ...validationBlock(validation),
     hotspots: resultHotspots.map((r) => r.properties),
     warnings: [...untimedWarnings(untimed, all.points.n + earlierUntimed, settings), ...clusteringWarnings(clustering), ...clarkEvansWarnings(whole)],
     cautions: CAUTIONS,

@@ -50,6 +50,10 @@ export interface ClusterSettings {
   timeColumn: string | null;
   /** how that time is written, as a pattern of YYYY, MM, DD, hh, mm, ss (for example DD.MM.YYYY); RFC 3339 when null */
   timeFormat: string | null;
+  /** property holding known groups; hotspots are scored against it (purity, ARI, NMI) and given their majority value */
+  referenceProperty: string | null;
+  /** whether the summary gives the internal validation figures (silhouette, DBCV) */
+  validation: boolean;
 }
 
 /**
@@ -76,6 +80,8 @@ export const DEFAULT_SETTINGS: Readonly<ClusterSettings> = Object.freeze({
   latColumn: null,
   timeColumn: null,
   timeFormat: null,
+  referenceProperty: null,
+  validation: false,
 });
 
 /** Setting names as the API, the command line (as --kebab-case) and stored datasets spell them. */
@@ -98,6 +104,8 @@ export const SETTING_NAMES = [
   'lat_column',
   'time_column',
   'time_format',
+  'reference',
+  'validation',
 ] as const;
 export type SettingName = (typeof SETTING_NAMES)[number];
 
@@ -134,6 +142,12 @@ function numberSetting(name: string, raw: unknown, opts: { min: number; max: num
 function choice<T extends string>(name: string, raw: unknown, allowed: readonly T[]): T {
   if (typeof raw === 'string' && (allowed as readonly string[]).includes(raw)) return raw as T;
   throw new SettingsError(name, `must be one of ${allowed.join(', ')}, got ${JSON.stringify(raw)}`);
+}
+
+function yesNo(name: string, raw: unknown): boolean {
+  if (raw === true || raw === 'true') return true;
+  if (raw === false || raw === 'false') return false;
+  throw new SettingsError(name, `must be true or false, got ${JSON.stringify(raw)}`);
 }
 
 function text(name: string, raw: unknown): string {
@@ -249,6 +263,12 @@ export function resolveSettings(input: Record<string, unknown>, base: Readonly<C
         s.timeFormat = f.pattern;
         break;
       }
+      case 'reference':
+        s.referenceProperty = text(name, raw);
+        break;
+      case 'validation':
+        s.validation = yesNo(name, raw);
+        break;
     }
   }
   if (!s.epsAuto && !(s.epsMeters > 0)) {
@@ -284,5 +304,7 @@ export function settingsRecord(s: ClusterSettings): Record<SettingName, unknown>
     lat_column: s.latColumn,
     time_column: s.timeColumn,
     time_format: s.timeFormat,
+    reference: s.referenceProperty,
+    validation: s.validation,
   };
 }

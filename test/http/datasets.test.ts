@@ -60,7 +60,7 @@ describe('/v1/datasets', () => {
       [{ id: 'x4', settings: { eps: 10 }, window: '30 days' }, 'window'],
       [{ id: 'x5', settings: { eps: 10 }, colour: 'red' }, 'colour'],
       [{ id: 'x6', settings: { eps: 10 }, webhook: { url: 'ftp://x', secret: 'k' } }, 'webhook'],
-      [{ id: 'x7', settings: { eps: 10 }, schedule: { cron: '0 2 * * *' } }, 'schedule'],
+      [{ id: 'x7', settings: { eps: 10 }, schedule: { cron: '0 2 * * *' } }, 'schedule.timezone'],
       [{ id: 'x8', settings: { eps: 10 }, schedule: { cron: '0 2 * * *', timezone: 'Mars/Olympus' } }, 'schedule'],
       [{ id: 'x9', settings: { eps: 10 }, schedule: { cron: 'every night', timezone: 'UTC' } }, 'schedule'],
       // more often than the floor (default once every 5 minutes)

@@ -9,6 +9,7 @@ import { defaultHooks } from '../../src/jobs/default-hooks.js';
 import pools from '../../src/http/plugins/pools.js';
 import problems from '../../src/http/plugins/problems.js';
 import runQueue from '../../src/http/plugins/run-queue.js';
+import schemas from '../../src/http/plugins/schemas.js';
 import shutdown from '../../src/http/plugins/shutdown.js';
 import storePlugin from '../../src/http/plugins/store.js';
 import type { WorkPool } from '../../src/http/pool.js';
@@ -26,11 +27,12 @@ afterEach(async () => {
   await app?.close();
 });
 
-/** A bare instance with the plugins every route group expects: problems and raw bodies. */
+/** A bare instance with the plugins every route group expects: problems, raw bodies and the route schemas. */
 async function bare(): Promise<FastifyInstance> {
   const f = Fastify({ logger: false });
   await f.register(problems);
   await f.register(bodies, { bodyLimitBytes: 1024 * 1024 });
+  await f.register(schemas);
   return f;
 }
 

@@ -37,16 +37,16 @@ describe('dataset schedules', () => {
   });
 
   it('give a missing time zone, a missing cron, an unknown time zone and a bad cron each their own message', async () => {
-    const cases: [Record<string, unknown>, RegExp][] = [
-      [{ cron: '0 2 * * *' }, /has no time zone: give "timezone", an IANA time zone name/],
-      [{ timezone: 'Europe/Berlin' }, /has no cron expression: give "cron"/],
-      [{ cron: '0 2 * * *', timezone: 'Mars/Olympus' }, /timezone "Mars\/Olympus" is not an IANA time zone name/],
-      [{ cron: '0 25 * * *', timezone: 'UTC' }, /cron "0 25 \* \* \*" is not usable/],
+    const cases: [Record<string, unknown>, RegExp, string][] = [
+      [{ cron: '0 2 * * *' }, /schedule.timezone is required, for example "Europe\/Zurich"/, 'schedule.timezone'],
+      [{ timezone: 'Europe/Berlin' }, /schedule.cron is required, for example "0 2 \* \* \*"/, 'schedule.cron'],
+      [{ cron: '0 2 * * *', timezone: 'Mars/Olympus' }, /timezone "Mars\/Olympus" is not an IANA time zone name/, 'schedule'],
+      [{ cron: '0 25 * * *', timezone: 'UTC' }, /cron "0 25 \* \* \*" is not usable/, 'schedule'],
     ];
-    for (const [schedule, message] of cases) {
+    for (const [schedule, message, parameter] of cases) {
       const res = await create({ id: 'bad', schedule });
       expect(res.statusCode, JSON.stringify(schedule)).toBe(400);
-      expect(res.json(), JSON.stringify(schedule)).toMatchObject({ code: 'invalid-parameter', parameter: 'schedule' });
+      expect(res.json(), JSON.stringify(schedule)).toMatchObject({ code: 'invalid-parameter', parameter });
       expect(res.json().detail, JSON.stringify(schedule)).toMatch(message);
     }
   });

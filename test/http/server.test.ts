@@ -90,7 +90,8 @@ describe('the listener', { timeout: 60_000 }, () => {
       child.on('exit', (code) => reject(new Error(`exited ${code}: ${out}`)));
     });
     const res = await fetch(`${url}/v1/cluster?eps=0`, { method: 'POST', headers: { 'content-type': 'text/csv', 'x-request-id': 'trace-55' }, body: 'lon,lat\n1,2\n' });
-    expect(res.status).toBe(400);
+    const answer = await res.text();
+    expect(res.status, answer).toBe(400);
     const exit = new Promise<number | null>((resolve) => child.on('exit', (code) => resolve(code)));
     child.kill('SIGTERM');
     expect(await exit).toBe(0);

@@ -74,9 +74,9 @@ describe('POST /v1/cluster with null_model and resamples', () => {
 
   it('refuses bad test settings with a problem naming the parameter', async () => {
     for (const [qs, parameter, message] of [
-      ['null_model=poisson', 'null_model', /must be csr or effort/],
+      ['null_model=poisson', 'null_model', /must be one of csr, effort/],
       ['simulations=lots', 'simulations', /whole number/],
-      ['resample_share=0', 'resample_share', /above 0/],
+      ['resample_share=0', 'resample_share', /must be > 0/],
       ['null_model=effort', 'null_model', /effort needs effort points/],
     ] as const) {
       const res = await app.inject({ method: 'POST', url: `/v1/cluster?eps=300&${qs}`, headers: { 'content-type': 'application/geo+json' }, payload });

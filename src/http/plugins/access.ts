@@ -3,12 +3,10 @@
  * from openapi.yaml's `x-roost-access` declarations. Decorates `app.keyPresence`, which key
  * routes tell when a key is created or revoked.
  */
-import { readFileSync } from 'node:fs';
 import type { FastifyInstance } from 'fastify';
 import fp from 'fastify-plugin';
-import { parse } from 'yaml';
 import { accessTable, registerAccess, type KeyPresence } from '../access.js';
-import { OPENAPI_PATH } from '../contract.js';
+import { loadContract } from '../contract.js';
 
 declare module 'fastify' {
   interface FastifyInstance {
@@ -17,7 +15,7 @@ declare module 'fastify' {
 }
 
 async function accessPlugin(app: FastifyInstance): Promise<void> {
-  const table = accessTable(parse(readFileSync(OPENAPI_PATH, 'utf8')) as { paths: Record<string, Record<string, unknown>> });
+  const table = accessTable(loadContract() as { paths: Record<string, Record<string, unknown>> });
   // the documentation page's and the map page's own files (scripts, styles, the document it shows)
   // are public like the pages; the data they show is read from the API, with a key
   app.decorate('keyPresence', registerAccess(app, { store: app.store, table, publicPrefixes: ['/docs', '/assets'] }));

@@ -1,13 +1,15 @@
 /**
- * POST /v1/cluster and POST /v1/k-distance: the body is collected as bytes and handed to the work
+ * POST /v1/cluster, POST /v1/k-distance and POST /v1/sweep: the body is collected as bytes and handed to the work
  * pool, which reads, checks, clusters and encodes it; the answer comes back as bytes. A full
  * service (503) and query-string settings are checked before the body is received, so a typo or a
  * full service costs no upload; the request takes its place in the work pool only once its body
  * has arrived (src/http/plugins/pools.ts), and a client that goes away ends its work at once.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
-import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
+import type { LayerName } from '../../run/layers.js';
 import { resolveSettings, SettingsError } from '../../run/settings.js';
+import { sweepRequest } from '../../run/sweep.js';
+import { SweepError } from '../../trust/sweep.js';
 import { resolveTrustSettings, splitTrustSettings } from '../../trust/options.js';
 import { formatOf } from '../body.js';
 import type { ServerConfig } from '../config.js';
@@ -17,13 +19,13 @@ import type { WorkResult, WorkTask } from '../work.js';
 
 export type ClusterRouteOptions = Pick<ServerConfig, 'timeLimitMs' | 'retryAfterS'>;
 
-/** Splits the query string into the service's own `layer` and the clustering settings. */
-function readQuery(request: FastifyRequest, op: WorkTask['op']): { layer: LayerName | null; settings: Record<string, unknown> } {
+/**
+ * Splits the query string into the service's own `layer` (/v1/cluster only; the route schema has
+ * checked it) and the clustering settings.
+ */
+function readQuery(request: FastifyRequest): { layer: LayerName | null; settings: Record<string, unknown> } {
   const { layer, ...settings } = (request.query ?? {}) as Record<string, unknown>;
-  if (layer === undefined) return { layer: null, settings };
-  if (op !== 'cluster') throw new HttpProblem('invalid-parameter', '"layer" applies to /v1/cluster only', { parameter: 'layer' });
-  if (!isLayerName(layer)) throw new HttpProblem('invalid-parameter', `"layer" must be one of ${LAYER_NAMES.join(', ')}`, { parameter: 'layer' });
-  return { layer, settings };
+  return { layer: (layer as LayerName | undefined) ?? null, settings };
 }
 
 /**
@@ -33,6 +35,10 @@ function readQuery(request: FastifyRequest, op: WorkTask['op']): { layer: LayerN
  */
 function checkSettings(settings: Record<string, unknown>, op: WorkTask['op']): void {
   try {
+    if (op === 'sweep') {
+      sweepRequest(settings, true);
+      return;
+    }
     if (op === 'k-distance') {
       resolveSettings({ eps: 'auto', ...settings });
       return;
@@ -41,7 +47,7 @@ function checkSettings(settings: Record<string, unknown>, op: WorkTask['op']): v
     resolveSettings({ eps: 'auto', ...clustering });
     resolveTrustSettings(trust, undefined, true);
   } catch (err) {
-    if (err instanceof SettingsError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
+    if (err instanceof SettingsError || err instanceof SweepError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
     throw err;
   }
 }
@@ -91,7 +97,7 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
       throw new HttpProblem('malformed-body', 'The request body is empty; send a GeoJSON FeatureCollection, CSV, or GeoJSON text sequence.');
     }
     const format = formatOf(request.headers['content-type'])!;
-    const { layer, settings } = readQuery(request, op);
+    const { layer, settings } = readQuery(request);
     const controller = new AbortController();
     const why = { clientGone: false, timedOut: false };
     const timer = setTimeout(() => {
@@ -115,7 +121,7 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
   };
 
   const heavy = (op: WorkTask['op']) => ({
-    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request, op).settings, op)],
+    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request).settings, op)],
     preHandler: admission.admit,
     onResponse: admission.release,
     onRequestAbort: admission.release,
@@ -124,4 +130,5 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
 
   app.post('/v1/cluster', heavy('cluster'));
   app.post('/v1/k-distance', heavy('k-distance'));
+  app.post('/v1/sweep', heavy('sweep'));
 }

@@ -1,39 +1,21 @@
 /**
- * What the dataset, observation and run routes share: the services they use, JSON bodies read
- * on the main thread (small documents only), the JSON shapes of datasets and runs, and the
- * mapping of store errors to problems.
+ * What the dataset, observation and run routes share: the services they use, the JSON shapes of
+ * datasets and runs, and the mapping of store errors to problems. Query strings and JSON bodies
+ * are read and checked against openapi.yaml before a handler runs (../schemas.ts).
  */
 import { nextSlot } from '../../jobs/schedule.js';
-import type { FastifyRequest } from 'fastify';
 import type { JobPool } from '../../jobs/job-pool.js';
 import type { Runner } from '../../jobs/runner.js';
 import { SettingsError } from '../../run/settings.js';
 import { StoreError, type Dataset, type Run, type Store } from '../../storage/store.js';
 import { HttpProblem } from '../errors.js';
+import type { components } from '../openapi-types.js';
 
 export interface DatasetServices {
   store: Store;
   runner: Runner;
   /** worker threads for reading large posted batches; null reads them on the main thread */
   jobs: JobPool | null;
-}
-
-/** Largest JSON body read on the main thread (dataset definitions, run overrides), bytes. */
-export const MAX_JSON_BODY_BYTES = 1024 * 1024;
-
-/** The request body as a JSON object; an absent body gives `{}`. */
-export function jsonObject(request: FastifyRequest): Record<string, unknown> {
-  const body = request.body as Uint8Array | undefined;
-  if (body === undefined || body === null || body.byteLength === 0) return {};
-  if (body.byteLength > MAX_JSON_BODY_BYTES) throw new HttpProblem('body-too-large', `this endpoint reads JSON documents of at most ${MAX_JSON_BODY_BYTES} bytes`, { limit_bytes: MAX_JSON_BODY_BYTES });
-  let doc: unknown;
-  try {
-    doc = JSON.parse(Buffer.from(body.buffer, body.byteOffset, body.byteLength).toString('utf8'));
-  } catch (err) {
-    throw new HttpProblem('malformed-body', `the body is not JSON: ${(err as Error).message}`);
-  }
-  if (doc === null || typeof doc !== 'object' || Array.isArray(doc)) throw new HttpProblem('malformed-body', 'the body must be a JSON object');
-  return doc as Record<string, unknown>;
 }
 
 /** A settings problem as a 400 naming the parameter under `prefix` (for example "settings.eps"). */
@@ -63,23 +45,6 @@ export async function requireRun(store: Store, datasetId: string, runId: string)
   return r;
 }
 
-/** A boolean query flag: absent, `true` or `false` (also 1/0). */
-export function flag(query: Record<string, unknown>, name: string): boolean {
-  const v = query[name];
-  if (v === undefined || v === '' || v === 'false' || v === '0') return false;
-  if (v === 'true' || v === '1') return true;
-  throw new HttpProblem('invalid-parameter', `${name} must be true or false, got ${JSON.stringify(v)}`, { parameter: name });
-}
-
-/** A whole-number query parameter within bounds, or the default. */
-export function integer(query: Record<string, unknown>, name: string, dflt: number, min: number, max: number): number {
-  const v = query[name];
-  if (v === undefined || v === '') return dflt;
-  const n = typeof v === 'string' && /^\d+$/.test(v) ? Number(v) : NaN;
-  if (!(n >= min && n <= max)) throw new HttpProblem('invalid-parameter', `${name} must be a whole number from ${min} to ${max}, got ${JSON.stringify(v)}`, { parameter: name });
-  return n;
-}
-
 /**
  * When the dataset's schedule next fires (RFC 3339, UTC), or null without a usable schedule.
  * The scheduled run is created at that slot, or within --schedule-scan-ms of it.
@@ -94,7 +59,7 @@ function nextRunAt(d: Dataset, now = new Date()): string | null {
 }
 
 /** A dataset as the API shows it (the webhook secret is never shown). */
-export function datasetJson(d: Dataset, observations?: number): Record<string, unknown> {
+export function datasetJson(d: Dataset, observations?: number): components['schemas']['Dataset'] {
   const base = `/v1/datasets/${d.id}`;
   return {
     id: d.id,
@@ -102,10 +67,11 @@ export function datasetJson(d: Dataset, observations?: number): Record<string, u
     settings: d.settings,
     id_property: d.idProperty,
     window: d.window,
-    schedule: d.schedule,
+    schedule: d.schedule === null ? null : { ...d.schedule },
     next_run_at: nextRunAt(d),
     webhook: d.webhook === null ? null : { url: d.webhook.url },
-    publish: d.publish,
+    // stored only after checkPublishBlock (src/publish/publish.ts), which gives this shape
+    publish: d.publish as components['schemas']['Publish'],
     created_at: d.createdAt,
     updated_at: d.updatedAt,
     ...(observations === undefined ? {} : { observations }),
@@ -114,7 +80,7 @@ export function datasetJson(d: Dataset, observations?: number): Record<string, u
 }
 
 /** A run as the API shows it. */
-export function runJson(r: Run): Record<string, unknown> {
+export function runJson(r: Run): components['schemas']['Run'] {
   const base = `/v1/datasets/${r.datasetId}/runs/${r.id}`;
   return {
     id: r.id,

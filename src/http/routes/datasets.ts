@@ -11,9 +11,8 @@ import { StoreError, type DatasetPatch, type NewDataset } from '../../storage/st
 import { checkPublishBlock, PublishError } from '../../publish/publish.js';
 import { checkWebhookAddress, checkWebhookUrl, WebhookAddressError } from '../../jobs/webhook-address.js';
 import { HttpProblem } from '../errors.js';
-import { datasetJson, jsonObject, requireDataset, settingsProblem } from './common.js';
-
-const FIELDS = ['id', 'name', 'settings', 'id_property', 'window', 'schedule', 'webhook', 'publish'] as const;
+import type { components } from '../openapi-types.js';
+import { datasetJson, requireDataset, settingsProblem } from './common.js';
 
 export interface DatasetRouteOptions {
   /** let webhooks reach private-network and loopback addresses (see src/jobs/webhook-address.ts) */
@@ -26,33 +25,32 @@ function bad(parameter: string, detail: string): never {
   throw new HttpProblem('invalid-parameter', `${parameter}: ${detail}`, { parameter });
 }
 
-function checkSettings(settings: unknown): Record<string, unknown> {
-  if (settings === null || typeof settings !== 'object' || Array.isArray(settings)) bad('settings', 'must be an object such as {"eps": 250, "min_points": 5}');
+/** Settings (an object, as the schema says) checked by the settings validator. */
+function checkSettings(settings: Record<string, unknown>): Record<string, unknown> {
   try {
-    resolveSettings(settings as Record<string, unknown>);
+    resolveSettings(settings);
   } catch (err) {
     settingsProblem(err, 'settings.');
   }
-  return settings as Record<string, unknown>;
+  return settings;
 }
 
-function optionalText(doc: Record<string, unknown>, name: string): string | null | undefined {
+/** A text member (string or null, as the schema says) that must not be blank. */
+function optionalText(doc: DatasetInput, name: 'id_property' | 'window'): string | null | undefined {
   const v = doc[name];
-  if (v === undefined || v === null) return v;
-  if (typeof v !== 'string' || v.trim() === '') bad(name, 'must be a non-empty string or null');
+  if (typeof v === 'string' && v.trim() === '') bad(name, 'must be a non-empty string or null');
   return v;
 }
 
-/** The fields of a create or patch body, checked; absent fields stay undefined. */
-function readFields(doc: Record<string, unknown>, allowPrivateWebhooks: boolean, scheduleMinIntervalMs?: number): DatasetPatch & { id?: string } {
-  for (const k of Object.keys(doc)) if (!(FIELDS as readonly string[]).includes(k)) bad(k, `unknown member; a dataset has ${FIELDS.join(', ')}`);
+/** A create or patch body, whose shape the route schema (DatasetInput in openapi.yaml) has checked. */
+type DatasetInput = components['schemas']['DatasetInput'];
+
+/** The fields of a create or patch body, checked for meaning; absent fields stay undefined. */
+function readFields(doc: DatasetInput, allowPrivateWebhooks: boolean, scheduleMinIntervalMs?: number): DatasetPatch & { id?: string } {
   const out: DatasetPatch & { id?: string } = {};
-  if (doc.id !== undefined) {
-    if (typeof doc.id !== 'string') bad('id', 'must be a string');
-    out.id = doc.id;
-  }
+  if (doc.id !== undefined) out.id = doc.id;
   if (doc.name !== undefined) {
-    if (typeof doc.name !== 'string' || doc.name.trim() === '') bad('name', 'must be a non-empty string');
+    if (doc.name.trim() === '') bad('name', 'must be a non-empty string');
     out.name = doc.name;
   }
   const idProperty = optionalText(doc, 'id_property');
@@ -66,31 +64,23 @@ function readFields(doc: Record<string, unknown>, allowPrivateWebhooks: boolean,
     out.window = window;
   }
   if (doc.schedule !== undefined) {
-    const s = doc.schedule as Record<string, unknown> | null;
-    if (s !== null && (typeof s !== 'object' || Array.isArray(s))) bad('schedule', 'must be {"cron": "0 2 * * *", "timezone": "Europe/Zurich"} or null');
-    if (s !== null && typeof s.cron !== 'string') bad('schedule', 'has no cron expression: give "cron", for example "0 2 * * *" (every night at 02:00)');
-    if (s !== null && typeof s.timezone !== 'string') {
-      bad('schedule', 'has no time zone: give "timezone", an IANA time zone name such as "Europe/Berlin" or "UTC", in which the cron expression is read');
-    }
-    out.schedule = s === null ? null : { cron: s.cron as string, timezone: s.timezone as string };
+    const s = doc.schedule;
+    out.schedule = s === null ? null : { cron: s.cron, timezone: s.timezone };
     const problem = out.schedule === null ? null : scheduleProblem(out.schedule, scheduleMinIntervalMs);
     if (problem !== null) bad('schedule', problem);
   }
   if (doc.webhook !== undefined) {
-    const w = doc.webhook as Record<string, unknown> | null;
+    const w = doc.webhook;
     if (w !== null) {
-      if (typeof w !== 'object' || typeof w.url !== 'string' || typeof w.secret !== 'string' || w.secret === '') {
-        bad('webhook', 'must be {"url": "https://…", "secret": "…"} or null');
-      }
       try {
         // the URL is never echoed: it may carry a password
-        checkWebhookUrl(w.url as string, allowPrivateWebhooks);
+        checkWebhookUrl(w.url, allowPrivateWebhooks);
       } catch (err) {
         if (err instanceof WebhookAddressError) bad('webhook', err.message);
         throw err;
       }
     }
-    out.webhook = w === null ? null : { url: w.url as string, secret: w.secret as string };
+    out.webhook = w === null ? null : { url: w.url, secret: w.secret };
   }
   if (doc.publish !== undefined) {
     try {
@@ -116,10 +106,9 @@ async function checkWebhookHost(webhook: DatasetPatch['webhook'], allowPrivateWe
 }
 
 /** RFC 7396 merge of flat settings: members of `patch` replace, null removes. */
-function mergeSettings(base: Record<string, unknown>, patch: unknown): Record<string, unknown> {
-  if (patch === null || typeof patch !== 'object' || Array.isArray(patch)) bad('settings', 'must be an object of the members to change (null removes one)');
+function mergeSettings(base: Record<string, unknown>, patch: Record<string, unknown>): Record<string, unknown> {
   const out = { ...base };
-  for (const [k, v] of Object.entries(patch as Record<string, unknown>)) {
+  for (const [k, v] of Object.entries(patch)) {
     if (v === null) delete out[k];
     else out[k] = v;
   }
@@ -131,8 +120,8 @@ export default async function datasetRoutes(app: FastifyInstance, options: Datas
   const allowPrivate = options.allowPrivateWebhooks === true;
 
   app.post('/v1/datasets', async (request, reply) => {
-    const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, allowPrivate, options.scheduleMinIntervalMs);
+    const doc = request.body as DatasetInput;
+    const fields = readFields(doc, allowPrivate, options.scheduleMinIntervalMs);
     if (fields.id === undefined) bad('id', 'is required: 1 to 128 characters from A-Z a-z 0-9 . _ ~ -, starting with a letter or digit');
     if (doc.settings === undefined) bad('settings', 'is required, for example {"eps": 250, "min_points": 5}');
     const d: NewDataset = {
@@ -168,8 +157,8 @@ export default async function datasetRoutes(app: FastifyInstance, options: Datas
 
   app.patch<{ Params: { id: string } }>('/v1/datasets/:id', async (request) => {
     const current = await requireDataset(store, request.params.id);
-    const doc = jsonObject(request);
-    const fields = readFields({ ...doc, settings: undefined }, allowPrivate, options.scheduleMinIntervalMs);
+    const doc = request.body as DatasetInput;
+    const fields = readFields(doc, allowPrivate, options.scheduleMinIntervalMs);
     await checkWebhookHost(fields.webhook, allowPrivate);
     if (fields.id !== undefined && fields.id !== current.id) bad('id', 'cannot be changed; create a new dataset instead');
     delete fields.id;

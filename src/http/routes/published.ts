@@ -9,7 +9,7 @@
  * the last few are kept: a map asks for the same layers again and again.
  */
 import type { FastifyInstance } from 'fastify';
-import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
+import type { LayerName } from '../../run/layers.js';
 import { joinPieces } from '../../storage/layer-pieces.js';
 import type { Dataset, Run } from '../../storage/store.js';
 import { publishLayerTexts, PublishError, resolvePublishOptions, type PublishedLayers } from '../../publish/publish.js';
@@ -47,13 +47,8 @@ export default async function publishedRoutes(app: FastifyInstance): Promise<voi
     return layers;
   };
 
-  const layerOf = (name: string): LayerName => {
-    if (!isLayerName(name)) throw new HttpProblem('invalid-parameter', `layer must be one of ${LAYER_NAMES.join(', ')}, got ${JSON.stringify(name)}`, { parameter: 'layer' });
-    return name;
-  };
-
-  app.get<{ Params: { id: string; layer: string } }>('/v1/datasets/:id/runs/latest/published/:layer', async (request, reply) => {
-    const layer = layerOf(request.params.layer);
+  app.get<{ Params: { id: string; layer: LayerName } }>('/v1/datasets/:id/runs/latest/published/:layer', async (request, reply) => {
+    const layer = request.params.layer;
     const dataset = await requireDataset(store, request.params.id);
     const run = await store.latestRun(dataset.id);
     if (run === null) throw new HttpProblem('run-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet`);
@@ -61,8 +56,8 @@ export default async function publishedRoutes(app: FastifyInstance): Promise<voi
     return reply.type('application/geo+json').header('x-roost-run', run.id).send(layers[layer]);
   });
 
-  app.get<{ Params: { id: string; run: string; layer: string } }>('/v1/datasets/:id/runs/:run/published/:layer', async (request, reply) => {
-    const layer = layerOf(request.params.layer);
+  app.get<{ Params: { id: string; run: string; layer: LayerName } }>('/v1/datasets/:id/runs/:run/published/:layer', async (request, reply) => {
+    const layer = request.params.layer;
     const dataset = await requireDataset(store, request.params.id);
     const run = await requireRun(store, dataset.id, request.params.run);
     const layers = await publishedOf(dataset, run);

@@ -8,21 +8,14 @@ import { Readable } from 'node:stream';
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { featureCollectionString } from '../../geometry/geojson.js';
 import { layerIndex, layerPage } from '../../ogc/layers.js';
-import { onlyParams, parseItemsQuery, parseLimit } from '../../ogc/query.js';
+import { parseItemsQuery, parseLimit } from '../../ogc/query.js';
 import { notModified, sendTagged } from '../conditional.js';
 import { resolveSettings } from '../../run/settings.js';
-import { isLayerName, LAYER_NAMES, type LayerName } from '../../run/layers.js';
+import type { LayerName } from '../../run/layers.js';
 import { StoreError, type Run } from '../../storage/store.js';
 import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem } from '../errors.js';
-import { integer, jsonObject, requireDataset, requireRun, runJson, settingsProblem } from './common.js';
-
-function layerOf(name: string): LayerName {
-  if (!isLayerName(name)) {
-    throw new HttpProblem('invalid-parameter', `layer must be one of ${LAYER_NAMES.join(', ')}, got ${JSON.stringify(name)}`, { parameter: 'layer' });
-  }
-  return name;
-}
+import { requireDataset, requireRun, runJson, settingsProblem } from './common.js';
 
 /** What a result-layer address takes: without any, the whole layer as stored. */
 const LAYER_PARAMS = ['bbox', 'datetime', 'limit', 'cursor'];
@@ -44,7 +37,6 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
 
   const sendLayer = async (request: FastifyRequest, run: Run, layer: LayerName, reply: FastifyReply) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
-    onlyParams(query, LAYER_PARAMS);
     const q = { ...parseItemsQuery(query, LAYER_PARAMS), limit: query.limit === undefined ? Number.MAX_SAFE_INTEGER : parseLimit(String(query.limit)) };
     if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
     void reply.header('x-roost-run', run.id);
@@ -87,14 +79,9 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
 
   app.post<{ Params: { id: string } }>('/v1/datasets/:id/runs', async (request, reply) => {
     const dataset = await requireDataset(store, request.params.id);
-    const doc = jsonObject(request);
-    for (const k of Object.keys(doc)) if (k !== 'settings') throw new HttpProblem('invalid-parameter', `${k}: unknown member; the body may hold "settings" overrides`, { parameter: k });
-    const fromBody = doc.settings ?? {};
-    if (fromBody === null || typeof fromBody !== 'object' || Array.isArray(fromBody)) {
-      throw new HttpProblem('invalid-parameter', 'settings must be an object such as {"eps": 100}', { parameter: 'settings' });
-    }
+    const fromBody = (request.body as { settings?: Record<string, unknown> }).settings ?? {};
     // dataset defaults, then the body's overrides, then the query string's
-    const settings: Record<string, unknown> = { ...dataset.settings, ...(fromBody as Record<string, unknown>), ...((request.query ?? {}) as Record<string, unknown>) };
+    const settings: Record<string, unknown> = { ...dataset.settings, ...fromBody, ...((request.query ?? {}) as Record<string, unknown>) };
     for (const [k, v] of Object.entries(settings)) if (v === null) delete settings[k];
     try {
       resolveSettings(settings);
@@ -112,7 +99,7 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
   app.get<{ Params: { id: string } }>('/v1/datasets/:id/runs', async (request) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
     const dataset = await requireDataset(store, request.params.id);
-    const limit = integer(query, 'limit', 20, 1, 1000);
+    const limit = (query.limit as number | undefined) ?? 20;
     let page;
     try {
       page = await store.listRuns(dataset.id, { limit, cursor: query.cursor === undefined ? undefined : String(query.cursor) });
@@ -135,9 +122,8 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
 
   app.get<{ Params: { id: string } }>('/v1/datasets/:id/runs/latest', async (request) => runJson(await latest(request.params.id)));
 
-  app.get<{ Params: { id: string; layer: string } }>('/v1/datasets/:id/runs/latest/:layer', async (request, reply) => {
-    const layer = layerOf(request.params.layer);
-    return sendLayer(request, await latest(request.params.id), layer, reply);
+  app.get<{ Params: { id: string; layer: LayerName } }>('/v1/datasets/:id/runs/latest/:layer', async (request, reply) => {
+    return sendLayer(request, await latest(request.params.id), request.params.layer, reply);
   });
 
   app.get<{ Params: { id: string; run: string } }>('/v1/datasets/:id/runs/:run', async (request) => {
@@ -145,8 +131,8 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
     return runJson(await requireRun(store, request.params.id, request.params.run));
   });
 
-  app.get<{ Params: { id: string; run: string; layer: string } }>('/v1/datasets/:id/runs/:run/:layer', async (request, reply) => {
-    const layer = layerOf(request.params.layer);
+  app.get<{ Params: { id: string; run: string; layer: LayerName } }>('/v1/datasets/:id/runs/:run/:layer', async (request, reply) => {
+    const layer = request.params.layer;
     await requireDataset(store, request.params.id);
     return sendLayer(request, await requireRun(store, request.params.id, request.params.run), layer, reply);
   });
