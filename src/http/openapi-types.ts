@@ -65,6 +65,33 @@ export interface paths {
         patch?: never;
         trace?: never;
     };
+    "/v1/sweep": {
+        parameters: {
+            query?: never;
+            header?: never;
+            path?: never;
+            cookie?: never;
+        };
+        get?: never;
+        put?: never;
+        /**
+         * Cluster at every eps × min_points pair and compare neighbouring results
+         * @description Clusters the posted observations with DBSCAN at every pair of the `eps` and `min_points`
+         *     lists and answers, for each pair, the number of hotspots, the noise share and the adjusted
+         *     Rand index (Hubert & Arabie 1985) with the result at the next eps (same min_points) and at
+         *     the next min_points (same eps); every observation counts in it, noise as one group. Where
+         *     neighbouring values stay near 1 the result does not hang on the exact choice. At most 20
+         *     values per list and 100 pairs (a 400 naming the parameter otherwise); the filters and
+         *     `weight` apply as for /v1/cluster; settings about hulls, OPTICS or validation are refused.
+         *     The work is bounded by the service's time limit (504).
+         */
+        post: operations["sweep"];
+        delete?: never;
+        options?: never;
+        head?: never;
+        patch?: never;
+        trace?: never;
+    };
     "/v1/datasets": {
         parameters: {
             query?: never;
@@ -1548,6 +1575,10 @@ export interface components {
             significant?: boolean;
             /** @description Mean Jaccard similarity with the best-matching hotspot over resamples; only in runs that asked for resampling. */
             stability?: number;
+            /** @description With `reference`: the most frequent reference value among the members (ties: the first in code-unit order); null when no member has one. */
+            reference_majority?: string | null;
+            /** @description With `reference`: the share of the members with a reference value that have the majority value, 0–1. */
+            reference_share?: number | null;
         };
         OgcLink: {
             /** Format: uri */
@@ -1629,6 +1660,10 @@ export interface components {
             significant?: boolean;
             /** @description Mean Jaccard similarity with the best-matching hotspot over resamples; only in runs that asked for resampling. */
             stability?: number;
+            /** @description Only in runs with `reference`, then on every hotspot: the most frequent reference value among the members. */
+            reference_majority?: string | null;
+            /** @description Only in runs with `reference`: the share of the members with a reference value that have the majority value. */
+            reference_share?: number | null;
         } & {
             [key: string]: number;
         };
@@ -1646,6 +1681,7 @@ export interface components {
                 noise: number;
                 clark_evans: components["schemas"]["ClarkEvans"];
             };
+            validation?: components["schemas"]["Validation"];
             hotspots: components["schemas"]["HotspotFigures"][];
             /** @description Signs that eps or min_points may not suit the data, and cautions about the Clark–Evans figure. */
             warnings: components["schemas"]["Warning"][];
@@ -1725,6 +1761,77 @@ export interface components {
                 z?: number;
                 nearest_neighbour_m?: Record<string, unknown>;
             } | null;
+        };
+        /**
+         * @description Present when `validation` or `reference` is asked for. See the README's "Reading the
+         *     validation figures".
+         */
+        Validation: {
+            internal?: {
+                /** @description Observations the figures were computed on: all of them, or the sample. */
+                observations: number;
+                /** @description The seeded sample used above 2000 observations; null when every observation was used. */
+                sample: {
+                    size?: number;
+                    seed?: number;
+                } | null;
+                /** @description Mean silhouette width over the observations in hotspots (noise left out), −1 to 1; null with fewer than two hotspots. */
+                silhouette: number | null;
+                /** @description DBCV, −1 to 1, hotspot scores weighted by their share of all observations (noise included); null with fewer than two hotspots. */
+                dbcv: number | null;
+                /** @description Why a figure is null. */
+                not_computed?: {
+                    [key: string]: string;
+                };
+            };
+            reference?: {
+                property: string;
+                /** @description Observations with a value of the reference property. */
+                labelled: number;
+                /** @description Observations without one, left out of every figure. */
+                unlabelled: number;
+                noise_excluded: components["schemas"]["Agreement"];
+                noise_as_group: components["schemas"]["Agreement"];
+            };
+        };
+        /** @description The hotspots against the reference values, over `observations` labelled observations. */
+        Agreement: {
+            observations: number;
+            /** @description Hotspots (and the noise group, when noise counts as one). */
+            groups: number;
+            /** @description Distinct reference values. */
+            reference_values: number;
+            purity: number | null;
+            rand_index: number | null;
+            adjusted_rand_index: number | null;
+            /** @description Mutual information over the arithmetic mean of the two entropies. */
+            nmi: number | null;
+        };
+        Sweep: {
+            /** @constant */
+            method: "dbscan";
+            /** @description Observations clustered (after the filters). */
+            observations: number;
+            left_out_by_filter: number;
+            weight: string | null;
+            /** @description The eps values, ascending. */
+            eps_m: number[];
+            /** @description The min_points values, ascending. */
+            min_points: number[];
+            /** @description What the two ARI members compare, in words. */
+            ari: string;
+            settings: {
+                eps_m: number;
+                min_points: number;
+                hotspots: number;
+                clustered: number;
+                noise: number;
+                noise_share: number;
+                /** @description ARI with the next eps at the same min_points; null on the largest eps. */
+                ari_next_eps: number | null;
+                /** @description ARI with the next min_points at the same eps; null on the largest min_points. */
+                ari_next_min_points: number | null;
+            }[];
         };
         ClusterResult: {
             summary: components["schemas"]["Summary"];
@@ -2123,6 +2230,24 @@ export interface components {
          * @example DD.MM.YYYY
          */
         time_format: string;
+        /**
+         * @description Property holding known groups (for example a species confirmed by an expert), against
+         *     which the hotspots are scored: the summary's `validation.reference` gives purity, Rand
+         *     index, adjusted Rand index (Hubert & Arabie 1985) and NMI (mutual information over the
+         *     arithmetic mean of the two entropies), once with noise left out and once with noise as one
+         *     more group; every hotspot gets `reference_majority` and `reference_share`. Observations
+         *     without the property are left out of these figures and counted as `unlabelled`.
+         * @example species
+         */
+        reference: string;
+        /**
+         * @description Add the internal validation figures to the summary's `validation.internal`: the mean
+         *     silhouette width (Rousseeuw 1987) over the observations in hotspots, noise left out, and
+         *     DBCV (Moulavi et al. 2014), whose hotspot scores are weighted by their share of all
+         *     observations, noise included. Ground distances in metres; above 2000 observations both are
+         *     computed on a seeded sample of 2000 (noise included in the draw).
+         */
+        validation: boolean;
         /** @description The dataset's id. */
         datasetId: string;
         /** @description The run's id, for example r000012. */
@@ -2312,6 +2437,24 @@ export interface operations {
                 /** @description Stability: share of the observations each resample keeps. */
                 resample_share?: components["parameters"]["resample_share"];
                 /**
+                 * @description Property holding known groups (for example a species confirmed by an expert), against
+                 *     which the hotspots are scored: the summary's `validation.reference` gives purity, Rand
+                 *     index, adjusted Rand index (Hubert & Arabie 1985) and NMI (mutual information over the
+                 *     arithmetic mean of the two entropies), once with noise left out and once with noise as one
+                 *     more group; every hotspot gets `reference_majority` and `reference_share`. Observations
+                 *     without the property are left out of these figures and counted as `unlabelled`.
+                 * @example species
+                 */
+                reference?: components["parameters"]["reference"];
+                /**
+                 * @description Add the internal validation figures to the summary's `validation.internal`: the mean
+                 *     silhouette width (Rousseeuw 1987) over the observations in hotspots, noise left out, and
+                 *     DBCV (Moulavi et al. 2014), whose hotspot scores are weighted by their share of all
+                 *     observations, noise included. Ground distances in metres; above 2000 observations both are
+                 *     computed on a seeded sample of 2000 (noise included in the draw).
+                 */
+                validation?: components["parameters"]["validation"];
+                /**
                  * @description Answer with this layer alone, as `application/geo+json`: `hotspots` (hull polygons with
                  *     figures), `centres`, `noise`, or `points` (every input observation with its properties
                  *     plus `hotspot_id`, null for noise, and `role`). With `method=optics` the points and noise
@@ -2408,6 +2551,83 @@ export interface operations {
                 };
                 content: {
                     "application/json": components["schemas"]["KDistance"];
+                };
+            };
+            400: components["responses"]["BadRequest"];
+            401: components["responses"]["Unauthorized"];
+            403: components["responses"]["Forbidden"];
+            408: components["responses"]["RequestTimeout"];
+            413: components["responses"]["ContentTooLarge"];
+            415: components["responses"]["UnsupportedMediaType"];
+            421: components["responses"]["HostNotAllowed"];
+            422: components["responses"]["UnprocessableContent"];
+            429: components["responses"]["TooManyRequests"];
+            500: components["responses"]["InternalError"];
+            503: components["responses"]["ServiceUnavailable"];
+            504: components["responses"]["TimeLimit"];
+        };
+    };
+    sweep: {
+        parameters: {
+            query: {
+                /**
+                 * @description eps values in metres: a comma-separated list (`100,150,250`) or a range `start:stop:step` (`100:300:50`, both ends included); repeatable.
+                 * @example 100:300:50
+                 */
+                eps: string;
+                /**
+                 * @description min_points values: a list (`3,5,10`) or a range (`3:12:3`); repeatable.
+                 * @example 3,5,10
+                 */
+                min_points: string;
+                /** @description Property (CSV column) holding each observation's weight, a finite number ≥ 0, for example the number of animals seen. */
+                weight?: components["parameters"]["weight"];
+                /**
+                 * @description Keep observations whose `observed_at` is at or after this RFC 3339 time.
+                 * @example 2026-04-01T00:00:00Z
+                 */
+                since?: components["parameters"]["since"];
+                /** @description Keep observations whose `observed_at` is before this RFC 3339 time. */
+                until?: components["parameters"]["until"];
+                /**
+                 * @description Keep observations whose property equals the value, written `property=value`; repeat for several conditions (all must hold).
+                 * @example [
+                 *       "plant=knotweed"
+                 *     ]
+                 */
+                where?: components["parameters"]["where"];
+                /** @description CSV: the longitude column; by default the first of longitude, lon, lng, long, x (any case). */
+                lon_column?: components["parameters"]["lon_column"];
+                /** @description CSV: the latitude column; by default the first of latitude, lat, y (any case). */
+                lat_column?: components["parameters"]["lat_column"];
+                /**
+                 * @description The property (CSV: column, matched exactly) holding each observation's time; default `observed_at` (any case in CSV). Observations without a readable time are left out when a time window applies, and counted.
+                 * @example Datum
+                 */
+                time_column?: components["parameters"]["time_column"];
+                /**
+                 * @description How that time is written, when not RFC 3339: a pattern in ISO 8601's notation, `YYYY` year, `MM` month, `DD` day, `hh` hour (00–23), `mm` minute, `ss` second, other characters as written (for example `DD.MM.YYYY` or `MM/DD/YYYY hh:mm`); read as UTC. Default RFC 3339 with an offset.
+                 * @example DD.MM.YYYY
+                 */
+                time_format?: components["parameters"]["time_format"];
+            };
+            header?: {
+                /** @description An id for this request (1–128 letters, digits, `.`, `_`, `:` or `-`), kept in logs and answers; one is made up when absent or unusable. */
+                "X-Request-Id"?: components["parameters"]["requestId"];
+            };
+            path?: never;
+            cookie?: never;
+        };
+        requestBody: components["requestBodies"]["Observations"];
+        responses: {
+            /** @description One entry per eps × min_points pair, eps ascending, then min_points ascending. */
+            200: {
+                headers: {
+                    "X-Request-Id": components["headers"]["X-Request-Id"];
+                    [name: string]: unknown;
+                };
+                content: {
+                    "application/json": components["schemas"]["Sweep"];
                 };
             };
             400: components["responses"]["BadRequest"];
