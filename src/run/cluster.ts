@@ -609,7 +609,13 @@ export function clusterInput(
 ): ClusterResult {
   const timer = new Timer(hooks);
   timer.start('read');
-  const obs = readObservations(input, {
+  const obs = readInput(input, format, settings);
+  return clusterObservations(obs, settings, hooks, timer, { format: format ?? 'detected' });
+}
+
+/** Reads an input with the reader options a clustering's settings name (weight, columns, time column and format). */
+export function readInput(input: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings): Observations {
+  return readObservations(input, {
     format,
     weightProperty: settings.weightProperty,
     lonColumn: settings.lonColumn ?? undefined,
@@ -617,7 +623,6 @@ export function clusterInput(
     timeColumn: settings.timeColumn,
     timeFormat: settings.timeFormat,
   });
-  return clusterObservations(obs, settings, hooks, timer, { format: format ?? 'detected' });
 }
 
 /** The JSON document POST /v1/cluster returns, built from the layer texts without re-parsing. */
@@ -628,14 +633,7 @@ export function resultDocument(result: ClusterResult): string {
 
 /** The k-distance curve and suggested eps for one input. */
 export function suggestEpsInput(input: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings): Record<string, unknown> {
-  const obs = readObservations(input, {
-    format,
-    weightProperty: settings.weightProperty,
-    lonColumn: settings.lonColumn ?? undefined,
-    latColumn: settings.latColumn ?? undefined,
-    timeColumn: settings.timeColumn,
-    timeFormat: settings.timeFormat,
-  });
+  const obs = readInput(input, format, settings);
   const { observations } = applyFilter(obs, { since: settings.since, until: settings.until, where: settings.where });
   const minPoints = Math.max(2, settings.minPoints);
   const s = suggestEps(observations.points, minPoints);

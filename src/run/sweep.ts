@@ -3,10 +3,11 @@
  * src/trust/sweep.ts; the answer as a JSON document or as a plain tab-separated table.
  */
 import { applyFilter } from '../ingest/filter.js';
-import { readObservations, type InputFormat } from '../ingest/read.js';
+import type { InputFormat } from '../ingest/read.js';
 import { roundDecimals } from '../geometry/rounding.js';
 import { sweep, sweepGrid, type SweepGrid, type SweepHooks, type SweepSetting } from '../trust/sweep.js';
 import { resolveSettings, SettingsError, type ClusterSettings } from './settings.js';
+import { readInput } from './cluster.js';
 
 /** Settings that do not apply to a sweep (it runs DBSCAN, and draws no hulls). */
 export const NOT_FOR_SWEEP = ['method', 'hull', 'concavity', 'count_by', 'optics_max_eps', 'optics_extraction', 'xi', 'min_cluster_size', 'reference', 'validation'] as const;
@@ -47,14 +48,7 @@ function settingMembers(s: SweepSetting): Record<string, unknown> {
  * @returns the answer of POST /v1/sweep and `roost sweep --json`
  */
 export function sweepInput(input: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings, grid: SweepGrid, hooks: SweepHooks = {}): Record<string, unknown> {
-  const all = readObservations(input, {
-    format,
-    weightProperty: settings.weightProperty,
-    lonColumn: settings.lonColumn ?? undefined,
-    latColumn: settings.latColumn ?? undefined,
-    timeColumn: settings.timeColumn,
-    timeFormat: settings.timeFormat,
-  });
+  const all = readInput(input, format, settings);
   const { observations } = applyFilter(all, { since: settings.since, until: settings.until, where: settings.where });
   const rows = sweep(observations.points, grid, hooks);
   return {

@@ -7,8 +7,8 @@
 import { applyFilter } from '../ingest/filter.js';
 import type { Observations } from '../ingest/types.js';
 import { hotspotHull } from '../geometry/hull.js';
-import { clusterInput, clusterObservations, defaultMinClusterSize, type ClusterHooks, type ClusterResult, type InputFormat } from '../run/cluster.js';
-import { readObservations } from '../ingest/read.js';
+import { clusterInput, clusterObservations, defaultMinClusterSize, readInput, type ClusterHooks, type ClusterResult, type InputFormat } from '../run/cluster.js';
+
 import { SettingsError, type ClusterSettings } from '../run/settings.js';
 import { roundSignificant } from '../geometry/rounding.js';
 import { hotspotStatistics, monteCarloPValues, type ChanceSpec } from './chance.js';
@@ -79,14 +79,7 @@ export function splitEffort(obs: Observations, marker: { property: string; value
  */
 export function clusterCases(data: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings, trust: TrustSettings, hooks: ClusterHooks = {}): { result: ClusterResult; effort: EffortPoints | null } {
   if (trust.effortWhere === null) return { result: clusterInput(data, format, settings, hooks), effort: null };
-  const all = readObservations(data, {
-    format,
-    weightProperty: settings.weightProperty,
-    lonColumn: settings.lonColumn ?? undefined,
-    latColumn: settings.latColumn ?? undefined,
-    timeColumn: settings.timeColumn,
-    timeFormat: settings.timeFormat,
-  });
+  const all = readInput(data, format, settings);
   const split = splitEffort(all, trust.effortWhere);
   const ids = split.cases.features.map((f, k) => String(f.id ?? split.caseIndex[k]));
   const result = clusterObservations(split.cases, settings, hooks, undefined, { format: format ?? 'detected', effort_points: split.effort.lon.length }, undefined, ids);
