@@ -10,7 +10,7 @@ import { featureCollectionString } from '../../geometry/geojson.js';
 import { layerIndex, layerPage } from '../../ogc/layers.js';
 import { parseBbox, parseDatetime, type ItemsQuery } from '../../ogc/query.js';
 import { notModified, sendTagged } from '../conditional.js';
-import { resolveSettings } from '../../run/settings.js';
+import { resolveRunSettings } from '../../trust/options.js';
 import type { LayerName } from '../../run/layers.js';
 import { StoreError, type Run, type Store } from '../../storage/store.js';
 import type { Runner } from '../../jobs/runner.js';
@@ -110,7 +110,7 @@ function startRunHandler(store: Store, runner: Runner, maxQueuedRuns: number, re
     const settings: Record<string, unknown> = { ...dataset.settings, ...fromBody, ...((request.query ?? {}) as Record<string, unknown>) };
     for (const [k, v] of Object.entries(settings)) if (v === null) delete settings[k];
     try {
-      resolveSettings(settings);
+      resolveRunSettings(settings);
     } catch (err) {
       settingsProblem(err);
     }
