@@ -109,6 +109,8 @@ const CASES: Case[] = [
   { name: 'start run: settings a number', method: 'POST', url: '/v1/datasets/d/runs', headers: JSON_TYPE, payload: json({ settings: 5 }) },
   { name: 'start run: negative eps', method: 'POST', url: '/v1/datasets/d/runs', headers: JSON_TYPE, payload: json({ settings: { eps: -1 } }) },
   { name: 'start run: eps in the query not a number', method: 'POST', url: '/v1/datasets/d/runs?eps=far' },
+  { name: 'start run: significance_level 0', method: 'POST', url: '/v1/datasets/d/runs?significance_level=0' },
+  { name: 'start run: resamples too many', method: 'POST', url: '/v1/datasets/d/runs?resamples=10000' },
   { name: 'start run: unknown query parameter', method: 'POST', url: '/v1/datasets/d/runs?colour=red' },
   { name: 'start run: no such dataset', method: 'POST', url: '/v1/datasets/nope/runs' },
   { name: 'list runs: limit 0', method: 'GET', url: '/v1/datasets/d/runs?limit=0' },
