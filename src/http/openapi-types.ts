@@ -99,7 +99,10 @@ export interface paths {
             path?: never;
             cookie?: never;
         };
-        /** List the datasets */
+        /**
+         * List the datasets
+         * @description Every dataset the key may read (a key limited to one dataset sees that one).
+         */
         get: operations["listDatasets"];
         put?: never;
         /**
@@ -717,10 +720,15 @@ export interface paths {
             cookie?: never;
         };
         /**
-         * The feature collections
-         * @description For each dataset, `<dataset>.observations` (its stored observations), and, once it has a
-         *     succeeded run, `<dataset>.hotspots`, `<dataset>.centres`, `<dataset>.noise` and
-         *     `<dataset>.points` from its latest succeeded run.
+         * The feature collections the caller may read
+         * @description For each dataset the key may read, `<dataset>.observations` (its stored observations),
+         *     and, once it has a succeeded run, `<dataset>.hotspots`, `<dataset>.centres`,
+         *     `<dataset>.noise` and `<dataset>.points` from its latest succeeded run. For each dataset
+         *     with publishing settings that the key may read, or that is public, the published
+         *     (generalised) layers of that run: `<dataset>.published-hotspots`, `.published-centres`,
+         *     `.published-noise` and `.published-points`. Without a key (once keys exist) only the
+         *     published layers of public datasets are listed; a key limited to one dataset sees that
+         *     dataset's collections and the public published layers.
          */
         get: operations["featuresCollections"];
         put?: never;
@@ -2100,7 +2108,7 @@ export interface components {
                 "application/problem+json": components["schemas"]["DatasetNotFoundProblem"];
             };
         };
-        /** @description No such collection (an unknown dataset or kind, or a dataset without a succeeded run for a layer). */
+        /** @description No such collection (an unknown dataset or kind, a dataset without a succeeded run for a layer, or without publishing settings for a published layer). */
         CollectionNotFound: {
             headers: {
                 [name: string]: unknown;
@@ -2166,7 +2174,10 @@ export interface components {
     };
     parameters: {
         /**
-         * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+         * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+         *     published-hotspots, published-centres, published-noise or published-points (the published
+         *     layers, readable without a key when the dataset is public). A key limited to one dataset
+         *     reaches that dataset's collections only (and the public published layers).
          * @example marrow-vale.hotspots
          */
         collectionId: string;
@@ -2686,7 +2697,7 @@ export interface operations {
         };
         requestBody?: never;
         responses: {
-            /** @description Every dataset, by id. */
+            /** @description The datasets the key may read, by id. */
             200: {
                 headers: {
                     [name: string]: unknown;
@@ -4015,7 +4026,10 @@ export interface operations {
             header?: never;
             path: {
                 /**
-                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+                 *     published-hotspots, published-centres, published-noise or published-points (the published
+                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
                 collectionId: components["parameters"]["collectionId"];
@@ -4049,7 +4063,10 @@ export interface operations {
             header?: never;
             path: {
                 /**
-                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+                 *     published-hotspots, published-centres, published-noise or published-points (the published
+                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
                 collectionId: components["parameters"]["collectionId"];
@@ -4103,7 +4120,10 @@ export interface operations {
             header?: never;
             path: {
                 /**
-                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+                 *     published-hotspots, published-centres, published-noise or published-points (the published
+                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
                 collectionId: components["parameters"]["collectionId"];
@@ -4143,7 +4163,10 @@ export interface operations {
             header?: never;
             path: {
                 /**
-                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+                 *     published-hotspots, published-centres, published-noise or published-points (the published
+                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
                 collectionId: components["parameters"]["collectionId"];
