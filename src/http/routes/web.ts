@@ -14,7 +14,7 @@
 import { existsSync, readFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import fastifyStatic from '@fastify/static';
-import type { FastifyInstance } from 'fastify';
+import type { FastifyInstance, FastifyRequest } from 'fastify';
 import { pointSet, type PointSet } from '../../core/types.js';
 import { NOT_FOR_SWEEP, sweepDocument, sweepRequest } from '../../run/sweep.js';
 import type { ClusterSettings } from '../../run/settings.js';
@@ -41,6 +41,25 @@ async function storedPoints(store: Store, dataset: Dataset, settings: ClusterSet
     }
   }
   return pointSet(input.lon, input.lat, weight);
+}
+
+/** GET /v1/datasets/{id}/sweep: the sweep over the stored observations a run would cluster now. */
+function datasetSweepHandler(store: Store) {
+  return async (request: FastifyRequest<{ Params: { id: string } }>): Promise<Record<string, unknown>> => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    const dataset = await requireDataset(store, request.params.id);
+    // the dataset's settings that a sweep takes (filters, weight), then the query's
+    const own = Object.fromEntries(Object.entries(splitTrustSettings(dataset.settings).clustering).filter(([k]) => !(NOT_FOR_SWEEP as readonly string[]).includes(k) && k !== 'eps' && k !== 'min_points'));
+    let asked: ReturnType<typeof sweepRequest>;
+    try {
+      asked = sweepRequest({ ...own, ...query });
+    } catch (err) {
+      if (err instanceof SweepError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
+      settingsProblem(err);
+    }
+    const { grid, settings } = asked;
+    return sweepDocument(await storedPoints(store, dataset, settings), 0, settings, grid!);
+  };
 }
 
 export const WEB_DIR = fileURLToPath(new URL('../../../dist/web', import.meta.url));
@@ -107,21 +126,7 @@ export default async function webRoutes(app: FastifyInstance, options: WebRouteO
     return kDistancePreview(points, settings.minPoints, settings.epsAuto ? null : settings.epsMeters);
   });
 
-  app.get<{ Params: { id: string } }>('/v1/datasets/:id/sweep', async (request) => {
-    const query = (request.query ?? {}) as Record<string, unknown>;
-    const dataset = await requireDataset(store, request.params.id);
-    // the dataset's settings that a sweep takes (filters, weight), then the query's
-    const own = Object.fromEntries(Object.entries(splitTrustSettings(dataset.settings).clustering).filter(([k]) => !(NOT_FOR_SWEEP as readonly string[]).includes(k) && k !== 'eps' && k !== 'min_points'));
-    let asked: ReturnType<typeof sweepRequest>;
-    try {
-      asked = sweepRequest({ ...own, ...query });
-    } catch (err) {
-      if (err instanceof SweepError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
-      settingsProblem(err);
-    }
-    const { grid, settings } = asked;
-    return sweepDocument(await storedPoints(store, dataset, settings), 0, settings, grid!);
-  });
+  app.get<{ Params: { id: string } }>('/v1/datasets/:id/sweep', datasetSweepHandler(store));
 
   app.get<{ Params: { id: string; run: string } }>('/v1/datasets/:id/runs/:run/report', async (request, reply) => {
     const dataset = await requireDataset(store, request.params.id);
