@@ -2265,6 +2265,18 @@ export interface components {
         runId: string;
         /** @description west,south,east,north in degrees; west > east crosses the antimeridian. Features whose bounding box meets it are returned. */
         layerBbox: number[];
+        /**
+         * @description The file format: `geojson` (the default), `fgb` (FlatGeobuf, for big layers: written
+         *     header first and a feature at a time, no spatial index; CRS EPSG:4326, longitude first) or
+         *     `csv`. Without `f`, an `Accept` header asking for `application/flatgeobuf` or `text/csv`
+         *     chooses it. FlatGeobuf and CSV have fixed, typed columns: the hotspots and centres layers
+         *     their declared fields, the points and noise layers `id`, `hotspot_id`, `role` and the
+         *     observations' own properties typed from the whole layer (whole numbers as integers, other
+         *     numbers as reals, nested values as JSON text). CSV (RFC 4180) starts with `lon,lat` for
+         *     point layers (centres, points, noise) and with `wkt` (the hull as Well-Known Text) for
+         *     hotspots; reals keep a decimal point and an empty cell is a null.
+         */
+        layerFileFormat: "geojson" | "fgb" | "csv";
         /** @description Features per page (at most 10000); without it, every matching feature. */
         layerLimit: number;
         /** @description `hotspots`, `centres`, `noise` or `points`. OPTICS runs' points and noise features carry `optics_order` and `reachability_m` (see the `layer` query parameter). */
@@ -3127,6 +3139,18 @@ export interface operations {
                 limit?: components["parameters"]["layerLimit"];
                 /** @description Where the page starts; take it from a `next` or `prev` link. */
                 cursor?: components["parameters"]["ogcCursor"];
+                /**
+                 * @description The file format: `geojson` (the default), `fgb` (FlatGeobuf, for big layers: written
+                 *     header first and a feature at a time, no spatial index; CRS EPSG:4326, longitude first) or
+                 *     `csv`. Without `f`, an `Accept` header asking for `application/flatgeobuf` or `text/csv`
+                 *     chooses it. FlatGeobuf and CSV have fixed, typed columns: the hotspots and centres layers
+                 *     their declared fields, the points and noise layers `id`, `hotspot_id`, `role` and the
+                 *     observations' own properties typed from the whole layer (whole numbers as integers, other
+                 *     numbers as reals, nested values as JSON text). CSV (RFC 4180) starts with `lon,lat` for
+                 *     point layers (centres, points, noise) and with `wkt` (the hull as Well-Known Text) for
+                 *     hotspots; reals keep a decimal point and an empty cell is a null.
+                 */
+                f?: components["parameters"]["layerFileFormat"];
             };
             header?: never;
             path: {
@@ -3144,7 +3168,10 @@ export interface operations {
              *     run and layer and Last-Modified the time the run finished. With `bbox`, `datetime`,
              *     `limit` or `cursor`, the matching features as the run wrote them, with
              *     `numberMatched`, `numberReturned` and a `next` link while more remain. Other
-             *     parameters are refused.
+             *     parameters are refused. As FlatGeobuf or CSV (`f=fgb`, `f=csv`, or by `Accept`): the
+             *     same features with typed columns, streamed; while more remain a `Link` header names
+             *     the next page (`rel="next"`), and `X-Roost-Number-Matched` counts the features that
+             *     match.
              */
             200: {
                 headers: {
@@ -3154,6 +3181,8 @@ export interface operations {
                 };
                 content: {
                     "application/geo+json": components["schemas"]["Layer"];
+                    "application/flatgeobuf": string;
+                    "text/csv": string;
                 };
             };
             304: components["responses"]["NotModified"];
@@ -3214,6 +3243,18 @@ export interface operations {
                 limit?: components["parameters"]["layerLimit"];
                 /** @description Where the page starts; take it from a `next` or `prev` link. */
                 cursor?: components["parameters"]["ogcCursor"];
+                /**
+                 * @description The file format: `geojson` (the default), `fgb` (FlatGeobuf, for big layers: written
+                 *     header first and a feature at a time, no spatial index; CRS EPSG:4326, longitude first) or
+                 *     `csv`. Without `f`, an `Accept` header asking for `application/flatgeobuf` or `text/csv`
+                 *     chooses it. FlatGeobuf and CSV have fixed, typed columns: the hotspots and centres layers
+                 *     their declared fields, the points and noise layers `id`, `hotspot_id`, `role` and the
+                 *     observations' own properties typed from the whole layer (whole numbers as integers, other
+                 *     numbers as reals, nested values as JSON text). CSV (RFC 4180) starts with `lon,lat` for
+                 *     point layers (centres, points, noise) and with `wkt` (the hull as Well-Known Text) for
+                 *     hotspots; reals keep a decimal point and an empty cell is a null.
+                 */
+                f?: components["parameters"]["layerFileFormat"];
             };
             header?: never;
             path: {
@@ -3233,7 +3274,10 @@ export interface operations {
              *     run and layer and Last-Modified the time the run finished. With `bbox`, `datetime`,
              *     `limit` or `cursor`, the matching features as the run wrote them, with
              *     `numberMatched`, `numberReturned` and a `next` link while more remain. Other
-             *     parameters are refused.
+             *     parameters are refused. As FlatGeobuf or CSV (`f=fgb`, `f=csv`, or by `Accept`): the
+             *     same features with typed columns, streamed; while more remain a `Link` header names
+             *     the next page (`rel="next"`), and `X-Roost-Number-Matched` counts the features that
+             *     match.
              */
             200: {
                 headers: {
@@ -3243,6 +3287,8 @@ export interface operations {
                 };
                 content: {
                     "application/geo+json": components["schemas"]["Layer"];
+                    "application/flatgeobuf": string;
+                    "text/csv": string;
                 };
             };
             304: components["responses"]["NotModified"];

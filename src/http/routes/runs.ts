@@ -7,9 +7,11 @@
 import { Readable } from 'node:stream';
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { featureCollectionString } from '../../geometry/geojson.js';
+import { categoryNames, hotspotLayerFields, optionalFieldsOf, trustFieldsOf, type LayerField } from '../../geometry/layer-fields.js';
+import { csvLines, flatGeobufChunks, LAYER_FORMATS, layerColumns, layerFormat, MEDIA_TYPES, type LayerFormat } from '../../ogc/formats.js';
 import { layerIndex, layerPage } from '../../ogc/layers.js';
 import { parseItemsQuery, parseLimit } from '../../ogc/query.js';
-import { notModified, sendTagged } from '../conditional.js';
+import { etagOf, notModified, sendTagged } from '../conditional.js';
 import { resolveSettings } from '../../run/settings.js';
 import type { LayerName } from '../../run/layers.js';
 import { StoreError, type Run } from '../../storage/store.js';
@@ -18,7 +20,14 @@ import { HttpProblem } from '../errors.js';
 import { requireDataset, requireRun, runJson, settingsProblem } from './common.js';
 
 /** What a result-layer address takes: without any, the whole layer as stored. */
-const LAYER_PARAMS = ['bbox', 'datetime', 'limit', 'cursor'];
+const LAYER_PARAMS = ['bbox', 'datetime', 'limit', 'cursor', 'f'];
+
+/** The declared fields of a run's hotspots and centres layers; null for points and noise (their columns follow the observations). */
+export function declaredFields(run: Run, layer: LayerName): LayerField[] | null {
+  if (layer !== 'hotspots' && layer !== 'centres') return null;
+  const hotspots = (run.summary?.['hotspots'] ?? []) as Record<string, unknown>[];
+  return hotspotLayerFields(categoryNames(hotspots), trustFieldsOf(hotspots), optionalFieldsOf(hotspots));
+}
 
 export interface RunRouteOptions {
   /** layers sent at once; one more GET is answered 503 (default DEFAULT_CONFIG.layerStreams) */
@@ -35,12 +44,42 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
   const retryAfter = { 'retry-after': String(options.retryAfterS ?? DEFAULT_CONFIG.retryAfterS) };
   let streaming = 0;
 
+  /** A layer (or a page of it) as FlatGeobuf or CSV: typed columns, streamed a feature at a time. */
+  const sendConverted = async (request: FastifyRequest, run: Run, layer: LayerName, reply: FastifyReply, format: Exclude<LayerFormat, 'geojson'>, q: Parameters<typeof layerPage>[1]) => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    // a stored layer never changes: the run, the layer, the format and the query name the answer
+    const tag = etagOf(JSON.stringify([run.id, layer, format, Object.entries(query).filter(([k]) => k !== 'f').sort()]));
+    if (notModified(request, reply, tag, run.finishedAt)) return reply.code(304).send();
+    const page = layerPage(await layerIndex(store, run.id, layer), q);
+    if (page.next !== null) {
+      const next = new URLSearchParams();
+      for (const [k, v] of Object.entries(query)) if (k !== 'cursor') next.set(k, String(v));
+      next.set('cursor', page.next);
+      void reply.header('link', `<${request.url.split('?')[0]}?${next.toString()}>; rel="next"`);
+    }
+    void reply.header('x-roost-number-matched', String(page.matched));
+    const features = page.features.map((t) => JSON.parse(t) as Parameters<typeof layerColumns>[0][number]);
+    const columns = layerColumns(features, declaredFields(run, layer));
+    const name = `${run.id}-${layer}.${format}`;
+    void reply.header('content-disposition', `inline; filename="${name}"`);
+    const body = format === 'fgb' ? Readable.from(flatGeobufChunks(features, columns, layer)) : Readable.from(csvLines(features, columns));
+    return reply.type(MEDIA_TYPES[format]).send(body);
+  };
+
   const sendLayer = async (request: FastifyRequest, run: Run, layer: LayerName, reply: FastifyReply) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
-    const q = { ...parseItemsQuery(query, LAYER_PARAMS), limit: query.limit === undefined ? Number.MAX_SAFE_INTEGER : parseLimit(String(query.limit)) };
+    // f names the file format here (geojson, fgb, csv), not the OGC API's json or html
+    const { f, ...rest } = query;
+    if (f !== undefined && !(LAYER_FORMATS as readonly unknown[]).includes(f)) {
+      throw new HttpProblem('invalid-parameter', `f must be one of ${LAYER_FORMATS.join(', ')}, got ${JSON.stringify(f)}`, { parameter: 'f' });
+    }
+    const q = { ...parseItemsQuery(rest, LAYER_PARAMS), limit: query.limit === undefined ? Number.MAX_SAFE_INTEGER : parseLimit(String(query.limit)) };
     if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
     void reply.header('x-roost-run', run.id);
-    if (Object.keys(query).length > 0) {
+    void reply.header('vary', 'Accept');
+    const format = layerFormat(f, request.headers.accept);
+    if (format !== 'geojson') return sendConverted(request, run, layer, reply, format, q);
+    if (Object.keys(query).some((k) => k !== 'f')) {
       // a page of the layer: its features as the run wrote them, with the link to the next page
       const page = layerPage(await layerIndex(store, run.id, layer), q);
       const links = [];
