@@ -1196,6 +1196,10 @@ export interface components {
             area_km2: number | null;
             density_per_km2: number | null;
             centre: components["schemas"]["Position"] | null;
+            /** @description Only for a hotspot of a run with a Monte Carlo test (the dataset's p-value settings): its p-value. */
+            p_value?: number;
+            /** @description Only for a hotspot of a run with a Monte Carlo test: whether its p-value is at most the run's significance_level. An emerging hotspot with false here may be chance. */
+            significant?: boolean;
         };
         /** @description How a surviving hotspot changed, new minus (or over) old. */
         SurvivalChange: {
@@ -1344,11 +1348,16 @@ export interface components {
             /** @description Default: the id. */
             name?: string;
             /**
-             * @description Default clustering settings, named as /v1/cluster's parameters (eps, min_points, method, weight, hull, concavity, since, until, where, count_by, optics_max_eps, optics_extraction, xi, min_cluster_size, lon_column, lat_column, time_column, time_format). A dataset's time_column and time_format also say where posted observations keep their time.
+             * @description Default clustering settings, named as /v1/cluster's parameters (eps, min_points, method, weight, hull, concavity, since, until, where, count_by, optics_max_eps, optics_extraction, xi, min_cluster_size, lon_column, lat_column, time_column, time_format, reference, validation). A dataset's time_column and time_format also say where posted observations keep their time. The Monte Carlo test and stability of every run, named as /v1/cluster's parameters too: simulations, seed, null_model (csr in the convex hull of the run's observations, or effort), effort_where (property=value: the dataset's observations so marked are effort points, the others cases), significance_level, resamples, resample_share. Runs then write p_value, significant and stability on every hotspot (summary, hotspots and centres layers) and `significant` on the hotspots their changes end in.
              * @example {
              *       "eps": 75,
              *       "min_points": 10,
-             *       "count_by": "plant"
+             *       "count_by": "plant",
+             *       "simulations": 99,
+             *       "seed": 7,
+             *       "null_model": "csr",
+             *       "significance_level": 0.05,
+             *       "resamples": 20
              *     }
              */
             settings?: Record<string, unknown>;
@@ -3056,6 +3065,23 @@ export interface operations {
                  * @example DD.MM.YYYY
                  */
                 time_format?: components["parameters"]["time_format"];
+                /** @description Monte Carlo test: simulations under the null model (Besag & Diggle 1977); p-values go down to 1 / (1 + simulations). 0 (no test) unless null_model or effort_where is given, then 99. */
+                simulations?: components["parameters"]["simulations"];
+                /** @description Seed of the simulations and resamples; the same seed gives the same p-values and stabilities. */
+                seed?: components["parameters"]["seed"];
+                /** @description The null model of the Monte Carlo test: csr (the same number of points uniform on the sphere in the study area) or effort (random labelling over cases and the effort points named by effort_where). */
+                null_model?: components["parameters"]["null_model"];
+                /**
+                 * @description Effort null model: the observations whose property equals the value (property=value) are effort points; only the others (cases) are clustered.
+                 * @example kind=visit
+                 */
+                effort_where?: components["parameters"]["effort_where"];
+                /** @description Hotspots with p_value at most this are marked significant. */
+                significance_level?: components["parameters"]["significance_level"];
+                /** @description Stability: resamples of the observations (without replacement); each hotspot gets the mean Jaccard similarity with its best match (Hennig 2007). 0: none. */
+                resamples?: components["parameters"]["resamples"];
+                /** @description Stability: share of the observations each resample keeps. */
+                resample_share?: components["parameters"]["resample_share"];
             };
             header?: never;
             path: {

@@ -47,7 +47,11 @@ function runParam(query: Record<string, unknown>, name: string): string | undefi
 /** The figures of a stored hotspot the change views show. */
 function figures(h: RunHotspot | undefined): Record<string, unknown> {
   const f = h?.figures ?? {};
-  return { count: f['count'] ?? h?.members.length ?? null, area_km2: f['area_km2'] ?? null, density_per_km2: f['density_per_km2'] ?? null, centre: f['centre'] ?? null };
+  const out: Record<string, unknown> = { count: f['count'] ?? h?.members.length ?? null, area_km2: f['area_km2'] ?? null, density_per_km2: f['density_per_km2'] ?? null, centre: f['centre'] ?? null };
+  // from runs with a Monte Carlo test (a dataset's p-value settings)
+  if (typeof f['p_value'] === 'number') out['p_value'] = f['p_value'];
+  if (typeof f['significant'] === 'boolean') out['significant'] = f['significant'];
+  return out;
 }
 
 /** A transition with the figures of the hotspots at both ends. */

@@ -7,7 +7,7 @@ import { mayRead } from '../../auth/roles.js';
 import type { FastifyInstance } from 'fastify';
 import { windowProblem } from '../../jobs/execute.js';
 import { scheduleProblem } from '../../jobs/schedule.js';
-import { resolveSettings } from '../../run/settings.js';
+import { resolveRunSettings } from '../../trust/options.js';
 import { StoreError, type DatasetPatch, type NewDataset } from '../../storage/store.js';
 import { checkPublishBlock, PublishError } from '../../publish/publish.js';
 import { checkWebhookAddress, checkWebhookUrl, WebhookAddressError } from '../../jobs/webhook-address.js';
@@ -26,10 +26,10 @@ function bad(parameter: string, detail: string): never {
   throw new HttpProblem('invalid-parameter', `${parameter}: ${detail}`, { parameter });
 }
 
-/** Settings (an object, as the schema says) checked by the settings validator. */
+/** Settings (an object, as the schema says) checked by the clustering and trust settings validators. */
 function checkSettings(settings: Record<string, unknown>): Record<string, unknown> {
   try {
-    resolveSettings(settings);
+    resolveRunSettings(settings);
   } catch (err) {
     settingsProblem(err, 'settings.');
   }

@@ -12,7 +12,7 @@ import { csvLines, flatGeobufChunks, LAYER_FORMATS, layerColumns, layerFormat, M
 import { layerIndex, layerPage } from '../../ogc/layers.js';
 import { parseItemsQuery, parseLimit } from '../../ogc/query.js';
 import { etagOf, notModified, sendTagged } from '../conditional.js';
-import { resolveSettings } from '../../run/settings.js';
+import { resolveRunSettings } from '../../trust/options.js';
 import type { LayerName } from '../../run/layers.js';
 import { StoreError, type Run } from '../../storage/store.js';
 import { DEFAULT_CONFIG } from '../config.js';
@@ -123,7 +123,7 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
     const settings: Record<string, unknown> = { ...dataset.settings, ...fromBody, ...((request.query ?? {}) as Record<string, unknown>) };
     for (const [k, v] of Object.entries(settings)) if (v === null) delete settings[k];
     try {
-      resolveSettings(settings);
+      resolveRunSettings(settings);
     } catch (err) {
       settingsProblem(err);
     }
