@@ -1619,6 +1619,7 @@ export interface components {
             storageCrs?: string;
             extent?: {
                 spatial?: {
+                    /** @description [west, south, east, north], the smallest box holding the features; west > east when it crosses the antimeridian. */
                     bbox?: number[][];
                     crs?: string;
                 };

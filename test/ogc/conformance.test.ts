@@ -187,6 +187,10 @@ describe('OGC API – Features requirements', () => {
       const fiji = cs.find((c) => c.id === 'fiji.hotspots')!;
       const [w, , e] = fiji.extent!.spatial.bbox[0]!;
       expect(w).toBeGreaterThan(e!);
+      // and so has the dataset's observations: the smallest range holding them, across ±180
+      const fijiObs = cs.find((c) => c.id === 'fiji.observations')!.extent!.spatial.bbox[0]!;
+      expect(fijiObs[0]).toBeGreaterThan(179);
+      expect(fijiObs[2]).toBeLessThan(-179);
       expect(cs.find((c) => c.id === 'empty.observations')!.extent).toBeUndefined();
     });
 
