@@ -382,7 +382,14 @@ export interface paths {
          *     As GeoJSON (`?format=geojson` or `Accept: application/geo+json`): the hulls of the later
          *     run's hotspots with `transition` (the kind that led to each), `track_id`,
          *     `from_track_ids`, figures and, for survivals, the change; and the hulls, from the earlier
-         *     run, of the hotspots that disappeared.
+         *     run, of the hotspots that disappeared. Every feature has the same flat fields, in this
+         *     order and of these types whatever its transition, null where they do not apply:
+         *     `transition`, `run_id` (strings), `hotspot_id` (integer), `track_id`, `from_track_ids`
+         *     (comma-separated), `count` (integer), `area_km2`, `density_per_km2`, `centre_lon`,
+         *     `centre_lat` (reals), `basis` (string), `overlap` (real: a split part's share, else the
+         *     largest overlap), `count_delta`, `count_ratio`, `area_delta_km2`, `density_ratio`,
+         *     `moved_m` (reals, always written with a decimal point), `shrink` (boolean), then
+         *     `p_value` and `significant` when either run has them, and `centre` (the pair).
          */
         get: operations["getChanges"];
         put?: never;

@@ -193,6 +193,45 @@ describe.skipIf(skipReason !== null)(`layer formats read back by GDAL${skipReaso
     expect(Number(res.headers['x-roost-number-matched'])).toBeGreaterThan(50);
   }, 60_000);
 
+  it('the changes layer: GDAL types every field the same whether the ratios came out whole or not', async () => {
+    // 'same' runs twice on the same data: every survival's ratios are exactly 1 and nothing moved;
+    // 'grown' gets more observations between its runs, so its ratios are fractional
+    const again = async (ds: string): Promise<void> => {
+      const run = await app.inject({ method: 'POST', url: `/v1/datasets/${ds}/runs` });
+      await waitForRun(run.headers.location as string);
+    };
+    await dataset('same', { eps: 60, min_points: 5 }, pointsCollection(800, 31));
+    await again('same');
+    await dataset('grown', { eps: 60, min_points: 5 }, pointsCollection(800, 32));
+    const more = JSON.parse(pointsCollection(300, 33)) as { features: { id: string }[] };
+    more.features.forEach((f) => (f.id = `more-${f.id}`));
+    expect((await app.inject({ method: 'POST', url: '/v1/datasets/grown/observations', headers: GEO, payload: JSON.stringify(more) })).statusCode).toBe(200);
+    await again('grown');
+    const types: Record<string, Record<string, string>> = {};
+    for (const ds of ['same', 'grown']) {
+      const res = await app.inject({ method: 'GET', url: `/v1/datasets/${ds}/changes?format=geojson` });
+      expect(res.statusCode, res.body).toBe(200);
+      const fc = res.json() as { features: Feature[] };
+      const survivals = fc.features.filter((f) => f.properties.transition === 'survival');
+      expect(survivals.length, ds).toBeGreaterThan(0);
+      if (ds === 'same') {
+        expect(survivals.every((f) => f.properties.count_ratio === 1 && f.properties.moved_m === 0), ds).toBe(true);
+        // written as reals: 1.0, not 1
+        expect(res.body).toContain('"count_ratio":1.0');
+      } else expect(survivals.some((f) => !Number.isInteger(f.properties.count_ratio)), ds).toBe(true);
+      // every feature has the same fields, whatever its transition
+      const names = new Set(fc.features.map((f) => Object.keys(f.properties).join(',')));
+      expect(names.size, ds).toBe(1);
+      const file = join(dir, `${ds}-changes.geojson`);
+      writeFileSync(file, res.body);
+      types[ds] = fieldTypes((await gdal('ogrinfo', ['-ro', '-so', '-al', file])).stdout);
+    }
+    expect(types['same']).toEqual(types['grown']);
+    for (const f of ['count_ratio', 'density_ratio', 'moved_m', 'area_delta_km2', 'count_delta', 'area_km2', 'centre_lon']) expect(types['same']![f], f).toBe('Real');
+    expect(types['same']!['from_track_ids']).toBe('String');
+    expect(types['same']!['shrink']).toBe('Integer(Boolean)');
+  }, 180_000);
+
   it('is chosen by Accept as by f, and says so in Content-Type; a conditional GET is answered 304', async () => {
     const byF = await app.inject({ method: 'GET', url: '/v1/datasets/survey/runs/latest/centres?f=fgb' });
     const byAccept = await app.inject({ method: 'GET', url: '/v1/datasets/survey/runs/latest/centres', headers: { accept: 'application/flatgeobuf' } });

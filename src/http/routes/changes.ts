@@ -16,7 +16,8 @@
  * GET /v1/datasets/{id}/tracks/{track}: one entry per run the track was seen in, oldest first.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
-import { bboxOf, featureCollectionString, featureString, type GeometryLike } from '../../geometry/geojson.js';
+import { bboxOf, featureCollectionString, featureStringWithProperties, type GeometryLike } from '../../geometry/geojson.js';
+import { CHANGE_FIELDS, fieldsText, TRUST_FIELDS } from '../../geometry/layer-fields.js';
 import { compareStoredRuns, type TransitionJson } from '../../jobs/tracking.js';
 import { StoreError, type Run, type RunHotspot, type TrackRunRef } from '../../storage/store.js';
 import { resolveTrackSettings, type TrackSettings } from '../../tracks/settings.js';
@@ -144,29 +145,39 @@ export default async function changeRoutes(app: FastifyInstance, options: Change
 
     const features: string[] = [];
     const geometries: GeometryLike[] = [];
+    // one field list for every feature (layer-fields.ts CHANGE_FIELDS), with the Monte Carlo
+    // fields when either run has them, so a GIS types every field the same from one pair to the next
+    const trust = TRUST_FIELDS.filter((f) => f.name !== 'stability' && [...c.from, ...c.to].some((h) => h.figures?.[f.name] !== undefined && h.figures?.[f.name] !== null)).map((f) => ({ ...f, nullable: true }));
+    const fields = [...CHANGE_FIELDS, ...trust];
     const add = (h: RunHotspot, run: Run, t: TransitionJson, extra: Record<string, unknown>): void => {
       const g = JSON.parse(h.hull) as GeometryLike;
       geometries.push(g);
-      features.push(
-        featureString(g, {
-          transition: t.kind,
-          run_id: run.id,
-          hotspot_id: h.hotspotId,
-          track_id: h.trackId,
-          ...figures(h),
-          ...extra,
-        }, `${run.id}-${h.hotspotId}`),
-      );
+      const fig = figures(h);
+      const centre = Array.isArray(fig['centre']) ? (fig['centre'] as number[]) : null;
+      const props: Record<string, unknown> = {
+        transition: t.kind,
+        run_id: run.id,
+        hotspot_id: h.hotspotId,
+        track_id: h.trackId,
+        ...fig,
+        centre_lon: centre?.[0] ?? null,
+        centre_lat: centre?.[1] ?? null,
+        shrink: false,
+        ...extra,
+      };
+      // the pair, for the map page, after the declared fields
+      const text = fieldsText(props, fields);
+      features.push(featureStringWithProperties(g, centre === null ? text : `${text.slice(0, -1)},"centre":${JSON.stringify(centre)}}`, `${run.id}-${h.hotspotId}`));
     };
     for (const t of c.transitions) {
       if (t.kind === 'disappearance') {
-        add(fromById.get(t.from[0]!.hotspot_id)!, from, t, { from_track_ids: [t.from[0]!.track_id] });
+        add(fromById.get(t.from[0]!.hotspot_id)!, from, t, { from_track_ids: t.from[0]!.track_id ?? '' });
         continue;
       }
       t.to.forEach((e, k) => {
-        const extra: Record<string, unknown> = { from_track_ids: t.from.map((f) => f.track_id), basis: t.basis };
+        const extra: Record<string, unknown> = { from_track_ids: t.from.map((f) => f.track_id ?? '').join(','), basis: t.basis };
         if (t.kind === 'split') extra['overlap'] = t.overlap[k];
-        else if (t.kind !== 'emergence') extra['overlap'] = t.overlap;
+        else if (t.kind !== 'emergence' && t.overlap.length > 0) extra['overlap'] = Math.max(...t.overlap);
         if (t.change) Object.assign(extra, t.change);
         if (t.shrink) extra['shrink'] = true;
         add(toById.get(e.hotspot_id)!, to, t, extra);
