@@ -2160,7 +2160,9 @@ export interface components {
         /**
          * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
          *     published-hotspots, published-centres, published-noise or published-points (the published
-         *     layers, readable without a key when the dataset is public). A key limited to one dataset
+         *     layers, readable without a key when the dataset is public). The layers are those of the
+         *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+         *     in /features/collections). A key limited to one dataset
          *     reaches that dataset's collections only (and the public published layers).
          * @example marrow-vale.hotspots
          */
@@ -4001,7 +4003,9 @@ export interface operations {
                 /**
                  * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
                  *     published-hotspots, published-centres, published-noise or published-points (the published
-                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     layers, readable without a key when the dataset is public). The layers are those of the
+                 *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+                 *     in /features/collections). A key limited to one dataset
                  *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
@@ -4038,7 +4042,9 @@ export interface operations {
                 /**
                  * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
                  *     published-hotspots, published-centres, published-noise or published-points (the published
-                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     layers, readable without a key when the dataset is public). The layers are those of the
+                 *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+                 *     in /features/collections). A key limited to one dataset
                  *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
@@ -4095,7 +4101,9 @@ export interface operations {
                 /**
                  * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
                  *     published-hotspots, published-centres, published-noise or published-points (the published
-                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     layers, readable without a key when the dataset is public). The layers are those of the
+                 *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+                 *     in /features/collections). A key limited to one dataset
                  *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
@@ -4138,7 +4146,9 @@ export interface operations {
                 /**
                  * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
                  *     published-hotspots, published-centres, published-noise or published-points (the published
-                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     layers, readable without a key when the dataset is public). The layers are those of the
+                 *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+                 *     in /features/collections). A key limited to one dataset
                  *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */

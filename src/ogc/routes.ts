@@ -88,8 +88,15 @@ function withParams(query: Record<string, unknown>, changes: Record<string, stri
 interface Resolved {
   dataset: Dataset;
   kind: CollectionKind;
-  /** the latest succeeded run, for layer collections */
+  /** the latest succeeded run, or the named one, for layer collections */
   run: Run | null;
+  /** whether the id names the run (`<dataset>@<run>.<kind>`) */
+  named: boolean;
+}
+
+/** The id a resolved collection was asked by. */
+function idOf(r: Resolved): string {
+  return collectionId(r.dataset.id, r.kind, r.named ? r.run!.id : null);
 }
 
 export default async function featuresRoutes(app: FastifyInstance, options: FeaturesOptions = {}): Promise<void> {
@@ -102,13 +109,20 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     if (parsed === null || dataset === null) {
       throw new HttpProblem('collection-not-found', `there is no collection ${JSON.stringify(id)}; GET ${FEATURES_ROOT}/collections lists them`);
     }
-    if (parsed.kind === 'observations') return { dataset, kind: parsed.kind, run: null };
+    if (parsed.kind === 'observations') return { dataset, kind: parsed.kind, run: null, named: false };
     if (isPublishedKind(parsed.kind) && dataset.publish === null) {
       throw new HttpProblem('collection-not-found', `dataset ${JSON.stringify(dataset.id)} is not published (it has no publishing settings), so there is no collection ${JSON.stringify(id)}`);
     }
+    if (parsed.runId !== null) {
+      const run = await store.getRun(dataset.id, parsed.runId);
+      if (run === null || run.status !== 'succeeded') {
+        throw new HttpProblem('collection-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run ${JSON.stringify(parsed.runId)}, so there is no collection ${JSON.stringify(id)}; GET /v1/datasets/${dataset.id}/runs lists its runs`);
+      }
+      return { dataset, kind: parsed.kind, run, named: true };
+    }
     const run = await store.latestRun(dataset.id);
     if (run === null) throw new HttpProblem('collection-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet, so there is no collection ${JSON.stringify(id)}`);
-    return { dataset, kind: parsed.kind, run };
+    return { dataset, kind: parsed.kind, run, named: false };
   };
 
   /** The index of a layer collection: a stored layer, or a published one made from the run. */
@@ -138,7 +152,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
 
   /** The description of one collection (OGC 17-069r4 §7.14). */
   const collectionJson = async (request: FastifyRequest, r: Resolved, html: boolean): Promise<Record<string, unknown>> => {
-    const id = collectionId(r.dataset.id, r.kind);
+    const id = idOf(r);
     const href = `${root(request)}/collections/${id}`;
     let bbox: Bbox | null = null;
     let interval: [number | null, number | null] | null = null;
@@ -154,8 +168,8 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const iso = (t: number | null): string | null => (t === null ? null : new Date(t).toISOString());
     return {
       id,
-      title: `${r.dataset.name} — ${r.kind}`,
-      description: `Dataset ${r.dataset.id}: ${KIND_TEXT[r.kind]}${r.run ? ` (run ${r.run.id}, finished ${r.run.finishedAt})` : ''}.`,
+      title: `${r.dataset.name} — ${r.kind}${r.named ? ` (run ${r.run!.id})` : ''}`,
+      description: `Dataset ${r.dataset.id}: ${r.named ? KIND_TEXT[r.kind].replace('the latest succeeded run', `run ${r.run!.id}`) : KIND_TEXT[r.kind]}${r.run ? ` (run ${r.run.id}, finished ${r.run.finishedAt})` : ''}.`,
       itemType: 'feature',
       crs: [CRS84],
       storageCrs: CRS84,
@@ -185,11 +199,11 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const out: Resolved[] = [];
     for (const dataset of await store.listDatasets()) {
       const reads = mayRead(request.principal, dataset.id);
-      if (reads) out.push({ dataset, kind: 'observations', run: null });
+      if (reads) out.push({ dataset, kind: 'observations', run: null, named: false });
       if (!reads && !publishedPublicly(dataset)) continue;
       const run = await store.latestRun(dataset.id);
       if (run === null) continue;
-      if (reads) for (const kind of LAYER_NAMES) out.push({ dataset, kind, run });
+      if (reads) for (const kind of LAYER_NAMES) out.push({ dataset, kind, run, named: false });
       if (dataset.publish === null) continue;
       try {
         await publishedLayers(store, dataset, run);
@@ -197,7 +211,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
         if (err instanceof HttpProblem) continue;
         throw err;
       }
-      for (const kind of PUBLISHED_KINDS) out.push({ dataset, kind, run });
+      for (const kind of PUBLISHED_KINDS) out.push({ dataset, kind, run, named: false });
     }
     return out;
   };
@@ -268,12 +282,12 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const q = parseItemsQuery(query);
     const html = wantsHtml(request, q.format);
     const r = await resolve(request.params.collectionId);
-    const href = `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}/items`;
+    const href = `${root(request)}/collections/${idOf(r)}/items`;
     const { features, matched, next, prev } = r.kind === 'observations' ? await observationPage(store, r.dataset.id, q) : layerPage(await indexOf(r), q);
     const own = withParams(query, { f: null });
     const links: Link[] = [
       ...selfLinks(href, html, GEOJSON, own),
-      { href: `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}`, rel: 'collection', type: JSON_TYPE, title: 'the collection' },
+      { href: `${root(request)}/collections/${idOf(r)}`, rel: 'collection', type: JSON_TYPE, title: 'the collection' },
     ];
     const fmt = html ? 'html' : 'json';
     if (next !== null) links.push({ href: href + withParams(query, { cursor: next, f: fmt }), rel: 'next', type: html ? HTML : GEOJSON, title: 'next page' });
@@ -302,8 +316,8 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
       const k = index.ids.indexOf(fid);
       text = k < 0 ? null : index.features[k]!;
     }
-    if (text === null) throw new HttpProblem('feature-not-found', `collection ${collectionId(r.dataset.id, r.kind)} has no feature ${JSON.stringify(fid)}`);
-    const coll = `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}`;
+    if (text === null) throw new HttpProblem('feature-not-found', `collection ${idOf(r)} has no feature ${JSON.stringify(fid)}`);
+    const coll = `${root(request)}/collections/${idOf(r)}`;
     const links: Link[] = [...selfLinks(`${coll}/items/${encodeURIComponent(fid)}`, html, GEOJSON), { href: coll, rel: 'collection', type: JSON_TYPE, title: 'the collection' }];
     void reply.header('content-crs', `<${CRS84}>`);
     if (html) {
@@ -315,7 +329,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
 
   /** JSON Schema of a collection's feature properties. */
   function schemaOf(r: Resolved): Record<string, unknown> {
-    const id = collectionId(r.dataset.id, r.kind);
+    const id = idOf(r);
     if (r.kind === 'hotspots' || r.kind === 'centres') {
       const hotspots = (r.run!.summary?.['hotspots'] ?? []) as Record<string, unknown>[];
       return propertiesJsonSchema(hotspotLayerFields(categoryNames(hotspots), trustFieldsOf(hotspots), optionalFieldsOf(hotspots)), id);
