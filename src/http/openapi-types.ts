@@ -773,7 +773,11 @@ export interface paths {
          * @description Features passing `bbox` and `datetime`, at most `limit` per page, with `numberMatched`,
          *     `numberReturned`, `timeStamp` and absolute `self`, `alternate`, `next` (and for result
          *     layers `prev`) links. Result-layer features are served as their run wrote them. The
-         *     `Content-Crs` header names CRS84.
+         *     `Content-Crs` header names CRS84. With `f=fgb` or `f=csv` (or an `Accept` header asking
+         *     for `application/flatgeobuf` or `text/csv`) the page comes as a FlatGeobuf or CSV file
+         *     with typed columns, as the result-layer addresses give them (see `layerFileFormat`); the
+         *     other pages are then named in a `Link` header and `X-Roost-Number-Matched` counts the
+         *     matching features.
          */
         get: operations["featuresItems"];
         put?: never;
@@ -2169,6 +2173,8 @@ export interface components {
         collectionId: string;
         /** @description The representation, when not chosen by the Accept header (text/html gives HTML). */
         ogcFormat: "json" | "html";
+        /** @description The representation, when not chosen by the Accept header: json (GeoJSON), html, fgb (FlatGeobuf) or csv. */
+        ogcItemsFormat: "json" | "html" | "fgb" | "csv";
         /** @description Features per page; larger values are answered with 10000. */
         ogcLimit: number;
         /** @description west,south,east,north in degrees (six numbers with heights, which are ignored); west > east crosses the antimeridian. Features whose bounding box meets it are returned. */
@@ -4093,8 +4099,8 @@ export interface operations {
                 crs?: components["parameters"]["ogcCrs"];
                 /** @description Where the page starts; take it from a `next` or `prev` link. */
                 cursor?: components["parameters"]["ogcCursor"];
-                /** @description The representation, when not chosen by the Accept header (text/html gives HTML). */
-                f?: components["parameters"]["ogcFormat"];
+                /** @description The representation, when not chosen by the Accept header: json (GeoJSON), html, fgb (FlatGeobuf) or csv. */
+                f?: components["parameters"]["ogcItemsFormat"];
             };
             header?: never;
             path: {
@@ -4123,6 +4129,8 @@ export interface operations {
                 content: {
                     "application/geo+json": components["schemas"]["OgcFeatureCollection"];
                     "text/html": string;
+                    "application/flatgeobuf": string;
+                    "text/csv": string;
                 };
             };
             304: components["responses"]["NotModified"];

@@ -10,7 +10,9 @@
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { featureCollectionString } from '../geometry/geojson.js';
-import { categoryNames, hotspotLayerFields, optionalFieldsOf, propertiesJsonSchema, trustFieldsOf } from '../geometry/layer-fields.js';
+import { Readable } from 'node:stream';
+import { categoryNames, hotspotLayerFields, optionalFieldsOf, propertiesJsonSchema, trustFieldsOf, type LayerField } from '../geometry/layer-fields.js';
+import { csvLines, flatGeobufChunks, layerColumns, layerFormat, MEDIA_TYPES } from './formats.js';
 import { etagOf, notModified, sendTagged } from '../http/conditional.js';
 import { HttpProblem } from '../http/errors.js';
 import { mayRead } from '../auth/roles.js';
@@ -279,8 +281,10 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
 
   app.get<{ Params: { collectionId: string } }>(`${FEATURES_ROOT}/collections/:collectionId/items`, async (request, reply) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
-    const q = parseItemsQuery(query);
-    const html = wantsHtml(request, q.format);
+    // f=fgb or f=csv (or Accept asking for them): the page as a file with typed columns
+    const file = fileFormatOf(query.f, request.headers.accept);
+    const q = parseItemsQuery(file === null ? query : withoutF(query));
+    const html = file === null && wantsHtml(request, q.format);
     const r = await resolve(request.params.collectionId);
     const href = `${root(request)}/collections/${idOf(r)}/items`;
     const { features, matched, next, prev } = r.kind === 'observations' ? await observationPage(store, r.dataset.id, q) : layerPage(await indexOf(r), q);
@@ -292,6 +296,21 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const fmt = html ? 'html' : 'json';
     if (next !== null) links.push({ href: href + withParams(query, { cursor: next, f: fmt }), rel: 'next', type: html ? HTML : GEOJSON, title: 'next page' });
     if (prev !== null) links.push({ href: href + withParams(query, { cursor: prev === '0' ? null : prev, f: fmt }), rel: 'prev', type: html ? HTML : GEOJSON, title: 'previous page' });
+    if (file !== null) {
+      const fmt = file === 'fgb' ? 'fgb' : 'csv';
+      for (const l of links) if (l.rel === 'next' || l.rel === 'prev') l.href = l.href.replace(/([?&])f=json/, `$1f=${fmt}`);
+      const link = links.filter((l) => l.rel === 'next' || l.rel === 'prev').map((l) => `<${l.href}>; rel="${l.rel}"`);
+      if (link.length > 0) void reply.header('link', link.join(', '));
+      if (matched !== null) void reply.header('x-roost-number-matched', String(matched));
+      void reply.header('content-crs', `<${CRS84}>`);
+      const parsed = features.map((t) => JSON.parse(t) as Parameters<typeof layerColumns>[0][number]);
+      const columns = layerColumns(parsed, r.kind === 'hotspots' || r.kind === 'centres' ? hotspotFieldsOf(r.run!) : null);
+      const name = idOf(r);
+      void reply.header('content-disposition', `inline; filename="${name}.${fmt}"`);
+      // the tag names the page: the collection, its run, and the query
+      if (notModified(request, reply, etagOf(JSON.stringify([name, r.run?.id ?? null, features.length, matched, Object.entries(query).sort(), r.kind === 'observations' ? features : null])), modifiedOf(r))) return reply.code(304).send();
+      return reply.type(MEDIA_TYPES[fmt]).send(Readable.from(fmt === 'fgb' ? flatGeobufChunks(parsed, columns, name) : csvLines(parsed, columns)));
+    }
     const timeStamp = new Date().toISOString();
     const extra = { ...(matched === null ? {} : { numberMatched: matched }), numberReturned: features.length, timeStamp, links };
     void reply.header('content-crs', `<${CRS84}>`);
@@ -385,6 +404,25 @@ function publishedSchema(kind: CollectionKind, title: string): Record<string, un
       role: { type: ['string', 'null'], enum: ['core', 'border', 'noise', null] },
     },
   };
+}
+
+/** The file format asked of an items page: `f=fgb` / `f=csv`, or (without `f`) an Accept header naming one. */
+function fileFormatOf(f: unknown, accept: string | undefined): 'fgb' | 'csv' | null {
+  if (f === 'fgb' || f === 'csv') return f;
+  if (f !== undefined) return null;
+  const chosen = layerFormat(undefined, accept);
+  return chosen === 'geojson' ? null : chosen;
+}
+
+function withoutF(query: Record<string, unknown>): Record<string, unknown> {
+  const { f: _f, ...rest } = query;
+  return rest;
+}
+
+/** The declared fields of a run's hotspots and centres. */
+function hotspotFieldsOf(run: Run): LayerField[] {
+  const hotspots = (run.summary?.['hotspots'] ?? []) as Record<string, unknown>[];
+  return hotspotLayerFields(categoryNames(hotspots), trustFieldsOf(hotspots), optionalFieldsOf(hotspots));
 }
 
 /** A page of observations: the store pages by its own cursor, which is passed through. */

@@ -232,6 +232,28 @@ describe.skipIf(skipReason !== null)(`layer formats read back by GDAL${skipReaso
     expect(types['same']!['shrink']).toBe('Integer(Boolean)');
   }, 180_000);
 
+  it('OGC API items as FlatGeobuf and CSV: GDAL reads the page with the features and values of the GeoJSON page', async () => {
+    for (const [coll, format] of [['survey.points', 'fgb'], ['survey.hotspots', 'csv'], ['survey.observations', 'csv'], ['survey.observations', 'fgb']] as const) {
+      const page = await app.inject({ method: 'GET', url: `/features/collections/${coll}/items?limit=300` });
+      expect(page.statusCode, page.body).toBe(200);
+      const want = (page.json() as { features: Feature[] }).features;
+      const res = await app.inject({ method: 'GET', url: `/features/collections/${coll}/items?limit=300&f=${format}` });
+      expect(res.statusCode, res.body).toBe(200);
+      expect(res.headers['content-type']).toMatch(format === 'fgb' ? /^application\/flatgeobuf/ : /^text\/csv/);
+      const file = join(dir, `${coll}.${format}`);
+      writeFileSync(file, res.rawPayload);
+      const oo = format === 'csv' ? ['-oo', 'AUTODETECT_TYPE=YES', '-oo', 'EMPTY_STRING_AS_NULL=YES', '-oo', 'KEEP_GEOM_COLUMNS=NO', ...(coll.endsWith('hotspots') ? ['-oo', 'GEOM_POSSIBLE_NAMES=wkt'] : ['-oo', 'X_POSSIBLE_NAMES=lon', '-oo', 'Y_POSSIBLE_NAMES=lat'])] : [];
+      const out = `${file}.json`;
+      const { stderr } = await gdal('ogr2ogr', ['-f', 'GeoJSON', ...oo, out, file]);
+      expect(stderr, coll).toBe('');
+      expectSameFeatures((JSON.parse(readFileSync(out, 'utf8')) as { features: Feature[] }).features, want, `items ${coll} ${format}`);
+      if (want.length === 300) expect(res.headers['link'], coll).toMatch(new RegExp(`/features/collections/${coll.replace('.', '\\.')}/items\\?.*f=${format}.*>; rel="next"`));
+    }
+    const byAccept = await app.inject({ method: 'GET', url: '/features/collections/survey.centres/items', headers: { accept: 'text/csv' } });
+    expect(byAccept.headers['content-type']).toMatch(/^text\/csv/);
+    expect(byAccept.body.split('\r\n')[0]).toMatch(/^lon,lat,hotspot_id,/);
+  }, 120_000);
+
   it('is chosen by Accept as by f, and says so in Content-Type; a conditional GET is answered 304', async () => {
     const byF = await app.inject({ method: 'GET', url: '/v1/datasets/survey/runs/latest/centres?f=fgb' });
     const byAccept = await app.inject({ method: 'GET', url: '/v1/datasets/survey/runs/latest/centres', headers: { accept: 'application/flatgeobuf' } });
