@@ -8,7 +8,7 @@
  * the hotspot it falls in, whether it lies inside that hull, the hotspot's size, or the nearest
  * hotspot when it is in none.
  */
-import type { FastifyInstance, FastifyRequest } from 'fastify';
+import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import type { HullGeometry } from '../../geometry/hull.js';
 import { bboxOfPositions, COORDINATE_DECIMALS, featureCollectionString } from '../../geometry/geojson.js';
 import { readRecords, type RecordBatch, type RecordOptions } from '../../ingest/records.js';
@@ -172,12 +172,65 @@ export interface ObservationRouteOptions {
   maxPostFeatures?: number;
 }
 
-export default async function observationRoutes(app: FastifyInstance, options: ObservationRouteOptions = {}): Promise<void> {
-  const maxFeatures = options.maxPostFeatures ?? DEFAULT_CONFIG.maxPostFeatures;
-  const { store, jobPool } = app;
-  const lookup = new HotspotLookup(store);
+type Rejection = { index: number | null; id?: string | number; code: string; message: string };
+type IngestResult = Awaited<ReturnType<Store['ingest']>>;
 
-  app.post<{ Params: { id: string } }>('/v1/datasets/:id/observations', async (request: FastifyRequest<{ Params: { id: string } }>) => {
+/** The observations the store kept back as conflicting with stored ones, at their input index. */
+function conflictsOf(batch: RecordBatch, result: IngestResult): Rejection[] {
+  const indexOf = new Map<string, number>();
+  batch.records.forEach((r, k) => indexOf.has(r.id) || indexOf.set(r.id, batch.indices[k]!));
+  return result.conflicts.map((id) => ({
+    index: indexOf.get(id) ?? null,
+    id,
+    code: 'conflict',
+    message: `an observation with id ${JSON.stringify(id)} is stored with other content (or given twice with different content); send replace=true to replace it`,
+  }));
+}
+
+/** The refusal of a batch the store did not keep: conflicts alone, or invalid features and conflicts without partial. */
+function unstoredProblem(batch: RecordBatch, conflicts: Rejection[]): HttpProblem {
+  if (conflicts.length > 0 && batch.rejected.length === 0) {
+    return new HttpProblem('observation-conflict', `${conflicts.length} observation${conflicts.length > 1 ? 's have ids' : ' has an id'} stored with other content; nothing was stored. Send replace=true to replace them, or partial=true to store the rest.`, problemList(conflicts, conflicts.length));
+  }
+  return new HttpProblem('invalid-observations', 'some observations are not valid or conflict with stored ones; nothing was stored', problemList([...batch.rejected, ...conflicts].sort((a, b) => (a.index ?? 0) - (b.index ?? 0)), batch.rejected.length + conflicts.length));
+}
+
+/** The answer's counts and lists for a stored batch. */
+function ingestAnswer(datasetId: string, result: IngestResult, rejections: Rejection[]): Record<string, unknown> {
+  return {
+    dataset_id: datasetId,
+    stored: result.stored,
+    accepted: result.accepted.length,
+    duplicate: result.duplicates.length,
+    replaced: result.replaced.length,
+    rejected: rejections.length,
+    duplicates: result.duplicates.slice(0, MAX_LISTED_PROBLEMS),
+    rejections: rejections.slice(0, MAX_LISTED_PROBLEMS).map((r) => ({ index: r.index, ...(r.id !== undefined ? { id: r.id } : {}), code: r.code, reason: r.message })),
+  };
+}
+
+/** Adds to the answer where the posted observations stand against the latest run's hotspots: one observation, or each of a collection up to MAX_PLACEMENTS. */
+async function addPlacements(lookup: HotspotLookup, datasetId: string, batch: RecordBatch, rejected: number, answer: Record<string, unknown>): Promise<void> {
+  if (batch.records.length === 1 && rejected === 0) {
+    const r = batch.records[0]!;
+    const found = await lookup.place(datasetId, [r]);
+    answer.observation_id = r.id;
+    answer.latest_run = found.run;
+    answer.hotspot = found.placements?.[0]?.hotspot ?? null;
+    answer.nearest_hotspot = found.placements?.[0]?.nearest_hotspot ?? null;
+  } else if (batch.records.length > 0) {
+    // in input order
+    const shown = batch.records.slice(0, MAX_PLACEMENTS);
+    const found = await lookup.place(datasetId, shown);
+    answer.latest_run = found.run;
+    answer.placements = found.placements === null ? [] : shown.map((r, k) => ({ index: batch.indices[k], observation_id: r.id, ...found.placements![k]! }));
+    answer.placements_total = batch.records.length;
+  }
+}
+
+/** POST /v1/datasets/{id}/observations */
+function postObservationsHandler(store: Store, jobs: JobPool | null, lookup: HotspotLookup, maxFeatures: number) {
+  return async (request: FastifyRequest<{ Params: { id: string } }>) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
     const replace = query.replace === true;
     const partial = query.partial === true;
@@ -185,72 +238,51 @@ export default async function observationRoutes(app: FastifyInstance, options: O
     const body = request.body as Uint8Array | undefined;
     if (!body || body.byteLength === 0) throw new HttpProblem('malformed-body', 'The request body is empty; send a GeoJSON Feature or FeatureCollection, CSV, or a GeoJSON text sequence.');
     const format = formatOf(request.headers['content-type']);
-    const batch = await readBatch(jobPool, body, recordOptions(dataset, format, partial, query, maxFeatures));
-
+    const batch = await readBatch(jobs, body, recordOptions(dataset, format, partial, query, maxFeatures));
     const result = await store
       .ingest(dataset.id, batch.records, { replace, partial, rejected: batch.rejected.map((r) => ({ index: r.index, reason: r.message })) })
       .catch(storeProblem);
-    const indexOf = new Map<string, number>();
-    batch.records.forEach((r, k) => indexOf.has(r.id) || indexOf.set(r.id, batch.indices[k]!));
-    const conflicts = result.conflicts.map((id) => ({
-      index: indexOf.get(id) ?? null,
-      id,
-      code: 'conflict',
-      message: `an observation with id ${JSON.stringify(id)} is stored with other content (or given twice with different content); send replace=true to replace it`,
-    }));
-    if (!result.stored && conflicts.length > 0 && batch.rejected.length === 0) {
-      throw new HttpProblem('observation-conflict', `${conflicts.length} observation${conflicts.length > 1 ? 's have ids' : ' has an id'} stored with other content; nothing was stored. Send replace=true to replace them, or partial=true to store the rest.`, problemList(conflicts, conflicts.length));
-    }
-    if (!result.stored) {
-      // both invalid features and conflicts, without partial
-      throw new HttpProblem('invalid-observations', 'some observations are not valid or conflict with stored ones; nothing was stored', problemList([...batch.rejected, ...conflicts].sort((a, b) => (a.index ?? 0) - (b.index ?? 0)), batch.rejected.length + conflicts.length));
-    }
+    const conflicts = conflictsOf(batch, result);
+    if (!result.stored) throw unstoredProblem(batch, conflicts);
     const rejections = [...batch.rejected, ...conflicts].sort((a, b) => (a.index ?? 0) - (b.index ?? 0));
-    const answer: Record<string, unknown> = {
-      dataset_id: dataset.id,
-      stored: result.stored,
-      accepted: result.accepted.length,
-      duplicate: result.duplicates.length,
-      replaced: result.replaced.length,
-      rejected: rejections.length,
-      duplicates: result.duplicates.slice(0, MAX_LISTED_PROBLEMS),
-      rejections: rejections.slice(0, MAX_LISTED_PROBLEMS).map((r) => ({ index: r.index, ...(r.id !== undefined ? { id: r.id } : {}), code: r.code, reason: r.message })),
-    };
-    if (batch.records.length === 1 && rejections.length === 0) {
-      const r = batch.records[0]!;
-      const found = await lookup.place(dataset.id, [r]);
-      answer.observation_id = r.id;
-      answer.latest_run = found.run;
-      answer.hotspot = found.placements?.[0]?.hotspot ?? null;
-      answer.nearest_hotspot = found.placements?.[0]?.nearest_hotspot ?? null;
-    } else if (batch.records.length > 0) {
-      // a collection: where each stored observation stands, in input order, up to MAX_PLACEMENTS
-      const shown = batch.records.slice(0, MAX_PLACEMENTS);
-      const found = await lookup.place(dataset.id, shown);
-      answer.latest_run = found.run;
-      answer.placements = found.placements === null ? [] : shown.map((r, k) => ({ index: batch.indices[k], observation_id: r.id, ...found.placements![k]! }));
-      answer.placements_total = batch.records.length;
-    }
+    const answer = ingestAnswer(dataset.id, result, rejections);
+    await addPlacements(lookup, dataset.id, batch, rejections.length, answer);
     return answer;
-  });
+  };
+}
 
-  app.get<{ Params: { id: string } }>('/v1/datasets/:id/observations', async (request, reply) => {
+/** The listing's filters from its query: bbox on the sphere, datetime, `where` conditions, cursor. */
+function listOptions(query: Record<string, unknown>): ListObservationsOptions {
+  const options: ListObservationsOptions = { limit: (query.limit as number | undefined) ?? 1000 };
+  if (query.bbox !== undefined) options.bbox = parseBbox(query.bbox);
+  if (query.datetime !== undefined) Object.assign(options, parseDatetime(String(query.datetime)));
+  if (query.where !== undefined) {
+    const where: WhereCondition[] = [];
+    try {
+      for (const c of [query.where].flat()) where.push(parseCondition(c));
+    } catch (err) {
+      settingsProblem(err);
+    }
+    options.where = where;
+  }
+  if (query.cursor !== undefined) options.cursor = String(query.cursor);
+  return options;
+}
+
+/** The address of the listing's next page: the same query with the next cursor. */
+function nextObservationsLink(datasetId: string, query: Record<string, unknown>, cursor: string): Record<string, string> {
+  const next = new URLSearchParams();
+  for (const [k, v] of Object.entries(query)) if (k !== 'cursor') for (const x of [v].flat()) next.append(k, String(x));
+  next.set('cursor', cursor);
+  return { rel: 'next', type: 'application/geo+json', href: `/v1/datasets/${datasetId}/observations?${next.toString()}` };
+}
+
+/** GET /v1/datasets/{id}/observations */
+function listObservationsHandler(store: Store) {
+  return async (request: FastifyRequest<{ Params: { id: string } }>, reply: FastifyReply) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
     const dataset = await requireDataset(store, request.params.id);
-    const options: ListObservationsOptions = { limit: (query.limit as number | undefined) ?? 1000 };
-    if (query.bbox !== undefined) options.bbox = parseBbox(query.bbox);
-    if (query.datetime !== undefined) Object.assign(options, parseDatetime(String(query.datetime)));
-    if (query.where !== undefined) {
-      const raw = [query.where].flat();
-      const where: WhereCondition[] = [];
-      try {
-        for (const c of raw) where.push(parseCondition(c));
-      } catch (err) {
-        settingsProblem(err);
-      }
-      options.where = where;
-    }
-    if (query.cursor !== undefined) options.cursor = String(query.cursor);
+    const options = listOptions(query);
     let page;
     try {
       page = await store.listObservations(dataset.id, options);
@@ -258,26 +290,30 @@ export default async function observationRoutes(app: FastifyInstance, options: O
       if (err instanceof StoreError && err.code === 'invalid') throw new HttpProblem('invalid-parameter', err.message, { parameter: /cursor/.test(err.message) ? 'cursor' : 'query' });
       throw err;
     }
-    const links: Record<string, string>[] = [];
-    if (page.nextCursor !== null) {
-      const next = new URLSearchParams();
-      for (const [k, v] of Object.entries(query)) if (k !== 'cursor') for (const x of [v].flat()) next.append(k, String(x));
-      next.set('cursor', page.nextCursor);
-      links.push({ rel: 'next', type: 'application/geo+json', href: `/v1/datasets/${dataset.id}/observations?${next.toString()}` });
-    }
+    const links = page.nextCursor === null ? [] : [nextObservationsLink(dataset.id, query, page.nextCursor)];
     // the bbox of this page's observations (RFC 7946 §5), west > east when they straddle the
     // antimeridian; rounded outwards, as the features keep their coordinates as posted
     const box = bboxOfPositions(page.lon, page.lat);
     const bbox = box === null ? null : [floorTo(box[0]), floorTo(box[1]), ceilTo(box[2]), ceilTo(box[3])];
     const text = featureCollectionString(page.features, bbox, { numberReturned: page.features.length, links });
     return sendTagged(request, reply, 'application/geo+json', text);
-  });
+  };
+}
 
-  app.delete<{ Params: { id: string; obsId: string } }>('/v1/datasets/:id/observations/:obsId', async (request, reply) => {
+/** DELETE /v1/datasets/{id}/observations/{obsId} */
+function retractObservationHandler(store: Store) {
+  return async (request: FastifyRequest<{ Params: { id: string; obsId: string } }>, reply: FastifyReply) => {
     const dataset = await requireDataset(store, request.params.id);
     if (!(await store.deleteObservation(dataset.id, request.params.obsId))) {
       throw new HttpProblem('observation-not-found', `dataset ${JSON.stringify(dataset.id)} has no observation ${JSON.stringify(request.params.obsId)}`);
     }
     return reply.code(204).send();
-  });
+  };
+}
+
+export default async function observationRoutes(app: FastifyInstance, options: ObservationRouteOptions = {}): Promise<void> {
+  const { store, jobPool } = app;
+  app.post('/v1/datasets/:id/observations', postObservationsHandler(store, jobPool, new HotspotLookup(store), options.maxPostFeatures ?? DEFAULT_CONFIG.maxPostFeatures));
+  app.get('/v1/datasets/:id/observations', listObservationsHandler(store));
+  app.delete('/v1/datasets/:id/observations/:obsId', retractObservationHandler(store));
 }
