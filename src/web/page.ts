@@ -22,6 +22,7 @@ import {
   type FC,
   type ShadeBy,
 } from './runview.js';
+import { sweepGrid, sweepTableHtml, type Sweep } from './sweep.js';
 import { markSvg, TRANSITION_MARKS, type TransitionKind } from './transitions.js';
 
 maplibregl.setWorkerUrl(workerUrl);
@@ -151,6 +152,13 @@ async function datasetPage(id: string): Promise<void> {
         <button type="button" id="run-with-eps">Run with this eps</button>
         <p id="run-status" class="note" aria-live="polite"></p>
       </section>
+      <section id="sweep" aria-label="Other settings">
+        <h2>Other settings</h2>
+        <p class="note">Clusters the dataset at eps and min_points around its own setting (${escapeHtml(String(dataset.settings.eps ?? '?'))} m, ${minPoints}) and counts hotspots and noise for each. This costs some work on the service, so it runs only when asked.</p>
+        <button type="button" id="sweep-button">Try other settings</button>
+        <p id="sweep-status" class="note" aria-live="polite"></p>
+        <div id="sweep-result"></div>
+      </section>
       <section id="reachability" hidden aria-label="OPTICS reachability"><h2>Reachability (OPTICS)</h2><div id="reach-chart" class="chart"></div><p id="reach-note" class="note"></p></section>
     </aside>
     <div class="map" id="map" role="region" aria-label="Map of hotspots"></div>
@@ -278,6 +286,7 @@ async function datasetPage(id: string): Promise<void> {
   });
 
   await setupEpsChooser(id, dataset);
+  setupSweep(id, dataset, minPoints);
   if (runs.length) await loadRun(runs[0].id, true);
   else setState('ready');
 }
@@ -365,6 +374,43 @@ async function setupEpsChooser(id: string, dataset: Dataset): Promise<void> {
     }
   });
   await load();
+}
+
+/** The sensitivity table, fetched when the visitor asks for it. */
+function setupSweep(id: string, dataset: Dataset, minPoints: number): void {
+  const button = document.getElementById('sweep-button') as HTMLButtonElement;
+  const status = document.getElementById('sweep-status')!;
+  const result = document.getElementById('sweep-result')!;
+  const section = document.getElementById('sweep')!;
+  const eps = Number(dataset.settings.eps);
+  if (!(eps > 0)) {
+    button.disabled = true;
+    status.textContent = 'The dataset has no eps setting to sweep around.';
+    return;
+  }
+  button.addEventListener('click', async () => {
+    const grid = sweepGrid(eps, minPoints);
+    button.disabled = true;
+    section.setAttribute('aria-busy', 'true');
+    section.dataset.state = 'loading';
+    status.className = 'note';
+    status.removeAttribute('role');
+    status.textContent = `Clustering at ${grid.eps.length * grid.minPoints.length} settings…`;
+    try {
+      const sweep = await getJson<Sweep>(`/v1/datasets/${enc(id)}/sweep?eps=${grid.eps.join(',')}&min_points=${grid.minPoints.join(',')}`);
+      result.innerHTML = sweepTableHtml(sweep, { eps, minPoints });
+      status.textContent = `${sweep.settings.length} settings clustered.`;
+      section.dataset.state = 'ready';
+    } catch (err) {
+      status.className = 'error';
+      status.setAttribute('role', 'alert');
+      status.textContent = `The sweep failed: ${(err as Error).message}`;
+      section.dataset.state = 'error';
+    } finally {
+      button.disabled = false;
+      section.removeAttribute('aria-busy');
+    }
+  });
 }
 
 async function route(): Promise<void> {

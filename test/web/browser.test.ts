@@ -167,6 +167,61 @@ describe.skipIf(missing !== null)(`the map page in chromium${missing ? ` (skippe
     expect(errors).toEqual([]);
   });
 
+  it('fetches the eps × min_points sensitivity table on demand, with the API sweep figures in its cells and the dataset setting marked', async () => {
+    const page = await open(`/datasets/${DEMO_DATASET}`);
+    expect(await page.$('#sweep-table')).toBeNull(); // nothing is swept before it is asked for
+    // reached and pressed from the keyboard
+    await page.focus('#run-with-eps');
+    for (let i = 0; i < 5 && (await page.evaluate(() => document.activeElement?.id)) !== 'sweep-button'; i++) await page.keyboard.press('Tab');
+    expect(await page.evaluate(() => document.activeElement?.id)).toBe('sweep-button');
+    const asked = page.waitForRequest((r) => r.url().includes('/sweep?'));
+    await page.keyboard.press('Enter');
+    const url = new URL((await asked).url());
+    // the demo dataset's setting is eps 75 m, min_points 10 (src/http/routes/demo.ts); the grid is ½, ¾, 1, 1½ and 2 times each
+    expect(url.searchParams.get('eps')).toBe('38,56,75,113,150');
+    expect(url.searchParams.get('min_points')).toBe('5,8,10,15,20');
+    await page.waitForSelector('#sweep[data-state="ready"] #sweep-table');
+    const api = (await (await fetch(`${base}/v1/datasets/${DEMO_DATASET}/sweep?${url.searchParams}`)).json()) as Json;
+    const cells = await page.$$eval('#sweep-table td.sweep-cell', (tds) =>
+      tds.map((td) => ({
+        eps: Number((td as HTMLElement).dataset.eps),
+        minPoints: Number((td as HTMLElement).dataset.minPoints),
+        hotspots: td.querySelector('[data-field="hotspots"]')!.textContent,
+        noise: td.querySelector('[data-field="noise_share"]')!.textContent,
+        current: td.getAttribute('aria-current') === 'true' && td.classList.contains('current') && /now/.test(td.textContent ?? ''),
+      })),
+    );
+    expect(cells).toEqual(
+      (api.settings as Json[]).map((s) => ({
+        eps: s.eps_m,
+        minPoints: s.min_points,
+        hotspots: String(s.hotspots),
+        noise: `${(100 * s.noise_share).toFixed(1)} %`,
+        current: s.eps_m === 75 && s.min_points === 10,
+      })),
+    );
+    expect(cells.filter((c) => c.current)).toHaveLength(1);
+    // rows are eps and columns min_points, with headers a screen reader announces
+    expect(await page.$$eval('#sweep-table tbody th[scope="row"]', (th) => th.map((t) => t.textContent))).toEqual((api.eps_m as number[]).map((e) => `${e} m`));
+    expect(await page.$$eval('#sweep-table thead th[scope="col"]', (th) => th.slice(1).map((t) => Number(t.textContent)))).toEqual(api.min_points);
+    expect(await page.textContent('#sweep-table caption')).toMatch(/eps \(rows\) and min_points \(columns\)/);
+    await page.locator('#sweep').scrollIntoViewIfNeeded();
+    await page.screenshot({ path: join(SCREENSHOTS, 'sweep.png') });
+
+    // a failing sweep says so in words, and the button can be pressed again
+    await page.route('**/sweep?*', (route) =>
+      route.fulfill({ status: 504, contentType: 'application/problem+json', body: JSON.stringify({ type: 'about:blank', title: 'Too slow', status: 504, detail: 'the sweep took longer than the time limit' }) }),
+    );
+    await page.click('#sweep-button');
+    await page.waitForSelector('#sweep[data-state="error"]');
+    expect(await page.textContent('#sweep-status[role="alert"]')).toBe('The sweep failed: the sweep took longer than the time limit');
+    expect(await page.isEnabled('#sweep-button')).toBe(true);
+    await page.close();
+    // the 504 above is the browser's own console report of the refused request
+    expect(errors.filter((e) => !/status of 504/.test(e))).toEqual([]);
+    errors.length = 0;
+  });
+
   it('opens the run report with the network blocked and shows the same hotspot count', async () => {
     const res = await fetch(`${base}/v1/datasets/${DEMO_DATASET}/runs/${latest.id}/report`);
     expect(res.status).toBe(200);
