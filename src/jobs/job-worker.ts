@@ -1,5 +1,7 @@
 /**
- * The worker-thread side of stored datasets: reading posted bodies into store records, and
+ * The worker-thread side of stored datasets: reading posted bodies into store records; reading,
+ * storing and placing large posts whole (src/jobs/store-batch.ts) with a store connection of the
+ * thread's own, so that a batch of 100 000 observations does not hold up the main thread; and
  * executing runs with a store connection of the thread's own (better-sqlite3 and pg both work in
  * worker threads), so that neither parsing nor loading, clustering and saving a large dataset
  * holds up the main thread. Track assignment is asked of the main thread over a message port,
@@ -9,7 +11,8 @@ import { Buffer } from 'node:buffer';
 import type { MessagePort } from 'node:worker_threads';
 import { readRecords, type RecordBatch, type RecordOptions } from '../ingest/records.js';
 import { InputError, type InputProblem } from '../ingest/types.js';
-import { openStore, type StoreConfig } from '../storage/index.js';
+import { openStore, StoreError, type StoreConfig, type StoreErrorCode } from '../storage/index.js';
+import { BatchNotStored, HotspotLookup, storeBatch, type StoredBatch } from './store-batch.js';
 import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
 
@@ -17,6 +20,16 @@ export interface RecordsTask {
   op: 'records';
   body: Uint8Array;
   options: RecordOptions;
+}
+
+export interface StoreTask {
+  op: 'store';
+  store: StoreConfig;
+  datasetId: string;
+  body: Uint8Array;
+  options: RecordOptions;
+  replace: boolean;
+  partial: boolean;
 }
 
 export interface RunTask {
@@ -30,9 +43,19 @@ export interface RunTask {
   port: MessagePort;
 }
 
-export type JobTask = RecordsTask | RunTask;
+export type JobTask = RecordsTask | StoreTask | RunTask;
 
 export type RecordsOutcome = { ok: true; batch: RecordBatch } | { ok: false; problems: InputProblem[]; total: number; message: string };
+
+/**
+ * A large post's outcome: stored (or refused as a whole for conflicts, see StoredBatch.result),
+ * unreadable input, or a store failure, after which nothing of the batch is stored; `code` is the
+ * StoreError's when the store refused it for a reason users can act on.
+ */
+export type StoreOutcome =
+  | { ok: true; stored: StoredBatch }
+  | { ok: false; input: { problems: InputProblem[]; total: number; message: string } }
+  | { ok: false; failure: { code: StoreErrorCode | null; message: string; stack?: string } };
 
 export type RunOutcomeMessage =
   | { ok: true; summary: Record<string, unknown>; timings: Record<string, number>; hotspots: number }
@@ -44,6 +67,34 @@ function records(task: RecordsTask): RecordsOutcome {
   } catch (err) {
     if (err instanceof InputError) return { ok: false, problems: err.problems, total: err.total, message: err.message };
     throw err;
+  }
+}
+
+/** The which-hotspot lookups of this thread, kept across posts (a run's hotspots do not change). */
+const lookup = new HotspotLookup();
+
+async function storePost(task: StoreTask): Promise<StoreOutcome> {
+  let batch: RecordBatch;
+  try {
+    batch = readRecords(Buffer.from(task.body.buffer, task.body.byteOffset, task.body.byteLength), task.options);
+  } catch (err) {
+    if (err instanceof InputError) return { ok: false, input: { problems: err.problems, total: err.total, message: err.message } };
+    throw err;
+  }
+  let store;
+  try {
+    try {
+      store = await openStore({ ...task.store, migrate: false, pgPoolSize: 1 });
+    } catch (err) {
+      throw new BatchNotStored(err);
+    }
+    return { ok: true, stored: await storeBatch(store, lookup, JSON.stringify(task.store), task.datasetId, batch, { replace: task.replace, partial: task.partial }) };
+  } catch (err) {
+    if (!(err instanceof BatchNotStored)) throw err; // the batch is stored; placing it failed
+    const e = err.cause instanceof Error ? err.cause : err;
+    return { ok: false, failure: { code: err.cause instanceof StoreError ? err.cause.code : null, message: e.message, stack: e.stack } };
+  } finally {
+    await store?.close();
   }
 }
 
@@ -79,6 +130,6 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
 }
 
 /** Runs one task; the default export piscina calls. */
-export default function work(task: JobTask): RecordsOutcome | Promise<RunOutcomeMessage> {
-  return task.op === 'records' ? records(task) : run(task);
+export default function work(task: JobTask): RecordsOutcome | Promise<StoreOutcome> | Promise<RunOutcomeMessage> {
+  return task.op === 'records' ? records(task) : task.op === 'store' ? storePost(task) : run(task);
 }

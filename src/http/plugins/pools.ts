@@ -32,6 +32,8 @@ declare module 'fastify' {
     workPool: WorkPool;
     jobPool: JobPool;
     admission: Admission;
+    /** large posted batches being read and stored in the job pool (src/http/routes/observations.ts) */
+    storing: { inProgress: number };
   }
 }
 
@@ -86,6 +88,7 @@ async function pools(app: FastifyInstance, options: PoolsOptions): Promise<void>
   app.decorate('workPool', workPool);
   app.decorate('jobPool', jobPool);
   app.decorate('admission', createAdmission(options));
+  app.decorate('storing', { inProgress: 0 });
   app.addHook('onClose', async () => {
     await Promise.all([workPool.close(), jobPool.close()]);
   });
