@@ -114,8 +114,8 @@ function num(figures: Record<string, unknown>, name: string): number | undefined
  * A hotspot in the form tracking needs, from the figures written on its features (the stored
  * `figures` are those same properties: `count`, `area_km2`, `density_per_km2`, `centre`, rounded
  * as published). A new run's hotspots are read from the same rounded figures, so that the same
- * data gives a survival with exactly zero change. Density is count ÷ area (the published density
- * is rounded to 3 decimals, too coarse for sparse hotspots), or the published one when the rounded
+ * data gives a survival with exactly zero change. Density is count ÷ area (recomputed rather than
+ * read, so that it carries no second rounding), or the published one when the rounded
  * area is 0. `count` falls back to the number of members.
  * @throws Error naming the hotspot when the figures have no centre or area
  */

@@ -5,8 +5,8 @@
  * lies in the new hotspot Y, |X ∩ Y| / |X| (members) or area(X ∩ Y) / area(X) (hulls). It is not
  * symmetric on purpose: it asks "where did X go".
  *
- * Hull areas come from @turf/turf (spherical area of the vertices, polygon clipping in the
- * longitude/latitude plane). Only ratios of areas are used, so turf's Earth radius cancels; for
+ * Hull areas come from Turf (@turf/area, @turf/intersect, @turf/union: spherical area of the
+ * vertices, polygon clipping in the longitude/latitude plane). Only ratios of areas are used, so turf's Earth radius cancels; for
  * hotspot-sized hulls the planar clipping of straight lon/lat edges is what the hulls themselves
  * draw (they are written with edges densified to lon/lat straight lines).
  */
