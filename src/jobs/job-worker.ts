@@ -1,7 +1,8 @@
 /**
  * The worker-thread side of stored datasets: reading posted bodies into store records; reading,
  * storing and placing large posts whole (src/jobs/store-batch.ts) with a store connection of the
- * thread's own, so that a batch of 100 000 observations does not hold up the main thread; and
+ * thread's own, so that a batch of 100 000 observations does not hold up the main thread; making
+ * a run's published layers (src/publish/publish.ts); and
  * executing runs with a store connection of the thread's own (better-sqlite3 and pg both work in
  * worker threads), so that neither parsing nor loading, clustering and saving a large dataset
  * holds up the main thread. Track assignment is asked of the main thread over a message port,
@@ -13,6 +14,8 @@ import { readRecords, type RecordBatch, type RecordOptions } from '../ingest/rec
 import { InputError, type InputProblem } from '../ingest/types.js';
 import { openStore, StoreError, type StoreConfig, type StoreErrorCode } from '../storage/index.js';
 import { BatchNotStored, HotspotLookup, storeBatch, type StoredBatch } from './store-batch.js';
+import { publishLayerTexts, type PublishedLayers, type PublishOptions } from '../publish/publish.js';
+import { joinPieces } from '../storage/layer-pieces.js';
 import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
 
@@ -32,6 +35,16 @@ export interface StoreTask {
   partial: boolean;
 }
 
+export interface PublishTask {
+  op: 'publish';
+  store: StoreConfig;
+  runId: string;
+  options: PublishOptions;
+}
+
+/** A run's published layers, or null when the run has no stored points or hotspots layer. */
+export type PublishOutcome = PublishedLayers | null;
+
 export interface RunTask {
   op: 'run';
   store: StoreConfig;
@@ -43,7 +56,7 @@ export interface RunTask {
   port: MessagePort;
 }
 
-export type JobTask = RecordsTask | StoreTask | RunTask;
+export type JobTask = RecordsTask | StoreTask | PublishTask | RunTask;
 
 export type RecordsOutcome = { ok: true; batch: RecordBatch } | { ok: false; problems: InputProblem[]; total: number; message: string };
 
@@ -98,6 +111,18 @@ async function storePost(task: StoreTask): Promise<StoreOutcome> {
   }
 }
 
+/** Reads a run's points and hotspots layers and makes its published layers (src/publish/publish.ts). */
+async function publish(task: PublishTask): Promise<PublishOutcome> {
+  const store = await openStore({ ...task.store, migrate: false, pgPoolSize: 1 });
+  try {
+    const points = await joinPieces(await store.getRunLayerPieces(task.runId, 'points'));
+    const hotspots = await joinPieces(await store.getRunLayerPieces(task.runId, 'hotspots'));
+    return points === null || hotspots === null ? null : publishLayerTexts(points, hotspots, task.options);
+  } finally {
+    await store.close();
+  }
+}
+
 function askTracks(port: MessagePort, hotspots: FinishedHotspot[]): Promise<TrackAssignment> {
   return new Promise((resolve, reject) => {
     port.once('message', (m: { assignment?: TrackAssignment; error?: string }) => {
@@ -130,6 +155,9 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
 }
 
 /** Runs one task; the default export piscina calls. */
-export default function work(task: JobTask): RecordsOutcome | Promise<StoreOutcome> | Promise<RunOutcomeMessage> {
-  return task.op === 'records' ? records(task) : task.op === 'store' ? storePost(task) : run(task);
+export default function work(task: JobTask): RecordsOutcome | Promise<StoreOutcome> | Promise<PublishOutcome> | Promise<RunOutcomeMessage> {
+  if (task.op === 'records') return records(task);
+  if (task.op === 'store') return storePost(task);
+  if (task.op === 'publish') return publish(task);
+  return run(task);
 }

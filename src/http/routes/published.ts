@@ -5,14 +5,18 @@
  * as they are now. Anyone may read them when those settings say `public: true`; otherwise they
  * need a reader key like the exact layers.
  *
- * Published layers are made from the stored points and hotspots layers on the main thread and
- * the last few are kept: a map asks for the same layers again and again.
+ * Published layers are made from the stored points and hotspots layers in a job thread with its
+ * own store connection (on the main thread only for an in-memory database, which threads cannot
+ * open), and the last few are kept: a map asks for the same layers again and again. Requests for
+ * a build under way wait for it rather than starting another.
  */
 import type { FastifyInstance } from 'fastify';
 import type { LayerName } from '../../run/layers.js';
 import { joinPieces } from '../../storage/layer-pieces.js';
 import type { Dataset, Run } from '../../storage/store.js';
-import { publishLayerTexts, PublishError, resolvePublishOptions, type PublishedLayers } from '../../publish/publish.js';
+import { publishLayerTexts, PublishError, resolvePublishOptions, type PublishedLayers, type PublishOptions } from '../../publish/publish.js';
+import { JobQueueFull } from '../../jobs/job-pool.js';
+import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem } from '../errors.js';
 import { requireDataset, requireRun } from './common.js';
 
@@ -20,8 +24,23 @@ import { requireDataset, requireRun } from './common.js';
 const KEPT = 8;
 
 export default async function publishedRoutes(app: FastifyInstance): Promise<void> {
-  const { store } = app;
-  const kept = new Map<string, PublishedLayers>();
+  const { store, storeConfig, jobPool } = app;
+  /** builds done or under way, by run and settings (a failed build is forgotten) */
+  const kept = new Map<string, Promise<PublishedLayers | null>>();
+
+  const build = async (run: Run, options: PublishOptions): Promise<PublishedLayers | null> => {
+    if (storeConfig !== null) {
+      try {
+        return await jobPool.publish({ store: storeConfig, runId: run.id, options });
+      } catch (err) {
+        if (err instanceof JobQueueFull) throw new HttpProblem('overloaded', 'Every thread making published layers is busy and the waiting line is full; retry later.', {}, { 'retry-after': String(DEFAULT_CONFIG.retryAfterS) });
+        throw err;
+      }
+    }
+    const points = await joinPieces(await store.getRunLayerPieces(run.id, 'points'));
+    const hotspots = await joinPieces(await store.getRunLayerPieces(run.id, 'hotspots'));
+    return points === null || hotspots === null ? null : publishLayerTexts(points, hotspots, options);
+  };
 
   const publishedOf = async (dataset: Dataset, run: Run): Promise<PublishedLayers> => {
     if (dataset.publish === null) {
@@ -36,15 +55,18 @@ export default async function publishedRoutes(app: FastifyInstance): Promise<voi
       throw err;
     }
     const cacheKey = `${run.id}\u0000${JSON.stringify(options)}`;
-    const hit = kept.get(cacheKey);
-    if (hit) return hit;
-    const points = await joinPieces(await store.getRunLayerPieces(run.id, 'points'));
-    const hotspots = await joinPieces(await store.getRunLayerPieces(run.id, 'hotspots'));
-    if (points === null || hotspots === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
-    const layers = publishLayerTexts(points, hotspots, options);
-    kept.set(cacheKey, layers);
-    if (kept.size > KEPT) kept.delete(kept.keys().next().value!);
-    return layers;
+    let layers = kept.get(cacheKey);
+    if (layers === undefined) {
+      layers = build(run, options);
+      kept.set(cacheKey, layers);
+      if (kept.size > KEPT) kept.delete(kept.keys().next().value!);
+      const mine = layers;
+      const forget = (): void => void (kept.get(cacheKey) === mine && kept.delete(cacheKey));
+      mine.then((l) => l === null && forget(), forget);
+    }
+    const done = await layers;
+    if (done === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
+    return done;
   };
 
   app.get<{ Params: { id: string; layer: LayerName } }>('/v1/datasets/:id/runs/latest/published/:layer', async (request, reply) => {
