@@ -36,11 +36,12 @@ export interface Principal {
  * What an operation needs:
  * - `role`: the lowest role allowed;
  * - `scope`: 'dataset' (about one dataset, named in the request), 'compute' (touches no stored
- *   data) or 'service' (about the service as a whole).
+ *   data), 'service' (about the service as a whole) or 'listing' (a list of datasets or of what
+ *   is in them, which the operation itself cuts to what the caller may read: see `mayRead`).
  */
 export interface Requirement {
   role: Role;
-  scope: 'dataset' | 'compute' | 'service';
+  scope: 'dataset' | 'compute' | 'service' | 'listing';
 }
 
 /** Why a principal may not do something, or null when it may. */
@@ -54,7 +55,7 @@ export function refusal(who: Principal, need: Requirement, datasetId: string | n
   if (RANK[who.role] < RANK[need.role]) {
     return { reason: 'role', detail: `this needs the ${need.role} role (or above); the key has ${who.role}` };
   }
-  if (who.datasetId === null || need.scope === 'compute') return null;
+  if (who.datasetId === null || need.scope === 'compute' || need.scope === 'listing') return null;
   if (need.scope === 'service') {
     return { reason: 'dataset', detail: `the key is limited to dataset ${JSON.stringify(who.datasetId)}; this needs a key for the whole service` };
   }
@@ -67,4 +68,13 @@ export function refusal(who: Principal, need: Requirement, datasetId: string | n
 /** Whether `role` includes `needed`. */
 export function roleIncludes(role: Role, needed: Role): boolean {
   return RANK[role] >= RANK[needed];
+}
+
+/**
+ * Whether `who` may read dataset `datasetId` (its observations, runs and exact layers): what a
+ * listing keeps. `null` is a caller without a key while keys exist: it reads no dataset (only
+ * the published layers of public ones, which the listing decides itself).
+ */
+export function mayRead(who: Principal | null, datasetId: string): boolean {
+  return who !== null && refusal(who, { role: 'reader', scope: 'dataset' }, datasetId) === null;
 }

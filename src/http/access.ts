@@ -1,8 +1,12 @@
 /**
  * Who may call what. Every operation in openapi.yaml declares `x-roost-access`: `public`, or
- * `{role, scope}` with scope `dataset` (the `{id}` path parameter names the dataset), `compute`
- * (clustering posted points, no stored data) or `service`, and optionally `published: true` for
- * the published layers that anyone may read when the dataset's publishing settings say `public`.
+ * `{role, scope}` with scope `dataset` (the `{id}` path parameter names the dataset),
+ * `collection` (the dataset named by an OGC API `{collectionId}`), `compute` (clustering posted
+ * points, no stored data), `service`, or `listing` (any key; the route lists only what the key
+ * may read, roles.ts `mayRead`), and optionally `published: true` for the published layers that
+ * anyone may read when the dataset's publishing settings say `public` (a `listing` marked so is
+ * open to a caller without a key, and lists those layers only). A key may read whatever a
+ * caller without one may.
  * The table is read from the document itself, so the contract and the check cannot drift apart;
  * a route the document does not list, or lists without a declaration, is refused once keys exist.
  *
@@ -17,11 +21,17 @@
 import type { FastifyInstance, FastifyRequest } from 'fastify';
 import { refusal, isRole, type Principal, type Requirement } from '../auth/roles.js';
 import { bearerToken, hashToken, isTokenShaped } from '../auth/tokens.js';
+import { isPublishedKind, parseCollectionId } from '../ogc/collection-id.js';
+import { publishedPublicly as publicDataset } from '../publish/served.js';
 import type { Store } from '../storage/store.js';
 import { HttpProblem } from './errors.js';
 
-/** What an operation needs, as declared in openapi.yaml. */
-export type Access = 'public' | (Requirement & { published?: boolean });
+/**
+ * What an operation needs, as declared in openapi.yaml. Scope `collection` is `dataset` with the
+ * dataset named by the `{collectionId}` path parameter (`<dataset>.<kind>`, src/ogc/collection-id.ts);
+ * a collection of a published kind counts as a published layer.
+ */
+export type Access = 'public' | { role: Requirement['role']; scope: Requirement['scope'] | 'collection'; published?: boolean };
 
 declare module 'fastify' {
   interface FastifyRequest {
@@ -57,11 +67,12 @@ export function accessTable(doc: { paths?: Record<string, Record<string, unknown
       // an operation that declares nothing stays out of the table: refused once keys exist
       // (test/http/access.test.ts requires every operation to declare its access)
       if (o === undefined) continue;
-      if (!isRole(o.role) || !['dataset', 'compute', 'service'].includes(o.scope as string)) {
-        throw new Error(`openapi.yaml: ${where} needs x-roost-access: public, or {role: reader|contributor|manager|admin, scope: dataset|compute|service}`);
+      if (!isRole(o.role) || !['dataset', 'compute', 'service', 'listing', 'collection'].includes(o.scope as string)) {
+        throw new Error(`openapi.yaml: ${where} needs x-roost-access: public, or {role: reader|contributor|manager|admin, scope: dataset|compute|service|listing|collection}`);
       }
       if (o.scope === 'dataset' && !path.includes('{id}')) throw new Error(`openapi.yaml: ${where} has scope dataset but no {id} parameter`);
-      table.set(`${method.toUpperCase()} ${routeOf(path)}`, { role: o.role, scope: o.scope as Requirement['scope'], published: o.published === true });
+      if (o.scope === 'collection' && !path.includes('{collectionId}')) throw new Error(`openapi.yaml: ${where} has scope collection but no {collectionId} parameter`);
+      table.set(`${method.toUpperCase()} ${routeOf(path)}`, { role: o.role, scope: o.scope as Exclude<Access, 'public'>['scope'], published: o.published === true });
     }
   }
   return table;
@@ -106,8 +117,7 @@ const challenge = { 'www-authenticate': 'Bearer realm="roost"' };
 /** Whether the dataset's publishing settings make its published layers readable by anyone. */
 async function publishedPublicly(store: Store, datasetId: string | null): Promise<boolean> {
   if (datasetId === null) return false;
-  const d = await store.getDataset(datasetId);
-  return d !== null && d.publish !== null && d.publish.public === true;
+  return publicDataset(await store.getDataset(datasetId));
 }
 
 /**
@@ -126,7 +136,18 @@ export function registerAccess(app: FastifyInstance, options: AccessOptions): Ke
     const method = request.method === 'HEAD' ? 'GET' : request.method;
     const access = options.table.get(`${method} ${route}`) ?? (prefixes.some((p) => route === p || route.startsWith(p + '/')) ? 'public' : undefined);
     if (access === 'public') return;
-    const datasetId = ((request.params ?? {}) as Record<string, string | undefined>).id ?? null;
+    const params = (request.params ?? {}) as Record<string, string | undefined>;
+    let datasetId = params.id ?? null;
+    // what a request without a key may still read: the published layers of a public dataset,
+    // and a listing that offers published layers (it lists only what the caller may read)
+    let published = access !== undefined && access.published === true;
+    let need: Requirement | undefined = access === undefined ? undefined : { role: access.role, scope: access.scope === 'collection' ? 'dataset' : access.scope };
+    if (access !== undefined && access.scope === 'collection') {
+      const parsed = parseCollectionId(params.collectionId ?? '');
+      datasetId = parsed?.datasetId ?? null;
+      published = published && parsed !== null && isPublishedKind(parsed.kind);
+    }
+    const openToAll = async (): Promise<boolean> => published && (need!.scope === 'listing' || (await publishedPublicly(options.store, datasetId)));
 
     const token = bearerToken(request.headers.authorization);
     if (token === undefined) throw new HttpProblem('unauthorized', 'The Authorization header must be "Bearer <token>".', {}, challenge);
@@ -136,7 +157,7 @@ export function registerAccess(app: FastifyInstance, options: AccessOptions): Ke
       if (key === null) throw new HttpProblem('unauthorized', 'The bearer token is not a key in force here (unknown or revoked).', {}, challenge);
       principal = { keyId: key.id, role: key.role, datasetId: key.datasetId };
     } else if (await presence.any()) {
-      if (access !== undefined && access.published === true && (await publishedPublicly(options.store, datasetId))) {
+      if (await openToAll()) {
         request.principal = null;
         return;
       }
@@ -144,12 +165,13 @@ export function registerAccess(app: FastifyInstance, options: AccessOptions): Ke
     } else {
       principal = OPEN_PRINCIPAL;
     }
-    if (access === undefined) {
+    if (need === undefined) {
       if (principal === OPEN_PRINCIPAL) return;
       throw new HttpProblem('forbidden', `${request.method} ${route} is not open to keys.`);
     }
-    const why = refusal(principal, access, datasetId);
-    if (why !== null) throw new HttpProblem('forbidden', `${why.detail}.`, { required_role: access.role });
+    const why = refusal(principal, need, datasetId);
+    // a key may read whatever a request without one may (a public dataset's published layers)
+    if (why !== null && !(await openToAll())) throw new HttpProblem('forbidden', `${why.detail}.`, { required_role: need.role });
     request.principal = principal;
   });
   return presence;

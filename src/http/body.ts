@@ -56,6 +56,101 @@ export interface BodyOptions {
   retryAfterS: number;
 }
 
+type BodyDone = (err: Error | null, body?: Uint8Array) => void;
+
+/**
+ * One body on its way in: its chunks, its deadline and its listeners, until it ends one way or
+ * another (whole, too long, too short, too slow, broken, or abandoned by the client); `done` is
+ * called exactly once.
+ */
+class BodyReceipt {
+  private readonly chunks: Buffer[] = [];
+  private received = 0;
+  private finished = false;
+  private readonly deadline: NodeJS.Timeout;
+
+  /** `declared` is the Content-Length when it is a whole number, else null. */
+  constructor(
+    private readonly payload: NodeJS.ReadableStream,
+    private readonly declared: number | null,
+    private readonly options: BodyOptions,
+    private readonly done: BodyDone,
+  ) {
+    this.deadline = setTimeout(this.onDeadline, options.uploadTimeoutMs);
+    this.deadline.unref();
+    payload.on('data', this.onData);
+    payload.on('end', this.onEnd);
+    payload.on('error', this.onError);
+    payload.on('close', this.onClose);
+    payload.resume();
+  }
+
+  private finish(err: Error | null, body?: Uint8Array): void {
+    if (this.finished) return;
+    this.finished = true;
+    clearTimeout(this.deadline);
+    this.payload.removeListener('data', this.onData);
+    this.payload.removeListener('end', this.onEnd);
+    this.payload.removeListener('error', this.onError);
+    this.payload.removeListener('close', this.onClose);
+    this.done(err, body);
+  }
+
+  private readonly onDeadline = (): void => {
+    const { uploadTimeoutMs } = this.options;
+    this.finish(
+      new HttpProblem(
+        'request-timeout',
+        `The request body did not arrive within ${uploadTimeoutMs} ms (${this.received} bytes came); send it faster or in smaller parts, or ask the operator to raise --upload-timeout-ms.`,
+        { upload_timeout_ms: uploadTimeoutMs },
+        { connection: 'close' },
+      ),
+    );
+    // stop reading: what is still on its way is not wanted
+    this.payload.pause();
+  };
+
+  private readonly onData = (chunk: Buffer | string): void => {
+    const bytes = typeof chunk === 'string' ? Buffer.from(chunk) : chunk;
+    const next = this.received + bytes.length;
+    if (next > this.options.limitBytes) {
+      this.finish(tooLarge(this.options.limitBytes));
+      return;
+    }
+    if (this.declared !== null && next > this.declared) {
+      this.finish(new HttpProblem('bad-request', 'The request body is longer than its Content-Length header says.'));
+      return;
+    }
+    this.chunks.push(bytes);
+    this.received = next;
+  };
+
+  private readonly onEnd = (): void => {
+    if (this.declared !== null && this.received !== this.declared) {
+      this.finish(new HttpProblem('bad-request', 'The request body is shorter than its Content-Length header says.'));
+      return;
+    }
+    // one copy into a buffer of its own, which can be transferred to a worker as it is
+    const body = ownBuffer(this.received);
+    let at = 0;
+    for (const c of this.chunks) {
+      c.copy(body, at);
+      at += c.length;
+    }
+    this.chunks.length = 0;
+    this.finish(null, new Uint8Array(body.buffer, body.byteOffset, this.received));
+  };
+
+  private readonly onError = (err: Error): void => {
+    this.finish(new HttpProblem('bad-request', `The request body could not be received: ${err.message}`));
+  };
+
+  // the client went away in the middle: the slot is free at once
+  private readonly onClose = (): void => {
+    this.finish(new HttpProblem('bad-request', 'The client closed the connection before its body arrived.'));
+  };
+}
+
 /**
  * A Fastify content-type parser that yields the body as a Uint8Array in its own ArrayBuffer.
  * Bodies over `limitBytes` are refused (413) before they are read when Content-Length says so,
@@ -64,7 +159,7 @@ export interface BodyOptions {
  * client declaring 256 MiB and sending nothing costs nothing. Each body takes an upload slot
  * (503 with Retry-After when all are taken) and must arrive within `uploadTimeoutMs` (408).
  */
-export function rawBodyParser(options: BodyOptions): { parser: (request: FastifyRequest, payload: NodeJS.ReadableStream, done: (err: Error | null, body?: Uint8Array) => void) => void; allowance: UploadAllowance } {
+export function rawBodyParser(options: BodyOptions): { parser: (request: FastifyRequest, payload: NodeJS.ReadableStream, done: BodyDone) => void; allowance: UploadAllowance } {
   const { limitBytes } = options;
   let uploading = 0;
   const allowance: UploadAllowance = {
@@ -72,7 +167,7 @@ export function rawBodyParser(options: BodyOptions): { parser: (request: Fastify
       return uploading;
     },
   };
-  const parser = (request: FastifyRequest, payload: NodeJS.ReadableStream, done: (err: Error | null, body?: Uint8Array) => void): void => {
+  const parser = (request: FastifyRequest, payload: NodeJS.ReadableStream, done: BodyDone): void => {
     const header = request.headers['content-length'];
     const declared = header === undefined ? NaN : Number(header);
     if (declared > limitBytes) {
@@ -88,75 +183,10 @@ export function rawBodyParser(options: BodyOptions): { parser: (request: Fastify
     }
     uploading++;
     const known = Number.isSafeInteger(declared) && declared >= 0;
-    const chunks: Buffer[] = [];
-    let received = 0;
-    let finished = false;
-
-    const finish = (err: Error | null, body?: Uint8Array): void => {
-      if (finished) return;
-      finished = true;
+    new BodyReceipt(payload, known ? declared : null, options, (err, body) => {
       uploading--;
-      clearTimeout(deadline);
-      payload.removeListener('data', onData);
-      payload.removeListener('end', onEnd);
-      payload.removeListener('error', onError);
-      payload.removeListener('close', onClose);
       done(err, body);
-    };
-    const deadline = setTimeout(() => {
-      finish(
-        new HttpProblem(
-          'request-timeout',
-          `The request body did not arrive within ${options.uploadTimeoutMs} ms (${received} bytes came); send it faster or in smaller parts, or ask the operator to raise --upload-timeout-ms.`,
-          { upload_timeout_ms: options.uploadTimeoutMs },
-          { connection: 'close' },
-        ),
-      );
-      // stop reading: what is still on its way is not wanted
-      payload.pause();
-    }, options.uploadTimeoutMs);
-    deadline.unref();
-    const onData = (chunk: Buffer | string): void => {
-      const bytes = typeof chunk === 'string' ? Buffer.from(chunk) : chunk;
-      const next = received + bytes.length;
-      if (next > limitBytes) {
-        finish(tooLarge(limitBytes));
-        return;
-      }
-      if (known && next > declared) {
-        finish(new HttpProblem('bad-request', 'The request body is longer than its Content-Length header says.'));
-        return;
-      }
-      chunks.push(bytes);
-      received = next;
-    };
-    const onEnd = (): void => {
-      if (known && received !== declared) {
-        finish(new HttpProblem('bad-request', 'The request body is shorter than its Content-Length header says.'));
-        return;
-      }
-      // one copy into a buffer of its own, which can be transferred to a worker as it is
-      const body = ownBuffer(received);
-      let at = 0;
-      for (const c of chunks) {
-        c.copy(body, at);
-        at += c.length;
-      }
-      chunks.length = 0;
-      finish(null, new Uint8Array(body.buffer, body.byteOffset, received));
-    };
-    const onError = (err: Error): void => {
-      finish(new HttpProblem('bad-request', `The request body could not be received: ${err.message}`));
-    };
-    // the client went away in the middle: the slot is free at once
-    const onClose = (): void => {
-      if (!finished) finish(new HttpProblem('bad-request', 'The client closed the connection before its body arrived.'));
-    };
-    payload.on('data', onData);
-    payload.on('end', onEnd);
-    payload.on('error', onError);
-    payload.on('close', onClose);
-    payload.resume();
+    });
   };
   return { parser, allowance };
 }

@@ -99,7 +99,10 @@ export interface paths {
             path?: never;
             cookie?: never;
         };
-        /** List the datasets */
+        /**
+         * List the datasets
+         * @description Every dataset the key may read (a key limited to one dataset sees that one).
+         */
         get: operations["listDatasets"];
         put?: never;
         /**
@@ -699,10 +702,15 @@ export interface paths {
             cookie?: never;
         };
         /**
-         * The feature collections
-         * @description For each dataset, `<dataset>.observations` (its stored observations), and, once it has a
-         *     succeeded run, `<dataset>.hotspots`, `<dataset>.centres`, `<dataset>.noise` and
-         *     `<dataset>.points` from its latest succeeded run.
+         * The feature collections the caller may read
+         * @description For each dataset the key may read, `<dataset>.observations` (its stored observations),
+         *     and, once it has a succeeded run, `<dataset>.hotspots`, `<dataset>.centres`,
+         *     `<dataset>.noise` and `<dataset>.points` from its latest succeeded run. For each dataset
+         *     with publishing settings that the key may read, or that is public, the published
+         *     (generalised) layers of that run: `<dataset>.published-hotspots`, `.published-centres`,
+         *     `.published-noise` and `.published-points`. Without a key (once keys exist) only the
+         *     published layers of public datasets are listed; a key limited to one dataset sees that
+         *     dataset's collections and the public published layers.
          */
         get: operations["featuresCollections"];
         put?: never;
@@ -1204,6 +1212,10 @@ export interface components {
             area_km2: number | null;
             density_per_km2: number | null;
             centre: components["schemas"]["Position"] | null;
+            /** @description Only for a hotspot of a run with a Monte Carlo test (the dataset's p-value settings): its p-value. */
+            p_value?: number;
+            /** @description Only for a hotspot of a run with a Monte Carlo test: whether its p-value is at most the run's significance_level. An emerging hotspot with false here may be chance. */
+            significant?: boolean;
         };
         /** @description How a surviving hotspot changed, new minus (or over) old. */
         SurvivalChange: {
@@ -1352,11 +1364,16 @@ export interface components {
             /** @description Default: the id. */
             name?: string;
             /**
-             * @description Default clustering settings, named as /v1/cluster's parameters (eps, min_points, method, weight, hull, concavity, since, until, where, count_by, optics_max_eps, optics_extraction, xi, min_cluster_size, lon_column, lat_column, time_column, time_format). A dataset's time_column and time_format also say where posted observations keep their time.
+             * @description Default clustering settings, named as /v1/cluster's parameters (eps, min_points, method, weight, hull, concavity, since, until, where, count_by, optics_max_eps, optics_extraction, xi, min_cluster_size, lon_column, lat_column, time_column, time_format, reference, validation). A dataset's time_column and time_format also say where posted observations keep their time. The Monte Carlo test and stability of every run, named as /v1/cluster's parameters too: simulations, seed, null_model (csr in the convex hull of the run's observations, or effort), effort_where (property=value: the dataset's observations so marked are effort points, the others cases), significance_level, resamples, resample_share. Runs then write p_value, significant and stability on every hotspot (summary, hotspots and centres layers) and `significant` on the hotspots their changes end in.
              * @example {
              *       "eps": 75,
              *       "min_points": 10,
-             *       "count_by": "plant"
+             *       "count_by": "plant",
+             *       "simulations": 99,
+             *       "seed": 7,
+             *       "null_model": "csr",
+             *       "significance_level": 0.05,
+             *       "resamples": 20
              *     }
              */
             settings?: Record<string, unknown>;
@@ -2095,7 +2112,7 @@ export interface components {
                 "application/problem+json": components["schemas"]["DatasetNotFoundProblem"];
             };
         };
-        /** @description No such collection (an unknown dataset or kind, or a dataset without a succeeded run for a layer). */
+        /** @description No such collection (an unknown dataset or kind, a dataset without a succeeded run for a layer, or without publishing settings for a published layer). */
         CollectionNotFound: {
             headers: {
                 [name: string]: unknown;
@@ -2161,7 +2178,10 @@ export interface components {
     };
     parameters: {
         /**
-         * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+         * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+         *     published-hotspots, published-centres, published-noise or published-points (the published
+         *     layers, readable without a key when the dataset is public). A key limited to one dataset
+         *     reaches that dataset's collections only (and the public published layers).
          * @example marrow-vale.hotspots
          */
         collectionId: string;
@@ -2681,7 +2701,7 @@ export interface operations {
         };
         requestBody?: never;
         responses: {
-            /** @description Every dataset, by id. */
+            /** @description The datasets the key may read, by id. */
             200: {
                 headers: {
                     [name: string]: unknown;
@@ -3062,6 +3082,23 @@ export interface operations {
                  * @example DD.MM.YYYY
                  */
                 time_format?: components["parameters"]["time_format"];
+                /** @description Monte Carlo test: simulations under the null model (Besag & Diggle 1977); p-values go down to 1 / (1 + simulations). 0 (no test) unless null_model or effort_where is given, then 99. */
+                simulations?: components["parameters"]["simulations"];
+                /** @description Seed of the simulations and resamples; the same seed gives the same p-values and stabilities. */
+                seed?: components["parameters"]["seed"];
+                /** @description The null model of the Monte Carlo test: csr (the same number of points uniform on the sphere in the study area) or effort (random labelling over cases and the effort points named by effort_where). */
+                null_model?: components["parameters"]["null_model"];
+                /**
+                 * @description Effort null model: the observations whose property equals the value (property=value) are effort points; only the others (cases) are clustered.
+                 * @example kind=visit
+                 */
+                effort_where?: components["parameters"]["effort_where"];
+                /** @description Hotspots with p_value at most this are marked significant. */
+                significance_level?: components["parameters"]["significance_level"];
+                /** @description Stability: resamples of the observations (without replacement); each hotspot gets the mean Jaccard similarity with its best match (Hennig 2007). 0: none. */
+                resamples?: components["parameters"]["resamples"];
+                /** @description Stability: share of the observations each resample keeps. */
+                resample_share?: components["parameters"]["resample_share"];
             };
             header?: never;
             path: {
@@ -3937,7 +3974,10 @@ export interface operations {
             header?: never;
             path: {
                 /**
-                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+                 *     published-hotspots, published-centres, published-noise or published-points (the published
+                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
                 collectionId: components["parameters"]["collectionId"];
@@ -3971,7 +4011,10 @@ export interface operations {
             header?: never;
             path: {
                 /**
-                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+                 *     published-hotspots, published-centres, published-noise or published-points (the published
+                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
                 collectionId: components["parameters"]["collectionId"];
@@ -4025,7 +4068,10 @@ export interface operations {
             header?: never;
             path: {
                 /**
-                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+                 *     published-hotspots, published-centres, published-noise or published-points (the published
+                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
                 collectionId: components["parameters"]["collectionId"];
@@ -4065,7 +4111,10 @@ export interface operations {
             header?: never;
             path: {
                 /**
-                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points.
+                 * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
+                 *     published-hotspots, published-centres, published-noise or published-points (the published
+                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
                 collectionId: components["parameters"]["collectionId"];

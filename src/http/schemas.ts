@@ -8,11 +8,13 @@
  *
  * Refusals are RFC 9457 problems of the catalogue (errors.ts): `invalid-parameter` naming the
  * parameter, or, for a path id that cannot name a dataset, `dataset-not-found` as a lookup would
- * answer. A refused clustering setting is worded by the settings validator, as it is when the
- * setting comes from a body, a dataset or the command line.
+ * answer. A refused clustering or trust setting (the Monte Carlo test, resampling) is worded by
+ * its own validator, as it is when the setting comes from a body, a dataset or the command line
+ * (`ownerDetail`, the one place that maps a parameter to its validator).
  */
 import type { ErrorObject } from 'ajv';
 import { resolveSettings, SettingsError, SETTING_NAMES } from '../run/settings.js';
+import { isTrustSetting, resolveTrustSettings, TRUST_SETTING_NAMES } from '../trust/options.js';
 import { HttpProblem } from './errors.js';
 
 type Json = Record<string, unknown>;
@@ -120,10 +122,21 @@ export function jsonDocument(body: Uint8Array | undefined | null): Json {
 
 const SETTINGS = new Set<string>(SETTING_NAMES);
 
-/** The settings validator's words for one setting's value, or null when it takes the value. */
-function settingDetail(name: string, value: unknown): string | null {
+/** Query parameters saying how far a result can be trusted: the Monte Carlo test and resampling, and the validation figures. */
+const TRUST_PARAMETERS = new Set<string>([...TRUST_SETTING_NAMES, 'reference', 'validation']);
+
+/**
+ * The words of the validator that owns a query parameter, for a value its schema refused, or
+ * null to word the refusal from the schema. Clustering settings are worded by the settings
+ * validator and trust settings by theirs, as they are when they come from a body, a dataset or
+ * the command line; a trust parameter given twice is worded from the schema ("given once").
+ */
+function ownerDetail(name: string, value: unknown): string | null {
+  if (TRUST_PARAMETERS.has(name) && Array.isArray(value)) return null;
   try {
-    resolveSettings({ eps: 1, [name]: value });
+    if (isTrustSetting(name)) resolveTrustSettings({ [name]: value });
+    else if (SETTINGS.has(name)) resolveSettings({ eps: 1, [name]: value });
+    else return null;
   } catch (err) {
     if (err instanceof SettingsError && err.parameter === name) return err.message;
   }
@@ -193,8 +206,8 @@ export function validationProblem(op: OperationSchemas, errors: ErrorObject[], w
     const known = Object.keys(((e.parentSchema ?? {}) as Json).properties ?? {});
     return new HttpProblem('invalid-parameter', `${full}: unknown member; ${at === '' ? 'the body' : at} has ${known.join(', ')}`, { parameter: full });
   }
-  if (where === 'querystring' && SETTINGS.has(name)) {
-    const detail = settingDetail(name, e.data);
+  if (where === 'querystring') {
+    const detail = ownerDetail(name, e.data);
     if (detail !== null) return new HttpProblem('invalid-parameter', detail, { parameter: name });
   }
   return new HttpProblem('invalid-parameter', valueDetail(name, e, where), { parameter: name === '' ? 'body' : name });

@@ -5,14 +5,17 @@
  * with its own store connection) or, for an in-memory store, on the calling thread.
  *
  * Progress is stored as a percentage at fixed points (load 5 %, index 35 %, clustering 40–75 %,
- * figures 80 %, layers 85 %, save 90 %) and at most once a second inside the clustering. Each
+ * figures 80 %, layers 85 %, Monte Carlo simulations and resamples, when the settings ask for
+ * them, 85–89 %, save 90 %) and at most once a second inside the clustering and the trials. Each
  * write is conditional on the run still being 'running' under this claim (src/jobs/lease.ts), so
  * a run cancelled from any process (or instance), or taken over after its lease ran out, stops at
  * its next progress point and never overwrites the result of the process that took it over.
  */
 import { pointSet } from '../core/types.js';
 import { clusterObservations, type Stage } from '../run/cluster.js';
-import { resolveSettings, SettingsError, type ClusterSettings } from '../run/settings.js';
+import { SettingsError, type ClusterSettings } from '../run/settings.js';
+import { assess, splitEffort, type EffortPoints } from '../trust/assess.js';
+import { resolveRunSettings } from '../trust/options.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
 import { LAYER_PIECE_CHARS } from '../storage/layer-pieces.js';
 import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
@@ -118,6 +121,8 @@ export interface ExecuteOptions {
   assignTracks(hotspots: FinishedHotspot[]): Promise<TrackAssignment>;
   /** smallest interval between progress writes inside a stage, milliseconds; default 1000 */
   progressIntervalMs?: number;
+  /** worker threads for the Monte Carlo simulations and resamples a run's settings ask for; default 1 (this thread) */
+  trialThreads?: number;
 }
 
 export interface ExecutedRun {
@@ -163,7 +168,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
     if (cancelled) throw new RunCancelled();
   };
 
-  const settings = resolveSettings(run.settings);
+  const { clustering: settings, trust } = resolveRunSettings(run.settings);
   const query = runQuery(settings, dataset.window, Date.parse(run.createdAt));
   progress(1, true);
   await check();
@@ -197,11 +202,25 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
 
   // the store applied the window and conditions; the clustering must not filter again
   const clusterSettings: ClusterSettings = { ...settings, since: null, until: null, where: [] };
+  // with an effort marker (effort_where) the marked observations are effort points of the
+  // Monte Carlo test, and only the others (the cases) are clustered
+  let cases = obs;
+  let caseTexts: FeatureTexts | { at(i: number): string | undefined } = texts;
+  let caseIds: ArrayLike<string> = input.ids;
+  let effort: EffortPoints | null = null;
+  if (n > 0 && trust.effortWhere !== null) {
+    const split = splitEffort(obs, trust.effortWhere);
+    const at = split.caseIndex;
+    cases = split.cases;
+    caseTexts = { at: (i: number) => texts.at(at[i]!) };
+    caseIds = Array.from(at, (i) => input.ids[i]!);
+    effort = split.effort;
+  }
   const result =
     n === 0
       ? null
       : clusterObservations(
-          obs,
+          cases,
           clusterSettings,
           {
             signal: options.signal,
@@ -212,9 +231,9 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
             },
           },
           undefined,
-          { source: 'stored', dataset: dataset.id, query: queryRecord(query), left_out_untimed: untimed },
-          texts,
-          input.ids,
+          { source: 'stored', dataset: dataset.id, query: queryRecord(query), left_out_untimed: untimed, ...(effort === null ? {} : { effort_points: effort.lon.length }) },
+          caseTexts,
+          caseIds,
         );
   if (result === null) {
     const why = untimed > 0 ? `; ${untimed} observation(s) have no readable time and a time window applies: name their time with the dataset's time_column and time_format settings` : '';
@@ -223,7 +242,20 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   t = lap('cluster', t);
   await check();
 
-  const ids = input.ids;
+  if (trust.simulations > 0 || trust.resamples > 0) {
+    // p-values and stabilities go into the hotspots' properties before tracks, layers and
+    // stored figures are made from them
+    await assess(result, clusterSettings, {
+      settings: trust,
+      effort,
+      threads: options.trialThreads ?? 1,
+      onProgress: (what, done, total) => progress(what === 'simulations' ? 85 + 3 * (done / total) : 88 + (done / total), false),
+    });
+    t = lap('trust', t);
+    await check();
+  }
+
+  const ids = caseIds;
   const finished: FinishedHotspot[] = result.hotspots.map((h) => ({
     hotspot: h,
     memberIds: Array.from(h.members, (i) => ids[i]!),
@@ -231,6 +263,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   }));
   const assignment = await options.assignTracks(finished);
   if (assignment.trackIds.length !== finished.length) throw new Error(`track assignment gave ${assignment.trackIds.length} track ids for ${finished.length} hotspots`);
+  if (trust.simulations > 0) markSignificance(assignment.changes, result.hotspots);
   result.hotspots.forEach((h, k) => (h.properties.track_id = assignment.trackIds[k]));
   t = lap('tracks', t);
   await check();
@@ -266,6 +299,22 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
     throw e;
   });
   return { summary, timings, hotspots: stored.length };
+}
+
+/**
+ * Says in the run's changes whether each hotspot of this run that a transition ends in is
+ * significant at the run's level (its `significant` field), so that an emerging hotspot that is
+ * not is said to be so where the change is told.
+ */
+export function markSignificance(changes: Record<string, unknown> | null, hotspots: readonly { hotspotId: number; properties: Record<string, unknown> }[]): void {
+  const transitions = (changes?.['transitions'] ?? []) as { to: { hotspot_id: number; significant?: boolean }[] }[];
+  const byId = new Map(hotspots.map((h) => [h.hotspotId, h.properties['significant']]));
+  for (const t of transitions) {
+    for (const end of t.to) {
+      const s = byId.get(end.hotspot_id);
+      if (typeof s === 'boolean') end.significant = s;
+    }
+  }
 }
 
 /**

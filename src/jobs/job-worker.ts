@@ -18,6 +18,7 @@ import { publishLayerTexts, type PublishedLayers, type PublishOptions } from '..
 import { joinPieces } from '../storage/layer-pieces.js';
 import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
+import { defaultThreads } from '../trust/trials.js';
 
 export interface RecordsTask {
   op: 'records';
@@ -140,7 +141,7 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
     if (dataset === null || current === null) return { ok: false, cancelled: true, message: 'the dataset or run was deleted' };
     if (current.status !== 'running') return { ok: false, cancelled: true, message: `the run is ${current.status}` };
     if (current.workerId !== task.claim) return { ok: false, cancelled: true, message: 'the run was taken over by another process' };
-    const done = await executeRun(store, current, dataset, { assignTracks: (h) => askTracks(task.port, h) });
+    const done = await executeRun(store, current, dataset, { assignTracks: (h) => askTracks(task.port, h), trialThreads: defaultThreads() });
     return { ok: true, ...done };
   } catch (err) {
     const e = err instanceof Error ? err : new Error(String(err));

@@ -31,6 +31,8 @@ export interface TransitionEndJson {
   hotspot_id: number;
   /** null only for a hotspot stored before tracks were assigned */
   track_id: string | null;
+  /** a hotspot of a run with a Monte Carlo test: whether its p-value is at most the run's level */
+  significant?: boolean;
 }
 
 /** A survival's change as the API writes it (new minus, or over, old). */

@@ -11,11 +11,16 @@ import type { ItemsQuery } from './query.js';
 
 const caches = new WeakMap<Store, LayerIndexCache>();
 
-/** The index of a succeeded run's layer, cached per store (runs' layers never change). */
-export async function layerIndex(store: Store, runId: string, layer: LayerName): Promise<LayerIndex> {
+/** The index of a layer text under `key`, cached per store: the key must name text that never changes. */
+export async function textIndex(store: Store, key: string, load: () => Promise<string>): Promise<LayerIndex> {
   let cache = caches.get(store);
   if (cache === undefined) caches.set(store, (cache = new LayerIndexCache()));
-  return cache.get(`${runId}/${layer}`, async () => {
+  return cache.get(key, load);
+}
+
+/** The index of a succeeded run's layer, cached per store (runs' layers never change). */
+export async function layerIndex(store: Store, runId: string, layer: LayerName): Promise<LayerIndex> {
+  return textIndex(store, `${runId}/${layer}`, async () => {
     const pieces = await store.getRunLayerPieces(runId, layer);
     if (pieces === null) throw new HttpProblem('run-not-ready', `run ${runId} has no stored result`);
     const parts: string[] = [];

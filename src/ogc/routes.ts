@@ -2,18 +2,25 @@
  * OGC API – Features at /features: Part 1 Core with GeoJSON and HTML (OGC 17-069r4) and Part 2
  * with CRS84 only (OGC 18-058r1). Collections are each dataset's stored observations and the
  * four layers (hotspots, centres, noise, points) of its latest succeeded run, named
- * `<dataset>.<kind>`. Links are absolute, built from the address the request came to (or the
- * configured public URL). JSON or HTML by `f=` or the Accept header.
+ * `<dataset>.<kind>`, and for a dataset with publishing settings the four published layers of
+ * that run, `<dataset>.published-<kind>`. The listing holds only what the caller may read: the
+ * datasets its key reaches, and the published layers of public datasets (all a caller without a
+ * key sees). Links are absolute, built from the address the request came to (or the configured
+ * public URL). JSON or HTML by `f=` or the Accept header.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { featureCollectionString } from '../geometry/geojson.js';
 import { categoryNames, hotspotLayerFields, optionalFieldsOf, propertiesJsonSchema, trustFieldsOf } from '../geometry/layer-fields.js';
 import { etagOf, notModified, sendTagged } from '../http/conditional.js';
 import { HttpProblem } from '../http/errors.js';
-import { LAYER_NAMES, type LayerName } from '../run/layers.js';
+import { mayRead } from '../auth/roles.js';
+import { publishedLayers, publishedPublicly } from '../publish/served.js';
+import { LAYER_NAMES } from '../run/layers.js';
 import { StoreError, type Dataset, type Run, type Store } from '../storage/store.js';
+import { collectionId, isPublishedKind, layerOfPublished, parseCollectionId, PUBLISHED_KINDS, type CollectionKind } from './collection-id.js';
 import { escapeHtml, page, table, type Link } from './html.js';
-import { layerIndex, layerPage } from './layers.js';
+import { layerIndex, layerPage, textIndex } from './layers.js';
+import type { LayerIndex } from './layer-index.js';
 import { CRS84, DEFAULT_LIMIT, MAX_LIMIT, onlyParams, parseFormat, parseItemsQuery, type Bbox, type ItemsQuery } from './query.js';
 
 export const FEATURES_ROOT = '/features';
@@ -32,15 +39,16 @@ const HTML = 'text/html';
 const GREGORIAN = 'http://www.opengis.net/def/uom/ISO-8601/0/Gregorian';
 const OPENAPI_JSON = 'application/vnd.oai.openapi+json;version=3.1';
 
-export type CollectionKind = 'observations' | LayerName;
-const KINDS: readonly CollectionKind[] = ['observations', ...LAYER_NAMES];
-
 const KIND_TEXT: Record<CollectionKind, string> = {
   observations: 'stored observations, as posted',
   hotspots: 'hotspot hulls of the latest succeeded run, with their figures',
   centres: 'hotspot centres of the latest succeeded run, with their figures',
   noise: 'observations in no hotspot in the latest succeeded run',
   points: 'every observation of the latest succeeded run, with its hotspot and role',
+  'published-hotspots': 'published (generalised) hotspot outlines of the latest succeeded run',
+  'published-centres': 'published (generalised) hotspot centres of the latest succeeded run',
+  'published-noise': 'published (generalised) observations in no hotspot in the latest succeeded run, when noise is published',
+  'published-points': 'published (generalised) observations of the latest succeeded run',
 };
 
 export interface FeaturesOptions {
@@ -50,17 +58,7 @@ export interface FeaturesOptions {
   publicUrl?: string | null;
 }
 
-/** `<dataset>.<kind>`: the kind is after the last dot (kinds have none; dataset ids may). */
-export function collectionId(datasetId: string, kind: CollectionKind): string {
-  return `${datasetId}.${kind}`;
-}
-
-export function parseCollectionId(id: string): { datasetId: string; kind: CollectionKind } | null {
-  const dot = id.lastIndexOf('.');
-  if (dot <= 0) return null;
-  const kind = id.slice(dot + 1) as CollectionKind;
-  return KINDS.includes(kind) ? { datasetId: id.slice(0, dot), kind } : null;
-}
+export { collectionId, parseCollectionId, type CollectionKind };
 
 /** Whether the answer should be HTML: `f` first, else an Accept header preferring text/html. */
 export function wantsHtml(request: FastifyRequest, f: 'json' | 'html' | null): boolean {
@@ -105,10 +103,26 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
       throw new HttpProblem('collection-not-found', `there is no collection ${JSON.stringify(id)}; GET ${FEATURES_ROOT}/collections lists them`);
     }
     if (parsed.kind === 'observations') return { dataset, kind: parsed.kind, run: null };
+    if (isPublishedKind(parsed.kind) && dataset.publish === null) {
+      throw new HttpProblem('collection-not-found', `dataset ${JSON.stringify(dataset.id)} is not published (it has no publishing settings), so there is no collection ${JSON.stringify(id)}`);
+    }
     const run = await store.latestRun(dataset.id);
     if (run === null) throw new HttpProblem('collection-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet, so there is no collection ${JSON.stringify(id)}`);
     return { dataset, kind: parsed.kind, run };
   };
+
+  /** The index of a layer collection: a stored layer, or a published one made from the run. */
+  const indexOf = async (r: Resolved): Promise<LayerIndex> => {
+    const kind = r.kind;
+    if (kind === 'observations') throw new Error('observations have no layer index');
+    if (!isPublishedKind(kind)) return layerIndex(store, r.run!.id, kind);
+    const layer = layerOfPublished(kind);
+    // keyed by the settings too: the published layers follow the dataset's settings as they are now
+    return textIndex(store, `${r.run!.id}/published/${JSON.stringify(r.dataset.publish)}/${layer}`, async () => (await publishedLayers(store, r.dataset, r.run!))[layer]);
+  };
+
+  /** Last-Modified of a collection's answers: when its run finished; published layers also follow settings, so none. */
+  const modifiedOf = (r: Resolved): string | null => (r.run === null || isPublishedKind(r.kind) ? null : r.run.finishedAt);
 
   const send = (request: FastifyRequest, reply: FastifyReply, html: boolean, json: unknown, htmlText: () => string, type = JSON_TYPE, lastModified: string | null = null): FastifyReply =>
     html ? sendTagged(request, reply, 'text/html; charset=utf-8', htmlText(), lastModified) : sendTagged(request, reply, type, typeof json === 'string' ? json : JSON.stringify(json), lastModified);
@@ -133,7 +147,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
       bbox = extent.bbox;
       if (extent.first !== null) interval = [extent.first, extent.last];
     } else {
-      const index = await layerIndex(store, r.run!.id, r.kind);
+      const index = await indexOf(r);
       bbox = index.bbox;
       interval = index.interval;
     }
@@ -162,12 +176,28 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     };
   };
 
-  const listed = async (): Promise<Resolved[]> => {
+  /**
+   * The collections the caller may read: all of a dataset it may read, the published layers of
+   * a dataset with publishing settings that it may read or that is public. Published layers that
+   * cannot be made (unusable settings) are left out rather than failing the listing.
+   */
+  const listed = async (request: FastifyRequest): Promise<Resolved[]> => {
     const out: Resolved[] = [];
     for (const dataset of await store.listDatasets()) {
-      out.push({ dataset, kind: 'observations', run: null });
+      const reads = mayRead(request.principal, dataset.id);
+      if (reads) out.push({ dataset, kind: 'observations', run: null });
+      if (!reads && !publishedPublicly(dataset)) continue;
       const run = await store.latestRun(dataset.id);
-      if (run !== null) for (const kind of LAYER_NAMES) out.push({ dataset, kind, run });
+      if (run === null) continue;
+      if (reads) for (const kind of LAYER_NAMES) out.push({ dataset, kind, run });
+      if (dataset.publish === null) continue;
+      try {
+        await publishedLayers(store, dataset, run);
+      } catch (err) {
+        if (err instanceof HttpProblem) continue;
+        throw err;
+      }
+      for (const kind of PUBLISHED_KINDS) out.push({ dataset, kind, run });
     }
     return out;
   };
@@ -206,7 +236,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     onlyParams(query, ['f']);
     const html = wantsHtml(request, parseFormat(query.f as string | undefined));
     const collections: Record<string, unknown>[] = [];
-    for (const r of await listed()) collections.push(await collectionJson(request, r, false));
+    for (const r of await listed(request)) collections.push(await collectionJson(request, r, false));
     const doc = { links: selfLinks(`${root(request)}/collections`, html), crs: [CRS84], collections };
     return send(request, reply, html, doc, () =>
       page(
@@ -224,13 +254,13 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const r = await resolve(request.params.collectionId);
     const doc = await collectionJson(request, r, html);
     const { links, ...rest } = doc;
-    return send(request, reply, html, doc, () => page(String(doc.title), [table(rest)], links as Link[]), JSON_TYPE, r.run?.finishedAt ?? null);
+    return send(request, reply, html, doc, () => page(String(doc.title), [table(rest)], links as Link[]), JSON_TYPE, modifiedOf(r));
   });
 
   app.get<{ Params: { collectionId: string } }>(`${FEATURES_ROOT}/collections/:collectionId/schema`, async (request, reply) => {
     onlyParams((request.query ?? {}) as Record<string, unknown>, []);
     const r = await resolve(request.params.collectionId);
-    return sendTagged(request, reply, 'application/schema+json', JSON.stringify(schemaOf(r)), r.run?.finishedAt ?? null);
+    return sendTagged(request, reply, 'application/schema+json', JSON.stringify(schemaOf(r)), modifiedOf(r));
   });
 
   app.get<{ Params: { collectionId: string } }>(`${FEATURES_ROOT}/collections/:collectionId/items`, async (request, reply) => {
@@ -239,7 +269,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const html = wantsHtml(request, q.format);
     const r = await resolve(request.params.collectionId);
     const href = `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}/items`;
-    const { features, matched, next, prev } = r.kind === 'observations' ? await observationPage(store, r.dataset.id, q) : layerPage(await layerIndex(store, r.run!.id, r.kind), q);
+    const { features, matched, next, prev } = r.kind === 'observations' ? await observationPage(store, r.dataset.id, q) : layerPage(await indexOf(r), q);
     const own = withParams(query, { f: null });
     const links: Link[] = [
       ...selfLinks(href, html, GEOJSON, own),
@@ -251,10 +281,10 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const timeStamp = new Date().toISOString();
     const extra = { ...(matched === null ? {} : { numberMatched: matched }), numberReturned: features.length, timeStamp, links };
     void reply.header('content-crs', `<${CRS84}>`);
-    if (html) return sendTagged(request, reply, 'text/html; charset=utf-8', itemsHtml(r, features, extra, links), r.run?.finishedAt ?? null);
+    if (html) return sendTagged(request, reply, 'text/html; charset=utf-8', itemsHtml(r, features, extra, links), modifiedOf(r));
     // the tag leaves out timeStamp, which changes with every answer while the features do not
     const text = featureCollectionString(features, null, extra);
-    if (notModified(request, reply, etagOf(featureCollectionString(features, null, { ...extra, timeStamp: undefined })), r.run?.finishedAt ?? null)) return reply.code(304).send();
+    if (notModified(request, reply, etagOf(featureCollectionString(features, null, { ...extra, timeStamp: undefined })), modifiedOf(r))) return reply.code(304).send();
     return reply.type(GEOJSON).send(text);
   });
 
@@ -268,7 +298,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     let text: string | null;
     if (r.kind === 'observations') text = await store.getObservation(r.dataset.id, fid);
     else {
-      const index = await layerIndex(store, r.run!.id, r.kind);
+      const index = await indexOf(r);
       const k = index.ids.indexOf(fid);
       text = k < 0 ? null : index.features[k]!;
     }
@@ -278,9 +308,9 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     void reply.header('content-crs', `<${CRS84}>`);
     if (html) {
       const f = JSON.parse(text) as { properties: Record<string, unknown> | null; geometry: unknown };
-      return sendTagged(request, reply, 'text/html; charset=utf-8', page(`Feature ${fid}`, [table({ ...(f.properties ?? {}), geometry: f.geometry })], links), r.run?.finishedAt ?? null);
+      return sendTagged(request, reply, 'text/html; charset=utf-8', page(`Feature ${fid}`, [table({ ...(f.properties ?? {}), geometry: f.geometry })], links), modifiedOf(r));
     }
-    return sendTagged(request, reply, GEOJSON, text.slice(0, -1) + ',"links":' + JSON.stringify(links) + '}', r.run?.finishedAt ?? null);
+    return sendTagged(request, reply, GEOJSON, text.slice(0, -1) + ',"links":' + JSON.stringify(links) + '}', modifiedOf(r));
   });
 
   /** JSON Schema of a collection's feature properties. */
@@ -290,6 +320,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
       const hotspots = (r.run!.summary?.['hotspots'] ?? []) as Record<string, unknown>[];
       return propertiesJsonSchema(hotspotLayerFields(categoryNames(hotspots), trustFieldsOf(hotspots), optionalFieldsOf(hotspots)), id);
     }
+    if (isPublishedKind(r.kind)) return publishedSchema(r.kind, id);
     const own = { description: "the observation's own properties as posted; their names and types are the posting app's", additionalProperties: true };
     if (r.kind === 'observations') return { $schema: 'https://json-schema.org/draft/2020-12/schema', title: id, type: 'object', ...own, properties: { observed_at: { type: 'string', format: 'date-time' } } };
     return {
@@ -304,6 +335,42 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
       },
     };
   }
+}
+
+/** JSON Schema of a published layer's properties (src/publish/publish.ts says what is kept). */
+function publishedSchema(kind: CollectionKind, title: string): Record<string, unknown> {
+  const head = { $schema: 'https://json-schema.org/draft/2020-12/schema', title, type: 'object' };
+  if (kind === 'published-hotspots' || kind === 'published-centres') {
+    return {
+      ...head,
+      description: 'figures of a published hotspot; the count of each category (count_<value>) appears only when the counted property is published',
+      required: ['hotspot_id', 'count', 'area_km2', 'density_per_km2', 'centre_lon', 'centre_lat'],
+      additionalProperties: { type: 'integer' },
+      properties: {
+        hotspot_id: { type: 'integer' },
+        track_id: { type: 'string' },
+        count: { type: 'integer', description: 'observations in the hotspot' },
+        core_count: { type: 'integer' },
+        border_count: { type: 'integer' },
+        weight: { type: 'number' },
+        radius_m: { type: 'number' },
+        area_km2: { type: 'number', description: 'area of the published outline, km²' },
+        density_per_km2: { type: 'number' },
+        centre_lon: { type: 'number', description: "the centre of the grid cell holding the hotspot's centre" },
+        centre_lat: { type: 'number' },
+      },
+    };
+  }
+  return {
+    ...head,
+    description: 'a published observation: the centre of its grid cell, its hotspot and role, and only the properties the publishing settings allow',
+    required: ['hotspot_id', 'role'],
+    additionalProperties: true,
+    properties: {
+      hotspot_id: { type: ['integer', 'null'], description: "the observation's hotspot; null for noise" },
+      role: { type: ['string', 'null'], enum: ['core', 'border', 'noise', null] },
+    },
+  };
 }
 
 /** A page of observations: the store pages by its own cursor, which is passed through. */

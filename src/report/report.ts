@@ -9,7 +9,7 @@ import { existsSync, readFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import { pointSet, type PointSet } from '../core/types.js';
 import { runQuery } from '../jobs/execute.js';
-import { resolveSettings } from '../run/settings.js';
+import { resolveClusterPart } from '../trust/options.js';
 import { ROOST_VERSION } from '../run/version.js';
 import type { Dataset, Run, Store } from '../storage/store.js';
 import { kDistancePreview } from './kdistance.js';
@@ -147,7 +147,7 @@ export async function reportDataFromStore(store: Store, dataset: Dataset, run: R
     noise: await layer('noise'),
     points: () => layer('points'),
     observations: async () => {
-      const settings = resolveSettings(run.settings);
+      const settings = resolveClusterPart(run.settings);
       const input = await store.loadForRun(dataset.id, runQuery(settings, dataset.window, Date.parse(run.createdAt)));
       return pointSet(input.lon, input.lat);
     },

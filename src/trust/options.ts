@@ -3,7 +3,7 @@
  * (as --kebab-case) the command line spell them. They are kept apart from the clustering
  * settings (src/run/settings.ts) because they say how far to trust a result, not how to make it.
  */
-import { SettingsError, parseCondition } from '../run/settings.js';
+import { SettingsError, parseCondition, resolveSettings, type ClusterSettings } from '../run/settings.js';
 import type { NullModel } from './chance.js';
 
 export interface TrustSettings {
@@ -134,4 +134,19 @@ export function trustRecord(s: TrustSettings): Record<TrustSettingName, unknown>
     resample_share: s.resampleShare,
     significance_level: s.significanceLevel,
   };
+}
+
+/**
+ * Clustering and trust settings from one record that carries both (a dataset's settings, a stored
+ * run's, a query string), each checked by its own validator. A stored dataset names effort points
+ * only by a marker among its observations (effort_where).
+ */
+export function resolveRunSettings(input: Record<string, unknown>): { clustering: ClusterSettings; trust: TrustSettings } {
+  const { clustering, trust } = splitTrustSettings(input);
+  return { clustering: resolveSettings(clustering), trust: resolveTrustSettings(trust) };
+}
+
+/** The clustering settings of a record that may also carry trust settings. */
+export function resolveClusterPart(input: Record<string, unknown>): ClusterSettings {
+  return resolveSettings(splitTrustSettings(input).clustering);
 }

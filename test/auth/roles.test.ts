@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { refusal, roleIncludes, ROLES, type Principal, type Requirement, type Role } from '../../src/auth/roles.js';
+import { mayRead, refusal, roleIncludes, ROLES, type Principal, type Requirement, type Role } from '../../src/auth/roles.js';
 import { bearerToken, hashToken, isTokenShaped, newKeyId, newToken } from '../../src/auth/tokens.js';
 
 // The role table as the product brief states it (shared/product.md, "key, role"), written out by
@@ -19,7 +19,7 @@ describe('roles', () => {
   it('an unlimited key passes wherever its role does, on every scope', () => {
     for (const have of ROLES) {
       for (const need of ROLES) {
-        for (const scope of ['dataset', 'compute', 'service'] as const) {
+        for (const scope of ['dataset', 'compute', 'service', 'listing'] as const) {
           const who: Principal = { keyId: 'k_000000000001', role: have, datasetId: null };
           const r = refusal(who, { role: need, scope }, 'herons');
           expect(r === null, `${have} ${need} ${scope}`).toBe(MAY[have].includes(need));
@@ -39,6 +39,17 @@ describe('roles', () => {
     expect(on({ role: 'admin', scope: 'service' }, null)?.reason).toBe('dataset');
     // the role is checked first: a limited reader asking to manage is refused for its role
     expect(refusal({ ...who, role: 'reader' }, { role: 'manager', scope: 'dataset' }, 'egrets')?.reason).toBe('role');
+    // a listing lets it through; what it lists is cut by mayRead
+    expect(on({ role: 'reader', scope: 'listing' }, null)).toBeNull();
+  });
+
+  it('mayRead: what a listing keeps for a caller', () => {
+    expect(mayRead({ keyId: 'k_000000000001', role: 'reader', datasetId: 'herons' }, 'herons')).toBe(true);
+    expect(mayRead({ keyId: 'k_000000000001', role: 'reader', datasetId: 'herons' }, 'egrets')).toBe(false);
+    expect(mayRead({ keyId: 'k_000000000001', role: 'reader', datasetId: null }, 'egrets')).toBe(true);
+    expect(mayRead({ keyId: null, role: 'admin', datasetId: null }, 'egrets')).toBe(true);
+    // no key while keys exist: no dataset (a public dataset's published layers are decided apart)
+    expect(mayRead(null, 'herons')).toBe(false);
   });
 });
 

@@ -22,7 +22,7 @@ export interface Operation {
   method: string;
   path: string;
   operationId: string;
-  access: 'public' | { role: keyof typeof RANK; scope: 'dataset' | 'compute' | 'service'; published?: boolean } | undefined;
+  access: 'public' | { role: keyof typeof RANK; scope: 'dataset' | 'compute' | 'service' | 'listing' | 'collection'; published?: boolean } | undefined;
 }
 
 const spec = parse(readFileSync(OPENAPI_PATH, 'utf8')) as { paths: Record<string, Record<string, Record<string, unknown>>> };
@@ -33,23 +33,35 @@ export const OPERATIONS: Operation[] = Object.entries(spec.paths).flatMap(([path
     .map((m) => ({ method: m.toUpperCase(), path, operationId: String(item[m]!.operationId), access: item[m]!['x-roost-access'] as Operation['access'] })),
 );
 
-/** The answer the spec promises: 'pass' (anything but 401/403), 401 or 403. */
-export function expected(op: Operation, who: Who, datasetId: string | null, datasetPublic = false): 'pass' | 401 | 403 {
+/** Whether an operation names a dataset in its path: `{id}`, or an OGC API `{collectionId}`. */
+export function namesDataset(op: Operation): boolean {
+  return op.path.includes('{id}') || op.path.includes('{collectionId}');
+}
+
+/**
+ * The answer the spec promises: 'pass' (anything but 401/403), 401 or 403. `published` says the
+ * request is for a published layer (so `published: true` applies), `datasetPublic` that its
+ * dataset is published as public. A listing marked `published` is open to all (it lists what the
+ * caller may read); any key may read what a caller without one may.
+ */
+export function expected(op: Operation, who: Who, datasetId: string | null, datasetPublic = false, published = true): 'pass' | 401 | 403 {
   const a = op.access;
   if (a === 'public') return 'pass';
-  if (who === 'none') return a !== undefined && a.published === true && datasetPublic ? 'pass' : 401;
+  const open = a !== undefined && a.published === true && (a.scope === 'listing' || (published && datasetPublic));
+  if (who === 'none') return open ? 'pass' : 401;
   if (a === undefined) return 403;
   const [role, limit] = who.split('@') as [keyof typeof RANK, string | undefined];
   if (RANK[role] < RANK[a.role]) return 403;
-  if (limit === undefined || a.scope === 'compute') return 'pass';
+  if (open || limit === undefined || a.scope === 'compute' || a.scope === 'listing') return 'pass';
   if (a.scope === 'service') return 403;
   return datasetId === limit ? 'pass' : 403;
 }
 
-/** The concrete URL of an operation, with `{id}` set to `datasetId`. */
-export function urlOf(op: Operation, datasetId: string, ids: { run: string; keyId: string }): string {
+/** The concrete URL of an operation, with `{id}` set to `datasetId` (and `{collectionId}` to one of its collections, `kind` by default observations). */
+export function urlOf(op: Operation, datasetId: string, ids: { run: string; keyId: string }, kind = 'observations'): string {
   return op.path
     .replace('{id}', encodeURIComponent(datasetId))
+    .replace('{collectionId}', `${encodeURIComponent(datasetId)}.${kind}`)
     .replace('{run}', ids.run)
     .replace('{layer}', 'hotspots')
     .replace('{obsId}', 'o1')

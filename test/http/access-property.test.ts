@@ -7,7 +7,7 @@ import fc from 'fast-check';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { newToken } from '../../src/auth/tokens.js';
 import { openStore } from '../../src/storage/index.js';
-import { accessService, expected, OPERATIONS, urlOf, WHO, type AccessService, type Who } from './access-fixture.js';
+import { accessService, expected, namesDataset, OPERATIONS, urlOf, WHO, type AccessService, type Who } from './access-fixture.js';
 
 /** fixed so every run draws the same cases; ROOST_FC_SEED varies it on purpose */
 const SEED = Number(process.env.ROOST_FC_SEED ?? 20261203);
@@ -52,7 +52,7 @@ describe('access under random callers', () => {
         } else if (c.kind === 'revoked') headers.authorization = `Bearer ${revoked}`;
         else if (c.kind === 'header') headers.authorization = c.value;
         const res = await s.app.inject({ method: op.method as 'GET', url: urlOf(op, datasetId, { run: s.run, keyId: s.spareKeyId }), headers, payload: ['POST', 'PATCH', 'PUT'].includes(op.method) ? '{}' : undefined });
-        const dataset = op.path.includes('{id}') ? datasetId : null;
+        const dataset = namesDataset(op) ? datasetId : null;
         // any Authorization header that is not a key in force counts as no key at all, or worse
         const want = c.kind === 'key' || c.kind === 'none' ? expected(op, who, dataset) : op.access === 'public' ? 'pass' : 401;
         if (want !== 'pass') expect(res.statusCode, `${op.method} ${op.path} ${JSON.stringify(c)}`).toBe(want);

@@ -8,7 +8,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { openPostgresStore } from '../../src/storage/postgres.js';
 import { openStore } from '../../src/storage/index.js';
 import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
-import { accessService, expected, OPERATIONS, urlOf, WHO, type AccessService } from './access-fixture.js';
+import { accessService, expected, namesDataset, OPERATIONS, urlOf, WHO, type AccessService } from './access-fixture.js';
 import { buildApp } from '../../src/http/app.js';
 import { testConfig } from './helper.js';
 
@@ -56,13 +56,13 @@ function roleMatrix(name: string, open: () => Promise<AccessService>, skip: stri
       let checked = 0;
       for (const op of ops) {
         for (const who of WHO) {
-          for (const datasetId of op.path.includes('{id}') ? ['d1', 'd2'] : ['d1']) {
+          for (const datasetId of namesDataset(op) ? ['d1', 'd2'] : ['d1']) {
             await s.restore();
             const url = urlOf(op, datasetId, { run: s.run, keyId: s.spareKeyId });
             const headers: Record<string, string> = { 'content-type': 'application/json' };
             if (who !== 'none') headers.authorization = `Bearer ${s.tokens[who]}`;
             const res = await s.app.inject({ method: op.method as 'GET', url, headers, payload: ['POST', 'PATCH', 'PUT'].includes(op.method) ? '{}' : undefined });
-            const want = expected(op, who, op.path.includes('{id}') ? datasetId : null);
+            const want = expected(op, who, namesDataset(op) ? datasetId : null);
             const got = res.statusCode;
             checked++;
             if (want === 'pass' ? got === 401 || got === 403 : got !== want) mismatches.push(`${op.method} ${url} as ${who}: ${got}, expected ${want}`);

@@ -437,20 +437,68 @@ describe('OGC API – Features requirements', () => {
     });
   });
   describe('with API keys', () => {
-    it('the landing page and conformance stay public; collections and items need a key that reads every dataset', async () => {
+    it('collections are cut to what the caller may read: nothing but public published layers without a key, one dataset for a limited key, everything for a full key', async () => {
       const json = { 'content-type': 'application/json' };
+      // fiji is published as public (before keys exist, so no key is needed to say so)
+      const patched = await app.inject({ method: 'PATCH', url: '/v1/datasets/fiji', headers: json, payload: { publish: { public: true, generalise_m: 200 } } });
+      expect(patched.statusCode, patched.body).toBe(200);
       const admin = (await app.inject({ method: 'POST', url: '/v1/keys', headers: json, payload: { role: 'admin', label: 'ogc' } })).json() as { token: string };
       const bearer = (t: string): Record<string, string> => ({ authorization: `Bearer ${t}` });
       const limited = (await app.inject({ method: 'POST', url: '/v1/keys', headers: { ...json, ...bearer(admin.token) }, payload: { role: 'reader', dataset: 'survey' } })).json() as { token: string };
       const reader = (await app.inject({ method: 'POST', url: '/v1/keys', headers: { ...json, ...bearer(admin.token) }, payload: { role: 'reader' } })).json() as { token: string };
       expect((await get('/features')).statusCode).toBe(200);
       expect((await get('/features/conformance')).statusCode).toBe(200);
-      for (const url of ['/features/collections', '/features/collections/survey.hotspots', '/features/collections/survey.points/items', '/features/collections/survey.observations/items/p1']) {
-        expect((await get(url)).statusCode, url).toBe(401);
-        // a key limited to one dataset is refused, not shown a filtered list (not yet filtered per key)
-        expect((await get(url, bearer(limited.token))).statusCode, url).toBe(403);
-        expect((await get(url, bearer(reader.token))).statusCode, url).toBe(200);
+
+      const published = ['fiji.published-hotspots', 'fiji.published-centres', 'fiji.published-noise', 'fiji.published-points'];
+      const layers = (d: string): string[] => ['hotspots', 'centres', 'noise', 'points'].map((k) => `${d}.${k}`);
+      const listing = async (headers: Record<string, string>): Promise<string[]> => {
+        const res = await get('/features/collections', headers);
+        expect(res.statusCode, res.body).toBe(200);
+        return ((res.json() as { collections: { id: string }[] }).collections.map((c) => c.id)).sort();
+      };
+      expect(await listing({})).toEqual([...published].sort());
+      expect(await listing(bearer(limited.token))).toEqual(['survey.observations', ...layers('survey'), ...published].sort());
+      expect(await listing(bearer(reader.token))).toEqual(['empty.observations', 'fiji.observations', ...layers('fiji'), ...published, 'survey.observations', ...layers('survey')].sort());
+
+      // each collection: who reaches it (200), and who does not (401 without a key, 403 with another dataset's key)
+      const cases: [string, number, number, number][] = [
+        ['/features/collections/survey.hotspots', 401, 200, 200],
+        ['/features/collections/survey.points/items', 401, 200, 200],
+        ['/features/collections/survey.observations/items/p1', 401, 200, 200],
+        ['/features/collections/fiji.hotspots', 401, 403, 200],
+        ['/features/collections/fiji.observations/items', 401, 403, 200],
+        ['/features/collections/fiji.published-hotspots', 200, 200, 200],
+        ['/features/collections/fiji.published-points/items', 200, 200, 200],
+        ['/features/collections/fiji.published-centres/schema', 200, 200, 200],
+        // survey is not published: its published collections are not there for a key that reads it, and not open without one
+        ['/features/collections/survey.published-hotspots', 401, 404, 404],
+      ];
+      for (const [url, none, one, all] of cases) {
+        expect((await get(url)).statusCode, `${url} without a key`).toBe(none);
+        expect((await get(url, bearer(limited.token))).statusCode, `${url} with a key for survey`).toBe(one);
+        expect((await get(url, bearer(reader.token))).statusCode, `${url} with a reader key`).toBe(all);
       }
+      // a bad token is refused even where no key is needed
+      expect((await get('/features/collections', bearer('roost_nonsense'))).statusCode).toBe(401);
+
+      // the published collections serve the published layers: the same features as /v1's published addresses
+      for (const kind of ['hotspots', 'centres', 'points']) {
+        const v1 = await get(`/v1/datasets/fiji/runs/latest/published/${kind}`);
+        expect(v1.statusCode, v1.body).toBe(200);
+        const want = (v1.json() as { features: unknown[] }).features;
+        const items = await get(`/features/collections/fiji.published-${kind}/items?limit=10000`);
+        expect(items.statusCode, items.body).toBe(200);
+        const got = items.json() as { features: unknown[]; numberMatched: number };
+        expect(got.numberMatched).toBe(want.length);
+        expect(got.features).toEqual(want);
+      }
+      expect((await get('/features/collections/fiji.published-points/items?limit=1')).json().features.length).toBeGreaterThan(0);
+
+      // /v1/datasets: a limited key sees its dataset only; without a key, nothing
+      expect((await get('/v1/datasets')).statusCode).toBe(401);
+      const ids = async (t: string): Promise<string[]> => ((await get('/v1/datasets', bearer(t))).json() as { datasets: { id: string }[] }).datasets.map((d) => d.id).sort();
+      expect(await ids(limited.token)).toEqual(['survey']);
+      expect(await ids(reader.token)).toEqual(['empty', 'fiji', 'survey']);
     });
   });
 });

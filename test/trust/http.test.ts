@@ -74,9 +74,11 @@ describe('POST /v1/cluster with null_model and resamples', () => {
 
   it('refuses bad test settings with a problem naming the parameter', async () => {
     for (const [qs, parameter, message] of [
-      ['null_model=poisson', 'null_model', /must be one of csr, effort/],
+      ['null_model=poisson', 'null_model', /^null_model: must be csr or effort, got "poisson"$/],
       ['simulations=lots', 'simulations', /whole number/],
-      ['resample_share=0', 'resample_share', /must be > 0/],
+      ['resample_share=0', 'resample_share', /^resample_share: must be a number above 0 and below 1, got 0$/],
+      ['significance_level=1', 'significance_level', /^significance_level: must be a number above 0 and below 1, got 1$/],
+      ['simulations=-3', 'simulations', /^simulations: must be a whole number from 0 to 9999, got -3$/],
       ['null_model=effort', 'null_model', /effort needs effort points/],
     ] as const) {
       const res = await app.inject({ method: 'POST', url: `/v1/cluster?eps=300&${qs}`, headers: { 'content-type': 'application/geo+json' }, payload });

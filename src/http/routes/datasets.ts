@@ -3,10 +3,11 @@
  * Settings use the API's names and are checked with the same validator as /v1/cluster; PATCH
  * merges `settings` member by member (RFC 7396: null removes a member) and replaces the rest.
  */
+import { mayRead } from '../../auth/roles.js';
 import type { FastifyInstance } from 'fastify';
 import { windowProblem } from '../../jobs/execute.js';
 import { scheduleProblem } from '../../jobs/schedule.js';
-import { resolveSettings } from '../../run/settings.js';
+import { resolveRunSettings } from '../../trust/options.js';
 import { StoreError, type DatasetPatch, type NewDataset } from '../../storage/store.js';
 import { checkPublishBlock, PublishError } from '../../publish/publish.js';
 import { checkWebhookAddress, checkWebhookUrl, WebhookAddressError } from '../../jobs/webhook-address.js';
@@ -25,10 +26,10 @@ function bad(parameter: string, detail: string): never {
   throw new HttpProblem('invalid-parameter', `${parameter}: ${detail}`, { parameter });
 }
 
-/** Settings (an object, as the schema says) checked by the settings validator. */
+/** Settings (an object, as the schema says) checked by the clustering and trust settings validators. */
 function checkSettings(settings: Record<string, unknown>): Record<string, unknown> {
   try {
-    resolveSettings(settings);
+    resolveRunSettings(settings);
   } catch (err) {
     settingsProblem(err, 'settings.');
   }
@@ -145,8 +146,9 @@ export default async function datasetRoutes(app: FastifyInstance, options: Datas
     }
   });
 
-  app.get('/v1/datasets', async () => {
-    const all = await store.listDatasets();
+  app.get('/v1/datasets', async (request) => {
+    // a key limited to one dataset sees that one only (the access check let it through as a listing)
+    const all = (await store.listDatasets()).filter((d) => mayRead(request.principal, d.id));
     return { datasets: all.map((d) => datasetJson(d)) };
   });
 

@@ -8,17 +8,15 @@ import { Readable } from 'node:stream';
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { featureCollectionString } from '../../geometry/geojson.js';
 import { layerIndex, layerPage } from '../../ogc/layers.js';
-import { parseItemsQuery, parseLimit } from '../../ogc/query.js';
+import { parseBbox, parseDatetime, type ItemsQuery } from '../../ogc/query.js';
 import { notModified, sendTagged } from '../conditional.js';
-import { resolveSettings } from '../../run/settings.js';
+import { resolveRunSettings } from '../../trust/options.js';
 import type { LayerName } from '../../run/layers.js';
-import { StoreError, type Run } from '../../storage/store.js';
+import { StoreError, type Run, type Store } from '../../storage/store.js';
+import type { Runner } from '../../jobs/runner.js';
 import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem } from '../errors.js';
 import { requireDataset, requireRun, runJson, settingsProblem } from './common.js';
-
-/** What a result-layer address takes: without any, the whole layer as stored. */
-const LAYER_PARAMS = ['bbox', 'datetime', 'limit', 'cursor'];
 
 export interface RunRouteOptions {
   /** layers sent at once; one more GET is answered 503 (default DEFAULT_CONFIG.layerStreams) */
@@ -28,63 +26,91 @@ export interface RunRouteOptions {
   retryAfterS?: number;
 }
 
-export default async function runRoutes(app: FastifyInstance, options: RunRouteOptions = {}): Promise<void> {
-  const { store, runner } = app;
-  const layerStreams = options.layerStreams ?? DEFAULT_CONFIG.layerStreams;
-  const maxQueuedRuns = options.maxQueuedRuns ?? DEFAULT_CONFIG.maxQueuedRuns;
-  const retryAfter = { 'retry-after': String(options.retryAfterS ?? DEFAULT_CONFIG.retryAfterS) };
-  let streaming = 0;
+/**
+ * The layers being sent whole at once, across the run routes: each holds a store connection and
+ * buffers, so one more than `limit` is answered 503.
+ */
+class LayerStreams {
+  private sending = 0;
+  constructor(
+    private readonly limit: number,
+    private readonly retryAfter: Record<string, string>,
+  ) {}
 
-  const sendLayer = async (request: FastifyRequest, run: Run, layer: LayerName, reply: FastifyReply) => {
-    const query = (request.query ?? {}) as Record<string, unknown>;
-    const q = { ...parseItemsQuery(query, LAYER_PARAMS), limit: query.limit === undefined ? Number.MAX_SAFE_INTEGER : parseLimit(String(query.limit)) };
-    if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
-    void reply.header('x-roost-run', run.id);
-    if (Object.keys(query).length > 0) {
-      // a page of the layer: its features as the run wrote them, with the link to the next page
-      const page = layerPage(await layerIndex(store, run.id, layer), q);
-      const links = [];
-      if (page.next !== null) {
-        const next = new URLSearchParams();
-        for (const [k, v] of Object.entries(query)) if (k !== 'cursor') next.set(k, String(v));
-        next.set('cursor', page.next);
-        links.push({ rel: 'next', type: 'application/geo+json', href: `${request.url.split('?')[0]}?${next.toString()}` });
-      }
-      const text = featureCollectionString(page.features, null, { numberMatched: page.matched, numberReturned: page.features.length, links });
-      return sendTagged(request, reply, 'application/geo+json', text, run.finishedAt);
-    }
-    // a stored layer never changes: the run and layer name it
-    if (notModified(request, reply, `"${run.id}.${layer}"`, run.finishedAt)) return reply.code(304).send();
-    // a bounded number of layers on their way at once: each holds a store connection and buffers
-    if (streaming >= layerStreams) throw new HttpProblem('overloaded', `${layerStreams} layers are being sent already; retry later.`, {}, retryAfter);
-    streaming++;
+  /** Takes a place, or answers 503; the returned function gives it back (once, however often it is called). */
+  take(): () => void {
+    if (this.sending >= this.limit) throw new HttpProblem('overloaded', `${this.limit} layers are being sent already; retry later.`, {}, this.retryAfter);
+    this.sending++;
     let held = true;
-    const free = (): void => {
+    return () => {
       if (held) {
         held = false;
-        streaming--;
+        this.sending--;
       }
     };
-    reply.raw.once('close', free);
-    try {
-      // streamed piece by piece as stored: a large layer never becomes one string here
-      const pieces = await store.getRunLayerPieces(run.id, layer);
-      if (pieces === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
-      return await reply.type('application/geo+json').send(Readable.from(pieces, { objectMode: false }));
-    } catch (err) {
-      free();
-      throw err;
-    }
-  };
+  }
+}
 
-  app.post<{ Params: { id: string } }>('/v1/datasets/:id/runs', async (request, reply) => {
+/** A layer address's query, the schema having checked its names and types: bbox and datetime read on the sphere and the calendar; no limit is the whole layer. */
+function layerQuery(query: Record<string, unknown>): Pick<ItemsQuery, 'bbox' | 'datetime' | 'limit' | 'cursor'> {
+  const cursor = query.cursor as string | undefined;
+  return {
+    bbox: query.bbox === undefined ? null : parseBbox(String(query.bbox)),
+    datetime: query.datetime === undefined ? null : parseDatetime(String(query.datetime)),
+    limit: (query.limit as number | undefined) ?? Number.MAX_SAFE_INTEGER,
+    cursor: cursor === undefined || cursor === '' ? null : cursor,
+  };
+}
+
+/** A page of a layer: its features as the run wrote them, with the link to the next page. */
+async function sendLayerPage(store: Store, request: FastifyRequest, reply: FastifyReply, run: Run, layer: LayerName, q: ReturnType<typeof layerQuery>) {
+  const page = layerPage(await layerIndex(store, run.id, layer), q);
+  const links = [];
+  if (page.next !== null) {
+    const next = new URLSearchParams();
+    for (const [k, v] of Object.entries((request.query ?? {}) as Record<string, unknown>)) if (k !== 'cursor') next.set(k, String(v));
+    next.set('cursor', page.next);
+    links.push({ rel: 'next', type: 'application/geo+json', href: `${request.url.split('?')[0]}?${next.toString()}` });
+  }
+  const text = featureCollectionString(page.features, null, { numberMatched: page.matched, numberReturned: page.features.length, links });
+  return sendTagged(request, reply, 'application/geo+json', text, run.finishedAt);
+}
+
+/** A whole layer, streamed piece by piece as stored: a large layer never becomes one string here. */
+async function sendWholeLayer(store: Store, streams: LayerStreams, request: FastifyRequest, reply: FastifyReply, run: Run, layer: LayerName) {
+  // a stored layer never changes: the run and layer name it
+  if (notModified(request, reply, `"${run.id}.${layer}"`, run.finishedAt)) return reply.code(304).send();
+  const free = streams.take();
+  reply.raw.once('close', free);
+  try {
+    const pieces = await store.getRunLayerPieces(run.id, layer);
+    if (pieces === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
+    return await reply.type('application/geo+json').send(Readable.from(pieces, { objectMode: false }));
+  } catch (err) {
+    free();
+    throw err;
+  }
+}
+
+/** A result layer of a run: a page when the address has a query, else the whole layer as stored. */
+async function sendLayer(store: Store, streams: LayerStreams, request: FastifyRequest, reply: FastifyReply, run: Run, layer: LayerName) {
+  const query = (request.query ?? {}) as Record<string, unknown>;
+  const q = layerQuery(query);
+  if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
+  void reply.header('x-roost-run', run.id);
+  if (Object.keys(query).length > 0) return sendLayerPage(store, request, reply, run, layer, q);
+  return sendWholeLayer(store, streams, request, reply, run, layer);
+}
+
+/** POST /v1/datasets/{id}/runs: the dataset's settings, then the body's overrides, then the query string's. */
+function startRunHandler(store: Store, runner: Runner, maxQueuedRuns: number, retryAfter: Record<string, string>) {
+  return async (request: FastifyRequest<{ Params: { id: string } }>, reply: FastifyReply) => {
     const dataset = await requireDataset(store, request.params.id);
     const fromBody = (request.body as { settings?: Record<string, unknown> }).settings ?? {};
-    // dataset defaults, then the body's overrides, then the query string's
     const settings: Record<string, unknown> = { ...dataset.settings, ...fromBody, ...((request.query ?? {}) as Record<string, unknown>) };
     for (const [k, v] of Object.entries(settings)) if (v === null) delete settings[k];
     try {
-      resolveSettings(settings);
+      resolveRunSettings(settings);
     } catch (err) {
       settingsProblem(err);
     }
@@ -94,9 +120,12 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
     const run = await store.createRun({ datasetId: dataset.id, settings, trigger: 'request' });
     runner.wake();
     return reply.code(202).header('location', `/v1/datasets/${dataset.id}/runs/${run.id}`).send(runJson(run));
-  });
+  };
+}
 
-  app.get<{ Params: { id: string } }>('/v1/datasets/:id/runs', async (request) => {
+/** GET /v1/datasets/{id}/runs */
+function listRunsHandler(store: Store) {
+  return async (request: FastifyRequest<{ Params: { id: string } }>) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
     const dataset = await requireDataset(store, request.params.id);
     const limit = (query.limit as number | undefined) ?? 20;
@@ -111,33 +140,26 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
       runs: page.runs.map(runJson),
       next: page.nextCursor === null ? null : `/v1/datasets/${dataset.id}/runs?limit=${limit}&cursor=${page.nextCursor}`,
     };
-  });
-
-  const latest = async (datasetId: string): Promise<Run> => {
-    const dataset = await requireDataset(store, datasetId);
-    const run = await store.latestRun(dataset.id);
-    if (run === null) throw new HttpProblem('run-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet; POST /v1/datasets/${dataset.id}/runs starts one`);
-    return run;
   };
+}
 
-  app.get<{ Params: { id: string } }>('/v1/datasets/:id/runs/latest', async (request) => runJson(await latest(request.params.id)));
+/** The newest succeeded run of a dataset, or a 404 saying there is none yet. */
+async function latestRun(store: Store, datasetId: string): Promise<Run> {
+  const dataset = await requireDataset(store, datasetId);
+  const run = await store.latestRun(dataset.id);
+  if (run === null) throw new HttpProblem('run-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet; POST /v1/datasets/${dataset.id}/runs starts one`);
+  return run;
+}
 
-  app.get<{ Params: { id: string; layer: LayerName } }>('/v1/datasets/:id/runs/latest/:layer', async (request, reply) => {
-    return sendLayer(request, await latest(request.params.id), request.params.layer, reply);
-  });
+/** A run of a dataset, or a 404 for either. */
+async function namedRun(store: Store, datasetId: string, runId: string): Promise<Run> {
+  await requireDataset(store, datasetId);
+  return requireRun(store, datasetId, runId);
+}
 
-  app.get<{ Params: { id: string; run: string } }>('/v1/datasets/:id/runs/:run', async (request) => {
-    await requireDataset(store, request.params.id);
-    return runJson(await requireRun(store, request.params.id, request.params.run));
-  });
-
-  app.get<{ Params: { id: string; run: string; layer: LayerName } }>('/v1/datasets/:id/runs/:run/:layer', async (request, reply) => {
-    const layer = request.params.layer;
-    await requireDataset(store, request.params.id);
-    return sendLayer(request, await requireRun(store, request.params.id, request.params.run), layer, reply);
-  });
-
-  app.post<{ Params: { id: string; run: string } }>('/v1/datasets/:id/runs/:run/cancel', async (request) => {
+/** POST /v1/datasets/{id}/runs/{run}/cancel */
+function cancelRunHandler(store: Store, runner: Runner) {
+  return async (request: FastifyRequest<{ Params: { id: string; run: string } }>) => {
     await requireDataset(store, request.params.id);
     try {
       const run = await runner.cancel(request.params.id, request.params.run);
@@ -147,5 +169,23 @@ export default async function runRoutes(app: FastifyInstance, options: RunRouteO
       if (err instanceof StoreError && err.code === 'conflict') throw new HttpProblem('run-finished', `${err.message}; only queued or running runs can be cancelled`);
       throw err;
     }
+  };
+}
+
+export default async function runRoutes(app: FastifyInstance, options: RunRouteOptions = {}): Promise<void> {
+  const { store, runner } = app;
+  const retryAfter = { 'retry-after': String(options.retryAfterS ?? DEFAULT_CONFIG.retryAfterS) };
+  const streams = new LayerStreams(options.layerStreams ?? DEFAULT_CONFIG.layerStreams, retryAfter);
+  type RunParams = { Params: { id: string; run: string } };
+  type LayerParams = { Params: { id: string; run?: string; layer: LayerName } };
+
+  app.post('/v1/datasets/:id/runs', startRunHandler(store, runner, options.maxQueuedRuns ?? DEFAULT_CONFIG.maxQueuedRuns, retryAfter));
+  app.get('/v1/datasets/:id/runs', listRunsHandler(store));
+  app.get<{ Params: { id: string } }>('/v1/datasets/:id/runs/latest', async (request) => runJson(await latestRun(store, request.params.id)));
+  app.get<LayerParams>('/v1/datasets/:id/runs/latest/:layer', async (request, reply) => sendLayer(store, streams, request, reply, await latestRun(store, request.params.id), request.params.layer));
+  app.get<RunParams>('/v1/datasets/:id/runs/:run', async (request) => runJson(await namedRun(store, request.params.id, request.params.run)));
+  app.get<LayerParams & RunParams>('/v1/datasets/:id/runs/:run/:layer', async (request, reply) => {
+    return sendLayer(store, streams, request, reply, await namedRun(store, request.params.id, request.params.run), request.params.layer);
   });
+  app.post('/v1/datasets/:id/runs/:run/cancel', cancelRunHandler(store, runner));
 }

@@ -17,7 +17,7 @@ import { pointSet } from '../../core/types.js';
 import { runQuery } from '../../jobs/execute.js';
 import { kDistancePreview } from '../../report/kdistance.js';
 import { renderReport, reportDataFromStore } from '../../report/report.js';
-import { resolveSettings } from '../../run/settings.js';
+import { resolveClusterPart } from '../../trust/options.js';
 import { HttpProblem } from '../errors.js';
 import { requireDataset, requireRun, settingsProblem } from './common.js';
 
@@ -78,7 +78,7 @@ export default async function webRoutes(app: FastifyInstance, options: WebRouteO
     const dataset = await requireDataset(store, request.params.id);
     let settings;
     try {
-      settings = resolveSettings({ ...dataset.settings, eps: query.eps ?? 'auto', ...(query.min_points === undefined ? {} : { min_points: query.min_points }) });
+      settings = resolveClusterPart({ ...dataset.settings, eps: query.eps ?? 'auto', ...(query.min_points === undefined ? {} : { min_points: query.min_points }) });
     } catch (err) {
       settingsProblem(err);
     }
