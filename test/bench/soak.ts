@@ -116,7 +116,11 @@ function slowSender(base: string): Promise<void> {
       socket.write(`POST /v1/cluster?eps=60 HTTP/1.1\r\nHost: ${u.host}\r\nContent-Type: application/geo+json\r\nContent-Length: 10000000\r\n\r\n{`);
       const drip = setInterval(() => socket.write(' '), 1000);
       let text = '';
-      socket.on('data', (d: Buffer) => (text += d.toString()));
+      // once answered the client stops sending and hangs up, as a real client would
+      socket.on('data', (d: Buffer) => {
+        text += d.toString();
+        if (/^HTTP\/1\.1 \d{3}[\s\S]*\r\n\r\n/.test(text)) socket.destroy();
+      });
       const end = (): void => {
         clearInterval(drip);
         const m = /^HTTP\/1\.1 (\d{3})/.exec(text);
