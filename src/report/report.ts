@@ -11,8 +11,10 @@ import { pointSet, type PointSet } from '../core/types.js';
 import { runQuery } from '../jobs/execute.js';
 import { resolveClusterPart } from '../trust/options.js';
 import { ROOST_VERSION } from '../run/version.js';
+import type { LayerName } from '../run/layers.js';
 import type { Dataset, Run, Store } from '../storage/store.js';
 import { kDistancePreview } from './kdistance.js';
+import type { ReportData } from './report-data.js';
 
 /** The built report script, two levels up from src/report and dist/report alike. */
 export const REPORT_ASSETS_DIR = fileURLToPath(new URL('../../dist/web-report', import.meta.url));
@@ -20,23 +22,7 @@ export const REPORT_ASSETS_DIR = fileURLToPath(new URL('../../dist/web-report', 
 /** Noise points drawn in a report at most (a report stays small enough to send). */
 export const REPORT_MAX_NOISE = 20_000;
 
-export interface ReportData {
-  title: string;
-  dataset: { id: string; name: string } | null;
-  run: { id: string; created_at: string; finished_at: string | null } | null;
-  roost_version: string;
-  generated_at: string;
-  summary: Record<string, unknown>;
-  hotspots: unknown;
-  centres: unknown;
-  noise: unknown;
-  /** noise points left out of the map to keep the file small (0 when all are drawn) */
-  noise_left_out: number;
-  /** the k-distance answer at the run's min_points (DBSCAN runs) */
-  kdistance: Record<string, unknown> | null;
-  /** OPTICS runs: [order, reachability_m or null, hotspot_id or null] per observation in OPTICS order */
-  reachability: [number, number | null, number | null][] | null;
-}
+export type { ReportData };
 
 export class ReportAssetsMissing extends Error {}
 
@@ -136,7 +122,7 @@ export async function reportData(parts: ReportParts): Promise<ReportData> {
 
 /** A stored run's report data. */
 export async function reportDataFromStore(store: Store, dataset: Dataset, run: Run): Promise<ReportData> {
-  const layer = async (name: 'hotspots' | 'centres' | 'noise' | 'points'): Promise<string> => (await store.getRunLayer(run.id, name)) ?? '{"type":"FeatureCollection","features":[]}';
+  const layer = async (name: LayerName): Promise<string> => (await store.getRunLayer(run.id, name)) ?? '{"type":"FeatureCollection","features":[]}';
   return reportData({
     title: `${dataset.name || dataset.id}: run ${run.id}`,
     dataset: { id: dataset.id, name: dataset.name },

@@ -7,22 +7,11 @@ import './style.css';
 import workerSource from 'maplibre-gl/dist/maplibre-gl-worker.mjs?raw';
 import { maplibregl, openMap } from './basemap.js';
 import { kDistanceChart, reachabilityChart, type KDistance } from './charts.js';
+import type { ReportData as SharedReportData } from '../report/report-data.js';
 import { escapeHtml, fitTo, HOTSPOT_TABLE_HEAD, hotspotRows, legendHtml, prepareRunLayers, setNoiseVisible, showRun, type FC } from './runview.js';
 
-interface ReportData {
-  title: string;
-  dataset: { id: string; name: string } | null;
-  run: { id: string; created_at: string; finished_at: string | null } | null;
-  roost_version: string;
-  generated_at: string;
-  summary: Record<string, unknown>;
-  hotspots: FC;
-  centres: FC;
-  noise: FC;
-  noise_left_out: number;
-  kdistance: (KDistance & { preview: { hotspots: number; noise: number } | null }) | null;
-  reachability: [number, number | null, number | null][] | null;
-}
+/** The report's data as this script reads it: layers as FeatureCollections, the k-distance answer with its preview. */
+type ReportData = SharedReportData<FC, KDistance & { preview: { hotspots: number; noise: number } | null }>;
 
 declare global {
   interface Window {

@@ -3,57 +3,23 @@
  * then started again on the same SQLite file. A batch is wholly in or wholly out. (A run killed
  * in the middle: test/jobs/takeover.test.ts.)
  */
-import { spawn, type ChildProcess } from 'node:child_process';
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
-import { dirname, join } from 'node:path';
-import { fileURLToPath } from 'node:url';
+import { join } from 'node:path';
 import { afterAll, describe, expect, it } from 'vitest';
 import { pointsCollection } from '../http/helper.js';
+import { ChildServers, type ChildServer } from './child-server.js';
 
-const root = join(dirname(fileURLToPath(import.meta.url)), '..', '..');
 const dir = mkdtempSync(join(tmpdir(), 'roost-kill-'));
-const children = new Set<ChildProcess>();
+const servers = new ChildServers();
 afterAll(() => {
-  for (const c of children) if (c.exitCode === null && c.signalCode === null) c.kill('SIGKILL');
+  servers.killAll();
   rmSync(dir, { recursive: true, force: true });
 });
 
-interface Server {
-  url: string;
-  child: ChildProcess;
-}
-
-/** Starts `roost serve` on a free port; resolves with its URL once it listens (bounded wait). */
-function serve(db: string): Promise<Server> {
-  return new Promise((resolve, reject) => {
-    const child = spawn(process.execPath, ['--import', 'tsx', join(root, 'src/cli/bin.ts'), 'serve', '--port', '0', '--db', db, '--workers', '1', '--rate-limit', '0'], { cwd: root, stdio: ['ignore', 'pipe', 'pipe'] });
-    children.add(child);
-    let out = '';
-    const timer = setTimeout(() => reject(new Error(`server did not start: ${out}`)), 30_000);
-    child.stdout!.on('data', (d: Buffer) => {
-      out += d.toString();
-      const m = /"url":"(http:\/\/[^"]+)"/.exec(out);
-      if (m) {
-        clearTimeout(timer);
-        resolve({ url: m[1]!, child });
-      }
-    });
-    child.stderr!.on('data', (d: Buffer) => (out += d.toString()));
-    child.on('exit', (code) => {
-      clearTimeout(timer);
-      reject(new Error(`server exited with ${code}: ${out}`));
-    });
-  });
-}
-
-function kill(s: Server): Promise<void> {
-  return new Promise((resolve) => {
-    if (s.child.exitCode !== null || s.child.signalCode !== null) return resolve();
-    s.child.once('exit', () => resolve());
-    s.child.kill('SIGKILL');
-  });
-}
+/** Starts `roost serve` on a free port on the SQLite file `db`; resolves with its URL once it listens (bounded wait). */
+const serve = (db: string): Promise<ChildServer> => servers.serve(['--db', db, '--workers', '1', '--rate-limit', '0'], { startMs: 30_000 });
+const kill = (s: ChildServer): Promise<void> => servers.kill(s);
 
 async function call(url: string, init: RequestInit = {}): Promise<{ status: number; body: Record<string, unknown> }> {
   const res = await fetch(url, init);

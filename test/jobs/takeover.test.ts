@@ -9,11 +9,9 @@
  * PostgreSQL: the server named by DATABASE_URL (default postgres://postgres@127.0.0.1:5432/test),
  * in a database of this test's own; reported as skipped with the reason when no server answers.
  */
-import { spawn, type ChildProcess } from 'node:child_process';
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
-import { dirname, join } from 'node:path';
-import { fileURLToPath } from 'node:url';
+import { join } from 'node:path';
 import pg from 'pg';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { leaseMs } from '../../src/jobs/lease.js';
@@ -22,8 +20,8 @@ import { openSqliteStore } from '../../src/storage/sqlite.js';
 import type { Run, Store } from '../../src/storage/store.js';
 import { pointsCollection } from '../http/helper.js';
 import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
+import { ChildServers, type ChildServer } from './child-server.js';
 
-const root = join(dirname(fileURLToPath(import.meta.url)), '..', '..');
 const dir = mkdtempSync(join(tmpdir(), 'roost-takeover-'));
 const HEARTBEAT_MS = 2000;
 const BOUND_MS = 2 * HEARTBEAT_MS;
@@ -38,7 +36,7 @@ const PG_URL = ((): string => {
   return u.href;
 })();
 
-const children = new Set<ChildProcess>();
+const servers = new ChildServers();
 beforeAll(async () => {
   if (pgSkip !== null) return;
   const admin = new pg.Client({ connectionString: TEST_DATABASE_URL });
@@ -48,7 +46,7 @@ beforeAll(async () => {
   await admin.end();
 });
 afterAll(async () => {
-  for (const c of children) if (c.exitCode === null && c.signalCode === null) c.kill('SIGKILL');
+  servers.killAll();
   rmSync(dir, { recursive: true, force: true });
   if (pgSkip === null) {
     const admin = new pg.Client({ connectionString: TEST_DATABASE_URL });
@@ -58,45 +56,15 @@ afterAll(async () => {
   }
 });
 
-interface Server {
-  url: string;
-  child: ChildProcess;
-  /** when this test saw it listening, epoch ms */
-  readyAt: number;
-}
+type Server = ChildServer;
 
-/** Starts `roost serve` on a free port; resolves once it listens (bounded wait). */
+/** Starts `roost serve` on a free port on the database `db` names (flags); resolves once it listens (bounded wait). */
 function serve(db: string[]): Promise<Server> {
-  return new Promise((resolve, reject) => {
-    const args = ['--import', 'tsx', join(root, 'src/cli/bin.ts'), 'serve', '--port', '0', ...db, '--workers', '1', '--run-heartbeat-ms', String(HEARTBEAT_MS), '--max-event-loop-delay-ms', '0'];
-    const child = spawn(process.execPath, args, { cwd: root, stdio: ['ignore', 'pipe', 'pipe'], env: { ...process.env, DATABASE_URL: '' } });
-    children.add(child);
-    let out = '';
-    const timer = setTimeout(() => reject(new Error(`server did not start: ${out}`)), 60_000);
-    const seen = (d: Buffer): void => {
-      out += d.toString();
-      const m = /"url":"(http:\/\/[^"]+)"/.exec(out);
-      if (m) {
-        clearTimeout(timer);
-        resolve({ url: m[1]!, child, readyAt: Date.now() });
-      }
-    };
-    child.stdout!.on('data', seen);
-    child.stderr!.on('data', (d: Buffer) => (out += d.toString()));
-    child.on('exit', (code) => {
-      clearTimeout(timer);
-      reject(new Error(`server exited with ${code}: ${out}`));
-    });
-  });
+  const args = [...db, '--workers', '1', '--run-heartbeat-ms', String(HEARTBEAT_MS), '--max-event-loop-delay-ms', '0'];
+  return servers.serve(args, { startMs: 60_000, env: { ...process.env, DATABASE_URL: '' } });
 }
 
-function kill(s: Server): Promise<void> {
-  return new Promise((resolve) => {
-    if (s.child.exitCode !== null || s.child.signalCode !== null) return resolve();
-    s.child.once('exit', () => resolve());
-    s.child.kill('SIGKILL');
-  });
-}
+const kill = (s: Server): Promise<void> => servers.kill(s);
 
 /** Polls until `done` holds (every 25 ms, at most `withinMs`). */
 async function until<T>(what: string, get: () => Promise<T>, done: (v: T) => boolean, withinMs = 120_000): Promise<T> {

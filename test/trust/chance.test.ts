@@ -9,7 +9,8 @@ import { pointSet, type PointSet } from '../../src/core/types.js';
 import { clusterPoints } from '../../src/run/cluster.js';
 import { resolveSettings, type ClusterSettings } from '../../src/run/settings.js';
 import { hotspotStatistics, monteCarloPValues, simulatedMaxima, type ChanceSpec } from '../../src/trust/chance.js';
-import { insideArea, placeUniform, readStudyArea, studyArea, type StudyArea } from '../../src/trust/study-area.js';
+import { insideArea, insideAreaFast, placeUniform, readStudyArea, studyArea, type StudyArea } from '../../src/trust/study-area.js';
+import { hotspotHull } from '../../src/geometry/hull.js';
 import { randomStream } from '../../src/trust/random.js';
 import { runTrials } from '../../src/trust/trials.js';
 import { discPositions, rng } from '../reference/seeded.js';
@@ -89,6 +90,31 @@ describe('csr null model', () => {
     const expected = 0.5 / Math.sin(60 * RAD);
     // 4 standard errors of a share from 20,000 draws
     expect(Math.abs(below / n - expected)).toBeLessThan(4 * Math.sqrt((expected * (1 - expected)) / n));
+  });
+
+  it('places the very same points with the band index as with a test of every edge (same distribution, bit for bit)', () => {
+    // the study area csr uses by default: the buffered convex hull of the observations, its edges
+    // broken into pieces within 0.05 m of the arc (hundreds of vertices); and a polygon with a hole
+    const r = rng(SEED);
+    const obs = Array.from({ length: 2000 }, () => [9 + 2 * r.next(), 50 + 1.5 * r.next()] as const);
+    const hull = studyArea(hotspotHull(Float64Array.from(obs, (p) => p[0]), Float64Array.from(obs, (p) => p[1]), { kind: 'convex', bufferMeters: 125 }), 'convex hull of all observations');
+    expect(hull.lon.length).toBeGreaterThan(200);
+    const holed = readStudyArea(JSON.stringify({ type: 'Polygon', coordinates: [[[0, 0], [4, 0], [4, 3], [2, 5], [0, 3], [0, 0]], [[1, 1], [3, 1], [2, 2.5], [1, 1]]] }));
+    for (const area of [hull, holed]) {
+      const n = 20000;
+      const fast = [new Float64Array(n), new Float64Array(n)] as const;
+      const slow = [new Float64Array(n), new Float64Array(n)] as const;
+      placeUniform(area, n, randomStream(SEED, 1, 3), fast[0], fast[1]);
+      placeUniform(area, n, randomStream(SEED, 1, 3), slow[0], slow[1], insideArea);
+      expect(fast[0]).toEqual(slow[0]);
+      expect(fast[1]).toEqual(slow[1]);
+      // and the same answer for points on and near the vertices, where bands meet
+      for (let i = 0; i < area.lon.length; i += 7) {
+        for (const [dx, dy] of [[0, 0], [1e-9, 0], [0, -1e-9], [-1e-9, 1e-9]]) {
+          expect(insideAreaFast(area, area.lon[i] + dx, area.lat[i] + dy)).toBe(insideArea(area, area.lon[i] + dx, area.lat[i] + dy));
+        }
+      }
+    }
   });
 
   it('keeps the share of runs with any hotspot at p ≤ 0.05 inside its binomial band (count statistic)', () => {
