@@ -79,6 +79,40 @@ export function optionalFieldsOf(hotspots: readonly Record<string, unknown>[]): 
   return OPTIONAL_HOTSPOT_FIELDS.filter((f) => hotspots.some((h) => Object.hasOwn(h, f.name)));
 }
 
+/**
+ * Fields of every feature of the changes layer (GET /v1/datasets/{id}/changes as GeoJSON), in the
+ * order they are written: the same names and types whatever transitions a pair of runs has. Fields
+ * that do not apply to a transition are null (a survival's change on an emergence, say); `centre`
+ * (the pair) is kept beside `centre_lon` and `centre_lat` for the map page.
+ */
+export const CHANGE_FIELDS: readonly LayerField[] = [
+  { name: 'transition', type: 'string', nullable: false, description: 'emergence, survival, split, absorption or disappearance' },
+  { name: 'run_id', type: 'string', nullable: false, description: 'the run the hull is from: the later one, or the earlier one for a disappearance' },
+  { name: 'hotspot_id', type: 'integer', nullable: false, description: "the hotspot's number in that run" },
+  { name: 'track_id', type: 'string', nullable: true, description: "the hotspot's track" },
+  { name: 'from_track_ids', type: 'string', nullable: false, description: 'the tracks it came from in the earlier run, comma-separated (empty for an emergence)' },
+  { name: 'count', type: 'integer', nullable: true, description: 'observations in the hotspot' },
+  { name: 'area_km2', type: 'real', nullable: true, description: 'hull area, km²' },
+  { name: 'density_per_km2', type: 'real', nullable: true, description: 'count per km² of hull' },
+  { name: 'centre_lon', type: 'real', nullable: true, description: "longitude of the hotspot's centre" },
+  { name: 'centre_lat', type: 'real', nullable: true, description: "latitude of the hotspot's centre" },
+  { name: 'basis', type: 'string', nullable: true, description: 'members or hull: what the overlap was measured on (null for a disappearance)' },
+  { name: 'overlap', type: 'real', nullable: true, description: "a split part's share of the old hotspot; otherwise the largest overlap with a hotspot it came from; null for emergences and disappearances" },
+  { name: 'count_delta', type: 'real', nullable: true, description: 'survivals: new count minus old' },
+  { name: 'count_ratio', type: 'real', nullable: true, description: 'survivals: new count over old (null when the old is 0)' },
+  { name: 'area_delta_km2', type: 'real', nullable: true, description: 'survivals: new area minus old, km²' },
+  { name: 'density_ratio', type: 'real', nullable: true, description: 'survivals: new density over old (null when the old is 0)' },
+  { name: 'moved_m', type: 'real', nullable: true, description: 'survivals: distance between the old and the new centre, metres' },
+  { name: 'shrink', type: 'boolean', nullable: false, description: 'survivals judged by the shrink rule' },
+];
+
+/** The JSON text of properties written field by field as `fields` declare them (reals with a decimal point, absent as null). */
+export function fieldsText(props: Record<string, unknown>, fields: readonly LayerField[]): string {
+  let s = '{';
+  for (const field of fields) s += (s.length > 1 ? ',' : '') + JSON.stringify(field.name) + ':' + valueText(field, props[field.name]);
+  return s + '}';
+}
+
 /** Prefix of the per-category count fields. */
 export const CATEGORY_FIELD_PREFIX = 'count_';
 

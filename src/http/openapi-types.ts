@@ -388,7 +388,14 @@ export interface paths {
          *     As GeoJSON (`?format=geojson` or `Accept: application/geo+json`): the hulls of the later
          *     run's hotspots with `transition` (the kind that led to each), `track_id`,
          *     `from_track_ids`, figures and, for survivals, the change; and the hulls, from the earlier
-         *     run, of the hotspots that disappeared.
+         *     run, of the hotspots that disappeared. Every feature has the same flat fields, in this
+         *     order and of these types whatever its transition, null where they do not apply:
+         *     `transition`, `run_id` (strings), `hotspot_id` (integer), `track_id`, `from_track_ids`
+         *     (comma-separated), `count` (integer), `area_km2`, `density_per_km2`, `centre_lon`,
+         *     `centre_lat` (reals), `basis` (string), `overlap` (real: a split part's share, else the
+         *     largest overlap), `count_delta`, `count_ratio`, `area_delta_km2`, `density_ratio`,
+         *     `moved_m` (reals, always written with a decimal point), `shrink` (boolean), then
+         *     `p_value` and `significant` when either run has them, and `centre` (the pair).
          */
         get: operations["getChanges"];
         put?: never;
@@ -772,7 +779,11 @@ export interface paths {
          * @description Features passing `bbox` and `datetime`, at most `limit` per page, with `numberMatched`,
          *     `numberReturned`, `timeStamp` and absolute `self`, `alternate`, `next` (and for result
          *     layers `prev`) links. Result-layer features are served as their run wrote them. The
-         *     `Content-Crs` header names CRS84.
+         *     `Content-Crs` header names CRS84. With `f=fgb` or `f=csv` (or an `Accept` header asking
+         *     for `application/flatgeobuf` or `text/csv`) the page comes as a FlatGeobuf or CSV file
+         *     with typed columns, as the result-layer addresses give them (see `layerFileFormat`); the
+         *     other pages are then named in a `Link` header and `X-Roost-Number-Matched` counts the
+         *     matching features.
          */
         get: operations["featuresItems"];
         put?: never;
@@ -1635,6 +1646,7 @@ export interface components {
             storageCrs?: string;
             extent?: {
                 spatial?: {
+                    /** @description [west, south, east, north], the smallest box holding the features; west > east when it crosses the antimeridian. */
                     bbox?: number[][];
                     crs?: string;
                 };
@@ -2180,13 +2192,17 @@ export interface components {
         /**
          * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
          *     published-hotspots, published-centres, published-noise or published-points (the published
-         *     layers, readable without a key when the dataset is public). A key limited to one dataset
+         *     layers, readable without a key when the dataset is public). The layers are those of the
+         *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+         *     in /features/collections). A key limited to one dataset
          *     reaches that dataset's collections only (and the public published layers).
          * @example marrow-vale.hotspots
          */
         collectionId: string;
         /** @description The representation, when not chosen by the Accept header (text/html gives HTML). */
         ogcFormat: "json" | "html";
+        /** @description The representation, when not chosen by the Accept header: json (GeoJSON), html, fgb (FlatGeobuf) or csv. */
+        ogcItemsFormat: "json" | "html" | "fgb" | "csv";
         /** @description Features per page; larger values are answered with 10000. */
         ogcLimit: number;
         /** @description west,south,east,north in degrees (six numbers with heights, which are ignored); west > east crosses the antimeridian. Features whose bounding box meets it are returned. */
@@ -2302,6 +2318,18 @@ export interface components {
         runId: string;
         /** @description west,south,east,north in degrees; west > east crosses the antimeridian. Features whose bounding box meets it are returned. */
         layerBbox: number[];
+        /**
+         * @description The file format: `geojson` (the default), `fgb` (FlatGeobuf, for big layers: written
+         *     header first and a feature at a time, no spatial index; CRS EPSG:4326, longitude first) or
+         *     `csv`. Without `f`, an `Accept` header asking for `application/flatgeobuf` or `text/csv`
+         *     chooses it. FlatGeobuf and CSV have fixed, typed columns: the hotspots and centres layers
+         *     their declared fields, the points and noise layers `id`, `hotspot_id`, `role` and the
+         *     observations' own properties typed from the whole layer (whole numbers as integers, other
+         *     numbers as reals, nested values as JSON text). CSV (RFC 4180) starts with `lon,lat` for
+         *     point layers (centres, points, noise) and with `wkt` (the hull as Well-Known Text) for
+         *     hotspots; reals keep a decimal point and an empty cell is a null.
+         */
+        layerFileFormat: "geojson" | "fgb" | "csv";
         /** @description Features per page (at most 10000); without it, every matching feature. */
         layerLimit: number;
         /** @description `hotspots`, `centres`, `noise` or `points`. OPTICS runs' points and noise features carry `optics_order` and `reachability_m` (see the `layer` query parameter). */
@@ -3182,6 +3210,18 @@ export interface operations {
                 limit?: components["parameters"]["layerLimit"];
                 /** @description Where the page starts; take it from a `next` or `prev` link. */
                 cursor?: components["parameters"]["ogcCursor"];
+                /**
+                 * @description The file format: `geojson` (the default), `fgb` (FlatGeobuf, for big layers: written
+                 *     header first and a feature at a time, no spatial index; CRS EPSG:4326, longitude first) or
+                 *     `csv`. Without `f`, an `Accept` header asking for `application/flatgeobuf` or `text/csv`
+                 *     chooses it. FlatGeobuf and CSV have fixed, typed columns: the hotspots and centres layers
+                 *     their declared fields, the points and noise layers `id`, `hotspot_id`, `role` and the
+                 *     observations' own properties typed from the whole layer (whole numbers as integers, other
+                 *     numbers as reals, nested values as JSON text). CSV (RFC 4180) starts with `lon,lat` for
+                 *     point layers (centres, points, noise) and with `wkt` (the hull as Well-Known Text) for
+                 *     hotspots; reals keep a decimal point and an empty cell is a null.
+                 */
+                f?: components["parameters"]["layerFileFormat"];
             };
             header?: never;
             path: {
@@ -3199,7 +3239,10 @@ export interface operations {
              *     run and layer and Last-Modified the time the run finished. With `bbox`, `datetime`,
              *     `limit` or `cursor`, the matching features as the run wrote them, with
              *     `numberMatched`, `numberReturned` and a `next` link while more remain. Other
-             *     parameters are refused.
+             *     parameters are refused. As FlatGeobuf or CSV (`f=fgb`, `f=csv`, or by `Accept`): the
+             *     same features with typed columns, streamed; while more remain a `Link` header names
+             *     the next page (`rel="next"`), and `X-Roost-Number-Matched` counts the features that
+             *     match.
              */
             200: {
                 headers: {
@@ -3209,6 +3252,8 @@ export interface operations {
                 };
                 content: {
                     "application/geo+json": components["schemas"]["Layer"];
+                    "application/flatgeobuf": string;
+                    "text/csv": string;
                 };
             };
             304: components["responses"]["NotModified"];
@@ -3269,6 +3314,18 @@ export interface operations {
                 limit?: components["parameters"]["layerLimit"];
                 /** @description Where the page starts; take it from a `next` or `prev` link. */
                 cursor?: components["parameters"]["ogcCursor"];
+                /**
+                 * @description The file format: `geojson` (the default), `fgb` (FlatGeobuf, for big layers: written
+                 *     header first and a feature at a time, no spatial index; CRS EPSG:4326, longitude first) or
+                 *     `csv`. Without `f`, an `Accept` header asking for `application/flatgeobuf` or `text/csv`
+                 *     chooses it. FlatGeobuf and CSV have fixed, typed columns: the hotspots and centres layers
+                 *     their declared fields, the points and noise layers `id`, `hotspot_id`, `role` and the
+                 *     observations' own properties typed from the whole layer (whole numbers as integers, other
+                 *     numbers as reals, nested values as JSON text). CSV (RFC 4180) starts with `lon,lat` for
+                 *     point layers (centres, points, noise) and with `wkt` (the hull as Well-Known Text) for
+                 *     hotspots; reals keep a decimal point and an empty cell is a null.
+                 */
+                f?: components["parameters"]["layerFileFormat"];
             };
             header?: never;
             path: {
@@ -3288,7 +3345,10 @@ export interface operations {
              *     run and layer and Last-Modified the time the run finished. With `bbox`, `datetime`,
              *     `limit` or `cursor`, the matching features as the run wrote them, with
              *     `numberMatched`, `numberReturned` and a `next` link while more remain. Other
-             *     parameters are refused.
+             *     parameters are refused. As FlatGeobuf or CSV (`f=fgb`, `f=csv`, or by `Accept`): the
+             *     same features with typed columns, streamed; while more remain a `Link` header names
+             *     the next page (`rel="next"`), and `X-Roost-Number-Matched` counts the features that
+             *     match.
              */
             200: {
                 headers: {
@@ -3298,6 +3358,8 @@ export interface operations {
                 };
                 content: {
                     "application/geo+json": components["schemas"]["Layer"];
+                    "application/flatgeobuf": string;
+                    "text/csv": string;
                 };
             };
             304: components["responses"]["NotModified"];
@@ -3976,7 +4038,9 @@ export interface operations {
                 /**
                  * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
                  *     published-hotspots, published-centres, published-noise or published-points (the published
-                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     layers, readable without a key when the dataset is public). The layers are those of the
+                 *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+                 *     in /features/collections). A key limited to one dataset
                  *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
@@ -4013,7 +4077,9 @@ export interface operations {
                 /**
                  * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
                  *     published-hotspots, published-centres, published-noise or published-points (the published
-                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     layers, readable without a key when the dataset is public). The layers are those of the
+                 *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+                 *     in /features/collections). A key limited to one dataset
                  *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
@@ -4062,15 +4128,17 @@ export interface operations {
                 crs?: components["parameters"]["ogcCrs"];
                 /** @description Where the page starts; take it from a `next` or `prev` link. */
                 cursor?: components["parameters"]["ogcCursor"];
-                /** @description The representation, when not chosen by the Accept header (text/html gives HTML). */
-                f?: components["parameters"]["ogcFormat"];
+                /** @description The representation, when not chosen by the Accept header: json (GeoJSON), html, fgb (FlatGeobuf) or csv. */
+                f?: components["parameters"]["ogcItemsFormat"];
             };
             header?: never;
             path: {
                 /**
                  * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
                  *     published-hotspots, published-centres, published-noise or published-points (the published
-                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     layers, readable without a key when the dataset is public). The layers are those of the
+                 *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+                 *     in /features/collections). A key limited to one dataset
                  *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */
@@ -4090,6 +4158,8 @@ export interface operations {
                 content: {
                     "application/geo+json": components["schemas"]["OgcFeatureCollection"];
                     "text/html": string;
+                    "application/flatgeobuf": string;
+                    "text/csv": string;
                 };
             };
             304: components["responses"]["NotModified"];
@@ -4113,7 +4183,9 @@ export interface operations {
                 /**
                  * @description `<dataset>.<kind>`, where kind is observations, hotspots, centres, noise or points, or
                  *     published-hotspots, published-centres, published-noise or published-points (the published
-                 *     layers, readable without a key when the dataset is public). A key limited to one dataset
+                 *     layers, readable without a key when the dataset is public). The layers are those of the
+                 *     latest succeeded run; `<dataset>@<run>.<kind>` names another succeeded run's (not listed
+                 *     in /features/collections). A key limited to one dataset
                  *     reaches that dataset's collections only (and the public published layers).
                  * @example marrow-vale.hotspots
                  */

@@ -10,7 +10,9 @@
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { featureCollectionString } from '../geometry/geojson.js';
-import { categoryNames, hotspotLayerFields, optionalFieldsOf, propertiesJsonSchema, trustFieldsOf } from '../geometry/layer-fields.js';
+import { Readable } from 'node:stream';
+import { categoryNames, hotspotLayerFields, optionalFieldsOf, propertiesJsonSchema, trustFieldsOf, type LayerField } from '../geometry/layer-fields.js';
+import { csvLines, flatGeobufChunks, layerColumns, layerFormat, MEDIA_TYPES } from './formats.js';
 import { etagOf, notModified, sendTagged } from '../http/conditional.js';
 import { HttpProblem } from '../http/errors.js';
 import { mayRead } from '../auth/roles.js';
@@ -88,8 +90,15 @@ function withParams(query: Record<string, unknown>, changes: Record<string, stri
 interface Resolved {
   dataset: Dataset;
   kind: CollectionKind;
-  /** the latest succeeded run, for layer collections */
+  /** the latest succeeded run, or the named one, for layer collections */
   run: Run | null;
+  /** whether the id names the run (`<dataset>@<run>.<kind>`) */
+  named: boolean;
+}
+
+/** The id a resolved collection was asked by. */
+function idOf(r: Resolved): string {
+  return collectionId(r.dataset.id, r.kind, r.named ? r.run!.id : null);
 }
 
 export default async function featuresRoutes(app: FastifyInstance, options: FeaturesOptions = {}): Promise<void> {
@@ -102,13 +111,20 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     if (parsed === null || dataset === null) {
       throw new HttpProblem('collection-not-found', `there is no collection ${JSON.stringify(id)}; GET ${FEATURES_ROOT}/collections lists them`);
     }
-    if (parsed.kind === 'observations') return { dataset, kind: parsed.kind, run: null };
+    if (parsed.kind === 'observations') return { dataset, kind: parsed.kind, run: null, named: false };
     if (isPublishedKind(parsed.kind) && dataset.publish === null) {
       throw new HttpProblem('collection-not-found', `dataset ${JSON.stringify(dataset.id)} is not published (it has no publishing settings), so there is no collection ${JSON.stringify(id)}`);
     }
+    if (parsed.runId !== null) {
+      const run = await store.getRun(dataset.id, parsed.runId);
+      if (run === null || run.status !== 'succeeded') {
+        throw new HttpProblem('collection-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run ${JSON.stringify(parsed.runId)}, so there is no collection ${JSON.stringify(id)}; GET /v1/datasets/${dataset.id}/runs lists its runs`);
+      }
+      return { dataset, kind: parsed.kind, run, named: true };
+    }
     const run = await store.latestRun(dataset.id);
     if (run === null) throw new HttpProblem('collection-not-found', `dataset ${JSON.stringify(dataset.id)} has no succeeded run yet, so there is no collection ${JSON.stringify(id)}`);
-    return { dataset, kind: parsed.kind, run };
+    return { dataset, kind: parsed.kind, run, named: false };
   };
 
   /** The index of a layer collection: a stored layer, or a published one made from the run. */
@@ -138,7 +154,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
 
   /** The description of one collection (OGC 17-069r4 §7.14). */
   const collectionJson = async (request: FastifyRequest, r: Resolved, html: boolean): Promise<Record<string, unknown>> => {
-    const id = collectionId(r.dataset.id, r.kind);
+    const id = idOf(r);
     const href = `${root(request)}/collections/${id}`;
     let bbox: Bbox | null = null;
     let interval: [number | null, number | null] | null = null;
@@ -154,8 +170,8 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const iso = (t: number | null): string | null => (t === null ? null : new Date(t).toISOString());
     return {
       id,
-      title: `${r.dataset.name} — ${r.kind}`,
-      description: `Dataset ${r.dataset.id}: ${KIND_TEXT[r.kind]}${r.run ? ` (run ${r.run.id}, finished ${r.run.finishedAt})` : ''}.`,
+      title: `${r.dataset.name} — ${r.kind}${r.named ? ` (run ${r.run!.id})` : ''}`,
+      description: `Dataset ${r.dataset.id}: ${r.named ? KIND_TEXT[r.kind].replace('the latest succeeded run', `run ${r.run!.id}`) : KIND_TEXT[r.kind]}${r.run ? ` (run ${r.run.id}, finished ${r.run.finishedAt})` : ''}.`,
       itemType: 'feature',
       crs: [CRS84],
       storageCrs: CRS84,
@@ -185,11 +201,11 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     const out: Resolved[] = [];
     for (const dataset of await store.listDatasets()) {
       const reads = mayRead(request.principal, dataset.id);
-      if (reads) out.push({ dataset, kind: 'observations', run: null });
+      if (reads) out.push({ dataset, kind: 'observations', run: null, named: false });
       if (!reads && !publishedPublicly(dataset)) continue;
       const run = await store.latestRun(dataset.id);
       if (run === null) continue;
-      if (reads) for (const kind of LAYER_NAMES) out.push({ dataset, kind, run });
+      if (reads) for (const kind of LAYER_NAMES) out.push({ dataset, kind, run, named: false });
       if (dataset.publish === null) continue;
       try {
         await publishedLayers(store, dataset, run);
@@ -197,7 +213,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
         if (err instanceof HttpProblem) continue;
         throw err;
       }
-      for (const kind of PUBLISHED_KINDS) out.push({ dataset, kind, run });
+      for (const kind of PUBLISHED_KINDS) out.push({ dataset, kind, run, named: false });
     }
     return out;
   };
@@ -265,19 +281,36 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
 
   app.get<{ Params: { collectionId: string } }>(`${FEATURES_ROOT}/collections/:collectionId/items`, async (request, reply) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
-    const q = parseItemsQuery(query);
-    const html = wantsHtml(request, q.format);
+    // f=fgb or f=csv (or Accept asking for them): the page as a file with typed columns
+    const file = fileFormatOf(query.f, request.headers.accept);
+    const q = parseItemsQuery(file === null ? query : withoutF(query));
+    const html = file === null && wantsHtml(request, q.format);
     const r = await resolve(request.params.collectionId);
-    const href = `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}/items`;
+    const href = `${root(request)}/collections/${idOf(r)}/items`;
     const { features, matched, next, prev } = r.kind === 'observations' ? await observationPage(store, r.dataset.id, q) : layerPage(await indexOf(r), q);
     const own = withParams(query, { f: null });
     const links: Link[] = [
       ...selfLinks(href, html, GEOJSON, own),
-      { href: `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}`, rel: 'collection', type: JSON_TYPE, title: 'the collection' },
+      { href: `${root(request)}/collections/${idOf(r)}`, rel: 'collection', type: JSON_TYPE, title: 'the collection' },
     ];
     const fmt = html ? 'html' : 'json';
     if (next !== null) links.push({ href: href + withParams(query, { cursor: next, f: fmt }), rel: 'next', type: html ? HTML : GEOJSON, title: 'next page' });
     if (prev !== null) links.push({ href: href + withParams(query, { cursor: prev === '0' ? null : prev, f: fmt }), rel: 'prev', type: html ? HTML : GEOJSON, title: 'previous page' });
+    if (file !== null) {
+      const fmt = file === 'fgb' ? 'fgb' : 'csv';
+      for (const l of links) if (l.rel === 'next' || l.rel === 'prev') l.href = l.href.replace(/([?&])f=json/, `$1f=${fmt}`);
+      const link = links.filter((l) => l.rel === 'next' || l.rel === 'prev').map((l) => `<${l.href}>; rel="${l.rel}"`);
+      if (link.length > 0) void reply.header('link', link.join(', '));
+      if (matched !== null) void reply.header('x-roost-number-matched', String(matched));
+      void reply.header('content-crs', `<${CRS84}>`);
+      const parsed = features.map((t) => JSON.parse(t) as Parameters<typeof layerColumns>[0][number]);
+      const columns = layerColumns(parsed, r.kind === 'hotspots' || r.kind === 'centres' ? hotspotFieldsOf(r.run!) : null);
+      const name = idOf(r);
+      void reply.header('content-disposition', `inline; filename="${name}.${fmt}"`);
+      // the tag names the page: the collection, its run, and the query
+      if (notModified(request, reply, etagOf(JSON.stringify([name, r.run?.id ?? null, features.length, matched, Object.entries(query).sort(), r.kind === 'observations' ? features : null])), modifiedOf(r))) return reply.code(304).send();
+      return reply.type(MEDIA_TYPES[fmt]).send(Readable.from(fmt === 'fgb' ? flatGeobufChunks(parsed, columns, name) : csvLines(parsed, columns)));
+    }
     const timeStamp = new Date().toISOString();
     const extra = { ...(matched === null ? {} : { numberMatched: matched }), numberReturned: features.length, timeStamp, links };
     void reply.header('content-crs', `<${CRS84}>`);
@@ -302,8 +335,8 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
       const k = index.ids.indexOf(fid);
       text = k < 0 ? null : index.features[k]!;
     }
-    if (text === null) throw new HttpProblem('feature-not-found', `collection ${collectionId(r.dataset.id, r.kind)} has no feature ${JSON.stringify(fid)}`);
-    const coll = `${root(request)}/collections/${collectionId(r.dataset.id, r.kind)}`;
+    if (text === null) throw new HttpProblem('feature-not-found', `collection ${idOf(r)} has no feature ${JSON.stringify(fid)}`);
+    const coll = `${root(request)}/collections/${idOf(r)}`;
     const links: Link[] = [...selfLinks(`${coll}/items/${encodeURIComponent(fid)}`, html, GEOJSON), { href: coll, rel: 'collection', type: JSON_TYPE, title: 'the collection' }];
     void reply.header('content-crs', `<${CRS84}>`);
     if (html) {
@@ -315,7 +348,7 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
 
   /** JSON Schema of a collection's feature properties. */
   function schemaOf(r: Resolved): Record<string, unknown> {
-    const id = collectionId(r.dataset.id, r.kind);
+    const id = idOf(r);
     if (r.kind === 'hotspots' || r.kind === 'centres') {
       const hotspots = (r.run!.summary?.['hotspots'] ?? []) as Record<string, unknown>[];
       return propertiesJsonSchema(hotspotLayerFields(categoryNames(hotspots), trustFieldsOf(hotspots), optionalFieldsOf(hotspots)), id);
@@ -371,6 +404,25 @@ function publishedSchema(kind: CollectionKind, title: string): Record<string, un
       role: { type: ['string', 'null'], enum: ['core', 'border', 'noise', null] },
     },
   };
+}
+
+/** The file format asked of an items page: `f=fgb` / `f=csv`, or (without `f`) an Accept header naming one. */
+function fileFormatOf(f: unknown, accept: string | undefined): 'fgb' | 'csv' | null {
+  if (f === 'fgb' || f === 'csv') return f;
+  if (f !== undefined) return null;
+  const chosen = layerFormat(undefined, accept);
+  return chosen === 'geojson' ? null : chosen;
+}
+
+function withoutF(query: Record<string, unknown>): Record<string, unknown> {
+  const { f: _f, ...rest } = query;
+  return rest;
+}
+
+/** The declared fields of a run's hotspots and centres. */
+function hotspotFieldsOf(run: Run): LayerField[] {
+  const hotspots = (run.summary?.['hotspots'] ?? []) as Record<string, unknown>[];
+  return hotspotLayerFields(categoryNames(hotspots), trustFieldsOf(hotspots), optionalFieldsOf(hotspots));
 }
 
 /** A page of observations: the store pages by its own cursor, which is passed through. */

@@ -5,6 +5,7 @@
  * dataset by locking the dataset row, so two instances posting the same ids cannot both insert;
  * run claims use `FOR UPDATE SKIP LOCKED`; schedule slots are a unique row.
  */
+import { BIN_DEGREES, lonRange } from './extent.js';
 import { Readable } from 'node:stream';
 import { pipeline } from 'node:stream/promises';
 import pg from 'pg';
@@ -50,6 +51,9 @@ import { whereMatches } from './where-match.js';
 import { trackListSql, trackPage } from './track-list.js';
 import { MIGRATIONS } from './migrations.js';
 import { RUN_COPY_COLUMNS, RunCopyQuery } from './pg-copy.js';
+
+/** The bin of a longitude (extent.ts): floor, since PostgreSQL's integer cast rounds. */
+const LON_BIN_SQL_PG = `floor((lon + 180) * ${1 / BIN_DEGREES})::int`;
 
 export interface PostgresStoreOptions {
   /** postgres:// or postgresql:// URL */
@@ -269,7 +273,16 @@ export class PostgresStore implements Store {
       rowMode: 'array',
     });
     const [count, w, s, e, n, first, last] = r.rows[0] as [number, number | null, number | null, number | null, number | null, number | null, number | null];
-    return { count, bbox: count === 0 ? null : [Number(w), Number(s), Number(e), Number(n)], first, last };
+    if (count === 0) return { count, bbox: null, first, last };
+    // least and greatest longitude per bin, for a range that may cross ±180 (extent.ts)
+    const b = await this.pool.query({
+      text: `SELECT min(lon)::float8, max(lon)::float8 FROM observations WHERE dataset_id = $1 GROUP BY ${LON_BIN_SQL_PG} ORDER BY ${LON_BIN_SQL_PG}`,
+      values: [datasetId],
+      rowMode: 'array',
+    });
+    const bins = (b.rows as [unknown, unknown][]).map(([lo, hi]) => [Number(lo), Number(hi)] as [number, number]);
+    const [west, east] = bins.length > 0 ? lonRange(bins) : [Number(w), Number(e)];
+    return { count, bbox: [west, Number(s), east, Number(n)], first, last };
   }
 
   /**

@@ -11,6 +11,7 @@
  * one statement or one transaction, which SQLite rolled back when it was refused, so trying it
  * again is safe.
  */
+import { LON_BIN_SQL, lonRange } from './extent.js';
 import { isAscii } from 'node:buffer';
 import Database from 'better-sqlite3';
 import type {
@@ -288,7 +289,11 @@ export class SqliteStore implements Store {
       .prepare('SELECT count(*), min(lon), min(lat), max(lon), max(lat), min(observed_at), max(observed_at) FROM observations WHERE dataset_id = ?')
       .raw()
       .get(datasetId) as [number, number | null, number | null, number | null, number | null, number | null, number | null];
-    return { count, bbox: count === 0 ? null : [w!, s!, e!, n!], first, last };
+    if (count === 0) return { count, bbox: null, first, last };
+    // least and greatest longitude per bin, for a range that may cross ±180 (extent.ts)
+    const bins = this.db.prepare(`SELECT min(lon), max(lon) FROM observations WHERE dataset_id = ? GROUP BY ${LON_BIN_SQL} ORDER BY ${LON_BIN_SQL}`).raw().all(datasetId) as [number, number][];
+    const [west, east] = bins.length > 0 ? lonRange(bins) : [w!, e!];
+    return { count, bbox: [west, s!, east, n!], first, last };
   }
 
   async loadForRun(datasetId: string, query: Omit<ObservationQuery, 'bbox'> = {}): Promise<RunInput> {

@@ -187,6 +187,10 @@ describe('OGC API – Features requirements', () => {
       const fiji = cs.find((c) => c.id === 'fiji.hotspots')!;
       const [w, , e] = fiji.extent!.spatial.bbox[0]!;
       expect(w).toBeGreaterThan(e!);
+      // and so has the dataset's observations: the smallest range holding them, across ±180
+      const fijiObs = cs.find((c) => c.id === 'fiji.observations')!.extent!.spatial.bbox[0]!;
+      expect(fijiObs[0]).toBeGreaterThan(179);
+      expect(fijiObs[2]).toBeLessThan(-179);
       expect(cs.find((c) => c.id === 'empty.observations')!.extent).toBeUndefined();
     });
 
@@ -436,6 +440,41 @@ describe('OGC API – Features requirements', () => {
       expect(res.json().parameter).toBe('bbox-crs');
     });
   });
+  describe('named runs', () => {
+    it('any succeeded run\'s layers are collections <dataset>@<run>.<kind>, not listed, with their own links', async () => {
+      const first = (await json('/v1/datasets/fiji/runs/latest')).id as string;
+      // a second run with other settings: the latest changes, the first stays reachable by name
+      const run = await app.inject({ method: 'POST', url: '/v1/datasets/fiji/runs', headers: JSON_TYPE, payload: JSON.stringify({ settings: { eps: 200, min_points: 3 } }) });
+      expect(run.statusCode, run.body).toBe(202);
+      for (;;) {
+        const r = (await app.inject({ method: 'GET', url: run.headers.location as string })).json() as { status: string };
+        if (r.status === 'succeeded') break;
+        if (r.status === 'failed' || r.status === 'cancelled') throw new Error(`run ${r.status}`);
+        await new Promise((resolve) => setTimeout(resolve, 20));
+      }
+      const second = (await json('/v1/datasets/fiji/runs/latest')).id as string;
+      expect(second).not.toBe(first);
+      for (const kind of ['hotspots', 'points']) {
+        const stored = (await json(`/v1/datasets/fiji/runs/${first}/${kind}`)).features as unknown[];
+        const coll = await json(`/features/collections/fiji@${first}.${kind}`);
+        expect(coll.id).toBe(`fiji@${first}.${kind}`);
+        expect(String(coll.description)).toContain(`run ${first}`);
+        const items = await json(`/features/collections/fiji@${first}.${kind}/items?limit=10000`);
+        expect(items.features).toEqual(stored);
+        expect(rels(items.links as Link[], 'self')[0]!.href).toContain(`/features/collections/fiji@${first}.${kind}/items`);
+      }
+      // the latest run's collection follows the latest run
+      expect((await json('/features/collections/fiji.hotspots')).description).toContain(`run ${second}`);
+      const ids = ((await json('/features/collections')).collections as { id: string }[]).map((c) => c.id);
+      expect(ids.some((id) => id.includes('@'))).toBe(false);
+      for (const bad of [`fiji@r999999.hotspots`, `fiji@${first}.observations`, `@${first}.hotspots`, `fiji@.hotspots`]) {
+        const res = await get(`/features/collections/${bad}`);
+        expect(res.statusCode, bad).toBe(404);
+        expect(res.json().code, bad).toBe('collection-not-found');
+      }
+    });
+  });
+
   describe('with API keys', () => {
     it('collections are cut to what the caller may read: nothing but public published layers without a key, one dataset for a limited key, everything for a full key', async () => {
       const json = { 'content-type': 'application/json' };

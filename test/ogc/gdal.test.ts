@@ -154,6 +154,15 @@ describe.skipIf(skipReason !== null)(`GDAL reads the service${skipReason ? ` (sk
     for (const m of medoids) expect(m).toMatch(/^obs-1\d{3}$/);
   });
 
+  it('opens a named run\'s layer by its collection URL and reads all of it', async () => {
+    const run = (JSON.parse((await app.inject({ method: 'GET', url: '/v1/datasets/survey/runs/latest' })).body) as { id: string }).id;
+    const { stdout } = await gdal('ogrinfo', ['-ro', '-so', `OAPIF:${base}/features/collections/survey@${run}.hotspots`, `survey@${run}.hotspots`]);
+    const stored = JSON.parse((await app.inject({ method: 'GET', url: `/v1/datasets/survey/runs/${run}/hotspots` })).body) as { features: unknown[] };
+    expect(stored.features.length).toBeGreaterThan(0);
+    expect(stdout).toContain(`Feature Count: ${stored.features.length}`);
+    expect(stdout).toContain('Geometry: Polygon');
+  });
+
   it('copies every layer into GeoPackage with no warning, keeping every feature', async () => {
     for (const kind of ['observations', 'hotspots', 'centres', 'noise', 'points']) {
       const out = join(dir, `${kind}.gpkg`);

@@ -25,6 +25,38 @@ export interface StoreHarness {
 const DS: NewDataset = { id: 'herons', name: 'Heron nests', settings: { eps: 250, min_points: 5 }, idProperty: null, window: 'P30D', schedule: { cron: '0 2 * * *', timezone: 'Europe/Berlin' }, webhook: null };
 const KEEP = { replace: false, partial: false };
 
+/**
+ * The oracle for longitude extents, by brute force: for every observation taken as the west end,
+ * the east end is the one farthest eastwards from it; the smallest such span wins (ties to the
+ * plain range, then to the least west). West > east means the range crosses ±180; one that would
+ * start at +180 is the plain range (the same meridian as -180).
+ */
+export function smallestLonRange(lons: readonly number[]): [number, number] {
+  const min = Math.min(...lons);
+  const max = Math.max(...lons);
+  let best: [number, number] = [min, max];
+  let width = max - min;
+  let crossing = false;
+  for (const w of lons) {
+    let span = 0;
+    let east = w;
+    for (const x of lons) {
+      const d = (((x - w) % 360) + 360) % 360;
+      if (d > span) {
+        span = d;
+        east = x;
+      }
+    }
+    if (w <= east || w === 180) continue; // not a range across ±180 (or the plain one again)
+    if (span < width - 1e-9 || (crossing && Math.abs(span - width) <= 1e-9 && w < best[0])) {
+      width = span;
+      best = [w, east];
+      crossing = true;
+    }
+  }
+  return best;
+}
+
 async function rejects(p: Promise<unknown>, code: string): Promise<void> {
   await expect(p).rejects.toBeInstanceOf(StoreError);
   await p.catch((e: StoreError) => expect(e.code).toBe(code));
@@ -295,9 +327,10 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(await store.getObservation('herons', 'no-such-id')).toBeNull();
         const extent = await store.observationExtent('herons');
         const times = recs.flatMap((r) => (r.observedAt === null ? [] : [r.observedAt]));
+        const [west, east] = smallestLonRange(recs.map((r) => r.lon));
         expect(extent).toEqual({
           count: 400,
-          bbox: [Math.min(...recs.map((r) => r.lon)), Math.min(...recs.map((r) => r.lat)), Math.max(...recs.map((r) => r.lon)), Math.max(...recs.map((r) => r.lat))],
+          bbox: [west, Math.min(...recs.map((r) => r.lat)), east, Math.max(...recs.map((r) => r.lat))],
           first: Math.min(...times),
           last: Math.max(...times),
         });
@@ -305,6 +338,42 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(await store.observationExtent('empty')).toEqual({ count: 0, bbox: null, first: null, last: null });
         // another dataset's observation of the same id is not this one's
         expect(await store.getObservation('empty', recs[17]!.id)).toBeNull();
+      });
+
+      it('gives the longitude extent as the smallest range holding every observation, crossing ±180 when that is smaller (brute-force oracle)', async () => {
+        // seed printed; ROOST_EXTENT_SEED varies it
+        const seed = Number(process.env.ROOST_EXTENT_SEED ?? 20261203);
+        console.log(`observation extents: seed ${seed} (set ROOST_EXTENT_SEED to vary)`);
+        let state = seed >>> 0;
+        const next = (): number => {
+          // mulberry32
+          state = (state + 0x6d2b79f5) >>> 0;
+          let t = state;
+          t = Math.imul(t ^ (t >>> 15), t | 1);
+          t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
+          return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
+        };
+        const wrap = (x: number): number => Math.round((((x + 540) % 360) - 180) * 1e6) / 1e6;
+        // clusters around a few centres, some of them near ±180, and fixed edge cases
+        const cases: number[][] = [[179.9, -179.9], [-180, 180], [10, 10], [170, -170, 0], [-179.95, 179.95, -179.99, 179.99], [0.01, 0.04, 0.05, 0.06]];
+        for (let k = 0; k < 14; k++) {
+          const centres = Array.from({ length: 1 + Math.floor(next() * 3) }, () => (k % 2 === 0 ? 180 : next() * 360 - 180) + (next() - 0.5) * 40);
+          cases.push(Array.from({ length: 2 + Math.floor(next() * 40) }, () => wrap(centres[Math.floor(next() * centres.length)]! + (next() - 0.5) * next() * 30)));
+        }
+        for (const [k, lons] of cases.entries()) {
+          const id = `extent-${k}`;
+          await store.createDataset({ ...DS, id });
+          await store.ingest(id, lons.map((lon, i) => record(`x${i}`, lon, (i % 9) - 4)), KEEP);
+          const got = (await store.observationExtent(id)).bbox!;
+          const want = smallestLonRange(lons);
+          expect([got[0], got[2]], `${id}: ${lons.join(' ')}`).toEqual(want);
+        }
+        // on both sides of the antimeridian, as around Fiji: west > east
+        expect((await store.observationExtent('extent-0')).bbox).toEqual([179.9, -4, -179.9, -3]);
+        // two gaps as wide: the range with the least west
+        expect((await store.observationExtent('extent-3')).bbox).toEqual([0, -4, -170, -2]);
+        // -180 and 180 are one meridian: the plain range
+        expect((await store.observationExtent('extent-1')).bbox).toEqual([-180, -4, 180, -3]);
       });
 
       it('filters by time window [from, to), leaving out observations without a time', async () => {

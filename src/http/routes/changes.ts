@@ -16,7 +16,8 @@
  * GET /v1/datasets/{id}/tracks/{track}: one entry per run the track was seen in, oldest first.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
-import { bboxOf, featureCollectionString, featureString, type GeometryLike } from '../../geometry/geojson.js';
+import { bboxOf, featureCollectionString, featureStringWithProperties, type GeometryLike } from '../../geometry/geojson.js';
+import { CHANGE_FIELDS, fieldsText, TRUST_FIELDS, type LayerField } from '../../geometry/layer-fields.js';
 import { compareStoredRuns, type TransitionJson } from '../../jobs/tracking.js';
 import { StoreError, type Run, type RunHotspot, type Store, type TrackPoint, type TrackRunRef, type TrackSummary } from '../../storage/store.js';
 import { resolveTrackSettings, type TrackSettings } from '../../tracks/settings.js';
@@ -143,27 +144,47 @@ function changesJson(c: Comparison, settings: TrackSettings): Record<string, unk
   };
 }
 
-/** The members a `to` hotspot's feature adds for the transition that led to it. */
+/** The members a `to` hotspot's feature adds for the transition that led to it (flat: CHANGE_FIELDS). */
 function arrivalMembers(t: TransitionJson, k: number): Record<string, unknown> {
-  const extra: Record<string, unknown> = { from_track_ids: t.from.map((f) => f.track_id), basis: t.basis };
+  const extra: Record<string, unknown> = { from_track_ids: t.from.map((f) => f.track_id ?? '').join(','), basis: t.basis };
   if (t.kind === 'split') extra['overlap'] = t.overlap[k];
-  else if (t.kind !== 'emergence') extra['overlap'] = t.overlap;
+  else if (t.kind !== 'emergence' && t.overlap.length > 0) extra['overlap'] = Math.max(...t.overlap);
   if (t.change) Object.assign(extra, t.change);
   if (t.shrink) extra['shrink'] = true;
   return extra;
+}
+
+/**
+ * The fields of the changes layer: one list for every feature (layer-fields.ts CHANGE_FIELDS),
+ * with the Monte Carlo fields when either run has them, so a GIS types every field the same from
+ * one pair of runs to the next.
+ */
+function changeFields(c: Comparison): LayerField[] {
+  const hotspots = [...c.result.from, ...c.result.to];
+  const trust = TRUST_FIELDS.filter((f) => f.name !== 'stability' && hotspots.some((h) => h.figures?.[f.name] !== undefined && h.figures?.[f.name] !== null));
+  return [...CHANGE_FIELDS, ...trust.map((f) => ({ ...f, nullable: true }))];
+}
+
+/** One feature of the changes layer: the declared fields, then `centre` (the pair, for the map page). */
+function changeFeature(h: RunHotspot, run: Run, t: TransitionJson, extra: Record<string, unknown>, fields: readonly LayerField[]): string {
+  const fig = figures(h);
+  const centre = Array.isArray(fig['centre']) ? (fig['centre'] as number[]) : null;
+  const props = { transition: t.kind, run_id: run.id, hotspot_id: h.hotspotId, track_id: h.trackId, ...fig, centre_lon: centre?.[0] ?? null, centre_lat: centre?.[1] ?? null, shrink: false, ...extra };
+  const text = fieldsText(props, fields);
+  return featureStringWithProperties(JSON.parse(h.hull) as GeometryLike, centre === null ? text : `${text.slice(0, -1)},"centre":${JSON.stringify(centre)}}`, `${run.id}-${h.hotspotId}`);
 }
 
 /** The GeoJSON answer of /changes: the `to` run's hulls with their transitions, and the hulls that disappeared. */
 function changesGeoJson(c: Comparison): string {
   const features: string[] = [];
   const geometries: GeometryLike[] = [];
+  const fields = changeFields(c);
   const add = (h: RunHotspot, run: Run, t: TransitionJson, extra: Record<string, unknown>): void => {
-    const g = JSON.parse(h.hull) as GeometryLike;
-    geometries.push(g);
-    features.push(featureString(g, { transition: t.kind, run_id: run.id, hotspot_id: h.hotspotId, track_id: h.trackId, ...figures(h), ...extra }, `${run.id}-${h.hotspotId}`));
+    geometries.push(JSON.parse(h.hull) as GeometryLike);
+    features.push(changeFeature(h, run, t, extra, fields));
   };
   for (const t of c.result.transitions) {
-    if (t.kind === 'disappearance') add(c.fromById.get(t.from[0]!.hotspot_id)!, c.from, t, { from_track_ids: [t.from[0]!.track_id] });
+    if (t.kind === 'disappearance') add(c.fromById.get(t.from[0]!.hotspot_id)!, c.from, t, { from_track_ids: t.from[0]!.track_id ?? '' });
     else t.to.forEach((e, k) => add(c.toById.get(e.hotspot_id)!, c.to, t, arrivalMembers(t, k)));
   }
   return featureCollectionString(features, bboxOf(geometries), { dataset: c.dataset, from_run: c.from.id, to_run: c.to.id, counts: c.result.counts });

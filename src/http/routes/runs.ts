@@ -7,9 +7,11 @@
 import { Readable } from 'node:stream';
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { featureCollectionString } from '../../geometry/geojson.js';
+import { categoryNames, hotspotLayerFields, optionalFieldsOf, trustFieldsOf, type LayerField } from '../../geometry/layer-fields.js';
+import { csvLines, flatGeobufChunks, layerColumns, layerFormat, MEDIA_TYPES } from '../../ogc/formats.js';
 import { layerIndex, layerPage } from '../../ogc/layers.js';
 import { parseBbox, parseDatetime, type ItemsQuery } from '../../ogc/query.js';
-import { notModified, sendTagged } from '../conditional.js';
+import { etagOf, notModified, sendTagged } from '../conditional.js';
 import { resolveRunSettings } from '../../trust/options.js';
 import type { LayerName } from '../../run/layers.js';
 import { StoreError, type Run, type Store } from '../../storage/store.js';
@@ -92,13 +94,45 @@ async function sendWholeLayer(store: Store, streams: LayerStreams, request: Fast
   }
 }
 
-/** A result layer of a run: a page when the address has a query, else the whole layer as stored. */
+/** The declared fields of a run's hotspots and centres layers; null for points and noise (their columns follow the observations). */
+export function declaredFields(run: Run, layer: LayerName): LayerField[] | null {
+  if (layer !== 'hotspots' && layer !== 'centres') return null;
+  const hotspots = (run.summary?.['hotspots'] ?? []) as Record<string, unknown>[];
+  return hotspotLayerFields(categoryNames(hotspots), trustFieldsOf(hotspots), optionalFieldsOf(hotspots));
+}
+
+/** A layer (or a page of it) as FlatGeobuf or CSV: typed columns, streamed a feature at a time; the next page in a Link header. */
+async function sendLayerFile(store: Store, request: FastifyRequest, reply: FastifyReply, run: Run, layer: LayerName, format: 'fgb' | 'csv', q: ReturnType<typeof layerQuery>) {
+  const query = (request.query ?? {}) as Record<string, unknown>;
+  // a stored layer never changes: the run, the layer, the format and the query name the answer
+  const tag = etagOf(JSON.stringify([run.id, layer, format, Object.entries(query).filter(([k]) => k !== 'f').sort()]));
+  if (notModified(request, reply, tag, run.finishedAt)) return reply.code(304).send();
+  const page = layerPage(await layerIndex(store, run.id, layer), q);
+  if (page.next !== null) {
+    const next = new URLSearchParams();
+    for (const [k, v] of Object.entries(query)) if (k !== 'cursor') next.set(k, String(v));
+    next.set('cursor', page.next);
+    void reply.header('link', `<${request.url.split('?')[0]}?${next.toString()}>; rel="next"`);
+  }
+  void reply.header('x-roost-number-matched', String(page.matched));
+  const features = page.features.map((t) => JSON.parse(t) as Parameters<typeof layerColumns>[0][number]);
+  const columns = layerColumns(features, declaredFields(run, layer));
+  void reply.header('content-disposition', `inline; filename="${run.id}-${layer}.${format}"`);
+  const body = format === 'fgb' ? Readable.from(flatGeobufChunks(features, columns, layer)) : Readable.from(csvLines(features, columns));
+  return reply.type(MEDIA_TYPES[format]).send(body);
+}
+
+/** A result layer of a run: a page when the address has a query, else the whole layer as stored; FlatGeobuf or CSV when asked by `f` or Accept. */
 async function sendLayer(store: Store, streams: LayerStreams, request: FastifyRequest, reply: FastifyReply, run: Run, layer: LayerName) {
   const query = (request.query ?? {}) as Record<string, unknown>;
   const q = layerQuery(query);
   if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
   void reply.header('x-roost-run', run.id);
-  if (Object.keys(query).length > 0) return sendLayerPage(store, request, reply, run, layer, q);
+  void reply.header('vary', 'Accept');
+  // f names the file format here (geojson, fgb, csv; the route schema checks it), not the OGC API's json or html
+  const format = layerFormat(query.f, request.headers.accept);
+  if (format !== 'geojson') return sendLayerFile(store, request, reply, run, layer, format, q);
+  if (Object.keys(query).some((k) => k !== 'f')) return sendLayerPage(store, request, reply, run, layer, q);
   return sendWholeLayer(store, streams, request, reply, run, layer);
 }
 
