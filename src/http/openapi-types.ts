@@ -369,6 +369,30 @@ export interface paths {
         patch?: never;
         trace?: never;
     };
+    "/v1/datasets/{id}/sweep": {
+        parameters: {
+            query?: never;
+            header?: never;
+            path?: never;
+            cookie?: never;
+        };
+        /**
+         * The eps × min_points sweep over a dataset's stored observations
+         * @description The same answer as `POST /v1/sweep`, over the observations a run of this dataset would
+         *     cluster now: its window and its `since`, `until`, `where` and `weight` settings apply,
+         *     each overridden by the query's. At most 20 values per list and 100 pairs. Nothing is
+         *     stored. The sweep runs on the service's main thread, as the k-distance curve does: keep
+         *     the grid small on large datasets.
+         */
+        get: operations["datasetSweep"];
+        put?: never;
+        post?: never;
+        delete?: never;
+        options?: never;
+        head?: never;
+        patch?: never;
+        trace?: never;
+    };
     "/v1/datasets/{id}/changes": {
         parameters: {
             query?: never;
@@ -3433,6 +3457,63 @@ export interface operations {
                 };
                 content: {
                     "application/json": components["schemas"]["DatasetKDistance"];
+                };
+            };
+            400: components["responses"]["BadRequest"];
+            401: components["responses"]["Unauthorized"];
+            403: components["responses"]["Forbidden"];
+            404: components["responses"]["DatasetNotFound"];
+            421: components["responses"]["HostNotAllowed"];
+            429: components["responses"]["TooManyRequests"];
+            500: components["responses"]["InternalError"];
+        };
+    };
+    datasetSweep: {
+        parameters: {
+            query: {
+                /**
+                 * @description eps values in metres: a comma-separated list (`100,150,250`) or a range `start:stop:step` (`100:300:50`, both ends included).
+                 * @example 100:300:50
+                 */
+                eps: string;
+                /**
+                 * @description min_points values: a list (`3,5,10`) or a range (`3:12:3`).
+                 * @example 3,5,10
+                 */
+                min_points: string;
+                /** @description Property (CSV column) holding each observation's weight, a finite number ≥ 0, for example the number of animals seen. */
+                weight?: components["parameters"]["weight"];
+                /**
+                 * @description Keep observations whose `observed_at` is at or after this RFC 3339 time.
+                 * @example 2026-04-01T00:00:00Z
+                 */
+                since?: components["parameters"]["since"];
+                /** @description Keep observations whose `observed_at` is before this RFC 3339 time. */
+                until?: components["parameters"]["until"];
+                /**
+                 * @description Keep observations whose property equals the value, written `property=value`; repeat for several conditions (all must hold).
+                 * @example [
+                 *       "plant=knotweed"
+                 *     ]
+                 */
+                where?: components["parameters"]["where"];
+            };
+            header?: never;
+            path: {
+                /** @description The dataset's id. */
+                id: components["parameters"]["datasetId"];
+            };
+            cookie?: never;
+        };
+        requestBody?: never;
+        responses: {
+            /** @description One entry per eps × min_points pair, eps ascending, then min_points ascending. */
+            200: {
+                headers: {
+                    [name: string]: unknown;
+                };
+                content: {
+                    "application/json": components["schemas"]["Sweep"];
                 };
             };
             400: components["responses"]["BadRequest"];

@@ -107,10 +107,14 @@ interface HotspotFeature {
 }
 
 /** Published hotspot fields written as reals whatever their value (see src/geometry/layer-fields.ts). */
-const PUBLISHED_REALS: ReadonlySet<string> = new Set(['weight', 'radius_m', 'area_km2', 'density_per_km2', 'centre_lon', 'centre_lat']);
+const PUBLISHED_REALS: ReadonlySet<string> = new Set(['weight', 'radius_m', 'area_km2', 'density_per_km2', 'centre_lon', 'centre_lat', 'p_value', 'stability']);
 
-/** Figures copied as they are; everything else is recomputed or dropped. */
-const KEPT_FIGURES = ['hotspot_id', 'track_id', 'count', 'core_count', 'border_count', 'weight', 'radius_m'] as const;
+/**
+ * Figures copied as they are; everything else is recomputed or dropped. The trust figures (in runs
+ * whose settings ask for them) say how far to trust the hotspot as a whole, nothing about anyone
+ * in it, and a published hotspot that may be chance must say so as the exact one does.
+ */
+const KEPT_FIGURES = ['hotspot_id', 'track_id', 'count', 'core_count', 'border_count', 'weight', 'radius_m', 'p_value', 'significant', 'stability'] as const;
 
 function round(x: number, digits: number): number {
   const f = 10 ** digits;

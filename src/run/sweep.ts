@@ -8,6 +8,7 @@ import { roundDecimals } from '../geometry/rounding.js';
 import { sweep, sweepGrid, type SweepGrid, type SweepHooks, type SweepSetting } from '../trust/sweep.js';
 import { resolveSettings, SettingsError, type ClusterSettings } from './settings.js';
 import { readInput } from './cluster.js';
+import type { PointSet } from '../core/types.js';
 
 /** Settings that do not apply to a sweep (it runs DBSCAN, and draws no hulls). */
 export const NOT_FOR_SWEEP = ['method', 'hull', 'concavity', 'count_by', 'optics_max_eps', 'optics_extraction', 'xi', 'min_cluster_size', 'reference', 'validation'] as const;
@@ -50,11 +51,19 @@ function settingMembers(s: SweepSetting): Record<string, unknown> {
 export function sweepInput(input: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings, grid: SweepGrid, hooks: SweepHooks = {}): Record<string, unknown> {
   const all = readInput(input, format, settings);
   const { observations } = applyFilter(all, { since: settings.since, until: settings.until, where: settings.where });
-  const rows = sweep(observations.points, grid, hooks);
+  return sweepDocument(observations.points, all.points.n - observations.points.n, settings, grid, hooks);
+}
+
+/**
+ * Sweeps the grid over observations already read and filtered (a stored dataset's, as a run
+ * would load them). @returns the answer of POST /v1/sweep and GET /v1/datasets/{id}/sweep
+ */
+export function sweepDocument(points: PointSet, leftOut: number, settings: ClusterSettings, grid: SweepGrid, hooks: SweepHooks = {}): Record<string, unknown> {
+  const rows = sweep(points, grid, hooks);
   return {
     method: 'dbscan',
-    observations: observations.points.n,
-    left_out_by_filter: all.points.n - observations.points.n,
+    observations: points.n,
+    left_out_by_filter: leftOut,
     weight: settings.weightProperty,
     eps_m: grid.epsMeters,
     min_points: grid.minPoints,

@@ -2,6 +2,8 @@ import { describe, expect, it } from 'vitest';
 import geodesic from 'geographiclib-geodesic';
 import { booleanPointInPolygon } from '@turf/turf';
 import { clusterInput } from '../../src/run/cluster.js';
+import { assessHere } from '../../src/trust/assess.js';
+import { resolveTrustSettings } from '../../src/trust/options.js';
 import { resolveSettings } from '../../src/run/settings.js';
 import { Grid } from '../../src/publish/grid.js';
 import { publishLayerTexts, resolvePublishOptions, PublishError, type PublishOptions } from '../../src/publish/publish.js';
@@ -196,5 +198,24 @@ describe('published layers', () => {
     bad({ generalise_m: 100, noise: 'show' }, 'noise');
     bad({ generalise_m: 100, properties: 'species' }, 'properties');
     expect(resolvePublishOptions({ generalise_m: 100 })).toEqual({ generaliseM: 100, minCount: 1, noise: 'withhold', properties: [], countBy: null });
+  });
+});
+
+describe('published layers of a run with a Monte Carlo test and resampling', () => {
+  it('carry p_value, significant and stability of each published hotspot as the exact layer has them, reals as reals', () => {
+    const settings = resolveSettings({ eps: 200, min_points: 8 });
+    const result = clusterInput(Buffer.from(asGeojson(midLatitudeSet(11), 11)), 'geojson', settings);
+    assessHere(result, settings, { settings: resolveTrustSettings({ simulations: 19, seed: 5, resamples: 4 }) });
+    const text = (name: 'points' | 'hotspots') => [...result.layers[name].chunks()].join('');
+    const exact = new Map((JSON.parse(text('hotspots')) as Fc).features.map((f) => [f.properties.hotspot_id, f.properties]));
+    const published = publishLayerTexts(text('points'), text('hotspots'), resolvePublishOptions({ generalise_m: 100, min_count: 1, properties: [] }));
+    const features = (JSON.parse(published.hotspots) as Fc).features;
+    expect(features.length).toBeGreaterThan(0);
+    for (const f of features) {
+      const e = exact.get(f.properties.hotspot_id)!;
+      expect([f.properties.p_value, f.properties.significant, f.properties.stability]).toEqual([e.p_value, e.significant, e.stability]);
+      expect(typeof f.properties.significant).toBe('boolean');
+    }
+    expect(published.hotspots).toMatch(/"p_value":(0|1)\.\d+/);
   });
 });

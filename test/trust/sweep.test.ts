@@ -193,3 +193,48 @@ describe('POST /v1/sweep', () => {
     expect(res.json().problems[0].index).toBe(0);
   });
 });
+
+describe('GET /v1/datasets/{id}/sweep', () => {
+  let app: FastifyInstance;
+  beforeAll(async () => {
+    app = await testApp();
+  });
+  afterAll(async () => {
+    await app.close();
+  });
+  const GEO = { 'content-type': 'application/geo+json' };
+  const JSON_TYPE = { 'content-type': 'application/json' };
+  const data = pointsCollection(300, 3);
+
+  it('sweeps the stored observations as POST /v1/sweep sweeps the same ones, with the dataset\'s filters and weight, ignoring its other settings', async () => {
+    // clustering, OPTICS and Monte Carlo settings of the dataset do not apply to a sweep and are left aside
+    const settings = { eps: 60, min_points: 5, method: 'optics', count_by: 'kind', simulations: 19, where: 'kind=a', weight: 'count' };
+    expect((await app.inject({ method: 'POST', url: '/v1/datasets', headers: JSON_TYPE, payload: JSON.stringify({ id: 'swept', settings }) })).statusCode).toBe(201);
+    expect((await app.inject({ method: 'POST', url: '/v1/datasets/swept/observations', headers: GEO, payload: data })).statusCode).toBe(200);
+    const res = await app.inject({ method: 'GET', url: '/v1/datasets/swept/sweep?eps=40,80&min_points=3,6' });
+    expect(res.statusCode, res.body).toBe(200);
+    expectMatchesSpec(res, '/v1/datasets/{id}/sweep', 'GET');
+    const direct = await app.inject({ method: 'POST', url: '/v1/sweep?eps=40,80&min_points=3,6&where=kind=a&weight=count', headers: GEO, payload: data });
+    const stored = res.json() as Record<string, unknown>;
+    const posted = direct.json() as Record<string, unknown>;
+    expect(stored.observations).toBe(150); // every other point has kind=a
+    expect(stored.weight).toBe('count');
+    expect({ ...stored, left_out_by_filter: null }).toEqual({ ...posted, left_out_by_filter: null });
+    // the query overrides the dataset's filter
+    const other = await app.inject({ method: 'GET', url: '/v1/datasets/swept/sweep?eps=40&min_points=3&where=count=1' });
+    expect(other.statusCode, other.body).toBe(200);
+    expect(other.json().observations).toBe(100); // count is 1 + (i mod 3)
+  });
+
+  it('refuses a bad grid naming the parameter, and answers 404 for an unknown dataset', async () => {
+    const big = await app.inject({ method: 'GET', url: '/v1/datasets/swept/sweep?eps=10:200:10&min_points=1:10:1' });
+    expect(big.statusCode).toBe(400);
+    expect(big.json()).toMatchObject({ code: 'invalid-parameter', parameter: 'eps' });
+    const missing = await app.inject({ method: 'GET', url: '/v1/datasets/swept/sweep?eps=40' });
+    expect(missing.statusCode).toBe(400);
+    expect(missing.json()).toMatchObject({ code: 'invalid-parameter', parameter: 'min_points' });
+    const nowhere = await app.inject({ method: 'GET', url: '/v1/datasets/nowhere/sweep?eps=40&min_points=3' });
+    expect(nowhere.statusCode).toBe(404);
+    expect(nowhere.json()).toMatchObject({ code: 'dataset-not-found' });
+  });
+});

@@ -7,21 +7,61 @@
  * - `GET /v1/datasets/{id}/k-distance?min_points=&eps=`: the k-distance curve of the stored
  *   observations (the dataset's window and filters applied, as a run would), its knee, and with
  *   `eps` a preview of what DBSCAN would give at that eps: hotspots and noise, before running.
+ * - `GET /v1/datasets/{id}/sweep?eps=&min_points=`: the eps × min_points sweep (src/run/sweep.ts)
+ *   over the same stored observations, with the dataset's filters and weight.
  * - `GET /v1/datasets/{id}/runs/{run}/report`: the run as one self-contained report.html.
  */
 import { existsSync, readFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import fastifyStatic from '@fastify/static';
-import type { FastifyInstance } from 'fastify';
-import { pointSet } from '../../core/types.js';
+import type { FastifyInstance, FastifyRequest } from 'fastify';
+import { pointSet, type PointSet } from '../../core/types.js';
+import { NOT_FOR_SWEEP, sweepDocument, sweepRequest } from '../../run/sweep.js';
+import type { ClusterSettings } from '../../run/settings.js';
+import type { Dataset, Store } from '../../storage/store.js';
+import { SweepError } from '../../trust/sweep.js';
 import { runQuery } from '../../jobs/execute.js';
 import { kDistancePreview } from '../../report/kdistance.js';
 import { renderReport, reportDataFromStore } from '../../report/report.js';
-import { resolveClusterPart } from '../../trust/options.js';
+import { resolveClusterPart, splitTrustSettings } from '../../trust/options.js';
 import { HttpProblem } from '../errors.js';
 import { requireDataset, requireRun, settingsProblem } from './common.js';
 
 /** The built page, two levels up from src/http/routes and dist/http/routes alike. */
+/** The observations a run of the dataset would cluster now (its window and conditions), weighed as a run weighs them. */
+async function storedPoints(store: Store, dataset: Dataset, settings: ClusterSettings): Promise<PointSet> {
+  const input = await store.loadForRun(dataset.id, runQuery(settings, dataset.window, Date.now()));
+  let weight: Float64Array | null = null;
+  if (settings.weightProperty !== null) {
+    // as a run weighs: the property's value when it is a number ≥ 0, else 1
+    weight = new Float64Array(input.ids.length);
+    for (let i = 0; i < weight.length; i++) {
+      const w = (JSON.parse(input.features.at(i) ?? '{}') as { properties?: Record<string, unknown> }).properties?.[settings.weightProperty];
+      weight[i] = typeof w === 'number' && w >= 0 ? w : typeof w === 'string' && Number(w) >= 0 ? Number(w) : 1;
+    }
+  }
+  return pointSet(input.lon, input.lat, weight);
+}
+
+/** GET /v1/datasets/{id}/sweep: the sweep over the stored observations a run would cluster now. */
+function datasetSweepHandler(store: Store) {
+  return async (request: FastifyRequest<{ Params: { id: string } }>): Promise<Record<string, unknown>> => {
+    const query = (request.query ?? {}) as Record<string, unknown>;
+    const dataset = await requireDataset(store, request.params.id);
+    // the dataset's settings that a sweep takes (filters, weight), then the query's
+    const own = Object.fromEntries(Object.entries(splitTrustSettings(dataset.settings).clustering).filter(([k]) => !(NOT_FOR_SWEEP as readonly string[]).includes(k) && k !== 'eps' && k !== 'min_points'));
+    let asked: ReturnType<typeof sweepRequest>;
+    try {
+      asked = sweepRequest({ ...own, ...query });
+    } catch (err) {
+      if (err instanceof SweepError) throw new HttpProblem('invalid-parameter', err.message, { parameter: err.parameter });
+      settingsProblem(err);
+    }
+    const { grid, settings } = asked;
+    return sweepDocument(await storedPoints(store, dataset, settings), 0, settings, grid!);
+  };
+}
+
 export const WEB_DIR = fileURLToPath(new URL('../../../dist/web', import.meta.url));
 
 export interface WebRouteOptions {
@@ -82,19 +122,11 @@ export default async function webRoutes(app: FastifyInstance, options: WebRouteO
     } catch (err) {
       settingsProblem(err);
     }
-    const input = await store.loadForRun(dataset.id, runQuery(settings, dataset.window, Date.now()));
-    let weight: Float64Array | null = null;
-    if (settings.weightProperty !== null) {
-      // as a run weighs: the property's value when it is a number ≥ 0, else 1
-      weight = new Float64Array(input.ids.length);
-      for (let i = 0; i < weight.length; i++) {
-        const w = (JSON.parse(input.features.at(i) ?? '{}') as { properties?: Record<string, unknown> }).properties?.[settings.weightProperty];
-        weight[i] = typeof w === 'number' && w >= 0 ? w : typeof w === 'string' && Number(w) >= 0 ? Number(w) : 1;
-      }
-    }
-    const points = pointSet(input.lon, input.lat, weight);
+    const points = await storedPoints(store, dataset, settings);
     return kDistancePreview(points, settings.minPoints, settings.epsAuto ? null : settings.epsMeters);
   });
+
+  app.get<{ Params: { id: string } }>('/v1/datasets/:id/sweep', datasetSweepHandler(store));
 
   app.get<{ Params: { id: string; run: string } }>('/v1/datasets/:id/runs/:run/report', async (request, reply) => {
     const dataset = await requireDataset(store, request.params.id);
