@@ -43,6 +43,7 @@ export const PROBLEMS = {
   'rate-limited': { status: 429, title: 'Too many requests; retry later' },
   'internal-error': { status: 500, title: 'The service failed to answer this request' },
   'overloaded': { status: 503, title: 'The service is busy; retry later' },
+  'store-failed': { status: 503, title: 'The database did not store the batch; nothing of it was stored' },
   'time-limit': { status: 504, title: 'The work took longer than this service allows' },
 } as const satisfies Record<string, { status: number; title: string }>;
 

@@ -179,6 +179,12 @@ export interface paths {
          *
          *     When one observation is posted, the answer says which hotspot of the latest succeeded
          *     run it falls in (within that run's eps of one of the hotspot's core members), or null.
+         *
+         *     Bodies over 64 KiB (about 250 point features) are read, stored and placed in a job
+         *     thread with its own database connection, so that a large post never holds up the
+         *     service (`/healthz` counts them under `storing`); other writes wait for it without
+         *     blocking. Either way the batch is one transaction: should the database fail on it, the
+         *     answer is 503 `store-failed` and nothing of it is stored.
          */
         post: operations["postObservations"];
         delete?: never;
@@ -911,7 +917,7 @@ export interface components {
          * @description Every kind of error the service answers with.
          * @enum {string}
          */
-        ProblemCode: "malformed-body" | "invalid-parameter" | "bad-request" | "unauthorized" | "forbidden" | "origin-not-allowed" | "request-timeout" | "uri-too-long" | "not-found" | "key-not-found" | "not-published" | "dataset-not-found" | "observation-not-found" | "run-not-found" | "track-not-found" | "collection-not-found" | "feature-not-found" | "no-earlier-run" | "dataset-exists" | "observation-conflict" | "run-not-ready" | "run-finished" | "body-too-large" | "unsupported-media-type" | "host-not-allowed" | "invalid-observations" | "rate-limited" | "internal-error" | "overloaded" | "time-limit";
+        ProblemCode: "malformed-body" | "invalid-parameter" | "bad-request" | "unauthorized" | "forbidden" | "origin-not-allowed" | "request-timeout" | "uri-too-long" | "not-found" | "key-not-found" | "not-published" | "dataset-not-found" | "observation-not-found" | "run-not-found" | "track-not-found" | "collection-not-found" | "feature-not-found" | "no-earlier-run" | "dataset-exists" | "observation-conflict" | "run-not-ready" | "run-finished" | "body-too-large" | "unsupported-media-type" | "host-not-allowed" | "invalid-observations" | "rate-limited" | "internal-error" | "overloaded" | "store-failed" | "time-limit";
         /** @description An RFC 9457 problem details object. */
         Problem: {
             /** @description Stable URI of the kind of error: tag:roost,2025:problem/<code>. */
@@ -1095,6 +1101,16 @@ export interface components {
             status?: 503;
             /** @constant */
             code?: "overloaded";
+        };
+        StoreFailedProblem: components["schemas"]["Problem"] & {
+            /** @constant */
+            type?: "tag:roost,2025:problem/store-failed";
+            /** @constant */
+            title?: "The database did not store the batch; nothing of it was stored";
+            /** @constant */
+            status?: 503;
+            /** @constant */
+            code?: "store-failed";
         };
         RequestTimeoutProblem: components["schemas"]["Problem"] & {
             /** @constant */
@@ -1950,6 +1966,8 @@ export interface components {
             in_progress: number;
             /** @description Request bodies being received now (each within its upload slot and deadline). */
             uploading?: number;
+            /** @description Posted batches over 64 KiB being read and stored in a job thread now. */
+            storing?: number;
         };
     };
     responses: {
@@ -2082,6 +2100,16 @@ export interface components {
             };
             content: {
                 "application/problem+json": components["schemas"]["OverloadedProblem"];
+            };
+        };
+        /** @description Busy (every thread storing posted batches is taken and the waiting line is full), or the database did not store the batch; either way nothing of it was stored, and it may be sent again after Retry-After seconds. */
+        StoreUnavailable: {
+            headers: {
+                "Retry-After": components["headers"]["Retry-After"];
+                [name: string]: unknown;
+            };
+            content: {
+                "application/problem+json": components["schemas"]["OverloadedProblem"] | components["schemas"]["StoreFailedProblem"];
             };
         };
         /** @description The body did not arrive within the upload time limit (`--upload-timeout-ms`); the connection is closed. */
@@ -2971,6 +2999,7 @@ export interface operations {
             422: components["responses"]["UnprocessableContent"];
             429: components["responses"]["TooManyRequests"];
             500: components["responses"]["InternalError"];
+            503: components["responses"]["StoreUnavailable"];
         };
     };
     deleteObservation: {

@@ -5,17 +5,25 @@
  */
 import { Piscina } from 'piscina';
 import { workerEntry } from '../workers/location.js';
-import type { JobTask, RecordsOutcome, RecordsTask, RunOutcomeMessage, RunTask } from './job-worker.js';
+import type { JobTask, PublishOutcome, PublishTask, RecordsOutcome, RecordsTask, RunOutcomeMessage, RunTask, StoreOutcome, StoreTask } from './job-worker.js';
 
 export interface JobPool {
   /** Reads a body into records in a worker; the body's ArrayBuffer is transferred. */
   records(task: Omit<RecordsTask, 'op'>): Promise<RecordsOutcome>;
+  /**
+   * Reads, stores (one transaction, on the thread's own connection) and places a large post; the
+   * body's ArrayBuffer is transferred. Not cancelled when the client goes away: the batch is
+   * stored whole or not at all either way.
+   */
+  store(task: Omit<StoreTask, 'op'>): Promise<StoreOutcome>;
+  /** Makes a run's published layers from its stored layers, in a thread with its own store connection. */
+  publish(task: Omit<PublishTask, 'op'>): Promise<PublishOutcome>;
   /** Executes a claimed run in a worker; aborting `signal` ends the worker thread at once. */
   run(task: Omit<RunTask, 'op'>, signal: AbortSignal): Promise<RunOutcomeMessage>;
   close(): Promise<void>;
 }
 
-/** Posted batches waiting to be read beyond those being read (our choice; more are turned away). */
+/** Posted batches and published-layer builds waiting beyond those being worked on (our choice; more are turned away). */
 export const MAX_WAITING_BATCHES = 16;
 
 /** The pool's waiting line for posted batches is full. */
@@ -29,7 +37,7 @@ export class JobQueueFull extends Error {
 /** A pool of `runs + 1` threads, started on first use and stopped after a minute idle. */
 export function createJobPool(runs: number): JobPool {
   const { filename, execArgv } = workerEntry();
-  const piscina = new Piscina<JobTask, RecordsOutcome | RunOutcomeMessage>({
+  const piscina = new Piscina<JobTask, RecordsOutcome | StoreOutcome | PublishOutcome | RunOutcomeMessage>({
     filename,
     execArgv,
     minThreads: 0,
@@ -39,15 +47,18 @@ export function createJobPool(runs: number): JobPool {
     // runs never wait here (the runner hands over at most `runs`), so this bounds posted batches
     maxQueue: MAX_WAITING_BATCHES + runs,
   });
+  const queued = async <T>(task: JobTask, body?: Uint8Array): Promise<T> => {
+    try {
+      return (await piscina.run(task, body === undefined ? {} : { transferList: [body.buffer as ArrayBuffer] })) as T;
+    } catch (err) {
+      if (err instanceof Error && /queue is at limit|no task queue available/i.test(err.message)) throw new JobQueueFull();
+      throw err;
+    }
+  };
   return {
-    async records(task) {
-      try {
-        return (await piscina.run({ op: 'records', ...task }, { transferList: [task.body.buffer as ArrayBuffer] })) as RecordsOutcome;
-      } catch (err) {
-        if (err instanceof Error && /queue is at limit|no task queue available/i.test(err.message)) throw new JobQueueFull();
-        throw err;
-      }
-    },
+    records: (task) => queued<RecordsOutcome>({ op: 'records', ...task }, task.body),
+    store: (task) => queued<StoreOutcome>({ op: 'store', ...task }, task.body),
+    publish: (task) => queued<PublishOutcome>({ op: 'publish', ...task }),
     async run(task, signal) {
       return (await piscina.run({ op: 'run', ...task }, { signal, transferList: [task.port as unknown as ArrayBuffer] })) as RunOutcomeMessage;
     },

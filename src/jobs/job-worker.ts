@@ -1,5 +1,8 @@
 /**
- * The worker-thread side of stored datasets: reading posted bodies into store records, and
+ * The worker-thread side of stored datasets: reading posted bodies into store records; reading,
+ * storing and placing large posts whole (src/jobs/store-batch.ts) with a store connection of the
+ * thread's own, so that a batch of 100 000 observations does not hold up the main thread; making
+ * a run's published layers (src/publish/publish.ts); and
  * executing runs with a store connection of the thread's own (better-sqlite3 and pg both work in
  * worker threads), so that neither parsing nor loading, clustering and saving a large dataset
  * holds up the main thread. Track assignment is asked of the main thread over a message port,
@@ -9,7 +12,10 @@ import { Buffer } from 'node:buffer';
 import type { MessagePort } from 'node:worker_threads';
 import { readRecords, type RecordBatch, type RecordOptions } from '../ingest/records.js';
 import { InputError, type InputProblem } from '../ingest/types.js';
-import { openStore, type StoreConfig } from '../storage/index.js';
+import { openStore, StoreError, type StoreConfig, type StoreErrorCode } from '../storage/index.js';
+import { BatchNotStored, HotspotLookup, storeBatch, type StoredBatch } from './store-batch.js';
+import { publishLayerTexts, type PublishedLayers, type PublishOptions } from '../publish/publish.js';
+import { joinPieces } from '../storage/layer-pieces.js';
 import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
 import { defaultThreads } from '../trust/trials.js';
@@ -19,6 +25,26 @@ export interface RecordsTask {
   body: Uint8Array;
   options: RecordOptions;
 }
+
+export interface StoreTask {
+  op: 'store';
+  store: StoreConfig;
+  datasetId: string;
+  body: Uint8Array;
+  options: RecordOptions;
+  replace: boolean;
+  partial: boolean;
+}
+
+export interface PublishTask {
+  op: 'publish';
+  store: StoreConfig;
+  runId: string;
+  options: PublishOptions;
+}
+
+/** A run's published layers, or null when the run has no stored points or hotspots layer. */
+export type PublishOutcome = PublishedLayers | null;
 
 export interface RunTask {
   op: 'run';
@@ -31,9 +57,19 @@ export interface RunTask {
   port: MessagePort;
 }
 
-export type JobTask = RecordsTask | RunTask;
+export type JobTask = RecordsTask | StoreTask | PublishTask | RunTask;
 
 export type RecordsOutcome = { ok: true; batch: RecordBatch } | { ok: false; problems: InputProblem[]; total: number; message: string };
+
+/**
+ * A large post's outcome: stored (or refused as a whole for conflicts, see StoredBatch.result),
+ * unreadable input, or a store failure, after which nothing of the batch is stored; `code` is the
+ * StoreError's when the store refused it for a reason users can act on.
+ */
+export type StoreOutcome =
+  | { ok: true; stored: StoredBatch }
+  | { ok: false; input: { problems: InputProblem[]; total: number; message: string } }
+  | { ok: false; failure: { code: StoreErrorCode | null; message: string; stack?: string } };
 
 export type RunOutcomeMessage =
   | { ok: true; summary: Record<string, unknown>; timings: Record<string, number>; hotspots: number }
@@ -45,6 +81,46 @@ function records(task: RecordsTask): RecordsOutcome {
   } catch (err) {
     if (err instanceof InputError) return { ok: false, problems: err.problems, total: err.total, message: err.message };
     throw err;
+  }
+}
+
+/** The which-hotspot lookups of this thread, kept across posts (a run's hotspots do not change). */
+const lookup = new HotspotLookup();
+
+async function storePost(task: StoreTask): Promise<StoreOutcome> {
+  let batch: RecordBatch;
+  try {
+    batch = readRecords(Buffer.from(task.body.buffer, task.body.byteOffset, task.body.byteLength), task.options);
+  } catch (err) {
+    if (err instanceof InputError) return { ok: false, input: { problems: err.problems, total: err.total, message: err.message } };
+    throw err;
+  }
+  let store;
+  try {
+    try {
+      store = await openStore({ ...task.store, migrate: false, pgPoolSize: 1 });
+    } catch (err) {
+      throw new BatchNotStored(err);
+    }
+    return { ok: true, stored: await storeBatch(store, lookup, JSON.stringify(task.store), task.datasetId, batch, { replace: task.replace, partial: task.partial }) };
+  } catch (err) {
+    if (!(err instanceof BatchNotStored)) throw err; // the batch is stored; placing it failed
+    const e = err.cause instanceof Error ? err.cause : err;
+    return { ok: false, failure: { code: err.cause instanceof StoreError ? err.cause.code : null, message: e.message, stack: e.stack } };
+  } finally {
+    await store?.close();
+  }
+}
+
+/** Reads a run's points and hotspots layers and makes its published layers (src/publish/publish.ts). */
+async function publish(task: PublishTask): Promise<PublishOutcome> {
+  const store = await openStore({ ...task.store, migrate: false, pgPoolSize: 1 });
+  try {
+    const points = await joinPieces(await store.getRunLayerPieces(task.runId, 'points'));
+    const hotspots = await joinPieces(await store.getRunLayerPieces(task.runId, 'hotspots'));
+    return points === null || hotspots === null ? null : publishLayerTexts(points, hotspots, task.options);
+  } finally {
+    await store.close();
   }
 }
 
@@ -80,6 +156,9 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
 }
 
 /** Runs one task; the default export piscina calls. */
-export default function work(task: JobTask): RecordsOutcome | Promise<RunOutcomeMessage> {
-  return task.op === 'records' ? records(task) : run(task);
+export default function work(task: JobTask): RecordsOutcome | Promise<StoreOutcome> | Promise<PublishOutcome> | Promise<RunOutcomeMessage> {
+  if (task.op === 'records') return records(task);
+  if (task.op === 'store') return storePost(task);
+  if (task.op === 'publish') return publish(task);
+  return run(task);
 }

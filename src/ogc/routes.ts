@@ -391,6 +391,9 @@ function publishedSchema(kind: CollectionKind, title: string): Record<string, un
         density_per_km2: { type: 'number' },
         centre_lon: { type: 'number', description: "the centre of the grid cell holding the hotspot's centre" },
         centre_lat: { type: 'number' },
+        p_value: { type: 'number', description: 'runs with a Monte Carlo test' },
+        significant: { type: 'boolean', description: 'runs with a Monte Carlo test' },
+        stability: { type: 'number', description: 'runs with resampling' },
       },
     };
   }

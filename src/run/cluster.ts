@@ -260,7 +260,8 @@ function hotspotProperties(f: HotspotFigures, medoidId: string): Record<string, 
  * The point feature written for an input observation in the points and noise layers: its own
  * properties with `hotspot_id` and `role` added (replacing input properties of those names).
  * The two members are appended to the properties' JSON text rather than to a copied object: a
- * million spread copies cost more than the whole clustering.
+ * million spread copies cost more than the whole clustering. The feature's id is kept; an id of
+ * null, which the reader takes for no id, is left out.
  */
 export function pointFeature(f: InputFeature, hotspot: number, role: number, extra = ''): string {
   const own = f.properties;
@@ -273,7 +274,9 @@ export function pointFeature(f: InputFeature, hotspot: number, role: number, ext
     const text = JSON.stringify(own);
     props = text.length === 2 ? '{' + added : text.slice(0, -1) + ',' + added;
   }
-  return featureStringWithProperties({ type: 'Point', coordinates: f.geometry.coordinates }, props, f.id);
+  // an id of null is read as no id (src/ingest/geojson.ts) and written as none
+  const id = (f.id as string | number | null | undefined) ?? undefined;
+  return featureStringWithProperties({ type: 'Point', coordinates: f.geometry.coordinates }, props, id);
 }
 
 /** Index just past the JSON string starting (with its quote) at `i`. */

@@ -3,6 +3,13 @@
  * synchronously inside the async methods; each method is one transaction, and those that read then
  * write (ingest, claims) take the write lock first (BEGIN IMMEDIATE) so that another process on the
  * same file cannot slip in between.
+ *
+ * Waiting for another connection's write lock (another process, or a thread of this one storing a
+ * large batch or a run's result) never blocks the thread: the connection's own busy handler is off
+ * once it is open, and every store method that finds the database locked (SQLITE_BUSY) is tried
+ * again after a timer, 1 ms doubling up to 50 ms, until `busyTimeoutMs` has passed. Each method is
+ * one statement or one transaction, which SQLite rolled back when it was refused, so trying it
+ * again is safe.
  */
 import { LON_BIN_SQL, lonRange } from './extent.js';
 import { isAscii } from 'node:buffer';
@@ -55,7 +62,7 @@ export interface SqliteStoreOptions {
   path: string;
   /** 'NORMAL' (default): durable across process crashes; 'FULL': also across power loss, one fsync per commit */
   synchronous?: 'NORMAL' | 'FULL';
-  /** how long to wait for another process's write lock, milliseconds; default 10 000 */
+  /** how long to wait for another connection's write lock, milliseconds, without blocking the thread; default 10 000 */
   busyTimeoutMs?: number;
   /**
    * how much of the database file to read through memory mapping, bytes; default 2 GiB (SQLite's
@@ -78,6 +85,28 @@ const DEFAULT_MMAP_BYTES = 0x7fff0000;
 /** SQLite has a limit on bound parameters per statement (32 766 in recent builds); stay well below. */
 const IN_CHUNK = 500;
 
+/** Longest pause between two tries of a method that found the database locked, milliseconds. */
+const BUSY_RETRY_MAX_MS = 50;
+
+/**
+ * The store methods tried again while the database is locked by another connection (every method
+ * of the Store interface that reads or writes; all are one statement or one transaction).
+ */
+const RETRIED = [
+  'migrate', 'createDataset', 'getDataset', 'listDatasets', 'updateDataset', 'deleteDataset', 'ingest', 'listObservations',
+  'deleteObservation', 'countObservations', 'getObservation', 'observationExtent', 'loadForRun', 'getPositions', 'createRun',
+  'createScheduledRun', 'claimNextRun', 'claimRun', 'renewRunLease', 'reclaimExpiredRuns', 'updateRun', 'countRuns', 'getRun',
+  'listRuns', 'latestRun', 'saveRunResult', 'getRunLayer', 'getRunLayerPieces', 'getRunHotspots', 'getTrack', 'listTracks',
+  'markInterruptedRuns', 'requeueInterruptedRuns', 'reserveTrackNumbers', 'createKey', 'findKey', 'listKeys', 'revokeKey',
+  'countKeys', 'appendAudit', 'listAudit',
+] as const satisfies readonly (keyof SqliteStore)[];
+
+/** SQLITE_BUSY and its extended codes: another connection holds the lock this statement needs. */
+function isBusy(err: unknown): boolean {
+  const code = (err as { code?: unknown } | null)?.code;
+  return typeof code === 'string' && code.startsWith('SQLITE_BUSY');
+}
+
 /** Opens (creating when needed) an SQLite store; call `migrate()` before use. */
 export function openSqliteStore(options: SqliteStoreOptions): SqliteStore {
   return new SqliteStore(options);
@@ -90,10 +119,15 @@ export class SqliteStore implements Store {
   /** where `roost_run_row` puts the rows of the load in progress */
   private rowSink: RunColumns | null = null;
 
+  /** how long a method waits for another connection's lock in all, milliseconds */
+  private readonly busyTimeoutMs: number;
+
   constructor(options: SqliteStoreOptions) {
     if (typeof options.path !== 'string' || options.path === '') throw new StoreError('invalid', 'SQLite path must be a file name (or ":memory:")');
     this.db = new Database(options.path);
-    this.db.pragma(`busy_timeout = ${Math.max(0, Math.round(options.busyTimeoutMs ?? 10_000))}`);
+    this.busyTimeoutMs = Math.max(0, Math.round(options.busyTimeoutMs ?? 10_000));
+    // while opening, SQLite's own busy handler waits (the switch to WAL may need the lock)
+    this.db.pragma(`busy_timeout = ${this.busyTimeoutMs}`);
     this.db.pragma('journal_mode = WAL');
     this.db.pragma(`synchronous = ${options.synchronous === 'FULL' ? 'FULL' : 'NORMAL'}`);
     this.db.pragma('foreign_keys = ON');
@@ -102,6 +136,26 @@ export class SqliteStore implements Store {
       this.rowSink?.row(seq as number, lon as number, lat as number, t as number | null, w as number | null);
       return null;
     });
+    // from now on a locked database is waited for by timers (see the header), not by sleeping the thread
+    this.db.pragma('busy_timeout = 0');
+    const self = this as unknown as Record<string, (...args: unknown[]) => Promise<unknown>>;
+    for (const name of RETRIED) {
+      const method = self[name]!;
+      self[name] = (...args: unknown[]) => this.whenUnlocked(() => method.apply(this, args));
+    }
+  }
+
+  /** Runs one method, trying it again after a pause while another connection holds the lock it needs. */
+  private async whenUnlocked<T>(work: () => Promise<T>): Promise<T> {
+    const deadline = Date.now() + this.busyTimeoutMs;
+    for (let pause = 1; ; pause = Math.min(pause * 2, BUSY_RETRY_MAX_MS)) {
+      try {
+        return await work();
+      } catch (err) {
+        if (!isBusy(err) || this.closed || Date.now() + pause > deadline) throw err;
+      }
+      await new Promise((resolve) => setTimeout(resolve, pause));
+    }
   }
 
   async migrate(): Promise<void> {

@@ -5,6 +5,7 @@
  */
 import { availableParallelism } from 'node:os';
 import { Piscina } from 'piscina';
+import { entryBeside } from '../workers/location.js';
 import { simulatedMaxima, type ChanceSpec } from './chance.js';
 import { resampleJaccards, type StabilitySpec } from './stability.js';
 import type { TrialTask } from './trial-worker.js';
@@ -31,19 +32,13 @@ export function defaultThreads(): number {
   return Math.max(1, availableParallelism());
 }
 
-function trialWorker(): { filename: string; execArgv: string[] | undefined } {
-  const here = import.meta.url;
-  if (/\.ts$/.test(new URL(here).pathname)) return { filename: new URL('./trial-worker.ts', here).href, execArgv: ['--import', 'tsx'] };
-  return { filename: new URL('./trial-worker.js', here).href, execArgv: undefined };
-}
-
 /**
  * Runs `count` trials over `threads` worker threads (in this thread when threads is 1), in
  * batches of a few trials each so the threads stay busy to the end and progress can be told.
  */
 export async function runTrials(t: Trials, count: number, threads: number, onProgress?: TrialProgress): Promise<Float64Array> {
   if (threads <= 1 || count <= 1) return runTrialsHere(t, count, onProgress);
-  const { filename, execArgv } = trialWorker();
+  const { filename, execArgv } = entryBeside(import.meta.url, 'trial-worker');
   const pool = new Piscina<TrialTask, Float64Array>({ filename, execArgv, minThreads: threads, maxThreads: threads, concurrentTasksPerWorker: 1 });
   const w = width(t);
   const out = new Float64Array(count * w);

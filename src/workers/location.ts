@@ -1,10 +1,14 @@
 /**
- * Where the worker entry is and how to start it: the compiled module (dist/workers/entry.js) in
- * production, the TypeScript source through tsx when the service itself runs from source (tests,
- * `tsx src/cli/main.ts serve`).
+ * Where a worker entry is and how to start it: the compiled module (`<name>.js`) in production,
+ * the TypeScript source through tsx when the code itself runs from source (tests,
+ * `tsx src/cli/main.ts serve`). `here` is the `import.meta.url` of a module beside the entry.
  */
+export function entryBeside(here: string, name: string): { filename: string; execArgv: string[] | undefined } {
+  if (/\.ts$/.test(new URL(here).pathname)) return { filename: new URL(`./${name}.ts`, here).href, execArgv: ['--import', 'tsx'] };
+  return { filename: new URL(`./${name}.js`, here).href, execArgv: undefined };
+}
+
+/** The entry both service pools (clustering requests and stored-run jobs) start from. */
 export function workerEntry(): { filename: string; execArgv: string[] | undefined } {
-  const here = import.meta.url;
-  if (/\.ts$/.test(new URL(here).pathname)) return { filename: new URL('./entry.ts', here).href, execArgv: ['--import', 'tsx'] };
-  return { filename: new URL('./entry.js', here).href, execArgv: undefined };
+  return entryBeside(import.meta.url, 'entry');
 }

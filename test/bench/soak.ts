@@ -5,7 +5,13 @@
  * sampled every 100 ms and the service's resident memory every 5 s. Then the load stops and the
  * service is asked whether anything is still held (stuck slots). Writes test/bench/soak-results.md.
  *
- *   npm run bench:soak [-- --duration 180]
+ *   npm run bench:soak [-- --duration 180] [--rate-limit 0] [--profile]
+ *
+ * `--rate-limit` is passed to the service (requests a minute per address; default 0, no limit):
+ * every client here comes from one address, so the service's own default (600) would turn most of
+ * the load away with 429 before it reached any work. `--profile` runs the service under Node's
+ * CPU profiler and leaves the .cpuprofile file in test/bench/profiles/ (open it in Chrome's
+ * DevTools or speedscope).
  */
 import { spawn, type ChildProcess } from 'node:child_process';
 import { mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
@@ -24,6 +30,9 @@ function arg(name: string, fallback: number): number {
   return i >= 0 ? Number(process.argv[i + 1]) : fallback;
 }
 const DURATION_S = arg('duration', 180);
+const RATE_LIMIT = arg('rate-limit', 0);
+const PROFILE = process.argv.includes('--profile');
+const PROFILE_DIR = fileURLToPath(new URL('./profiles/', import.meta.url));
 const UPLOAD_TIMEOUT_MS = 5000;
 
 /** Seeded points around a few centres, as a FeatureCollection; ids from `prefix`. */
@@ -40,7 +49,8 @@ function collection(n: number, prefix: string, random: () => number): string {
 }
 
 async function startService(db: string): Promise<{ url: string; child: ChildProcess }> {
-  const args = ['--import', 'tsx', 'src/cli/bin.ts', 'serve', '--port', '0', '--db', db, '--workers', '1', '--upload-timeout-ms', String(UPLOAD_TIMEOUT_MS), '--log-level', 'info'];
+  const profile = PROFILE ? ['--cpu-prof', '--cpu-prof-dir', PROFILE_DIR] : [];
+  const args = [...profile, '--import', 'tsx', 'src/cli/bin.ts', 'serve', '--port', '0', '--db', db, '--workers', '1', '--upload-timeout-ms', String(UPLOAD_TIMEOUT_MS), '--rate-limit', String(RATE_LIMIT), '--log-level', 'info'];
   const child = spawn(process.execPath, args, { cwd: ROOT, stdio: ['ignore', 'pipe', 'inherit'] });
   let out = '';
   child.stdout!.setEncoding('utf8');
@@ -106,7 +116,11 @@ function slowSender(base: string): Promise<void> {
       socket.write(`POST /v1/cluster?eps=60 HTTP/1.1\r\nHost: ${u.host}\r\nContent-Type: application/geo+json\r\nContent-Length: 10000000\r\n\r\n{`);
       const drip = setInterval(() => socket.write(' '), 1000);
       let text = '';
-      socket.on('data', (d: Buffer) => (text += d.toString()));
+      // once answered the client stops sending and hangs up, as a real client would
+      socket.on('data', (d: Buffer) => {
+        text += d.toString();
+        if (/^HTTP\/1\.1 \d{3}[\s\S]*\r\n\r\n/.test(text)) socket.destroy();
+      });
       const end = (): void => {
         clearInterval(drip);
         const m = /^HTTP\/1\.1 (\d{3})/.exec(text);
@@ -175,6 +189,12 @@ async function main(): Promise<void> {
   // two posters of 500 new observations each time
   let batch = 0;
   for (let p = 0; p < 2; p++) loop(async () => void (await call('observation post', `${url}/v1/datasets/soak/observations`, { method: 'POST', headers: GEO, body: collection(500, `b${batch++}-`, random) })));
+  // one client posting a batch of 20 000 new observations every 20 s (stored in a job thread)
+  let large = 0;
+  loop(async () => {
+    await call('large post', `${url}/v1/datasets/soak/observations`, { method: 'POST', headers: GEO, body: collection(20_000, `L${large++}-`, random) });
+    await new Promise((r) => setTimeout(r, 20_000));
+  });
   // two clients clustering 2 000 points
   const clusterBody = collection(2000, 'c', random);
   for (let c = 0; c < 2; c++) loop(async () => void (await call('cluster', `${url}/v1/cluster?eps=60&min_points=5&layer=centres`, { method: 'POST', headers: GEO, body: clusterBody })));
@@ -205,7 +225,7 @@ async function main(): Promise<void> {
   let after: Record<string, unknown> = {};
   for (let i = 0; i < 100; i++) {
     after = (await (await fetch(`${url}/healthz`)).json()) as Record<string, unknown>;
-    if (after.in_progress === 0 && after.uploading === 0 && after.queued === 0) break;
+    if (after.in_progress === 0 && after.uploading === 0 && after.queued === 0 && after.storing === 0) break;
     await new Promise((r) => setTimeout(r, 100));
   }
   const settledMs = Date.now() - loadEnd;
@@ -222,9 +242,9 @@ async function main(): Promise<void> {
   const lines = [
     '# Soak benchmark',
     '',
-    `\`npm run bench:soak -- --duration ${DURATION_S}\`, ${new Date().toISOString()}, Node ${process.version}, ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, load average at the end ${loadavg().map((x) => x.toFixed(2)).join(' ')}, seed ${SEED}.`,
+    `\`npm run bench:soak -- --duration ${DURATION_S} --rate-limit ${RATE_LIMIT}${PROFILE ? ' --profile' : ''}\`, ${new Date().toISOString()}, Node ${process.version}, ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, load average at the end ${loadavg().map((x) => x.toFixed(2)).join(' ')}, seed ${SEED}.`,
     '',
-    `Service: \`roost serve --workers 1 --upload-timeout-ms ${UPLOAD_TIMEOUT_MS}\` on a fresh SQLite file, in a process of its own. Load for ${DURATION_S} s: two clients posting batches of 500 new observations, two clients clustering 2,000 points, a stored run asked for every 10 s, two clients pulling the latest points layer, one client vanishing after sending each 3,000-point clustering request, two slow senders (a byte a second) at all times, /healthz every 100 ms.`,
+    `Service: \`roost serve --workers 1 --upload-timeout-ms ${UPLOAD_TIMEOUT_MS} --rate-limit ${RATE_LIMIT}\`${PROFILE ? ' under the CPU profiler' : ''} on a fresh SQLite file, in a process of its own. Load for ${DURATION_S} s: two clients posting batches of 500 new observations, one client posting 20,000 new observations every 20 s, two clients clustering 2,000 points, a stored run asked for every 10 s, two clients pulling the latest points layer, one client vanishing after sending each 3,000-point clustering request, two slow senders (a byte a second) at all times, /healthz every 100 ms.`,
     '',
     '## /healthz',
     '',
@@ -255,7 +275,7 @@ async function main(): Promise<void> {
     '',
     '## Held at the end',
     '',
-    `/healthz ${settledMs} ms after the load stopped: \`${JSON.stringify(after)}\` (stuck slots: in_progress ${String(after.in_progress)}, uploading ${String(after.uploading)}, queued ${String(after.queued)}).`,
+    `/healthz ${settledMs} ms after the load stopped: \`${JSON.stringify(after)}\` (stuck slots: in_progress ${String(after.in_progress)}, uploading ${String(after.uploading)}, queued ${String(after.queued)}, storing ${String(after.storing)}).`,
     '',
   ];
   writeFileSync(new URL('./soak-results.md', import.meta.url), lines.join('\n'));

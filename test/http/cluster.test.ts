@@ -65,6 +65,19 @@ describe('the service gives the command line\'s bytes', () => {
     expect(res.body === direct(demoGeoJson, 'geojson').layers.points.text()).toBe(true);
   });
 
+  it('a feature whose id is null is answered with its point, without an id, not with an error', async () => {
+    const features = [
+      { type: 'Feature', id: null, geometry: { type: 'Point', coordinates: [10, 50] }, properties: {} },
+      { type: 'Feature', id: 'a', geometry: { type: 'Point', coordinates: [10.0001, 50] }, properties: {} },
+      { type: 'Feature', geometry: { type: 'Point', coordinates: [10.0002, 50] }, properties: {} },
+    ];
+    const res = await app.inject({ method: 'POST', url: '/v1/cluster?eps=250&min_points=3&layer=points', headers: { 'content-type': 'application/geo+json' }, payload: { type: 'FeatureCollection', features } });
+    expect(res.statusCode, res.body.slice(0, 300)).toBe(200);
+    const points = JSON.parse(res.body) as { features: Record<string, unknown>[] };
+    expect(points.features.map((f) => f.id)).toEqual([undefined, 'a', undefined]);
+    expect(points.features.map((f) => (f.properties as { role: string }).role)).toEqual(['core', 'core', 'core']);
+  });
+
   it('k-distance of the demo equals the pipeline\'s suggestion', async () => {
     const res = await app.inject({ method: 'POST', url: '/v1/k-distance?min_points=5', headers: { 'content-type': 'application/geo+json' }, payload: demoGeoJson });
     expect(res.statusCode).toBe(200);

@@ -116,7 +116,7 @@ describe('plugins alone', () => {
     await app.register(pools, { ...POOLS, pool: echoPool() });
     await app.register(serviceRoutes);
     const res = await app.inject({ method: 'GET', url: '/healthz' });
-    expect(res.json()).toEqual({ status: 'ok', service: 'roost', workers: 1, queued: 0, in_progress: 0, uploading: 0 });
+    expect(res.json()).toEqual({ status: 'ok', service: 'roost', workers: 1, queued: 0, in_progress: 0, uploading: 0, storing: 0 });
     expectMatchesSpec(res, '/healthz', 'GET');
     expect((await app.inject({ method: 'GET', url: '/openapi.yaml' })).statusCode).toBe(200);
   });

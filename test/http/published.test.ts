@@ -2,8 +2,12 @@
  * Published layers over HTTP: a dataset's publish settings, the public addresses a map points at,
  * withheld hotspots and noise, allowed properties only, and keys still reading the exact layers.
  */
+import { mkdtempSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { afterEach, describe, expect, it } from 'vitest';
 import type { FastifyInstance } from 'fastify';
+import { publishLayerTexts, resolvePublishOptions } from '../../src/publish/publish.js';
 import { midLatitudeSet, rng } from '../reference/seeded.js';
 import { testApp } from './helper.js';
 
@@ -92,4 +96,32 @@ describe('published layers', () => {
       expect(res.json().parameter, JSON.stringify(publish)).toBe(member);
     }
   });
+
+  it('are made in a job thread on a database file, the same as made directly, and concurrent requests all get them', async () => {
+    const dir = mkdtempSync(join(tmpdir(), 'roost-published-'));
+    try {
+      app = await testApp({ dbPath: join(dir, 'roost.db'), scheduleScanMs: 0 });
+      expect(app.storeConfig).not.toBeNull();
+      const publish = { public: true, generalise_m: 100, min_count: 62, noise: 'publish', properties: ['species'] };
+      expect((await app.inject({ method: 'POST', url: '/v1/datasets', headers: json, payload: { id: 'cases', settings: { eps: 200, min_points: 8 }, publish } })).statusCode).toBe(201);
+      expect((await app.inject({ method: 'POST', url: '/v1/datasets/cases/observations', headers: { 'content-type': 'application/geo+json' }, payload: observations() })).statusCode).toBe(200);
+      const started = (await app.inject({ method: 'POST', url: '/v1/datasets/cases/runs', headers: json })).json();
+      await app.runner.idle();
+      const runId = started.id as string;
+      expect((await app.inject({ method: 'GET', url: `/v1/datasets/cases/runs/${runId}` })).json().status).toBe('succeeded');
+      // made directly on this thread from the stored layers
+      const direct = publishLayerTexts((await app.store.getRunLayer(runId, 'points'))!, (await app.store.getRunLayer(runId, 'hotspots'))!, resolvePublishOptions(publish));
+      const layers = ['hotspots', 'centres', 'noise', 'points'] as const;
+      const answers = await Promise.all(layers.flatMap((layer) => [0, 1].map(() => app.inject({ method: 'GET', url: `/v1/datasets/cases/runs/latest/published/${layer}` }).then((res) => ({ layer, res })))));
+      for (const { layer, res } of answers) {
+        expect(res.statusCode, layer).toBe(200);
+        expect(res.headers['x-roost-run']).toBe(runId);
+        expect(res.body, layer).toBe(direct[layer]);
+      }
+      expect(JSON.parse(direct.noise).features.length).toBeGreaterThan(0);
+    } finally {
+      await app?.close();
+      rmSync(dir, { recursive: true, force: true });
+    }
+  }, 60_000);
 });

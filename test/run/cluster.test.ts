@@ -61,6 +61,28 @@ describe('figures keep significant figures, not decimals', () => {
   });
 });
 
+describe('features whose id is null', () => {
+  it('are clustered and written without an id, as the reader takes them (no id), in the points and noise layers', () => {
+    const features = [
+      { type: 'Feature', id: null, geometry: { type: 'Point', coordinates: [10, 50] }, properties: { n: 1 } },
+      { type: 'Feature', id: 'a', geometry: { type: 'Point', coordinates: [10.0001, 50] }, properties: {} },
+      { type: 'Feature', geometry: { type: 'Point', coordinates: [10.0002, 50] }, properties: null },
+      { type: 'Feature', id: null, geometry: { type: 'Point', coordinates: [12, 50] }, properties: {} },
+    ];
+    const result = clusterInput(JSON.stringify({ type: 'FeatureCollection', features }), 'geojson', resolveSettings({ eps: 250, min_points: 3 }));
+    const points = JSON.parse(result.layers.points.text()) as { features: Record<string, unknown>[] };
+    expect(points.features.map((f) => Object.hasOwn(f, 'id'))).toEqual([false, true, false, false]);
+    expect(points.features[0]).toEqual({ type: 'Feature', geometry: { type: 'Point', coordinates: [10, 50] }, properties: { n: 1, hotspot_id: 1, role: 'core' } });
+    expect(points.features.map((f) => (f.properties as { hotspot_id: number | null }).hotspot_id)).toEqual([1, 1, 1, null]);
+    const noise = JSON.parse(result.layers.noise.text()) as { features: Record<string, unknown>[] };
+    expect(noise.features).toEqual([{ type: 'Feature', geometry: { type: 'Point', coordinates: [12, 50] }, properties: { hotspot_id: null, role: 'noise' } }]);
+    // the medoid's id falls back to the input position when the feature has no id
+    const hotspots = (result.summary as Summary).hotspots;
+    expect(hotspots).toHaveLength(1);
+    expect(['0', 'a', '2']).toContain(hotspots[0].medoid_id);
+  });
+});
+
 describe('the Clark–Evans block', () => {
   it('says why it was not computed for observations spread round the globe, in the summary and as a warning', () => {
     const positions: [number, number][] = [];

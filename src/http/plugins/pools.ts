@@ -32,6 +32,8 @@ declare module 'fastify' {
     workPool: WorkPool;
     jobPool: JobPool;
     admission: Admission;
+    /** large posted batches being read and stored in the job pool (src/http/routes/observations.ts) */
+    storing: { inProgress: number };
   }
 }
 
@@ -55,7 +57,9 @@ function createAdmission(options: PoolsOptions): Admission {
   let admitted = 0;
   const capacity = options.workers + options.queueSize;
   const retryAfter = { 'retry-after': String(options.retryAfterS) };
-  const full = (): HttpProblem => new HttpProblem('overloaded', `All ${options.workers} workers are busy and ${options.queueSize} requests wait; retry later.`, {}, retryAfter);
+  // refused before its body arrived: the connection is closed after the answer, so a client
+  // still sending (a byte a second, say) holds no socket once it has its answer
+  const full = (early = false): HttpProblem => new HttpProblem('overloaded', `All ${options.workers} workers are busy and ${options.queueSize} requests wait; retry later.`, {}, early ? { ...retryAfter, connection: 'close' } : retryAfter);
   const release = async (request: FastifyRequest): Promise<void> => {
     if ((request as Admitted)[ADMITTED]) {
       (request as Admitted)[ADMITTED] = false;
@@ -64,7 +68,7 @@ function createAdmission(options: PoolsOptions): Admission {
   };
   return {
     async check() {
-      if (admitted >= capacity) throw full();
+      if (admitted >= capacity) throw full(true);
     },
     async admit(request, reply) {
       if (admitted >= capacity) throw full();
@@ -86,6 +90,7 @@ async function pools(app: FastifyInstance, options: PoolsOptions): Promise<void>
   app.decorate('workPool', workPool);
   app.decorate('jobPool', jobPool);
   app.decorate('admission', createAdmission(options));
+  app.decorate('storing', { inProgress: 0 });
   app.addHook('onClose', async () => {
     await Promise.all([workPool.close(), jobPool.close()]);
   });

@@ -2,74 +2,41 @@
  * /v1/datasets/{id}/observations: posting batches (one transaction each, idempotent by id),
  * listing with bbox / datetime / property filters and cursor paging, and retracting one.
  *
- * Bodies up to SMALL_BODY_BYTES are read on the main thread (a phone's single sighting should
- * not pay a thread hop); larger ones in a worker thread. The answer to a post says where each
+ * Bodies up to SMALL_BODY_BYTES are read and stored on the main thread (a phone's single sighting
+ * should not pay a thread hop); larger ones are read, stored in one transaction and placed in a
+ * job thread with its own store connection (LARGE_STORE_BYTES), so that a post of 100 000
+ * observations never holds up the event loop; /healthz counts them as `storing`. The answer to a post says where each
  * observation stands against the latest succeeded run's hotspots (see src/run/which-hotspot.ts):
  * the hotspot it falls in, whether it lies inside that hull, the hotspot's size, or the nearest
  * hotspot when it is in none.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
-import type { HullGeometry } from '../../geometry/hull.js';
 import { bboxOfPositions, COORDINATE_DECIMALS, featureCollectionString } from '../../geometry/geojson.js';
 import { readRecords, type RecordBatch, type RecordOptions } from '../../ingest/records.js';
 import { compileTimeFormat } from '../../ingest/checks.js';
 import { InputError, type InputProblem } from '../../ingest/types.js';
 import { parseCondition } from '../../run/settings.js';
-import { WhichHotspot, type LookupHotspot, type Placement } from '../../run/which-hotspot.js';
 import type { Dataset, ListObservationsOptions, Store, WhereCondition } from '../../storage/store.js';
+import type { StoreConfig } from '../../storage/index.js';
 import { StoreError } from '../../storage/store.js';
 import { formatOf } from '../body.js';
 import { sendTagged } from '../conditional.js';
 import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem, MAX_LISTED_PROBLEMS } from '../errors.js';
 import { JobQueueFull, type JobPool } from '../../jobs/job-pool.js';
+import type { StoreOutcome } from '../../jobs/job-worker.js';
+import { BatchNotStored, HotspotLookup, MAX_PLACEMENTS, storeBatch, type StoredBatch } from '../../jobs/store-batch.js';
 import { requireDataset, settingsProblem, storeProblem } from './common.js';
-
-/** A post of a collection is answered with the placement of at most this many observations. */
-export const MAX_PLACEMENTS = 1000;
 
 /** Bodies up to this many bytes are read on the main thread. */
 export const SMALL_BODY_BYTES = 64 * 1024;
 
 /**
- * The latest succeeded run of each dataset as a WhichHotspot (its hotspots' core members, hulls
- * and sizes), built once per run and kept until a newer run succeeds.
+ * Bodies over this many bytes (about 250 point features) are read, stored and placed in a job
+ * thread with its own connection to the database (src/jobs/store-batch.ts), when the store can
+ * be opened there (a file or PostgreSQL, not ':memory:'); smaller ones on the main thread.
  */
-export class HotspotLookup {
-  private readonly cache = new Map<string, { runId: string; which: WhichHotspot }>();
-  constructor(private readonly store: Store) {}
-
-  private async build(datasetId: string, runId: string, epsMeters: number): Promise<WhichHotspot> {
-    const hit = this.cache.get(datasetId);
-    if (hit !== undefined && hit.runId === runId) return hit.which;
-    const hotspots = await this.store.getRunHotspots(runId);
-    const pos = await this.store.getPositions(datasetId, hotspots.flatMap((h) => h.coreMembers));
-    const lookup: LookupHotspot[] = hotspots.map((h) => {
-      const lon: number[] = [];
-      const lat: number[] = [];
-      for (const id of h.coreMembers) {
-        const p = pos.get(id);
-        if (p === undefined) continue; // retracted since the run
-        lon.push(p.lon);
-        lat.push(p.lat);
-      }
-      const area = Number(h.figures?.area_km2);
-      return { hotspotId: h.hotspotId, trackId: h.trackId, hull: JSON.parse(h.hull) as HullGeometry, count: h.members.length, areaKm2: Number.isFinite(area) ? area : null, coreLon: lon, coreLat: lat };
-    });
-    const which = new WhichHotspot(lookup, epsMeters);
-    this.cache.set(datasetId, { runId, which });
-    return which;
-  }
-
-  /** Where each position stands against the latest succeeded run's hotspots; `run` is null when the dataset has none. */
-  async place(datasetId: string, positions: readonly { lon: number; lat: number }[]): Promise<{ run: string | null; placements: Placement[] | null }> {
-    const run = await this.store.latestRun(datasetId);
-    const eps = Number((run?.summary?.parameters as Record<string, unknown> | undefined)?.eps);
-    if (run === null || !(eps > 0)) return { run: null, placements: null };
-    const which = await this.build(datasetId, run.id, eps);
-    return { run: run.id, placements: positions.map((p) => which.place(p.lon, p.lat)) };
-  }
-}
+export const LARGE_STORE_BYTES = SMALL_BODY_BYTES;
 
 /** 422 body members for rejected features, in the form of the clustering endpoints. */
 function problemList(problems: { index: number | null; id?: string | number; code: string; message: string }[], total: number): Record<string, unknown> {
@@ -173,14 +140,11 @@ export interface ObservationRouteOptions {
 }
 
 type Rejection = { index: number | null; id?: string | number; code: string; message: string };
-type IngestResult = Awaited<ReturnType<Store['ingest']>>;
 
 /** The observations the store kept back as conflicting with stored ones, at their input index. */
-function conflictsOf(batch: RecordBatch, result: IngestResult): Rejection[] {
-  const indexOf = new Map<string, number>();
-  batch.records.forEach((r, k) => indexOf.has(r.id) || indexOf.set(r.id, batch.indices[k]!));
-  return result.conflicts.map((id) => ({
-    index: indexOf.get(id) ?? null,
+function conflictsOf(done: StoredBatch): Rejection[] {
+  return done.result.conflicts.map((id, k) => ({
+    index: done.conflictIndex[k] ?? null,
     id,
     code: 'conflict',
     message: `an observation with id ${JSON.stringify(id)} is stored with other content (or given twice with different content); send replace=true to replace it`,
@@ -188,15 +152,16 @@ function conflictsOf(batch: RecordBatch, result: IngestResult): Rejection[] {
 }
 
 /** The refusal of a batch the store did not keep: conflicts alone, or invalid features and conflicts without partial. */
-function unstoredProblem(batch: RecordBatch, conflicts: Rejection[]): HttpProblem {
-  if (conflicts.length > 0 && batch.rejected.length === 0) {
+function unstoredProblem(done: StoredBatch, conflicts: Rejection[]): HttpProblem {
+  if (conflicts.length > 0 && done.rejected.length === 0) {
     return new HttpProblem('observation-conflict', `${conflicts.length} observation${conflicts.length > 1 ? 's have ids' : ' has an id'} stored with other content; nothing was stored. Send replace=true to replace them, or partial=true to store the rest.`, problemList(conflicts, conflicts.length));
   }
-  return new HttpProblem('invalid-observations', 'some observations are not valid or conflict with stored ones; nothing was stored', problemList([...batch.rejected, ...conflicts].sort((a, b) => (a.index ?? 0) - (b.index ?? 0)), batch.rejected.length + conflicts.length));
+  return new HttpProblem('invalid-observations', 'some observations are not valid or conflict with stored ones; nothing was stored', problemList([...done.rejected, ...conflicts].sort((a, b) => (a.index ?? 0) - (b.index ?? 0)), done.rejected.length + conflicts.length));
 }
 
 /** The answer's counts and lists for a stored batch. */
-function ingestAnswer(datasetId: string, result: IngestResult, rejections: Rejection[]): Record<string, unknown> {
+function ingestAnswer(datasetId: string, done: StoredBatch, rejections: Rejection[]): Record<string, unknown> {
+  const { result } = done;
   return {
     dataset_id: datasetId,
     stored: result.stored,
@@ -210,43 +175,82 @@ function ingestAnswer(datasetId: string, result: IngestResult, rejections: Rejec
 }
 
 /** Adds to the answer where the posted observations stand against the latest run's hotspots: one observation, or each of a collection up to MAX_PLACEMENTS. */
-async function addPlacements(lookup: HotspotLookup, datasetId: string, batch: RecordBatch, rejected: number, answer: Record<string, unknown>): Promise<void> {
-  if (batch.records.length === 1 && rejected === 0) {
-    const r = batch.records[0]!;
-    const found = await lookup.place(datasetId, [r]);
-    answer.observation_id = r.id;
-    answer.latest_run = found.run;
-    answer.hotspot = found.placements?.[0]?.hotspot ?? null;
-    answer.nearest_hotspot = found.placements?.[0]?.nearest_hotspot ?? null;
-  } else if (batch.records.length > 0) {
+function addPlacements(done: StoredBatch, rejected: number, answer: Record<string, unknown>): void {
+  if (done.count === 1 && rejected === 0) {
+    answer.observation_id = done.shown[0]!.id;
+    answer.latest_run = done.latestRun;
+    answer.hotspot = done.placements?.[0]?.hotspot ?? null;
+    answer.nearest_hotspot = done.placements?.[0]?.nearest_hotspot ?? null;
+  } else if (done.count > 0) {
     // in input order
-    const shown = batch.records.slice(0, MAX_PLACEMENTS);
-    const found = await lookup.place(datasetId, shown);
-    answer.latest_run = found.run;
-    answer.placements = found.placements === null ? [] : shown.map((r, k) => ({ index: batch.indices[k], observation_id: r.id, ...found.placements![k]! }));
-    answer.placements_total = batch.records.length;
+    answer.latest_run = done.latestRun;
+    answer.placements = done.placements === null ? [] : done.shown.map((r, k) => ({ index: r.index, observation_id: r.id, ...done.placements![k]! }));
+    answer.placements_total = done.count;
   }
 }
 
+/** The problem for a store that failed on a batch (nothing of it is stored); the cause goes to the log. */
+function storeFailed(request: FastifyRequest, err: { message: string; stack?: string }): never {
+  request.log.error({ err: { message: err.message, stack: err.stack } }, 'storing a posted batch failed');
+  throw new HttpProblem('store-failed', `The database did not store this batch; nothing of it was stored. Send it again later (it is safe to repeat: observations already stored are recognised by id). If it keeps failing, tell the operator the request id ${String(request.id)}.`, {}, { 'retry-after': String(DEFAULT_CONFIG.retryAfterS) });
+}
+
+/** How posts are stored: the app's store and lookup on this thread, or a job thread for large ones. */
+interface PostServices {
+  store: Store;
+  jobs: JobPool | null;
+  /** how a job thread opens the store; null: every post is stored on this thread */
+  storeConfig: StoreConfig | null;
+  lookup: HotspotLookup;
+  /** large posts being stored in a job thread now (shown by /healthz) */
+  storing: { inProgress: number };
+}
+
+/** A large post, read, stored and placed in a job thread. */
+async function storeInThread(request: FastifyRequest, s: PostServices, datasetId: string, body: Uint8Array, options: RecordOptions, ingest: { replace: boolean; partial: boolean }): Promise<StoredBatch> {
+  s.storing.inProgress++;
+  let out: StoreOutcome;
+  try {
+    out = await s.jobs!.store({ store: s.storeConfig!, datasetId, body, options, ...ingest });
+  } catch (err) {
+    if (err instanceof JobQueueFull) throw new HttpProblem('overloaded', 'Every thread storing posted batches is busy and the waiting line is full; retry later.', {}, { 'retry-after': String(DEFAULT_CONFIG.retryAfterS) });
+    throw err;
+  } finally {
+    s.storing.inProgress--;
+  }
+  if (out.ok) return out.stored;
+  if ('input' in out) return inputProblem(out.input.problems, out.input.total, out.input.message);
+  if (out.failure.code !== null) storeProblem(new StoreError(out.failure.code, out.failure.message));
+  return storeFailed(request, out.failure);
+}
+
+/** A post read and stored on this thread. */
+async function storeHere(request: FastifyRequest, s: PostServices, datasetId: string, body: Uint8Array, options: RecordOptions, ingest: { replace: boolean; partial: boolean }): Promise<StoredBatch> {
+  const batch = await readBatch(s.jobs, body, options);
+  return storeBatch(s.store, s.lookup, '', datasetId, batch, ingest).catch((err: unknown) => {
+    if (!(err instanceof BatchNotStored)) throw err;
+    if (err.cause instanceof StoreError) return storeProblem(err.cause);
+    const e = err.cause instanceof Error ? err.cause : err;
+    return storeFailed(request, { message: e.message, stack: e.stack });
+  });
+}
+
 /** POST /v1/datasets/{id}/observations */
-function postObservationsHandler(store: Store, jobs: JobPool | null, lookup: HotspotLookup, maxFeatures: number) {
+function postObservationsHandler(s: PostServices, maxFeatures: number) {
   return async (request: FastifyRequest<{ Params: { id: string } }>) => {
     const query = (request.query ?? {}) as Record<string, unknown>;
-    const replace = query.replace === true;
-    const partial = query.partial === true;
-    const dataset = await requireDataset(store, request.params.id);
+    const ingest = { replace: query.replace === true, partial: query.partial === true };
+    const dataset = await requireDataset(s.store, request.params.id);
     const body = request.body as Uint8Array | undefined;
     if (!body || body.byteLength === 0) throw new HttpProblem('malformed-body', 'The request body is empty; send a GeoJSON Feature or FeatureCollection, CSV, or a GeoJSON text sequence.');
-    const format = formatOf(request.headers['content-type']);
-    const batch = await readBatch(jobs, body, recordOptions(dataset, format, partial, query, maxFeatures));
-    const result = await store
-      .ingest(dataset.id, batch.records, { replace, partial, rejected: batch.rejected.map((r) => ({ index: r.index, reason: r.message })) })
-      .catch(storeProblem);
-    const conflicts = conflictsOf(batch, result);
-    if (!result.stored) throw unstoredProblem(batch, conflicts);
-    const rejections = [...batch.rejected, ...conflicts].sort((a, b) => (a.index ?? 0) - (b.index ?? 0));
-    const answer = ingestAnswer(dataset.id, result, rejections);
-    await addPlacements(lookup, dataset.id, batch, rejections.length, answer);
+    const options = recordOptions(dataset, formatOf(request.headers['content-type']), ingest.partial, query, maxFeatures);
+    const large = s.jobs !== null && s.storeConfig !== null && body.byteLength > LARGE_STORE_BYTES;
+    const done = await (large ? storeInThread : storeHere)(request, s, dataset.id, body, options, ingest);
+    const conflicts = conflictsOf(done);
+    if (!done.result.stored) throw unstoredProblem(done, conflicts);
+    const rejections = [...done.rejected, ...conflicts].sort((a, b) => (a.index ?? 0) - (b.index ?? 0));
+    const answer = ingestAnswer(dataset.id, done, rejections);
+    addPlacements(done, rejections.length, answer);
     return answer;
   };
 }
@@ -312,8 +316,9 @@ function retractObservationHandler(store: Store) {
 }
 
 export default async function observationRoutes(app: FastifyInstance, options: ObservationRouteOptions = {}): Promise<void> {
-  const { store, jobPool } = app;
-  app.post('/v1/datasets/:id/observations', postObservationsHandler(store, jobPool, new HotspotLookup(store), options.maxPostFeatures ?? DEFAULT_CONFIG.maxPostFeatures));
+  const { store, jobPool, storeConfig, storing } = app;
+  const services: PostServices = { store, jobs: jobPool, storeConfig, lookup: new HotspotLookup(), storing };
+  app.post('/v1/datasets/:id/observations', postObservationsHandler(services, options.maxPostFeatures ?? DEFAULT_CONFIG.maxPostFeatures));
   app.get('/v1/datasets/:id/observations', listObservationsHandler(store));
   app.delete('/v1/datasets/:id/observations/:obsId', retractObservationHandler(store));
 }

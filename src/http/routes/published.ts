@@ -5,17 +5,31 @@
  * as they are now. Anyone may read them when those settings say `public: true`; otherwise they
  * need a reader key like the exact layers.
  *
- * Published layers are made from the stored points and hotspots layers on the main thread and
- * the last few are kept (src/publish/served.ts): a map asks for the same layers again and again.
+ * Published layers are made from the stored points and hotspots layers in a job thread with its
+ * own store connection (on the main thread only for an in-memory database, which threads cannot
+ * open), and the last few are kept (src/publish/served.ts): a map asks for the same layers again
+ * and again. The OGC API's published collections are made the same way.
  */
 import type { FastifyInstance } from 'fastify';
 import type { LayerName } from '../../run/layers.js';
-import { publishedLayers } from '../../publish/served.js';
+import { JobQueueFull } from '../../jobs/job-pool.js';
+import { makePublishedWith, publishedLayers } from '../../publish/served.js';
+import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem } from '../errors.js';
 import { requireDataset, requireRun } from './common.js';
 
 export default async function publishedRoutes(app: FastifyInstance): Promise<void> {
-  const { store } = app;
+  const { store, storeConfig, jobPool } = app;
+  if (storeConfig !== null) {
+    makePublishedWith(store, async (runId, options) => {
+      try {
+        return await jobPool.publish({ store: storeConfig, runId, options });
+      } catch (err) {
+        if (err instanceof JobQueueFull) throw new HttpProblem('overloaded', 'Every thread making published layers is busy and the waiting line is full; retry later.', {}, { 'retry-after': String(DEFAULT_CONFIG.retryAfterS) });
+        throw err;
+      }
+    });
+  }
   const publishedOf = (dataset: Parameters<typeof publishedLayers>[1], run: Parameters<typeof publishedLayers>[2]) => publishedLayers(store, dataset, run);
 
   app.get<{ Params: { id: string; layer: LayerName } }>('/v1/datasets/:id/runs/latest/published/:layer', async (request, reply) => {

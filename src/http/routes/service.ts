@@ -39,6 +39,7 @@ export default async function serviceRoutes(app: FastifyInstance, options: Servi
     queued: app.workPool.queued,
     in_progress: app.admission.inProgress,
     uploading: app.uploads.inProgress,
+    storing: app.storing.inProgress,
   }));
 
   app.get('/openapi.yaml', async (_request, reply) => {
