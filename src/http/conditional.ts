@@ -50,3 +50,11 @@ export function sendTagged(request: FastifyRequest, reply: FastifyReply, type: s
   if (notModified(request, reply, etagOf(body), lastModified)) return reply.code(304).send();
   return reply.type(type).send(body);
 }
+
+/** Adds a request header name to the answer's Vary, keeping what other parts (CORS: Origin) set. */
+export function addVary(reply: FastifyReply, name: string): void {
+  const current = reply.getHeader('vary');
+  const names = (current === undefined ? '' : String(current)).split(',').map((v) => v.trim()).filter((v) => v !== '');
+  if (names.some((v) => v === '*' || v.toLowerCase() === name.toLowerCase())) return;
+  void reply.header('vary', [...names, name].join(', '));
+}

@@ -13,7 +13,7 @@ import { featureCollectionString } from '../geometry/geojson.js';
 import { Readable } from 'node:stream';
 import { categoryNames, hotspotLayerFields, optionalFieldsOf, propertiesJsonSchema, trustFieldsOf, type LayerField } from '../geometry/layer-fields.js';
 import { csvLines, flatGeobufChunks, layerColumns, layerFormat, MEDIA_TYPES } from './formats.js';
-import { etagOf, notModified, sendTagged } from '../http/conditional.js';
+import { addVary, etagOf, notModified, sendTagged } from '../http/conditional.js';
 import { HttpProblem } from '../http/errors.js';
 import { mayRead } from '../auth/roles.js';
 import { publishedLayers, publishedPublicly } from '../publish/served.js';
@@ -104,6 +104,11 @@ function idOf(r: Resolved): string {
 export default async function featuresRoutes(app: FastifyInstance, options: FeaturesOptions = {}): Promise<void> {
   const store = options.store ?? app.store;
   const root = (request: FastifyRequest): string => baseUrl(request, options.publicUrl) + FEATURES_ROOT;
+  // every answer here depends on Accept (HTML, JSON, FlatGeobuf or CSV), so caches must key on it
+  app.addHook('onSend', async (_request, reply, payload) => {
+    addVary(reply, 'Accept');
+    return payload;
+  });
 
   const resolve = async (id: string): Promise<Resolved> => {
     const parsed = parseCollectionId(id);

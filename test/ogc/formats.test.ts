@@ -252,6 +252,8 @@ describe.skipIf(skipReason !== null)(`layer formats read back by GDAL${skipReaso
     const byAccept = await app.inject({ method: 'GET', url: '/features/collections/survey.centres/items', headers: { accept: 'text/csv' } });
     expect(byAccept.headers['content-type']).toMatch(/^text\/csv/);
     expect(byAccept.body.split('\r\n')[0]).toMatch(/^lon,lat,hotspot_id,/);
+    // the answer depends on Accept, so a shared cache must key on it (RFC 9110 §12.5.5)
+    expect(byAccept.headers['vary']).toMatch(/(^|,\s*)Accept(\s*,|$)/);
   }, 120_000);
 
   it('is chosen by Accept as by f, and says so in Content-Type; a conditional GET is answered 304', async () => {
@@ -259,6 +261,7 @@ describe.skipIf(skipReason !== null)(`layer formats read back by GDAL${skipReaso
     const byAccept = await app.inject({ method: 'GET', url: '/v1/datasets/survey/runs/latest/centres', headers: { accept: 'application/flatgeobuf' } });
     expect(byAccept.headers['content-type']).toBe('application/flatgeobuf');
     expect(Buffer.compare(byAccept.rawPayload, byF.rawPayload)).toBe(0);
+    expect(byAccept.headers['vary']).toMatch(/(^|,\s*)Accept(\s*,|$)/);
     const csv = await app.inject({ method: 'GET', url: '/v1/datasets/survey/runs/latest/centres', headers: { accept: 'text/csv, application/geo+json;q=0.5' } });
     expect(csv.headers['content-type']).toMatch(/^text\/csv/);
     expect(csv.body.split('\r\n')[0]).toMatch(/^lon,lat,hotspot_id,/);

@@ -11,7 +11,7 @@ import { categoryNames, hotspotLayerFields, optionalFieldsOf, trustFieldsOf, typ
 import { csvLines, flatGeobufChunks, layerColumns, layerFormat, MEDIA_TYPES } from '../../ogc/formats.js';
 import { layerIndex, layerPage } from '../../ogc/layers.js';
 import { parseBbox, parseDatetime, type ItemsQuery } from '../../ogc/query.js';
-import { etagOf, notModified, sendTagged } from '../conditional.js';
+import { addVary, etagOf, notModified, sendTagged } from '../conditional.js';
 import { resolveRunSettings } from '../../trust/options.js';
 import type { LayerName } from '../../run/layers.js';
 import { StoreError, type Run, type Store } from '../../storage/store.js';
@@ -128,7 +128,7 @@ async function sendLayer(store: Store, streams: LayerStreams, request: FastifyRe
   const q = layerQuery(query);
   if (run.status !== 'succeeded') throw new HttpProblem('run-not-ready', `run ${run.id} is ${run.status}; layers exist once it has succeeded`);
   void reply.header('x-roost-run', run.id);
-  void reply.header('vary', 'Accept');
+  addVary(reply, 'Accept');
   // f names the file format here (geojson, fgb, csv; the route schema checks it), not the OGC API's json or html
   const format = layerFormat(query.f, request.headers.accept);
   if (format !== 'geojson') return sendLayerFile(store, request, reply, run, layer, format, q);
