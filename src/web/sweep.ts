@@ -4,26 +4,13 @@
  * min_points; each cell says its figures in words and is shaded by hotspot count with the page's
  * own sequential palette, so the colour only repeats what the numbers say.
  */
+import type { components } from '../http/openapi-types.js';
 import { colourOf, shadeClasses } from './palette.js';
 import { escapeHtml } from './runview.js';
 
-export interface SweepSetting {
-  eps_m: number;
-  min_points: number;
-  hotspots: number;
-  clustered: number;
-  noise: number;
-  noise_share: number;
-  ari_next_eps: number | null;
-  ari_next_min_points: number | null;
-}
-export interface Sweep {
-  observations: number;
-  eps_m: number[];
-  min_points: number[];
-  ari: string;
-  settings: SweepSetting[];
-}
+/** The answer of the sweep routes, as the contract (openapi.yaml) declares it. */
+export type Sweep = components['schemas']['Sweep'];
+export type SweepSetting = Sweep['settings'][number];
 
 const uniqueSorted = (xs: number[]): number[] => [...new Set(xs)].sort((a, b) => a - b);
 
