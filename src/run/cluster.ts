@@ -27,6 +27,7 @@ import { roundDecimals, roundMeters, roundSignificant } from '../geometry/roundi
 import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
+import { parseSpan, type FeatureSpans, type SpannedObservations } from '../ingest/geojson-bytes.js';
 import { CAUTIONS } from './cautions.js';
 import { SettingsError, settingsRecord, type ClusterSettings } from './settings.js';
 import { ROOST_VERSION } from './version.js';
@@ -277,6 +278,30 @@ export function pointFeature(f: InputFeature, hotspot: number, role: number, ext
   // an id of null is read as no id (src/ingest/geojson.ts) and written as none
   const id = (f.id as string | number | null | undefined) ?? undefined;
   return featureStringWithProperties({ type: 'Point', coordinates: f.geometry.coordinates }, props, id);
+}
+
+const utf8Slice = Buffer.prototype.utf8Slice as (this: Uint8Array, start: number, end: number) => string;
+const latin1Slice = Buffer.prototype.latin1Slice as (this: Uint8Array, start: number, end: number) => string;
+
+/**
+ * pointFeature for input feature `i` read by the byte reader, byte for byte the same: the id and
+ * the properties are copied from the input where their text is already what JSON.stringify
+ * writes (spans.verbatim), the feature is parsed from its span otherwise.
+ */
+export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: number, lat: number, hotspot: number, role: number, extra = ''): string {
+  if (spans.verbatim[i] !== 1) return pointFeature(parseSpan(spans, i), hotspot, role, extra);
+  const b = spans.bytes;
+  const is = spans.idStart[i]!;
+  const ie = spans.idEnd[i]!;
+  // a string id is copied; a number is written as JSON.stringify writes its value (1.0 → 1)
+  const id = ie === 0 ? '' : b[is] === 34 ? ',"id":' + utf8Slice.call(b, is, ie) : ',"id":' + JSON.stringify(Number(latin1Slice.call(b, is, ie)));
+  const alt = spans.altitude === null ? NaN : spans.altitude[i]!;
+  const position = alt === alt ? coordText(lon) + ',' + coordText(lat) + ',' + coordText(alt) : coordText(lon) + ',' + coordText(lat);
+  const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"${extra}}`;
+  const ps = spans.propertiesStart[i]!;
+  const pe = spans.propertiesEnd[i]!;
+  const properties = pe - ps <= 2 ? '{' + added : utf8Slice.call(b, ps, pe - 1) + ',' + added;
+  return '{"type":"Feature"' + id + ',"geometry":{"type":"Point","coordinates":[' + position + ']},"properties":' + properties + '}';
 }
 
 /** Index just past the JSON string starting (with its quote) at `i`. */
@@ -542,10 +567,12 @@ export function clusterObservations(
   const { labels, roles } = clustering;
   const kept = filtered.kept;
   const extra = ordering === null ? () => '' : opticsMembers(ordering);
+  const spans = (all as Partial<SpannedObservations>).spans;
   function* pointFeatures(noiseOnly: boolean): Generator<string> {
     for (let i = 0; i < points.n; i++) {
       if (noiseOnly && labels[i] >= 0) continue;
-      yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i], extra(i)) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i], extra(i));
+      if (spans !== undefined) yield pointFeatureFromSpans(spans, kept[i]!, points.lon[i]!, points.lat[i]!, labels[i], roles[i], extra(i));
+      else yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i], extra(i)) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i], extra(i));
     }
   }
   const hotspotsBbox = bboxOf(hulls);
