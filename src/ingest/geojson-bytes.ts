@@ -656,8 +656,13 @@ function scanFeature(i: number, cols: Columns, weightKey: Uint8Array | null, tim
         const e = scanString(i);
         if (e - i - 2 > MAX_ID_CHARS) throw NOT_FAST;
         if (strEscaped) {
-          // \u escapes may hide a NUL or a lone surrogate, which the parsing reader refuses in ids
-          for (let k = i + 1; k < e - 1; k++) if (b[k] === C.Backslash && b[++k] === 117) throw NOT_FAST;
+          // a \u escape may write a NUL or half of a surrogate pair, which the parsing reader may refuse in an id
+          for (let k = i + 1; k < e - 1; k++) {
+            if (b[k] === C.Backslash && b[++k] === 117) {
+              const u = parseInt(latin1(k + 1, k + 5), 16);
+              if (u === 0 || (u >= 0xd800 && u <= 0xdfff)) throw NOT_FAST;
+            }
+          }
           idVerbatim = canonicalString(i + 1, e - 1);
         }
         idS = i;

@@ -46,10 +46,26 @@ export type Stage = (typeof STAGES)[number];
  * without the garbage collector tracing a million kept feature strings).
  */
 export class Layer {
-  constructor(private readonly produce: () => Iterable<string>) {}
+  /**
+   * @param produce the text in chunks
+   * @param produceBytes the same text as UTF-8 bytes in chunks, where the layer can write bytes
+   *   without building strings (points and noise read by the byte reader); absent: chunks encoded
+   */
+  constructor(
+    private readonly produce: () => Iterable<string>,
+    private readonly produceBytes?: () => Iterable<Uint8Array>,
+  ) {}
   /** The text in chunks; every call starts again from the beginning. */
   chunks(): Iterable<string> {
     return this.produce();
+  }
+  /** The text as UTF-8 bytes in chunks (the bytes of chunks(), for files and sockets); every call starts again. */
+  byteChunks(): Iterable<Uint8Array> {
+    if (this.produceBytes !== undefined) return this.produceBytes();
+    const produce = this.produce;
+    return (function* () {
+      for (const c of produce()) yield Buffer.from(c, 'utf8');
+    })();
   }
   /** The whole text. */
   text(): string {
@@ -304,6 +320,75 @@ export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: numbe
   return '{"type":"Feature"' + id + ',"geometry":{"type":"Point","coordinates":[' + position + ']},"properties":' + properties + '}';
 }
 
+/** Bytes of a point layer (see pointFeatureFromSpans) in chunks of about 1 MiB, written without per-feature strings. */
+function* pointLayerBytes(
+  head: string,
+  spans: FeatureSpans,
+  rows: { n: number; lon: Float64Array; lat: Float64Array; kept: Int32Array; labels: Int32Array; roles: Uint8Array },
+  extra: (i: number) => string,
+  noiseOnly: boolean,
+): Generator<Uint8Array> {
+  const CHUNK = 1 << 20;
+  const b = spans.bytes;
+  const { n, lon, lat, kept, labels, roles } = rows;
+  let out = Buffer.allocUnsafe(Math.max(CHUNK, Buffer.byteLength(head) + 2));
+  let pos = out.write(head, 0, 'utf8');
+  let first = true;
+  for (let i = 0; i < n; i++) {
+    const label = labels[i]!;
+    if (noiseOnly && label >= 0) continue;
+    const k = kept[i]!;
+    const x = extra(i);
+    let text: string | null = null;
+    let need: number;
+    if (spans.verbatim[k] !== 1) {
+      text = pointFeature(parseSpan(spans, k), label, roles[i]!, x);
+      need = Buffer.byteLength(text, 'utf8') + 1;
+    } else need = 256 + spans.idEnd[k]! - spans.idStart[k]! + spans.propertiesEnd[k]! - spans.propertiesStart[k]! + x.length;
+    if (pos + need + 2 > out.length) {
+      yield out.subarray(0, pos);
+      out = Buffer.allocUnsafe(Math.max(CHUNK, need + 2));
+      pos = 0;
+    }
+    if (!first) out[pos++] = 44; // ,
+    first = false;
+    if (text !== null) {
+      pos += out.write(text, pos, 'utf8');
+      continue;
+    }
+    const is = spans.idStart[k]!;
+    const ie = spans.idEnd[k]!;
+    pos += out.write('{"type":"Feature"', pos, 'latin1');
+    if (ie !== 0) {
+      pos += out.write(',"id":', pos, 'latin1');
+      if (b[is] === 34) pos += copyBytes(b, out, pos, is, ie);
+      else pos += out.write(JSON.stringify(Number(latin1Slice.call(b, is, ie))), pos, 'latin1');
+    }
+    const alt = spans.altitude === null ? NaN : spans.altitude[k]!;
+    pos += out.write(
+      ',"geometry":{"type":"Point","coordinates":[' + coordText(lon[i]!) + ',' + coordText(lat[i]!) + (alt === alt ? ',' + coordText(alt) : '') + ']},"properties":',
+      pos,
+      'latin1',
+    );
+    const ps = spans.propertiesStart[k]!;
+    const pe = spans.propertiesEnd[k]!;
+    if (pe - ps <= 2) out[pos++] = 123; // {
+    else {
+      pos += copyBytes(b, out, pos, ps, pe - 1);
+      out[pos++] = 44;
+    }
+    pos += out.write(`"hotspot_id":${label >= 0 ? label + 1 : 'null'},"role":"${ROLE_NAMES[roles[i]!]}"${x}}}`, pos, 'utf8');
+  }
+  out[pos++] = 93; // ]
+  out[pos++] = 125; // }
+  yield out.subarray(0, pos);
+}
+
+function copyBytes(from: Uint8Array, to: Buffer, at: number, start: number, end: number): number {
+  to.set(from.subarray(start, end), at);
+  return end - start;
+}
+
 /** Index just past the JSON string starting (with its quote) at `i`. */
 function skipString(t: string, i: number): number {
   for (let q = t.indexOf('"', i + 1); q !== -1; q = t.indexOf('"', q + 1)) {
@@ -448,6 +533,13 @@ function clarkEvansWarnings(whole: ResultFigures): ClusteringWarning[] {
         'Repeated positions often come from geocoding to a building or a grid, or from repeated visits to one place.',
     },
   ];
+}
+
+/** The text of a FeatureCollection up to its first feature (what featureCollectionChunks writes first). */
+function collectionHeadText(bbox: ArrayLike<number> | null): string {
+  let text = '';
+  for (const c of featureCollectionChunks([], bbox)) text += c;
+  return text.slice(0, -2); // without the closing ]}
 }
 
 /** Canonical feature texts by input position (see pointFeatureFromText). */
@@ -596,8 +688,14 @@ export function clusterObservations(
         centresBbox,
       ),
     ]),
-    noise: new Layer(() => featureCollectionChunks(pointFeatures(true), noiseBbox)),
-    points: new Layer(() => featureCollectionChunks(pointFeatures(false), pointsBbox)),
+    noise: new Layer(
+      () => featureCollectionChunks(pointFeatures(true), noiseBbox),
+      spans === undefined ? undefined : () => pointLayerBytes(collectionHeadText(noiseBbox), spans, { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles }, extra, true),
+    ),
+    points: new Layer(
+      () => featureCollectionChunks(pointFeatures(false), pointsBbox),
+      spans === undefined ? undefined : () => pointLayerBytes(collectionHeadText(pointsBbox), spans, { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles }, extra, false),
+    ),
   };
   timer.stop();
 
