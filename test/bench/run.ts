@@ -128,7 +128,7 @@ const lines = [
   '| ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- |',
   ...rows,
   '',
-  `Figures stage (hotspot hulls and areas, per-hotspot figures, study-area hull, Clark–Evans nearest neighbours), same sets and clustering, compiled code (\`npm run build\` first). "threads 2" runs the nearest-neighbour pass in a worker thread beside the hulls. Processes alternate 1, 2, 1, 2; load average (1 min) at the start of each process in the notes. Every run's output digest is the same on 1 and 2 threads (the table is not written otherwise).`,
+  `Figures stage (hotspot hulls and areas, per-hotspot figures, study-area hull, Clark–Evans nearest neighbours), same sets and clustering, compiled code (\`npm run build\` first). "threads 2" runs the nearest-neighbour pass in a worker thread beside the hulls from 200,000 points on; at 100,000 both rows run on one thread, so their difference is the noise of the machine. "cpu" counts every thread of the process, the worker's start included. Processes alternate 1, 2, 1, 2; load average (1 min) at the start of each process in the notes. Every run's output digest is the same on 1 and 2 threads (the table is not written otherwise).`,
   '',
   '| points | threads | wall | cpu (all threads) | ratio | notes |',
   '| ---: | ---: | ---: | ---: | ---: | --- |',
