@@ -18,6 +18,7 @@ import { StoreError, type Run, type Store } from '../../storage/store.js';
 import type { Runner } from '../../jobs/runner.js';
 import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem } from '../errors.js';
+import { LayerBytesCache } from '../layer-bytes-cache.js';
 import { requireDataset, requireRun, runJson, settingsProblem } from './common.js';
 
 export interface RunRouteOptions {
@@ -78,7 +79,10 @@ async function sendLayerPage(store: Store, request: FastifyRequest, reply: Fasti
   return sendTagged(request, reply, 'application/geo+json', text, run.finishedAt);
 }
 
-/** A whole layer, streamed piece by piece as stored: a large layer never becomes one string here. */
+/** Whole layers recently sent, per store (src/http/layer-bytes-cache.ts). */
+const layerBytes = new WeakMap<Store, LayerBytesCache>();
+
+/** A whole layer, streamed piece by piece as stored (or as kept in memory): a large layer never becomes one string here. */
 async function sendWholeLayer(store: Store, streams: LayerStreams, request: FastifyRequest, reply: FastifyReply, run: Run, layer: LayerName) {
   // a stored layer never changes: the run and layer name it
   if (notModified(request, reply, `"${run.id}.${layer}"`, run.finishedAt)) return reply.code(304).send();
@@ -86,7 +90,9 @@ async function sendWholeLayer(store: Store, streams: LayerStreams, request: Fast
   reply.raw.once('close', free);
   try {
     // the stored bytes as they are: no string is decoded here only to be encoded again for the socket
-    const pieces = await store.getRunLayerBytes(run.id, layer);
+    let cache = layerBytes.get(store);
+    if (cache === undefined) layerBytes.set(store, (cache = new LayerBytesCache()));
+    const pieces = await cache.pieces(store, run, layer);
     if (pieces === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
     return await reply.type('application/geo+json').send(Readable.from(pieces, { objectMode: false }));
   } catch (err) {

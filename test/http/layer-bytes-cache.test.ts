@@ -1,0 +1,117 @@
+/**
+ * Whole result layers kept in memory as their bytes (src/http/layer-bytes-cache.ts): read from the
+ * store once and then served from memory byte for byte, kept only once read whole, never when
+ * larger than the bound per layer, and the least recently sent let go past the bound overall.
+ */
+import { afterEach, beforeEach, describe, expect, it } from 'vitest';
+import { buildApp } from '../../src/http/app.js';
+import { LayerBytesCache } from '../../src/http/layer-bytes-cache.js';
+import type { Run, Store } from '../../src/storage/store.js';
+import { openSqliteStore, type SqliteStore } from '../../src/storage/sqlite.js';
+import { testConfig } from './helper.js';
+
+/** The store with its layer reads counted. */
+function counted(real: SqliteStore): { store: Store; reads: () => number } {
+  let reads = 0;
+  const store = new Proxy(real, {
+    get(target, key, receiver) {
+      if (key === 'getRunLayerBytes') {
+        return (...args: Parameters<typeof real.getRunLayerBytes>) => {
+          reads++;
+          return target.getRunLayerBytes(...args);
+        };
+      }
+      const v = Reflect.get(target, key, receiver) as unknown;
+      return typeof v === 'function' ? (v as (...a: unknown[]) => unknown).bind(target) : v;
+    },
+  });
+  return { store, reads: () => reads };
+}
+
+async function collect(pieces: AsyncIterable<Buffer> | Buffer[] | null): Promise<Buffer> {
+  const out: Buffer[] = [];
+  for await (const p of pieces!) out.push(p);
+  return Buffer.concat(out);
+}
+
+describe('whole layers kept in memory', () => {
+  let real: SqliteStore;
+  let runs: Run[];
+  const text = (i: number): string => `{"type":"FeatureCollection","features":[${Array.from({ length: 200 }, (_, k) => `{"type":"Feature","id":"é${i}-${k}","geometry":null,"properties":{"n":${k}}}`).join(',')}]}`;
+
+  beforeEach(async () => {
+    real = openSqliteStore({ path: ':memory:' });
+    await real.migrate();
+    await real.createDataset({ id: 'c', name: 'c', settings: { eps: 50 }, idProperty: null, window: null, schedule: null, webhook: null });
+    runs = [];
+    for (let i = 0; i < 3; i++) {
+      await real.createRun({ datasetId: 'c', settings: { eps: 50 }, trigger: 'request' });
+      const run = (await real.claimNextRun('w'))!;
+      const t = text(i);
+      // in pieces, so that a layer is more than one read
+      await real.saveRunResult(run.id, { layers: { points: [t.slice(0, 5000), t.slice(5000, 9000), t.slice(9000)], hotspots: t, centres: t, noise: t }, hotspots: [] });
+      await real.updateRun(run.id, { status: 'succeeded', progress: 100 });
+      runs.push((await real.getRun('c', run.id))!);
+    }
+  });
+  afterEach(async () => {
+    await real.close();
+  });
+
+  it('reads a layer from the store once, then gives the same bytes from memory', async () => {
+    const { store, reads } = counted(real);
+    const cache = new LayerBytesCache();
+    const first = await collect(await cache.pieces(store, runs[0]!, 'points'));
+    expect(first.equals(Buffer.from(text(0)))).toBe(true);
+    expect(reads()).toBe(1);
+    const again = await collect(await cache.pieces(store, runs[0]!, 'points'));
+    expect(again.equals(first)).toBe(true);
+    expect(reads()).toBe(1);
+    expect(cache.bytes).toBe(first.length);
+    // another layer of the same run is its own entry
+    await collect(await cache.pieces(store, runs[0]!, 'noise'));
+    expect(reads()).toBe(2);
+  });
+
+  it('keeps a layer only once read whole, never one over the bound per layer, and lets the least recently sent go past the bound', async () => {
+    const { store, reads } = counted(real);
+    const size = Buffer.byteLength(text(0));
+    const cache = new LayerBytesCache(2 * size + 10, size);
+    // a client gone after the first piece: nothing kept
+    for await (const p of (await cache.pieces(store, runs[0]!, 'points'))!) {
+      expect(p.length).toBeGreaterThan(0);
+      break;
+    }
+    expect(cache.bytes).toBe(0);
+    for (const r of runs) await collect(await cache.pieces(store, r, 'points'));
+    expect(reads()).toBe(4);
+    // three layers over a bound of two: the first is let go, the last two are kept
+    expect(cache.bytes).toBe(Buffer.byteLength(text(1)) + Buffer.byteLength(text(2)));
+    await collect(await cache.pieces(store, runs[2]!, 'points'));
+    expect(reads()).toBe(4);
+    await collect(await cache.pieces(store, runs[0]!, 'points'));
+    expect(reads()).toBe(5);
+    const small = new LayerBytesCache(10 * size, size - 1);
+    await collect(await small.pieces(store, runs[1]!, 'points'));
+    expect(small.bytes).toBe(0);
+  });
+
+  it('serves a whole layer GET from memory the second time, the same bytes and headers', async () => {
+    const { store, reads } = counted(real);
+    const app = await buildApp({ config: testConfig(), logger: false, store });
+    await app.ready();
+    try {
+      const url = `/v1/datasets/c/runs/${runs[1]!.id}/points`;
+      const first = await app.inject({ method: 'GET', url });
+      const second = await app.inject({ method: 'GET', url });
+      expect(first.statusCode).toBe(200);
+      expect(second.statusCode).toBe(200);
+      expect(first.rawPayload.equals(Buffer.from(text(1)))).toBe(true);
+      expect(second.rawPayload.equals(first.rawPayload)).toBe(true);
+      for (const h of ['content-type', 'etag', 'last-modified', 'x-roost-run', 'vary']) expect(second.headers[h]).toBe(first.headers[h]);
+      expect(reads()).toBe(1);
+    } finally {
+      await app.close();
+    }
+  });
+});
