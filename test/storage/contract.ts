@@ -669,6 +669,47 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(kept).toEqual(given);
       });
 
+      it('store layers given piece by piece on demand, as text or UTF-8 bytes, and nothing of a result whose pieces go wrong', async () => {
+        const run = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const utf8 = (s: string): Uint8Array => new Uint8Array(Buffer.from(s, 'utf8'));
+        // bytes of whole characters: two-, three- and four-byte ones, and a piece of several MiB
+        const given = ['{"type":"FeatureCollection","features":[', '{"a":"é€😀"}', `,{"b":"${'ü'.repeat(3 << 20)}"}`, ']}'];
+        let made = 0;
+        function* onDemand(asBytes: boolean): Generator<string | Uint8Array> {
+          for (const p of given) {
+            made++;
+            yield asBytes ? utf8(p) : p;
+          }
+        }
+        const empty = (function* (): Generator<string> {})();
+        await store.saveRunResult(run.id, { layers: { hotspots: onDemand(true), centres: onDemand(false), noise: empty, points: [utf8('{"p":1}')][Symbol.iterator]() }, hotspots: [] });
+        expect(made).toBe(2 * given.length);
+        const kept: string[] = [];
+        for await (const p of (await store.getRunLayerPieces(run.id, 'hotspots'))!) kept.push(p);
+        expect(kept.length).toBe(given.length);
+        expect(kept.join('') === given.join('')).toBe(true);
+        expect((await store.getRunLayer(run.id, 'centres')) === given.join('')).toBe(true);
+        expect(await store.getRunLayer(run.id, 'noise')).toBe('');
+        expect(await store.getRunLayer(run.id, 'points')).toBe('{"p":1}');
+        // a piece of another kind half-way: the save fails and the result saved before stays whole
+        function* broken(): Generator<unknown> {
+          yield '{"type":"FeatureCollection","features":[';
+          yield 7;
+        }
+        const hull = '{"type":"Polygon","coordinates":[[[0,0],[1,0],[0,1],[0,0]]]}';
+        await rejects(
+          store.saveRunResult(run.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: broken() as Iterable<string> }, hotspots: [{ hotspotId: 1, trackId: 't1', members: ['a'], coreMembers: ['a'], hull }] }),
+          'invalid',
+        );
+        expect((await store.getRunLayer(run.id, 'hotspots')) === given.join('')).toBe(true);
+        expect(await store.getRunLayer(run.id, 'points')).toBe('{"p":1}');
+        expect(await store.getRunHotspots(run.id)).toEqual([]);
+        await rejects(store.saveRunResult(run.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: utf8('{}') as unknown as string }, hotspots: [] }), 'invalid');
+        // the store is still usable after a save that failed half-way
+        await store.saveRunResult(run.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: '{"q":2}' }, hotspots: [] });
+        expect(await store.getRunLayer(run.id, 'points')).toBe('{"q":2}');
+      });
+
       it('each queued run is claimed by exactly one of many concurrent claimers on two stores', async () => {
         const other = await open();
         const ids = new Set<string>();
