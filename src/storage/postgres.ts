@@ -524,6 +524,10 @@ export class PostgresStore implements Store {
           ],
         );
       }
+      // The run's row is locked from the claim check on, so a heartbeat waits for this transaction;
+      // the time it took is added to the lease (now() is the transaction's start), so the claim
+      // comes out of the save with the time it had going in, as on SQLite.
+      if (ifWorker !== undefined) await c.query("UPDATE runs SET lease_until = lease_until + (clock_timestamp() - now()) WHERE seq = $1 AND worker_id = $2", [seq, ifWorker]);
     });
   }
 

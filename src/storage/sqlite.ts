@@ -555,6 +555,7 @@ export class SqliteStore implements Store {
   async saveRunResult(runId: string, result: RunResult, ifWorker?: string): Promise<void> {
     const sources = LAYER_NAMES.map((name) => [name, layerSource(name, result.layers?.[name])] as const);
     const tx = this.db.transaction(() => {
+      const began = Date.now();
       const seq = this.requireRunSeq(runId);
       if (ifWorker !== undefined) this.requireClaim(runId, seq, ['running'], ifWorker);
       this.db.prepare('DELETE FROM run_layer_parts WHERE run_seq = ?').run(seq);
@@ -573,6 +574,10 @@ export class SqliteStore implements Store {
       for (const h of result.hotspots) {
         hs.run(seq, h.hotspotId, h.trackId, JSON.stringify(h.members), JSON.stringify(h.coreMembers), h.members.length, h.hull, json(h.figures ?? null));
       }
+      // While this transaction holds the write lock no heartbeat can renew the claim, and a large
+      // result (layers made as they are stored) may take longer than a lease: the time held is
+      // added to the lease, so the claim comes out of the save with the time it had going in.
+      if (ifWorker !== undefined) this.db.prepare('UPDATE runs SET lease_until_ms = lease_until_ms + ? WHERE seq = ? AND worker_id = ?').run(Date.now() - began, seq, ifWorker);
     });
     tx.immediate();
   }

@@ -751,6 +751,30 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         throw new Error('no lease ran out');
       };
 
+      it('keep the lease a claim had going into a save that took longer than the lease', async () => {
+        const other = await open();
+        const run = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const held = (await store.claimNextRun('w1:1', 1000))!;
+        expect(held.id).toBe(run.id);
+        let spent = 0;
+        // a layer made while it is stored, slower than the whole lease (a busy wait: the save is one
+        // transaction, during which no heartbeat could renew the lease)
+        function* slow(): Generator<string> {
+          const t0 = Date.now();
+          while (Date.now() - t0 < 1200);
+          spent = Date.now() - t0;
+          yield '{"slow":true}';
+        }
+        await store.saveRunResult(run.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: slow() }, hotspots: [] }, 'w1:1');
+        const after = (await store.getRun('herons', run.id))!;
+        expect(spent).toBeGreaterThanOrEqual(1200);
+        expect(Date.parse(after.leaseUntil!) - Date.parse(held.leaseUntil!)).toBeGreaterThanOrEqual(spent);
+        // the lease has not run out: no other store takes the run over, and its claimer finishes it
+        expect(await other.reclaimExpiredRuns(3)).toEqual({ requeued: [], failed: [] });
+        expect(await store.updateRun(run.id, { status: 'succeeded', progress: 100 }, ['running'], 'w1:1')).toMatchObject({ status: 'succeeded' });
+        expect(await store.getRunLayer(run.id, 'points')).toBe('{"slow":true}');
+      });
+
       it('hold a lease: renewed only by their claim, taken over by any store once it runs out, failed after too many interruptions', async () => {
         const other = await open();
         const a = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
