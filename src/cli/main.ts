@@ -313,7 +313,7 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
         const report = opts.report ? await reportFile(result, input) : [];
         // summary.json is written last so that its write stage includes the other files.
         await writeResultFolder(String(opts.outDir), [
-          ...LAYER_NAMES.map((name) => [`${name}.geojson`, result.layers[name].chunks()] as [string, Iterable<string>]),
+          ...LAYER_NAMES.map((name) => [`${name}.geojson`, result.layers[name].byteChunks()] as [string, Iterable<Uint8Array>]),
           ...report,
           [
             'summary.json',

@@ -6,11 +6,14 @@ import { closeSync, openSync, writeSync } from 'node:fs';
 import { mkdir, rename, rm } from 'node:fs/promises';
 import { basename, dirname, join, resolve } from 'node:path';
 
-/** Writes text chunks to a new file, one write per chunk, so no whole-file string is ever built. */
-function writeChunks(path: string, chunks: Iterable<string>): void {
+/** Writes chunks (text, or bytes as they are) to a new file, one write per chunk, so no whole-file string is ever built. */
+function writeChunks(path: string, chunks: Iterable<string | Uint8Array>): void {
   const fd = openSync(path, 'wx');
   try {
-    for (const chunk of chunks) writeSync(fd, chunk);
+    for (const chunk of chunks) {
+      if (typeof chunk === 'string') writeSync(fd, chunk);
+      else for (let at = 0; at < chunk.length; ) at += writeSync(fd, chunk, at, chunk.length - at);
+    }
   } finally {
     closeSync(fd);
   }
@@ -21,7 +24,7 @@ function writeChunks(path: string, chunks: Iterable<string>): void {
  * `outDir`, replacing an earlier result there.
  * @param outDir target folder; its parent is created when missing
  */
-export async function writeResultFolder(outDir: string, files: [string, Iterable<string> | (() => string)][]): Promise<void> {
+export async function writeResultFolder(outDir: string, files: [string, Iterable<string | Uint8Array> | (() => string)][]): Promise<void> {
   const target = resolve(outDir);
   const parent = dirname(target);
   await mkdir(parent, { recursive: true });

@@ -115,11 +115,14 @@ export class ChordTree {
     const t = ids[i];
     ids[i] = ids[j];
     ids[j] = t;
-    for (let o = 0; o < 3; o++) {
-      const v = c[3 * i + o];
-      c[3 * i + o] = c[3 * j + o];
-      c[3 * j + o] = v;
-    }
+    const a = 3 * i, b = 3 * j;
+    const x = c[a], y = c[a + 1], z = c[a + 2];
+    c[a] = c[b];
+    c[a + 1] = c[b + 1];
+    c[a + 2] = c[b + 2];
+    c[b] = x;
+    c[b + 1] = y;
+    c[b + 2] = z;
   }
 
   /**
@@ -141,6 +144,76 @@ export class ChordTree {
     for (let t = 0; t < this.n; t++) {
       this.query(c[3 * t], c[3 * t + 1], c[3 * t + 2], this.ids[t], k);
       out[this.ids[t]] = this.filled < k ? Infinity : this.best[k - 1];
+    }
+    return out;
+  }
+
+  /**
+   * Squared chord from every point to its nearest other point, in input order; the same values
+   * as `kthChord2All(1)` (exact duplicates give 0, a lone point Infinity). The search is the same
+   * branch-and-bound, written for k = 1 without recursion: the far side of a split goes on an
+   * explicit stack with its squared distance to the splitting plane and is skipped when popped
+   * if the best distance found by then is no larger. Each pop descends nearer side first, so the
+   * stack holds at most one entry per tree level.
+   */
+  nearestChord2All(): Float64Array {
+    const n = this.n;
+    const out = new Float64Array(n);
+    const c = this.coords;
+    const ids = this.ids;
+    const axis = this.axis;
+    const stackLeft = new Int32Array(64);
+    const stackRight = new Int32Array(64);
+    const stackPlane2 = new Float64Array(64);
+    for (let t = 0; t < n; t++) {
+      const qx = c[3 * t], qy = c[3 * t + 1], qz = c[3 * t + 2];
+      let best = Infinity;
+      let sp = 0;
+      stackLeft[0] = 0;
+      stackRight[0] = n - 1;
+      stackPlane2[0] = 0;
+      sp = 1;
+      while (sp > 0 && best !== 0) {
+        sp--;
+        if (stackPlane2[sp] >= best) continue;
+        let left = stackLeft[sp];
+        let right = stackRight[sp];
+        while (left <= right) {
+          if (right - left < LEAF_SIZE) {
+            for (let a = left; a <= right; a++) {
+              if (a === t) continue;
+              const dx = c[3 * a] - qx, dy = c[3 * a + 1] - qy, dz = c[3 * a + 2] - qz;
+              const d2 = dx * dx + dy * dy + dz * dz;
+              if (d2 < best) best = d2;
+            }
+            break;
+          }
+          const m = (left + right) >> 1;
+          if (m !== t) {
+            const dx = c[3 * m] - qx, dy = c[3 * m + 1] - qy, dz = c[3 * m + 2] - qz;
+            const d2 = dx * dx + dy * dy + dz * dz;
+            if (d2 < best) best = d2;
+          }
+          const a = axis[m];
+          const side = (a === 0 ? qx : a === 1 ? qy : qz) - c[3 * m + a];
+          if (side <= 0) {
+            if (m + 1 <= right) {
+              stackLeft[sp] = m + 1;
+              stackRight[sp] = right;
+              stackPlane2[sp++] = side * side;
+            }
+            right = m - 1;
+          } else {
+            if (left <= m - 1) {
+              stackLeft[sp] = left;
+              stackRight[sp] = m - 1;
+              stackPlane2[sp++] = side * side;
+            }
+            left = m + 1;
+          }
+        }
+      }
+      out[ids[t]] = best;
     }
     return out;
   }

@@ -88,18 +88,34 @@ export class HullSpreadError extends Error {
 
 /** Projects positions (degrees) into xs/ys; throws HullSpreadError if any lies too far from the centre. */
 function project(f: Frame, lon: ArrayLike<number>, lat: ArrayLike<number>, xs: Float64Array, ys: Float64Array): void {
-  for (let i = 0; i < lon.length; i++) {
+  const n = lon.length;
+  const u = new Float64Array(3 * n);
+  for (let i = 0; i < n; i++) {
     const la = lat[i] * RAD, lo = lon[i] * RAD;
     const c = Math.cos(la);
-    const px = c * Math.cos(lo), py = c * Math.sin(lo), pz = Math.sin(la);
-    const d = px * f.cx + py * f.cy + pz * f.cz;
+    u[3 * i] = c * Math.cos(lo);
+    u[3 * i + 1] = c * Math.sin(lo);
+    u[3 * i + 2] = Math.sin(la);
+  }
+  projectVectors(f, u, lon, lat, xs, ys);
+}
+
+/**
+ * Projects unit vectors (stride 3) of the positions lon/lat (degrees, for the error message) into
+ * xs/ys; throws HullSpreadError if any lies too far from the centre.
+ */
+function projectVectors(f: Frame, u: Float64Array, lon: ArrayLike<number>, lat: ArrayLike<number>, xs: Float64Array, ys: Float64Array): void {
+  const { cx, cy, cz, ex, ey, ez, nx, ny, nz } = f;
+  for (let i = 0, n = lon.length; i < n; i++) {
+    const px = u[3 * i], py = u[3 * i + 1], pz = u[3 * i + 2];
+    const d = px * cx + py * cy + pz * cz;
     if (!(d >= MIN_DOT)) {
       throw new HullSpreadError(
         `member ${i} at [${lon[i]}, ${lat[i]}] lies more than ${MAX_SPREAD_DEG}° from the centre; ` +
         'a hull needs its members within one hemisphere');
     }
-    xs[i] = (px * f.ex + py * f.ey + pz * f.ez) / d;
-    ys[i] = (px * f.nx + py * f.ny + pz * f.nz) / d;
+    xs[i] = (px * ex + py * ey + pz * ez) / d;
+    ys[i] = (px * nx + py * ny + pz * nz) / d;
   }
 }
 
@@ -133,20 +149,33 @@ export function convexHullIndices(xs: Float64Array, ys: Float64Array): Int32Arra
     if (last === undefined || xs[last] !== xs[i] || ys[last] !== ys[i]) oct.push(i);
   }
   while (oct.length > 1 && xs[oct[0]] === xs[oct[oct.length - 1]] && ys[oct[0]] === ys[oct[oct.length - 1]]) oct.pop();
-  let keep: number[] = [];
+  const all = new Int32Array(n);
+  let m = 0;
   if (oct.length >= 3) {
+    // the octagon's edges o→a, so that cross(o, a, i) below is the same product as `cross`
+    const e = oct.length;
+    const ox = new Float64Array(e), oy = new Float64Array(e), ex = new Float64Array(e), ey = new Float64Array(e);
+    for (let k = 0; k < e; k++) {
+      const o = oct[k], a = oct[(k + 1) % e];
+      ox[k] = xs[o];
+      oy[k] = ys[o];
+      ex[k] = xs[a] - xs[o];
+      ey[k] = ys[a] - ys[o];
+    }
     for (let i = 0; i < n; i++) {
-      let inside = true;
-      for (let k = 0; k < oct.length; k++) {
-        if (cross(xs, ys, oct[k], oct[(k + 1) % oct.length], i) <= 0) { inside = false; break; }
+      const x = xs[i], y = ys[i];
+      for (let k = 0; k < e; k++) {
+        if (ex[k] * (y - oy[k]) - ey[k] * (x - ox[k]) <= 0) {
+          all[m++] = i;
+          break;
+        }
       }
-      if (!inside) keep.push(i);
     }
   } else {
-    keep = Array.from({ length: n }, (_, i) => i);
+    for (let i = 0; i < n; i++) all[i] = i;
+    m = n;
   }
-  keep.sort((a, b) => xs[a] - xs[b] || ys[a] - ys[b] || a - b);
-  const m = keep.length;
+  const keep = all.subarray(0, m).sort((a, b) => xs[a] - xs[b] || ys[a] - ys[b] || a - b);
   const h = new Int32Array(2 * m + 1);
   let k = 0;
   for (let t = 0; t < m; t++) {
@@ -256,19 +285,23 @@ export function hullVertices(lon: ArrayLike<number>, lat: ArrayLike<number>, opt
   const n = lon.length;
   if (n === 0 || lat.length !== n) throw new Error(`hotspotHull: need the same, non-zero number of longitudes and latitudes (got ${n} and ${lat.length})`);
   let sx = 0, sy = 0, sz = 0;
+  // unit vectors kept for the projection, so each position's trigonometry runs once
+  const u = new Float64Array(3 * n);
   for (let i = 0; i < n; i++) {
     if (!Number.isFinite(lon[i]) || !(Math.abs(lat[i]) <= 90)) {
       throw new Error(`hotspotHull: member ${i} has an invalid position [${lon[i]}, ${lat[i]}]; longitude must be finite, latitude within [-90, 90]`);
     }
     const la = lat[i] * RAD, lo = lon[i] * RAD;
     const c = Math.cos(la);
-    sx += c * Math.cos(lo); sy += c * Math.sin(lo); sz += Math.sin(la);
+    const px = c * Math.cos(lo), py = c * Math.sin(lo), pz = Math.sin(la);
+    u[3 * i] = px; u[3 * i + 1] = py; u[3 * i + 2] = pz;
+    sx += px; sy += py; sz += pz;
   }
   const len = Math.hypot(sx, sy, sz);
   if (!(len > 1e-9 * n)) throw new HullSpreadError('the members are spread evenly round the globe; they have no mean position');
   const frame = frameAt(sx / len, sy / len, sz / len);
   const xs = new Float64Array(n), ys = new Float64Array(n);
-  project(frame, lon, lat, xs, ys);
+  projectVectors(frame, u, lon, lat, xs, ys);
   const hull = convexHullIndices(xs, ys);
   const shape = hullShape(xs, ys, hull);
   const widthM = shape.extent > 0 ? (shape.area2 / shape.extent) * EARTH_RADIUS_M : 0;

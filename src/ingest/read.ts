@@ -3,10 +3,11 @@
  * listing what is wrong (index, id, code, message) — never part of the input.
  */
 import type { Observations } from './types.js';
-import { DEFAULT_MAX_PROBLEMS, fail, timeRule } from './checks.js';
+import { DEFAULT_MAX_PROBLEMS, fail, timeRule, type TimeRule } from './checks.js';
 import { readGeoJson } from './geojson.js';
 import { readCsv } from './csv.js';
 import { readGeoJsonSeq } from './seq.js';
+import { readGeoJsonBytes } from './geojson-bytes.js';
 
 export type InputFormat = 'geojson' | 'csv' | 'geojson-seq';
 
@@ -80,6 +81,14 @@ export function detectFormat(input: string | Buffer): InputFormat {
   }
 }
 
+function timeRuleOrNull(column: string | null | undefined, format: string | null | undefined): TimeRule | null {
+  try {
+    return timeRule(column, format);
+  } catch {
+    return null;
+  }
+}
+
 /**
  * Reads observations from GeoJSON (FeatureCollection or Feature), CSV with a header row, or a
  * GeoJSON text sequence / newline-delimited GeoJSON. Bytes are decoded as UTF-8 and a leading
@@ -100,6 +109,17 @@ export function readObservations(input: string | Buffer, options: ReadOptions = 
   }
   const weightProperty = options.weightProperty ?? null;
   if (weightProperty === '') throw new RangeError('weightProperty must name a property (or be null for weight 1 each)');
+
+  // GeoJSON FeatureCollections of the usual shape are read from the bytes without parsing them
+  // into objects (src/ingest/geojson-bytes.ts); anything else goes on to the parsing readers below.
+  // Text that is not well-formed UTF-16 is left to them; bytes that are not UTF-8 are found by the byte reader.
+  if (!options.storable && (options.format ?? detectFormat(input)) === 'geojson') {
+    const bytes = typeof input === 'string' ? ((input as unknown as { isWellFormed(): boolean }).isWellFormed() ? Buffer.from(input, 'utf8') : null) : input;
+    // a time format that cannot be used is reported below, after the checks that come first
+    const time = bytes === null ? null : timeRuleOrNull(options.timeColumn, options.timeFormat);
+    const fast = bytes === null || time === null ? null : readGeoJsonBytes(bytes, { weightProperty, time, maxFeatures });
+    if (fast !== null) return fast;
+  }
 
   let text = typeof input === 'string' ? input : input.toString('utf8');
   if (text.charCodeAt(0) === 0xfeff) text = text.slice(1);

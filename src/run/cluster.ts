@@ -27,6 +27,7 @@ import { roundDecimals, roundMeters, roundSignificant } from '../geometry/roundi
 import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
+import { parseSpan, type FeatureSpans, type SpannedObservations } from '../ingest/geojson-bytes.js';
 import { CAUTIONS } from './cautions.js';
 import { SettingsError, settingsRecord, type ClusterSettings } from './settings.js';
 import { ROOST_VERSION } from './version.js';
@@ -45,10 +46,26 @@ export type Stage = (typeof STAGES)[number];
  * without the garbage collector tracing a million kept feature strings).
  */
 export class Layer {
-  constructor(private readonly produce: () => Iterable<string>) {}
+  /**
+   * @param produce the text in chunks
+   * @param produceBytes the same text as UTF-8 bytes in chunks, where the layer can write bytes
+   *   without building strings (points and noise read by the byte reader); absent: chunks encoded
+   */
+  constructor(
+    private readonly produce: () => Iterable<string>,
+    private readonly produceBytes?: () => Iterable<Uint8Array>,
+  ) {}
   /** The text in chunks; every call starts again from the beginning. */
   chunks(): Iterable<string> {
     return this.produce();
+  }
+  /** The text as UTF-8 bytes in chunks (the bytes of chunks(), for files and sockets); every call starts again. */
+  byteChunks(): Iterable<Uint8Array> {
+    if (this.produceBytes !== undefined) return this.produceBytes();
+    const produce = this.produce;
+    return (function* () {
+      for (const c of produce()) yield Buffer.from(c, 'utf8');
+    })();
   }
   /** The whole text. */
   text(): string {
@@ -279,6 +296,120 @@ export function pointFeature(f: InputFeature, hotspot: number, role: number, ext
   return featureStringWithProperties({ type: 'Point', coordinates: f.geometry.coordinates }, props, id);
 }
 
+const utf8Slice = Buffer.prototype.utf8Slice as (this: Uint8Array, start: number, end: number) => string;
+const latin1Slice = Buffer.prototype.latin1Slice as (this: Uint8Array, start: number, end: number) => string;
+
+/**
+ * pointFeature for input feature `i` read by the byte reader, byte for byte the same: the id and
+ * the properties are copied from the input where their text is already what JSON.stringify
+ * writes (spans.verbatim), the feature is parsed from its span otherwise.
+ */
+export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: number, lat: number, hotspot: number, role: number, extra = ''): string {
+  if (spans.verbatim[i] !== 1) return pointFeature(parseSpan(spans, i), hotspot, role, extra);
+  const b = spans.bytes;
+  const is = spans.idStart[i]!;
+  const ie = spans.idEnd[i]!;
+  // a string id is copied; a number is written as JSON.stringify writes its value (1.0 → 1)
+  const id = ie === 0 ? '' : b[is] === 34 ? ',"id":' + utf8Slice.call(b, is, ie) : ',"id":' + JSON.stringify(Number(latin1Slice.call(b, is, ie)));
+  const alt = spans.altitude === null ? NaN : spans.altitude[i]!;
+  const position = alt === alt ? coordText(lon) + ',' + coordText(lat) + ',' + coordText(alt) : coordText(lon) + ',' + coordText(lat);
+  const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"${extra}}`;
+  const ps = spans.propertiesStart[i]!;
+  const pe = spans.propertiesEnd[i]!;
+  const properties = pe - ps <= 2 ? '{' + added : utf8Slice.call(b, ps, pe - 1) + ',' + added;
+  return '{"type":"Feature"' + id + ',"geometry":{"type":"Point","coordinates":[' + position + ']},"properties":' + properties + '}';
+}
+
+/** Bytes of a point layer (see pointFeatureFromSpans) in chunks of about 1 MiB, written without per-feature strings. */
+function* pointLayerBytes(
+  head: string,
+  spans: FeatureSpans,
+  rows: { n: number; lon: Float64Array; lat: Float64Array; kept: Int32Array; labels: Int32Array; roles: Uint8Array },
+  extra: (i: number) => string,
+  noiseOnly: boolean,
+): Generator<Uint8Array> {
+  const CHUNK = 1 << 20;
+  const b = spans.bytes;
+  const { n, lon, lat, kept, labels, roles } = rows;
+  let out = Buffer.allocUnsafe(Math.max(CHUNK, Buffer.byteLength(head) + 2));
+  let pos = out.write(head, 0, 'utf8');
+  let first = true;
+  for (let i = 0; i < n; i++) {
+    const label = labels[i]!;
+    if (noiseOnly && label >= 0) continue;
+    const k = kept[i]!;
+    const x = extra(i);
+    let text: string | null = null;
+    let need: number;
+    if (spans.verbatim[k] !== 1) {
+      text = pointFeature(parseSpan(spans, k), label, roles[i]!, x);
+      need = Buffer.byteLength(text, 'utf8') + 1;
+    } else need = 256 + spans.idEnd[k]! - spans.idStart[k]! + spans.propertiesEnd[k]! - spans.propertiesStart[k]! + x.length;
+    if (pos + need + 2 > out.length) {
+      yield out.subarray(0, pos);
+      out = Buffer.allocUnsafe(Math.max(CHUNK, need + 2));
+      pos = 0;
+    }
+    if (!first) out[pos++] = 44; // ,
+    first = false;
+    if (text !== null) {
+      pos += out.write(text, pos, 'utf8');
+      continue;
+    }
+    const is = spans.idStart[k]!;
+    const ie = spans.idEnd[k]!;
+    pos += ascii(out, pos, '{"type":"Feature"');
+    if (ie !== 0) {
+      pos += ascii(out, pos, ',"id":');
+      if (b[is] === 34) pos += copyBytes(b, out, pos, is, ie);
+      else pos += ascii(out, pos, JSON.stringify(Number(latin1Slice.call(b, is, ie))));
+    }
+    const alt = spans.altitude === null ? NaN : spans.altitude[k]!;
+    pos += ascii(out, pos, ',"geometry":{"type":"Point","coordinates":[');
+    pos += ascii(out, pos, coordText(lon[i]!));
+    out[pos++] = 44;
+    pos += ascii(out, pos, coordText(lat[i]!));
+    if (alt === alt) {
+      out[pos++] = 44;
+      pos += ascii(out, pos, coordText(alt));
+    }
+    pos += ascii(out, pos, ']},"properties":');
+    const ps = spans.propertiesStart[k]!;
+    const pe = spans.propertiesEnd[k]!;
+    if (pe - ps <= 2) out[pos++] = 123; // {
+    else {
+      pos += copyBytes(b, out, pos, ps, pe - 1);
+      out[pos++] = 44;
+    }
+    pos += ascii(out, pos, '"hotspot_id":');
+    pos += ascii(out, pos, label >= 0 ? String(label + 1) : 'null');
+    pos += ascii(out, pos, ROLE_TEXT[roles[i]!]!);
+    if (x !== '') pos += out.write(x, pos, 'utf8');
+    out[pos++] = 125;
+    out[pos++] = 125;
+  }
+  out[pos++] = 93; // ]
+  out[pos++] = 125; // }
+  yield out.subarray(0, pos);
+}
+
+/** `,"role":"core"` and so on, by role. */
+const ROLE_TEXT = ROLE_NAMES.map((r) => `,"role":"${r}"`);
+
+/** Copies bytes [start, end) of `from` to `to` at `at`; short runs byte by byte, which beats a native call. */
+function copyBytes(from: Uint8Array, to: Buffer, at: number, start: number, end: number): number {
+  const n = end - start;
+  if (n > 64) to.set(from.subarray(start, end), at);
+  else for (let k = 0; k < n; k++) to[at + k] = from[start + k]!;
+  return n;
+}
+
+/** Writes a text known to be ASCII at `at`; returns its length. */
+function ascii(to: Buffer, at: number, s: string): number {
+  for (let k = 0; k < s.length; k++) to[at + k] = s.charCodeAt(k);
+  return s.length;
+}
+
 /** Index just past the JSON string starting (with its quote) at `i`. */
 function skipString(t: string, i: number): number {
   for (let q = t.indexOf('"', i + 1); q !== -1; q = t.indexOf('"', q + 1)) {
@@ -425,6 +556,13 @@ function clarkEvansWarnings(whole: ResultFigures): ClusteringWarning[] {
   ];
 }
 
+/** The text of a FeatureCollection up to its first feature (what featureCollectionChunks writes first). */
+function collectionHeadText(bbox: ArrayLike<number> | null): string {
+  let text = '';
+  for (const c of featureCollectionChunks([], bbox)) text += c;
+  return text.slice(0, -2); // without the closing ]}
+}
+
 /** Canonical feature texts by input position (see pointFeatureFromText). */
 export interface FeatureTextSource {
   at(index: number): string | undefined;
@@ -542,10 +680,12 @@ export function clusterObservations(
   const { labels, roles } = clustering;
   const kept = filtered.kept;
   const extra = ordering === null ? () => '' : opticsMembers(ordering);
+  const spans = (all as Partial<SpannedObservations>).spans;
   function* pointFeatures(noiseOnly: boolean): Generator<string> {
     for (let i = 0; i < points.n; i++) {
       if (noiseOnly && labels[i] >= 0) continue;
-      yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i], extra(i)) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i], extra(i));
+      if (spans !== undefined) yield pointFeatureFromSpans(spans, kept[i]!, points.lon[i]!, points.lat[i]!, labels[i], roles[i], extra(i));
+      else yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i], extra(i)) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i], extra(i));
     }
   }
   const hotspotsBbox = bboxOf(hulls);
@@ -569,8 +709,14 @@ export function clusterObservations(
         centresBbox,
       ),
     ]),
-    noise: new Layer(() => featureCollectionChunks(pointFeatures(true), noiseBbox)),
-    points: new Layer(() => featureCollectionChunks(pointFeatures(false), pointsBbox)),
+    noise: new Layer(
+      () => featureCollectionChunks(pointFeatures(true), noiseBbox),
+      spans === undefined ? undefined : () => pointLayerBytes(collectionHeadText(noiseBbox), spans, { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles }, extra, true),
+    ),
+    points: new Layer(
+      () => featureCollectionChunks(pointFeatures(false), pointsBbox),
+      spans === undefined ? undefined : () => pointLayerBytes(collectionHeadText(pointsBbox), spans, { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles }, extra, false),
+    ),
   };
   timer.stop();
 

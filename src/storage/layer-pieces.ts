@@ -1,12 +1,9 @@
 /** Result layers cut into pieces of about a MiB for storing, and read back piece by piece. */
-import type { RunResult } from './store.js';
-import { StoreError } from './store.js';
-import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 
 /** Characters per stored piece of a result layer: about 1 MiB of ASCII text. */
 export const LAYER_PIECE_CHARS = 1 << 20;
 /** Stored pieces read per query when a layer is served: a few MiB in memory at a time. */
-const LAYER_PIECES_PER_READ = 8;
+export const LAYER_PIECES_PER_READ = 8;
 
 /** Cuts a text into pieces of at most `size` characters, never between the two halves of a surrogate pair. */
 export function cutText(text: string, size = LAYER_PIECE_CHARS): string[] {
@@ -21,38 +18,32 @@ export function cutText(text: string, size = LAYER_PIECE_CHARS): string[] {
   return out.length > 0 ? out : [''];
 }
 
-/** A result's layers as the pieces to store. @throws StoreError 'invalid' when a layer is not text */
-export function layerPieces(result: RunResult): Record<LayerName, string[]> {
-  const out = {} as Record<LayerName, string[]>;
-  for (const layer of LAYER_NAMES) {
-    const v = result.layers?.[layer] as unknown;
-    if (typeof v === 'string') out[layer] = cutText(v);
-    else if (Array.isArray(v) && v.length > 0 && v.every((x) => typeof x === 'string')) out[layer] = [...(v as string[])];
-    else throw new StoreError('invalid', `result layer ${layer} must be GeoJSON text, whole or in pieces`);
-  }
-  return out;
-}
-
 /**
  * A stored layer read piece by piece through `read(fromPart, count)`: null when it has no piece,
  * else its pieces in order. Each read is its own query, so a result saved again while a layer is
  * being served could mix; a run's result is saved once, before the run is marked succeeded.
  */
-export async function storedPieces(read: (fromPart: number, count: number) => Promise<string[]> | string[]): Promise<AsyncIterable<string> | null> {
-  const first = await read(0, LAYER_PIECES_PER_READ);
+export async function storedPieces<T extends string | Buffer>(read: (fromPart: number, count: number) => Promise<T[]> | T[], perRead = LAYER_PIECES_PER_READ): Promise<AsyncIterable<T> | null> {
+  const first = await read(0, perRead);
   if (first.length === 0) return null;
   return (async function* () {
     let batch = first;
     let at = 0;
     for (;;) {
       yield* batch;
-      if (batch.length < LAYER_PIECES_PER_READ) return;
+      if (batch.length < perRead) return;
       at += batch.length;
-      batch = await read(at, LAYER_PIECES_PER_READ);
+      batch = await read(at, perRead);
       if (batch.length === 0) return;
     }
   })();
 }
+
+/**
+ * Stored pieces read per query when a layer is served as bytes: each read copies its pieces out of
+ * the database on the main thread, so fewer at a time keep that pause short (about 2 ms a MiB).
+ */
+export const LAYER_BYTE_PIECES_PER_READ = 2;
 
 /** All pieces joined, or null. */
 export async function joinPieces(pieces: AsyncIterable<string> | null): Promise<string | null> {

@@ -50,7 +50,7 @@ import { PackedTexts, RunColumns } from './columns.js';
 import { auditPage, decodeCursor, encodeCursor, observationPage } from './cursors.js';
 import { batchIds, planIngest } from './ingest-plan.js';
 import { keyFromRow } from './key-rows.js';
-import { joinPieces, storedPieces } from './layer-pieces.js';
+import { joinPieces, LAYER_BYTE_PIECES_PER_READ, storedPieces } from './layer-pieces.js';
 import { layerSource } from './layer-write.js';
 import { DEFAULT_LEASE_MS, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
 import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
@@ -97,7 +97,7 @@ const RETRIED = [
   'migrate', 'createDataset', 'getDataset', 'listDatasets', 'updateDataset', 'deleteDataset', 'ingest', 'listObservations',
   'deleteObservation', 'countObservations', 'getObservation', 'observationExtent', 'loadForRun', 'getPositions', 'createRun',
   'createScheduledRun', 'claimNextRun', 'claimRun', 'renewRunLease', 'reclaimExpiredRuns', 'updateRun', 'countRuns', 'getRun',
-  'listRuns', 'latestRun', 'saveRunResult', 'getRunLayer', 'getRunLayerPieces', 'getRunHotspots', 'getTrack', 'listTracks',
+  'listRuns', 'latestRun', 'saveRunResult', 'getRunLayer', 'getRunLayerPieces', 'getRunLayerBytes', 'getRunHotspots', 'getTrack', 'listTracks',
   'markInterruptedRuns', 'requeueInterruptedRuns', 'reserveTrackNumbers', 'createKey', 'findKey', 'listKeys', 'revokeKey',
   'countKeys', 'appendAudit', 'listAudit',
 ] as const satisfies readonly (keyof SqliteStore)[];
@@ -592,6 +592,14 @@ export class SqliteStore implements Store {
     // each read a query of its own: a statement left iterating would keep the connection busy
     const stmt = this.db.prepare('SELECT body FROM run_layer_parts WHERE run_seq = ? AND layer = ? AND part >= ? ORDER BY part LIMIT ?').pluck();
     return storedPieces((from, count) => stmt.all(seq, layer, from, count) as string[]);
+  }
+
+  async getRunLayerBytes(runId: string, layer: LayerName): Promise<AsyncIterable<Buffer> | null> {
+    if (!LAYER_NAMES.includes(layer)) throw new StoreError('invalid', `layer must be one of ${LAYER_NAMES.join(', ')}`);
+    const seq = this.requireRunSeq(runId);
+    // SQLite keeps TEXT as UTF-8: the cast hands its bytes over as they are, no string is made
+    const stmt = this.db.prepare('SELECT CAST(body AS BLOB) FROM run_layer_parts WHERE run_seq = ? AND layer = ? AND part >= ? ORDER BY part LIMIT ?').pluck();
+    return storedPieces((from, count) => stmt.all(seq, layer, from, count) as Buffer[], LAYER_BYTE_PIECES_PER_READ);
   }
 
   async getRunHotspots(runId: string): Promise<RunHotspot[]> {

@@ -504,6 +504,12 @@ export interface Store {
    * @throws StoreError 'not-found' for an unknown run
    */
   getRunLayerPieces(runId: string, layer: LayerName): Promise<AsyncIterable<string> | null>;
+  /**
+   * The same pieces as their UTF-8 bytes, read a few at a time, for sending as stored without
+   * decoding them into strings and encoding them again; null when the run has no stored result.
+   * @throws StoreError 'not-found' for an unknown run
+   */
+  getRunLayerBytes(runId: string, layer: LayerName): Promise<AsyncIterable<Buffer> | null>;
   /** The run's hotspots by hotspot id; empty when none were stored. @throws StoreError 'not-found' */
   getRunHotspots(runId: string): Promise<RunHotspot[]>;
   /** The hotspots of succeeded runs carrying the track id, oldest run first. */

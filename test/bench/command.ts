@@ -51,7 +51,7 @@ try {
     const c = median(cluster.map((m) => m.seconds));
     const stageText = ['read', 'index', 'cluster', 'figures', 'write'].map((s) => `${s} ${(stages[s] / 1000).toFixed(2)}`).join(', ');
     rows.push(
-      `| ${n.toLocaleString('en')} | ${mb.toFixed(0)} MiB | ${p.toFixed(2)} s | ${c.toFixed(2)} s | ${(c / p).toFixed(2)}× | ${median(cluster.map((m) => m.rssMiB)).toFixed(0)} MiB | ${stageText} |`,
+      `| ${n.toLocaleString('en')} | ${mb.toFixed(0)} MiB | ${p.toFixed(2)} s | ${c.toFixed(2)} s | ${(c / p).toFixed(2)}× | ${median(cluster.map((m) => m.rssMiB)).toFixed(0)} MiB | ${stageText} | ${os.loadavg()[0].toFixed(1)} |`,
     );
   }
 } finally {
@@ -67,8 +67,8 @@ const text = `# Whole-command benchmark
 Node ${process.version}, ${cpu}, ${os.cpus().length} cores, ${(os.totalmem() / 2 ** 30).toFixed(0)} GiB; load average at the end ${os.loadavg()[0].toFixed(1)}.
 Command: \`node --import tsx test/bench/command.ts\` (part of \`npm run bench\`).
 
-| points | file | read + JSON.parse | roost cluster | ratio | peak RSS | stages (s, from summary.json) |
-| ---: | ---: | ---: | ---: | ---: | ---: | --- |
+| points | file | read + JSON.parse | roost cluster | ratio | peak RSS | stages (s, from summary.json) | load average (1 min) after the row |
+| ---: | ---: | ---: | ---: | ---: | ---: | --- | ---: |
 ${rows.join('\n')}
 `;
 writeFileSync(fileURLToPath(new URL('./command-results.md', import.meta.url)), text);

@@ -5,7 +5,12 @@
  * sampled every 100 ms and the service's resident memory every 5 s. Then the load stops and the
  * service is asked whether anything is still held (stuck slots). Writes test/bench/soak-results.md.
  *
- *   npm run bench:soak [-- --duration 180] [--rate-limit 0] [--profile]
+ *   npm run bench:soak [-- --duration 180] [--rate-limit 0] [--profile] [--growing]
+ *
+ * The posts replace observations of a bounded set of ids (`replace=true`), so the dataset stops
+ * growing once every id has been posted (at most SEED_POSTS + IDS_SMALL + IDS_LARGE observations,
+ * reached within the first minute) and memory after warm-up can be told from growth of the data.
+ * `--growing` posts new ids every time instead (the dataset and its layers grow without bound).
  *
  * `--rate-limit` is passed to the service (requests a minute per address; default 0, no limit):
  * every client here comes from one address, so the service's own default (600) would turn most of
@@ -32,6 +37,15 @@ function arg(name: string, fallback: number): number {
 const DURATION_S = arg('duration', 180);
 const RATE_LIMIT = arg('rate-limit', 0);
 const PROFILE = process.argv.includes('--profile');
+const GROWING = process.argv.includes('--growing');
+/** observations posted before the load */
+const SEED_POSTS = 5000;
+/** batches of 500 whose ids the small posters go round (20 000 ids) */
+const SMALL_ID_SETS = 40;
+/** batches of 20 000 whose ids the large poster goes round (40 000 ids) */
+const LARGE_ID_SETS = 2;
+/** the query of an observation post: new ids every time, or replacing those of the set it goes round */
+const POST_QUERY = GROWING ? '' : '?replace=true';
 const PROFILE_DIR = fileURLToPath(new URL('./profiles/', import.meta.url));
 const UPLOAD_TIMEOUT_MS = 5000;
 
@@ -139,6 +153,7 @@ function quantile(sorted: number[], q: number): number {
 }
 
 async function main(): Promise<void> {
+  const loadStart = loadavg();
   const dir = mkdtempSync(join(tmpdir(), 'roost-soak-'));
   const { url, child } = await startService(join(dir, 'soak.db'));
   const pid = child.pid!;
@@ -149,9 +164,17 @@ async function main(): Promise<void> {
   const JSON_TYPE = { 'content-type': 'application/json' };
   const GEO = { 'content-type': 'application/geo+json' };
   await call('setup', `${url}/v1/datasets`, { method: 'POST', headers: JSON_TYPE, body: JSON.stringify({ id: 'soak', settings: { eps: 80, min_points: 5 } }) });
-  await call('setup', `${url}/v1/datasets/soak/observations`, { method: 'POST', headers: GEO, body: collection(5000, 'seed-', random) });
+  await call('setup', `${url}/v1/datasets/soak/observations`, { method: 'POST', headers: GEO, body: collection(SEED_POSTS, 'seed-', random) });
 
-  const rss: { t: number; mib: number }[] = [];
+  const rss: { t: number; mib: number; observations: number | null }[] = [];
+  const observations = async (): Promise<number | null> => {
+    try {
+      const res = await fetch(`${url}/v1/datasets/soak`);
+      return ((await res.json()) as { observations?: number }).observations ?? null;
+    } catch {
+      return null;
+    }
+  };
   const health: number[] = [];
   let worstAt = 0;
   let worst = 0;
@@ -167,7 +190,9 @@ async function main(): Promise<void> {
   loops.push(
     (async () => {
       while (live()) {
-        rss.push({ t: (Date.now() - t0) / 1000, mib: rssMiB(pid) });
+        const t = (Date.now() - t0) / 1000;
+        const mib = rssMiB(pid);
+        rss.push({ t, mib, observations: await observations() });
         await new Promise((r) => setTimeout(r, 5000));
       }
     })(),
@@ -186,13 +211,15 @@ async function main(): Promise<void> {
     }
     await new Promise((r) => setTimeout(r, 100));
   });
-  // two posters of 500 new observations each time
+  // two posters of 500 observations each time (new ids, or those of the next of SMALL_ID_SETS sets)
   let batch = 0;
-  for (let p = 0; p < 2; p++) loop(async () => void (await call('observation post', `${url}/v1/datasets/soak/observations`, { method: 'POST', headers: GEO, body: collection(500, `b${batch++}-`, random) })));
-  // one client posting a batch of 20 000 new observations every 20 s (stored in a job thread)
+  const smallIds = (): string => `b${GROWING ? batch++ : batch++ % SMALL_ID_SETS}-`;
+  for (let p = 0; p < 2; p++) loop(async () => void (await call('observation post', `${url}/v1/datasets/soak/observations${POST_QUERY}`, { method: 'POST', headers: GEO, body: collection(500, smallIds(), random) })));
+  // one client posting a batch of 20 000 observations every 20 s (stored in a job thread)
   let large = 0;
+  const largeIds = (): string => `L${GROWING ? large++ : large++ % LARGE_ID_SETS}-`;
   loop(async () => {
-    await call('large post', `${url}/v1/datasets/soak/observations`, { method: 'POST', headers: GEO, body: collection(20_000, `L${large++}-`, random) });
+    await call('large post', `${url}/v1/datasets/soak/observations${POST_QUERY}`, { method: 'POST', headers: GEO, body: collection(20_000, largeIds(), random) });
     await new Promise((r) => setTimeout(r, 20_000));
   });
   // two clients clustering 2 000 points
@@ -229,22 +256,26 @@ async function main(): Promise<void> {
     await new Promise((r) => setTimeout(r, 100));
   }
   const settledMs = Date.now() - loadEnd;
-  rss.push({ t: (Date.now() - t0) / 1000, mib: rssMiB(pid) });
+  rss.push({ t: (Date.now() - t0) / 1000, mib: rssMiB(pid), observations: await observations() });
   child.kill('SIGTERM');
   await new Promise((r) => child.once('exit', r));
   rmSync(dir, { recursive: true, force: true });
 
   const sorted = [...health].sort((a, b) => a - b);
-  const warmed = rss.filter((r) => r.t >= 30);
+  // warm-up: until the dataset has its full size (bounded ids), else the first 30 s
+  const cap = SEED_POSTS + SMALL_ID_SETS * 500 + LARGE_ID_SETS * 20_000;
+  const full = rss.find((r) => r.observations === cap);
+  const warmFrom = GROWING || full === undefined ? 30 : full.t;
+  const warmed = rss.filter((r) => r.t >= warmFrom);
   const warm = warmed.length > 0 ? warmed : rss;
   const byKind = [...counts.entries()].sort(([a], [b]) => a.localeCompare(b));
   const fivehundreds = byKind.filter(([k]) => / 5\d\d$/.test(k) && !/ 503$/.test(k)).reduce((n, [, v]) => n + v, 0);
   const lines = [
     '# Soak benchmark',
     '',
-    `\`npm run bench:soak -- --duration ${DURATION_S} --rate-limit ${RATE_LIMIT}${PROFILE ? ' --profile' : ''}\`, ${new Date().toISOString()}, Node ${process.version}, ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, load average at the end ${loadavg().map((x) => x.toFixed(2)).join(' ')}, seed ${SEED}.`,
+    `\`npm run bench:soak -- --duration ${DURATION_S} --rate-limit ${RATE_LIMIT}${PROFILE ? ' --profile' : ''}${GROWING ? ' --growing' : ''}\`, ${new Date().toISOString()}, Node ${process.version}, ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, load average at the start ${loadStart.map((x) => x.toFixed(2)).join(' ')}, at the end ${loadavg().map((x) => x.toFixed(2)).join(' ')}, seed ${SEED}.`,
     '',
-    `Service: \`roost serve --workers 1 --upload-timeout-ms ${UPLOAD_TIMEOUT_MS} --rate-limit ${RATE_LIMIT}\`${PROFILE ? ' under the CPU profiler' : ''} on a fresh SQLite file, in a process of its own. Load for ${DURATION_S} s: two clients posting batches of 500 new observations, one client posting 20,000 new observations every 20 s, two clients clustering 2,000 points, a stored run asked for every 10 s, two clients pulling the latest points layer, one client vanishing after sending each 3,000-point clustering request, two slow senders (a byte a second) at all times, /healthz every 100 ms.`,
+    `Service: \`roost serve --workers 1 --upload-timeout-ms ${UPLOAD_TIMEOUT_MS} --rate-limit ${RATE_LIMIT}\`${PROFILE ? ' under the CPU profiler' : ''} on a fresh SQLite file, in a process of its own. Load for ${DURATION_S} s: ${GROWING ? 'two clients posting batches of 500 new observations, one client posting 20,000 new observations every 20 s (the dataset grows without bound)' : `two clients posting batches of 500 observations going round ${SMALL_ID_SETS} sets of ids, one client posting 20,000 observations every 20 s going round ${LARGE_ID_SETS} sets (all with replace=true: the dataset stops growing at ${(SEED_POSTS + SMALL_ID_SETS * 500 + LARGE_ID_SETS * 20_000).toLocaleString('en')} observations)`}, two clients clustering 2,000 points, a stored run asked for every 10 s, two clients pulling the latest points layer, one client vanishing after sending each 3,000-point clustering request, two slow senders (a byte a second) at all times, /healthz every 100 ms.`,
     '',
     '## /healthz',
     '',
@@ -254,11 +285,13 @@ async function main(): Promise<void> {
     '',
     '## Resident memory of the service (MiB)',
     '',
-    '| t (s) | RSS |',
-    '| ---: | ---: |',
-    ...rss.filter((_, i) => i % 3 === 0 || i === rss.length - 1).map((r) => `| ${r.t.toFixed(0)} | ${r.mib.toFixed(0)} |`),
+    'Every 5 s, with the observations stored at that moment.',
     '',
-    `After warm-up (t ≥ 30 s): min ${Math.min(...warm.map((r) => r.mib)).toFixed(0)} MiB, max ${Math.max(...warm.map((r) => r.mib)).toFixed(0)} MiB, last ${warm[warm.length - 1]?.mib.toFixed(0)} MiB.`,
+    '| t (s) | RSS | observations |',
+    '| ---: | ---: | ---: |',
+    ...rss.map((r) => `| ${r.t.toFixed(0)} | ${r.mib.toFixed(0)} | ${r.observations ?? '?'} |`),
+    '',
+    `After warm-up (t ≥ ${warmFrom.toFixed(0)} s${GROWING || full === undefined ? '' : ', from the first sample with the dataset at its full size'}): min ${Math.min(...warm.map((r) => r.mib)).toFixed(0)} MiB, max ${Math.max(...warm.map((r) => r.mib)).toFixed(0)} MiB, last ${warm[warm.length - 1]?.mib.toFixed(0)} MiB.`,
     '',
     '## Answers by kind and status',
     '',

@@ -184,9 +184,9 @@ describe('bounds on what one client can hold', () => {
     // the first layer read waits at the gate: its stream stays open until the test opens it
     const store = new Proxy(real, {
       get(target, key, receiver) {
-        if (key === 'getRunLayerPieces') {
-          return async (...args: Parameters<typeof real.getRunLayerPieces>) => {
-            const pieces = await target.getRunLayerPieces(...args);
+        if (key === 'getRunLayerBytes') {
+          return async (...args: Parameters<typeof real.getRunLayerBytes>) => {
+            const pieces = await target.getRunLayerBytes(...args);
             const wait = held;
             held = false;
             entered();

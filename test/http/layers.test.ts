@@ -74,6 +74,33 @@ describe('result layers by address', () => {
     expect((await app.inject({ method: 'GET', url: '/v1/datasets/d/runs/latest/points?limit=5', headers: { 'if-none-match': page.headers.etag as string } })).statusCode).toBe(304);
   });
 
+  it('sends a whole layer as the exact bytes stored, characters beyond ASCII included', async () => {
+    const named = JSON.stringify({
+      type: 'FeatureCollection',
+      features: Array.from({ length: 12 }, (_, i) => ({ type: 'Feature', id: `ü${i}`, geometry: { type: 'Point', coordinates: [8.54 + i * 1e-5, 47.37] }, properties: { place: 'Zürich 😀', note: 'ä\u2028é' } })),
+    });
+    await app.inject({ method: 'POST', url: '/v1/datasets', headers: { 'content-type': 'application/json' }, payload: JSON.stringify({ id: 'u', settings: { eps: 60, min_points: 3 } }) });
+    await app.inject({ method: 'POST', url: '/v1/datasets/u/observations', headers: GEO, payload: named });
+    const run = await app.inject({ method: 'POST', url: '/v1/datasets/u/runs' });
+    const runId = (run.json() as { id: string }).id;
+    for (;;) {
+      const r = (await app.inject({ method: 'GET', url: run.headers.location as string })).json() as { status: string };
+      if (r.status === 'succeeded') break;
+      if (r.status !== 'queued' && r.status !== 'running') throw new Error(r.status);
+      await new Promise((resolve) => setTimeout(resolve, 20));
+    }
+    const store = (app as unknown as { store: { getRunLayer(id: string, l: string): Promise<string | null> } }).store;
+    for (const layer of ['points', 'hotspots', 'centres', 'noise']) {
+      const res = await app.inject({ method: 'GET', url: `/v1/datasets/u/runs/latest/${layer}` });
+      expect(res.statusCode).toBe(200);
+      expect(res.headers['content-type']).toMatch(/^application\/geo\+json/);
+      expect(res.rawPayload.equals(Buffer.from((await store.getRunLayer(runId, layer))!, 'utf8'))).toBe(true);
+    }
+    const points = (await app.inject({ method: 'GET', url: '/v1/datasets/u/runs/latest/points' })).json() as { features: { id: string; properties: { place: string } }[] };
+    expect(points.features.map((f) => f.id).sort()).toEqual(Array.from({ length: 12 }, (_, i) => `ü${i}`).sort());
+    expect(points.features.every((f) => f.properties.place === 'Zürich 😀')).toBe(true);
+  });
+
   it('tags the observation listing by its content: a new observation changes the tag', async () => {
     const first = await app.inject({ method: 'GET', url: '/v1/datasets/d/observations?limit=500' });
     const etag = first.headers.etag as string;

@@ -587,6 +587,7 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(await store.getTrack('other', 't1')).toEqual([]);
         await rejects(store.getRunLayer('r999999', 'noise'), 'not-found');
         await rejects(store.getRunLayerPieces('r999999', 'noise'), 'not-found');
+        await rejects(store.getRunLayerBytes('r999999', 'noise'), 'not-found');
         await rejects(store.saveRunResult('r999999', { layers, hotspots: [] }), 'not-found');
         await rejects(store.saveRunResult(r1.id, { layers: { ...layers, noise: [] }, hotspots: [] }), 'invalid');
         await rejects(store.saveRunResult(r1.id, { layers: { ...layers, noise: 7 as unknown as string }, hotspots: [] }), 'invalid');
@@ -651,6 +652,7 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
       it('keep large layers in pieces, given whole or in pieces, and hand them out piece by piece', async () => {
         const run = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
         expect(await store.getRunLayerPieces(run.id, 'points')).toBeNull();
+        expect(await store.getRunLayerBytes(run.id, 'points')).toBeNull();
         // about 20 Mi characters; the first piece boundary (1 Mi) falls inside a surrogate pair
         const big = `${'x'.repeat((1 << 20) - 1)}😀é`.repeat(20);
         expect(big.charCodeAt((1 << 20) - 1)).toBeGreaterThanOrEqual(0xd800);
@@ -667,6 +669,16 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         const kept: string[] = [];
         for await (const p of (await store.getRunLayerPieces(run.id, 'hotspots'))!) kept.push(p);
         expect(kept).toEqual(given);
+        // as bytes: the UTF-8 of the same text, piece by piece, whatever the piece boundaries
+        expect(await store.getRunLayerBytes(run.id, 'noise')).not.toBeNull();
+        const bytes: Buffer[] = [];
+        for await (const b of (await store.getRunLayerBytes(run.id, 'points'))!) bytes.push(b);
+        expect(bytes.every((b) => Buffer.isBuffer(b))).toBe(true);
+        expect(bytes.length).toBe(pieces.length);
+        expect(Buffer.concat(bytes).equals(Buffer.from(big, 'utf8'))).toBe(true);
+        const keptBytes: Buffer[] = [];
+        for await (const b of (await store.getRunLayerBytes(run.id, 'hotspots'))!) keptBytes.push(b);
+        expect(keptBytes.map((b) => b.toString('utf8'))).toEqual(given);
       });
 
       it('store layers given piece by piece on demand, as text or UTF-8 bytes, and nothing of a result whose pieces go wrong', async () => {

@@ -85,7 +85,8 @@ async function sendWholeLayer(store: Store, streams: LayerStreams, request: Fast
   const free = streams.take();
   reply.raw.once('close', free);
   try {
-    const pieces = await store.getRunLayerPieces(run.id, layer);
+    // the stored bytes as they are: no string is decoded here only to be encoded again for the socket
+    const pieces = await store.getRunLayerBytes(run.id, layer);
     if (pieces === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
     return await reply.type('application/geo+json').send(Readable.from(pieces, { objectMode: false }));
   } catch (err) {

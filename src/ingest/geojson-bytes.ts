@@ -1,0 +1,857 @@
+/**
+ * The byte reader for GeoJSON FeatureCollections: scans the UTF-8 bytes once, without building a
+ * JSON object per feature, and pulls positions, weights and times straight into typed arrays.
+ * Each feature is kept as byte spans of the input (the whole feature, its `id` and its
+ * `properties`), so the points output can copy the properties back verbatim.
+ *
+ * It reads only what it can read exactly as the parsing reader (src/ingest/geojson.ts) would:
+ * a FeatureCollection whose every feature is a Feature with a Point of 2 or 3 in-range numbers,
+ * an id that is a string, a number or null, properties that are an object or null, a valid weight
+ * and time where asked for. For anything else — any problem, a bbox, a duplicate member the
+ * reader looks at, an escape in a member name, text that is not JSON, too many features — it
+ * returns null and the parsing reader reads the input instead, so messages and acceptance never
+ * differ between the two.
+ *
+ * `features` of the result is an array view that parses a feature from its span when it is
+ * first read (the medoid's id, `where` filters, count_by), giving the same object the parsing
+ * reader would have built.
+ */
+import type { InputFeature, Observations } from './types.js';
+import { MAX_DEPTH, MAX_ID_CHARS, MAX_KEY_CHARS, MAX_STRING_CHARS } from './limits.js';
+import { TIME_PROPERTY, readTime, type TimeRule } from './checks.js';
+
+/** Where each feature lies in the input bytes; the spans of an absent member are empty (start = end = 0). */
+export interface FeatureSpans {
+  /** the input bytes */
+  bytes: Uint8Array;
+  /** whole feature: bytes[featureStart[i], featureEnd[i]) */
+  featureStart: Uint32Array;
+  featureEnd: Uint32Array;
+  /** the id's JSON text (a string or a number); empty when absent or null */
+  idStart: Uint32Array;
+  idEnd: Uint32Array;
+  /** the properties' JSON text (an object); empty when absent or null */
+  propertiesStart: Uint32Array;
+  propertiesEnd: Uint32Array;
+  /**
+   * 1 where the id and properties texts are exactly what JSON.stringify writes for them (no
+   * white space, canonical numbers and strings, no nested objects, no duplicate or integer-like
+   * member names, no `hotspot_id` or `role` property), so they can be copied as they are
+   */
+  verbatim: Uint8Array;
+  /** third coordinate (altitude), NaN where there is none; null when no feature has one */
+  altitude: Float64Array | null;
+}
+
+/** Observations read by the byte reader: the usual fields plus the spans. */
+export interface SpannedObservations extends Observations {
+  spans: FeatureSpans;
+}
+
+/** What the byte reader needs to know (the parsing reader's options for GeoJSON). */
+export interface ByteReadOptions {
+  weightProperty: string | null;
+  time: TimeRule;
+  maxFeatures: number;
+}
+
+// The scan state lives in module variables: one reader runs at a time on a thread, and the hot
+// loops stay free of closures and result objects.
+let B: Uint8Array = new Uint8Array(0);
+let N = 0;
+/** set by scanString: the string held a backslash */
+let strEscaped = false;
+/** set by scanValue: the value's text is what JSON.stringify writes for it */
+let canonical = true;
+/** set by scanNumber: the number's value */
+let numValue = 0;
+
+const enum C {
+  Quote = 34,
+  Backslash = 92,
+  Comma = 44,
+  Colon = 58,
+  OpenBrace = 123,
+  CloseBrace = 125,
+  OpenBracket = 91,
+  CloseBracket = 93,
+  Minus = 45,
+  Plus = 43,
+  Dot = 46,
+  Zero = 48,
+  Nine = 57,
+}
+
+/** Thrown inside the scan when the input is outside the fast path; caught by readGeoJsonBytes. */
+class NotFast extends Error {}
+const NOT_FAST = new NotFast('outside the byte reader');
+
+function ws(i: number): number {
+  const b = B;
+  while (i < N) {
+    const c = b[i]!;
+    if (c === 32 || c === 10 || c === 13 || c === 9) i++;
+    else break;
+  }
+  return i;
+}
+
+/** Index just past the JSON string whose opening quote is at `i`; sets strEscaped. Throws NOT_FAST when invalid (also for bytes that are not UTF-8). */
+function scanString(i: number): number {
+  const b = B;
+  let escaped = false;
+  let high = false;
+  i++;
+  const start = i;
+  for (;;) {
+    if (i >= N) throw NOT_FAST;
+    const c = b[i]!;
+    if (c === C.Quote) break;
+    if (c < 32) throw NOT_FAST;
+    if (c === C.Backslash) {
+      escaped = true;
+      const e = b[i + 1];
+      if (e === 117 /* u */) {
+        for (let k = 2; k < 6; k++) {
+          const h = b[i + k];
+          if (h === undefined || !((h >= 48 && h <= 57) || (h >= 65 && h <= 70) || (h >= 97 && h <= 102))) throw NOT_FAST;
+        }
+        i += 6;
+        continue;
+      }
+      if (e === C.Quote || e === C.Backslash || e === 47 || e === 98 || e === 102 || e === 110 || e === 114 || e === 116) {
+        i += 2;
+        continue;
+      }
+      throw NOT_FAST;
+    }
+    if (c >= 0x80) high = true;
+    i++;
+  }
+  if (high && !validUtf8(start, i)) throw NOT_FAST;
+  strEscaped = escaped;
+  return i + 1;
+}
+
+/**
+ * Whether bytes [s, e) are well-formed UTF-8 (source: RFC 3629 §4, the syntax of UTF-8 byte
+ * sequences: no overlong forms, no surrogates, nothing above U+10FFFF). Text that is not is
+ * decoded with replacement characters by the parsing reader, so it goes there.
+ */
+function validUtf8(s: number, e: number): boolean {
+  const b = B;
+  for (let i = s; i < e; ) {
+    const c = b[i]!;
+    if (c < 0x80) {
+      i++;
+      continue;
+    }
+    if (c >= 0xc2 && c <= 0xdf) {
+      if (i + 1 >= e || (b[i + 1]! & 0xc0) !== 0x80) return false;
+      i += 2;
+      continue;
+    }
+    if (c >= 0xe0 && c <= 0xef) {
+      if (i + 2 >= e) return false;
+      const c1 = b[i + 1]!;
+      if ((c1 & 0xc0) !== 0x80 || (b[i + 2]! & 0xc0) !== 0x80) return false;
+      if ((c === 0xe0 && c1 < 0xa0) || (c === 0xed && c1 >= 0xa0)) return false;
+      i += 3;
+      continue;
+    }
+    if (c >= 0xf0 && c <= 0xf4) {
+      if (i + 3 >= e) return false;
+      const c1 = b[i + 1]!;
+      if ((c1 & 0xc0) !== 0x80 || (b[i + 2]! & 0xc0) !== 0x80 || (b[i + 3]! & 0xc0) !== 0x80) return false;
+      if ((c === 0xf0 && c1 < 0x90) || (c === 0xf4 && c1 >= 0x90)) return false;
+      i += 4;
+      continue;
+    }
+    return false;
+  }
+  return true;
+}
+
+/**
+ * Whether the string bytes [s, e) (between the quotes) are what JSON.stringify writes for the
+ * string they denote: the only escapes it writes are \" \\ \b \f \n \r \t and \u for other
+ * control characters and lone surrogates; a `\/` or a \u escape of anything else is not its form.
+ */
+function canonicalString(s: number, e: number): boolean {
+  const b = B;
+  for (let i = s; i < e; i++) {
+    if (b[i] !== C.Backslash) continue;
+    const x = b[i + 1];
+    if (x === 117 || x === 47) return false;
+    i++;
+  }
+  return true;
+}
+
+const POW10 = [1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22];
+
+function latin1(s: number, e: number): string {
+  return Buffer.prototype.latin1Slice.call(B, s, e) as string;
+}
+
+/**
+ * Index just past the JSON number starting at `i`; its value in numValue. Throws NOT_FAST when
+ * the grammar (RFC 8259 §6) is broken. Values with at most 15 significant digits and a decimal
+ * exponent within ±22 are m·10^k or m/10^k with m and 10^k exact, so the one rounding of the
+ * multiplication or division gives the correctly rounded value JSON.parse gives (Clinger's fast
+ * path; source: W. D. Clinger, "How to Read Floating Point Numbers Accurately", PLDI 1990).
+ * Anything else is read with Number().
+ */
+function scanNumber(i: number): number {
+  const b = B;
+  const start = i;
+  let neg = false;
+  if (b[i] === C.Minus) {
+    neg = true;
+    i++;
+  }
+  let m = 0;
+  let digits = 0;
+  let scale = 0;
+  let c = b[i];
+  if (c === C.Zero) i++;
+  else if (c !== undefined && c > C.Zero && c <= C.Nine) {
+    while (i < N && (c = b[i]!) >= C.Zero && c <= C.Nine) {
+      m = m * 10 + (c - C.Zero);
+      digits++;
+      i++;
+    }
+  } else throw NOT_FAST;
+  let plain = true;
+  if (b[i] === C.Dot) {
+    i++;
+    const f = i;
+    while (i < N && (c = b[i]!) >= C.Zero && c <= C.Nine) {
+      if (m !== 0 || c !== C.Zero) digits++;
+      m = m * 10 + (c - C.Zero);
+      scale++;
+      i++;
+    }
+    if (i === f) throw NOT_FAST;
+  }
+  c = b[i];
+  if (c === 101 || c === 69) {
+    plain = false;
+    i++;
+    if (b[i] === C.Plus || b[i] === C.Minus) i++;
+    const f = i;
+    while (i < N && (c = b[i]!) >= C.Zero && c <= C.Nine) i++;
+    if (i === f) throw NOT_FAST;
+  }
+  if (plain && digits <= 15 && scale <= 22) {
+    const v = scale === 0 ? m : m / POW10[scale]!;
+    numValue = neg ? -v : v;
+  } else {
+    numValue = Number(latin1(start, i));
+  }
+  return i;
+}
+
+/** Whether the number text [s, e) is what JSON.stringify writes for its value. */
+function canonicalNumber(s: number, e: number, v: number): boolean {
+  const b = B;
+  let plainInteger = e - s <= 15;
+  for (let k = s; plainInteger && k < e; k++) {
+    const c = b[k]!;
+    if (c < C.Zero || c > C.Nine) plainInteger = k === s && c === C.Minus;
+  }
+  if (plainInteger) {
+    // no fraction or exponent: canonical unless a leading zero or minus zero
+    const first = b[s] === C.Minus ? s + 1 : s;
+    return !(b[first] === C.Zero && (e - first > 1 || first !== s));
+  }
+  return Number.isFinite(v) && String(v) === latin1(s, e);
+}
+
+function isKey(s: number, e: number, key: Uint8Array): boolean {
+  const b = B;
+  if (e - s !== key.length) return false;
+  for (let k = 0; k < key.length; k++) if (b[s + k] !== key[k]) return false;
+  return true;
+}
+
+/**
+ * Index just past the JSON value at `i` (no leading white space). Validates the grammar and the
+ * limits of src/ingest/limits.ts (depth, text lengths) and clears `canonical` when the text is
+ * not what JSON.stringify writes for the value (white space, escapes, number forms, any object
+ * below `depth` 2). `depth` is the value's level, the feature being 1. Throws NOT_FAST.
+ */
+function scanValue(i: number, depth: number): number {
+  const b = B;
+  const c = b[i];
+  if (c === C.Quote) {
+    const e = scanString(i);
+    if (e - i - 2 > MAX_STRING_CHARS) throw NOT_FAST;
+    if (strEscaped && !canonicalString(i + 1, e - 1)) canonical = false;
+    return e;
+  }
+  if (c === C.OpenBrace || c === C.OpenBracket) {
+    if (depth > MAX_DEPTH - 1) throw NOT_FAST;
+    if (c === C.OpenBrace && depth > 2) canonical = false; // nested objects: member order and duplicates are not checked
+    const close = c === C.OpenBrace ? C.CloseBrace : C.CloseBracket;
+    let j = i + 1;
+    if (b[j] !== close && ws(j) !== j) canonical = false;
+    j = ws(j);
+    if (b[j] === close) return j + 1;
+    for (;;) {
+      if (c === C.OpenBrace) {
+        if (b[j] !== C.Quote) throw NOT_FAST;
+        const ke = scanString(j);
+        if (strEscaped || ke - j - 2 > MAX_KEY_CHARS) throw NOT_FAST;
+        j = ke;
+        if (b[j] !== C.Colon) {
+          canonical = false;
+          j = ws(j);
+          if (b[j] !== C.Colon) throw NOT_FAST;
+        }
+        j++;
+        if (ws(j) !== j) {
+          canonical = false;
+          j = ws(j);
+        }
+      }
+      j = scanValue(j, depth + 1);
+      if (b[j] !== C.Comma && b[j] !== close) {
+        canonical = false;
+        j = ws(j);
+      }
+      if (b[j] === C.Comma) {
+        j++;
+        if (ws(j) !== j) {
+          canonical = false;
+          j = ws(j);
+        }
+        continue;
+      }
+      if (b[j] === close) return j + 1;
+      throw NOT_FAST;
+    }
+  }
+  if (c === 116 /* t */) return word(i, TRUE);
+  if (c === 102 /* f */) return word(i, FALSE);
+  if (c === 110 /* n */) return word(i, NULL);
+  const e = scanNumber(i);
+  if (canonical && !canonicalNumber(i, e, numValue)) canonical = false;
+  return e;
+}
+
+const bytesOf = (s: string): Uint8Array => new Uint8Array(Buffer.from(s, 'latin1'));
+const TRUE = bytesOf('true');
+const FALSE = bytesOf('false');
+const NULL = bytesOf('null');
+const K_TYPE = bytesOf('type');
+const K_FEATURES = bytesOf('features');
+const K_FEATURE_COLLECTION = bytesOf('FeatureCollection');
+const K_FEATURE = bytesOf('Feature');
+const K_GEOMETRY = bytesOf('geometry');
+const K_PROPERTIES = bytesOf('properties');
+const K_ID = bytesOf('id');
+const K_BBOX = bytesOf('bbox');
+const K_POINT = bytesOf('Point');
+const K_COORDINATES = bytesOf('coordinates');
+const K_HOTSPOT_ID = bytesOf('hotspot_id');
+const K_ROLE = bytesOf('role');
+
+function word(i: number, w: Uint8Array): number {
+  const b = B;
+  for (let k = 0; k < w.length; k++) if (b[i + k] !== w[k]) throw NOT_FAST;
+  return i + w.length;
+}
+
+/** Growable per-feature columns. */
+class Columns {
+  cap = 0;
+  n = 0;
+  lon: Float64Array = new Float64Array(0);
+  lat: Float64Array = new Float64Array(0);
+  weight: Float64Array | null = null;
+  time: Float64Array = new Float64Array(0);
+  altitude: Float64Array | null = null;
+  featureStart: Uint32Array = new Uint32Array(0);
+  featureEnd: Uint32Array = new Uint32Array(0);
+  idStart: Uint32Array = new Uint32Array(0);
+  idEnd: Uint32Array = new Uint32Array(0);
+  propertiesStart: Uint32Array = new Uint32Array(0);
+  propertiesEnd: Uint32Array = new Uint32Array(0);
+  verbatim: Uint8Array = new Uint8Array(0);
+  constructor(
+    cap: number,
+    readonly weighted: boolean,
+  ) {
+    this.grow(cap);
+  }
+  grow(cap: number): void {
+    const f64 = (a: Float64Array): Float64Array => {
+      const b = new Float64Array(cap);
+      b.set(a.subarray(0, this.n));
+      return b;
+    };
+    const u32 = (a: Uint32Array): Uint32Array => {
+      const b = new Uint32Array(cap);
+      b.set(a.subarray(0, this.n));
+      return b;
+    };
+    this.lon = f64(this.lon);
+    this.lat = f64(this.lat);
+    if (this.weighted) this.weight = f64(this.weight ?? new Float64Array(0));
+    this.time = f64(this.time);
+    if (this.altitude !== null) this.altitude = f64(this.altitude);
+    this.featureStart = u32(this.featureStart);
+    this.featureEnd = u32(this.featureEnd);
+    this.idStart = u32(this.idStart);
+    this.idEnd = u32(this.idEnd);
+    this.propertiesStart = u32(this.propertiesStart);
+    this.propertiesEnd = u32(this.propertiesEnd);
+    const v = new Uint8Array(cap);
+    v.set(this.verbatim.subarray(0, this.n));
+    this.verbatim = v;
+    this.cap = cap;
+  }
+}
+
+/**
+ * Reads a GeoJSON FeatureCollection from its UTF-8 bytes, or returns null when the input is
+ * outside what this reader reads exactly (see the header); the caller then reads it with the
+ * parsing reader. Never throws InputError itself.
+ */
+export function readGeoJsonBytes(bytes: Uint8Array, options: ByteReadOptions): SpannedObservations | null {
+  const { weightProperty, time } = options;
+  // a property name that is also a member every object inherits reads differently from a parsed object
+  if ((weightProperty !== null && weightProperty in Object.prototype) || time.property in Object.prototype) return null;
+  if (bytes.length >= 2 ** 32) return null;
+  const weightKey = weightProperty === null ? null : new Uint8Array(Buffer.from(weightProperty, 'utf8'));
+  const timeKey = new Uint8Array(Buffer.from(time.property, 'utf8'));
+  B = bytes;
+  N = bytes.length;
+  try {
+    return scanCollection(weightKey, timeKey, options);
+  } catch (err) {
+    if (err === NOT_FAST) return null;
+    throw err;
+  } finally {
+    B = new Uint8Array(0);
+    N = 0;
+  }
+}
+
+function scanCollection(weightKey: Uint8Array | null, timeKey: Uint8Array, options: ByteReadOptions): SpannedObservations {
+  const b = B;
+  let i = 0;
+  if (b[0] === 0xef && b[1] === 0xbb && b[2] === 0xbf) i = 3; // byte-order mark
+  i = ws(i);
+  if (b[i] !== C.OpenBrace) throw NOT_FAST;
+  // a first guess at the count from the size (features of the kind sent are 100–200 bytes)
+  const cols = new Columns(Math.max(16, Math.min(Math.ceil(N / 120), 1 << 24)), weightKey !== null);
+  let sawType = false;
+  let sawFeatures = false;
+  let timeSeen = false;
+  let timed = 0;
+  i = ws(i + 1);
+  if (b[i] === C.CloseBrace) throw NOT_FAST;
+  for (;;) {
+    if (b[i] !== C.Quote) throw NOT_FAST;
+    const ks = i + 1;
+    i = scanString(i);
+    if (strEscaped) throw NOT_FAST;
+    const ke = i - 1;
+    i = ws(i);
+    if (b[i] !== C.Colon) throw NOT_FAST;
+    i = ws(i + 1);
+    if (isKey(ks, ke, K_TYPE)) {
+      if (sawType || b[i] !== C.Quote) throw NOT_FAST;
+      sawType = true;
+      const e = scanString(i);
+      if (!isKey(i + 1, e - 1, K_FEATURE_COLLECTION)) throw NOT_FAST;
+      i = e;
+    } else if (isKey(ks, ke, K_FEATURES)) {
+      if (sawFeatures || b[i] !== C.OpenBracket) throw NOT_FAST;
+      sawFeatures = true;
+      i = ws(i + 1);
+      if (b[i] === C.CloseBracket) throw NOT_FAST; // no features: the parsing reader says so
+      for (;;) {
+        if (cols.n === cols.cap) cols.grow(cols.cap * 2);
+        i = scanFeature(i, cols, weightKey, timeKey, options.time);
+        if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) timed++;
+        if (lastTimeFound) timeSeen = true;
+        i = ws(i);
+        if (b[i] === C.Comma) {
+          i = ws(i + 1);
+          continue;
+        }
+        if (b[i] === C.CloseBracket) break;
+        throw NOT_FAST;
+      }
+      i++;
+      if (cols.n > options.maxFeatures) throw NOT_FAST;
+    } else {
+      canonical = true;
+      i = scanValue(i, 1);
+    }
+    i = ws(i);
+    if (b[i] === C.Comma) {
+      i = ws(i + 1);
+      continue;
+    }
+    if (b[i] === C.CloseBrace) break;
+    throw NOT_FAST;
+  }
+  if (!sawType || !sawFeatures) throw NOT_FAST;
+  if (ws(i + 1) !== N) throw NOT_FAST;
+  // a time property other than observed_at that no feature has is a problem the parsing reader names
+  if (options.time.property !== TIME_PROPERTY && !timeSeen) throw NOT_FAST;
+
+  const n = cols.n;
+  const spans: FeatureSpans = {
+    bytes: B,
+    featureStart: cols.featureStart.slice(0, n),
+    featureEnd: cols.featureEnd.slice(0, n),
+    idStart: cols.idStart.slice(0, n),
+    idEnd: cols.idEnd.slice(0, n),
+    propertiesStart: cols.propertiesStart.slice(0, n),
+    propertiesEnd: cols.propertiesEnd.slice(0, n),
+    verbatim: cols.verbatim.slice(0, n),
+    altitude: cols.altitude === null ? null : cols.altitude.slice(0, n),
+  };
+  return {
+    points: { n, lon: cols.lon.slice(0, n), lat: cols.lat.slice(0, n), weight: cols.weight === null ? null : cols.weight.slice(0, n) },
+    features: lazyFeatures(spans, n),
+    observedAt: timed > 0 ? cols.time.slice(0, n) : null,
+    spans,
+  };
+}
+
+/** Scans one feature at `i` into row cols.n (and counts it); returns the index just past it. */
+function scanFeature(i: number, cols: Columns, weightKey: Uint8Array | null, timeKey: Uint8Array, time: TimeRule): number {
+  const b = B;
+  if (b[i] !== C.OpenBrace) throw NOT_FAST;
+  const row = cols.n;
+  const featureStart = i;
+  let sawType = false;
+  let sawGeometry = false;
+  let sawProperties = false;
+  let sawId = false;
+  let idVerbatim = true;
+  let idS = 0;
+  let idE = 0;
+  let propS = 0;
+  let propE = 0;
+  let propVerbatim = true;
+  let weightFound = false;
+  let timeFound = false;
+  let t = NaN;
+  i = ws(i + 1);
+  if (b[i] === C.CloseBrace) throw NOT_FAST;
+  for (;;) {
+    if (b[i] !== C.Quote) throw NOT_FAST;
+    const ks = i + 1;
+    i = scanString(i);
+    if (strEscaped || i - ks - 1 > MAX_KEY_CHARS) throw NOT_FAST;
+    const ke = i - 1;
+    i = ws(i);
+    if (b[i] !== C.Colon) throw NOT_FAST;
+    i = ws(i + 1);
+    const c = b[i];
+    if (isKey(ks, ke, K_TYPE)) {
+      if (sawType || c !== C.Quote) throw NOT_FAST;
+      sawType = true;
+      const e = scanString(i);
+      if (!isKey(i + 1, e - 1, K_FEATURE)) throw NOT_FAST;
+      i = e;
+    } else if (isKey(ks, ke, K_GEOMETRY)) {
+      if (sawGeometry) throw NOT_FAST;
+      sawGeometry = true;
+      i = scanPoint(i, cols, row);
+    } else if (isKey(ks, ke, K_PROPERTIES)) {
+      if (sawProperties) throw NOT_FAST;
+      sawProperties = true;
+      if (c === C.OpenBrace) {
+        // scanned here member by member: the weight and time are read, the rest validated
+        propS = i;
+        const weightKeyLocal = weightKey;
+        let j = ws(i + 1);
+        if (j !== i + 1) propVerbatim = false;
+        const keyStarts: number[] = [];
+        const keyEnds: number[] = [];
+        if (b[j] !== C.CloseBrace) {
+          for (;;) {
+            if (b[j] !== C.Quote) throw NOT_FAST;
+            const pks = j + 1;
+            j = scanString(j);
+            if (strEscaped || j - pks - 1 > MAX_KEY_CHARS) throw NOT_FAST;
+            const pke = j - 1;
+            if (b[j] !== C.Colon) {
+              propVerbatim = false;
+              j = ws(j);
+              if (b[j] !== C.Colon) throw NOT_FAST;
+            }
+            j++;
+            if (ws(j) !== j) {
+              propVerbatim = false;
+              j = ws(j);
+            }
+            if (propVerbatim) {
+              // names JSON.stringify would write elsewhere (integer-like, first) or twice
+              const k0 = b[pks];
+              if ((k0 !== undefined && k0 >= C.Zero && k0 <= C.Nine) || isKey(pks, pke, K_HOTSPOT_ID) || isKey(pks, pke, K_ROLE)) propVerbatim = false;
+              else if (keyStarts.length >= 32) propVerbatim = false;
+              else {
+                for (let q = 0; q < keyStarts.length; q++) {
+                  if (isKeyRange(pks, pke, keyStarts[q]!, keyEnds[q]!)) {
+                    propVerbatim = false;
+                    break;
+                  }
+                }
+                keyStarts.push(pks);
+                keyEnds.push(pke);
+              }
+            }
+            const vs = j;
+            canonical = true;
+            j = scanValue(j, 3);
+            if (!canonical) propVerbatim = false;
+            // the last of duplicate names wins, as in JSON.parse
+            if (weightKeyLocal !== null && isKey(pks, pke, weightKeyLocal)) {
+              if (b[vs] === C.Quote || b[vs] === C.OpenBrace || b[vs] === C.OpenBracket || b[vs] === 116 || b[vs] === 102 || b[vs] === 110) weightFound = false;
+              else {
+                scanNumber(vs);
+                const w = numValue;
+                weightFound = w >= 0 && w <= Number.MAX_VALUE;
+                if (weightFound) (cols.weight as Float64Array)[row] = w;
+              }
+            }
+            if (isKey(pks, pke, timeKey)) {
+              timeFound = true;
+              t = timeOf(vs, j, time);
+            }
+            if (b[j] !== C.Comma && b[j] !== C.CloseBrace) {
+              propVerbatim = false;
+              j = ws(j);
+            }
+            if (b[j] === C.Comma) {
+              j++;
+              if (ws(j) !== j) {
+                propVerbatim = false;
+                j = ws(j);
+              }
+              continue;
+            }
+            if (b[j] === C.CloseBrace) break;
+            throw NOT_FAST;
+          }
+        }
+        i = j + 1;
+        propE = i;
+      } else if (c === 110) {
+        i = word(i, NULL);
+      } else throw NOT_FAST;
+    } else if (isKey(ks, ke, K_ID)) {
+      if (sawId) throw NOT_FAST;
+      sawId = true;
+      if (c === C.Quote) {
+        const e = scanString(i);
+        if (e - i - 2 > MAX_ID_CHARS) throw NOT_FAST;
+        if (strEscaped) {
+          // a \u escape may write a NUL or half of a surrogate pair, which the parsing reader may refuse in an id
+          for (let k = i + 1; k < e - 1; k++) {
+            if (b[k] === C.Backslash && b[++k] === 117) {
+              const u = parseInt(latin1(k + 1, k + 5), 16);
+              if (u === 0 || (u >= 0xd800 && u <= 0xdfff)) throw NOT_FAST;
+            }
+          }
+          idVerbatim = canonicalString(i + 1, e - 1);
+        }
+        idS = i;
+        idE = e;
+        i = e;
+      } else if (c === 110) {
+        i = word(i, NULL);
+      } else if (c === C.Minus || (c !== undefined && c >= C.Zero && c <= C.Nine)) {
+        const e = scanNumber(i);
+        if (!Number.isFinite(numValue)) throw NOT_FAST;
+        idS = i;
+        idE = e;
+        i = e;
+      } else throw NOT_FAST;
+    } else if (isKey(ks, ke, K_BBOX)) {
+      throw NOT_FAST;
+    } else {
+      canonical = true;
+      i = scanValue(i, 2);
+    }
+    i = ws(i);
+    if (b[i] === C.Comma) {
+      i = ws(i + 1);
+      continue;
+    }
+    if (b[i] === C.CloseBrace) break;
+    throw NOT_FAST;
+  }
+  i++;
+  if (!sawType || !sawGeometry) throw NOT_FAST;
+  if (weightKey !== null && !weightFound) throw NOT_FAST;
+  // a time that cannot be read: the parsing reader names it
+  if (timeFound && t !== t) throw NOT_FAST;
+  cols.time[row] = timeFound && t !== NO_TIME ? t : NaN;
+  cols.featureStart[row] = featureStart;
+  cols.featureEnd[row] = i;
+  cols.idStart[row] = idS;
+  cols.idEnd[row] = idE;
+  cols.propertiesStart[row] = propS;
+  cols.propertiesEnd[row] = propE;
+  cols.verbatim[row] = idVerbatim && propVerbatim ? 1 : 0;
+  cols.n = row + 1;
+  lastTimeFound = timeFound;
+  return i;
+}
+
+/** Set by scanFeature: the feature's properties held the time property (any value). */
+let lastTimeFound = false;
+
+function isKeyRange(s: number, e: number, s2: number, e2: number): boolean {
+  const b = B;
+  if (e - s !== e2 - s2) return false;
+  for (let k = 0; k < e - s; k++) if (b[s + k] !== b[s2 + k]) return false;
+  return true;
+}
+
+/**
+ * The time of a property value at [s, e): epoch ms; NO_TIME for null and (with a time format)
+ * ""; NaN for a value that is not a readable time (the caller gives up then).
+ */
+function timeOf(s: number, e: number, time: TimeRule): number {
+  const b = B;
+  const c = b[s];
+  if (c === 110) return NO_TIME;
+  if (c !== C.Quote) return NaN;
+  let text: string;
+  if (strEscapedAt(s, e)) text = JSON.parse(Buffer.prototype.utf8Slice.call(B, s, e) as string) as string;
+  else text = Buffer.prototype.utf8Slice.call(B, s + 1, e - 1) as string;
+  if (time.format !== null && text === '') return NO_TIME;
+  return readTime(text, time);
+}
+
+/** A time property present with no time (null, or "" with a time format). */
+const NO_TIME = -Infinity;
+
+function strEscapedAt(s: number, e: number): boolean {
+  const b = B;
+  for (let k = s + 1; k < e - 1; k++) if (b[k] === C.Backslash) return true;
+  return false;
+}
+
+/** Scans a geometry that must be {"type":"Point","coordinates":[x,y(,z)]} with x, y in range; stores the position. */
+function scanPoint(i: number, cols: Columns, row: number): number {
+  const b = B;
+  if (b[i] !== C.OpenBrace) throw NOT_FAST;
+  let sawType = false;
+  let sawCoordinates = false;
+  i = ws(i + 1);
+  if (b[i] === C.CloseBrace) throw NOT_FAST;
+  for (;;) {
+    if (b[i] !== C.Quote) throw NOT_FAST;
+    const ks = i + 1;
+    i = scanString(i);
+    if (strEscaped || i - ks - 1 > MAX_KEY_CHARS) throw NOT_FAST;
+    const ke = i - 1;
+    i = ws(i);
+    if (b[i] !== C.Colon) throw NOT_FAST;
+    i = ws(i + 1);
+    if (isKey(ks, ke, K_TYPE)) {
+      if (sawType || b[i] !== C.Quote) throw NOT_FAST;
+      sawType = true;
+      const e = scanString(i);
+      if (!isKey(i + 1, e - 1, K_POINT)) throw NOT_FAST;
+      i = e;
+    } else if (isKey(ks, ke, K_COORDINATES)) {
+      if (sawCoordinates || b[i] !== C.OpenBracket) throw NOT_FAST;
+      sawCoordinates = true;
+      i = ws(i + 1);
+      i = scanCoordinate(i);
+      const x = numValue;
+      i = ws(i);
+      if (b[i] !== C.Comma) throw NOT_FAST;
+      i = scanCoordinate(ws(i + 1));
+      const y = numValue;
+      i = ws(i);
+      let z = NaN;
+      if (b[i] === C.Comma) {
+        i = scanCoordinate(ws(i + 1));
+        z = numValue;
+        if (!Number.isFinite(z)) throw NOT_FAST;
+        i = ws(i);
+        if (cols.altitude === null) {
+          cols.altitude = new Float64Array(cols.cap).fill(NaN);
+        }
+      }
+      if (b[i] !== C.CloseBracket) throw NOT_FAST;
+      i++;
+      if (!(x >= -180 && x <= 180 && y >= -90 && y <= 90)) throw NOT_FAST;
+      cols.lon[row] = x;
+      cols.lat[row] = y;
+      if (cols.altitude !== null) cols.altitude[row] = z;
+    } else if (isKey(ks, ke, K_BBOX)) {
+      throw NOT_FAST;
+    } else {
+      canonical = true;
+      i = scanValue(i, 3);
+    }
+    i = ws(i);
+    if (b[i] === C.Comma) {
+      i = ws(i + 1);
+      continue;
+    }
+    if (b[i] === C.CloseBrace) break;
+    throw NOT_FAST;
+  }
+  if (!sawType || !sawCoordinates) throw NOT_FAST;
+  return i + 1;
+}
+
+function scanCoordinate(i: number): number {
+  const b = B;
+  const c = b[i];
+  if (c !== C.Minus && !(c !== undefined && c >= C.Zero && c <= C.Nine)) throw NOT_FAST;
+  return scanNumber(i);
+}
+
+/** Parses feature i from its span as JSON.parse of the whole input would have built it. */
+export function parseSpan(spans: FeatureSpans, i: number): InputFeature {
+  const text = Buffer.prototype.utf8Slice.call(spans.bytes, spans.featureStart[i]!, spans.featureEnd[i]!) as string;
+  const f = JSON.parse(text) as InputFeature;
+  // the parsing reader sets an absent properties member to null
+  if (f.properties === undefined) f.properties = null;
+  return f;
+}
+
+/** An array of the features that parses each from its span when first read. */
+function lazyFeatures(spans: FeatureSpans, n: number): InputFeature[] {
+  const target: InputFeature[] = new Array(n);
+  return new Proxy(target, {
+    get(t, key, receiver) {
+      if (typeof key === 'string') {
+        const c = key.charCodeAt(0);
+        if (c >= 48 && c <= 57) {
+          const k = Number(key);
+          if (Number.isInteger(k) && k >= 0 && k < n && String(k) === key) {
+            let f = t[k];
+            if (f === undefined) f = t[k] = parseSpan(spans, k);
+            return f;
+          }
+        }
+      }
+      return Reflect.get(t, key, receiver);
+    },
+    has(t, key) {
+      if (typeof key === 'string') {
+        const k = Number(key);
+        if (Number.isInteger(k) && k >= 0 && k < n && String(k) === key) return true;
+      }
+      return Reflect.has(t, key);
+    },
+  });
+}
