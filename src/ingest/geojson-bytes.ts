@@ -508,14 +508,15 @@ function scanCollection(weightKey: Uint8Array | null, timeKey: Uint8Array, optio
   const n = cols.n;
   const spans: FeatureSpans = {
     bytes: B,
-    featureStart: cols.featureStart.slice(0, n),
-    featureEnd: cols.featureEnd.slice(0, n),
-    idStart: cols.idStart.slice(0, n),
-    idEnd: cols.idEnd.slice(0, n),
-    propertiesStart: cols.propertiesStart.slice(0, n),
-    propertiesEnd: cols.propertiesEnd.slice(0, n),
-    verbatim: cols.verbatim.slice(0, n),
-    altitude: cols.altitude === null ? null : cols.altitude.slice(0, n),
+    // views, not copies: the spans stay on this thread (the positions below are copied to their size)
+    featureStart: cols.featureStart.subarray(0, n),
+    featureEnd: cols.featureEnd.subarray(0, n),
+    idStart: cols.idStart.subarray(0, n),
+    idEnd: cols.idEnd.subarray(0, n),
+    propertiesStart: cols.propertiesStart.subarray(0, n),
+    propertiesEnd: cols.propertiesEnd.subarray(0, n),
+    verbatim: cols.verbatim.subarray(0, n),
+    altitude: cols.altitude === null ? null : cols.altitude.subarray(0, n),
   };
   return {
     points: { n, lon: cols.lon.slice(0, n), lat: cols.lat.slice(0, n), weight: cols.weight === null ? null : cols.weight.slice(0, n) },
@@ -575,8 +576,7 @@ function scanFeature(i: number, cols: Columns, weightKey: Uint8Array | null, tim
         const weightKeyLocal = weightKey;
         let j = ws(i + 1);
         if (j !== i + 1) propVerbatim = false;
-        const keyStarts: number[] = [];
-        const keyEnds: number[] = [];
+        let keys = 0;
         if (b[j] !== C.CloseBrace) {
           for (;;) {
             if (b[j] !== C.Quote) throw NOT_FAST;
@@ -598,16 +598,16 @@ function scanFeature(i: number, cols: Columns, weightKey: Uint8Array | null, tim
               // names JSON.stringify would write elsewhere (integer-like, first) or twice
               const k0 = b[pks];
               if ((k0 !== undefined && k0 >= C.Zero && k0 <= C.Nine) || isKey(pks, pke, K_HOTSPOT_ID) || isKey(pks, pke, K_ROLE)) propVerbatim = false;
-              else if (keyStarts.length >= 32) propVerbatim = false;
+              else if (keys >= KEY_STARTS.length) propVerbatim = false;
               else {
-                for (let q = 0; q < keyStarts.length; q++) {
-                  if (isKeyRange(pks, pke, keyStarts[q]!, keyEnds[q]!)) {
+                for (let q = 0; q < keys; q++) {
+                  if (isKeyRange(pks, pke, KEY_STARTS[q]!, KEY_ENDS[q]!)) {
                     propVerbatim = false;
                     break;
                   }
                 }
-                keyStarts.push(pks);
-                keyEnds.push(pke);
+                KEY_STARTS[keys] = pks;
+                KEY_ENDS[keys++] = pke;
               }
             }
             const vs = j;
@@ -708,6 +708,10 @@ function scanFeature(i: number, cols: Columns, weightKey: Uint8Array | null, tim
   lastTimeFound = timeFound;
   return i;
 }
+
+/** Where the member names of the properties being scanned lie, for the duplicate test (more: not copied verbatim). */
+const KEY_STARTS = new Uint32Array(32);
+const KEY_ENDS = new Uint32Array(32);
 
 /** Set by scanFeature: the feature's properties held the time property (any value). */
 let lastTimeFound = false;

@@ -5,6 +5,7 @@
  */
 import { Piscina } from 'piscina';
 import { workerEntry } from '../workers/location.js';
+import type { LayerIndexParts } from '../ogc/layer-index.js';
 import type { JobTask, PublishOutcome, PublishTask, RecordsOutcome, RecordsTask, RunOutcomeMessage, RunTask, StoreOutcome, StoreTask } from './job-worker.js';
 
 export interface JobPool {
@@ -18,12 +19,14 @@ export interface JobPool {
   store(task: Omit<StoreTask, 'op'>): Promise<StoreOutcome>;
   /** Makes a run's published layers from its stored layers, in a thread with its own store connection. */
   publish(task: Omit<PublishTask, 'op'>): Promise<PublishOutcome>;
+  /** Indexes a result layer's bytes for paging (src/ogc/layer-index.ts); the bytes are shared with the thread, not copied. */
+  index(bytes: Uint8Array): Promise<LayerIndexParts>;
   /** Executes a claimed run in a worker; aborting `signal` ends the worker thread at once. */
   run(task: Omit<RunTask, 'op'>, signal: AbortSignal): Promise<RunOutcomeMessage>;
   close(): Promise<void>;
 }
 
-/** Posted batches and published-layer builds waiting beyond those being worked on (our choice; more are turned away). */
+/** Posted batches, published-layer builds and layer indexes waiting beyond those being worked on (our choice; more are turned away). */
 export const MAX_WAITING_BATCHES = 16;
 
 /** The pool's waiting line for posted batches is full. */
@@ -37,7 +40,7 @@ export class JobQueueFull extends Error {
 /** A pool of `runs + 1` threads, started on first use and stopped after a minute idle. */
 export function createJobPool(runs: number): JobPool {
   const { filename, execArgv } = workerEntry();
-  const piscina = new Piscina<JobTask, RecordsOutcome | StoreOutcome | PublishOutcome | RunOutcomeMessage>({
+  const piscina = new Piscina<JobTask, RecordsOutcome | StoreOutcome | PublishOutcome | LayerIndexParts | RunOutcomeMessage>({
     filename,
     execArgv,
     minThreads: 0,
@@ -59,6 +62,7 @@ export function createJobPool(runs: number): JobPool {
     records: (task) => queued<RecordsOutcome>({ op: 'records', ...task }, task.body),
     store: (task) => queued<StoreOutcome>({ op: 'store', ...task }, task.body),
     publish: (task) => queued<PublishOutcome>({ op: 'publish', ...task }),
+    index: (bytes) => queued<LayerIndexParts>({ op: 'index', bytes }),
     async run(task, signal) {
       return (await piscina.run({ op: 'run', ...task }, { signal, transferList: [task.port as unknown as ArrayBuffer] })) as RunOutcomeMessage;
     },

@@ -2,7 +2,8 @@
  * The worker-thread side of stored datasets: reading posted bodies into store records; reading,
  * storing and placing large posts whole (src/jobs/store-batch.ts) with a store connection of the
  * thread's own, so that a batch of 100 000 observations does not hold up the main thread; making
- * a run's published layers (src/publish/publish.ts); and
+ * a run's published layers (src/publish/publish.ts); indexing result layers for paging
+ * (src/ogc/layer-index.ts); and
  * executing runs with a store connection of the thread's own (better-sqlite3 and pg both work in
  * worker threads), so that neither parsing nor loading, clustering and saving a large dataset
  * holds up the main thread. Track assignment is asked of the main thread over a message port,
@@ -19,6 +20,7 @@ import { joinPieces } from '../storage/layer-pieces.js';
 import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
 import { defaultThreads } from '../trust/trials.js';
+import { indexParts, type LayerIndexParts } from '../ogc/layer-index.js';
 
 export interface RecordsTask {
   op: 'records';
@@ -57,7 +59,13 @@ export interface RunTask {
   port: MessagePort;
 }
 
-export type JobTask = RecordsTask | StoreTask | PublishTask | RunTask;
+export interface IndexTask {
+  op: 'index';
+  /** a layer's UTF-8 bytes, in memory shared with the main thread (not copied) */
+  bytes: Uint8Array;
+}
+
+export type JobTask = RecordsTask | StoreTask | PublishTask | RunTask | IndexTask;
 
 export type RecordsOutcome = { ok: true; batch: RecordBatch } | { ok: false; problems: InputProblem[]; total: number; message: string };
 
@@ -156,8 +164,9 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
 }
 
 /** Runs one task; the default export piscina calls. */
-export default function work(task: JobTask): RecordsOutcome | Promise<StoreOutcome> | Promise<PublishOutcome> | Promise<RunOutcomeMessage> {
+export default function work(task: JobTask): RecordsOutcome | LayerIndexParts | Promise<StoreOutcome> | Promise<PublishOutcome> | Promise<RunOutcomeMessage> {
   if (task.op === 'records') return records(task);
+  if (task.op === 'index') return indexParts(task.bytes);
   if (task.op === 'store') return storePost(task);
   if (task.op === 'publish') return publish(task);
   return run(task);

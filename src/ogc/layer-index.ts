@@ -1,19 +1,26 @@
 /**
  * A stored result layer cut into its features, for paging and filtering without rewriting them:
  * each feature stays the exact text the run wrote (so reals keep their decimal point), and beside
- * it are kept its id, its bounding box and its time span. Stored layers never change once their
- * run has succeeded, so an index is kept per (run, layer) in a small cache bounded by the text it
- * holds.
+ * it are kept its id, its bounding box and its time span. The layer is held as its UTF-8 bytes
+ * with each feature's place in them, and a feature is cut out only when a page asks for it. The
+ * scan and the parse of every feature (`indexParts`) are the costly part; the service does them
+ * in a job thread (src/ogc/layers.ts). Stored layers never change once their run has succeeded,
+ * so an index is kept per (run, layer) in a small cache bounded by the bytes it holds.
  */
+import { Buffer } from 'node:buffer';
 import { bboxOf, type GeometryLike } from '../geometry/geojson.js';
 import type { Bbox, TimeInterval } from './query.js';
 import { bboxesIntersect, timeIntersects } from './query.js';
 
 export interface LayerIndex {
-  /** the features' texts, in layer order */
-  features: string[];
-  /** the features' ids as text (the GeoJSON `id`), '' when absent */
-  ids: string[];
+  /** features in the layer */
+  count: number;
+  /** the text of feature `k`, exactly as the run wrote it */
+  feature(k: number): string;
+  /** the position of the first feature whose id (as text) is `id`, or -1 */
+  find(id: string): number;
+  /** the id (as text, '' when absent) of feature `k` */
+  idOf(k: number): string;
   /** per feature: west, south, east, north (NaN for a null geometry) */
   boxes: Float64Array;
   /** per feature: first and last time in epoch ms (NaN when unknown) */
@@ -22,8 +29,25 @@ export interface LayerIndex {
   bbox: Bbox | null;
   /** earliest and latest time over all features, epoch ms (null when none has a time) */
   interval: [number, number] | null;
-  /** characters held */
-  chars: number;
+  /** bytes of layer text held */
+  bytes: number;
+}
+
+/**
+ * An index as a thread hands it over, without the layer's bytes: typed arrays and one string, so
+ * that passing it between threads copies a few arrays rather than one string per feature.
+ */
+export interface LayerIndexParts {
+  /** per feature: start and end (exclusive) in the layer's UTF-8 bytes */
+  spans: Float64Array;
+  /** the features' ids as text, one after another */
+  ids: string;
+  /** per feature: where its id ends in `ids` */
+  idEnds: Float64Array;
+  boxes: Float64Array;
+  times: Float64Array;
+  bbox: Bbox | null;
+  interval: [number, number] | null;
 }
 
 /**
@@ -79,21 +103,41 @@ function timeOf(v: unknown): number {
   return typeof v === 'string' ? Date.parse(v) : NaN;
 }
 
-/** Builds the index of a layer from its text (the stored pieces joined). */
-export function indexLayer(text: string): LayerIndex {
-  const { spans, head } = featureSpans(text);
-  const count = spans.length / 2;
-  const features = new Array<string>(count);
-  const ids = new Array<string>(count);
+/**
+ * The work of indexing a layer, given its UTF-8 bytes (run in a job thread by the service, see
+ * src/ogc/layers.ts): where each feature starts and ends, its id, bounding box and time span.
+ */
+export function indexParts(bytes: Uint8Array): LayerIndexParts {
+  const buf = Buffer.from(bytes.buffer, bytes.byteOffset, bytes.byteLength);
+  const text = buf.toString('utf8');
+  const { spans: chars, head } = featureSpans(text);
+  const count = chars.length / 2;
+  const spans = new Float64Array(2 * count);
+  // character positions to byte positions: the same when the text is ASCII, else counted along
+  const ascii = text.length === buf.length;
+  let charAt = 0;
+  let byteAt = 0;
+  for (let k = 0; k < chars.length; k++) {
+    const c = chars[k]!;
+    if (!ascii) {
+      byteAt += Buffer.byteLength(text.slice(charAt, c), 'utf8');
+      charAt = c;
+    }
+    spans[k] = ascii ? c : byteAt;
+  }
+  const ids: string[] = new Array<string>(count);
+  const idEnds = new Float64Array(count);
   const boxes = new Float64Array(4 * count).fill(NaN);
   const times = new Float64Array(2 * count).fill(NaN);
   let lo = Infinity;
   let hi = -Infinity;
+  let idAt = 0;
   for (let k = 0; k < count; k++) {
-    const f = text.slice(spans[2 * k]!, spans[2 * k + 1]!);
-    features[k] = f;
-    const parsed = JSON.parse(f) as { id?: string | number; geometry: GeometryLike | null; properties: Record<string, unknown> | null };
-    ids[k] = parsed.id === undefined ? '' : String(parsed.id);
+    const parsed = JSON.parse(text.slice(chars[2 * k]!, chars[2 * k + 1]!)) as { id?: string | number; geometry: GeometryLike | null; properties: Record<string, unknown> | null };
+    const id = parsed.id === undefined ? '' : String(parsed.id);
+    ids[k] = id;
+    idAt += id.length;
+    idEnds[k] = idAt;
     const box = parsed.geometry === null ? null : bboxOf([parsed.geometry]);
     if (box) boxes.set(box, 4 * k);
     const p = parsed.properties ?? {};
@@ -106,7 +150,39 @@ export function indexLayer(text: string): LayerIndex {
   }
   const headDoc = JSON.parse(head) as { bbox?: number[] };
   const bbox = Array.isArray(headDoc.bbox) && headDoc.bbox.length >= 4 ? ([headDoc.bbox[0], headDoc.bbox[1], headDoc.bbox[headDoc.bbox.length === 6 ? 3 : 2], headDoc.bbox[headDoc.bbox.length === 6 ? 4 : 3]] as Bbox) : null;
-  return { features, ids, boxes, times, bbox, interval: lo <= hi ? [lo, hi] : null, chars: text.length };
+  return { spans, ids: ids.join(''), idEnds, boxes, times, bbox, interval: lo <= hi ? [lo, hi] : null };
+}
+
+/** The index over a layer's bytes and the parts made of them: features are cut out of the bytes when asked for. */
+export function layerIndexFrom(bytes: Uint8Array, parts: LayerIndexParts): LayerIndex {
+  const buf = Buffer.from(bytes.buffer, bytes.byteOffset, bytes.byteLength);
+  const { spans, ids, idEnds } = parts;
+  const count = idEnds.length;
+  const idOf = (k: number): string => ids.slice(k === 0 ? 0 : idEnds[k - 1]!, idEnds[k]!);
+  return {
+    count,
+    feature: (k) => buf.toString('utf8', spans[2 * k]!, spans[2 * k + 1]!),
+    idOf,
+    find(id) {
+      for (let k = 0, start = 0; k < count; k++) {
+        const end = idEnds[k]!;
+        if (end - start === id.length && ids.startsWith(id, start)) return k;
+        start = end;
+      }
+      return -1;
+    },
+    boxes: parts.boxes,
+    times: parts.times,
+    bbox: parts.bbox,
+    interval: parts.interval,
+    bytes: buf.length,
+  };
+}
+
+/** Builds the index of a layer from its text, on this thread. */
+export function indexLayer(text: string): LayerIndex {
+  const bytes = Buffer.from(text, 'utf8');
+  return layerIndexFrom(bytes, indexParts(bytes));
 }
 
 export interface LayerFilter {
@@ -118,7 +194,7 @@ export interface LayerFilter {
 export function matching(index: LayerIndex, filter: LayerFilter): number[] | null {
   if (filter.bbox === null && filter.datetime === null) return null;
   const out: number[] = [];
-  const n = index.features.length;
+  const n = index.count;
   for (let k = 0; k < n; k++) {
     if (filter.bbox !== null) {
       const w = index.boxes[4 * k]!;
@@ -131,24 +207,24 @@ export function matching(index: LayerIndex, filter: LayerFilter): number[] | nul
   return out;
 }
 
-/** A small cache of layer indexes, bounded by the characters they hold (least recently used out first). */
+/** A small cache of layer indexes, bounded by the bytes of text they hold (least recently used out first). */
 export class LayerIndexCache {
   private readonly entries = new Map<string, Promise<LayerIndex>>();
   private readonly sizes = new Map<string, number>();
-  constructor(private readonly maxChars = 256 * 1024 * 1024) {}
+  constructor(private readonly maxBytes = 256 * 1024 * 1024) {}
 
-  async get(key: string, load: () => Promise<string>): Promise<LayerIndex> {
+  async get(key: string, load: () => Promise<LayerIndex>): Promise<LayerIndex> {
     const hit = this.entries.get(key);
     if (hit) {
       this.entries.delete(key);
       this.entries.set(key, hit);
       return hit;
     }
-    const p = load().then(indexLayer);
+    const p = load();
     this.entries.set(key, p);
     try {
       const index = await p;
-      this.sizes.set(key, index.chars);
+      this.sizes.set(key, index.bytes);
       this.trim(key);
       return index;
     } catch (err) {
@@ -161,7 +237,7 @@ export class LayerIndexCache {
     let total = 0;
     for (const s of this.sizes.values()) total += s;
     for (const key of this.entries.keys()) {
-      if (total <= this.maxChars) break;
+      if (total <= this.maxBytes) break;
       if (key === keep || !this.sizes.has(key)) continue;
       total -= this.sizes.get(key)!;
       this.sizes.delete(key);

@@ -337,8 +337,8 @@ export default async function featuresRoutes(app: FastifyInstance, options: Feat
     if (r.kind === 'observations') text = await store.getObservation(r.dataset.id, fid);
     else {
       const index = await indexOf(r);
-      const k = index.ids.indexOf(fid);
-      text = k < 0 ? null : index.features[k]!;
+      const k = index.find(fid);
+      text = k < 0 ? null : index.feature(k);
     }
     if (text === null) throw new HttpProblem('feature-not-found', `collection ${idOf(r)} has no feature ${JSON.stringify(fid)}`);
     const coll = `${root(request)}/collections/${idOf(r)}`;

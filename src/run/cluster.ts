@@ -10,7 +10,7 @@ import { SphereIndex } from '../core/sphere-index.js';
 import { ROLE_CORE, ROLE_NAMES, type Clustering, type PointSet } from '../core/types.js';
 import { clusteringWarnings, type ClusteringWarning } from '../core/warnings.js';
 import { geometryAreaKm2 } from '../geometry/area.js';
-import { nearestNeighbourMeters, type ClarkEvans } from '../geometry/clark-evans.js';
+import type { ClarkEvans } from '../geometry/clark-evans.js';
 import { hotspotFigures, resultFigures, type HotspotFigures, type ResultFigures } from '../geometry/figures.js';
 import {
   bboxOf,
@@ -22,6 +22,7 @@ import {
   featureStringWithProperties,
 } from '../geometry/geojson.js';
 import { hotspotHull, HullSpreadError, type HullGeometry } from '../geometry/hull.js';
+import { startNearestNeighbours } from '../geometry/nearest-parallel.js';
 import { categoryNames, hotspotPropertiesText } from '../geometry/layer-fields.js';
 import { roundDecimals, roundMeters, roundSignificant } from '../geometry/rounding.js';
 import { applyFilter } from '../ingest/filter.js';
@@ -600,6 +601,8 @@ export function clusterObservations(
   const { clustering, ordering } = runMethod(points, index, epsMeters, settings, (d) => hooks.onProgress?.('cluster', d));
 
   timer.start('figures');
+  // the Clark–Evans nearest-neighbour pass runs beside the hulls (in a worker thread for large sets)
+  const pendingNearest = points.n >= 3 ? startNearestNeighbours(points, index) : null;
   const { start, members } = membersByHotspot(clustering);
   const hulls: HullGeometry[] = [];
   const areaKm2 = new Float64Array(clustering.count);
@@ -620,6 +623,7 @@ export function clusterObservations(
         bufferMeters: epsMeters / 2,
       });
     } catch (err) {
+      pendingNearest?.cancel();
       if (!(err instanceof HullSpreadError)) throw err;
       // chains of neighbours can reach round the globe at any eps: the settings, not the service, must change
       throw new SettingsError(
@@ -646,7 +650,8 @@ export function clusterObservations(
       studyAreaProblem = studyAreaFailure(err as Error);
     }
   } else studyAreaProblem = 'fewer than 3 observations outline no area';
-  const nearest = points.n >= 2 && studyAreaKm2 ? nearestNeighbourMeters(points, index) : undefined;
+  if (!studyAreaKm2) pendingNearest?.cancel();
+  const nearest = pendingNearest !== null && studyAreaKm2 ? pendingNearest.collect() : undefined;
   const whole = resultFigures(points, clustering, { studyAreaKm2, studyAreaProblem, nearest });
   const validation = validationFigures(points, clustering, settings, settings.referenceProperty ? categoryValues(features, settings.referenceProperty) : null);
 

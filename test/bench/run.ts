@@ -2,15 +2,19 @@
  * DBSCAN benchmark: Roost against density-clustering and @turf/clusters-dbscan on the seeded
  * benchmark sets (test/bench/data.ts), eps 250 m, min_points 5. Every measurement runs in its
  * own process (test/bench/measure.ts) so peak memory is that of one implementation at one size.
- * Prints a markdown table and writes it to test/bench/results.md.
+ * Then the figures stage (hulls, per-hotspot figures, study area, Clark–Evans nearest
+ * neighbours; test/bench/figures-measure.ts, compiled code) on one thread against two, the two
+ * alternating, each in its own process. Prints markdown tables and writes them to
+ * test/bench/results.md.
  *
- *   npm run bench
+ *   npm run build && npm run bench
  */
 import { spawnSync } from 'node:child_process';
 import { writeFileSync } from 'node:fs';
 import os from 'node:os';
 import { fileURLToPath } from 'node:url';
 import { BENCH_EPS_METERS, BENCH_MIN_POINTS, BENCH_SEED } from './data.js';
+import type { FiguresMeasurement } from './figures-measure.js';
 import type { Measurement } from './measure.js';
 
 const here = fileURLToPath(new URL('.', import.meta.url));
@@ -81,6 +85,39 @@ for (const n of SIZES) {
   }
 }
 
+/** The figures stage at one size: processes alternate between 1 and 2 threads. */
+const FIGURE_SIZES = [100_000, 1_000_000];
+const FIGURE_ROUNDS = 2;
+const FIGURE_RUNS = 3;
+const figureRows: string[] = [];
+for (const n of FIGURE_SIZES) {
+  const by: Record<number, FiguresMeasurement[]> = { 1: [], 2: [] };
+  const loads: number[] = [];
+  for (let round = 0; round < FIGURE_ROUNDS; round++) {
+    for (const threads of [1, 2]) {
+      process.stderr.write(`figures at ${n} points on ${threads} thread(s)…\n`);
+      loads.push(os.loadavg()[0]);
+      const r = spawnSync(process.execPath, ['--import', 'tsx', `${here}figures-measure.ts`, String(n), String(threads), String(FIGURE_RUNS)], {
+        encoding: 'utf8',
+        timeout: KILL_AFTER_MS,
+        maxBuffer: 1 << 20,
+      });
+      if (r.error || r.status !== 0) throw new Error(`figures at ${n} on ${threads} thread(s) failed: ${r.stderr}`);
+      by[threads].push(JSON.parse(r.stdout.trim().split('\n').at(-1)!) as FiguresMeasurement);
+    }
+  }
+  const digests = new Set([...by[1], ...by[2]].map((m) => m.digest));
+  if (digests.size !== 1) throw new Error(`figures at ${n} points differ between runs or thread counts: ${[...digests].join(', ')}`);
+  for (const threads of [1, 2]) {
+    const wall = median(by[threads].flatMap((m) => m.wallMs));
+    const cpu = median(by[threads].flatMap((m) => m.cpuMs));
+    const one = median(by[1].flatMap((m) => m.wallMs));
+    figureRows.push(
+      `| ${n.toLocaleString('en')} | ${threads} | ${fmtMs(wall)} | ${fmtMs(cpu)} | ${threads === 1 ? '1' : (wall / one).toFixed(2)} | ${by[threads][0].hotspots} hotspots; median of ${FIGURE_ROUNDS * FIGURE_RUNS} runs; load ${loads.map((l) => l.toFixed(1)).join(', ')}; same digest ${[...digests][0].slice(0, 12)} |`,
+    );
+  }
+}
+
 const cpus = os.cpus();
 const lines = [
   `DBSCAN, eps ${BENCH_EPS_METERS} m, min_points ${BENCH_MIN_POINTS}, seeded benchmark sets (seed ${BENCH_SEED}: gaussian patches over ~400 km plus 15 % uniform background).`,
@@ -90,6 +127,12 @@ const lines = [
   '| points | implementation | index build | clustering | total | ratio | peak RSS | stage RSS | notes |',
   '| ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- |',
   ...rows,
+  '',
+  `Figures stage (hotspot hulls and areas, per-hotspot figures, study-area hull, Clark–Evans nearest neighbours), same sets and clustering, compiled code (\`npm run build\` first). "threads 2" runs the nearest-neighbour pass in a worker thread beside the hulls from 200,000 points on; at 100,000 both rows run on one thread, so their difference is the noise of the machine. "cpu" counts every thread of the process, the worker's start included. Processes alternate 1, 2, 1, 2; load average (1 min) at the start of each process in the notes. Every run's output digest is the same on 1 and 2 threads (the table is not written otherwise).`,
+  '',
+  '| points | threads | wall | cpu (all threads) | ratio | notes |',
+  '| ---: | ---: | ---: | ---: | ---: | --- |',
+  ...figureRows,
   '',
 ];
 const table = lines.join('\n');

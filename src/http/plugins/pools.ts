@@ -1,13 +1,15 @@
 /**
  * The worker pools: `app.workPool` for clustering requests (a fixed set of threads and a bounded
- * waiting line) and `app.jobPool` for reading large posted batches and executing stored runs.
+ * waiting line) and `app.jobPool` for reading large posted batches, executing stored runs and
+ * indexing result layers for paging.
  * `app.admission` bounds the requests admitted to the work pool and not yet answered, which is
  * the bound on memory held by their bodies. Both pools start from one worker entry
  * (src/workers/entry.ts) and stop with the app.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import fp from 'fastify-plugin';
-import { createJobPool, type JobPool } from '../../jobs/job-pool.js';
+import { createJobPool, JobQueueFull, type JobPool } from '../../jobs/job-pool.js';
+import { indexLayersWith } from '../../ogc/layers.js';
 import { HttpProblem } from '../errors.js';
 import { createWorkPool, type WorkPool } from '../pool.js';
 
@@ -91,6 +93,18 @@ async function pools(app: FastifyInstance, options: PoolsOptions): Promise<void>
   app.decorate('jobPool', jobPool);
   app.decorate('admission', createAdmission(options));
   app.decorate('storing', { inProgress: 0 });
+  // result layers are indexed for paging in a job thread: the scan and parse of every feature of a
+  // large layer would hold up the main thread for as long (an app without a store has none to index)
+  if (app.hasDecorator('store')) {
+    indexLayersWith(app.store, async (bytes) => {
+      try {
+        return await jobPool.index(bytes);
+      } catch (err) {
+        if (err instanceof JobQueueFull) throw new HttpProblem('overloaded', 'Every thread indexing result layers is busy and the waiting line is full; retry later.', {}, { 'retry-after': String(options.retryAfterS) });
+        throw err;
+      }
+    });
+  }
   app.addHook('onClose', async () => {
     await Promise.all([workPool.close(), jobPool.close()]);
   });
