@@ -1,7 +1,4 @@
 /** Result layers cut into pieces of about a MiB for storing, and read back piece by piece. */
-import type { RunResult } from './store.js';
-import { StoreError } from './store.js';
-import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 
 /** Characters per stored piece of a result layer: about 1 MiB of ASCII text. */
 export const LAYER_PIECE_CHARS = 1 << 20;
@@ -19,18 +16,6 @@ export function cutText(text: string, size = LAYER_PIECE_CHARS): string[] {
     at = end;
   }
   return out.length > 0 ? out : [''];
-}
-
-/** A result's layers as the pieces to store. @throws StoreError 'invalid' when a layer is not text */
-export function layerPieces(result: RunResult): Record<LayerName, string[]> {
-  const out = {} as Record<LayerName, string[]>;
-  for (const layer of LAYER_NAMES) {
-    const v = result.layers?.[layer] as unknown;
-    if (typeof v === 'string') out[layer] = cutText(v);
-    else if (Array.isArray(v) && v.length > 0 && v.every((x) => typeof x === 'string')) out[layer] = [...(v as string[])];
-    else throw new StoreError('invalid', `result layer ${layer} must be GeoJSON text, whole or in pieces`);
-  }
-  return out;
 }
 
 /**

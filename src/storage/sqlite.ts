@@ -50,7 +50,8 @@ import { PackedTexts, RunColumns } from './columns.js';
 import { auditPage, decodeCursor, encodeCursor, observationPage } from './cursors.js';
 import { batchIds, planIngest } from './ingest-plan.js';
 import { keyFromRow } from './key-rows.js';
-import { joinPieces, LAYER_BYTE_PIECES_PER_READ, layerPieces, storedPieces } from './layer-pieces.js';
+import { joinPieces, LAYER_BYTE_PIECES_PER_READ, storedPieces } from './layer-pieces.js';
+import { layerSource } from './layer-write.js';
 import { DEFAULT_LEASE_MS, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
 import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
 import { whereMatches } from './where-match.js';
@@ -552,18 +553,31 @@ export class SqliteStore implements Store {
   }
 
   async saveRunResult(runId: string, result: RunResult, ifWorker?: string): Promise<void> {
-    const pieces = layerPieces(result);
+    const sources = LAYER_NAMES.map((name) => [name, layerSource(name, result.layers?.[name])] as const);
     const tx = this.db.transaction(() => {
+      const began = Date.now();
       const seq = this.requireRunSeq(runId);
       if (ifWorker !== undefined) this.requireClaim(runId, seq, ['running'], ifWorker);
       this.db.prepare('DELETE FROM run_layer_parts WHERE run_seq = ?').run(seq);
       this.db.prepare('DELETE FROM run_hotspots WHERE run_seq = ?').run(seq);
-      const part = this.db.prepare('INSERT INTO run_layer_parts (run_seq, layer, part, body) VALUES (?, ?, ?, ?)');
-      for (const name of LAYER_NAMES) pieces[name].forEach((body, k) => part.run(seq, name, k, body));
+      // Pieces given as UTF-8 bytes are bound as a BLOB and cast to TEXT, which keeps their bytes
+      // ("When casting a BLOB value to TEXT, the sequence of bytes that make up the BLOB is
+      // interpreted as text encoded using the database encoding", source:
+      // https://www.sqlite.org/lang_expr.html#castexpr): the same stored text as binding a string,
+      // without making one. Layers given on demand are produced here, piece by piece.
+      const part = this.db.prepare('INSERT INTO run_layer_parts (run_seq, layer, part, body) VALUES (?, ?, ?, CAST(? AS TEXT))');
+      for (const [name, pieces] of sources) {
+        let k = 0;
+        for (const body of pieces()) part.run(seq, name, k++, body);
+      }
       const hs = this.db.prepare('INSERT INTO run_hotspots (run_seq, hotspot_id, track_id, members, core_members, member_count, hull, figures) VALUES (?, ?, ?, ?, ?, ?, ?, ?)');
       for (const h of result.hotspots) {
         hs.run(seq, h.hotspotId, h.trackId, JSON.stringify(h.members), JSON.stringify(h.coreMembers), h.members.length, h.hull, json(h.figures ?? null));
       }
+      // While this transaction holds the write lock no heartbeat can renew the claim, and a large
+      // result (layers made as they are stored) may take longer than a lease: the time held is
+      // added to the lease, so the claim comes out of the save with the time it had going in.
+      if (ifWorker !== undefined) this.db.prepare('UPDATE runs SET lease_until_ms = lease_until_ms + ? WHERE seq = ? AND worker_id = ?').run(Date.now() - began, seq, ifWorker);
     });
     tx.immediate();
   }

@@ -297,12 +297,19 @@ export interface RunHotspot {
   figures?: Record<string, unknown> | null;
 }
 
+/**
+ * A result layer's pieces produced on demand, in order: each a string or the UTF-8 bytes of whole
+ * characters. The engine reads them one at a time while it stores them, inside its transaction.
+ */
+export type LayerSource = Iterable<string | Uint8Array>;
+
 export interface RunResult {
   /**
-   * GeoJSON FeatureCollection texts, each whole or as pieces to be joined in order. They are
-   * stored in pieces of about a MiB (see LAYER_PIECE_CHARS), so no layer is one huge value.
+   * GeoJSON FeatureCollection texts, each whole, as pieces to be joined in order, or as a
+   * LayerSource. They are stored in pieces of about a MiB (see LAYER_PIECE_CHARS; pieces given
+   * are kept as given), so no layer is one huge value.
    */
-  layers: Record<LayerName, string | readonly string[]>;
+  layers: Record<LayerName, string | readonly string[] | LayerSource>;
   hotspots: RunHotspot[];
 }
 

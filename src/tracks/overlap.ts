@@ -36,8 +36,12 @@ export function memberIndex(runs: readonly { hotspotId: number; members: readonl
   const owner = new Map<string, number>();
   for (let h = 0; h < runs.length; h++) {
     for (const id of runs[h].members) {
-      const before = owner.get(id);
-      if (before !== undefined) {
+      // one hash lookup per member: a set that does not grow the map met an id already there
+      // (with a million members the lookups are most of a stored run's tracks stage)
+      const size = owner.size;
+      owner.set(id, h);
+      if (owner.size === size) {
+        const before = runs.findIndex((r, k) => k <= h && r.members.includes(id));
         throw new Error(
           before === h
             ? `Observation ${id} is listed twice among the members of ${which} hotspot ${runs[h].hotspotId}; pass each member once.`
@@ -45,7 +49,6 @@ export function memberIndex(runs: readonly { hotspotId: number; members: readonl
               'a run gives every observation to at most one hotspot, pass each hotspot with its own members.',
         );
       }
-      owner.set(id, h);
     }
   }
   return owner;

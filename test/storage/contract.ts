@@ -681,6 +681,47 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect(keptBytes.map((b) => b.toString('utf8'))).toEqual(given);
       });
 
+      it('store layers given piece by piece on demand, as text or UTF-8 bytes, and nothing of a result whose pieces go wrong', async () => {
+        const run = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const utf8 = (s: string): Uint8Array => new Uint8Array(Buffer.from(s, 'utf8'));
+        // bytes of whole characters: two-, three- and four-byte ones, and a piece of several MiB
+        const given = ['{"type":"FeatureCollection","features":[', '{"a":"é€😀"}', `,{"b":"${'ü'.repeat(3 << 20)}"}`, ']}'];
+        let made = 0;
+        function* onDemand(asBytes: boolean): Generator<string | Uint8Array> {
+          for (const p of given) {
+            made++;
+            yield asBytes ? utf8(p) : p;
+          }
+        }
+        const empty = (function* (): Generator<string> {})();
+        await store.saveRunResult(run.id, { layers: { hotspots: onDemand(true), centres: onDemand(false), noise: empty, points: [utf8('{"p":1}')][Symbol.iterator]() }, hotspots: [] });
+        expect(made).toBe(2 * given.length);
+        const kept: string[] = [];
+        for await (const p of (await store.getRunLayerPieces(run.id, 'hotspots'))!) kept.push(p);
+        expect(kept.length).toBe(given.length);
+        expect(kept.join('') === given.join('')).toBe(true);
+        expect((await store.getRunLayer(run.id, 'centres')) === given.join('')).toBe(true);
+        expect(await store.getRunLayer(run.id, 'noise')).toBe('');
+        expect(await store.getRunLayer(run.id, 'points')).toBe('{"p":1}');
+        // a piece of another kind half-way: the save fails and the result saved before stays whole
+        function* broken(): Generator<unknown> {
+          yield '{"type":"FeatureCollection","features":[';
+          yield 7;
+        }
+        const hull = '{"type":"Polygon","coordinates":[[[0,0],[1,0],[0,1],[0,0]]]}';
+        await rejects(
+          store.saveRunResult(run.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: broken() as Iterable<string> }, hotspots: [{ hotspotId: 1, trackId: 't1', members: ['a'], coreMembers: ['a'], hull }] }),
+          'invalid',
+        );
+        expect((await store.getRunLayer(run.id, 'hotspots')) === given.join('')).toBe(true);
+        expect(await store.getRunLayer(run.id, 'points')).toBe('{"p":1}');
+        expect(await store.getRunHotspots(run.id)).toEqual([]);
+        await rejects(store.saveRunResult(run.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: utf8('{}') as unknown as string }, hotspots: [] }), 'invalid');
+        // the store is still usable after a save that failed half-way
+        await store.saveRunResult(run.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: '{"q":2}' }, hotspots: [] });
+        expect(await store.getRunLayer(run.id, 'points')).toBe('{"q":2}');
+      });
+
       it('each queued run is claimed by exactly one of many concurrent claimers on two stores', async () => {
         const other = await open();
         const ids = new Set<string>();
@@ -721,6 +762,30 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         }
         throw new Error('no lease ran out');
       };
+
+      it('keep the lease a claim had going into a save that took longer than the lease', async () => {
+        const other = await open();
+        const run = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const held = (await store.claimNextRun('w1:1', 1000))!;
+        expect(held.id).toBe(run.id);
+        let spent = 0;
+        // a layer made while it is stored, slower than the whole lease (a busy wait: the save is one
+        // transaction, during which no heartbeat could renew the lease)
+        function* slow(): Generator<string> {
+          const t0 = Date.now();
+          while (Date.now() - t0 < 1200);
+          spent = Date.now() - t0;
+          yield '{"slow":true}';
+        }
+        await store.saveRunResult(run.id, { layers: { hotspots: '{}', centres: '{}', noise: '{}', points: slow() }, hotspots: [] }, 'w1:1');
+        const after = (await store.getRun('herons', run.id))!;
+        expect(spent).toBeGreaterThanOrEqual(1200);
+        expect(Date.parse(after.leaseUntil!) - Date.parse(held.leaseUntil!)).toBeGreaterThanOrEqual(spent);
+        // the lease has not run out: no other store takes the run over, and its claimer finishes it
+        expect(await other.reclaimExpiredRuns(3)).toEqual({ requeued: [], failed: [] });
+        expect(await store.updateRun(run.id, { status: 'succeeded', progress: 100 }, ['running'], 'w1:1')).toMatchObject({ status: 'succeeded' });
+        expect(await store.getRunLayer(run.id, 'points')).toBe('{"slow":true}');
+      });
 
       it('hold a lease: renewed only by their claim, taken over by any store once it runs out, failed after too many interruptions', async () => {
         const other = await open();
