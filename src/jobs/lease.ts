@@ -12,7 +12,9 @@
  * which is within 2 H of the death: 20 s with the default. A process whose renewal comes more than
  * H / 2 late (an event loop held up that long, a database that stopped answering) may lose its run
  * to another process; its own writes to the run then fail (they carry its claim id), it stops the
- * run and leaves it to the new claimer, so a run is never finished twice.
+ * run and leaves it to the new claimer, so a run is never finished twice. Its own look for stopped
+ * runs first renews the leases of the runs it executes, so a process never takes its own run back
+ * after a long step held its event loop.
  */
 import type { Run, Store } from '../storage/store.js';
 

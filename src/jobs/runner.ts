@@ -98,9 +98,28 @@ export class Runner {
    * @returns the ids queued again and failed
    */
   async recover(): Promise<{ requeued: string[]; failed: string[] }> {
+    await this.renewInFlight();
     const out = await this.options.store.reclaimExpiredRuns(MAX_INTERRUPTIONS);
     if (out.requeued.length + out.failed.length > 0) this.log.warn(out, 'runs interrupted by a stopped process');
     return out;
+  }
+
+  /**
+   * Renews the lease of every run executing here before this process looks for runs whose lease
+   * ran out. A lease of ours can only have run out while this process was alive but its event loop
+   * held up (a long step on the main thread delays the heartbeat and this look alike); without
+   * this, the look would find our own run and queue it again. A run the store no longer gives to
+   * our claim is left to keepLease, which notices at its next beat.
+   */
+  private async renewInFlight(): Promise<void> {
+    const ms = leaseMs(this.heartbeatMs);
+    for (const [claim, entry] of this.inFlight) {
+      try {
+        await this.options.store.renewRunLease(entry.runId, claim, ms);
+      } catch (err) {
+        this.log.warn({ err, run: entry.runId }, 'could not renew the run\'s lease before looking for stopped runs');
+      }
+    }
   }
 
   /** Starts taking runs: now and every pollMs; and taking over runs whose lease ran out. */
