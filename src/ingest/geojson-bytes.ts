@@ -133,6 +133,26 @@ function scanString(i: number): number {
   return i + 1;
 }
 
+/** set by memberName: where the member name's text lies, [keyStart, keyEnd) */
+let keyStart = 0;
+let keyEnd = 0;
+
+/**
+ * Reads the member name whose opening quote is at `i`, and its colon; sets keyStart and keyEnd.
+ * Names with escapes, or longer than `maxChars` bytes, are outside the fast path.
+ * @returns the index of the member's value
+ */
+function memberName(i: number, maxChars: number): number {
+  if (B[i] !== C.Quote) throw NOT_FAST;
+  keyStart = i + 1;
+  i = scanString(i);
+  if (strEscaped || i - keyStart - 1 > maxChars) throw NOT_FAST;
+  keyEnd = i - 1;
+  i = ws(i);
+  if (B[i] !== C.Colon) throw NOT_FAST;
+  return ws(i + 1);
+}
+
 /**
  * Whether bytes [s, e) are well-formed UTF-8 (source: RFC 3629 §4, the syntax of UTF-8 byte
  * sequences: no overlong forms, no surrogates, nothing above U+10FFFF). Text that is not is
@@ -454,14 +474,9 @@ function scanCollection(weightKey: Uint8Array | null, timeKey: Uint8Array, optio
   i = ws(i + 1);
   if (b[i] === C.CloseBrace) throw NOT_FAST;
   for (;;) {
-    if (b[i] !== C.Quote) throw NOT_FAST;
-    const ks = i + 1;
-    i = scanString(i);
-    if (strEscaped) throw NOT_FAST;
-    const ke = i - 1;
-    i = ws(i);
-    if (b[i] !== C.Colon) throw NOT_FAST;
-    i = ws(i + 1);
+    i = memberName(i, Number.MAX_SAFE_INTEGER);
+    const ks = keyStart;
+    const ke = keyEnd;
     if (isKey(ks, ke, K_TYPE)) {
       if (sawType || b[i] !== C.Quote) throw NOT_FAST;
       sawType = true;
@@ -548,14 +563,9 @@ function scanFeature(i: number, cols: Columns, weightKey: Uint8Array | null, tim
   i = ws(i + 1);
   if (b[i] === C.CloseBrace) throw NOT_FAST;
   for (;;) {
-    if (b[i] !== C.Quote) throw NOT_FAST;
-    const ks = i + 1;
-    i = scanString(i);
-    if (strEscaped || i - ks - 1 > MAX_KEY_CHARS) throw NOT_FAST;
-    const ke = i - 1;
-    i = ws(i);
-    if (b[i] !== C.Colon) throw NOT_FAST;
-    i = ws(i + 1);
+    i = memberName(i, MAX_KEY_CHARS);
+    const ks = keyStart;
+    const ke = keyEnd;
     const c = b[i];
     if (isKey(ks, ke, K_TYPE)) {
       if (sawType || c !== C.Quote) throw NOT_FAST;
@@ -757,14 +767,9 @@ function scanPoint(i: number, cols: Columns, row: number): number {
   i = ws(i + 1);
   if (b[i] === C.CloseBrace) throw NOT_FAST;
   for (;;) {
-    if (b[i] !== C.Quote) throw NOT_FAST;
-    const ks = i + 1;
-    i = scanString(i);
-    if (strEscaped || i - ks - 1 > MAX_KEY_CHARS) throw NOT_FAST;
-    const ke = i - 1;
-    i = ws(i);
-    if (b[i] !== C.Colon) throw NOT_FAST;
-    i = ws(i + 1);
+    i = memberName(i, MAX_KEY_CHARS);
+    const ks = keyStart;
+    const ke = keyEnd;
     if (isKey(ks, ke, K_TYPE)) {
       if (sawType || b[i] !== C.Quote) throw NOT_FAST;
       sawType = true;
