@@ -14,22 +14,11 @@ import { buildApp } from '../../src/http/app.js';
 import { LARGE_STORE_BYTES } from '../../src/http/routes/observations.js';
 import { openStore, type StoreConfig } from '../../src/storage/index.js';
 import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
-import { seeded, testConfig } from './helper.js';
+import { testConfig } from './helper.js';
+import { collection, health, healthUntil, JSON_TYPE, postObservations } from './large-store-helpers.js';
 
-const GEO = { 'content-type': 'application/geo+json' };
-const JSON_TYPE = { 'content-type': 'application/json' };
 const pgSkip = await postgresSkipReason();
 
-/** `n` seeded points near Zurich with ids `${prefix}${i}`. */
-function collection(prefix: string, n: number, seed: number): string {
-  const rnd = seeded(seed);
-  const fs: string[] = [];
-  for (let i = 0; i < n; i++) {
-    const c = [Number((8.5 + rnd() * 0.1).toFixed(6)), Number((47.3 + rnd() * 0.1).toFixed(6))];
-    fs.push(JSON.stringify({ type: 'Feature', id: `${prefix}${i}`, geometry: { type: 'Point', coordinates: c }, properties: { k: i % 7 } }));
-  }
-  return `{"type":"FeatureCollection","features":[${fs.join(',')}]}`;
-}
 
 describe.skipIf(pgSkip !== null)(`large observation posts on PostgreSQL${pgSkip ? ` (skipped: ${pgSkip})` : ''}`, () => {
   const schema = `roost_large_${process.pid}`;
@@ -37,18 +26,6 @@ describe.skipIf(pgSkip !== null)(`large observation posts on PostgreSQL${pgSkip 
   let base = '';
   let db: pg.Client;
 
-  const health = async (): Promise<{ storing: number }> => (await (await fetch(`${base}/healthz`)).json()) as { storing: number };
-  /** Polls /healthz every 10 ms until `done` holds, at most 30 s. */
-  const healthUntil = async (done: (h: { storing: number }) => boolean): Promise<void> => {
-    const end = Date.now() + 30_000;
-    for (;;) {
-      const h = await health();
-      if (done(h)) return;
-      if (Date.now() > end) throw new Error(`healthz still ${JSON.stringify(h)}`);
-      await new Promise((r) => setTimeout(r, 10));
-    }
-  };
-  const post = (id: string, body: string): Promise<Response> => fetch(`${base}/v1/datasets/${id}/observations`, { method: 'POST', headers: GEO, body });
   /** Every observation id of a dataset in stored (seq) order. */
   const storedIds = async (id: string): Promise<string[]> => (await db.query(`SELECT obs_id FROM ${schema}.observations WHERE dataset_id = $1 ORDER BY seq`, [id])).rows.map((r: { obs_id: string }) => r.obs_id);
 
@@ -81,11 +58,11 @@ describe.skipIf(pgSkip !== null)(`large observation posts on PostgreSQL${pgSkip 
     await db.query(`SELECT id FROM ${schema}.datasets WHERE id = 'order' FOR UPDATE`);
     let released = false;
     try {
-      const largeAnswer = post('order', large);
+      const largeAnswer = postObservations(base, 'order', large);
       // counted under `storing`: the post is in the job thread, not on the main thread
-      await healthUntil((h) => h.storing === 1);
-      const smallAnswer = post('order', small);
-      for (let k = 0; k < 5; k++) expect((await health()).storing).toBe(1);
+      await healthUntil(base, (h) => h.storing === 1);
+      const smallAnswer = postObservations(base, 'order', small);
+      for (let k = 0; k < 5; k++) expect((await health(base)).storing).toBe(1);
       await db.query('COMMIT');
       released = true;
       const [l, s] = await Promise.all([largeAnswer, smallAnswer]);
@@ -96,14 +73,14 @@ describe.skipIf(pgSkip !== null)(`large observation posts on PostgreSQL${pgSkip 
     } finally {
       if (!released) await db.query('ROLLBACK');
     }
-    await healthUntil((h) => h.storing === 0);
+    await healthUntil(base, (h) => h.storing === 0);
     const ids = await storedIds('order');
     expect(ids.length).toBe(20_010);
     const largeIds = Array.from({ length: 20_000 }, (_, i) => `L${i}`);
     const smallIds = Array.from({ length: 10 }, (_, i) => `s${i}`);
     expect(ids[0] === 'L0' ? ids : [...ids.slice(10), ...ids.slice(0, 10)]).toEqual([...largeIds, ...smallIds]);
     // a repeat stores nothing and counts every observation as a duplicate
-    const again = await post('order', large);
+    const again = await postObservations(base, 'order', large);
     expect(await again.json()).toMatchObject({ stored: true, accepted: 0, duplicate: 20_000 });
     expect((await storedIds('order')).length).toBe(20_010);
   });
@@ -124,10 +101,10 @@ describe.skipIf(pgSkip !== null)(`large observation posts on PostgreSQL${pgSkip 
     const count = async (): Promise<number> => (await db.query(`SELECT n FROM ${schema}.fault_count`)).rows[0].n as number;
     try {
       // 15 000 inserts pass the trigger
-      expect((await post('fault', collection('E', 15_000, 15))).status).toBe(200);
+      expect((await postObservations(base, 'fault', collection('E', 15_000, 15))).status).toBe(200);
       expect(await count()).toBe(15_000);
       await db.query(`UPDATE ${schema}.fault_count SET n = 0`);
-      const res = await post('fault', collection('F', 20_000, 13));
+      const res = await postObservations(base, 'fault', collection('F', 20_000, 13));
       expect(res.status).toBe(503);
       expect(res.headers.get('content-type')).toMatch(/^application\/problem\+json/);
       expect(res.headers.get('retry-after')).toMatch(/^\d+$/);
@@ -145,7 +122,7 @@ describe.skipIf(pgSkip !== null)(`large observation posts on PostgreSQL${pgSkip 
       await db.query(`DROP TRIGGER fault_15001 ON ${schema}.observations; DROP FUNCTION ${schema}.fault_15001(); DROP TABLE ${schema}.fault_count;`);
     }
     // with the fault gone the same post is stored whole
-    const ok = await post('fault', collection('F', 20_000, 13));
+    const ok = await postObservations(base, 'fault', collection('F', 20_000, 13));
     expect(ok.status).toBe(200);
     expect((await storedIds('fault')).length).toBe(35_000);
   });

@@ -14,22 +14,11 @@ import type { FastifyInstance } from 'fastify';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { buildApp } from '../../src/http/app.js';
 import { LARGE_STORE_BYTES } from '../../src/http/routes/observations.js';
-import { expectMatchesSpec, pointsCollection, seeded, testConfig } from './helper.js';
+import { expectMatchesSpec, pointsCollection, testConfig } from './helper.js';
+import { collection, GEO, health, healthUntil, JSON_TYPE, postObservations } from './large-store-helpers.js';
 
-const GEO = { 'content-type': 'application/geo+json' };
-const JSON_TYPE = { 'content-type': 'application/json' };
 const PATH = '/v1/datasets/{id}/observations';
 
-/** `n` seeded points near Zurich with ids `${prefix}${i}`. */
-function collection(prefix: string, n: number, seed: number): string {
-  const rnd = seeded(seed);
-  const fs: string[] = [];
-  for (let i = 0; i < n; i++) {
-    const c = [Number((8.5 + rnd() * 0.1).toFixed(6)), Number((47.3 + rnd() * 0.1).toFixed(6))];
-    fs.push(JSON.stringify({ type: 'Feature', id: `${prefix}${i}`, geometry: { type: 'Point', coordinates: c }, properties: { k: i % 7 } }));
-  }
-  return `{"type":"FeatureCollection","features":[${fs.join(',')}]}`;
-}
 
 describe('large observation posts on an SQLite file', () => {
   let dir = '';
@@ -37,18 +26,6 @@ describe('large observation posts on an SQLite file', () => {
   let app: FastifyInstance;
   let base = '';
 
-  const health = async (): Promise<{ storing: number }> => (await (await fetch(`${base}/healthz`)).json()) as { storing: number };
-  /** Polls /healthz every 10 ms until `done` holds, at most 30 s. */
-  const healthUntil = async (done: (h: { storing: number }) => boolean): Promise<void> => {
-    const end = Date.now() + 30_000;
-    for (;;) {
-      const h = await health();
-      if (done(h)) return;
-      if (Date.now() > end) throw new Error(`healthz still ${JSON.stringify(h)}`);
-      await new Promise((r) => setTimeout(r, 10));
-    }
-  };
-  const post = (id: string, body: string): Promise<Response> => fetch(`${base}/v1/datasets/${id}/observations`, { method: 'POST', headers: GEO, body });
   /** Every observation id of a dataset in stored (seq) order. */
   const storedIds = (id: string): string[] => {
     const db = new Database(dbPath, { readonly: true });
@@ -83,11 +60,11 @@ describe('large observation posts on an SQLite file', () => {
     holder.exec('BEGIN IMMEDIATE');
     let released = false;
     try {
-      const largeAnswer = post('order', large);
-      await healthUntil((h) => h.storing === 1);
-      const smallAnswer = post('order', small);
+      const largeAnswer = postObservations(base, 'order', large);
+      await healthUntil(base, (h) => h.storing === 1);
+      const smallAnswer = postObservations(base, 'order', small);
       // the main thread is not blocked by the small post waiting for the lock: it keeps answering
-      for (let k = 0; k < 5; k++) expect((await health()).storing).toBe(1);
+      for (let k = 0; k < 5; k++) expect((await health(base)).storing).toBe(1);
       holder.exec('COMMIT');
       released = true;
       const [l, s] = await Promise.all([largeAnswer, smallAnswer]);
@@ -99,7 +76,7 @@ describe('large observation posts on an SQLite file', () => {
       if (!released) holder.exec('ROLLBACK');
       holder.close();
     }
-    await healthUntil((h) => h.storing === 0);
+    await healthUntil(base, (h) => h.storing === 0);
     const ids = storedIds('order');
     expect(ids.length).toBe(20_010);
     // each batch in one piece, in its input order, whichever took the lock first
@@ -107,7 +84,7 @@ describe('large observation posts on an SQLite file', () => {
     const smallIds = Array.from({ length: 10 }, (_, i) => `s${i}`);
     expect(ids[0] === 'L0' ? ids : [...ids.slice(10), ...ids.slice(0, 10)]).toEqual([...largeIds, ...smallIds]);
     // a repeat stores nothing and counts every observation as a duplicate
-    const again = await post('order', large);
+    const again = await postObservations(base, 'order', large);
     expect(await again.json()).toMatchObject({ stored: true, accepted: 0, duplicate: 20_000 });
     expect(storedIds('order').length).toBe(20_010);
   });
@@ -123,10 +100,10 @@ describe('large observation posts on an SQLite file', () => {
       END;`);
     try {
       // 15 000 inserts pass the trigger
-      expect((await post('fault', collection('E', 15_000, 15))).status).toBe(200);
+      expect((await postObservations(base, 'fault', collection('E', 15_000, 15))).status).toBe(200);
       expect(db.prepare('SELECT n FROM fault_count').pluck().get()).toBe(15_000);
       db.exec('UPDATE fault_count SET n = 0');
-      const res = await post('fault', collection('F', 20_000, 13));
+      const res = await postObservations(base, 'fault', collection('F', 20_000, 13));
       expect(res.status).toBe(503);
       expect(res.headers.get('content-type')).toMatch(/^application\/problem\+json/);
       expect(res.headers.get('retry-after')).toMatch(/^\d+$/);
@@ -142,7 +119,7 @@ describe('large observation posts on an SQLite file', () => {
 
       // the same fault on the main thread (a small post): also nothing stored, also 503
       db.exec('UPDATE fault_count SET n = 14990');
-      const smallRes = await post('fault', collection('G', 50, 14));
+      const smallRes = await postObservations(base, 'fault', collection('G', 50, 14));
       expect(smallRes.status).toBe(503);
       expect(((await smallRes.json()) as { code: string }).code).toBe('store-failed');
       expect(storedIds('fault').length).toBe(15_000);
@@ -151,13 +128,13 @@ describe('large observation posts on an SQLite file', () => {
       db.close();
     }
     // with the fault gone the same post is stored whole
-    const ok = await post('fault', collection('F', 20_000, 13));
+    const ok = await postObservations(base, 'fault', collection('F', 20_000, 13));
     expect(ok.status).toBe(200);
     expect(storedIds('fault').length).toBe(35_000);
   });
 
   it('places a large post against the latest run as a small post is placed', async () => {
-    expect((await post('placed', pointsCollection(400, 3))).status).toBe(200);
+    expect((await postObservations(base, 'placed', pointsCollection(400, 3))).status).toBe(200);
     const run = (await (await fetch(`${base}/v1/datasets/placed/runs`, { method: 'POST', headers: JSON_TYPE, body: '{}' })).json()) as { id: string };
     const end = Date.now() + 60_000;
     for (;;) {
