@@ -15,21 +15,10 @@ import { timeRule } from '../../src/ingest/checks.js';
 import { readGeoJsonBytes, type SpannedObservations } from '../../src/ingest/geojson-bytes.js';
 import { InputError, type Observations } from '../../src/ingest/types.js';
 import { pointFeature, pointFeatureFromSpans } from '../../src/run/cluster.js';
+import { rng } from '../reference/seeded.js';
 
 const SEED = Number(process.env.ROOST_SEED ?? 16);
 const CASES = Number(process.env.ROOST_CASES ?? 1500);
-
-/** mulberry32: a small seeded generator (common practice for reproducible tests, no source needed). */
-function rng(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
 
 /** The parsing reader as readObservations ran it before the byte reader: decode, drop a BOM, read. */
 function parsingRead(input: string | Buffer, options: ReadOptions): Observations {
@@ -154,7 +143,7 @@ function collection(r: () => number, options: ReadOptions): string | Buffer {
 describe('byte GeoJSON reader', () => {
   it('agrees with the parsing reader, and writes the same point features, on random and hostile input', () => {
     console.info(`byte reader seed ${SEED} (ROOST_SEED), ${CASES} cases (ROOST_CASES)`);
-    const r = rng(SEED);
+    const r = rng(SEED).next;
     let fast = 0;
     let accepted = 0;
     let rejected = 0;

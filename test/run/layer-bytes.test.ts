@@ -12,20 +12,9 @@ import { clusterInput, clusterObservations } from '../../src/run/cluster.js';
 import { resolveSettings } from '../../src/run/settings.js';
 import { readGeoJson } from '../../src/ingest/geojson.js';
 import { DEFAULT_TIME_RULE } from '../../src/ingest/checks.js';
+import { rng } from '../reference/seeded.js';
 
 const SEED = Number(process.env.ROOST_SEED ?? 16);
-
-/** mulberry32: a small seeded generator (common practice, no source needed). */
-function rng(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
 
 const PROPERTIES = [
   '{"species":"heron","observed_at":"2024-05-01T06:30:00Z"}',
@@ -68,7 +57,7 @@ describe('point layers written from the input bytes', () => {
   for (const method of ['dbscan', 'optics'] as const) {
     it(`are the parsing reader's layers byte for byte (${method})`, () => {
       console.info(`layer bytes seed ${SEED} (ROOST_SEED)`);
-      const text = input(rng(SEED), 600);
+      const text = input(rng(SEED).next, 600);
       const settings = resolveSettings({ eps: 300, min_points: 4, method });
       const fast = clusterInput(Buffer.from(text), 'geojson', settings);
       expect('spans' in fast.observations).toBe(true);
