@@ -60,7 +60,8 @@ export class SphereIndex {
   /** unit vectors in input order, stride 3 */
   readonly xyz: Float64Array;
 
-  private readonly cellSize: number;
+  /** edge of a grid cell on the unit sphere's scale: cell (ix, iy, iz) holds the vectors with ⌊x / cellSize⌋ = ix, and so on */
+  readonly cellSize: number;
   /** point ids sorted by cell (cells in lexicographic order of their grid coordinates); ascending id within a cell */
   readonly sorted: Int32Array;
   /*
@@ -78,9 +79,9 @@ export class SphereIndex {
   readonly nbrStart: Int32Array;
   readonly nbr: Int32Array;
   /** integer grid coordinates per cell, cells in lexicographic order */
-  private readonly cx: Int32Array;
-  private readonly cy: Int32Array;
-  private readonly cz: Int32Array;
+  readonly cx: Int32Array;
+  readonly cy: Int32Array;
+  readonly cz: Int32Array;
   /** number of non-empty cells */
   readonly cellCount: number;
 
