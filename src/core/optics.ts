@@ -227,13 +227,70 @@ function boxDistance2(index: SphereIndex, d: number, x: number, y: number, z: nu
 }
 
 /**
+ * Each cell's unit vectors again, ordered by x inside the cell (cells in the index's order): a
+ * search for near points can then run outward from a given x and stop where the x gap alone
+ * exceeds what it looks for.
+ */
+interface XOrdered {
+  ox: Float64Array;
+  oy: Float64Array;
+  oz: Float64Array;
+}
+
+function xOrdered(index: SphereIndex): XOrdered {
+  const { sxyz, cellStart, cellCount, n } = index;
+  const ox = new Float64Array(n), oy = new Float64Array(n), oz = new Float64Array(n);
+  let local = new Int32Array(64);
+  for (let c = 0; c < cellCount; c++) {
+    const q0 = cellStart[c], m = cellStart[c + 1] - q0;
+    if (m > local.length) local = new Int32Array(m);
+    // the cell's positions by x: insertion sort for the few points most cells hold
+    if (m > 32) {
+      for (let j = 0; j < m; j++) local[j] = j;
+      local.subarray(0, m).sort((i, j) => sxyz[3 * (q0 + i)] - sxyz[3 * (q0 + j)]);
+    } else {
+      for (let j = 0; j < m; j++) {
+        const v = sxyz[3 * (q0 + j)];
+        let s = j;
+        while (s > 0 && sxyz[3 * (q0 + local[s - 1])] > v) {
+          local[s] = local[s - 1];
+          s--;
+        }
+        local[s] = j;
+      }
+    }
+    for (let j = 0; j < m; j++) {
+      const q = q0 + local[j];
+      ox[q0 + j] = sxyz[3 * q];
+      oy[q0 + j] = sxyz[3 * q + 1];
+      oz[q0 + j] = sxyz[3 * q + 2];
+    }
+  }
+  return { ox, oy, oz };
+}
+
+/** First slot in [lo, hi) of the x-ordered cell whose x is ≥ x. */
+function firstAtLeast(ox: Float64Array, lo: number, hi: number, x: number): number {
+  while (lo < hi) {
+    const mid = (lo + hi) >>> 1;
+    if (ox[mid] < x) lo = mid + 1;
+    else hi = mid;
+  }
+  return lo;
+}
+
+/**
  * Core distances per index position, unweighted, k = ⌈minPoints⌉ ≤ SMALL_K: the k-th smallest
- * squared chord within the radius, the point's own cell read first; a neighbour cell whose box
- * lies farther than the k-th smallest found so far cannot change it and is skipped. The value is
- * the k-th smallest of the whole neighbourhood, as a full search finds it.
+ * squared chord within the radius. The point's own cell is read first; a neighbour cell whose box
+ * lies farther than the k-th smallest found so far cannot change it and is skipped; inside a cell
+ * the points are read outward from the point's x and the reading stops on each side where the
+ * squared x gap alone exceeds the k-th smallest so far (or the radius while fewer than k are
+ * found): the squared chord of every point beyond is at least that gap. The value is the k-th
+ * smallest of the whole neighbourhood, as a full search finds it.
  */
 function smallCoreDistances(index: SphereIndex, k: number): Float64Array {
   const { sxyz, cellStart, nbrStart, nbr, chord2: r2, cellCount } = index;
+  const { ox, oy, oz } = xOrdered(index);
   const out = new Float64Array(index.n).fill(Infinity);
   const top = new SmallestK(k);
   for (let c = 0; c < cellCount; c++) {
@@ -245,8 +302,19 @@ function smallCoreDistances(index: SphereIndex, k: number): Float64Array {
         // a = nbrStart[c] − 1 stands for the own cell, read first; it is skipped in the list
         const d = a < nbrStart[c] ? c : nbr[a];
         if (a >= nbrStart[c] && (d === c || (kth < Infinity && boxDistance2(index, d, x, y, z) > kth))) continue;
-        for (let q = cellStart[d], qEnd = cellStart[d + 1]; q < qEnd; q++) {
-          const dx = sxyz[3 * q] - x, dy = sxyz[3 * q + 1] - y, dz = sxyz[3 * q + 2] - z;
+        const lo = cellStart[d], hi = cellStart[d + 1];
+        const mid = firstAtLeast(ox, lo, hi, x);
+        for (let q = mid; q < hi; q++) {
+          const dx = ox[q] - x;
+          if (dx * dx > (kth < r2 ? kth : r2)) break;
+          const dy = oy[q] - y, dz = oz[q] - z;
+          const d2 = dx * dx + dy * dy + dz * dz;
+          if (d2 <= r2 && d2 < kth) kth = top.add(d2);
+        }
+        for (let q = mid - 1; q >= lo; q--) {
+          const dx = ox[q] - x;
+          if (dx * dx > (kth < r2 ? kth : r2)) break;
+          const dy = oy[q] - y, dz = oz[q] - z;
           const d2 = dx * dx + dy * dy + dz * dz;
           if (d2 <= r2 && d2 < kth) kth = top.add(d2);
         }
