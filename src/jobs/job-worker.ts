@@ -6,8 +6,9 @@
  * (src/ogc/layer-index.ts); and
  * executing runs with a store connection of the thread's own (better-sqlite3 and pg both work in
  * worker threads), so that neither parsing nor loading, clustering and saving a large dataset
- * holds up the main thread. Track assignment is asked of the main thread over a message port,
- * where the run hooks live.
+ * holds up the main thread. Tracks are assigned here too when the run hooks' assignTracks is the
+ * tracking hook (its thresholds come with the task); other hooks are asked on the main thread over
+ * a message port, where the run hooks live.
  */
 import { Buffer } from 'node:buffer';
 import type { MessagePort } from 'node:worker_threads';
@@ -19,6 +20,8 @@ import { publishLayerTexts, type PublishedLayers, type PublishOptions } from '..
 import { joinPieces } from '../storage/layer-pieces.js';
 import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
+import { assignTracks } from './tracking.js';
+import type { TrackSettings } from '../tracks/match.js';
 import { defaultThreads } from '../trust/trials.js';
 import { indexParts, type LayerIndexParts } from '../ogc/layer-index.js';
 
@@ -57,6 +60,8 @@ export interface RunTask {
   claim: string;
   /** the main thread answers `{type:'tracks', hotspots}` with `{assignment}` or `{error}` */
   port: MessagePort;
+  /** thresholds of the tracking hook (src/jobs/tracking.ts): tracks are assigned in this thread; absent: asked over `port` */
+  tracks?: Partial<TrackSettings>;
 }
 
 export interface IndexTask {
@@ -149,7 +154,9 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
     if (dataset === null || current === null) return { ok: false, cancelled: true, message: 'the dataset or run was deleted' };
     if (current.status !== 'running') return { ok: false, cancelled: true, message: `the run is ${current.status}` };
     if (current.workerId !== task.claim) return { ok: false, cancelled: true, message: 'the run was taken over by another process' };
-    const done = await executeRun(store, current, dataset, { assignTracks: (h) => askTracks(task.port, h), trialThreads: defaultThreads() });
+    const settings = task.tracks;
+    const assign = settings === undefined ? (h: FinishedHotspot[]) => askTracks(task.port, h) : (h: FinishedHotspot[]) => assignTracks({ store, dataset, run: current }, h, settings);
+    const done = await executeRun(store, current, dataset, { assignTracks: assign, trialThreads: defaultThreads() });
     return { ok: true, ...done };
   } catch (err) {
     const e = err instanceof Error ? err : new Error(String(err));
