@@ -330,7 +330,7 @@ export class SqliteStore implements Store {
       const ids = cols.length === 0 ? [] : (joinedIds ?? '').split('\n');
       cols.ids = ids.length === cols.length ? ids : (this.db.prepare(`SELECT obs_id FROM ${from} WHERE ${where} ORDER BY seq`).pluck().all(first, last, ...args) as string[]);
       if (cols.ids.length !== cols.length) throw new Error('observations changed between two reads of one snapshot');
-      // The texts in chunks of TEXT_CHUNK rows, each chunk one string (see PackedTexts).
+      // The texts in chunks of TEXT_CHUNK rows, each chunk one buffer of UTF-8 (see PackedTexts).
       const texts = new PackedTexts();
       const joined = this.db.prepare(`SELECT CAST(group_concat(feature, char(10)) AS BLOB) FROM ${from} WHERE ${where}`).pluck();
       const each = this.db.prepare(`SELECT feature FROM ${from} WHERE ${where} ORDER BY seq`).pluck();
@@ -338,7 +338,7 @@ export class SqliteStore implements Store {
       for (let k = 0; k < seqs.length; k += TEXT_CHUNK) {
         const m = Math.min(TEXT_CHUNK, seqs.length - k);
         const range = [seqs[k], seqs[k + m - 1], ...args];
-        if (!texts.addJoined(decodeText(joined.get(...range) as Buffer), m)) texts.addEach(each.all(...range) as string[]);
+        if (!texts.addJoinedBytes(joined.get(...range) as Buffer, m)) texts.addEach(each.all(...range) as string[]);
       }
       return cols.finish(texts);
     });
