@@ -4,8 +4,9 @@
  * again and again; reading it from SQLite each time, a chain of overflow pages, was the largest
  * cost of the main thread under the soak benchmark) and in pages (its index: where each feature
  * is, with its id, box and time span, src/ogc/layer-index.ts). An entry holds the layer's bytes
- * once, in memory that threads share, and the index (made in a job thread) refers to those same
- * bytes, so a layer both sent whole and paged is never held twice.
+ * once: as read from the store while it is only sent whole, and once indexed as one buffer in
+ * memory that threads share, which the index (made in a job thread) refers to and whole-layer
+ * GETs send from then on, so a layer both sent whole and paged is never held twice.
  *
  * The bound is on the bytes held in all (the layers' bytes and their indexes' arrays), least
  * recently used out first: `lru-cache` with `maxSize` and `sizeCalculation` (see DEVELOPERS.md).
@@ -24,9 +25,11 @@ import { indexParts, layerIndexFrom, type LayerIndex, type LayerIndexParts } fro
 export type LayerIndexer = (bytes: Uint8Array) => Promise<LayerIndexParts>;
 
 interface Entry {
-  /** the layer's UTF-8 bytes, in memory that threads share */
-  bytes: Buffer;
-  /** its index once made */
+  /** the layer's UTF-8 bytes: the pieces as read, or once indexed one buffer in memory that threads share */
+  pieces: Buffer[];
+  /** their length in all */
+  length: number;
+  /** its index once made (over the one shared buffer in `pieces`) */
   index: LayerIndex | null;
   /** bytes of the index's own arrays and ids */
   indexBytes: number;
@@ -59,10 +62,10 @@ export class LayerCache {
   private readonly making = new Map<string, Promise<LayerIndex>>();
 
   constructor(
-    readonly maxBytes = 256 * 1024 * 1024,
+    readonly maxBytes = 128 * 1024 * 1024,
     readonly maxSentBytes = 32 * 1024 * 1024,
   ) {
-    this.entries = new LRUCache<string, Entry>({ maxSize: maxBytes, sizeCalculation: (e) => Math.max(1, e.bytes.length + e.indexBytes) });
+    this.entries = new LRUCache<string, Entry>({ maxSize: maxBytes, sizeCalculation: (e) => Math.max(1, e.length + e.indexBytes) });
   }
 
   /** bytes held now: layers and their indexes */
@@ -77,11 +80,12 @@ export class LayerCache {
   async pieces(store: Store, runId: string, layer: LayerName): Promise<AsyncIterable<Buffer> | Buffer[] | null> {
     const key = `${runId}/${layer}`;
     const hit = this.entries.get(key);
-    if (hit !== undefined) return [hit.bytes];
+    if (hit !== undefined) return hit.pieces;
     const read = await store.getRunLayerBytes(runId, layer);
     if (read === null) return null;
     const keep = (seen: Buffer[], length: number): void => {
-      if (!this.entries.has(key)) this.entries.set(key, { bytes: joined(seen, length), index: null, indexBytes: 0 });
+      // kept as read: they are copied into one shared buffer only if the layer is indexed
+      if (!this.entries.has(key)) this.entries.set(key, { pieces: seen, length, index: null, indexBytes: 0 });
     };
     const maxSentBytes = this.maxSentBytes;
     return (async function* () {
@@ -106,10 +110,11 @@ export class LayerCache {
     const making = this.making.get(key);
     if (making !== undefined) return making;
     const made = (async () => {
-      const bytes = hit?.bytes ?? (await this.read(load));
+      const bytes = hit === undefined ? await this.read(load) : joined(hit.pieces, hit.length);
       const parts = indexer === undefined ? indexParts(bytes) : await indexer(bytes);
       const index = layerIndexFrom(bytes, parts);
-      this.entries.set(key, { bytes, index, indexBytes: partsBytes(parts) });
+      // the pieces give way to the one buffer the index refers to: the layer is held once
+      this.entries.set(key, { pieces: [bytes], length: bytes.length, index, indexBytes: partsBytes(parts) });
       return index;
     })();
     this.making.set(key, made);

@@ -99,15 +99,21 @@ function rssMiB(pid: number): { mib: number; anon: number; file: number } {
 }
 
 /**
- * The service's JavaScript heap after its last garbage collection, MiB: used and reserved, from
- * the last line V8's --trace-gc wrote to the log ("… -> 120.3 (171.1) MB, …"; the format is V8's
- * own, not a documented interface, so a line it cannot read gives NaN).
+ * The main thread's JavaScript heap after its last garbage collection, MiB: used and reserved,
+ * from the last line V8's --trace-gc wrote to the log for the main isolate ("[pid:0xADDR] … ->
+ * 120.3 (171.1) MB, …"; each worker thread is an isolate of its own, at another address, and
+ * the main one collects first). The format is V8's own, not a documented interface, so a log it
+ * cannot read gives NaN.
  */
 function heapMiB(log: string): { heap: number; heapReserved: number } {
-  const text = readFileSync(log, 'utf8');
-  const at = text.lastIndexOf(' MB, ');
-  const m = at < 0 ? null : /-> ([\d.]+) \(([\d.]+)\)$/.exec(text.slice(Math.max(0, at - 40), at));
-  return m ? { heap: Number(m[1]), heapReserved: Number(m[2]) } : { heap: NaN, heapReserved: NaN };
+  const lines = readFileSync(log, 'utf8').split('\n');
+  const gc = /^\[(\d+:0x[0-9a-f]+)\].*-> ([\d.]+) \(([\d.]+)\) MB, /;
+  const main = lines.map((l) => gc.exec(l)).find((m) => m !== null)?.[1];
+  for (let i = lines.length - 1; i >= 0; i--) {
+    const m = gc.exec(lines[i]!);
+    if (m !== null && m[1] === main) return { heap: Number(m[2]), heapReserved: Number(m[3]) };
+  }
+  return { heap: NaN, heapReserved: NaN };
 }
 
 const counts = new Map<string, number>();
@@ -307,7 +313,7 @@ async function main(): Promise<void> {
     '',
     'Every 5 s, with the observations stored at that moment.',
     '',
-    '| t (s) | RSS | own (anon) | mapped files | JS heap used (reserved) after the last GC | observations |',
+    '| t (s) | RSS | own (anon) | mapped files | main thread’s JS heap used (reserved) after the last GC | observations |',
     '| ---: | ---: | ---: | ---: | ---: | ---: |',
     ...rss.map((r) => `| ${r.t.toFixed(0)} | ${r.mib.toFixed(0)} | ${r.anon.toFixed(0)} | ${r.file.toFixed(0)} | ${r.heap.toFixed(0)} (${r.heapReserved.toFixed(0)}) | ${r.observations ?? '?'} |`),
     '',
