@@ -6,9 +6,8 @@
  * (src/ogc/layer-index.ts); and
  * executing runs with a store connection of the thread's own (better-sqlite3 and pg both work in
  * worker threads), so that neither parsing nor loading, clustering and saving a large dataset
- * holds up the main thread. Tracks are assigned here too when the run hooks' assignTracks is the
- * tracking hook (its thresholds come with the task); other hooks are asked on the main thread over
- * a message port, where the run hooks live.
+ * holds up the main thread. Track assignment is asked of the main thread over a message port,
+ * where the run hooks live.
  */
 import { Buffer } from 'node:buffer';
 import type { MessagePort } from 'node:worker_threads';
@@ -60,7 +59,7 @@ export interface RunTask {
   claim: string;
   /** the main thread answers `{type:'tracks', hotspots}` with `{assignment}` or `{error}` */
   port: MessagePort;
-  /** thresholds of the tracking hook (src/jobs/tracking.ts): tracks are assigned in this thread; absent: asked over `port` */
+  /** when given, the tracks are matched in this thread with these thresholds (RunHooks.tracksInThread), not asked of the main thread */
   tracks?: Partial<TrackSettings>;
 }
 
@@ -154,8 +153,8 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
     if (dataset === null || current === null) return { ok: false, cancelled: true, message: 'the dataset or run was deleted' };
     if (current.status !== 'running') return { ok: false, cancelled: true, message: `the run is ${current.status}` };
     if (current.workerId !== task.claim) return { ok: false, cancelled: true, message: 'the run was taken over by another process' };
-    const settings = task.tracks;
-    const assign = settings === undefined ? (h: FinishedHotspot[]) => askTracks(task.port, h) : (h: FinishedHotspot[]) => assignTracks({ store, dataset, run: current }, h, settings);
+    const tracks = task.tracks;
+    const assign = tracks === undefined ? (h: FinishedHotspot[]) => askTracks(task.port, h) : (h: FinishedHotspot[]) => assignTracks({ store, dataset, run: current }, h, tracks);
     const done = await executeRun(store, current, dataset, { assignTracks: assign, trialThreads: defaultThreads() });
     return { ok: true, ...done };
   } catch (err) {

@@ -6,7 +6,7 @@
 import type { TrackSettings } from '../tracks/match.js';
 import type { RunHooks } from './hooks.js';
 import { notifyRun, resolveWebhookSettings, type DeliveryReport, type NoticeLog, type WebhookSettings } from './notify.js';
-import { trackingHook } from './tracking.js';
+import { assignTracks } from './tracking.js';
 
 export interface RoostHookOptions {
   /** tracking thresholds; default DEFAULT_TRACK_SETTINGS */
@@ -35,7 +35,8 @@ export function createRoostHooks(options: RoostHookOptions = {}): RoostHooks {
   const pending = new Set<Promise<void>>();
   const stop = new AbortController();
   return {
-    assignTracks: trackingHook(options.trackSettings),
+    assignTracks: (ctx, hotspots) => assignTracks(ctx, hotspots, options.trackSettings),
+    tracksInThread: { ...options.trackSettings },
     async afterRun(ctx, outcome) {
       if (stop.signal.aborted) return;
       // the dataset as it is now: a webhook changed or removed during the run is respected

@@ -26,7 +26,6 @@ import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, RunContext, RunHooks, RunOutcome } from './hooks.js';
 import type { JobPool } from './job-pool.js';
 import { DEFAULT_HEARTBEAT_MS, keepLease, leaseMs, MAX_INTERRUPTIONS, takeoverScanMs } from './lease.js';
-import { jobThreadTracks } from './tracking.js';
 
 export { MAX_INTERRUPTIONS } from './lease.js';
 
@@ -211,8 +210,8 @@ export class Runner {
           );
         });
         try {
-          const tracks = jobThreadTracks(hooks.assignTracks);
-          const res = await this.options.pool!.run({ store: this.options.storeConfig, datasetId: run.datasetId, runId: run.id, claim, port: port2, ...(tracks === undefined ? {} : { tracks }) }, signal);
+          const tracks = hooks.tracksInThread === undefined ? {} : { tracks: hooks.tracksInThread };
+          const res = await this.options.pool!.run({ store: this.options.storeConfig, datasetId: run.datasetId, runId: run.id, claim, port: port2, ...tracks }, signal);
           if (!res.ok) {
             if (res.cancelled) cancelled = true;
             else failure = res.message;
