@@ -21,7 +21,7 @@ import type { HullGeometry } from '../geometry/hull.js';
 import { roundDecimals, roundMeters, roundSignificant } from '../geometry/rounding.js';
 import type { RunHotspot as StoredHotspot, Store } from '../storage/store.js';
 import { formatTrackId, matchRuns, type RunHotspot, type TrackSettings, type Transition, type TransitionKind } from '../tracks/match.js';
-import type { FinishedHotspot, RunContext, RunHooks, TrackAssignment } from './hooks.js';
+import type { FinishedHotspot, RunContext, TrackAssignment } from './hooks.js';
 
 /** The transition kinds in the order summaries list them. */
 export const TRANSITION_KINDS: readonly TransitionKind[] = ['emergence', 'survival', 'split', 'absorption', 'disappearance'];
@@ -164,30 +164,6 @@ function matchPending(previous: RunHotspot[], current: RunHotspot[], settings: P
     return PENDING + seq;
   });
   return { match, needed };
-}
-
-/** The hooks' assignTracks functions made by trackingHook, with their thresholds. */
-const hookSettings = new WeakMap<object, Partial<TrackSettings>>();
-
-/**
- * The `assignTracks` run hook: assignTracks with these thresholds. A run executed in a job thread
- * (src/jobs/job-worker.ts) recognises it (jobThreadTracks) and assigns the tracks there, on the
- * thread's own store connection, instead of sending every member id to the main thread and
- * holding its event loop while they are matched (seconds at a million members, longer than a
- * lease at ten million).
- */
-export function trackingHook(settings: Partial<TrackSettings> = {}): RunHooks['assignTracks'] {
-  const hook: RunHooks['assignTracks'] = (ctx, hotspots) => assignTracks(ctx, hotspots, settings);
-  hookSettings.set(hook, settings);
-  return hook;
-}
-
-/**
- * The thresholds of an `assignTracks` hook made by trackingHook, which a job thread can then run
- * itself; undefined for any other hook (which is asked on the main thread).
- */
-export function jobThreadTracks(hook: RunHooks['assignTracks']): Partial<TrackSettings> | undefined {
-  return hookSettings.get(hook);
 }
 
 /**

@@ -1,17 +1,16 @@
 /**
- * Tracks assigned in the run's job thread: a service run (a job worker thread with its own store
- * connection) whose hooks are the tracking hook assigns the tracks in that thread, and the track
- * ids and changes are the ones the same runs get with the hook called on this thread. A failure
- * of the tracking there fails the run with the service's own message naming the run (the detail
- * goes to the log), as any failure inside the service does; a hook of the caller's own is still
- * asked on the main thread.
+ * Tracks assigned in the run's job thread (RunHooks.tracksInThread; see also
+ * tracks-in-thread.test.ts): the thresholds of the service's hooks reach the thread, so a history
+ * with endings, starts and a survival on hulls under thresholds that are not the defaults gives
+ * the track ids and changes the hook called on this thread gives. A failure of the tracking there
+ * fails the run with the service's own message naming the run (the detail goes to the log), as any
+ * failure inside the service does; a hook of the caller's own is still asked on the main thread.
  */
 import { afterEach, describe, expect, it } from 'vitest';
 import type { FinishedHotspot, RunContext, RunHooks } from '../../src/jobs/hooks.js';
 import { createJobPool, type JobPool } from '../../src/jobs/job-pool.js';
 import { Runner } from '../../src/jobs/runner.js';
 import { createRoostHooks } from '../../src/jobs/run-hooks.js';
-import { jobThreadTracks } from '../../src/jobs/tracking.js';
 import type { Run, Store } from '../../src/storage/store.js';
 import { DATASET, grid, runOnce, tempStore } from './helpers.js';
 
@@ -83,12 +82,6 @@ async function history(store: Store, execute: () => Promise<Run>): Promise<unkno
 }
 
 describe('tracks in the job thread', () => {
-  it('the tracking hook is recognised with its thresholds; a hook of the caller\'s own is not', () => {
-    expect(jobThreadTracks(createRoostHooks({ trackSettings: SETTINGS }).assignTracks)).toEqual(SETTINGS);
-    expect(jobThreadTracks(createRoostHooks().assignTracks)).toEqual({});
-    expect(jobThreadTracks(async () => ({ trackIds: [], changes: null }))).toBeUndefined();
-  });
-
   it('give the same track ids and changes as the hook called on this thread', async () => {
     const hooks = createRoostHooks({ trackSettings: SETTINGS });
     const here = await fileStore();
