@@ -8,12 +8,16 @@
  *
  * Seed: ROOST_SEED (printed); cases: ROOST_CASES.
  */
+import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { readObservations, type ReadOptions } from '../../src/ingest/read.js';
 import { readGeoJson } from '../../src/ingest/geojson.js';
 import { timeRule } from '../../src/ingest/checks.js';
 import { readGeoJsonBytes, type SpannedObservations } from '../../src/ingest/geojson-bytes.js';
 import { InputError, type Observations } from '../../src/ingest/types.js';
+import { InputFile } from '../../src/ingest/source.js';
 import { pointFeature, pointFeatureFromSpans } from '../../src/run/cluster.js';
 import { rng } from '../reference/seeded.js';
 
@@ -192,6 +196,53 @@ describe('byte GeoJSON reader', () => {
     expect(accepted - fast).toBeGreaterThan(CASES / 50);
     expect(rejected).toBeGreaterThan(CASES / 10);
     expect(verbatim).toBeGreaterThan(CASES);
+  });
+
+  it('reads a file in windows cut at random places exactly as the same bytes in memory', () => {
+    console.info(`byte reader windows seed ${SEED} (ROOST_SEED), ${Math.ceil(CASES / 3)} cases`);
+    const r = rng(SEED + 1).next;
+    const dir = mkdtempSync(join(tmpdir(), 'roost-windows-'));
+    let fast = 0;
+    let moved = 0;
+    try {
+      for (let c = 0; c < CASES / 3; c++) {
+        const options: ReadOptions = { format: 'geojson', weightProperty: r() < 0.3 ? 'count' : null, timeColumn: r() < 0.2 ? 'when' : undefined };
+        const input = collection(r, options);
+        const bytes = typeof input === 'string' ? Buffer.from(input, 'utf8') : input;
+        const path = join(dir, `case-${c}.geojson`);
+        writeFileSync(path, bytes);
+        // windows from 16 bytes (every feature cut, the window grown) to more than the whole input
+        const windowBytes = 16 + Math.floor(r() ** 2 * (bytes.length + 32));
+        const context = `case ${c}: window ${windowBytes} of ${bytes.length} bytes, ${JSON.stringify(options)} ${JSON.stringify(bytes.toString('latin1'))}`;
+        const expected = outcome(() => readObservations(bytes, options));
+        const actual = outcome(() => readObservations(new InputFile(path, windowBytes), options));
+        if ('error' in expected) {
+          expect('error' in actual ? actual.error : actual, context).toEqual(expected.error);
+          continue;
+        }
+        expect('ok' in actual, context).toBe(true);
+        const a = (actual as { ok: Observations }).ok;
+        const e = expected.ok;
+        expect(sameNumbers(a.points.lon, e.points.lon) && sameNumbers(a.points.lat, e.points.lat), context).toBe(true);
+        expect(sameNumbers(a.points.weight, e.points.weight) && sameNumbers(a.observedAt, e.observedAt), context).toBe(true);
+        expect(Array.from(a.features), context).toEqual(Array.from(e.features));
+        // the file goes the byte reader's way exactly when the bytes in memory do
+        const spans = (a as Partial<SpannedObservations>).spans;
+        expect(spans !== undefined, context).toBe((e as Partial<SpannedObservations>).spans !== undefined);
+        if (spans === undefined) continue;
+        fast++;
+        if (windowBytes < bytes.length) moved++;
+        const memory = (e as SpannedObservations).spans;
+        for (let i = 0; i < a.points.n; i++) {
+          const extra = i % 2 === 0 ? '' : `,"optics_order":${i},"reachability_m":null`;
+          expect(pointFeatureFromSpans(spans, i, a.points.lon[i]!, a.points.lat[i]!, i % 3 - 1, i % 3, extra), context).toBe(pointFeatureFromSpans(memory, i, e.points.lon[i]!, e.points.lat[i]!, i % 3 - 1, i % 3, extra));
+        }
+      }
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
+    console.info(`${fast} files read by the byte reader, ${moved} of them through a window smaller than the file`);
+    expect(moved).toBeGreaterThan(CASES / 30);
   });
 
   it('leaves to the parsing reader what it does not read exactly', () => {
