@@ -56,6 +56,8 @@ export interface ByteReadOptions {
   weightProperty: string | null;
   time: TimeRule;
   maxFeatures: number;
+  /** a GeoJSON text sequence or newline-delimited GeoJSON (src/ingest/seq.ts) instead of a FeatureCollection */
+  sequence?: boolean;
 }
 
 // The scan state lives in module variables: one reader runs at a time on a thread, and the hot
@@ -481,7 +483,7 @@ export function readGeoJsonSource(source: MemorySource | InputFile, options: Byt
     FINAL = N >= source.size;
   }
   try {
-    return scanCollection(source, cols, weightKey, timeKey, options);
+    return options.sequence === true ? scanSequence(source, cols, weightKey, timeKey, options) : scanCollection(source, cols, weightKey, timeKey, options);
   } catch (err) {
     if (err !== NOT_FAST) throw err;
     if (stopped !== undefined) {
@@ -558,6 +560,62 @@ function wsAcross(i: number): number {
     if (i < N || FINAL) return i;
     i = shift(i);
   }
+}
+
+const RS = 0x1e;
+
+/**
+ * Scans a GeoJSON text sequence (records after RS characters, RFC 8142) or newline-delimited
+ * GeoJSON (one record a line) as src/ingest/seq.ts reads it: RS first means RS-separated records,
+ * else one record per line. Only records that are one Feature the byte reader reads, with nothing
+ * but JSON white space around them, are read here; an RS anywhere in line mode, a feature over two
+ * lines, two on one line or anything else goes to the parsing reader.
+ */
+function scanSequence(source: ByteSource, cols: Columns, weightKey: Uint8Array | null, timeKey: Uint8Array, options: ByteReadOptions): SpannedObservations {
+  let i = 0;
+  if (B[0] === 0xef && B[1] === 0xbb && B[2] === 0xbf) i = 3; // byte-order mark
+  i = wsAcross(i);
+  const rs = B[i] === RS;
+  let timeSeen = false;
+  let timed = 0;
+  for (;;) {
+    // separators: RS and white space between records; white space and line feeds between lines
+    for (;;) {
+      i = wsAcross(i);
+      if (rs && B[i] === RS) i++;
+      else break;
+    }
+    if (i >= N) break;
+    if (cols.n === cols.cap) cols.grow(cols.cap * 2);
+    i = ahead(i);
+    const f = i;
+    try {
+      i = scanFeature(i, cols, weightKey, timeKey, options.time);
+    } catch (err) {
+      if (!shortOfBytes(err, f)) throw err;
+      i = shift(f);
+      continue;
+    }
+    if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) timed++;
+    if (lastTimeFound) timeSeen = true;
+    if (!rs) {
+      for (let k = f; k < i; k++) if (B[k] === 10) throw NOT_FAST;
+      // the rest of the line: spaces, tabs and carriage returns only
+      for (;;) {
+        const c = B[i];
+        if (c === 32 || c === 9 || c === 13) i++;
+        else if (i >= N && !FINAL) i = shift(i);
+        else break;
+      }
+      if (i < N && B[i] !== 10) throw NOT_FAST;
+    } else {
+      i = wsAcross(i);
+      if (i < N && B[i] !== RS) throw NOT_FAST;
+    }
+  }
+  if (cols.n === 0 || cols.n > options.maxFeatures) throw NOT_FAST;
+  if (options.time.property !== TIME_PROPERTY && !timeSeen) throw NOT_FAST;
+  return observations(source, cols, timed);
 }
 
 const M_TYPE = 0;
@@ -658,6 +716,11 @@ function scanCollection(source: ByteSource, cols: Columns, weightKey: Uint8Array
   // a time property other than observed_at that no feature has is a problem the parsing reader names
   if (options.time.property !== TIME_PROPERTY && !timeSeen) throw NOT_FAST;
 
+  return observations(source, cols, timed);
+}
+
+/** The observations of the features scanned into cols. */
+function observations(source: ByteSource, cols: Columns, timed: number): SpannedObservations {
   const n = cols.n;
   const spans: FeatureSpans = {
     source,

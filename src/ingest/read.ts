@@ -134,16 +134,17 @@ export function readObservations(input: string | Buffer | InputFile, options: Re
   const weightProperty = options.weightProperty ?? null;
   if (weightProperty === '') throw new RangeError('weightProperty must name a property (or be null for weight 1 each)');
 
-  // GeoJSON FeatureCollections of the usual shape are read from the bytes without parsing them
-  // into objects (src/ingest/geojson-bytes.ts), a file in windows without holding it whole;
+  // GeoJSON FeatureCollections and text sequences of the usual shape are read from the bytes
+  // without parsing them into objects (src/ingest/geojson-bytes.ts), a file in windows without holding it whole;
   // anything else goes on to the parsing readers below. Text that is not well-formed UTF-16 is
   // left to them; bytes that are not UTF-8 are found by the byte reader.
   const stopped = { feature: -1, offset: 0 };
-  if (!options.storable && (options.format ?? detectFormat(input instanceof InputFile ? head(input) : input)) === 'geojson') {
+  const sniffed = options.format ?? detectFormat(input instanceof InputFile ? head(input) : input);
+  if (!options.storable && sniffed !== 'csv') {
     const source = input instanceof InputFile ? input : typeof input !== 'string' ? new MemorySource(input) : (input as unknown as { isWellFormed(): boolean }).isWellFormed() ? new MemorySource(Buffer.from(input, 'utf8')) : null;
     // a time format that cannot be used is reported below, after the checks that come first
     const time = source === null ? null : timeRuleOrNull(options.timeColumn, options.timeFormat);
-    const fast = source === null || time === null ? null : readGeoJsonSource(source, { weightProperty, time, maxFeatures }, stopped);
+    const fast = source === null || time === null ? null : readGeoJsonSource(source, { weightProperty, time, maxFeatures, sequence: sniffed === 'geojson-seq' }, stopped);
     if (fast !== null) return fast;
   }
 

@@ -14,6 +14,7 @@ import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { readObservations, type ReadOptions } from '../../src/ingest/read.js';
 import { readGeoJson } from '../../src/ingest/geojson.js';
+import { readGeoJsonSeq } from '../../src/ingest/seq.js';
 import { timeRule } from '../../src/ingest/checks.js';
 import { readGeoJsonBytes, type SpannedObservations } from '../../src/ingest/geojson-bytes.js';
 import { InputError, type Observations } from '../../src/ingest/types.js';
@@ -124,6 +125,22 @@ function feature(r: () => number, hostile: boolean, weighted: boolean, timeKey: 
     [members[k], members[j]] = [members[j]!, members[k]!];
   }
   return `{${members.map(([key, v]) => `${ws(r, hostile)}"${key}"${ws(r, hostile)}:${ws(r, hostile)}${v}`).join(',')}${ws(r, hostile)}}`;
+}
+
+/** Records of features: after RS characters (RFC 8142) or one a line, with blank lines, CRLF and hostile joins now and then. */
+function sequence(r: () => number, options: ReadOptions): string {
+  const hostile = r() < 0.6;
+  const n = 1 + Math.floor(r() * 8);
+  const features = Array.from({ length: n }, () => feature(r, hostile && r() < 0.3, options.weightProperty != null, options.timeColumn ?? 'observed_at'));
+  const rs = r() < 0.4;
+  let text = '';
+  for (const f of features) {
+    if (rs) text += pick(r, ['\u001e', '\u001e', '\u001e\u001e', ' \u001e']) + f + pick(r, ['\n', '\n', '', ' \n\n', hostile ? '\u00a0\n' : '\n']);
+    else text += f + pick(r, ['\n', '\n', '\r\n', '\n\n  \n', hostile ? ' {"type":"Feature"}\n' : '\n', hostile ? '\u001e\n' : '\n']);
+  }
+  if (r() < 0.3) text = text.replace(/\n$/, '');
+  if (r() < 0.1) text = '\ufeff' + text;
+  return text;
 }
 
 function collection(r: () => number, options: ReadOptions): string | Buffer {
@@ -243,6 +260,56 @@ describe('byte GeoJSON reader', () => {
     }
     console.info(`${fast} files read by the byte reader, ${moved} of them through a window smaller than the file`);
     expect(moved).toBeGreaterThan(CASES / 30);
+  });
+
+  it('reads text sequences and newline-delimited GeoJSON as the parsing reader does, in memory and from files in windows', () => {
+    console.info(`byte reader sequences seed ${SEED} (ROOST_SEED), ${Math.ceil(CASES / 3)} cases`);
+    const r = rng(SEED + 2).next;
+    const dir = mkdtempSync(join(tmpdir(), 'roost-seq-'));
+    let fast = 0;
+    let accepted = 0;
+    let rejected = 0;
+    try {
+      for (let c = 0; c < CASES / 3; c++) {
+        const options: ReadOptions = { format: 'geojson-seq', weightProperty: r() < 0.3 ? 'count' : null, timeColumn: r() < 0.2 ? 'when' : undefined, maxFeatures: r() < 0.05 ? 3 : undefined };
+        const bytes = Buffer.from(sequence(r, options), 'utf8');
+        const path = join(dir, `case-${c}.geojsonl`);
+        writeFileSync(path, bytes);
+        const windowBytes = 16 + Math.floor(r() ** 2 * (bytes.length + 32));
+        const context = `case ${c}: window ${windowBytes}, ${JSON.stringify(options)} ${JSON.stringify(bytes.toString('utf8'))}`;
+        const time = timeRule(options.timeColumn, options.timeFormat);
+        let text = bytes.toString('utf8');
+        if (text.charCodeAt(0) === 0xfeff) text = text.slice(1);
+        const expected = outcome(() => readGeoJsonSeq(text, options.weightProperty ?? null, 100, options.maxFeatures ?? Number.MAX_SAFE_INTEGER, time, false));
+        for (const input of [bytes, new InputFile(path, windowBytes)]) {
+          const actual = outcome(() => readObservations(input, options));
+          if ('error' in expected) {
+            expect('error' in actual ? actual.error : actual, context).toEqual(expected.error);
+            continue;
+          }
+          expect('ok' in actual, context).toBe(true);
+          const a = (actual as { ok: Observations }).ok;
+          const e = expected.ok;
+          expect(sameNumbers(a.points.lon, e.points.lon) && sameNumbers(a.points.lat, e.points.lat), context).toBe(true);
+          expect(sameNumbers(a.points.weight, e.points.weight) && sameNumbers(a.observedAt, e.observedAt), context).toBe(true);
+          expect(Array.from(a.features), context).toEqual(e.features);
+          const spans = (a as Partial<SpannedObservations>).spans;
+          if (spans === undefined) continue;
+          fast++;
+          for (let i = 0; i < a.points.n; i++) {
+            expect(pointFeatureFromSpans(spans, i, a.points.lon[i]!, a.points.lat[i]!, i % 3 - 1, i % 3), context).toBe(pointFeature(e.features[i]!, i % 3 - 1, i % 3));
+          }
+        }
+        if ('error' in expected) rejected++;
+        else accepted++;
+      }
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
+    console.info(`sequences: accepted ${accepted} (${fast} reads by the byte reader, memory and file counted apart), rejected ${rejected}`);
+    expect(fast).toBeGreaterThan(CASES / 15);
+    expect(accepted * 2 - fast).toBeGreaterThan(CASES / 50);
+    expect(rejected).toBeGreaterThan(CASES / 30);
   });
 
   it('leaves to the parsing reader what it does not read exactly', () => {
