@@ -70,6 +70,8 @@ let BASE = 0;
 let FINAL = true;
 /** the file being scanned in windows; null for bytes in memory */
 let FILE: InputFile | null = null;
+/** length of the whole source */
+let SIZE = 0;
 /** the window's memory (B is its first N bytes) */
 let WIN: Uint8Array = new Uint8Array(0);
 /** set by scanString: the string held a backslash */
@@ -468,8 +470,10 @@ export function readGeoJsonSource(source: MemorySource | InputFile, options: Byt
   if (source.size >= 2 ** 32) return null;
   const weightKey = weightProperty === null ? null : new Uint8Array(Buffer.from(weightProperty, 'utf8'));
   const timeKey = new Uint8Array(Buffer.from(time.property, 'utf8'));
-  const cols = new Columns(Math.max(16, Math.min(Math.ceil(source.size / 120), 1 << 24)), weightKey !== null);
+  // room for the first features; sized to the input once they show how long a feature is (sizeColumns)
+  const cols = new Columns(Math.max(16, Math.min(Math.ceil(source.size / 100), ESTIMATE_AT + 1)), weightKey !== null);
   BASE = 0;
+  SIZE = source.size;
   if (source instanceof MemorySource) {
     B = source.bytes;
     N = B.length;
@@ -493,7 +497,7 @@ export function readGeoJsonSource(source: MemorySource | InputFile, options: Byt
     return null;
   } finally {
     B = WIN = new Uint8Array(0);
-    N = BASE = 0;
+    N = BASE = SIZE = 0;
     FILE = null;
     FINAL = true;
   }
@@ -598,6 +602,7 @@ function scanSequence(source: ByteSource, cols: Columns, weightKey: Uint8Array |
     }
     if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) timed++;
     if (lastTimeFound) timeSeen = true;
+    if (cols.n === ESTIMATE_AT) sizeColumns(cols, BASE + i);
     if (!rs) {
       for (let k = f; k < i; k++) if (B[k] === 10) throw NOT_FAST;
       // the rest of the line: spaces, tabs and carriage returns only
@@ -616,6 +621,19 @@ function scanSequence(source: ByteSource, cols: Columns, weightKey: Uint8Array |
   if (cols.n === 0 || cols.n > options.maxFeatures) throw NOT_FAST;
   if (options.time.property !== TIME_PROPERTY && !timeSeen) throw NOT_FAST;
   return observations(source, cols, timed);
+}
+
+/** Features scanned before the columns are sized to the whole input. */
+const ESTIMATE_AT = 2048;
+
+/**
+ * Sizes the columns for the whole input from the bytes the first ESTIMATE_AT features took (up to
+ * `consumed`), with a little to spare, so that a large input is neither copied while growing nor
+ * held in columns far longer than it needs.
+ */
+function sizeColumns(cols: Columns, consumed: number): void {
+  const want = Math.ceil((SIZE / consumed) * cols.n * 1.04) + 64;
+  if (want > cols.cap) cols.grow(Math.min(want, 2 ** 30));
 }
 
 const M_TYPE = 0;
@@ -645,6 +663,7 @@ function scanFeatures(i: number, cols: Columns, weightKey: Uint8Array | null, ti
     }
     if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) scanTimed++;
     if (lastTimeFound) scanTimeSeen = true;
+    if (cols.n === ESTIMATE_AT) sizeColumns(cols, BASE + i);
     i = wsAcross(i);
     if (B[i] === C.Comma) {
       i = wsAcross(i + 1);

@@ -312,6 +312,33 @@ describe('byte GeoJSON reader', () => {
     expect(rejected).toBeGreaterThan(CASES / 30);
   });
 
+  it('reads thousands of features whose length changes partway, from a file in small windows, as the parsing reader does', () => {
+    // short features first, from which the columns are sized, then long ones that outgrow that size
+    const r = rng(SEED + 3).next;
+    const features = Array.from({ length: 3000 }, (_, i) => {
+      const note = i < 2048 ? '' : `,"note":"${'x'.repeat(Math.floor(r() * 400))}"`;
+      return `{"type":"Feature","id":"f${i}","geometry":{"type":"Point","coordinates":[${(r() * 360 - 180).toFixed(6)},${(r() * 180 - 90).toFixed(6)}]},"properties":{"count":${i % 7}${note}}}`;
+    });
+    const text = `{"type":"FeatureCollection","features":[${features.join(',\n')}]}`;
+    const dir = mkdtempSync(join(tmpdir(), 'roost-long-'));
+    try {
+      const path = join(dir, 'long.geojson');
+      writeFileSync(path, text);
+      const options: ReadOptions = { format: 'geojson', weightProperty: 'count' };
+      const e = parsingRead(text, options);
+      for (const input of [Buffer.from(text), new InputFile(path, 4096)]) {
+        const a = readObservations(input, options) as SpannedObservations;
+        expect(a.spans).toBeDefined();
+        expect(a.points.n).toBe(3000);
+        expect(sameNumbers(a.points.lon, e.points.lon) && sameNumbers(a.points.lat, e.points.lat) && sameNumbers(a.points.weight, e.points.weight)).toBe(true);
+        for (let i = 0; i < 3000; i += 7) expect(pointFeatureFromSpans(a.spans, i, a.points.lon[i]!, a.points.lat[i]!, -1, 0)).toBe(pointFeature(e.features[i]!, -1, 0));
+        expect(a.features[2999]).toEqual(e.features[2999]);
+      }
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
+  });
+
   it('leaves to the parsing reader what it does not read exactly', () => {
     const time = timeRule(undefined, undefined);
     const read = (text: string): SpannedObservations | null => readGeoJsonBytes(Buffer.from(text), { weightProperty: null, time, maxFeatures: 100 });
