@@ -339,6 +339,23 @@ describe('byte GeoJSON reader', () => {
     }
   });
 
+  it('names the feature where it stopped when the input is too large for the parsing reader', () => {
+    // a file over 512 MiB is too large to build here; its bytes stand in, refusing to become one string as such a file's do
+    const text = '{"type":"FeatureCollection","features":[{"type":"Feature","geometry":{"type":"Point","coordinates":[1,2]},"properties":{}},{"type":"Feature","bbox":[1,2,1,2],"geometry":{"type":"Point","coordinates":[1,2]},"properties":{}}]}';
+    const bytes = Buffer.from(text);
+    bytes.toString = () => {
+      throw Object.assign(new Error('Cannot create a string longer than 0x1fffffe8 characters'), { code: 'ERR_STRING_TOO_LONG' });
+    };
+    const got = outcome(() => readObservations(bytes, { format: 'geojson' }));
+    expect('error' in got && got.error.problems).toEqual([
+      {
+        index: null,
+        code: 'input-too-large',
+        message: `the input is 0 MiB, more than can be read as one text; feature 1 (after byte ${text.indexOf('},{') + 1}) is not a plain Point Feature of a FeatureCollection read that way, or is wrong — split it into smaller files`,
+      },
+    ]);
+  });
+
   it('leaves to the parsing reader what it does not read exactly', () => {
     const time = timeRule(undefined, undefined);
     const read = (text: string): SpannedObservations | null => readGeoJsonBytes(Buffer.from(text), { weightProperty: null, time, maxFeatures: 100 });
