@@ -19,8 +19,8 @@
  *
  * Distances are great-circle metres; "undefined" distances of the paper are Infinity. Ties are
  * broken by point id throughout, so the same input in the same order gives the same result.
- * Memory is linear in n: neighbourhoods come from the sphere grid on demand and only one point's
- * neighbourhood is held at a time.
+ * Memory is linear in n: neighbourhoods come from the sphere grid on demand and at most one
+ * point's neighbourhood is held at a time (only with weights or a minPoints above 32).
  */
 import { metersForChord2 } from './haversine.js';
 import { RADIUS_TOLERANCE_M, SphereIndex } from './sphere-index.js';
@@ -58,90 +58,90 @@ export interface XiCluster {
 }
 
 /**
- * Seed list of OPTICS: a binary min-heap of point ids keyed by reachability, with decrease-key.
+ * Seed list of OPTICS: a binary min-heap of index positions (see `SphereIndex.sorted`) keyed by
+ * their reachability, with decrease-key through the heap slot of each position.
  * Order: smaller reachability first, then smaller point id, so the ordering is deterministic.
  */
 class SeedHeap {
   private readonly heap: Int32Array;
-  /** position of each point id in `heap`, −1 when absent */
-  private readonly pos: Int32Array;
+  /** heap slot of each position, −1 when absent */
+  private readonly slot: Int32Array;
   size = 0;
 
   constructor(
     n: number,
+    /** reachability per position */
     private readonly key: Float64Array,
+    /** point id per position */
+    private readonly id: Int32Array,
   ) {
     this.heap = new Int32Array(n);
-    this.pos = new Int32Array(n).fill(-1);
-  }
-
-  has(id: number): boolean {
-    return this.pos[id] !== -1;
+    this.slot = new Int32Array(n).fill(-1);
   }
 
   private less(a: number, b: number): boolean {
     const ka = this.key[a];
     const kb = this.key[b];
-    return ka < kb || (ka === kb && a < b);
+    return ka < kb || (ka === kb && this.id[a] < this.id[b]);
   }
 
-  push(id: number): void {
-    this.heap[this.size] = id;
-    this.pos[id] = this.size;
+  push(k: number): void {
+    this.heap[this.size] = k;
+    this.slot[k] = this.size;
     this.size++;
     this.up(this.size - 1);
   }
 
-  /** Restores heap order after the key of `id` went down. */
-  decreased(id: number): void {
-    this.up(this.pos[id]);
+  /** Restores heap order after the key of position k went down. */
+  decreased(k: number): void {
+    this.up(this.slot[k]);
   }
 
   pop(): number {
     const heap = this.heap;
     const top = heap[0];
-    this.pos[top] = -1;
+    this.slot[top] = -1;
     this.size--;
     if (this.size > 0) {
       const last = heap[this.size];
       heap[0] = last;
-      this.pos[last] = 0;
+      this.slot[last] = 0;
       this.down(0);
     }
     return top;
   }
 
-  private up(k: number): void {
+  private up(s: number): void {
     const heap = this.heap;
-    const id = heap[k];
-    while (k > 0) {
-      const parent = (k - 1) >> 1;
+    const k = heap[s];
+    while (s > 0) {
+      const parent = (s - 1) >> 1;
       const p = heap[parent];
-      if (!this.less(id, p)) break;
-      heap[k] = p;
-      this.pos[p] = k;
-      k = parent;
+      if (!this.less(k, p)) break;
+      heap[s] = p;
+      this.slot[p] = s;
+      s = parent;
     }
-    heap[k] = id;
-    this.pos[id] = k;
+    heap[s] = k;
+    this.slot[k] = s;
   }
 
-  private down(k: number): void {
+  private down(s: number): void {
     const heap = this.heap;
     const size = this.size;
-    const id = heap[k];
+    const k = heap[s];
     for (;;) {
-      let child = 2 * k + 1;
+      let child = 2 * s + 1;
       if (child >= size) break;
       if (child + 1 < size && this.less(heap[child + 1], heap[child])) child++;
       const c = heap[child];
-      if (!this.less(c, id)) break;
-      heap[k] = c;
-      this.pos[c] = k;
-      k = child;
+      if (!this.less(c, k)) break;
+      heap[s] = c;
+      this.slot[c] = s;
+      s = child;
     }
-    heap[k] = id;
-    this.pos[id] = k;
+    heap[s] = k;
+    this.slot[k] = s;
   }
 }
 
@@ -171,10 +171,161 @@ function selectKth(a: Float64Array, m: number, k: number): number {
   return a[k];
 }
 
+/**
+ * Largest count of points (minPoints, unweighted) for which the core distance is found by keeping
+ * the smallest distances in a sorted run and skipping the cells that cannot hold a smaller one;
+ * above it, and with weights, the whole neighbourhood is gathered and searched.
+ */
+const SMALL_K = 32;
+
+/**
+ * Slack on the unit sphere's scale (about 6 µm on the ground) by which a cell's box is widened
+ * before it is ruled out: a vector sits in its cell up to the rounding of ⌊x / cellSize⌋, far
+ * less than this.
+ */
+const BOX_SLACK = 1e-12;
+
 function checkMinPoints(minPoints: number): void {
   if (!Number.isFinite(minPoints) || minPoints < 1) {
     throw new RangeError(`minPoints must be a number ≥ 1 (the point itself counts), got ${minPoints}`);
   }
+}
+
+/** The k smallest values offered, kept sorted by insertion. */
+class SmallestK {
+  private readonly best: Float64Array;
+  filled = 0;
+
+  constructor(private readonly k: number) {
+    this.best = new Float64Array(k);
+  }
+
+  /** Offers d; returns the k-th smallest so far, Infinity while fewer than k were offered. */
+  add(d: number): number {
+    const best = this.best;
+    const k = this.k;
+    let s = this.filled < k ? this.filled++ : k - 1;
+    while (s > 0 && best[s - 1] > d) {
+      best[s] = best[s - 1];
+      s--;
+    }
+    best[s] = d;
+    return this.filled === k ? best[k - 1] : Infinity;
+  }
+}
+
+/** Squared distance from (x, y, z) to the box of cell d, the box widened by BOX_SLACK. */
+function boxDistance2(index: SphereIndex, d: number, x: number, y: number, z: number): number {
+  const s = index.cellSize;
+  const gap = (v: number, cell: number): number => {
+    const lo = cell * s - BOX_SLACK;
+    const hi = (cell + 1) * s + BOX_SLACK;
+    return v < lo ? lo - v : v > hi ? v - hi : 0;
+  };
+  const ex = gap(x, index.cx[d]), ey = gap(y, index.cy[d]), ez = gap(z, index.cz[d]);
+  return ex * ex + ey * ey + ez * ez;
+}
+
+/**
+ * Core distances per index position, unweighted, k = ⌈minPoints⌉ ≤ SMALL_K: the k-th smallest
+ * squared chord within the radius, the point's own cell read first; a neighbour cell whose box
+ * lies farther than the k-th smallest found so far cannot change it and is skipped. The value is
+ * the k-th smallest of the whole neighbourhood, as a full search finds it.
+ */
+function smallCoreDistances(index: SphereIndex, k: number): Float64Array {
+  const { sxyz, cellStart, nbrStart, nbr, chord2: r2, cellCount } = index;
+  const out = new Float64Array(index.n).fill(Infinity);
+  const top = new SmallestK(k);
+  for (let c = 0; c < cellCount; c++) {
+    for (let p = cellStart[c], pEnd = cellStart[c + 1]; p < pEnd; p++) {
+      const x = sxyz[3 * p], y = sxyz[3 * p + 1], z = sxyz[3 * p + 2];
+      top.filled = 0;
+      let kth = Infinity;
+      for (let a = nbrStart[c] - 1, aEnd = nbrStart[c + 1]; a < aEnd; a++) {
+        // a = nbrStart[c] − 1 stands for the own cell, read first; it is skipped in the list
+        const d = a < nbrStart[c] ? c : nbr[a];
+        if (a >= nbrStart[c] && (d === c || (kth < Infinity && boxDistance2(index, d, x, y, z) > kth))) continue;
+        for (let q = cellStart[d], qEnd = cellStart[d + 1]; q < qEnd; q++) {
+          const dx = sxyz[3 * q] - x, dy = sxyz[3 * q + 1] - y, dz = sxyz[3 * q + 2] - z;
+          const d2 = dx * dx + dy * dy + dz * dz;
+          if (d2 <= r2 && d2 < kth) kth = top.add(d2);
+        }
+      }
+      out[p] = kth;
+    }
+  }
+  return out;
+}
+
+/**
+ * Core distances per index position in general (weights, or a large minPoints): each
+ * neighbourhood gathered whole into reused buffers, then quickselect, or with weights the
+ * neighbours sorted by distance (ties by point id) until their summed weight reaches minPoints.
+ */
+function gatheredCoreDistances(index: SphereIndex, weight: Float64Array | null, minPoints: number): Float64Array {
+  const { sxyz, cellStart, nbrStart, nbr, chord2: r2, cellCount, sorted } = index;
+  const out = new Float64Array(index.n).fill(Infinity);
+  let pos = new Int32Array(64);
+  let c2 = new Float64Array(64);
+  let perm = new Int32Array(64);
+  for (let c = 0; c < cellCount; c++) {
+    let around = 0;
+    for (let a = nbrStart[c]; a < nbrStart[c + 1]; a++) around += cellStart[nbr[a] + 1] - cellStart[nbr[a]];
+    if (around > pos.length) {
+      pos = new Int32Array(around);
+      c2 = new Float64Array(around);
+      perm = new Int32Array(around);
+    }
+    for (let p = cellStart[c], pEnd = cellStart[c + 1]; p < pEnd; p++) {
+      const x = sxyz[3 * p], y = sxyz[3 * p + 1], z = sxyz[3 * p + 2];
+      let m = 0;
+      for (let a = nbrStart[c], aEnd = nbrStart[c + 1]; a < aEnd; a++) {
+        for (let q = cellStart[nbr[a]], qEnd = cellStart[nbr[a] + 1]; q < qEnd; q++) {
+          const dx = sxyz[3 * q] - x, dy = sxyz[3 * q + 1] - y, dz = sxyz[3 * q + 2] - z;
+          const d2 = dx * dx + dy * dy + dz * dz;
+          if (d2 <= r2) {
+            pos[m] = q;
+            c2[m++] = d2;
+          }
+        }
+      }
+      out[p] = weight === null ? countedCore(c2, m, Math.ceil(minPoints)) : weightedCore(pos, c2, perm, m, weight, sorted, minPoints);
+    }
+  }
+  return out;
+}
+
+/** k-th smallest of c2[0..m), Infinity when m < k; reorders c2. */
+function countedCore(c2: Float64Array, m: number, k: number): number {
+  return m < k ? Infinity : selectKth(c2, m, k - 1);
+}
+
+/** Smallest squared chord at which the summed weight, nearest first (ties by point id), reaches minPoints. */
+function weightedCore(pos: Int32Array, c2: Float64Array, perm: Int32Array, m: number, weight: Float64Array, id: Int32Array, minPoints: number): number {
+  let total = 0;
+  for (let a = 0; a < m; a++) total += weight[pos[a]];
+  if (total < minPoints) return Infinity;
+  const p = perm.subarray(0, m);
+  for (let a = 0; a < m; a++) p[a] = a;
+  p.sort((a, b) => c2[a] - c2[b] || id[pos[a]] - id[pos[b]]);
+  let sum = 0;
+  for (let a = 0; a < m; a++) {
+    sum += weight[pos[p[a]]];
+    if (sum >= minPoints) return c2[p[a]];
+  }
+  return Infinity;
+}
+
+/** Core distances (squared chords) per index position. */
+function coreDistances(index: SphereIndex, points: PointSet, minPoints: number): Float64Array {
+  const k = Math.ceil(minPoints);
+  if (points.weight === null && k <= SMALL_K) return smallCoreDistances(index, k);
+  let weight: Float64Array | null = null;
+  if (points.weight !== null) {
+    weight = new Float64Array(index.n);
+    for (let p = 0; p < index.n; p++) weight[p] = points.weight[index.sorted[p]];
+  }
+  return gatheredCoreDistances(index, weight, minPoints);
 }
 
 /**
@@ -184,6 +335,11 @@ function checkMinPoints(minPoints: number): void {
  * itself included, weight 1 each without weights) reaches `minPoints`, if that is within
  * `maxEpsMeters`; otherwise Infinity. Reachability of o from p: max(coreDistance(p), d(p, o)).
  * The next start point after the seed list empties is the lowest unprocessed point id.
+ *
+ * Core distances do not depend on the ordering, so they are found first, in one pass in the
+ * index's cell order. The walk then runs in index positions (points sorted by grid cell, where
+ * a neighbourhood sits close together in memory), reads only the neighbourhoods of core points
+ * and skips the points already ordered; the results are put back in point-id order at the end.
  *
  * @param points observations (degrees, optional weights)
  * @param options maxEpsMeters: generating radius in metres (> 0); minPoints: core threshold (≥ 1,
@@ -197,106 +353,76 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
   }
   checkMinPoints(minPoints);
   const n = points.n;
-  const weight = points.weight;
-  // reach and coreDist hold squared chords on the unit sphere until the end of the run: chord
-  // length orders pairs exactly as ground distance does, and max() commutes with the conversion
-  const reach = new Float64Array(n).fill(Infinity);
-  const coreDist = new Float64Array(n).fill(Infinity);
-  const pred = new Int32Array(n).fill(-1);
   const order = new Int32Array(n);
-  const result: OpticsResult = { order, reachability: reach, coreDistance: coreDist, predecessor: pred, maxEpsMeters, minPoints };
+  const result: OpticsResult = {
+    order,
+    reachability: new Float64Array(n).fill(Infinity),
+    coreDistance: new Float64Array(n).fill(Infinity),
+    predecessor: new Int32Array(n).fill(-1),
+    maxEpsMeters,
+    minPoints,
+  };
   if (n === 0) return result;
 
   const index = new SphereIndex(points, maxEpsMeters);
+  const { sorted, sxyz, cellStart, nbrStart, nbr, chord2: r2, cellOf } = index;
+  // per position: reach and core hold squared chords on the unit sphere until the end of the
+  // run (chord length orders pairs exactly as ground distance does, and max() commutes with the
+  // conversion); pred holds the point id reached from
+  const core = coreDistances(index, points, minPoints);
+  const reach = new Float64Array(n).fill(Infinity);
+  const pred = new Int32Array(n).fill(-1);
   const processed = new Uint8Array(n);
-  const seeds = new SeedHeap(n, reach);
-
-  // one neighbourhood at a time, in reusable buffers that grow to the largest neighbourhood seen
-  let cap = 64;
-  let nbId = new Int32Array(cap);
-  let nbC2 = new Float64Array(cap);
-  let scratch = new Float64Array(cap);
-  let perm = new Int32Array(cap);
-  let m = 0;
-  const collect = (j: number, chord2: number): void => {
-    if (m === cap) {
-      cap *= 2;
-      const id2 = new Int32Array(cap);
-      id2.set(nbId);
-      nbId = id2;
-      const c2 = new Float64Array(cap);
-      c2.set(nbC2);
-      nbC2 = c2;
-      scratch = new Float64Array(cap);
-      perm = new Int32Array(cap);
-    }
-    nbId[m] = j;
-    nbC2[m] = chord2;
-    m++;
-  };
-
-  /** Core distance, as a squared chord, of the neighbourhood held in the buffers. */
-  const coreOf = (): number => {
-    if (weight === null) {
-      const k = Math.ceil(minPoints);
-      if (m < k) return Infinity;
-      scratch.set(nbC2.subarray(0, m));
-      return selectKth(scratch, m, k - 1);
-    }
-    let total = 0;
-    for (let a = 0; a < m; a++) total += weight[nbId[a]];
-    if (total < minPoints) return Infinity;
-    const p = perm.subarray(0, m);
-    for (let a = 0; a < m; a++) p[a] = a;
-    p.sort((a, b) => nbC2[a] - nbC2[b] || nbId[a] - nbId[b]);
-    let sum = 0;
-    for (let a = 0; a < m; a++) {
-      sum += weight[nbId[p[a]]];
-      if (sum >= minPoints) return nbC2[p[a]];
-    }
-    return Infinity;
-  };
+  const seeds = new SeedHeap(n, reach, sorted);
 
   let done = 0;
   const step = Math.max(1, Math.floor(n / 100));
 
-  /** Appends p to the ordering and, when p is core, offers its neighbours to the seed list. */
-  const processPoint = (p: number): void => {
-    processed[p] = 1;
+  /** Appends position k to the ordering and, when its point is core, offers its unordered neighbours to the seed list. */
+  const processPosition = (k: number): void => {
+    processed[k] = 1;
+    const p = sorted[k];
+    const c = cellOf[p];
     order[done++] = p;
     if (onProgress && done % step === 0) onProgress(done / n);
-    m = 0;
-    index.forEachWithin(p, collect);
-    const cd = coreOf();
-    coreDist[p] = cd;
+    const cd = core[k];
     if (cd === Infinity) return;
-    for (let a = 0; a < m; a++) {
-      const o = nbId[a];
-      if (processed[o]) continue;
-      const d = nbC2[a];
-      const r = d > cd ? d : cd;
-      if (!seeds.has(o)) {
-        reach[o] = r;
-        pred[o] = p;
-        seeds.push(o);
-      } else if (r < reach[o]) {
-        // strictly smaller only: on equal reachability the earlier predecessor stays
-        reach[o] = r;
-        pred[o] = p;
-        seeds.decreased(o);
+    const x = sxyz[3 * k], y = sxyz[3 * k + 1], z = sxyz[3 * k + 2];
+    for (let a = nbrStart[c], aEnd = nbrStart[c + 1]; a < aEnd; a++) {
+      const d = nbr[a];
+      for (let o = cellStart[d], oEnd = cellStart[d + 1]; o < oEnd; o++) {
+        if (processed[o]) continue;
+        const dx = sxyz[3 * o] - x, dy = sxyz[3 * o + 1] - y, dz = sxyz[3 * o + 2] - z;
+        const d = dx * dx + dy * dy + dz * dz;
+        if (d > r2) continue;
+        const r = d > cd ? d : cd;
+        // strictly smaller only: on equal reachability the earlier predecessor stays. An
+        // unprocessed point is in the seed list exactly when its reachability is finite.
+        const before = reach[o];
+        if (r < before) {
+          reach[o] = r;
+          pred[o] = p;
+          if (before === Infinity) seeds.push(o);
+          else seeds.decreased(o);
+        }
       }
     }
   };
 
+  const posOf = new Int32Array(n);
+  for (let k = 0; k < n; k++) posOf[sorted[k]] = k;
   for (let start = 0; start < n; start++) {
-    if (processed[start]) continue;
-    processPoint(start);
-    while (seeds.size > 0) processPoint(seeds.pop());
+    const k = posOf[start];
+    if (processed[k]) continue;
+    processPosition(k);
+    while (seeds.size > 0) processPosition(seeds.pop());
   }
-  // distances were squared chords so far (same order, no trigonometry per neighbour): to metres
-  for (let i = 0; i < n; i++) {
-    if (reach[i] !== Infinity) reach[i] = metersForChord2(reach[i]);
-    if (coreDist[i] !== Infinity) coreDist[i] = metersForChord2(coreDist[i]);
+  // back to point ids, and from squared chords (same order, no trigonometry per neighbour) to metres
+  for (let k = 0; k < n; k++) {
+    const i = sorted[k];
+    if (reach[k] !== Infinity) result.reachability[i] = metersForChord2(reach[k]);
+    if (core[k] !== Infinity) result.coreDistance[i] = metersForChord2(core[k]);
+    result.predecessor[i] = pred[k];
   }
   if (onProgress && done % step !== 0) onProgress(1);
   return result;

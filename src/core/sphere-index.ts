@@ -30,19 +30,99 @@ const EMPTY = -1;
  */
 const MIN_CELL = 2 / 2 ** 17;
 
-/** Stable counting sort of `order` by `key[order[k]] - min`, keys in 0..range-1. */
-function countingSortBy(order: Int32Array, key: Int32Array, min: number, range: number): Int32Array {
-  if (range === 1) return order;
-  const count = new Int32Array(range + 1);
-  const n = order.length;
-  for (let k = 0; k < n; k++) count[key[order[k]] - min + 1]++;
-  for (let r = 0; r < range; r++) count[r + 1] += count[r];
-  const out = new Int32Array(n);
-  for (let k = 0; k < n; k++) {
-    const i = order[k];
-    out[count[key[i] - min]++] = i;
+/** Grid coordinates per point and their extent on each axis. */
+interface Grid {
+  gx: Int32Array;
+  gy: Int32Array;
+  gz: Int32Array;
+  minX: number;
+  maxX: number;
+  minY: number;
+  maxY: number;
+  minZ: number;
+  maxZ: number;
+}
+
+/**
+ * Point ids in lexicographic cell order (x, then y, then z), ascending id inside a cell. A stable
+ * counting sort by x over all points; then each x slab (a few hundred points, small enough to
+ * stay in cache) is sorted by (y, z, id) on its own: by two stable counting sorts (z, then y)
+ * over the slab's own extent, or, when that extent is large for the slab's size, by comparison.
+ */
+function cellOrder(g: Grid): Int32Array {
+  const { gx, gy, gz, minX, maxX } = g;
+  const n = gx.length;
+  const rangeX = maxX - minX + 1;
+  const slabStart = new Int32Array(rangeX + 1);
+  for (let i = 0; i < n; i++) slabStart[gx[i] - minX + 1]++;
+  for (let r = 0; r < rangeX; r++) slabStart[r + 1] += slabStart[r];
+  const order = new Int32Array(n);
+  const next = slabStart.slice(0, rangeX);
+  for (let i = 0; i < n; i++) order[next[gx[i] - minX]++] = i;
+  const scratch = new SlabScratch(Math.max(g.maxY - g.minY, g.maxZ - g.minZ) + 2);
+  for (let r = 0; r < rangeX; r++) {
+    if (slabStart[r + 1] - slabStart[r] > 1) scratch.sortSlab(order, slabStart[r], slabStart[r + 1], gy, gz);
   }
-  return out;
+  return order;
+}
+
+/** Buffers reused by every slab of `cellOrder`, grown to the largest slab. */
+class SlabScratch {
+  private ids = new Int32Array(0);
+  private ly = new Int32Array(0);
+  private lz = new Int32Array(0);
+  private tmp = new Int32Array(0);
+  private readonly count: Int32Array;
+
+  constructor(maxRange: number) {
+    this.count = new Int32Array(maxRange + 1);
+  }
+
+  /** Sorts order[b0..b1), ids of one x slab in ascending id order, by (y, z, id). */
+  sortSlab(order: Int32Array, b0: number, b1: number, gy: Int32Array, gz: Int32Array): void {
+    const m = b1 - b0;
+    if (this.ids.length < m) {
+      this.ids = new Int32Array(m);
+      this.ly = new Int32Array(m);
+      this.lz = new Int32Array(m);
+      this.tmp = new Int32Array(m);
+    }
+    const { ids, ly, lz, tmp } = this;
+    let y0 = Infinity, y1 = -Infinity, z0 = Infinity, z1 = -Infinity;
+    for (let j = 0; j < m; j++) {
+      const i = order[b0 + j];
+      const y = gy[i], z = gz[i];
+      ids[j] = i;
+      ly[j] = y;
+      lz[j] = z;
+      if (y < y0) y0 = y;
+      if (y > y1) y1 = y;
+      if (z < z0) z0 = z;
+      if (z > z1) z1 = z;
+    }
+    const rangeY = y1 - y0 + 1, rangeZ = z1 - z0 + 1;
+    if (rangeY + rangeZ > 4 * m + 64) {
+      // a sparse slab: counting over its extent would cost more than comparing
+      const local = tmp.subarray(0, m);
+      for (let j = 0; j < m; j++) local[j] = j;
+      local.sort((a, b) => ly[a] - ly[b] || lz[a] - lz[b] || ids[a] - ids[b]);
+      for (let j = 0; j < m; j++) order[b0 + j] = ids[local[j]];
+      return;
+    }
+    // stable by z into tmp (local indices), then stable by y into order
+    const count = this.count;
+    count.fill(0, 0, rangeZ + 1);
+    for (let j = 0; j < m; j++) count[lz[j] - z0 + 1]++;
+    for (let r = 0; r < rangeZ; r++) count[r + 1] += count[r];
+    for (let j = 0; j < m; j++) tmp[count[lz[j] - z0]++] = j;
+    count.fill(0, 0, rangeY + 1);
+    for (let j = 0; j < m; j++) count[ly[j] - y0 + 1]++;
+    for (let r = 0; r < rangeY; r++) count[r + 1] += count[r];
+    for (let t = 0; t < m; t++) {
+      const j = tmp[t];
+      order[b0 + count[ly[j] - y0]++] = ids[j];
+    }
+  }
 }
 
 /** Lexicographic comparison of integer cell coordinates. */
@@ -60,7 +140,8 @@ export class SphereIndex {
   /** unit vectors in input order, stride 3 */
   readonly xyz: Float64Array;
 
-  private readonly cellSize: number;
+  /** edge of a grid cell on the unit sphere's scale: cell (ix, iy, iz) holds the vectors with ⌊x / cellSize⌋ = ix, and so on */
+  readonly cellSize: number;
   /** point ids sorted by cell (cells in lexicographic order of their grid coordinates); ascending id within a cell */
   readonly sorted: Int32Array;
   /*
@@ -78,9 +159,9 @@ export class SphereIndex {
   readonly nbrStart: Int32Array;
   readonly nbr: Int32Array;
   /** integer grid coordinates per cell, cells in lexicographic order */
-  private readonly cx: Int32Array;
-  private readonly cy: Int32Array;
-  private readonly cz: Int32Array;
+  readonly cx: Int32Array;
+  readonly cy: Int32Array;
+  readonly cz: Int32Array;
   /** number of non-empty cells */
   readonly cellCount: number;
 
@@ -122,13 +203,8 @@ export class SphereIndex {
       if (i === 0 || iz > maxZ) maxZ = iz;
     }
 
-    // 2. LSD radix sort (z, then y, then x; each pass stable): lexicographic cell order, and
-    //    ascending point id inside each cell. Linear time, sequential memory access.
-    let order: Int32Array = new Int32Array(n);
-    for (let i = 0; i < n; i++) order[i] = i;
-    order = countingSortBy(order, gz, minZ, maxZ - minZ + 1);
-    order = countingSortBy(order, gy, minY, maxY - minY + 1);
-    order = countingSortBy(order, gx, minX, maxX - minX + 1);
+    // 2. lexicographic cell order, ascending point id inside each cell
+    const order = cellOrder({ gx, gy, gz, minX, maxX, minY, maxY, minZ, maxZ });
 
     // 3. cells are runs of equal coordinates in that order. Only the unit vectors are gathered
     //    (one random read per point); grid coordinates are recomputed from the copied vectors,

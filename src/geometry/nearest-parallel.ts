@@ -1,6 +1,10 @@
 /**
- * The Clark–Evans nearest-neighbour pass on a second core: started before the hulls are drawn
- * and collected after them, so the two largest parts of the figures stage overlap.
+ * The Clark–Evans nearest-neighbour pass, optionally on a second core: started before the hulls
+ * are drawn and collected after them, so with two threads the two largest parts of the figures
+ * stage overlap. One thread is the default: on the shared two-core machine at its usual load
+ * (load average 8–13) two threads took longer in wall time than one, besides 0.4–0.5 s more CPU
+ * (the worker's start and a copy of the unit vectors); see the figures table of
+ * test/bench/results.md. Two threads pay only on an otherwise idle machine.
  *
  * The distances are the same bytes wherever they are computed: the worker runs the same search
  * (`ChordTree.nearestChord2All`) over a copy of the same unit vectors and converts with the same
@@ -41,7 +45,7 @@ export interface NearestTask {
 
 /** Options of `startNearestNeighbours`. */
 export interface NearestOptions {
-  /** 1 computes on the calling thread when collected; 2 (default) uses a worker from `minPoints` points on */
+  /** 1 (default) computes on the calling thread when collected; 2 uses a worker from `minPoints` points on */
   threads?: 1 | 2;
   /** smallest point set that gets a worker, default NEAREST_PARALLEL_MIN_POINTS */
   minPoints?: number;
@@ -74,17 +78,17 @@ function startWorker(task: NearestTask): Worker {
 }
 
 /**
- * Starts the nearest-neighbour pass for Clark–Evans. With two threads and at least `minPoints`
- * points the search runs in a worker thread while the caller goes on (drawing hulls); otherwise
- * it runs when collected.
+ * Starts the nearest-neighbour pass for Clark–Evans. With two threads (asked for) and at least
+ * `minPoints` points the search runs in a worker thread while the caller goes on (drawing hulls);
+ * otherwise it runs when collected.
  *
  * @param points observations (degrees)
  * @param index optional SphereIndex over the same points, whose unit vectors are reused
- * @param options threads (1 or 2, default 2), the size from which a worker is used, and how long
+ * @param options threads (1 or 2, default 1), the size from which a worker is used, and how long
  *   to wait for the worker to start
  */
 export function startNearestNeighbours(points: PointSet, index?: SphereIndex, options: NearestOptions = {}): PendingNearest {
-  const threads = options.threads ?? 2;
+  const threads = options.threads ?? 1;
   const minPoints = options.minPoints ?? NEAREST_PARALLEL_MIN_POINTS;
   const startPatienceMs = options.startPatienceMs ?? START_PATIENCE_MS;
   if (index && index.n !== points.n) {

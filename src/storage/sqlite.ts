@@ -52,7 +52,7 @@ import { batchIds, planIngest } from './ingest-plan.js';
 import { keyFromRow } from './key-rows.js';
 import { joinPieces, LAYER_BYTE_PIECES_PER_READ, storedPieces } from './layer-pieces.js';
 import { layerSource } from './layer-write.js';
-import { DEFAULT_LEASE_MS, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
+import { DEFAULT_LEASE_MS, FinishedRuns, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
 import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
 import { whereMatches } from './where-match.js';
 import { trackListSql, trackPage } from './track-list.js';
@@ -119,6 +119,8 @@ export class SqliteStore implements Store {
   private closed = false;
   /** where `roost_run_row` puts the rows of the load in progress */
   private rowSink: RunColumns | null = null;
+  /** finished runs as last read (see FinishedRuns) */
+  private readonly finished = new FinishedRuns<Run>();
 
   /** how long a method waits for another connection's lock in all, milliseconds */
   private readonly busyTimeoutMs: number;
@@ -548,8 +550,10 @@ export class SqliteStore implements Store {
     checkStatuses([status]);
     const limit = before === undefined ? Number.MAX_SAFE_INTEGER : parseRunId(before);
     if (limit === null) throw new StoreError('invalid', `${JSON.stringify(before)} is not a run id`);
-    const row = this.db.prepare('SELECT * FROM runs WHERE dataset_id = ? AND status = ? AND seq < ? ORDER BY seq DESC LIMIT 1').get(datasetId, status, limit) as Row | undefined;
-    return row === undefined ? null : runFromRow(row);
+    // the key and update time only: the row itself (its JSON) is read when not kept already
+    const key = this.db.prepare('SELECT seq, updated_at FROM runs WHERE dataset_id = ? AND status = ? AND seq < ? ORDER BY seq DESC LIMIT 1').get(datasetId, status, limit) as Row | undefined;
+    if (key === undefined) return null;
+    return this.finished.get(key.seq as number, key.updated_at as string, async () => this.runBySeq(key.seq as number));
   }
 
   async saveRunResult(runId: string, result: RunResult, ifWorker?: string): Promise<void> {

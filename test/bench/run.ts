@@ -4,8 +4,9 @@
  * own process (test/bench/measure.ts) so peak memory is that of one implementation at one size.
  * Then the figures stage (hulls, per-hotspot figures, study area, Clark–Evans nearest
  * neighbours; test/bench/figures-measure.ts, compiled code) on one thread against two, the two
- * alternating, each in its own process. Prints markdown tables and writes them to
- * test/bench/results.md.
+ * alternating, each in its own process. Then the engine alone at 1M (test/bench/engine-measure.ts,
+ * compiled code): index + DBSCAN and OPTICS, each in its own process so that each one's working
+ * memory is its own, alternating. Prints markdown tables and writes them to test/bench/results.md.
  *
  *   npm run build && npm run bench
  */
@@ -14,6 +15,7 @@ import { writeFileSync } from 'node:fs';
 import os from 'node:os';
 import { fileURLToPath } from 'node:url';
 import { BENCH_EPS_METERS, BENCH_MIN_POINTS, BENCH_SEED } from './data.js';
+import type { EngineMeasurement } from './engine-measure.js';
 import type { FiguresMeasurement } from './figures-measure.js';
 import type { Measurement } from './measure.js';
 
@@ -118,6 +120,35 @@ for (const n of FIGURE_SIZES) {
   }
 }
 
+/** The engine alone at 1M: index + DBSCAN and OPTICS in processes of their own, alternating. */
+const ENGINE_N = 1_000_000;
+const ENGINE_ROUNDS = 2;
+const ENGINE_RUNS = 3;
+const engine: Record<string, EngineMeasurement[]> = { dbscan: [], optics: [] };
+const engineLoads: number[] = [];
+for (let round = 0; round < ENGINE_ROUNDS; round++) {
+  for (const stage of ['dbscan', 'optics']) {
+    process.stderr.write(`engine: ${stage} at ${ENGINE_N} points…\n`);
+    engineLoads.push(os.loadavg()[0]);
+    const r = spawnSync(process.execPath, ['--expose-gc', '--import', 'tsx', `${here}engine-measure.ts`, stage, String(ENGINE_N), String(ENGINE_RUNS)], {
+      encoding: 'utf8',
+      timeout: KILL_AFTER_MS * 2,
+      maxBuffer: 1 << 20,
+    });
+    if (r.error || r.status !== 0) throw new Error(`engine ${stage} at ${ENGINE_N} failed: ${r.stderr}`);
+    engine[stage].push(JSON.parse(r.stdout.trim().split('\n').at(-1)!) as EngineMeasurement);
+  }
+}
+const dbscanCpu = median(engine.dbscan.flatMap((m) => m.cpuMs));
+const engineRows = ['dbscan', 'optics'].map((stage) => {
+  const ms = engine[stage];
+  const cpu = median(ms.flatMap((m) => m.cpuMs));
+  const wall = median(ms.flatMap((m) => m.stageMs.map((t, i) => t + (m.indexMs[i] ?? 0))));
+  const work = Math.max(...ms.map((m) => m.workMiB));
+  const what = stage === 'dbscan' ? `index ${fmtMs(median(ms.flatMap((m) => m.indexMs)))} + DBSCAN ${fmtMs(median(ms.flatMap((m) => m.stageMs)))}` : 'OPTICS (its index included)';
+  return `| ${ENGINE_N.toLocaleString('en')} | ${what} | ${fmtMs(wall)} | ${fmtMs(cpu)} | ${(cpu / dbscanCpu).toFixed(1)} | ${work.toFixed(0)} MiB | median of ${ms.length * ENGINE_RUNS} runs; digest ${ms[0].digest.slice(0, 12)} |`;
+});
+
 const cpus = os.cpus();
 const lines = [
   `DBSCAN, eps ${BENCH_EPS_METERS} m, min_points ${BENCH_MIN_POINTS}, seeded benchmark sets (seed ${BENCH_SEED}: gaussian patches over ~400 km plus 15 % uniform background).`,
@@ -133,6 +164,12 @@ const lines = [
   '| points | threads | wall | cpu (all threads) | ratio | notes |',
   '| ---: | ---: | ---: | ---: | ---: | --- |',
   ...figureRows,
+  '',
+  `The engine alone (compiled code): index build + DBSCAN, and OPTICS (max eps ${BENCH_EPS_METERS} m, min_points ${BENCH_MIN_POINTS}), each in a process of its own, alternating; load average (1 min) at the start of each process ${engineLoads.map((l) => l.toFixed(1)).join(', ')}. "work" is the largest peak RSS minus RSS with the points loaded, the stage's working memory. Ratio: CPU time against index + DBSCAN.`,
+  '',
+  '| points | stage | wall | cpu | ratio | work | notes |',
+  '| ---: | --- | ---: | ---: | ---: | ---: | --- |',
+  ...engineRows,
   '',
 ];
 const table = lines.join('\n');

@@ -32,11 +32,16 @@ describe('startNearestNeighbours', () => {
     expect(noIndex.computedIn).toBe('worker');
   });
 
-  it('computes on the calling thread below the size that pays for a worker, and for one thread', () => {
+  it('computes on the calling thread below the size that pays for a worker, for one thread, and by default', () => {
     const p = pointSet([0, 0, 1], [0, 0.001, 0]);
     const small = startNearestNeighbours(p, undefined, { threads: 2 });
     expect(Array.from(small.collect())).toEqual(Array.from(nearestNeighbourMeters(p)));
     expect(small.computedIn).toBe('here');
+    // one thread unless two are asked for, whatever the size
+    const q = realisticSet(3_000, SEED + 2);
+    const byDefault = startNearestNeighbours(q, undefined, { minPoints: 2 });
+    expect(bytes(byDefault.collect()).equals(bytes(nearestNeighbourMeters(q)))).toBe(true);
+    expect(byDefault.computedIn).toBe('here');
     expect(() => startNearestNeighbours(p, new SphereIndex(pointSet([0], [0]), 100))).toThrow(/same points/);
   });
 

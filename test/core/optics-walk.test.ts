@@ -1,0 +1,92 @@
+/**
+ * The OPTICS walk in index positions (src/core/optics.ts: seed heap over positions, neighbourhoods
+ * gathered into reused buffers, core distance from the k smallest kept while reading) gives
+ * exactly the result of the plain indexed OPTICS in test/reference/optics-plain.ts (point ids,
+ * id-keyed heap, quickselect), which in turn equals the textbook OPTICS in optics.test.ts: same
+ * ordering, same reachability and core distances to the last bit, same predecessors.
+ *
+ * Seeded sets with exact ties (stacked duplicates, where many neighbours share one reachability
+ * equal to the core distance), points at the North Pole and across ±180°, weights, fractional and
+ * large minPoints (above the sorted-run limit, where quickselect takes over).
+ * Seed: ROOST_SEED (printed).
+ */
+import { describe, expect, it } from 'vitest';
+import { optics, type OpticsResult } from '../../src/core/optics.js';
+import type { PointSet } from '../../src/core/types.js';
+import { plainOptics } from '../reference/optics-plain.js';
+import { antimeridianSet, duplicatesSet, midLatitudeSet, PointBuilder, poleSet, realisticSet, rng, weightedSet } from '../reference/seeded.js';
+
+const SEED = Number(process.env.ROOST_SEED ?? 1999);
+
+/** Patches with heavy stacks of identical positions (up to 60 copies of one spot) at the pole and at ±180°. */
+function stackedSet(seed: number): PointSet {
+  const r = rng(seed);
+  const b = new PointBuilder();
+  for (const [lon, lat] of [
+    [0, 90],
+    [180, -17],
+    [-180, -17.001],
+    [12.5, 41.9],
+  ]) {
+    b.gaussian(r, lon, lat, 150, 120);
+    const m = b.lon.length;
+    for (let k = 0; k < 20; k++) {
+      const j = m - 1 - r.int(120);
+      const copies = 1 + r.int(60);
+      for (let c = 0; c < copies; c++) b.add(b.lon[j], b.lat[j]);
+    }
+  }
+  return b.shuffle(r).build();
+}
+
+/** The same set with integer weights 0..4 (exact sums whatever the order). */
+function withWeights(p: PointSet, seed: number): PointSet {
+  const r = rng(seed);
+  const w = new Float64Array(p.n);
+  for (let i = 0; i < p.n; i++) w[i] = r.int(5);
+  return { ...p, weight: w };
+}
+
+function expectSame(got: OpticsResult, want: OpticsResult): void {
+  expect(Buffer.from(got.order.buffer).equals(Buffer.from(want.order.buffer))).toBe(true);
+  expect(Buffer.from(got.reachability.buffer).equals(Buffer.from(want.reachability.buffer))).toBe(true);
+  expect(Buffer.from(got.coreDistance.buffer).equals(Buffer.from(want.coreDistance.buffer))).toBe(true);
+  expect(Buffer.from(got.predecessor.buffer).equals(Buffer.from(want.predecessor.buffer))).toBe(true);
+}
+
+describe('OPTICS walk in index positions', () => {
+  console.info(`optics walk seed ${SEED} (ROOST_SEED)`);
+  const sets: [string, PointSet][] = [
+    ['mid-latitude', midLatitudeSet(SEED)],
+    ['pole', poleSet(SEED + 1)],
+    ['antimeridian', antimeridianSet(SEED + 2)],
+    ['duplicates', duplicatesSet(SEED + 3)],
+    ['stacked', stackedSet(SEED + 4)],
+    ['weighted', weightedSet(SEED + 5)],
+    ['stacked weighted', withWeights(stackedSet(SEED + 6), SEED + 7)],
+    ['realistic 20k', realisticSet(20_000, SEED + 8, { regionMeters: 20_000 })],
+  ];
+  const params: [number, number][] = [
+    [250, 5],
+    [400, 1],
+    [300, 2.5],
+    [500, 40],
+  ];
+  for (const [name, points] of sets) {
+    it(`equals the plain indexed OPTICS bit for bit (${name}, ${points.n} points)`, () => {
+      for (const [maxEpsMeters, minPoints] of params) {
+        const got = optics(points, { maxEpsMeters, minPoints });
+        const want = plainOptics(points, { maxEpsMeters, minPoints });
+        expectSame(got, want);
+        // the sets do reach the cases named: finite reachabilities, and ties on them
+        const finite = Array.from(want.reachability).filter((r) => r < Infinity);
+        expect(finite.length).toBeGreaterThan(0);
+      }
+    });
+  }
+  it('has ties in the reachability of the stacked set (the tie rule is exercised)', () => {
+    const want = plainOptics(stackedSet(SEED + 4), { maxEpsMeters: 250, minPoints: 5 });
+    const finite = Array.from(want.reachability).filter((r) => r < Infinity);
+    expect(new Set(finite).size).toBeLessThan(finite.length);
+  });
+});
