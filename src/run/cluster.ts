@@ -29,6 +29,7 @@ import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
 import { parseSpan, type FeatureSpans, type SpannedObservations } from '../ingest/geojson-bytes.js';
+import type { ByteWindow, InputFile } from '../ingest/source.js';
 import { CAUTIONS } from './cautions.js';
 import { SettingsError, settingsRecord, type ClusterSettings } from './settings.js';
 import { ROOST_VERSION } from './version.js';
@@ -309,18 +310,19 @@ const latin1Slice = Buffer.prototype.latin1Slice as (this: Uint8Array, start: nu
  * the properties are copied from the input where their text is already what JSON.stringify
  * writes (spans.verbatim), the feature is parsed from its span otherwise.
  */
-export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: number, lat: number, hotspot: number, role: number, extra = ''): string {
-  if (spans.verbatim[i] !== 1) return pointFeature(parseSpan(spans, i), hotspot, role, extra);
-  const b = spans.bytes;
-  const is = spans.idStart[i]!;
-  const ie = spans.idEnd[i]!;
+export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: number, lat: number, hotspot: number, role: number, extra = '', w: ByteWindow = spans.source.window()): string {
+  if (spans.verbatim[i] !== 1) return pointFeature(parseSpan(spans, i, w), hotspot, role, extra);
+  w.need(spans.featureStart[i]!, spans.featureEnd[i]!);
+  const b = w.buf;
+  const is = spans.idStart[i]! - w.base;
+  const ie = spans.idEnd[i]! - w.base;
   // a string id is copied; a number is written as JSON.stringify writes its value (1.0 → 1)
-  const id = ie === 0 ? '' : b[is] === 34 ? ',"id":' + utf8Slice.call(b, is, ie) : ',"id":' + JSON.stringify(Number(latin1Slice.call(b, is, ie)));
+  const id = spans.idEnd[i] === 0 ? '' : b[is] === 34 ? ',"id":' + utf8Slice.call(b, is, ie) : ',"id":' + JSON.stringify(Number(latin1Slice.call(b, is, ie)));
   const alt = spans.altitude === null ? NaN : spans.altitude[i]!;
   const position = alt === alt ? coordText(lon) + ',' + coordText(lat) + ',' + coordText(alt) : coordText(lon) + ',' + coordText(lat);
   const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"${extra}}`;
-  const ps = spans.propertiesStart[i]!;
-  const pe = spans.propertiesEnd[i]!;
+  const ps = spans.propertiesStart[i]! - w.base;
+  const pe = spans.propertiesEnd[i]! - w.base;
   const properties = pe - ps <= 2 ? '{' + added : utf8Slice.call(b, ps, pe - 1) + ',' + added;
   return '{"type":"Feature"' + id + ',"geometry":{"type":"Point","coordinates":[' + position + ']},"properties":' + properties + '}';
 }
@@ -382,19 +384,22 @@ function writeText(text: string, out: Buffer, pos: number, room: number): number
 /** Bytes of a point layer (see pointFeatureFromSpans) in chunks of about 1 MiB, written without per-feature strings. */
 function pointLayerBytes(head: string, spans: FeatureSpans, rows: PointRows, extra: (i: number) => string, noiseOnly: boolean): Generator<Uint8Array> {
   const { lon, lat, kept, labels, roles } = rows;
-  const b = spans.bytes;
+  // the input is read again in order through a window (a file is never held whole)
+  const w = spans.source.window();
   const verbatimNeed = (k: number, x: string): number => 256 + spans.idEnd[k]! - spans.idStart[k]! + spans.propertiesEnd[k]! - spans.propertiesStart[k]! + 3 * x.length;
-  const parsed = (i: number): string => pointFeature(parseSpan(spans, kept[i]!), labels[i]!, roles[i]!, extra(i));
+  const parsed = (i: number): string => pointFeature(parseSpan(spans, kept[i]!, w), labels[i]!, roles[i]!, extra(i));
   const write: PointWriter = (i, out, pos, room) => {
     const k = kept[i]!;
     const label = labels[i]!;
     const x = extra(i);
     if (spans.verbatim[k] !== 1) return writeText(parsed(i), out, pos, room);
     if (verbatimNeed(k, x) > room) return -1;
-    const is = spans.idStart[k]!;
-    const ie = spans.idEnd[k]!;
+    w.need(spans.featureStart[k]!, spans.featureEnd[k]!);
+    const b = w.buf;
+    const is = spans.idStart[k]! - w.base;
+    const ie = spans.idEnd[k]! - w.base;
     pos += ascii(out, pos, '{"type":"Feature"');
-    if (ie !== 0) {
+    if (spans.idEnd[k] !== 0) {
       pos += ascii(out, pos, ',"id":');
       if (b[is] === 34) pos += copyBytes(b, out, pos, is, ie);
       else pos += ascii(out, pos, JSON.stringify(Number(latin1Slice.call(b, is, ie))));
@@ -409,7 +414,7 @@ function pointLayerBytes(head: string, spans: FeatureSpans, rows: PointRows, ext
       pos += ascii(out, pos, coordText(alt));
     }
     pos += ascii(out, pos, ']},"properties":');
-    return addedProperties(b, spans.propertiesStart[k]!, spans.propertiesEnd[k]!, label, roles[i]!, x, out, pos);
+    return addedProperties(b, spans.propertiesStart[k]! - w.base, spans.propertiesEnd[k]! - w.base, label, roles[i]!, x, out, pos);
   };
   const need = (i: number): number => (spans.verbatim[kept[i]!] !== 1 ? Buffer.byteLength(parsed(i), 'utf8') : verbatimNeed(kept[i]!, extra(i)));
   return pointLayerChunks(head, rows, noiseOnly, write, need);
@@ -855,9 +860,10 @@ export function clusterObservations(
   const extra = ordering === null ? () => '' : opticsMembers(ordering);
   const spans = (all as Partial<SpannedObservations>).spans;
   function* pointFeatures(noiseOnly: boolean): Generator<string> {
+    const w = spans?.source.window();
     for (let i = 0; i < points.n; i++) {
       if (noiseOnly && labels[i] >= 0) continue;
-      if (spans !== undefined) yield pointFeatureFromSpans(spans, kept[i]!, points.lon[i]!, points.lat[i]!, labels[i], roles[i], extra(i));
+      if (spans !== undefined) yield pointFeatureFromSpans(spans, kept[i]!, points.lon[i]!, points.lat[i]!, labels[i], roles[i], extra(i), w);
       else yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i], extra(i)) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i], extra(i));
     }
   }
@@ -932,7 +938,7 @@ export function clusterObservations(
  * and SettingsError for settings that do not fit the data; never returns a partial result.
  */
 export function clusterInput(
-  input: Buffer | string,
+  input: Buffer | string | InputFile,
   format: InputFormat | undefined,
   settings: ClusterSettings,
   hooks: ClusterHooks = {},
@@ -944,7 +950,7 @@ export function clusterInput(
 }
 
 /** Reads an input with the reader options a clustering's settings name (weight, columns, time column and format). */
-export function readInput(input: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings): Observations {
+export function readInput(input: Buffer | string | InputFile, format: InputFormat | undefined, settings: ClusterSettings): Observations {
   return readObservations(input, {
     format,
     weightProperty: settings.weightProperty,
