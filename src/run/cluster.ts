@@ -29,6 +29,7 @@ import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
 import { parseSpan, type FeatureSpans, type SpannedObservations } from '../ingest/geojson-bytes.js';
+import type { ByteWindow, InputFile } from '../ingest/source.js';
 import { CAUTIONS } from './cautions.js';
 import { SettingsError, settingsRecord, type ClusterSettings } from './settings.js';
 import { ROOST_VERSION } from './version.js';
@@ -305,18 +306,19 @@ const latin1Slice = Buffer.prototype.latin1Slice as (this: Uint8Array, start: nu
  * the properties are copied from the input where their text is already what JSON.stringify
  * writes (spans.verbatim), the feature is parsed from its span otherwise.
  */
-export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: number, lat: number, hotspot: number, role: number, extra = ''): string {
-  if (spans.verbatim[i] !== 1) return pointFeature(parseSpan(spans, i), hotspot, role, extra);
-  const b = spans.bytes;
-  const is = spans.idStart[i]!;
-  const ie = spans.idEnd[i]!;
+export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: number, lat: number, hotspot: number, role: number, extra = '', w: ByteWindow = spans.source.window()): string {
+  if (spans.verbatim[i] !== 1) return pointFeature(parseSpan(spans, i, w), hotspot, role, extra);
+  w.need(spans.featureStart[i]!, spans.featureEnd[i]!);
+  const b = w.buf;
+  const is = spans.idStart[i]! - w.base;
+  const ie = spans.idEnd[i]! - w.base;
   // a string id is copied; a number is written as JSON.stringify writes its value (1.0 → 1)
-  const id = ie === 0 ? '' : b[is] === 34 ? ',"id":' + utf8Slice.call(b, is, ie) : ',"id":' + JSON.stringify(Number(latin1Slice.call(b, is, ie)));
+  const id = spans.idEnd[i] === 0 ? '' : b[is] === 34 ? ',"id":' + utf8Slice.call(b, is, ie) : ',"id":' + JSON.stringify(Number(latin1Slice.call(b, is, ie)));
   const alt = spans.altitude === null ? NaN : spans.altitude[i]!;
   const position = alt === alt ? coordText(lon) + ',' + coordText(lat) + ',' + coordText(alt) : coordText(lon) + ',' + coordText(lat);
   const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"${extra}}`;
-  const ps = spans.propertiesStart[i]!;
-  const pe = spans.propertiesEnd[i]!;
+  const ps = spans.propertiesStart[i]! - w.base;
+  const pe = spans.propertiesEnd[i]! - w.base;
   const properties = pe - ps <= 2 ? '{' + added : utf8Slice.call(b, ps, pe - 1) + ',' + added;
   return '{"type":"Feature"' + id + ',"geometry":{"type":"Point","coordinates":[' + position + ']},"properties":' + properties + '}';
 }
@@ -330,7 +332,8 @@ function* pointLayerBytes(
   noiseOnly: boolean,
 ): Generator<Uint8Array> {
   const CHUNK = 1 << 20;
-  const b = spans.bytes;
+  // the input is read again in order through a window (a file is never held whole)
+  const w = spans.source.window();
   const { n, lon, lat, kept, labels, roles } = rows;
   let out = Buffer.allocUnsafe(Math.max(CHUNK, Buffer.byteLength(head) + 2));
   let pos = out.write(head, 0, 'utf8');
@@ -343,7 +346,7 @@ function* pointLayerBytes(
     let text: string | null = null;
     let need: number;
     if (spans.verbatim[k] !== 1) {
-      text = pointFeature(parseSpan(spans, k), label, roles[i]!, x);
+      text = pointFeature(parseSpan(spans, k, w), label, roles[i]!, x);
       need = Buffer.byteLength(text, 'utf8') + 1;
     } else need = 256 + spans.idEnd[k]! - spans.idStart[k]! + spans.propertiesEnd[k]! - spans.propertiesStart[k]! + x.length;
     if (pos + need + 2 > out.length) {
@@ -357,10 +360,12 @@ function* pointLayerBytes(
       pos += out.write(text, pos, 'utf8');
       continue;
     }
-    const is = spans.idStart[k]!;
-    const ie = spans.idEnd[k]!;
+    w.need(spans.featureStart[k]!, spans.featureEnd[k]!);
+    const b = w.buf;
+    const is = spans.idStart[k]! - w.base;
+    const ie = spans.idEnd[k]! - w.base;
     pos += ascii(out, pos, '{"type":"Feature"');
-    if (ie !== 0) {
+    if (spans.idEnd[k] !== 0) {
       pos += ascii(out, pos, ',"id":');
       if (b[is] === 34) pos += copyBytes(b, out, pos, is, ie);
       else pos += ascii(out, pos, JSON.stringify(Number(latin1Slice.call(b, is, ie))));
@@ -375,8 +380,8 @@ function* pointLayerBytes(
       pos += ascii(out, pos, coordText(alt));
     }
     pos += ascii(out, pos, ']},"properties":');
-    const ps = spans.propertiesStart[k]!;
-    const pe = spans.propertiesEnd[k]!;
+    const ps = spans.propertiesStart[k]! - w.base;
+    const pe = spans.propertiesEnd[k]! - w.base;
     if (pe - ps <= 2) out[pos++] = 123; // {
     else {
       pos += copyBytes(b, out, pos, ps, pe - 1);
@@ -687,9 +692,10 @@ export function clusterObservations(
   const extra = ordering === null ? () => '' : opticsMembers(ordering);
   const spans = (all as Partial<SpannedObservations>).spans;
   function* pointFeatures(noiseOnly: boolean): Generator<string> {
+    const w = spans?.source.window();
     for (let i = 0; i < points.n; i++) {
       if (noiseOnly && labels[i] >= 0) continue;
-      if (spans !== undefined) yield pointFeatureFromSpans(spans, kept[i]!, points.lon[i]!, points.lat[i]!, labels[i], roles[i], extra(i));
+      if (spans !== undefined) yield pointFeatureFromSpans(spans, kept[i]!, points.lon[i]!, points.lat[i]!, labels[i], roles[i], extra(i), w);
       else yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i], extra(i)) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i], extra(i));
     }
   }
@@ -756,7 +762,7 @@ export function clusterObservations(
  * and SettingsError for settings that do not fit the data; never returns a partial result.
  */
 export function clusterInput(
-  input: Buffer | string,
+  input: Buffer | string | InputFile,
   format: InputFormat | undefined,
   settings: ClusterSettings,
   hooks: ClusterHooks = {},
@@ -768,7 +774,7 @@ export function clusterInput(
 }
 
 /** Reads an input with the reader options a clustering's settings name (weight, columns, time column and format). */
-export function readInput(input: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings): Observations {
+export function readInput(input: Buffer | string | InputFile, format: InputFormat | undefined, settings: ClusterSettings): Observations {
   return readObservations(input, {
     format,
     weightProperty: settings.weightProperty,
