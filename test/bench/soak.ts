@@ -285,6 +285,8 @@ async function main(): Promise<void> {
   rss.push({ t: (Date.now() - t0) / 1000, ...rssMiB(pid), ...heapMiB(log), observations: await observations() });
   child.kill('SIGTERM');
   await new Promise((r) => child.once('exit', r));
+  // the service's own errors (log level 50 and above), kept before its files are removed
+  const errors = readFileSync(log, 'utf8').split('\n').filter((l) => /^\{.*"level":(5\d|60)[,}]/.test(l)).map((l) => l.slice(0, 600));
   rmSync(dir, { recursive: true, force: true });
 
   const sorted = [...health].sort((a, b) => a - b);
@@ -335,6 +337,10 @@ async function main(): Promise<void> {
     '## Held at the end',
     '',
     `/healthz ${settledMs} ms after the load stopped: \`${JSON.stringify(after)}\` (stuck slots: in_progress ${String(after.in_progress)}, uploading ${String(after.uploading)}, queued ${String(after.queued)}, storing ${String(after.storing)}).`,
+    '',
+    '## Errors in the service log',
+    '',
+    ...(errors.length === 0 ? ['None.'] : errors.slice(0, 20).map((l) => `- \`${l.replace(/`/g, "'")}\``)),
     '',
   ];
   writeFileSync(new URL('./soak-results.md', import.meta.url), lines.join('\n'));
