@@ -8,7 +8,7 @@ import { Command, Option } from 'commander';
 import { checkKeyRequest, issueKey, keyJson, KeyRequestError } from '../auth/keys.js';
 import { ROLES } from '../auth/roles.js';
 import { DEFAULT_CONFIG } from '../http/config.js';
-import { DEFAULT_SQLITE_PATH, isPostgresUrl, openStore } from '../storage/index.js';
+import { DEFAULT_SQLITE_PATH } from '../storage/defaults.js';
 import type { Store } from '../storage/store.js';
 
 /** Exit codes: 0 done, 1 unexpected failure, 2 bad usage (unknown key or dataset, bad option). */
@@ -22,6 +22,8 @@ export interface KeysIo {
 type Action = (store: Store) => Promise<number>;
 
 async function withStore(db: string | undefined, env: Record<string, string | undefined>, io: KeysIo, action: Action): Promise<number> {
+  // the storage drivers are loaded only by this command, not by every start of the command line
+  const { isPostgresUrl, openStore } = await import('../storage/index.js');
   const databaseUrl = env.DATABASE_URL ?? null;
   if (databaseUrl !== null && databaseUrl !== '' && !isPostgresUrl(databaseUrl)) {
     io.err('roost keys: DATABASE_URL must start with postgres:// or postgresql://\n');

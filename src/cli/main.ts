@@ -13,6 +13,7 @@ import { Command, Option } from 'commander';
 import { InputError } from '../ingest/types.js';
 import { suggestEpsInput, type ClusterResult, type InputFormat, type Stage } from '../run/cluster.js';
 import { readObservations } from '../ingest/read.js';
+import { InputFile } from '../ingest/source.js';
 import { assess, clusterCases, type EffortPoints } from '../trust/assess.js';
 import { resolveTrustSettings, type TrustSettings } from '../trust/options.js';
 import { readStudyArea, type StudyArea } from '../trust/study-area.js';
@@ -279,9 +280,11 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
         if (publish !== null && opts.report) throw new PublishError('generalise_m', '--report shows exact positions and cannot be combined with --generalise-m; write the report from an unpublished result');
         const studyArea: StudyArea | null = opts.studyArea === undefined ? null : readStudyArea((await readInput(String(opts.studyArea))).toString('utf8'));
         const fileEffort = opts.effort === undefined ? null : await effortFromFile(String(opts.effort), settings);
-        const data = await readInput(input);
+        // a named file is read in windows, never held whole (src/ingest/source.ts)
+        const data = input === '-' ? await readInput(input) : new InputFile(input);
         const trials = trust.simulations > 0 || trust.resamples > 0;
-        const showProgress = Boolean(opts.progress) || (process.stderr.isTTY && (data.length > 5_000_000 || trials));
+        const size = data instanceof InputFile ? data.size : data.length;
+        const showProgress = Boolean(opts.progress) || (process.stderr.isTTY && (size > 5_000_000 || trials));
         const onProgress = progressReporter(showProgress);
         const t0 = performance.now();
         const { result, effort } = clusterCases(data, formatFromPath(input, opts.format as string | undefined), settings, trust, { onProgress });

@@ -2,7 +2,9 @@
  * The byte reader for GeoJSON FeatureCollections: scans the UTF-8 bytes once, without building a
  * JSON object per feature, and pulls positions, weights and times straight into typed arrays.
  * Each feature is kept as byte spans of the input (the whole feature, its `id` and its
- * `properties`), so the points output can copy the properties back verbatim.
+ * `properties`), so the points output can copy the properties back verbatim. A file is scanned
+ * through a window of a few MiB that moves forward (src/ingest/source.ts) and the spans are
+ * offsets into it, read again when the points are written: the file is never held whole.
  *
  * It reads only what it can read exactly as the parsing reader (src/ingest/geojson.ts) would:
  * a FeatureCollection whose every feature is a Feature with a Point of 2 or 3 in-range numbers,
@@ -19,11 +21,12 @@
 import type { InputFeature, Observations } from './types.js';
 import { MAX_DEPTH, MAX_ID_CHARS, MAX_KEY_CHARS, MAX_STRING_CHARS } from './limits.js';
 import { TIME_PROPERTY, readTime, type TimeRule } from './checks.js';
+import { MemorySource, type ByteSource, type ByteWindow, type InputFile } from './source.js';
 
 /** Where each feature lies in the input bytes; the spans of an absent member are empty (start = end = 0). */
 export interface FeatureSpans {
-  /** the input bytes */
-  bytes: Uint8Array;
+  /** the input bytes (offsets below are into these) */
+  source: ByteSource;
   /** whole feature: bytes[featureStart[i], featureEnd[i]) */
   featureStart: Uint32Array;
   featureEnd: Uint32Array;
@@ -53,12 +56,24 @@ export interface ByteReadOptions {
   weightProperty: string | null;
   time: TimeRule;
   maxFeatures: number;
+  /** a GeoJSON text sequence or newline-delimited GeoJSON (src/ingest/seq.ts) instead of a FeatureCollection */
+  sequence?: boolean;
 }
 
 // The scan state lives in module variables: one reader runs at a time on a thread, and the hot
 // loops stay free of closures and result objects.
 let B: Uint8Array = new Uint8Array(0);
 let N = 0;
+/** offset in the source of B[0] (a file is scanned through a window that moves forward) */
+let BASE = 0;
+/** B reaches the end of the source */
+let FINAL = true;
+/** the file being scanned in windows; null for bytes in memory */
+let FILE: InputFile | null = null;
+/** length of the whole source */
+let SIZE = 0;
+/** the window's memory (B is its first N bytes) */
+let WIN: Uint8Array = new Uint8Array(0);
 /** set by scanString: the string held a backslash */
 let strEscaped = false;
 /** set by scanValue: the value's text is what JSON.stringify writes for it */
@@ -440,89 +455,294 @@ class Columns {
  * parsing reader. Never throws InputError itself.
  */
 export function readGeoJsonBytes(bytes: Uint8Array, options: ByteReadOptions): SpannedObservations | null {
+  return readGeoJsonSource(new MemorySource(bytes), options);
+}
+
+/**
+ * readGeoJsonBytes for bytes in memory or a file; a file is scanned in windows of a few MiB and
+ * never held whole. `stopped` of the options, when given, is set to the feature (and its offset)
+ * at which the reader gave up.
+ */
+export function readGeoJsonSource(source: MemorySource | InputFile, options: ByteReadOptions, stopped?: { feature: number; offset: number }): SpannedObservations | null {
   const { weightProperty, time } = options;
   // a property name that is also a member every object inherits reads differently from a parsed object
   if ((weightProperty !== null && weightProperty in Object.prototype) || time.property in Object.prototype) return null;
-  if (bytes.length >= 2 ** 32) return null;
+  if (source.size >= 2 ** 32) return null;
   const weightKey = weightProperty === null ? null : new Uint8Array(Buffer.from(weightProperty, 'utf8'));
   const timeKey = new Uint8Array(Buffer.from(time.property, 'utf8'));
-  B = bytes;
-  N = bytes.length;
+  // room for the first features; sized to the input once they show how long a feature is (sizeColumns)
+  const cols = new Columns(Math.max(16, Math.min(Math.ceil(source.size / 100), ESTIMATE_AT + 1)), weightKey !== null);
+  BASE = 0;
+  SIZE = source.size;
+  if (source instanceof MemorySource) {
+    B = source.bytes;
+    N = B.length;
+    FINAL = true;
+  } else {
+    FILE = source;
+    AHEAD = Math.min(64 << 10, source.windowBytes >> 2);
+    WIN = new Uint8Array(Math.min(source.windowBytes, source.size));
+    N = source.readInto(WIN, 0, 0);
+    B = WIN.subarray(0, N);
+    FINAL = N >= source.size;
+  }
   try {
-    return scanCollection(weightKey, timeKey, options);
+    return options.sequence === true ? scanSequence(source, cols, weightKey, timeKey, options) : scanCollection(source, cols, weightKey, timeKey, options);
   } catch (err) {
-    if (err === NOT_FAST) return null;
-    throw err;
+    if (err !== NOT_FAST) throw err;
+    if (stopped !== undefined) {
+      stopped.feature = cols.n;
+      stopped.offset = cols.n === 0 ? 0 : cols.featureEnd[cols.n - 1]!;
+    }
+    return null;
   } finally {
-    B = new Uint8Array(0);
-    N = 0;
+    B = WIN = new Uint8Array(0);
+    N = BASE = SIZE = 0;
+    FILE = null;
+    FINAL = true;
   }
 }
 
-function scanCollection(weightKey: Uint8Array | null, timeKey: Uint8Array, options: ByteReadOptions): SpannedObservations {
+/** The least kept in the window ahead of each feature scanned (a quarter of the window, at most 64 KiB). */
+let AHEAD = 64 << 10;
+
+/** Index `i` after making sure at least AHEAD bytes follow it in B (or the end of the source does); moves the window. */
+function ahead(i: number): number {
+  return FINAL || N - i >= AHEAD ? i : shift(i);
+}
+
+/**
+ * Moves the window to start at local index `keep` and reads on; when `keep` is 0 and the window is
+ * full (one value larger than the window), the window grows. Returns keep's new index (0).
+ */
+function shift(keep: number): number {
+  const file = FILE as InputFile;
+  let win = WIN;
+  if (keep === 0 && N === WIN.length) {
+    win = new Uint8Array(WIN.length * 2);
+    win.set(B);
+  } else win.copyWithin(0, keep, N);
+  BASE += keep;
+  N -= keep;
+  N += file.readInto(win, N, BASE + N);
+  WIN = win;
+  B = win.subarray(0, N);
+  FINAL = BASE + N >= file.size;
+  return 0;
+}
+
+/**
+ * Whether the value (or member) starting at `u` ends inside the window: a comma or a closing
+ * bracket at its own level is found. If not, a scan that gave up there may only have run out of
+ * window, and is tried again on more bytes.
+ */
+function endsInWindow(u: number): boolean {
   const b = B;
+  let depth = 0;
+  for (let i = u; i < N; i++) {
+    const c = b[i]!;
+    if (c === C.Quote) {
+      for (i++; i < N && b[i] !== C.Quote; i++) if (b[i] === C.Backslash) i++;
+    } else if (c === C.OpenBrace || c === C.OpenBracket) depth++;
+    else if (c === C.CloseBrace || c === C.CloseBracket) {
+      if (depth === 0) return true;
+      depth--;
+    } else if (c === C.Comma && depth === 0) return true;
+  }
+  return false;
+}
+
+/** Whether a scan of the value at `u` that threw `err` gave up for want of bytes, not for what it read. */
+function shortOfBytes(err: unknown, u: number): boolean {
+  return err === NOT_FAST && !FINAL && !endsInWindow(u);
+}
+
+/** White space from `i` on, across windows; returns the index of the next byte (N at the end of the source). */
+function wsAcross(i: number): number {
+  for (;;) {
+    i = ws(i);
+    if (i < N || FINAL) return i;
+    i = shift(i);
+  }
+}
+
+const RS = 0x1e;
+
+/**
+ * Scans a GeoJSON text sequence (records after RS characters, RFC 8142) or newline-delimited
+ * GeoJSON (one record a line) as src/ingest/seq.ts reads it: RS first means RS-separated records,
+ * else one record per line. Only records that are one Feature the byte reader reads, with nothing
+ * but JSON white space around them, are read here; an RS anywhere in line mode, a feature over two
+ * lines, two on one line or anything else goes to the parsing reader.
+ */
+function scanSequence(source: ByteSource, cols: Columns, weightKey: Uint8Array | null, timeKey: Uint8Array, options: ByteReadOptions): SpannedObservations {
   let i = 0;
-  if (b[0] === 0xef && b[1] === 0xbb && b[2] === 0xbf) i = 3; // byte-order mark
-  i = ws(i);
-  if (b[i] !== C.OpenBrace) throw NOT_FAST;
-  // a first guess at the count from the size (features of the kind sent are 100–200 bytes)
-  const cols = new Columns(Math.max(16, Math.min(Math.ceil(N / 120), 1 << 24)), weightKey !== null);
+  if (B[0] === 0xef && B[1] === 0xbb && B[2] === 0xbf) i = 3; // byte-order mark
+  i = wsAcross(i);
+  const rs = B[i] === RS;
+  let timeSeen = false;
+  let timed = 0;
+  for (;;) {
+    // separators: RS and white space between records; white space and line feeds between lines
+    for (;;) {
+      i = wsAcross(i);
+      if (rs && B[i] === RS) i++;
+      else break;
+    }
+    if (i >= N) break;
+    if (cols.n === cols.cap) cols.grow(cols.cap * 2);
+    i = ahead(i);
+    const f = i;
+    try {
+      i = scanFeature(i, cols, weightKey, timeKey, options.time);
+    } catch (err) {
+      if (!shortOfBytes(err, f)) throw err;
+      i = shift(f);
+      continue;
+    }
+    if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) timed++;
+    if (lastTimeFound) timeSeen = true;
+    if (cols.n === ESTIMATE_AT) sizeColumns(cols, BASE + i);
+    if (!rs) {
+      for (let k = f; k < i; k++) if (B[k] === 10) throw NOT_FAST;
+      // the rest of the line: spaces, tabs and carriage returns only
+      for (;;) {
+        const c = B[i];
+        if (c === 32 || c === 9 || c === 13) i++;
+        else if (i >= N && !FINAL) i = shift(i);
+        else break;
+      }
+      if (i < N && B[i] !== 10) throw NOT_FAST;
+    } else {
+      i = wsAcross(i);
+      if (i < N && B[i] !== RS) throw NOT_FAST;
+    }
+  }
+  if (cols.n === 0 || cols.n > options.maxFeatures) throw NOT_FAST;
+  if (options.time.property !== TIME_PROPERTY && !timeSeen) throw NOT_FAST;
+  return observations(source, cols, timed);
+}
+
+/** Features scanned before the columns are sized to the whole input. */
+const ESTIMATE_AT = 2048;
+
+/**
+ * Sizes the columns for the whole input from the bytes the first ESTIMATE_AT features took (up to
+ * `consumed`), with a little to spare, so that a large input is neither copied while growing nor
+ * held in columns far longer than it needs.
+ */
+function sizeColumns(cols: Columns, consumed: number): void {
+  const want = Math.ceil((SIZE / consumed) * cols.n * 1.04) + 64;
+  if (want > cols.cap) cols.grow(Math.min(want, 2 ** 30));
+}
+
+const M_TYPE = 0;
+const M_FEATURES = 1;
+const M_OTHER = 2;
+
+/** Set by scanFeatures: how many features had a time, and whether any had the time property. */
+let scanTimed = 0;
+let scanTimeSeen = false;
+
+/** Scans the features from just past the `[` into cols; returns the index just past the `]`. */
+function scanFeatures(i: number, cols: Columns, weightKey: Uint8Array | null, timeKey: Uint8Array, options: ByteReadOptions): number {
+  scanTimed = 0;
+  scanTimeSeen = false;
+  i = wsAcross(i);
+  if (B[i] === C.CloseBracket) throw NOT_FAST; // no features: the parsing reader says so
+  for (;;) {
+    if (cols.n === cols.cap) cols.grow(cols.cap * 2);
+    i = ahead(i);
+    const f = i;
+    try {
+      i = scanFeature(i, cols, weightKey, timeKey, options.time);
+    } catch (err) {
+      if (!shortOfBytes(err, f)) throw err;
+      i = shift(f);
+      continue;
+    }
+    if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) scanTimed++;
+    if (lastTimeFound) scanTimeSeen = true;
+    if (cols.n === ESTIMATE_AT) sizeColumns(cols, BASE + i);
+    i = wsAcross(i);
+    if (B[i] === C.Comma) {
+      i = wsAcross(i + 1);
+      continue;
+    }
+    if (B[i] === C.CloseBracket) break;
+    throw NOT_FAST;
+  }
+  if (cols.n > options.maxFeatures) throw NOT_FAST;
+  return i + 1;
+}
+
+function scanCollection(source: ByteSource, cols: Columns, weightKey: Uint8Array | null, timeKey: Uint8Array, options: ByteReadOptions): SpannedObservations {
+  let i = 0;
+  if (B[0] === 0xef && B[1] === 0xbb && B[2] === 0xbf) i = 3; // byte-order mark
+  i = wsAcross(i);
+  if (B[i] !== C.OpenBrace) throw NOT_FAST;
   let sawType = false;
   let sawFeatures = false;
   let timeSeen = false;
   let timed = 0;
-  i = ws(i + 1);
-  if (b[i] === C.CloseBrace) throw NOT_FAST;
+  i = wsAcross(i + 1);
+  if (B[i] === C.CloseBrace) throw NOT_FAST;
   for (;;) {
-    i = memberName(i, Number.MAX_SAFE_INTEGER);
-    const ks = keyStart;
-    const ke = keyEnd;
-    if (isKey(ks, ke, K_TYPE)) {
-      if (sawType || b[i] !== C.Quote) throw NOT_FAST;
-      sawType = true;
-      const e = scanString(i);
-      if (!isKey(i + 1, e - 1, K_FEATURE_COLLECTION)) throw NOT_FAST;
-      i = e;
-    } else if (isKey(ks, ke, K_FEATURES)) {
-      if (sawFeatures || b[i] !== C.OpenBracket) throw NOT_FAST;
-      sawFeatures = true;
-      i = ws(i + 1);
-      if (b[i] === C.CloseBracket) throw NOT_FAST; // no features: the parsing reader says so
-      for (;;) {
-        if (cols.n === cols.cap) cols.grow(cols.cap * 2);
-        i = scanFeature(i, cols, weightKey, timeKey, options.time);
-        if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) timed++;
-        if (lastTimeFound) timeSeen = true;
-        i = ws(i);
-        if (b[i] === C.Comma) {
-          i = ws(i + 1);
-          continue;
-        }
-        if (b[i] === C.CloseBracket) break;
-        throw NOT_FAST;
+    i = ahead(i);
+    const u = i;
+    let member: number;
+    try {
+      // a member whole, but only the name and bracket of the features
+      i = memberName(i, Number.MAX_SAFE_INTEGER);
+      member = isKey(keyStart, keyEnd, K_TYPE) ? M_TYPE : isKey(keyStart, keyEnd, K_FEATURES) ? M_FEATURES : M_OTHER;
+      if (member === M_TYPE) {
+        if (B[i] !== C.Quote) throw NOT_FAST;
+        const e = scanString(i);
+        if (!isKey(i + 1, e - 1, K_FEATURE_COLLECTION)) throw NOT_FAST;
+        i = e;
+      } else if (member === M_FEATURES) {
+        if (B[i] !== C.OpenBracket) throw NOT_FAST;
+        i++;
+      } else {
+        canonical = true;
+        i = scanValue(i, 1);
       }
-      i++;
-      if (cols.n > options.maxFeatures) throw NOT_FAST;
-    } else {
-      canonical = true;
-      i = scanValue(i, 1);
-    }
-    i = ws(i);
-    if (b[i] === C.Comma) {
-      i = ws(i + 1);
+    } catch (err) {
+      if (!shortOfBytes(err, u)) throw err;
+      i = shift(u);
       continue;
     }
-    if (b[i] === C.CloseBrace) break;
+    if (member === M_TYPE) {
+      if (sawType) throw NOT_FAST;
+      sawType = true;
+    } else if (member === M_FEATURES) {
+      if (sawFeatures) throw NOT_FAST;
+      sawFeatures = true;
+      i = scanFeatures(i, cols, weightKey, timeKey, options);
+      timed += scanTimed;
+      if (scanTimeSeen) timeSeen = true;
+    }
+    i = wsAcross(i);
+    if (B[i] === C.Comma) {
+      i = wsAcross(i + 1);
+      continue;
+    }
+    if (B[i] === C.CloseBrace) break;
     throw NOT_FAST;
   }
   if (!sawType || !sawFeatures) throw NOT_FAST;
-  if (ws(i + 1) !== N) throw NOT_FAST;
+  if (wsAcross(i + 1) !== N) throw NOT_FAST;
   // a time property other than observed_at that no feature has is a problem the parsing reader names
   if (options.time.property !== TIME_PROPERTY && !timeSeen) throw NOT_FAST;
 
+  return observations(source, cols, timed);
+}
+
+/** The observations of the features scanned into cols. */
+function observations(source: ByteSource, cols: Columns, timed: number): SpannedObservations {
   const n = cols.n;
   const spans: FeatureSpans = {
-    bytes: B,
+    source,
     // views, not copies: the spans stay on this thread (the positions below are copied to their size)
     featureStart: cols.featureStart.subarray(0, n),
     featureEnd: cols.featureEnd.subarray(0, n),
@@ -707,12 +927,13 @@ function scanFeature(i: number, cols: Columns, weightKey: Uint8Array | null, tim
   // a time that cannot be read: the parsing reader names it
   if (timeFound && t !== t) throw NOT_FAST;
   cols.time[row] = timeFound && t !== NO_TIME ? t : NaN;
-  cols.featureStart[row] = featureStart;
-  cols.featureEnd[row] = i;
-  cols.idStart[row] = idS;
-  cols.idEnd[row] = idE;
-  cols.propertiesStart[row] = propS;
-  cols.propertiesEnd[row] = propE;
+  // offsets in the source; an absent member stays 0, 0
+  cols.featureStart[row] = BASE + featureStart;
+  cols.featureEnd[row] = BASE + i;
+  cols.idStart[row] = idE === 0 ? 0 : BASE + idS;
+  cols.idEnd[row] = idE === 0 ? 0 : BASE + idE;
+  cols.propertiesStart[row] = propE === 0 ? 0 : BASE + propS;
+  cols.propertiesEnd[row] = propE === 0 ? 0 : BASE + propE;
   cols.verbatim[row] = idVerbatim && propVerbatim ? 1 : 0;
   cols.n = row + 1;
   lastTimeFound = timeFound;
@@ -828,9 +1049,12 @@ function scanCoordinate(i: number): number {
   return scanNumber(i);
 }
 
-/** Parses feature i from its span as JSON.parse of the whole input would have built it. */
-export function parseSpan(spans: FeatureSpans, i: number): InputFeature {
-  const text = Buffer.prototype.utf8Slice.call(spans.bytes, spans.featureStart[i]!, spans.featureEnd[i]!) as string;
+/** Parses feature i from its span as JSON.parse of the whole input would have built it; `w` is a window on spans.source. */
+export function parseSpan(spans: FeatureSpans, i: number, w: ByteWindow = spans.source.window()): InputFeature {
+  const s = spans.featureStart[i]!;
+  const e = spans.featureEnd[i]!;
+  w.need(s, e);
+  const text = Buffer.prototype.utf8Slice.call(w.buf, s - w.base, e - w.base) as string;
   const f = JSON.parse(text) as InputFeature;
   // the parsing reader sets an absent properties member to null
   if (f.properties === undefined) f.properties = null;
@@ -840,6 +1064,8 @@ export function parseSpan(spans: FeatureSpans, i: number): InputFeature {
 /** An array of the features that parses each from its span when first read. */
 function lazyFeatures(spans: FeatureSpans, n: number): InputFeature[] {
   const target: InputFeature[] = new Array(n);
+  // one window for all: features are mostly read in order (filters, counts)
+  const w = spans.source.window();
   return new Proxy(target, {
     get(t, key, receiver) {
       if (typeof key === 'string') {
@@ -848,7 +1074,7 @@ function lazyFeatures(spans: FeatureSpans, n: number): InputFeature[] {
           const k = Number(key);
           if (Number.isInteger(k) && k >= 0 && k < n && String(k) === key) {
             let f = t[k];
-            if (f === undefined) f = t[k] = parseSpan(spans, k);
+            if (f === undefined) f = t[k] = parseSpan(spans, k, w);
             return f;
           }
         }

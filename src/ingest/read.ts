@@ -7,7 +7,8 @@ import { DEFAULT_MAX_PROBLEMS, fail, timeRule, type TimeRule } from './checks.js
 import { readGeoJson } from './geojson.js';
 import { readCsv } from './csv.js';
 import { readGeoJsonSeq } from './seq.js';
-import { readGeoJsonBytes } from './geojson-bytes.js';
+import { readGeoJsonSource } from './geojson-bytes.js';
+import { InputFile, MemorySource } from './source.js';
 
 export type InputFormat = 'geojson' | 'csv' | 'geojson-seq';
 
@@ -81,6 +82,29 @@ export function detectFormat(input: string | Buffer): InputFormat {
   }
 }
 
+/** The first MiB of a file, for detectFormat. */
+function head(file: InputFile): Buffer {
+  const b = Buffer.allocUnsafe(Math.min(file.size, 1 << 20));
+  return b.subarray(0, file.readInto(b, 0, 0));
+}
+
+/**
+ * The bytes as text for the parsing readers, or an InputError when they are more than one string
+ * can hold (about 512 MiB; only the byte reader reads inputs that large, and only GeoJSON in it).
+ */
+function decode(bytes: Buffer, stopped: { feature: number; offset: number }): string {
+  try {
+    return bytes.toString('utf8');
+  } catch (err) {
+    if ((err as { code?: unknown }).code !== 'ERR_STRING_TOO_LONG') throw err;
+    const where =
+      stopped.feature >= 0
+        ? `feature ${stopped.feature} (after byte ${stopped.offset}) is not a plain Point Feature of a FeatureCollection read that way, or is wrong`
+        : 'only a GeoJSON FeatureCollection of Point features is read at that size';
+    fail('input-too-large', `the input is ${Math.round(bytes.length / 2 ** 20)} MiB, more than can be read as one text; ${where} — split it into smaller files`);
+  }
+}
+
 function timeRuleOrNull(column: string | null | undefined, format: string | null | undefined): TimeRule | null {
   try {
     return timeRule(column, format);
@@ -96,7 +120,7 @@ function timeRuleOrNull(column: string | null | undefined, format: string | null
  * @throws InputError with every problem found (at most `maxProblems` listed, `total` counted);
  *   RangeError for bad options.
  */
-export function readObservations(input: string | Buffer, options: ReadOptions = {}): Observations {
+export function readObservations(input: string | Buffer | InputFile, options: ReadOptions = {}): Observations {
   const maxProblems = options.maxProblems ?? DEFAULT_MAX_PROBLEMS;
   const maxFeatures = options.maxFeatures ?? Number.MAX_SAFE_INTEGER;
   if (!Number.isInteger(maxProblems) || maxProblems < 1) throw new RangeError(`maxProblems must be a whole number ≥ 1, got ${maxProblems}`);
@@ -110,18 +134,21 @@ export function readObservations(input: string | Buffer, options: ReadOptions = 
   const weightProperty = options.weightProperty ?? null;
   if (weightProperty === '') throw new RangeError('weightProperty must name a property (or be null for weight 1 each)');
 
-  // GeoJSON FeatureCollections of the usual shape are read from the bytes without parsing them
-  // into objects (src/ingest/geojson-bytes.ts); anything else goes on to the parsing readers below.
-  // Text that is not well-formed UTF-16 is left to them; bytes that are not UTF-8 are found by the byte reader.
-  if (!options.storable && (options.format ?? detectFormat(input)) === 'geojson') {
-    const bytes = typeof input === 'string' ? ((input as unknown as { isWellFormed(): boolean }).isWellFormed() ? Buffer.from(input, 'utf8') : null) : input;
+  // GeoJSON FeatureCollections and text sequences of the usual shape are read from the bytes
+  // without parsing them into objects (src/ingest/geojson-bytes.ts), a file in windows without holding it whole;
+  // anything else goes on to the parsing readers below. Text that is not well-formed UTF-16 is
+  // left to them; bytes that are not UTF-8 are found by the byte reader.
+  const stopped = { feature: -1, offset: 0 };
+  const sniffed = options.format ?? detectFormat(input instanceof InputFile ? head(input) : input);
+  if (!options.storable && sniffed !== 'csv') {
+    const source = input instanceof InputFile ? input : typeof input !== 'string' ? new MemorySource(input) : (input as unknown as { isWellFormed(): boolean }).isWellFormed() ? new MemorySource(Buffer.from(input, 'utf8')) : null;
     // a time format that cannot be used is reported below, after the checks that come first
-    const time = bytes === null ? null : timeRuleOrNull(options.timeColumn, options.timeFormat);
-    const fast = bytes === null || time === null ? null : readGeoJsonBytes(bytes, { weightProperty, time, maxFeatures });
+    const time = source === null ? null : timeRuleOrNull(options.timeColumn, options.timeFormat);
+    const fast = source === null || time === null ? null : readGeoJsonSource(source, { weightProperty, time, maxFeatures, sequence: sniffed === 'geojson-seq' }, stopped);
     if (fast !== null) return fast;
   }
 
-  let text = typeof input === 'string' ? input : input.toString('utf8');
+  let text = typeof input === 'string' ? input : decode(input instanceof InputFile ? input.readAll() : input, stopped);
   if (text.charCodeAt(0) === 0xfeff) text = text.slice(1);
   if (text.trim().length === 0) fail('empty-input', 'the input is empty; send a GeoJSON FeatureCollection of Point features or a CSV with a header row');
 

@@ -12,13 +12,13 @@
  * its next progress point and never overwrites the result of the process that took it over.
  */
 import { pointSet } from '../core/types.js';
-import { clusterObservations, type Stage } from '../run/cluster.js';
+import { clusterObservations, type Layer, type Stage } from '../run/cluster.js';
 import { SettingsError, type ClusterSettings } from '../run/settings.js';
 import { assess, splitEffort, type EffortPoints } from '../trust/assess.js';
 import { resolveRunSettings } from '../trust/options.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
 import { LAYER_PIECE_CHARS } from '../storage/layer-pieces.js';
-import { utf8Pieces } from '../storage/layer-write.js';
+import { timedPieces, utf8Pieces } from '../storage/layer-write.js';
 import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
 import { StoreError } from '../storage/store.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
@@ -273,11 +273,13 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   // keeps them: a million points are never one 234 MB string, nor 234 MB of pieces held at once.
   // The time spent making them counts as the layers stage, the rest of the saving as save.
   const making = { ms: 0 };
+  // (points and noise written as bytes from the stored texts, when the store kept them as bytes)
+  const pieces = (layer: Layer): Iterable<Uint8Array> => (layer.writesBytes ? timedPieces(layer.byteChunks(), making) : utf8Pieces(layer.chunks(), LAYER_PIECE_CHARS, making));
   const layers = {
-    hotspots: utf8Pieces(result.layers.hotspots.chunks(), LAYER_PIECE_CHARS, making),
-    centres: utf8Pieces(result.layers.centres.chunks(), LAYER_PIECE_CHARS, making),
-    noise: utf8Pieces(result.layers.noise.chunks(), LAYER_PIECE_CHARS, making),
-    points: utf8Pieces(result.layers.points.chunks(), LAYER_PIECE_CHARS, making),
+    hotspots: pieces(result.layers.hotspots),
+    centres: pieces(result.layers.centres),
+    noise: pieces(result.layers.noise),
+    points: pieces(result.layers.points),
   };
   const stored: RunHotspot[] = finished.map((f, k) => ({
     hotspotId: f.hotspot.hotspotId,

@@ -5,6 +5,7 @@
  */
 import type { ResultHotspot } from '../run/cluster.js';
 import type { Dataset, Run, RunStatus, Store } from '../storage/store.js';
+import type { TrackSettings } from '../tracks/match.js';
 
 export interface RunContext {
   store: Store;
@@ -39,4 +40,11 @@ export interface RunHooks {
   assignTracks(ctx: RunContext, hotspots: FinishedHotspot[]): Promise<TrackAssignment>;
   /** After the run is final. Errors are logged by the caller and never change the run's outcome. */
   afterRun(ctx: RunContext, outcome: RunOutcome): Promise<void>;
+  /**
+   * Set when `assignTracks` is src/jobs/tracking.ts's with these thresholds and nothing else: a run
+   * executed in a job thread then matches its tracks there, with the thread's own store
+   * connection, instead of sending its hotspots back to the main thread (whose event loop the
+   * matching held up to a second for a run of 65 000 points, test/bench/soak-results.md).
+   */
+  readonly tracksInThread?: Partial<TrackSettings>;
 }

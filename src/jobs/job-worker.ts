@@ -19,6 +19,8 @@ import { publishLayerTexts, type PublishedLayers, type PublishOptions } from '..
 import { joinPieces } from '../storage/layer-pieces.js';
 import { executeRun, RunCancelled, runFailureMessage } from './execute.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
+import { assignTracks } from './tracking.js';
+import type { TrackSettings } from '../tracks/match.js';
 import { defaultThreads } from '../trust/trials.js';
 import { indexParts, type LayerIndexParts } from '../ogc/layer-index.js';
 
@@ -57,6 +59,8 @@ export interface RunTask {
   claim: string;
   /** the main thread answers `{type:'tracks', hotspots}` with `{assignment}` or `{error}` */
   port: MessagePort;
+  /** when given, the tracks are matched in this thread with these thresholds (RunHooks.tracksInThread), not asked of the main thread */
+  tracks?: Partial<TrackSettings>;
 }
 
 export interface IndexTask {
@@ -149,7 +153,9 @@ async function run(task: RunTask): Promise<RunOutcomeMessage> {
     if (dataset === null || current === null) return { ok: false, cancelled: true, message: 'the dataset or run was deleted' };
     if (current.status !== 'running') return { ok: false, cancelled: true, message: `the run is ${current.status}` };
     if (current.workerId !== task.claim) return { ok: false, cancelled: true, message: 'the run was taken over by another process' };
-    const done = await executeRun(store, current, dataset, { assignTracks: (h) => askTracks(task.port, h), trialThreads: defaultThreads() });
+    const tracks = task.tracks;
+    const assign = tracks === undefined ? (h: FinishedHotspot[]) => askTracks(task.port, h) : (h: FinishedHotspot[]) => assignTracks({ store, dataset, run: current }, h, tracks);
+    const done = await executeRun(store, current, dataset, { assignTracks: assign, trialThreads: defaultThreads() });
     return { ok: true, ...done };
   } catch (err) {
     const e = err instanceof Error ? err : new Error(String(err));

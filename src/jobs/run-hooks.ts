@@ -36,6 +36,7 @@ export function createRoostHooks(options: RoostHookOptions = {}): RoostHooks {
   const stop = new AbortController();
   return {
     assignTracks: (ctx, hotspots) => assignTracks(ctx, hotspots, options.trackSettings),
+    tracksInThread: { ...options.trackSettings },
     async afterRun(ctx, outcome) {
       if (stop.signal.aborted) return;
       // the dataset as it is now: a webhook changed or removed during the run is respected

@@ -210,7 +210,8 @@ export class Runner {
           );
         });
         try {
-          const res = await this.options.pool!.run({ store: this.options.storeConfig, datasetId: run.datasetId, runId: run.id, claim, port: port2 }, signal);
+          const tracks = hooks.tracksInThread === undefined ? {} : { tracks: hooks.tracksInThread };
+          const res = await this.options.pool!.run({ store: this.options.storeConfig, datasetId: run.datasetId, runId: run.id, claim, port: port2, ...tracks }, signal);
           if (!res.ok) {
             if (res.cancelled) cancelled = true;
             else failure = res.message;

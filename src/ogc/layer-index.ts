@@ -4,8 +4,8 @@
  * it are kept its id, its bounding box and its time span. The layer is held as its UTF-8 bytes
  * with each feature's place in them, and a feature is cut out only when a page asks for it. The
  * scan and the parse of every feature (`indexParts`) are the costly part; the service does them
- * in a job thread (src/ogc/layers.ts). Stored layers never change once their run has succeeded,
- * so an index is kept per (run, layer) in a small cache bounded by the bytes it holds.
+ * in a job thread (src/ogc/layers.ts). Indexes are kept with the layers' bytes in
+ * src/ogc/layer-cache.ts.
  */
 import { Buffer } from 'node:buffer';
 import { bboxOf, type GeometryLike } from '../geometry/geojson.js';
@@ -205,43 +205,4 @@ export function matching(index: LayerIndex, filter: LayerFilter): number[] | nul
     out.push(k);
   }
   return out;
-}
-
-/** A small cache of layer indexes, bounded by the bytes of text they hold (least recently used out first). */
-export class LayerIndexCache {
-  private readonly entries = new Map<string, Promise<LayerIndex>>();
-  private readonly sizes = new Map<string, number>();
-  constructor(private readonly maxBytes = 256 * 1024 * 1024) {}
-
-  async get(key: string, load: () => Promise<LayerIndex>): Promise<LayerIndex> {
-    const hit = this.entries.get(key);
-    if (hit) {
-      this.entries.delete(key);
-      this.entries.set(key, hit);
-      return hit;
-    }
-    const p = load();
-    this.entries.set(key, p);
-    try {
-      const index = await p;
-      this.sizes.set(key, index.bytes);
-      this.trim(key);
-      return index;
-    } catch (err) {
-      this.entries.delete(key);
-      throw err;
-    }
-  }
-
-  private trim(keep: string): void {
-    let total = 0;
-    for (const s of this.sizes.values()) total += s;
-    for (const key of this.entries.keys()) {
-      if (total <= this.maxBytes) break;
-      if (key === keep || !this.sizes.has(key)) continue;
-      total -= this.sizes.get(key)!;
-      this.sizes.delete(key);
-      this.entries.delete(key);
-    }
-  }
 }

@@ -7,13 +7,12 @@ import { Buffer } from 'node:buffer';
 import type { LayerName } from '../run/layers.js';
 import type { Store } from '../storage/store.js';
 import { HttpProblem } from '../http/errors.js';
-import { indexParts, LayerIndexCache, layerIndexFrom, matching, type LayerIndex, type LayerIndexParts } from './layer-index.js';
+import { layerCacheOf, type LayerIndexer } from './layer-cache.js';
+import { matching, type LayerIndex } from './layer-index.js';
 import type { ItemsQuery } from './query.js';
 
-/** Indexes a layer's bytes, for example in a job thread: the bytes are shared with it, not copied. */
-export type LayerIndexer = (bytes: Uint8Array) => Promise<LayerIndexParts>;
+export type { LayerIndexer } from './layer-cache.js';
 
-const caches = new WeakMap<Store, LayerIndexCache>();
 const indexers = new WeakMap<Store, LayerIndexer>();
 
 /** Indexes the layers of this store's runs with `indexer` (the service: in a job thread). */
@@ -21,48 +20,19 @@ export function indexLayersWith(store: Store, indexer: LayerIndexer): void {
   indexers.set(store, indexer);
 }
 
-/** Bytes in memory that threads share (a SharedArrayBuffer): handing them to a job thread copies nothing. */
-function sharedBytes(length: number): Buffer {
-  return Buffer.from(new SharedArrayBuffer(Math.max(1, length)), 0, length);
-}
-
-/** The index of a layer's bytes: made by the store's indexer when one is set, else on this thread. */
-async function indexBytes(store: Store, bytes: Uint8Array): Promise<LayerIndex> {
-  const indexer = indexers.get(store);
-  return layerIndexFrom(bytes, indexer === undefined ? indexParts(bytes) : await indexer(bytes));
-}
-
-/** The index of a layer text under `key`, cached per store: the key must name text that never changes. */
+/** The index of a layer text under `key`, kept with the store's layers: the key must name text that never changes. */
 export async function textIndex(store: Store, key: string, load: () => Promise<string>): Promise<LayerIndex> {
-  let cache = caches.get(store);
-  if (cache === undefined) caches.set(store, (cache = new LayerIndexCache()));
-  return cache.get(key, async () => {
-    const text = await load();
-    const bytes = sharedBytes(Buffer.byteLength(text, 'utf8'));
-    bytes.write(text, 'utf8');
-    return indexBytes(store, bytes);
-  });
+  return layerCacheOf(store).index(key, async () => [Buffer.from(await load(), 'utf8')], indexers.get(store));
 }
 
-/** The index of a succeeded run's layer, cached per store (runs' layers never change). */
+/** The index of a succeeded run's layer, kept with the store's layers (src/ogc/layer-cache.ts; runs' layers never change). */
 export async function layerIndex(store: Store, runId: string, layer: LayerName): Promise<LayerIndex> {
-  let cache = caches.get(store);
-  if (cache === undefined) caches.set(store, (cache = new LayerIndexCache()));
-  return cache.get(`${runId}/${layer}`, async () => {
-    // the stored bytes, copied once into memory the job thread can read: no string is made here
+  return layerCacheOf(store).index(`${runId}/${layer}`, async () => {
+    // the stored bytes as they are: no string is made here
     const pieces = await store.getRunLayerBytes(runId, layer);
     if (pieces === null) throw new HttpProblem('run-not-ready', `run ${runId} has no stored result`);
-    const parts: Buffer[] = [];
-    let length = 0;
-    for await (const p of pieces) {
-      parts.push(p);
-      length += p.length;
-    }
-    const bytes = sharedBytes(length);
-    let at = 0;
-    for (const p of parts) at += p.copy(bytes, at);
-    return indexBytes(store, bytes);
-  });
+    return pieces;
+  }, indexers.get(store));
 }
 
 export interface LayerPage {

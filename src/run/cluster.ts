@@ -29,6 +29,7 @@ import { applyFilter } from '../ingest/filter.js';
 import { readObservations, type InputFormat } from '../ingest/read.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
 import { parseSpan, type FeatureSpans, type SpannedObservations } from '../ingest/geojson-bytes.js';
+import type { ByteWindow, InputFile } from '../ingest/source.js';
 import { CAUTIONS } from './cautions.js';
 import { SettingsError, settingsRecord, type ClusterSettings } from './settings.js';
 import { ROOST_VERSION } from './version.js';
@@ -59,6 +60,10 @@ export class Layer {
   /** The text in chunks; every call starts again from the beginning. */
   chunks(): Iterable<string> {
     return this.produce();
+  }
+  /** Whether byteChunks() writes the bytes itself (in chunks of about a MiB) rather than encoding chunks(). */
+  get writesBytes(): boolean {
+    return this.produceBytes !== undefined;
   }
   /** The text as UTF-8 bytes in chunks (the bytes of chunks(), for files and sockets); every call starts again. */
   byteChunks(): Iterable<Uint8Array> {
@@ -305,62 +310,96 @@ const latin1Slice = Buffer.prototype.latin1Slice as (this: Uint8Array, start: nu
  * the properties are copied from the input where their text is already what JSON.stringify
  * writes (spans.verbatim), the feature is parsed from its span otherwise.
  */
-export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: number, lat: number, hotspot: number, role: number, extra = ''): string {
-  if (spans.verbatim[i] !== 1) return pointFeature(parseSpan(spans, i), hotspot, role, extra);
-  const b = spans.bytes;
-  const is = spans.idStart[i]!;
-  const ie = spans.idEnd[i]!;
+export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: number, lat: number, hotspot: number, role: number, extra = '', w: ByteWindow = spans.source.window()): string {
+  if (spans.verbatim[i] !== 1) return pointFeature(parseSpan(spans, i, w), hotspot, role, extra);
+  w.need(spans.featureStart[i]!, spans.featureEnd[i]!);
+  const b = w.buf;
+  const is = spans.idStart[i]! - w.base;
+  const ie = spans.idEnd[i]! - w.base;
   // a string id is copied; a number is written as JSON.stringify writes its value (1.0 → 1)
-  const id = ie === 0 ? '' : b[is] === 34 ? ',"id":' + utf8Slice.call(b, is, ie) : ',"id":' + JSON.stringify(Number(latin1Slice.call(b, is, ie)));
+  const id = spans.idEnd[i] === 0 ? '' : b[is] === 34 ? ',"id":' + utf8Slice.call(b, is, ie) : ',"id":' + JSON.stringify(Number(latin1Slice.call(b, is, ie)));
   const alt = spans.altitude === null ? NaN : spans.altitude[i]!;
   const position = alt === alt ? coordText(lon) + ',' + coordText(lat) + ',' + coordText(alt) : coordText(lon) + ',' + coordText(lat);
   const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"${extra}}`;
-  const ps = spans.propertiesStart[i]!;
-  const pe = spans.propertiesEnd[i]!;
+  const ps = spans.propertiesStart[i]! - w.base;
+  const pe = spans.propertiesEnd[i]! - w.base;
   const properties = pe - ps <= 2 ? '{' + added : utf8Slice.call(b, ps, pe - 1) + ',' + added;
   return '{"type":"Feature"' + id + ',"geometry":{"type":"Point","coordinates":[' + position + ']},"properties":' + properties + '}';
 }
 
-/** Bytes of a point layer (see pointFeatureFromSpans) in chunks of about 1 MiB, written without per-feature strings. */
-function* pointLayerBytes(
-  head: string,
-  spans: FeatureSpans,
-  rows: { n: number; lon: Float64Array; lat: Float64Array; kept: Int32Array; labels: Int32Array; roles: Uint8Array },
-  extra: (i: number) => string,
-  noiseOnly: boolean,
-): Generator<Uint8Array> {
+/** What a point layer's bytes are written from: the clustered rows and the input position of each. */
+interface PointRows {
+  n: number;
+  lon: Float64Array;
+  lat: Float64Array;
+  kept: Int32Array;
+  labels: Int32Array;
+  roles: Uint8Array;
+}
+
+/**
+ * Writes one point feature of row `i` at `pos` of `out` and returns where it ends, or -1 (writing
+ * nothing) when it needs more than `room` bytes.
+ */
+type PointWriter = (i: number, out: Buffer, pos: number, room: number) => number;
+
+/**
+ * A point layer's bytes in chunks of about 1 MiB: `head`, the features of the rows (all, or the
+ * noise only) as `write` puts them, and the closing `]}`. A feature that does not fit in what is
+ * left of a chunk starts the next one, with room at least `need(i)`.
+ */
+function* pointLayerChunks(head: string, rows: PointRows, noiseOnly: boolean, write: PointWriter, need: (i: number) => number): Generator<Uint8Array> {
   const CHUNK = 1 << 20;
-  const b = spans.bytes;
-  const { n, lon, lat, kept, labels, roles } = rows;
   let out = Buffer.allocUnsafe(Math.max(CHUNK, Buffer.byteLength(head) + 2));
   let pos = out.write(head, 0, 'utf8');
   let first = true;
-  for (let i = 0; i < n; i++) {
-    const label = labels[i]!;
-    if (noiseOnly && label >= 0) continue;
-    const k = kept[i]!;
-    const x = extra(i);
-    let text: string | null = null;
-    let need: number;
-    if (spans.verbatim[k] !== 1) {
-      text = pointFeature(parseSpan(spans, k), label, roles[i]!, x);
-      need = Buffer.byteLength(text, 'utf8') + 1;
-    } else need = 256 + spans.idEnd[k]! - spans.idStart[k]! + spans.propertiesEnd[k]! - spans.propertiesStart[k]! + x.length;
-    if (pos + need + 2 > out.length) {
+  for (let i = 0; i < rows.n; i++) {
+    if (noiseOnly && rows.labels[i]! >= 0) continue;
+    const at = first ? pos : pos + 1;
+    // 2 bytes kept for the closing ]}
+    let end = write(i, out, at, out.length - at - 2);
+    if (end < 0) {
       yield out.subarray(0, pos);
-      out = Buffer.allocUnsafe(Math.max(CHUNK, need + 2));
+      out = Buffer.allocUnsafe(Math.max(CHUNK, need(i) + 3));
       pos = 0;
+      end = write(i, out, first ? 0 : 1, out.length - 3);
+      if (end < 0) throw new Error(`point feature ${i} needs more than the ${out.length} bytes it was given`);
     }
-    if (!first) out[pos++] = 44; // ,
+    if (!first) out[pos] = 44; // ,
     first = false;
-    if (text !== null) {
-      pos += out.write(text, pos, 'utf8');
-      continue;
-    }
-    const is = spans.idStart[k]!;
-    const ie = spans.idEnd[k]!;
+    pos = end;
+  }
+  out[pos++] = 93; // ]
+  out[pos++] = 125; // }
+  yield out.subarray(0, pos);
+}
+
+/** Writes `text` at `pos` when it fits in `room` bytes; returns where it ends, or -1. */
+function writeText(text: string, out: Buffer, pos: number, room: number): number {
+  // a character takes at most 3 bytes of UTF-8 for each of its UTF-16 units
+  if (text.length * 3 > room && Buffer.byteLength(text, 'utf8') > room) return -1;
+  return pos + out.write(text, pos, 'utf8');
+}
+
+/** Bytes of a point layer (see pointFeatureFromSpans) in chunks of about 1 MiB, written without per-feature strings. */
+function pointLayerBytes(head: string, spans: FeatureSpans, rows: PointRows, extra: (i: number) => string, noiseOnly: boolean): Generator<Uint8Array> {
+  const { lon, lat, kept, labels, roles } = rows;
+  // the input is read again in order through a window (a file is never held whole)
+  const w = spans.source.window();
+  const verbatimNeed = (k: number, x: string): number => 256 + spans.idEnd[k]! - spans.idStart[k]! + spans.propertiesEnd[k]! - spans.propertiesStart[k]! + 3 * x.length;
+  const parsed = (i: number): string => pointFeature(parseSpan(spans, kept[i]!, w), labels[i]!, roles[i]!, extra(i));
+  const write: PointWriter = (i, out, pos, room) => {
+    const k = kept[i]!;
+    const label = labels[i]!;
+    const x = extra(i);
+    if (spans.verbatim[k] !== 1) return writeText(parsed(i), out, pos, room);
+    if (verbatimNeed(k, x) > room) return -1;
+    w.need(spans.featureStart[k]!, spans.featureEnd[k]!);
+    const b = w.buf;
+    const is = spans.idStart[k]! - w.base;
+    const ie = spans.idEnd[k]! - w.base;
     pos += ascii(out, pos, '{"type":"Feature"');
-    if (ie !== 0) {
+    if (spans.idEnd[k] !== 0) {
       pos += ascii(out, pos, ',"id":');
       if (b[is] === 34) pos += copyBytes(b, out, pos, is, ie);
       else pos += ascii(out, pos, JSON.stringify(Number(latin1Slice.call(b, is, ie))));
@@ -375,23 +414,53 @@ function* pointLayerBytes(
       pos += ascii(out, pos, coordText(alt));
     }
     pos += ascii(out, pos, ']},"properties":');
-    const ps = spans.propertiesStart[k]!;
-    const pe = spans.propertiesEnd[k]!;
-    if (pe - ps <= 2) out[pos++] = 123; // {
-    else {
-      pos += copyBytes(b, out, pos, ps, pe - 1);
-      out[pos++] = 44;
-    }
-    pos += ascii(out, pos, '"hotspot_id":');
-    pos += ascii(out, pos, label >= 0 ? String(label + 1) : 'null');
-    pos += ascii(out, pos, ROLE_TEXT[roles[i]!]!);
-    if (x !== '') pos += out.write(x, pos, 'utf8');
-    out[pos++] = 125;
-    out[pos++] = 125;
+    return addedProperties(b, spans.propertiesStart[k]! - w.base, spans.propertiesEnd[k]! - w.base, label, roles[i]!, x, out, pos);
+  };
+  const need = (i: number): number => (spans.verbatim[kept[i]!] !== 1 ? Buffer.byteLength(parsed(i), 'utf8') : verbatimNeed(kept[i]!, extra(i)));
+  return pointLayerChunks(head, rows, noiseOnly, write, need);
+}
+
+/** Feature texts kept as UTF-8 bytes (see PackedTexts in src/storage/columns.ts). */
+export interface FeatureByteSource extends FeatureTextSource {
+  /** the buffer holding text `index` as bytes from byteStart to byteEnd, or null when it is kept as a string */
+  bytesOf(index: number): Uint8Array | null;
+  byteStart(index: number): number;
+  byteEnd(index: number): number;
+}
+
+/**
+ * Bytes of a point layer written from stored feature texts (see pointFeatureFromText) in chunks
+ * of about 1 MiB: from the texts' bytes where pointFeatureBytes can, from the text otherwise.
+ */
+function storedPointLayerBytes(head: string, texts: FeatureByteSource, rows: PointRows, extra: (i: number) => string, noiseOnly: boolean): Generator<Uint8Array> {
+  const { kept, labels, roles } = rows;
+  const fromText = (i: number): string => pointFeatureFromText(texts.at(kept[i]!) as string, labels[i]!, roles[i]!, extra(i));
+  const write: PointWriter = (i, out, pos, room) => {
+    const k = kept[i]!;
+    const b = texts.bytesOf(k);
+    const end = b === null ? -1 : pointFeatureBytes(b, texts.byteStart(k), texts.byteEnd(k), labels[i]!, roles[i]!, extra(i), out, pos, room);
+    return end >= 0 ? end : writeText(fromText(i), out, pos, room);
+  };
+  return pointLayerChunks(head, rows, noiseOnly, write, (i) => Buffer.byteLength(fromText(i), 'utf8'));
+}
+
+/**
+ * Writes a point feature's properties, the bytes [ps, pe) of `b` (an object, or `{}`/`null`/empty
+ * for none), with hotspot_id, role and `extra` added, and the feature's closing brace.
+ */
+function addedProperties(b: Uint8Array, ps: number, pe: number, label: number, role: number, extra: string, out: Buffer, pos: number): number {
+  if (pe - ps <= 2 || (pe - ps === 4 && b[ps] === 110)) out[pos++] = 123; // { (for none, {} or null)
+  else {
+    pos += copyBytes(b, out, pos, ps, pe - 1);
+    out[pos++] = 44;
   }
-  out[pos++] = 93; // ]
-  out[pos++] = 125; // }
-  yield out.subarray(0, pos);
+  pos += ascii(out, pos, '"hotspot_id":');
+  pos += ascii(out, pos, label >= 0 ? String(label + 1) : 'null');
+  pos += ascii(out, pos, ROLE_TEXT[role]!);
+  if (extra !== '') pos += out.write(extra, pos, 'utf8');
+  out[pos++] = 125;
+  out[pos++] = 125;
+  return pos;
 }
 
 /** `,"role":"core"` and so on, by role. */
@@ -483,6 +552,110 @@ export function pointFeatureFromText(text: string, hotspot: number, role: number
   const added = `"hotspot_id":${hotspot >= 0 ? hotspot + 1 : 'null'},"role":"${ROLE_NAMES[role]}"${extra}}`;
   const properties = props === '' || props === 'null' || props === '{}' ? '{' + added : props.slice(0, -1) + ',' + added;
   return `{"type":"Feature"${id === '' ? '' : ',"id":' + id},"geometry":{"type":"Point","coordinates":${position}]},"properties":${properties}}`;
+}
+
+/** Byte strings pointFeatureBytes compares with. */
+const KEY_ID = Buffer.from('"id"');
+const KEY_GEOMETRY = Buffer.from('"geometry"');
+const KEY_PROPERTIES = Buffer.from('"properties"');
+const POINT_HEAD_BYTES = Buffer.from(POINT_HEAD);
+const HOTSPOT_ID_KEY = Buffer.from('"hotspot_id"');
+const ROLE_KEY = Buffer.from('"role"');
+
+/** Whether bytes [s, e) of `b` are `what`. */
+function bytesAre(b: Uint8Array, s: number, e: number, what: Uint8Array): boolean {
+  if (e - s !== what.length) return false;
+  for (let k = 0; k < what.length; k++) if (b[s + k] !== what[k]) return false;
+  return true;
+}
+
+/** Whether `what` occurs in bytes [s, e) of `b`. */
+function bytesHold(b: Uint8Array, s: number, e: number, what: Uint8Array): boolean {
+  const first = what[0];
+  for (let j = s; j + what.length <= e; j++) if (b[j] === first && bytesAre(b, j, j + what.length, what)) return true;
+  return false;
+}
+
+/** Index just past the JSON string starting (with its quote) at `i` of bytes [, e) (-1 when they end first). */
+function skipStringBytes(b: Uint8Array, i: number, e: number): number {
+  for (let q = i + 1; q < e; q++) {
+    const c = b[q];
+    if (c === 92) q++; // \ and the character it escapes
+    else if (c === 34) return q + 1;
+  }
+  return -1;
+}
+
+/** Index just past the JSON value starting at `i` of bytes [, e) (-1 when they end first). */
+function skipValueBytes(b: Uint8Array, i: number, e: number): number {
+  const c = b[i];
+  if (c === 34) return skipStringBytes(b, i, e);
+  if (c !== 123 && c !== 91) {
+    let j = i;
+    for (let d = b[j]; j < e && d !== 44 && d !== 125 && d !== 93; d = b[++j]);
+    return j;
+  }
+  let depth = 0;
+  for (let j = i; j < e; ) {
+    const d = b[j];
+    if (d === 34) {
+      j = skipStringBytes(b, j, e);
+      if (j < 0) return -1;
+      continue;
+    }
+    if (d === 123 || d === 91) depth++;
+    else if ((d === 125 || d === 93) && --depth === 0) return j + 1;
+    j++;
+  }
+  return -1;
+}
+
+/**
+ * pointFeatureFromText on a stored text given as its UTF-8 bytes [s, e) of `b`, written at `pos`
+ * of `out` without making a string of it: the same bytes, where the text is of the form the
+ * fast path of pointFeatureFromText covers. @returns where the feature ends, or -1 (nothing
+ * written) for any other text and when it needs more than `room` bytes
+ */
+export function pointFeatureBytes(b: Uint8Array, s: number, e: number, hotspot: number, role: number, extra: string, out: Buffer, pos: number, room: number): number {
+  if (e - s + 160 + 3 * extra.length > room || b[s] !== 123 || b[e - 1] !== 125) return -1;
+  let is = 0, ie = 0, gs = 0, ge = 0, ps = 0, pe = 0;
+  for (let i = s + 1; b[i] !== 125; ) {
+    const keyEnd = b[i] === 34 ? skipStringBytes(b, i, e) : -1;
+    const end = keyEnd < 0 || b[keyEnd] !== 58 ? -1 : skipValueBytes(b, keyEnd + 1, e);
+    if (end < 0 || end >= e) return -1;
+    if (bytesAre(b, i, keyEnd, KEY_ID)) [is, ie] = [keyEnd + 1, end];
+    else if (bytesAre(b, i, keyEnd, KEY_GEOMETRY)) [gs, ge] = [keyEnd + 1, end];
+    else if (bytesAre(b, i, keyEnd, KEY_PROPERTIES)) [ps, pe] = [keyEnd + 1, end];
+    i = b[end] === 44 ? end + 1 : end;
+  }
+  // a string id only (a number is written as JSON.stringify writes its value), properties an object or none
+  if (ie > is && b[is] !== 34) return -1;
+  const noProps = pe === ps || (pe - ps === 4 && b[ps] === 110 && b[ps + 1] === 117 && b[ps + 2] === 108 && b[ps + 3] === 108);
+  if (!noProps && (b[ps] !== 123 || bytesHold(b, ps, pe, HOTSPOT_ID_KEY) || bytesHold(b, ps, pe, ROLE_KEY))) return -1;
+  const cs = gs + POINT_HEAD_BYTES.length;
+  if (ge - gs < POINT_HEAD_BYTES.length + 2 || !bytesAre(b, gs, cs, POINT_HEAD_BYTES) || b[ge - 2] !== 93 || b[ge - 1] !== 125) return -1;
+  for (let j = cs; j < ge; j++) if (b[j] === 91) return -1;
+  pos += ascii(out, pos, '{"type":"Feature"');
+  if (ie > is) {
+    pos += ascii(out, pos, ',"id":');
+    pos += copyBytes(b, out, pos, is, ie);
+  }
+  pos += ascii(out, pos, ',"geometry":{"type":"Point","coordinates":[');
+  // the coordinates as split(',') cuts them; at most three (the room asked for above)
+  const ce = ge - 2;
+  let coords = 0;
+  for (let from = cs; ; from++) {
+    let to = from;
+    while (to < ce && b[to] !== 44) to++;
+    if (++coords > 3) return -1;
+    if (coords > 1) out[pos++] = 44;
+    pos += ascii(out, pos, coordText(Number(latin1Slice.call(b, from, to))));
+    if (to >= ce) break;
+    from = to;
+  }
+  if (coords < 2) return -1;
+  pos += ascii(out, pos, ']},"properties":');
+  return addedProperties(b, ps, noProps ? ps : pe, hotspot, role, extra, out, pos);
 }
 
 /**
@@ -687,12 +860,21 @@ export function clusterObservations(
   const extra = ordering === null ? () => '' : opticsMembers(ordering);
   const spans = (all as Partial<SpannedObservations>).spans;
   function* pointFeatures(noiseOnly: boolean): Generator<string> {
+    const w = spans?.source.window();
     for (let i = 0; i < points.n; i++) {
       if (noiseOnly && labels[i] >= 0) continue;
-      if (spans !== undefined) yield pointFeatureFromSpans(spans, kept[i]!, points.lon[i]!, points.lat[i]!, labels[i], roles[i], extra(i));
+      if (spans !== undefined) yield pointFeatureFromSpans(spans, kept[i]!, points.lon[i]!, points.lat[i]!, labels[i], roles[i], extra(i), w);
       else yield featureTexts === undefined ? pointFeature(features[i], labels[i], roles[i], extra(i)) : pointFeatureFromText(featureTexts.at(kept[i]) as string, labels[i], roles[i], extra(i));
     }
   }
+  // bytes written without per-feature strings, from the byte reader's spans or stored texts kept as bytes
+  const rows: PointRows = { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles };
+  const byteTexts = featureTexts !== undefined && typeof (featureTexts as Partial<FeatureByteSource>).bytesOf === 'function' ? (featureTexts as FeatureByteSource) : undefined;
+  const pointBytes = (bbox: ArrayLike<number> | null, noiseOnly: boolean): (() => Iterable<Uint8Array>) | undefined => {
+    if (spans !== undefined) return () => pointLayerBytes(collectionHeadText(bbox), spans, rows, extra, noiseOnly);
+    if (byteTexts !== undefined) return () => storedPointLayerBytes(collectionHeadText(bbox), byteTexts, rows, extra, noiseOnly);
+    return undefined;
+  };
   const hotspotsBbox = bboxOf(hulls);
   const centresBbox = bboxOf(figures.map((f) => ({ type: 'Point' as const, coordinates: f.centre })));
   const noiseBbox = bboxOfPositions(noiseLon, noiseLat);
@@ -716,11 +898,11 @@ export function clusterObservations(
     ]),
     noise: new Layer(
       () => featureCollectionChunks(pointFeatures(true), noiseBbox),
-      spans === undefined ? undefined : () => pointLayerBytes(collectionHeadText(noiseBbox), spans, { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles }, extra, true),
+      pointBytes(noiseBbox, true),
     ),
     points: new Layer(
       () => featureCollectionChunks(pointFeatures(false), pointsBbox),
-      spans === undefined ? undefined : () => pointLayerBytes(collectionHeadText(pointsBbox), spans, { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles }, extra, false),
+      pointBytes(pointsBbox, false),
     ),
   };
   timer.stop();
@@ -756,7 +938,7 @@ export function clusterObservations(
  * and SettingsError for settings that do not fit the data; never returns a partial result.
  */
 export function clusterInput(
-  input: Buffer | string,
+  input: Buffer | string | InputFile,
   format: InputFormat | undefined,
   settings: ClusterSettings,
   hooks: ClusterHooks = {},
@@ -768,7 +950,7 @@ export function clusterInput(
 }
 
 /** Reads an input with the reader options a clustering's settings name (weight, columns, time column and format). */
-export function readInput(input: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings): Observations {
+export function readInput(input: Buffer | string | InputFile, format: InputFormat | undefined, settings: ClusterSettings): Observations {
   return readObservations(input, {
     format,
     weightProperty: settings.weightProperty,

@@ -1,4 +1,5 @@
 /** Growable buffers for a run's input: feature texts packed into a few strings, and typed-array columns. */
+import { isUtf8 } from 'node:buffer';
 import type { FeatureTexts, RunInput } from './store.js';
 
 /** A typed array of `size` elements that starts with `a`'s. */
@@ -10,11 +11,13 @@ export function grown<T extends Float64Array | Int32Array | Uint32Array>(a: T, s
 
 /**
  * Feature texts kept as a few large strings: joined by "\n" (canonical JSON text never holds a
- * raw line break; a chunk whose texts do have one is kept as separate strings instead), or as
- * spans of a larger string (PostgreSQL's COPY reader). `at(i)` cuts one text out on demand.
+ * raw line break; a chunk whose texts do have one is kept as separate strings instead), as
+ * spans of a larger string (PostgreSQL's COPY reader), or as their UTF-8 bytes joined by "\n"
+ * (SQLite), which writing the points layer reads without making a string of them (`bytesOf`).
+ * `at(i)` cuts one text out on demand.
  */
 export class PackedTexts implements FeatureTexts {
-  private readonly chunks: string[] = [];
+  private readonly chunks: (string | Buffer)[] = [];
   /** per text: its chunk, and where it starts and ends in that chunk */
   private chunk = new Uint32Array(1024);
   private start = new Int32Array(1024);
@@ -45,6 +48,61 @@ export class PackedTexts implements FeatureTexts {
     this.loose.push([]);
     this.length = stop;
     return true;
+  }
+
+  /**
+   * Adds `count` texts given as UTF-8 bytes joined by "\n", kept as bytes; returns false (adding
+   * nothing) when the line breaks do not number count − 1.
+   */
+  addJoinedBytes(joined: Buffer, count: number): boolean {
+    if (count === 0) return true;
+    // bytes that are not UTF-8 would be written as they are where their text has U+FFFD
+    if (!isUtf8(joined)) return this.addJoined(joined.toString('utf8'), count);
+    this.reserve(count);
+    const c = this.chunks.length;
+    let from = 0;
+    for (let i = this.length, stop = this.length + count; i < stop; i++) {
+      const nl = joined.indexOf(10, from);
+      if ((nl === -1) !== (i === stop - 1)) return false;
+      const end = nl === -1 ? joined.length : nl;
+      this.place(i, c, from, end);
+      from = end + 1;
+    }
+    this.chunks.push(joined);
+    this.loose.push([]);
+    this.length += count;
+    return true;
+  }
+
+  /**
+   * Adds `count` texts that are parts of one buffer of UTF-8 bytes, kept as bytes: text k is bytes
+   * starts[k] to ends[k]. What lies between them is never handed out. Returns false (adding
+   * nothing) when the bytes are not UTF-8.
+   */
+  addSpanBytes(chunk: Buffer, starts: Int32Array, ends: Int32Array, count: number): boolean {
+    if (count === 0) return true;
+    if (!isUtf8(chunk)) return false;
+    this.reserve(count);
+    const c = this.chunks.length;
+    for (let k = 0; k < count; k++) this.place(this.length + k, c, starts[k] as number, ends[k] as number);
+    this.chunks.push(chunk);
+    this.loose.push([]);
+    this.length += count;
+    return true;
+  }
+
+  /** The buffer holding text `index` as UTF-8 bytes from byteStart to byteEnd, or null when it is kept as a string. */
+  bytesOf(index: number): Buffer | null {
+    const c = this.chunks[this.chunk[index] as number];
+    return typeof c === 'string' || c === undefined ? null : c;
+  }
+
+  byteStart(index: number): number {
+    return this.start[index] as number;
+  }
+
+  byteEnd(index: number): number {
+    return this.end[index] as number;
   }
 
   /**
@@ -92,7 +150,9 @@ export class PackedTexts implements FeatureTexts {
     if (!(index >= 0 && index < this.length)) return undefined;
     const c = this.chunk[index] as number;
     const s = this.start[index] as number;
-    return s < 0 ? this.loose[c]![this.end[index]!] : this.chunks[c]!.slice(s, this.end[index]);
+    if (s < 0) return this.loose[c]![this.end[index]!];
+    const chunk = this.chunks[c]!;
+    return typeof chunk === 'string' ? chunk.slice(s, this.end[index]) : chunk.toString('utf8', s, this.end[index]);
   }
 
   *[Symbol.iterator](): Iterator<string> {

@@ -33,6 +33,9 @@ export async function storedPieces<T extends string | Buffer>(read: (fromPart: n
       yield* batch;
       if (batch.length < perRead) return;
       at += batch.length;
+      // the event loop gets a turn between two reads (each is synchronous on SQLite): a layer
+      // read whole (to index it, or for a client on a fast socket) does not hold it throughout
+      await new Promise<void>((resolve) => setImmediate(resolve));
       batch = await read(at, perRead);
       if (batch.length === 0) return;
     }

@@ -46,7 +46,7 @@ import { batchIds, planIngest } from './ingest-plan.js';
 import { keyFromRow } from './key-rows.js';
 import { joinPieces, storedPieces } from './layer-pieces.js';
 import { layerSource, pgLayerCopyData } from './layer-write.js';
-import { DEFAULT_LEASE_MS, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
+import { DEFAULT_LEASE_MS, FinishedRuns, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
 import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
 import { whereMatches } from './where-match.js';
 import { trackListSql, trackPage } from './track-list.js';
@@ -97,6 +97,8 @@ export class PostgresStore implements Store {
   readonly schema: string;
   readonly pool: pg.Pool;
   private closed = false;
+  /** finished runs as last read (see FinishedRuns) */
+  private readonly finished = new FinishedRuns<Run>();
 
   constructor(options: PostgresStoreOptions) {
     const schema = options.schema ?? 'public';
@@ -492,8 +494,15 @@ export class PostgresStore implements Store {
     checkStatuses([status]);
     const limit = before === undefined ? Number.MAX_SAFE_INTEGER : parseRunId(before);
     if (limit === null) throw new StoreError('invalid', `${JSON.stringify(before)} is not a run id`);
-    const r = await this.pool.query('SELECT * FROM runs WHERE dataset_id = $1 AND status = $2 AND seq < $3 ORDER BY seq DESC LIMIT 1', [datasetId, status, limit]);
-    return r.rows.length === 0 ? null : runFromRow(r.rows[0] as Row);
+    // the key and update time only: the row itself (its JSON) is read when not kept already
+    const r = await this.pool.query('SELECT seq, updated_at FROM runs WHERE dataset_id = $1 AND status = $2 AND seq < $3 ORDER BY seq DESC LIMIT 1', [datasetId, status, limit]);
+    const key = r.rows[0] as Row | undefined;
+    if (key === undefined) return null;
+    const seq = Number(key.seq);
+    return this.finished.get(seq, iso(key.updated_at) as string, async () => {
+      const row = await this.pool.query('SELECT * FROM runs WHERE seq = $1', [seq]);
+      return row.rows.length === 0 ? null : runFromRow(row.rows[0] as Row);
+    });
   }
 
   async saveRunResult(runId: string, result: RunResult, ifWorker?: string): Promise<void> {

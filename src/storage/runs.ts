@@ -31,3 +31,37 @@ export function interruptedMessage(times: number, failed: boolean): string {
 export function nowIso(): string {
   return new Date().toISOString();
 }
+
+/** Statuses a run never leaves. */
+const FINISHED: ReadonlySet<string> = new Set(['succeeded', 'failed', 'cancelled']);
+
+/**
+ * Finished runs as last read, by sequence number and update time, so that asking for the latest
+ * run of a dataset again and again (every `runs/latest/…` GET, every observation post placing its
+ * points) reads the row's key and update time only, not its settings and summary JSON each time.
+ * A finished run's row no longer changes; the update time is compared all the same, so a row
+ * changed by any process is read again. Runs handed out are frozen (deeply), as they are shared.
+ */
+export class FinishedRuns<R extends { status: string }> {
+  private readonly runs = new Map<number, { updated: string; run: R }>();
+  constructor(private readonly max = 64) {}
+
+  /** The run of `seq` updated at `updated`, from memory when kept, else from `read` (kept when finished). */
+  async get(seq: number, updated: string, read: () => Promise<R | null>): Promise<R | null> {
+    const hit = this.runs.get(seq);
+    if (hit !== undefined && hit.updated === updated) return hit.run;
+    const run = await read();
+    if (run === null || !FINISHED.has(run.status)) return run;
+    deepFreeze(run);
+    this.runs.delete(seq);
+    this.runs.set(seq, { updated, run });
+    if (this.runs.size > this.max) this.runs.delete(this.runs.keys().next().value!);
+    return run;
+  }
+}
+
+function deepFreeze(v: unknown): void {
+  if (v === null || typeof v !== 'object' || Object.isFrozen(v)) return;
+  Object.freeze(v);
+  for (const x of Object.values(v)) deepFreeze(x);
+}

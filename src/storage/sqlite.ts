@@ -52,7 +52,7 @@ import { batchIds, planIngest } from './ingest-plan.js';
 import { keyFromRow } from './key-rows.js';
 import { joinPieces, LAYER_BYTE_PIECES_PER_READ, storedPieces } from './layer-pieces.js';
 import { layerSource } from './layer-write.js';
-import { DEFAULT_LEASE_MS, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
+import { DEFAULT_LEASE_MS, FinishedRuns, formatRunId, interruptedMessage, nowIso, parseRunId } from './runs.js';
 import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
 import { whereMatches } from './where-match.js';
 import { trackListSql, trackPage } from './track-list.js';
@@ -119,6 +119,8 @@ export class SqliteStore implements Store {
   private closed = false;
   /** where `roost_run_row` puts the rows of the load in progress */
   private rowSink: RunColumns | null = null;
+  /** finished runs as last read (see FinishedRuns) */
+  private readonly finished = new FinishedRuns<Run>();
 
   /** how long a method waits for another connection's lock in all, milliseconds */
   private readonly busyTimeoutMs: number;
@@ -330,7 +332,7 @@ export class SqliteStore implements Store {
       const ids = cols.length === 0 ? [] : (joinedIds ?? '').split('\n');
       cols.ids = ids.length === cols.length ? ids : (this.db.prepare(`SELECT obs_id FROM ${from} WHERE ${where} ORDER BY seq`).pluck().all(first, last, ...args) as string[]);
       if (cols.ids.length !== cols.length) throw new Error('observations changed between two reads of one snapshot');
-      // The texts in chunks of TEXT_CHUNK rows, each chunk one string (see PackedTexts).
+      // The texts in chunks of TEXT_CHUNK rows, each chunk one buffer of UTF-8 (see PackedTexts).
       const texts = new PackedTexts();
       const joined = this.db.prepare(`SELECT CAST(group_concat(feature, char(10)) AS BLOB) FROM ${from} WHERE ${where}`).pluck();
       const each = this.db.prepare(`SELECT feature FROM ${from} WHERE ${where} ORDER BY seq`).pluck();
@@ -338,7 +340,7 @@ export class SqliteStore implements Store {
       for (let k = 0; k < seqs.length; k += TEXT_CHUNK) {
         const m = Math.min(TEXT_CHUNK, seqs.length - k);
         const range = [seqs[k], seqs[k + m - 1], ...args];
-        if (!texts.addJoined(decodeText(joined.get(...range) as Buffer), m)) texts.addEach(each.all(...range) as string[]);
+        if (!texts.addJoinedBytes(joined.get(...range) as Buffer, m)) texts.addEach(each.all(...range) as string[]);
       }
       return cols.finish(texts);
     });
@@ -548,8 +550,10 @@ export class SqliteStore implements Store {
     checkStatuses([status]);
     const limit = before === undefined ? Number.MAX_SAFE_INTEGER : parseRunId(before);
     if (limit === null) throw new StoreError('invalid', `${JSON.stringify(before)} is not a run id`);
-    const row = this.db.prepare('SELECT * FROM runs WHERE dataset_id = ? AND status = ? AND seq < ? ORDER BY seq DESC LIMIT 1').get(datasetId, status, limit) as Row | undefined;
-    return row === undefined ? null : runFromRow(row);
+    // the key and update time only: the row itself (its JSON) is read when not kept already
+    const key = this.db.prepare('SELECT seq, updated_at FROM runs WHERE dataset_id = ? AND status = ? AND seq < ? ORDER BY seq DESC LIMIT 1').get(datasetId, status, limit) as Row | undefined;
+    if (key === undefined) return null;
+    return this.finished.get(key.seq as number, key.updated_at as string, async () => this.runBySeq(key.seq as number));
   }
 
   async saveRunResult(runId: string, result: RunResult, ifWorker?: string): Promise<void> {

@@ -7,6 +7,7 @@
 import { applyFilter } from '../ingest/filter.js';
 import type { Observations } from '../ingest/types.js';
 import { hotspotHull } from '../geometry/hull.js';
+import type { InputFile } from '../ingest/source.js';
 import { clusterInput, clusterObservations, defaultMinClusterSize, readInput, type ClusterHooks, type ClusterResult, type InputFormat } from '../run/cluster.js';
 
 import { SettingsError, type ClusterSettings } from '../run/settings.js';
@@ -77,7 +78,7 @@ export function splitEffort(obs: Observations, marker: { property: string; value
  * Reads and clusters the input. With an effort marker (--effort-where) the marked observations
  * are split off first: they are effort points, and only the others (the cases) are clustered.
  */
-export function clusterCases(data: Buffer | string, format: InputFormat | undefined, settings: ClusterSettings, trust: TrustSettings, hooks: ClusterHooks = {}): { result: ClusterResult; effort: EffortPoints | null } {
+export function clusterCases(data: Buffer | string | InputFile, format: InputFormat | undefined, settings: ClusterSettings, trust: TrustSettings, hooks: ClusterHooks = {}): { result: ClusterResult; effort: EffortPoints | null } {
   if (trust.effortWhere === null) return { result: clusterInput(data, format, settings, hooks), effort: null };
   const all = readInput(data, format, settings);
   const split = splitEffort(all, trust.effortWhere);

@@ -4,7 +4,6 @@
  * simulation order, so the outcome is the same whatever the number of threads.
  */
 import { availableParallelism } from 'node:os';
-import { Piscina } from 'piscina';
 import { entryBeside } from '../workers/location.js';
 import { simulatedMaxima, type ChanceSpec } from './chance.js';
 import { resampleJaccards, type StabilitySpec } from './stability.js';
@@ -39,6 +38,8 @@ export function defaultThreads(): number {
 export async function runTrials(t: Trials, count: number, threads: number, onProgress?: TrialProgress): Promise<Float64Array> {
   if (threads <= 1 || count <= 1) return runTrialsHere(t, count, onProgress);
   const { filename, execArgv } = entryBeside(import.meta.url, 'trial-worker');
+  // loaded only when threads are used, so a plain run does not pay for loading it
+  const { Piscina } = await import('piscina');
   const pool = new Piscina<TrialTask, Float64Array>({ filename, execArgv, minThreads: threads, maxThreads: threads, concurrentTasksPerWorker: 1 });
   const w = width(t);
   const out = new Float64Array(count * w);

@@ -1,6 +1,6 @@
 /**
- * Whole-command benchmark: `roost cluster` on a GeoJSON file against what Node itself needs just to
- * read and `JSON.parse` the same file (target: within 2×, so that reading dominates, not
+ * Whole-command benchmark: `roost cluster` on a GeoJSON file (and the same points as
+ * newline-delimited GeoJSON) against what Node itself needs just to read and `JSON.parse` the same file (target: within 2×, so that reading dominates, not
  * clustering). Seeded benchmark points (test/bench/data.ts) written with an id, an `observed_at`
  * and a count per feature, as survey apps send them. Each measurement is its own process, timed
  * with GNU time (wall seconds and peak RSS). Writes test/bench/command-results.md.
@@ -30,29 +30,48 @@ function timed(args: string[]): { seconds: number; rssMiB: number } {
 
 const median = (xs: number[]): number => [...xs].sort((a, b) => a - b)[Math.floor(xs.length / 2)];
 
+/** Yardsticks: what Node alone needs to read and parse each kind of file. */
+const YARDSTICK = {
+  geojson: (f: string) => `JSON.parse(require('fs').readFileSync(${JSON.stringify(f)}, 'utf8'))`,
+  'geojson-seq': (f: string) => `for (const l of require('fs').readFileSync(${JSON.stringify(f)}, 'utf8').split('\\n')) if (l.trim()) JSON.parse(l)`,
+};
+
+/** The same points as newline-delimited GeoJSON (one feature a line), from the FeatureCollection file written one feature a line. */
+function writeLines(from: string, to: string): void {
+  const lines = readFileSync(from, 'utf8').split('\n');
+  writeFileSync(to, lines.slice(1, -2).map((l) => (l.endsWith(',') ? l.slice(0, -1) : l)).join('\n') + '\n');
+}
+
+function measure(kind: keyof typeof YARDSTICK, input: string, n: number): string {
+  const parse: { seconds: number; rssMiB: number }[] = [];
+  const cluster: { seconds: number; rssMiB: number }[] = [];
+  let stages: Record<string, number> = {};
+  for (let r = 0; r < RUNS; r++) {
+    parse.push(timed(['--max-old-space-size=8192', '-e', YARDSTICK[kind](input)]));
+    const out = join(dir, `out-${n}`);
+    cluster.push(timed(['--max-old-space-size=8192', BIN, 'cluster', input, '--eps', String(BENCH_EPS_METERS), '--min-points', String(BENCH_MIN_POINTS), '--out-dir', out]));
+    stages = JSON.parse(readFileSync(join(out, 'summary.json'), 'utf8')).timings_ms as Record<string, number>;
+    rmSync(out, { recursive: true, force: true });
+  }
+  const p = median(parse.map((m) => m.seconds));
+  const c = median(cluster.map((m) => m.seconds));
+  const mb = statSync(input).size / 2 ** 20;
+  const stageText = ['read', 'index', 'cluster', 'figures', 'write'].map((s) => `${s} ${(stages[s] / 1000).toFixed(2)}`).join(', ');
+  return `| ${n.toLocaleString('en')} | ${kind} | ${mb.toFixed(0)} MiB | ${p.toFixed(2)} s | ${c.toFixed(2)} s | ${(c / p).toFixed(2)}× | ${median(cluster.map((m) => m.rssMiB)).toFixed(0)} MiB | ${stageText} | ${os.loadavg()[0].toFixed(1)} |`;
+}
+
 const dir = mkdtempSync(join(os.tmpdir(), 'roost-bench-'));
 const rows: string[] = [];
 try {
   for (const n of sizes) {
     const input = join(dir, `points-${n}.geojson`);
     await writeGeoJSON(input, benchPoints(n), true);
-    const mb = statSync(input).size / 2 ** 20;
-    const parse: { seconds: number; rssMiB: number }[] = [];
-    const cluster: { seconds: number; rssMiB: number }[] = [];
-    let stages: Record<string, number> = {};
-    for (let r = 0; r < RUNS; r++) {
-      parse.push(timed(['--max-old-space-size=8192', '-e', `JSON.parse(require('fs').readFileSync(${JSON.stringify(input)}, 'utf8'))`]));
-      const out = join(dir, `out-${n}`);
-      cluster.push(timed(['--max-old-space-size=8192', BIN, 'cluster', input, '--eps', String(BENCH_EPS_METERS), '--min-points', String(BENCH_MIN_POINTS), '--out-dir', out]));
-      stages = JSON.parse(readFileSync(join(out, 'summary.json'), 'utf8')).timings_ms as Record<string, number>;
-      rmSync(out, { recursive: true, force: true });
-    }
-    const p = median(parse.map((m) => m.seconds));
-    const c = median(cluster.map((m) => m.seconds));
-    const stageText = ['read', 'index', 'cluster', 'figures', 'write'].map((s) => `${s} ${(stages[s] / 1000).toFixed(2)}`).join(', ');
-    rows.push(
-      `| ${n.toLocaleString('en')} | ${mb.toFixed(0)} MiB | ${p.toFixed(2)} s | ${c.toFixed(2)} s | ${(c / p).toFixed(2)}× | ${median(cluster.map((m) => m.rssMiB)).toFixed(0)} MiB | ${stageText} | ${os.loadavg()[0].toFixed(1)} |`,
-    );
+    rows.push(measure('geojson', input, n));
+    const lines = join(dir, `points-${n}.geojsonl`);
+    writeLines(input, lines);
+    rmSync(input);
+    rows.push(measure('geojson-seq', lines, n));
+    rmSync(lines);
   }
 } finally {
   rmSync(dir, { recursive: true, force: true });
@@ -62,13 +81,14 @@ const cpu = os.cpus()[0]?.model.trim() ?? 'unknown cpu';
 const text = `# Whole-command benchmark
 
 \`roost cluster <file> --eps ${BENCH_EPS_METERS} --min-points ${BENCH_MIN_POINTS} --out-dir <dir>\` (compiled, \`dist/cli/bin.js\`) against
-\`node -e "JSON.parse(fs.readFileSync(file, 'utf8'))"\` on the same file. Seeded benchmark points with an id, an
-\`observed_at\` and a count each. Median of ${RUNS} runs, wall clock including Node start-up, each in its own process.
+Node alone reading and parsing the same file: \`node -e "JSON.parse(fs.readFileSync(file, 'utf8'))"\` for a GeoJSON
+FeatureCollection, the file split into lines and each line \`JSON.parse\`d for newline-delimited GeoJSON (geojson-seq,
+the same features one a line). Seeded benchmark points with an id, an \`observed_at\` and a count each. Median of ${RUNS} runs, wall clock including Node start-up, each in its own process.
 Node ${process.version}, ${cpu}, ${os.cpus().length} cores, ${(os.totalmem() / 2 ** 30).toFixed(0)} GiB; load average at the end ${os.loadavg()[0].toFixed(1)}.
 Command: \`node --import tsx test/bench/command.ts\` (part of \`npm run bench\`).
 
-| points | file | read + JSON.parse | roost cluster | ratio | peak RSS | stages (s, from summary.json) | load average (1 min) after the row |
-| ---: | ---: | ---: | ---: | ---: | ---: | --- | ---: |
+| points | format | file | read + parse | roost cluster | ratio | peak RSS | stages (s, from summary.json) | load average (1 min) after the row |
+| ---: | --- | ---: | ---: | ---: | ---: | ---: | --- | ---: |
 ${rows.join('\n')}
 `;
 writeFileSync(fileURLToPath(new URL('./command-results.md', import.meta.url)), text);

@@ -19,11 +19,11 @@
  * DevTools or speedscope).
  */
 import { spawn, type ChildProcess } from 'node:child_process';
-import { mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
+import { closeSync, mkdtempSync, openSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { request as httpRequest } from 'node:http';
 import { connect } from 'node:net';
 import { cpus, loadavg, tmpdir, totalmem } from 'node:os';
-import { join } from 'node:path';
+import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { rng } from '../reference/seeded.js';
 
@@ -62,32 +62,58 @@ function collection(n: number, prefix: string, random: () => number): string {
   return `{"type":"FeatureCollection","features":[${f.join(',')}]}`;
 }
 
-async function startService(db: string): Promise<{ url: string; child: ChildProcess }> {
+async function startService(db: string): Promise<{ url: string; child: ChildProcess; log: string }> {
   const profile = PROFILE ? ['--cpu-prof', '--cpu-prof-dir', PROFILE_DIR] : [];
-  const args = [...profile, '--import', 'tsx', 'src/cli/bin.ts', 'serve', '--port', '0', '--db', db, '--workers', '1', '--upload-timeout-ms', String(UPLOAD_TIMEOUT_MS), '--rate-limit', String(RATE_LIMIT), '--log-level', 'info'];
-  const child = spawn(process.execPath, args, { cwd: ROOT, stdio: ['ignore', 'pipe', 'inherit'] });
-  let out = '';
-  child.stdout!.setEncoding('utf8');
-  const url = await new Promise<string>((resolve, reject) => {
-    const onData = (d: string): void => {
-      out += d;
-      const m = /"url":"(http:\/\/[^"]+)"/.exec(out);
-      if (m) {
-        child.stdout!.removeListener('data', onData);
-        child.stdout!.resume();
-        resolve(m[1]!);
-      }
-    };
-    child.stdout!.on('data', onData);
-    child.on('exit', (code) => reject(new Error(`service exited ${code}: ${out}`)));
-  });
-  return { url, child };
+  // --trace-gc: the JavaScript heap's size after each collection, in the log (heapMiB below)
+  const args = [...profile, '--trace-gc', '--import', 'tsx', 'src/cli/bin.ts', 'serve', '--port', '0', '--db', db, '--workers', '1', '--upload-timeout-ms', String(UPLOAD_TIMEOUT_MS), '--rate-limit', String(RATE_LIMIT), '--log-level', 'info'];
+  // the service's log goes to a file, as it would in production (a journal or a file), not to a
+  // pipe this process must keep draining: a full pipe blocks the service's synchronous log writes
+  const log = join(dirname(db), 'service.log');
+  const fd = openSync(log, 'w');
+  const child = spawn(process.execPath, args, { cwd: ROOT, stdio: ['ignore', fd, 'inherit'] });
+  closeSync(fd);
+  let exited: number | null | undefined;
+  child.on('exit', (code) => (exited = code));
+  for (;;) {
+    const m = /"url":"(http:\/\/[^"]+)"/.exec(readFileSync(log, 'utf8'));
+    if (m) return { url: m[1]!, child, log };
+    if (exited !== undefined) throw new Error(`service exited ${exited}: ${readFileSync(log, 'utf8')}`);
+    await new Promise((r) => setTimeout(r, 100));
+  }
 }
 
-/** Resident memory of a process, MiB (Linux /proc). */
-function rssMiB(pid: number): number {
-  const m = /VmRSS:\s+(\d+) kB/.exec(readFileSync(`/proc/${pid}/status`, 'utf8'));
-  return m ? Number(m[1]) / 1024 : NaN;
+/**
+ * Resident memory of a process, MiB (Linux /proc): all of it, and the part that is the process's
+ * own (RssAnon: the JavaScript heap, buffers, SQLite's page cache, thread stacks) as against
+ * pages of files mapped into it (RssFile: the SQLite file read through memory mapping, which the
+ * operating system may drop at any time), source: proc(5),
+ * https://man7.org/linux/man-pages/man5/proc_pid_status.5.html.
+ */
+function rssMiB(pid: number): { mib: number; anon: number; file: number } {
+  const status = readFileSync(`/proc/${pid}/status`, 'utf8');
+  const kb = (name: string): number => {
+    const m = new RegExp(`${name}:\\s+(\\d+) kB`).exec(status);
+    return m ? Number(m[1]) / 1024 : NaN;
+  };
+  return { mib: kb('VmRSS'), anon: kb('RssAnon'), file: kb('RssFile') + kb('RssShmem') };
+}
+
+/**
+ * The main thread's JavaScript heap after its last garbage collection, MiB: used and reserved,
+ * from the last line V8's --trace-gc wrote to the log for the main isolate ("[pid:0xADDR] … ->
+ * 120.3 (171.1) MB, …"; each worker thread is an isolate of its own, at another address, and
+ * the main one collects first). The format is V8's own, not a documented interface, so a log it
+ * cannot read gives NaN.
+ */
+function heapMiB(log: string): { heap: number; heapReserved: number } {
+  const lines = readFileSync(log, 'utf8').split('\n');
+  const gc = /^\[(\d+:0x[0-9a-f]+)\].*-> ([\d.]+) \(([\d.]+)\) MB, /;
+  const main = lines.map((l) => gc.exec(l)).find((m) => m !== null)?.[1];
+  for (let i = lines.length - 1; i >= 0; i--) {
+    const m = gc.exec(lines[i]!);
+    if (m !== null && m[1] === main) return { heap: Number(m[2]), heapReserved: Number(m[3]) };
+  }
+  return { heap: NaN, heapReserved: NaN };
 }
 
 const counts = new Map<string, number>();
@@ -155,7 +181,7 @@ function quantile(sorted: number[], q: number): number {
 async function main(): Promise<void> {
   const loadStart = loadavg();
   const dir = mkdtempSync(join(tmpdir(), 'roost-soak-'));
-  const { url, child } = await startService(join(dir, 'soak.db'));
+  const { url, child, log } = await startService(join(dir, 'soak.db'));
   const pid = child.pid!;
   const random = rng(SEED).next;
   const t0 = Date.now();
@@ -166,7 +192,7 @@ async function main(): Promise<void> {
   await call('setup', `${url}/v1/datasets`, { method: 'POST', headers: JSON_TYPE, body: JSON.stringify({ id: 'soak', settings: { eps: 80, min_points: 5 } }) });
   await call('setup', `${url}/v1/datasets/soak/observations`, { method: 'POST', headers: GEO, body: collection(SEED_POSTS, 'seed-', random) });
 
-  const rss: { t: number; mib: number; observations: number | null }[] = [];
+  const rss: { t: number; mib: number; anon: number; file: number; heap: number; heapReserved: number; observations: number | null }[] = [];
   const observations = async (): Promise<number | null> => {
     try {
       const res = await fetch(`${url}/v1/datasets/soak`);
@@ -191,8 +217,8 @@ async function main(): Promise<void> {
     (async () => {
       while (live()) {
         const t = (Date.now() - t0) / 1000;
-        const mib = rssMiB(pid);
-        rss.push({ t, mib, observations: await observations() });
+        const mem = rssMiB(pid);
+        rss.push({ t, ...mem, ...heapMiB(log), observations: await observations() });
         await new Promise((r) => setTimeout(r, 5000));
       }
     })(),
@@ -256,9 +282,11 @@ async function main(): Promise<void> {
     await new Promise((r) => setTimeout(r, 100));
   }
   const settledMs = Date.now() - loadEnd;
-  rss.push({ t: (Date.now() - t0) / 1000, mib: rssMiB(pid), observations: await observations() });
+  rss.push({ t: (Date.now() - t0) / 1000, ...rssMiB(pid), ...heapMiB(log), observations: await observations() });
   child.kill('SIGTERM');
   await new Promise((r) => child.once('exit', r));
+  // the service's own errors (log level 50 and above), kept before its files are removed
+  const errors = readFileSync(log, 'utf8').split('\n').filter((l) => /^\{.*"level":(5\d|60)[,}]/.test(l)).map((l) => l.slice(0, 600));
   rmSync(dir, { recursive: true, force: true });
 
   const sorted = [...health].sort((a, b) => a - b);
@@ -275,7 +303,7 @@ async function main(): Promise<void> {
     '',
     `\`npm run bench:soak -- --duration ${DURATION_S} --rate-limit ${RATE_LIMIT}${PROFILE ? ' --profile' : ''}${GROWING ? ' --growing' : ''}\`, ${new Date().toISOString()}, Node ${process.version}, ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, load average at the start ${loadStart.map((x) => x.toFixed(2)).join(' ')}, at the end ${loadavg().map((x) => x.toFixed(2)).join(' ')}, seed ${SEED}.`,
     '',
-    `Service: \`roost serve --workers 1 --upload-timeout-ms ${UPLOAD_TIMEOUT_MS} --rate-limit ${RATE_LIMIT}\`${PROFILE ? ' under the CPU profiler' : ''} on a fresh SQLite file, in a process of its own. Load for ${DURATION_S} s: ${GROWING ? 'two clients posting batches of 500 new observations, one client posting 20,000 new observations every 20 s (the dataset grows without bound)' : `two clients posting batches of 500 observations going round ${SMALL_ID_SETS} sets of ids, one client posting 20,000 observations every 20 s going round ${LARGE_ID_SETS} sets (all with replace=true: the dataset stops growing at ${(SEED_POSTS + SMALL_ID_SETS * 500 + LARGE_ID_SETS * 20_000).toLocaleString('en')} observations)`}, two clients clustering 2,000 points, a stored run asked for every 10 s, two clients pulling the latest points layer, one client vanishing after sending each 3,000-point clustering request, two slow senders (a byte a second) at all times, /healthz every 100 ms.`,
+    `Service: \`roost serve --workers 1 --upload-timeout-ms ${UPLOAD_TIMEOUT_MS} --rate-limit ${RATE_LIMIT}\`${PROFILE ? ' under the CPU profiler' : ''} on a fresh SQLite file, in a process of its own, its log (with --trace-gc) written to a file. Load for ${DURATION_S} s: ${GROWING ? 'two clients posting batches of 500 new observations, one client posting 20,000 new observations every 20 s (the dataset grows without bound)' : `two clients posting batches of 500 observations going round ${SMALL_ID_SETS} sets of ids, one client posting 20,000 observations every 20 s going round ${LARGE_ID_SETS} sets (all with replace=true: the dataset stops growing at ${(SEED_POSTS + SMALL_ID_SETS * 500 + LARGE_ID_SETS * 20_000).toLocaleString('en')} observations)`}, two clients clustering 2,000 points, a stored run asked for every 10 s, two clients pulling the latest points layer, one client vanishing after sending each 3,000-point clustering request, two slow senders (a byte a second) at all times, /healthz every 100 ms.`,
     '',
     '## /healthz',
     '',
@@ -287,11 +315,11 @@ async function main(): Promise<void> {
     '',
     'Every 5 s, with the observations stored at that moment.',
     '',
-    '| t (s) | RSS | observations |',
-    '| ---: | ---: | ---: |',
-    ...rss.map((r) => `| ${r.t.toFixed(0)} | ${r.mib.toFixed(0)} | ${r.observations ?? '?'} |`),
+    '| t (s) | RSS | own (anon) | mapped files | main thread’s JS heap used (reserved) after the last GC | observations |',
+    '| ---: | ---: | ---: | ---: | ---: | ---: |',
+    ...rss.map((r) => `| ${r.t.toFixed(0)} | ${r.mib.toFixed(0)} | ${r.anon.toFixed(0)} | ${r.file.toFixed(0)} | ${r.heap.toFixed(0)} (${r.heapReserved.toFixed(0)}) | ${r.observations ?? '?'} |`),
     '',
-    `After warm-up (t ≥ ${warmFrom.toFixed(0)} s${GROWING || full === undefined ? '' : ', from the first sample with the dataset at its full size'}): min ${Math.min(...warm.map((r) => r.mib)).toFixed(0)} MiB, max ${Math.max(...warm.map((r) => r.mib)).toFixed(0)} MiB, last ${warm[warm.length - 1]?.mib.toFixed(0)} MiB.`,
+    `After warm-up (t ≥ ${warmFrom.toFixed(0)} s${GROWING || full === undefined ? '' : ', from the first sample with the dataset at its full size'}): RSS min ${Math.min(...warm.map((r) => r.mib)).toFixed(0)} MiB, max ${Math.max(...warm.map((r) => r.mib)).toFixed(0)} MiB, last ${warm[warm.length - 1]?.mib.toFixed(0)} MiB; own memory (anon) min ${Math.min(...warm.map((r) => r.anon)).toFixed(0)}, max ${Math.max(...warm.map((r) => r.anon)).toFixed(0)}, last ${warm[warm.length - 1]?.anon.toFixed(0)} MiB.`,
     '',
     '## Answers by kind and status',
     '',
@@ -309,6 +337,10 @@ async function main(): Promise<void> {
     '## Held at the end',
     '',
     `/healthz ${settledMs} ms after the load stopped: \`${JSON.stringify(after)}\` (stuck slots: in_progress ${String(after.in_progress)}, uploading ${String(after.uploading)}, queued ${String(after.queued)}, storing ${String(after.storing)}).`,
+    '',
+    '## Errors in the service log',
+    '',
+    ...(errors.length === 0 ? ['None.'] : errors.slice(0, 20).map((l) => `- \`${l.replace(/`/g, "'")}\``)),
     '',
   ];
   writeFileSync(new URL('./soak-results.md', import.meta.url), lines.join('\n'));

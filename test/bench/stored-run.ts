@@ -13,10 +13,12 @@
  * BENCH_INLINE=1 executes the run on this thread (for `node --cpu-prof`); otherwise the run goes
  * through the service as the server executes runs: a job worker thread with a store connection
  * of its own. Each run is a new run of the same dataset, so the second and later runs match their
- * hotspots against the previous run's tracks.
+ * hotspots against the previous run's tracks. "main-thread delay" is the longest the service's
+ * event loop was held during the run (what a /healthz request would have waited at most).
  */
 import { existsSync, mkdirSync, rmSync, statSync } from 'node:fs';
 import { loadavg, tmpdir } from 'node:os';
+import { monitorEventLoopDelay } from 'node:perf_hooks';
 import { join } from 'node:path';
 import pg from 'pg';
 import { buildApp } from '../../src/http/app.js';
@@ -117,15 +119,19 @@ try {
   await fill(store);
   const size = ENGINE === 'sqlite' && existsSync(sqlitePath) ? ` (${(statSync(sqlitePath).size / 2 ** 20).toFixed(0)} MiB file)` : '';
   console.log(`${ENGINE}, ${N} observations${size}, ${process.env.BENCH_INLINE === '1' ? 'on this thread' : 'in a job worker thread'}; Node ${process.version}`);
-  console.log('| run | load | parse | cluster | tracks | layers | save | total | peak RSS | load average |');
-  console.log('| ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |');
+  console.log('| run | load | parse | cluster | tracks | layers | save | total | peak RSS | main-thread delay | load average |');
+  console.log('| ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |');
   for (let k = 1; k <= RUNS; k++) {
     const before = load();
     if (process.env.BENCH_INLINE !== '1') app ??= await buildApp({ config: resolveConfig({ port: 0, workers: 1, logLevel: 'silent', maxEventLoopDelayMs: 0 }, {}), logger: false, store, storeConfig: config });
+    const delay = monitorEventLoopDelay({ resolution: 10 });
+    delay.enable();
     const t = app === null ? await inlineRun(store) : await serviceRun(app);
+    delay.disable();
     const s = (x: number | undefined): string => (x === undefined ? '–' : (x / 1000).toFixed(2));
     const rss = process.resourceUsage().maxRSS / 1024;
-    console.log(`| ${k} | ${s(t.load)} | ${s(t.parse)} | ${s(t.cluster)} | ${s(t.tracks)} | ${s(t.layers)} | ${s(t.save)} | ${s(t.total)} | ${rss.toFixed(0)} MiB | ${before} → ${load()} |`);
+    const held = app === null ? '–' : `${(delay.max / 1e9).toFixed(2)} s`;
+    console.log(`| ${k} | ${s(t.load)} | ${s(t.parse)} | ${s(t.cluster)} | ${s(t.tracks)} | ${s(t.layers)} | ${s(t.save)} | ${s(t.total)} | ${rss.toFixed(0)} MiB | ${held} | ${before} → ${load()} |`);
   }
 } finally {
   // the service closes the store it was given

@@ -127,6 +127,23 @@ describe('logs', () => {
   });
 });
 
+describe('the request log', () => {
+  it('has one line per answered request: its id, method, address, status and time', async () => {
+    const lines: Record<string, unknown>[] = [];
+    const stream = new Writable({ write(chunk, _e, cb) { for (const l of String(chunk).split('\n')) if (l !== '') lines.push(JSON.parse(l) as Record<string, unknown>); cb(); } });
+    app = await buildApp({ config: testConfig({ logLevel: 'info' }), logger: { level: 'info', stream } });
+    await app.ready();
+    const ok = await app.inject({ method: 'GET', url: '/v1/datasets', headers: { 'x-request-id': 'req-one' } });
+    const missing = await app.inject({ method: 'GET', url: '/v1/datasets/nothing-here', headers: { 'x-request-id': 'req-two' } });
+    expect([ok.statusCode, missing.statusCode]).toEqual([200, 404]);
+    const of = (id: string) => lines.filter((l) => l.reqId === id);
+    expect(of('req-one')).toEqual([expect.objectContaining({ msg: 'request answered', method: 'GET', url: '/v1/datasets', status: 200, ms: expect.any(Number) })]);
+    // a refusal also says why, on a line of its own
+    expect(of('req-two').map((l) => l.msg)).toEqual(['request refused', 'request answered']);
+    expect(of('req-two')[1]).toMatchObject({ url: '/v1/datasets/nothing-here', status: 404 });
+  });
+});
+
 describe('webhooks set over HTTP', () => {
   it('refuses the addresses that reached internal services, without echoing the URL or its password', async () => {
     app = await testApp();

@@ -4,7 +4,11 @@
  * and the framework's own refusals are problems like every other error.
  */
 import { request as httpRequest, type ClientRequest } from 'node:http';
+import { mkdtempSync, rmSync } from 'node:fs';
 import { connect, type Socket } from 'node:net';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import Database from 'better-sqlite3';
 import type { FastifyInstance } from 'fastify';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { buildApp } from '../../src/http/app.js';
@@ -215,6 +219,35 @@ describe('bounds on what one client can hold', () => {
       expect(third.body).toBe(layer);
     } finally {
       await app.close();
+    }
+  });
+
+  it('a database held by another process past the wait is a 503 overloaded with Retry-After, and the same request succeeds once it is free', async () => {
+    const dir = mkdtempSync(join(tmpdir(), 'roost-busy-'));
+    const path = join(dir, 'roost.db');
+    const store = openSqliteStore({ path, busyTimeoutMs: 40 });
+    await store.migrate();
+    const other = new Database(path);
+    const app = await buildApp({ config: testConfig(), logger: false, store });
+    await app.ready();
+    const create = () => app.inject({ method: 'POST', url: '/v1/datasets', headers: { 'content-type': 'application/json' }, payload: JSON.stringify({ id: 'held', name: 'held', settings: { eps: 50 } }) });
+    try {
+      // another connection to the same file takes the write lock and keeps it
+      other.exec('BEGIN IMMEDIATE');
+      const refused = await create();
+      expect(refused.statusCode, refused.body).toBe(503);
+      expect(refused.headers['content-type']).toContain('application/problem+json');
+      expect(refused.headers['retry-after']).toBeDefined();
+      expect(refused.json().code).toBe('overloaded');
+      expect(refused.json().detail).toMatch(/database was held by other work/);
+      other.exec('ROLLBACK');
+      const created = await create();
+      expect(created.statusCode, created.body).toBe(201);
+    } finally {
+      if (other.inTransaction) other.exec('ROLLBACK');
+      other.close();
+      await app.close();
+      rmSync(dir, { recursive: true, force: true });
     }
   });
 });

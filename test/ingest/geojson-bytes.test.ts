@@ -8,12 +8,17 @@
  *
  * Seed: ROOST_SEED (printed); cases: ROOST_CASES.
  */
+import { mkdtempSync, rmSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { readObservations, type ReadOptions } from '../../src/ingest/read.js';
 import { readGeoJson } from '../../src/ingest/geojson.js';
+import { readGeoJsonSeq } from '../../src/ingest/seq.js';
 import { timeRule } from '../../src/ingest/checks.js';
 import { readGeoJsonBytes, type SpannedObservations } from '../../src/ingest/geojson-bytes.js';
 import { InputError, type Observations } from '../../src/ingest/types.js';
+import { InputFile } from '../../src/ingest/source.js';
 import { pointFeature, pointFeatureFromSpans } from '../../src/run/cluster.js';
 import { rng } from '../reference/seeded.js';
 
@@ -122,6 +127,22 @@ function feature(r: () => number, hostile: boolean, weighted: boolean, timeKey: 
   return `{${members.map(([key, v]) => `${ws(r, hostile)}"${key}"${ws(r, hostile)}:${ws(r, hostile)}${v}`).join(',')}${ws(r, hostile)}}`;
 }
 
+/** Records of features: after RS characters (RFC 8142) or one a line, with blank lines, CRLF and hostile joins now and then. */
+function sequence(r: () => number, options: ReadOptions): string {
+  const hostile = r() < 0.6;
+  const n = 1 + Math.floor(r() * 8);
+  const features = Array.from({ length: n }, () => feature(r, hostile && r() < 0.3, options.weightProperty != null, options.timeColumn ?? 'observed_at'));
+  const rs = r() < 0.4;
+  let text = '';
+  for (const f of features) {
+    if (rs) text += pick(r, ['\u001e', '\u001e', '\u001e\u001e', ' \u001e']) + f + pick(r, ['\n', '\n', '', ' \n\n', hostile ? '\u00a0\n' : '\n']);
+    else text += f + pick(r, ['\n', '\n', '\r\n', '\n\n  \n', hostile ? ' {"type":"Feature"}\n' : '\n', hostile ? '\u001e\n' : '\n']);
+  }
+  if (r() < 0.3) text = text.replace(/\n$/, '');
+  if (r() < 0.1) text = '\ufeff' + text;
+  return text;
+}
+
 function collection(r: () => number, options: ReadOptions): string | Buffer {
   const hostile = r() < 0.6;
   const n = 1 + Math.floor(r() * 12);
@@ -189,9 +210,150 @@ describe('byte GeoJSON reader', () => {
     console.info(`accepted ${accepted} (${fast} by the byte reader, ${verbatim} features copied verbatim), rejected ${rejected}`);
     // the seeded mix must exercise both readers and both ways of writing
     expect(fast).toBeGreaterThan(CASES / 10);
-    expect(accepted - fast).toBeGreaterThan(CASES / 50);
+    expect(accepted - fast).toBeGreaterThan(CASES / 100);
     expect(rejected).toBeGreaterThan(CASES / 10);
     expect(verbatim).toBeGreaterThan(CASES);
+  });
+
+  it('reads a file in windows cut at random places exactly as the same bytes in memory', () => {
+    console.info(`byte reader windows seed ${SEED} (ROOST_SEED), ${Math.ceil(CASES / 3)} cases`);
+    const r = rng(SEED + 1).next;
+    const dir = mkdtempSync(join(tmpdir(), 'roost-windows-'));
+    let fast = 0;
+    let moved = 0;
+    try {
+      for (let c = 0; c < CASES / 3; c++) {
+        const options: ReadOptions = { format: 'geojson', weightProperty: r() < 0.3 ? 'count' : null, timeColumn: r() < 0.2 ? 'when' : undefined };
+        const input = collection(r, options);
+        const bytes = typeof input === 'string' ? Buffer.from(input, 'utf8') : input;
+        const path = join(dir, `case-${c}.geojson`);
+        writeFileSync(path, bytes);
+        // windows from 16 bytes (every feature cut, the window grown) to more than the whole input
+        const windowBytes = 16 + Math.floor(r() ** 2 * (bytes.length + 32));
+        const context = `case ${c}: window ${windowBytes} of ${bytes.length} bytes, ${JSON.stringify(options)} ${JSON.stringify(bytes.toString('latin1'))}`;
+        const expected = outcome(() => readObservations(bytes, options));
+        const actual = outcome(() => readObservations(new InputFile(path, windowBytes), options));
+        if ('error' in expected) {
+          expect('error' in actual ? actual.error : actual, context).toEqual(expected.error);
+          continue;
+        }
+        expect('ok' in actual, context).toBe(true);
+        const a = (actual as { ok: Observations }).ok;
+        const e = expected.ok;
+        expect(sameNumbers(a.points.lon, e.points.lon) && sameNumbers(a.points.lat, e.points.lat), context).toBe(true);
+        expect(sameNumbers(a.points.weight, e.points.weight) && sameNumbers(a.observedAt, e.observedAt), context).toBe(true);
+        expect(Array.from(a.features), context).toEqual(Array.from(e.features));
+        // the file goes the byte reader's way exactly when the bytes in memory do
+        const spans = (a as Partial<SpannedObservations>).spans;
+        expect(spans !== undefined, context).toBe((e as Partial<SpannedObservations>).spans !== undefined);
+        if (spans === undefined) continue;
+        fast++;
+        if (windowBytes < bytes.length) moved++;
+        const memory = (e as SpannedObservations).spans;
+        for (let i = 0; i < a.points.n; i++) {
+          const extra = i % 2 === 0 ? '' : `,"optics_order":${i},"reachability_m":null`;
+          expect(pointFeatureFromSpans(spans, i, a.points.lon[i]!, a.points.lat[i]!, i % 3 - 1, i % 3, extra), context).toBe(pointFeatureFromSpans(memory, i, e.points.lon[i]!, e.points.lat[i]!, i % 3 - 1, i % 3, extra));
+        }
+      }
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
+    console.info(`${fast} files read by the byte reader, ${moved} of them through a window smaller than the file`);
+    expect(moved).toBeGreaterThan(CASES / 30);
+  });
+
+  it('reads text sequences and newline-delimited GeoJSON as the parsing reader does, in memory and from files in windows', () => {
+    console.info(`byte reader sequences seed ${SEED} (ROOST_SEED), ${Math.ceil(CASES / 3)} cases`);
+    const r = rng(SEED + 2).next;
+    const dir = mkdtempSync(join(tmpdir(), 'roost-seq-'));
+    let fast = 0;
+    let accepted = 0;
+    let rejected = 0;
+    try {
+      for (let c = 0; c < CASES / 3; c++) {
+        const options: ReadOptions = { format: 'geojson-seq', weightProperty: r() < 0.3 ? 'count' : null, timeColumn: r() < 0.2 ? 'when' : undefined, maxFeatures: r() < 0.05 ? 3 : undefined };
+        const bytes = Buffer.from(sequence(r, options), 'utf8');
+        const path = join(dir, `case-${c}.geojsonl`);
+        writeFileSync(path, bytes);
+        const windowBytes = 16 + Math.floor(r() ** 2 * (bytes.length + 32));
+        const context = `case ${c}: window ${windowBytes}, ${JSON.stringify(options)} ${JSON.stringify(bytes.toString('utf8'))}`;
+        const time = timeRule(options.timeColumn, options.timeFormat);
+        let text = bytes.toString('utf8');
+        if (text.charCodeAt(0) === 0xfeff) text = text.slice(1);
+        const expected = outcome(() => readGeoJsonSeq(text, options.weightProperty ?? null, 100, options.maxFeatures ?? Number.MAX_SAFE_INTEGER, time, false));
+        for (const input of [bytes, new InputFile(path, windowBytes)]) {
+          const actual = outcome(() => readObservations(input, options));
+          if ('error' in expected) {
+            expect('error' in actual ? actual.error : actual, context).toEqual(expected.error);
+            continue;
+          }
+          expect('ok' in actual, context).toBe(true);
+          const a = (actual as { ok: Observations }).ok;
+          const e = expected.ok;
+          expect(sameNumbers(a.points.lon, e.points.lon) && sameNumbers(a.points.lat, e.points.lat), context).toBe(true);
+          expect(sameNumbers(a.points.weight, e.points.weight) && sameNumbers(a.observedAt, e.observedAt), context).toBe(true);
+          expect(Array.from(a.features), context).toEqual(e.features);
+          const spans = (a as Partial<SpannedObservations>).spans;
+          if (spans === undefined) continue;
+          fast++;
+          for (let i = 0; i < a.points.n; i++) {
+            expect(pointFeatureFromSpans(spans, i, a.points.lon[i]!, a.points.lat[i]!, i % 3 - 1, i % 3), context).toBe(pointFeature(e.features[i]!, i % 3 - 1, i % 3));
+          }
+        }
+        if ('error' in expected) rejected++;
+        else accepted++;
+      }
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
+    console.info(`sequences: accepted ${accepted} (${fast} reads by the byte reader, memory and file counted apart), rejected ${rejected}`);
+    expect(fast).toBeGreaterThan(CASES / 15);
+    expect(accepted * 2 - fast).toBeGreaterThan(CASES / 50);
+    expect(rejected).toBeGreaterThan(CASES / 30);
+  });
+
+  it('reads thousands of features whose length changes partway, from a file in small windows, as the parsing reader does', () => {
+    // short features first, from which the columns are sized, then long ones that outgrow that size
+    const r = rng(SEED + 3).next;
+    const features = Array.from({ length: 3000 }, (_, i) => {
+      const note = i < 2048 ? '' : `,"note":"${'x'.repeat(Math.floor(r() * 400))}"`;
+      return `{"type":"Feature","id":"f${i}","geometry":{"type":"Point","coordinates":[${(r() * 360 - 180).toFixed(6)},${(r() * 180 - 90).toFixed(6)}]},"properties":{"count":${i % 7}${note}}}`;
+    });
+    const text = `{"type":"FeatureCollection","features":[${features.join(',\n')}]}`;
+    const dir = mkdtempSync(join(tmpdir(), 'roost-long-'));
+    try {
+      const path = join(dir, 'long.geojson');
+      writeFileSync(path, text);
+      const options: ReadOptions = { format: 'geojson', weightProperty: 'count' };
+      const e = parsingRead(text, options);
+      for (const input of [Buffer.from(text), new InputFile(path, 4096)]) {
+        const a = readObservations(input, options) as SpannedObservations;
+        expect(a.spans).toBeDefined();
+        expect(a.points.n).toBe(3000);
+        expect(sameNumbers(a.points.lon, e.points.lon) && sameNumbers(a.points.lat, e.points.lat) && sameNumbers(a.points.weight, e.points.weight)).toBe(true);
+        for (let i = 0; i < 3000; i += 7) expect(pointFeatureFromSpans(a.spans, i, a.points.lon[i]!, a.points.lat[i]!, -1, 0)).toBe(pointFeature(e.features[i]!, -1, 0));
+        expect(a.features[2999]).toEqual(e.features[2999]);
+      }
+    } finally {
+      rmSync(dir, { recursive: true, force: true });
+    }
+  });
+
+  it('names the feature where it stopped when the input is too large for the parsing reader', () => {
+    // a file over 512 MiB is too large to build here; its bytes stand in, refusing to become one string as such a file's do
+    const text = '{"type":"FeatureCollection","features":[{"type":"Feature","geometry":{"type":"Point","coordinates":[1,2]},"properties":{}},{"type":"Feature","bbox":[1,2,1,2],"geometry":{"type":"Point","coordinates":[1,2]},"properties":{}}]}';
+    const bytes = Buffer.from(text);
+    bytes.toString = () => {
+      throw Object.assign(new Error('Cannot create a string longer than 0x1fffffe8 characters'), { code: 'ERR_STRING_TOO_LONG' });
+    };
+    const got = outcome(() => readObservations(bytes, { format: 'geojson' }));
+    expect('error' in got && got.error.problems).toEqual([
+      {
+        index: null,
+        code: 'input-too-large',
+        message: `the input is 0 MiB, more than can be read as one text; feature 1 (after byte ${text.indexOf('},{') + 1}) is not a plain Point Feature of a FeatureCollection read that way, or is wrong — split it into smaller files`,
+      },
+    ]);
   });
 
   it('leaves to the parsing reader what it does not read exactly', () => {

@@ -1,10 +1,13 @@
 /**
  * Stored runs write their points and noise layers from the stored feature texts; the result must
- * be the bytes the parsed-feature writer gives (POST /v1/cluster), whatever the feature holds.
+ * be the bytes the parsed-feature writer gives (POST /v1/cluster), whatever the feature holds,
+ * and the same whether they are written from the texts or from their UTF-8 bytes (SQLite keeps
+ * them as bytes).
  */
 import fc from 'fast-check';
 import { describe, expect, it } from 'vitest';
-import { pointFeature, pointFeatureFromText } from '../../src/run/cluster.js';
+import { pointFeature, pointFeatureBytes, pointFeatureFromText } from '../../src/run/cluster.js';
+import { PackedTexts } from '../../src/storage/columns.js';
 import type { InputFeature } from '../../src/ingest/types.js';
 
 const key = fc.oneof(fc.constantFrom('role', 'hotspot_id', 'properties', 'id', 'geometry', '2', '__proto__', 'a"b', 'x\\y', 'é😀', '\n'), fc.string({ maxLength: 6 }));
@@ -67,5 +70,57 @@ describe('point features from stored texts', () => {
       '{"type":"Feature","id":7,"geometry":{"type":"Point","coordinates":[8.1234568,-47,400]},"properties":{"properties":{"id":"x"},"note":"a\\nb \\"q\\"","n":[1,{"geometry":2}],"hotspot_id":3,"role":"core"}}',
     );
     expect(pointFeatureFromText(text, 2, 1)).toBe(pointFeature(JSON.parse(text) as InputFeature, 2, 1));
+  });
+
+  it('from the texts\' UTF-8 bytes: the same bytes, or none (the text is written instead)', () => {
+    const extras = fc.constantFrom('', ',"optics_order":3,"reachability_m":12.5', ',"x":"é😀"');
+    let written = 0;
+    fc.assert(
+      fc.property(fc.array(feature, { minLength: 1, maxLength: 4 }), fc.integer({ min: -1, max: 40 }), fc.integer({ min: 0, max: 2 }), extras, (features, hotspot, role, extra) => {
+        // the texts joined as SQLite gives them, so that each lies between other bytes
+        const texts = features.map((f) => JSON.stringify(f));
+        const packed = new PackedTexts();
+        expect(packed.addJoinedBytes(Buffer.from(texts.join('\n'), 'utf8'), texts.length)).toBe(true);
+        texts.forEach((text, k) => {
+          expect(packed.at(k)).toBe(text);
+          const out = Buffer.alloc(4096, 0x7e);
+          const write = (): number => pointFeatureBytes(packed.bytesOf(k)!, packed.byteStart(k), packed.byteEnd(k), hotspot, role, extra, out, 7, 4000);
+          let want: string;
+          try {
+            want = pointFeatureFromText(text, hotspot, role, extra);
+          } catch (e) {
+            // the bytes are never written in place of an error
+            let end = -1;
+            try {
+              end = write();
+            } catch (e2) {
+              expect((e2 as Error).message).toBe((e as Error).message);
+            }
+            expect(end).toBe(-1);
+            return;
+          }
+          const end = write();
+          if (end < 0) return;
+          written++;
+          expect(out.toString('utf8', 7, end)).toBe(want);
+          expect(out[end]).toBe(0x7e); // nothing written past its end
+        });
+      }),
+      { numRuns: 2000, seed: 20261203 },
+    );
+    // most of the generated features take the byte path
+    expect(written).toBeGreaterThan(1000);
+  });
+
+  it('from bytes: the usual stored feature is written without its text, and a feature that does not fit is left to the text', () => {
+    const text = '{"type":"Feature","id":"b7","properties":{"observed_at":"2026-05-08T12:00:00Z","count":4},"geometry":{"type":"Point","coordinates":[-3.18812345678,55.95]}}';
+    const b = Buffer.from(text);
+    const out = Buffer.alloc(1024);
+    const end = pointFeatureBytes(b, 0, b.length, 4, 1, '', out, 0, 1024);
+    expect(out.toString('utf8', 0, end)).toBe(pointFeatureFromText(text, 4, 1));
+    expect(out.toString('utf8', 0, end)).toBe(
+      '{"type":"Feature","id":"b7","geometry":{"type":"Point","coordinates":[-3.1881235,55.95]},"properties":{"observed_at":"2026-05-08T12:00:00Z","count":4,"hotspot_id":5,"role":"core"}}',
+    );
+    expect(pointFeatureBytes(b, 0, b.length, 4, 1, '', out, 0, 100)).toBe(-1);
   });
 });

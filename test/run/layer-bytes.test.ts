@@ -3,7 +3,9 @@
  * layers the parsing reader's features give (the promise that outputs do not change), on seeded
  * observations whose properties, ids and coordinates take the forms a copy could get wrong:
  * escapes, non-ASCII text, nested objects, numbers not written as JSON.stringify writes them,
- * altitudes, properties already named hotspot_id, missing and null members.
+ * altitudes, properties already named hotspot_id, missing and null members. The same for the
+ * layers of a stored run written from stored feature texts kept as UTF-8 bytes (SQLite and
+ * PostgreSQL hand them over as bytes), over more than one chunk of bytes.
  *
  * Seed: ROOST_SEED (printed).
  */
@@ -12,6 +14,7 @@ import { clusterInput, clusterObservations } from '../../src/run/cluster.js';
 import { resolveSettings } from '../../src/run/settings.js';
 import { readGeoJson } from '../../src/ingest/geojson.js';
 import { DEFAULT_TIME_RULE } from '../../src/ingest/checks.js';
+import { PackedTexts } from '../../src/storage/columns.js';
 import { rng } from '../reference/seeded.js';
 
 const SEED = Number(process.env.ROOST_SEED ?? 16);
@@ -72,4 +75,24 @@ describe('point layers written from the input bytes', () => {
       }
     });
   }
+
+  it('from stored texts kept as bytes are the layers written from the texts, over several chunks', () => {
+    console.info(`layer bytes seed ${SEED} (ROOST_SEED)`);
+    const observations = readGeoJson(input(rng(SEED + 1).next, 9000), null, 100, Number.MAX_SAFE_INTEGER, DEFAULT_TIME_RULE);
+    // the stored text of a feature is JSON.stringify of the parsed feature (src/ingest/records.ts)
+    const texts = observations.features.map((f) => JSON.stringify(f));
+    const packed = new PackedTexts();
+    expect(packed.addJoinedBytes(Buffer.from(texts.join('\n'), 'utf8'), texts.length)).toBe(true);
+    const settings = resolveSettings({ eps: 300, min_points: 4 });
+    const stored = clusterObservations(observations, settings, {}, undefined, {}, packed);
+    const parsed = clusterObservations(observations, settings);
+    for (const name of ['points', 'noise'] as const) {
+      const expected = parsed.layers[name].text();
+      expect(stored.layers[name].writesBytes, name).toBe(true);
+      const chunks = [...stored.layers[name].byteChunks()];
+      if (name === 'points') expect(chunks.length).toBeGreaterThan(1);
+      expect(Buffer.concat(chunks).equals(Buffer.from(expected, 'utf8')), name).toBe(true);
+      expect(stored.layers[name].text(), name).toBe(expected);
+    }
+  });
 });

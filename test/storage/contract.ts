@@ -3,7 +3,7 @@
  * (SQLite: a new file; PostgreSQL: a new schema) and may open several stores on it to check what
  * happens between processes or instances.
  */
-import { afterEach, beforeEach, describe, expect, it } from 'vitest';
+import { afterEach, beforeEach, describe, expect, it, vi } from 'vitest';
 import type { NewDataset, ObservationRecord, Store, TrackSummary } from '../../src/storage/store.js';
 import { StoreError } from '../../src/storage/store.js';
 import { DAY_MS, T0, fromText, propertyMatches, record, seededRecords } from './fixtures.js';
@@ -558,6 +558,38 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         expect((await store.latestRun('herons', 'succeeded', mine[4]))?.id).toBe(mine[1]);
         expect((await store.latestRun('herons', 'failed'))?.error).toBe('boom');
         expect(await store.latestRun('other')).toBeNull();
+      });
+
+      it('give the latest finished run as it is now, read again when its row changed, frozen as it is shared', async () => {
+        vi.useFakeTimers({ toFake: ['Date'] });
+        try {
+          vi.setSystemTime(Date.parse('2026-11-01T10:00:00.000Z'));
+          const a = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+          await store.updateRun(a.id, { status: 'succeeded', summary: { n: 1 } });
+          const first = (await store.latestRun('herons'))!;
+          expect(first.summary).toEqual({ n: 1 });
+          expect(await store.latestRun('herons')).toEqual(first);
+          expect(Object.isFrozen(first) && Object.isFrozen(first.summary)).toBe(true);
+          expect(() => ((first.summary as Record<string, unknown>).n = 2)).toThrow(TypeError);
+          // the same run changed later: read again
+          vi.setSystemTime(Date.parse('2026-11-01T10:00:01.000Z'));
+          await store.updateRun(a.id, { summary: { n: 3 } });
+          expect((await store.latestRun('herons'))?.summary).toEqual({ n: 3 });
+          // a newer run succeeds: it is the latest; the older one is still found before it
+          const b = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+          expect((await store.latestRun('herons'))?.id).toBe(a.id);
+          await store.updateRun(b.id, { status: 'succeeded', summary: { n: 4 } });
+          expect((await store.latestRun('herons'))?.summary).toEqual({ n: 4 });
+          expect((await store.latestRun('herons', 'succeeded', b.id))?.summary).toEqual({ n: 3 });
+          // a running run is never kept: its progress shows as it moves
+          const c = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+          await store.updateRun(c.id, { status: 'running', progress: 10 });
+          expect((await store.latestRun('herons', 'running'))?.progress).toBe(10);
+          await store.updateRun(c.id, { progress: 20 });
+          expect((await store.latestRun('herons', 'running'))?.progress).toBe(20);
+        } finally {
+          vi.useRealTimers();
+        }
       });
 
       it('store results that are served as stored, and tracks across runs', async () => {

@@ -5,7 +5,20 @@
 import type { FastifyError, FastifyInstance } from 'fastify';
 import fp from 'fastify-plugin';
 import { BODY_MEDIA_TYPES } from '../body.js';
+import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem, PROBLEM_MEDIA_TYPE } from '../errors.js';
+
+/**
+ * Database errors that mean "held up by other work, try again", not "broken": SQLite's lock still
+ * taken when the store's wait for it ran out (SQLITE_BUSY and its extended codes), PostgreSQL's
+ * lock_not_available (55P03), serialization_failure (40001) and deadlock_detected (40P01).
+ * source: https://www.sqlite.org/rescode.html#busy; PostgreSQL 15 manual, Appendix A "PostgreSQL Error Codes".
+ */
+export function isStoreContention(err: unknown): boolean {
+  const code = (err as { code?: unknown } | null)?.code;
+  if (typeof code !== 'string') return false;
+  return code.startsWith('SQLITE_BUSY') || code === '55P03' || code === '40001' || code === '40P01';
+}
 
 /** The problem an error is answered with; anything unforeseen is a 500 that hides its cause. */
 export function problemFor(err: FastifyError | Error): HttpProblem {
@@ -19,6 +32,14 @@ export function problemFor(err: FastifyError | Error): HttpProblem {
     );
   }
   if (e.validation) return new HttpProblem('invalid-parameter', e.message);
+  if (isStoreContention(err)) {
+    return new HttpProblem(
+      'overloaded',
+      'The database was held by other work for longer than this service waits for it. Try again after Retry-After seconds.',
+      {},
+      { 'retry-after': String(DEFAULT_CONFIG.retryAfterS) },
+    );
+  }
   if (typeof e.statusCode === 'number' && e.statusCode >= 400 && e.statusCode < 500) {
     return new HttpProblem('bad-request', e.message);
   }

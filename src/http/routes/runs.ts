@@ -18,7 +18,7 @@ import { StoreError, type Run, type Store } from '../../storage/store.js';
 import type { Runner } from '../../jobs/runner.js';
 import { DEFAULT_CONFIG } from '../config.js';
 import { HttpProblem } from '../errors.js';
-import { LayerBytesCache } from '../layer-bytes-cache.js';
+import { layerCacheOf } from '../../ogc/layer-cache.js';
 import { requireDataset, requireRun, runJson, settingsProblem } from './common.js';
 
 export interface RunRouteOptions {
@@ -79,9 +79,6 @@ async function sendLayerPage(store: Store, request: FastifyRequest, reply: Fasti
   return sendTagged(request, reply, 'application/geo+json', text, run.finishedAt);
 }
 
-/** Whole layers recently sent, per store (src/http/layer-bytes-cache.ts). */
-const layerBytes = new WeakMap<Store, LayerBytesCache>();
-
 /** A whole layer, streamed piece by piece as stored (or as kept in memory): a large layer never becomes one string here. */
 async function sendWholeLayer(store: Store, streams: LayerStreams, request: FastifyRequest, reply: FastifyReply, run: Run, layer: LayerName) {
   // a stored layer never changes: the run and layer name it
@@ -90,9 +87,7 @@ async function sendWholeLayer(store: Store, streams: LayerStreams, request: Fast
   reply.raw.once('close', free);
   try {
     // the stored bytes as they are: no string is decoded here only to be encoded again for the socket
-    let cache = layerBytes.get(store);
-    if (cache === undefined) layerBytes.set(store, (cache = new LayerBytesCache()));
-    const pieces = await cache.pieces(store, run, layer);
+    const pieces = await layerCacheOf(store).pieces(store, run.id, layer);
     if (pieces === null) throw new HttpProblem('run-not-ready', `run ${run.id} has no stored result`);
     return await reply.type('application/geo+json').send(Readable.from(pieces, { objectMode: false }));
   } catch (err) {

@@ -1,14 +1,16 @@
 /**
- * Whole result layers kept in memory as their bytes (src/http/layer-bytes-cache.ts): read from the
- * store once and then served from memory byte for byte, kept only once read whole, never when
- * larger than the bound per layer, and the least recently sent let go past the bound overall.
+ * Stored result layers kept in memory (src/ogc/layer-cache.ts): read from the store once and then
+ * served from memory byte for byte, kept only once read whole, never when larger than the bound
+ * per sent layer, and the least recently used let go past the bound overall; a layer sent whole
+ * and then paged is held once, its index made from the bytes already kept.
  */
 import { afterEach, beforeEach, describe, expect, it } from 'vitest';
 import { buildApp } from '../../src/http/app.js';
-import { LayerBytesCache } from '../../src/http/layer-bytes-cache.js';
+import { LayerCache } from '../../src/ogc/layer-cache.js';
+import { indexParts } from '../../src/ogc/layer-index.js';
 import type { Run, Store } from '../../src/storage/store.js';
 import { openSqliteStore, type SqliteStore } from '../../src/storage/sqlite.js';
-import { testConfig } from './helper.js';
+import { testConfig } from '../http/helper.js';
 
 /** The store with its layer reads counted. */
 function counted(real: SqliteStore): { store: Store; reads: () => number } {
@@ -60,40 +62,83 @@ describe('whole layers kept in memory', () => {
 
   it('reads a layer from the store once, then gives the same bytes from memory', async () => {
     const { store, reads } = counted(real);
-    const cache = new LayerBytesCache();
-    const first = await collect(await cache.pieces(store, runs[0]!, 'points'));
+    const cache = new LayerCache();
+    const first = await collect(await cache.pieces(store, runs[0]!.id, 'points'));
     expect(first.equals(Buffer.from(text(0)))).toBe(true);
     expect(reads()).toBe(1);
-    const again = await collect(await cache.pieces(store, runs[0]!, 'points'));
+    const again = await collect(await cache.pieces(store, runs[0]!.id, 'points'));
     expect(again.equals(first)).toBe(true);
     expect(reads()).toBe(1);
     expect(cache.bytes).toBe(first.length);
     // another layer of the same run is its own entry
-    await collect(await cache.pieces(store, runs[0]!, 'noise'));
+    await collect(await cache.pieces(store, runs[0]!.id, 'noise'));
     expect(reads()).toBe(2);
   });
 
   it('keeps a layer only once read whole, never one over the bound per layer, and lets the least recently sent go past the bound', async () => {
     const { store, reads } = counted(real);
     const size = Buffer.byteLength(text(0));
-    const cache = new LayerBytesCache(2 * size + 10, size);
+    const cache = new LayerCache(2 * size + 10, size);
     // a client gone after the first piece: nothing kept
-    for await (const p of (await cache.pieces(store, runs[0]!, 'points'))!) {
+    for await (const p of (await cache.pieces(store, runs[0]!.id, 'points'))!) {
       expect(p.length).toBeGreaterThan(0);
       break;
     }
     expect(cache.bytes).toBe(0);
-    for (const r of runs) await collect(await cache.pieces(store, r, 'points'));
+    for (const r of runs) await collect(await cache.pieces(store, r.id, 'points'));
     expect(reads()).toBe(4);
     // three layers over a bound of two: the first is let go, the last two are kept
     expect(cache.bytes).toBe(Buffer.byteLength(text(1)) + Buffer.byteLength(text(2)));
-    await collect(await cache.pieces(store, runs[2]!, 'points'));
+    await collect(await cache.pieces(store, runs[2]!.id, 'points'));
     expect(reads()).toBe(4);
-    await collect(await cache.pieces(store, runs[0]!, 'points'));
+    await collect(await cache.pieces(store, runs[0]!.id, 'points'));
     expect(reads()).toBe(5);
-    const small = new LayerBytesCache(10 * size, size - 1);
-    await collect(await small.pieces(store, runs[1]!, 'points'));
+    const small = new LayerCache(10 * size, size - 1);
+    await collect(await small.pieces(store, runs[1]!.id, 'points'));
     expect(small.bytes).toBe(0);
+  });
+
+  it('makes an index from the bytes a whole read kept, holding them once, and sends what it indexed', async () => {
+    const { store, reads } = counted(real);
+    const cache = new LayerCache();
+    const whole = await collect(await cache.pieces(store, runs[0]!.id, 'points'));
+    const held = cache.bytes;
+    expect(held).toBe(whole.length);
+    const given: Uint8Array[] = [];
+    const index = await cache.index(`${runs[0]!.id}/points`, () => store.getRunLayerBytes(runs[0]!.id, 'points') as never, async (bytes) => {
+      given.push(bytes);
+      return indexParts(bytes);
+    });
+    // no second read, and the index's bytes are those kept: only its arrays are added
+    expect(reads()).toBe(1);
+    expect(given.length).toBe(1);
+    expect(given[0]!.buffer).toBeInstanceOf(SharedArrayBuffer);
+    expect(index.count).toBe(200);
+    expect(index.feature(3)).toBe(`{"type":"Feature","id":"é0-3","geometry":null,"properties":{"n":3}}`);
+    const parts = indexParts(given[0]!);
+    const arrays = parts.spans.byteLength + parts.idEnds.byteLength + parts.boxes.byteLength + parts.times.byteLength + 2 * parts.ids.length;
+    expect(cache.bytes).toBe(held + arrays);
+    // sent whole again from the same memory; asked again, the index is not made again
+    const again = (await cache.pieces(store, runs[0]!.id, 'points')) as Buffer[];
+    expect(again.length).toBe(1);
+    expect(again[0]!.buffer).toBe(given[0]!.buffer);
+    await cache.index(`${runs[0]!.id}/points`, () => Promise.reject(new Error('read again')), async () => Promise.reject(new Error('indexed again')));
+    expect(reads()).toBe(1);
+  });
+
+  it('makes one index for requests at the same time, and keeps it with its bytes from then on', async () => {
+    const { store, reads } = counted(real);
+    const cache = new LayerCache();
+    let made = 0;
+    const indexer = async (bytes: Uint8Array) => {
+      made++;
+      return indexParts(bytes);
+    };
+    const load = async () => (await store.getRunLayerBytes(runs[1]!.id, 'hotspots'))!;
+    const [a, b] = await Promise.all([cache.index('k', load, indexer), cache.index('k', load, indexer)]);
+    expect(a).toBe(b);
+    expect([made, reads()]).toEqual([1, 1]);
+    expect(cache.bytes).toBeGreaterThan(Buffer.byteLength(text(1)));
   });
 
   it('serves a whole layer GET from memory the second time, the same bytes and headers', async () => {
