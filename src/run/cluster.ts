@@ -774,7 +774,7 @@ export function clusterObservations(
   const { clustering, ordering } = runMethod(points, index, epsMeters, settings, (d) => hooks.onProgress?.('cluster', d));
 
   timer.start('figures');
-  // the Clark–Evans nearest-neighbour pass runs beside the hulls (in a worker thread for large sets)
+  // the Clark–Evans nearest-neighbour pass (on this thread by default; beside the hulls in a worker when two threads are asked for)
   const pendingNearest = points.n >= 3 ? startNearestNeighbours(points, index) : null;
   const { start, members } = membersByHotspot(clustering);
   const hulls: HullGeometry[] = [];
