@@ -580,8 +580,8 @@ function scanSequence(source: ByteSource, cols: Columns, weightKey: Uint8Array |
   if (B[0] === 0xef && B[1] === 0xbb && B[2] === 0xbf) i = 3; // byte-order mark
   i = wsAcross(i);
   const rs = B[i] === RS;
-  let timeSeen = false;
-  let timed = 0;
+  scanTimed = 0;
+  scanTimeSeen = false;
   for (;;) {
     // separators: RS and white space between records; white space and line feeds between lines
     for (;;) {
@@ -590,21 +590,9 @@ function scanSequence(source: ByteSource, cols: Columns, weightKey: Uint8Array |
       else break;
     }
     if (i >= N) break;
-    if (cols.n === cols.cap) cols.grow(cols.cap * 2);
-    i = ahead(i);
-    const f = i;
-    try {
-      i = scanFeature(i, cols, weightKey, timeKey, options.time);
-    } catch (err) {
-      if (!shortOfBytes(err, f)) throw err;
-      i = shift(f);
-      continue;
-    }
-    if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) timed++;
-    if (lastTimeFound) timeSeen = true;
-    if (cols.n === ESTIMATE_AT) sizeColumns(cols, BASE + i);
+    i = scanNextFeature(i, cols, weightKey, timeKey, options.time);
     if (!rs) {
-      for (let k = f; k < i; k++) if (B[k] === 10) throw NOT_FAST;
+      for (let k = featureStart; k < i; k++) if (B[k] === 10) throw NOT_FAST;
       // the rest of the line: spaces, tabs and carriage returns only
       for (;;) {
         const c = B[i];
@@ -619,8 +607,8 @@ function scanSequence(source: ByteSource, cols: Columns, weightKey: Uint8Array |
     }
   }
   if (cols.n === 0 || cols.n > options.maxFeatures) throw NOT_FAST;
-  if (options.time.property !== TIME_PROPERTY && !timeSeen) throw NOT_FAST;
-  return observations(source, cols, timed);
+  if (options.time.property !== TIME_PROPERTY && !scanTimeSeen) throw NOT_FAST;
+  return observations(source, cols, scanTimed);
 }
 
 /** Features scanned before the columns are sized to the whole input. */
@@ -640,9 +628,35 @@ const M_TYPE = 0;
 const M_FEATURES = 1;
 const M_OTHER = 2;
 
-/** Set by scanFeatures: how many features had a time, and whether any had the time property. */
+/** Set by scanNextFeature: how many features had a time, and whether any had the time property. */
 let scanTimed = 0;
 let scanTimeSeen = false;
+/** Set by scanNextFeature: where the feature it scanned starts in the window. */
+let featureStart = 0;
+
+/**
+ * Scans the feature at i into cols, moving the window on and scanning it again while the window
+ * cut it short; counts its time (scanTimed, scanTimeSeen) and sizes the columns once ESTIMATE_AT
+ * features are in. Returns the index just past the feature; featureStart is where it starts.
+ */
+function scanNextFeature(i: number, cols: Columns, weightKey: Uint8Array | null, timeKey: Uint8Array, time: ByteReadOptions['time']): number {
+  if (cols.n === cols.cap) cols.grow(cols.cap * 2);
+  for (;;) {
+    i = ahead(i);
+    featureStart = i;
+    try {
+      i = scanFeature(i, cols, weightKey, timeKey, time);
+      break;
+    } catch (err) {
+      if (!shortOfBytes(err, featureStart)) throw err;
+      i = shift(featureStart);
+    }
+  }
+  if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) scanTimed++;
+  if (lastTimeFound) scanTimeSeen = true;
+  if (cols.n === ESTIMATE_AT) sizeColumns(cols, BASE + i);
+  return i;
+}
 
 /** Scans the features from just past the `[` into cols; returns the index just past the `]`. */
 function scanFeatures(i: number, cols: Columns, weightKey: Uint8Array | null, timeKey: Uint8Array, options: ByteReadOptions): number {
@@ -651,19 +665,7 @@ function scanFeatures(i: number, cols: Columns, weightKey: Uint8Array | null, ti
   i = wsAcross(i);
   if (B[i] === C.CloseBracket) throw NOT_FAST; // no features: the parsing reader says so
   for (;;) {
-    if (cols.n === cols.cap) cols.grow(cols.cap * 2);
-    i = ahead(i);
-    const f = i;
-    try {
-      i = scanFeature(i, cols, weightKey, timeKey, options.time);
-    } catch (err) {
-      if (!shortOfBytes(err, f)) throw err;
-      i = shift(f);
-      continue;
-    }
-    if (cols.time[cols.n - 1] === cols.time[cols.n - 1]) scanTimed++;
-    if (lastTimeFound) scanTimeSeen = true;
-    if (cols.n === ESTIMATE_AT) sizeColumns(cols, BASE + i);
+    i = scanNextFeature(i, cols, weightKey, timeKey, options.time);
     i = wsAcross(i);
     if (B[i] === C.Comma) {
       i = wsAcross(i + 1);
