@@ -82,12 +82,7 @@ export class PackedTexts implements FeatureTexts {
   addSpanBytes(chunk: Buffer, starts: Int32Array, ends: Int32Array, count: number): boolean {
     if (count === 0) return true;
     if (!isUtf8(chunk)) return false;
-    this.reserve(count);
-    const c = this.chunks.length;
-    for (let k = 0; k < count; k++) this.place(this.length + k, c, starts[k] as number, ends[k] as number);
-    this.chunks.push(chunk);
-    this.loose.push([]);
-    this.length += count;
+    this.addChunk(chunk, starts, ends, count);
     return true;
   }
 
@@ -111,6 +106,11 @@ export class PackedTexts implements FeatureTexts {
    */
   addSpans(chunk: string, starts: Int32Array, ends: Int32Array, count: number): void {
     if (count === 0) return;
+    this.addChunk(chunk, starts, ends, count);
+  }
+
+  /** Keeps `chunk` and places `count` texts in it, text k from starts[k] to ends[k]. */
+  private addChunk(chunk: string | Buffer, starts: Int32Array, ends: Int32Array, count: number): void {
     this.reserve(count);
     const c = this.chunks.length;
     for (let k = 0; k < count; k++) this.place(this.length + k, c, starts[k] as number, ends[k] as number);
