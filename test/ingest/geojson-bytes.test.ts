@@ -52,6 +52,24 @@ function sameNumbers(a: ArrayLike<number> | null, b: ArrayLike<number> | null): 
   return true;
 }
 
+/**
+ * Expects two readings to agree: the same problems and total when the expected one refused, or
+ * the same positions, weights, times and features. Returns both observations, or null when refused.
+ */
+function expectSameReading(actual: Outcome, expected: Outcome, context: string): { a: Observations; e: Observations } | null {
+  if ('error' in expected) {
+    expect('error' in actual ? actual.error : actual, context).toEqual(expected.error);
+    return null;
+  }
+  expect('ok' in actual, context).toBe(true);
+  const a = (actual as { ok: Observations }).ok;
+  const e = expected.ok;
+  expect(sameNumbers(a.points.lon, e.points.lon) && sameNumbers(a.points.lat, e.points.lat), context).toBe(true);
+  expect(sameNumbers(a.points.weight, e.points.weight) && sameNumbers(a.observedAt, e.observedAt), context).toBe(true);
+  expect(Array.from(a.features), context).toEqual(Array.from(e.features));
+  return { a, e };
+}
+
 function pick<T>(r: () => number, xs: readonly T[]): T {
   return xs[Math.floor(r() * xs.length)]!;
 }
@@ -233,16 +251,9 @@ describe('byte GeoJSON reader', () => {
         const context = `case ${c}: window ${windowBytes} of ${bytes.length} bytes, ${JSON.stringify(options)} ${JSON.stringify(bytes.toString('latin1'))}`;
         const expected = outcome(() => readObservations(bytes, options));
         const actual = outcome(() => readObservations(new InputFile(path, windowBytes), options));
-        if ('error' in expected) {
-          expect('error' in actual ? actual.error : actual, context).toEqual(expected.error);
-          continue;
-        }
-        expect('ok' in actual, context).toBe(true);
-        const a = (actual as { ok: Observations }).ok;
-        const e = expected.ok;
-        expect(sameNumbers(a.points.lon, e.points.lon) && sameNumbers(a.points.lat, e.points.lat), context).toBe(true);
-        expect(sameNumbers(a.points.weight, e.points.weight) && sameNumbers(a.observedAt, e.observedAt), context).toBe(true);
-        expect(Array.from(a.features), context).toEqual(Array.from(e.features));
+        const same = expectSameReading(actual, expected, context);
+        if (same === null) continue;
+        const { a, e } = same;
         // the file goes the byte reader's way exactly when the bytes in memory do
         const spans = (a as Partial<SpannedObservations>).spans;
         expect(spans !== undefined, context).toBe((e as Partial<SpannedObservations>).spans !== undefined);
@@ -282,17 +293,9 @@ describe('byte GeoJSON reader', () => {
         if (text.charCodeAt(0) === 0xfeff) text = text.slice(1);
         const expected = outcome(() => readGeoJsonSeq(text, options.weightProperty ?? null, 100, options.maxFeatures ?? Number.MAX_SAFE_INTEGER, time, false));
         for (const input of [bytes, new InputFile(path, windowBytes)]) {
-          const actual = outcome(() => readObservations(input, options));
-          if ('error' in expected) {
-            expect('error' in actual ? actual.error : actual, context).toEqual(expected.error);
-            continue;
-          }
-          expect('ok' in actual, context).toBe(true);
-          const a = (actual as { ok: Observations }).ok;
-          const e = expected.ok;
-          expect(sameNumbers(a.points.lon, e.points.lon) && sameNumbers(a.points.lat, e.points.lat), context).toBe(true);
-          expect(sameNumbers(a.points.weight, e.points.weight) && sameNumbers(a.observedAt, e.observedAt), context).toBe(true);
-          expect(Array.from(a.features), context).toEqual(e.features);
+          const same = expectSameReading(outcome(() => readObservations(input, options)), expected, context);
+          if (same === null) continue;
+          const { a, e } = same;
           const spans = (a as Partial<SpannedObservations>).spans;
           if (spans === undefined) continue;
           fast++;
