@@ -30,11 +30,17 @@ const EMPTY = -1;
  */
 const MIN_CELL = 2 / 2 ** 17;
 
-/** Grid coordinates per point and their extent on each axis. */
-interface Grid {
-  gx: Int32Array;
-  gy: Int32Array;
-  gz: Int32Array;
+/**
+ * The grid layout built by `buildLayout`: positions in cell order and the cells as runs of them.
+ */
+interface Layout {
+  sorted: Int32Array;
+  sxyz: Float64Array;
+  cellOf: Int32Array;
+  cellStart: Int32Array;
+  cx: Int32Array;
+  cy: Int32Array;
+  cz: Int32Array;
   minX: number;
   maxX: number;
   minY: number;
@@ -44,55 +50,131 @@ interface Grid {
 }
 
 /**
- * Point ids in lexicographic cell order (x, then y, then z), ascending id inside a cell. A stable
- * counting sort by x over all points; then each x slab (a few hundred points, small enough to
- * stay in cache) is sorted by (y, z, id) on its own: by two stable counting sorts (z, then y)
- * over the slab's own extent, or, when that extent is large for the slab's size, by comparison.
+ * Point ids in lexicographic cell order (x, then y, then z), ascending id inside a cell, with
+ * the unit vectors copied in that order and the cells found as runs of equal coordinates.
+ *
+ * A stable counting sort by x scatters ids and vectors into x slabs (the writes go to one open
+ * run per slab, so they stay in cache, and no vector is read at random). Each slab (a few
+ * hundred points, small enough to stay in cache) is then sorted by (y, z, id) on its own: by two
+ * stable counting sorts (z, then y) over the slab's own extent, or, when that extent is large for
+ * the slab's size, by comparison; its vectors are permuted in place and its cells read off while
+ * it is still in cache.
  */
-function cellOrder(g: Grid): Int32Array {
-  const { gx, gy, gz, minX, maxX } = g;
-  const n = gx.length;
+function buildLayout(xyz: Float64Array, n: number, inv: number): Layout {
+  // 1. grid x of every point, and the extent on each axis
+  const gx = new Int32Array(n);
+  let minX = 0, maxX = 0, minY = 0, maxY = 0, minZ = 0, maxZ = 0;
+  for (let i = 0; i < n; i++) {
+    const ix = Math.floor(xyz[3 * i] * inv);
+    const iy = Math.floor(xyz[3 * i + 1] * inv);
+    const iz = Math.floor(xyz[3 * i + 2] * inv);
+    gx[i] = ix;
+    if (i === 0 || ix < minX) minX = ix;
+    if (i === 0 || ix > maxX) maxX = ix;
+    if (i === 0 || iy < minY) minY = iy;
+    if (i === 0 || iy > maxY) maxY = iy;
+    if (i === 0 || iz < minZ) minZ = iz;
+    if (i === 0 || iz > maxZ) maxZ = iz;
+  }
+
+  // 2. stable counting sort by x: ids and vectors scattered into their slabs
   const rangeX = maxX - minX + 1;
   const slabStart = new Int32Array(rangeX + 1);
   for (let i = 0; i < n; i++) slabStart[gx[i] - minX + 1]++;
   for (let r = 0; r < rangeX; r++) slabStart[r + 1] += slabStart[r];
-  const order = new Int32Array(n);
+  const sorted = new Int32Array(n);
+  const sxyz = new Float64Array(n * 3);
   const next = slabStart.slice(0, rangeX);
-  for (let i = 0; i < n; i++) order[next[gx[i] - minX]++] = i;
-  const scratch = new SlabScratch(Math.max(g.maxY - g.minY, g.maxZ - g.minZ) + 2);
-  for (let r = 0; r < rangeX; r++) {
-    if (slabStart[r + 1] - slabStart[r] > 1) scratch.sortSlab(order, slabStart[r], slabStart[r + 1], gy, gz);
+  for (let i = 0; i < n; i++) {
+    const s = next[gx[i] - minX]++;
+    sorted[s] = i;
+    sxyz[3 * s] = xyz[3 * i];
+    sxyz[3 * s + 1] = xyz[3 * i + 1];
+    sxyz[3 * s + 2] = xyz[3 * i + 2];
   }
-  return order;
+
+  // 3. each slab sorted by (y, z, id) and its cells read off
+  const cellOf = new Int32Array(n);
+  const startBuf = new Int32Array(n + 1);
+  const cxBuf = new Int32Array(n);
+  const cyBuf = new Int32Array(n);
+  const czBuf = new Int32Array(n);
+  let cells = 0;
+  const scratch = new SlabScratch(Math.max(maxY - minY, maxZ - minZ) + 2);
+  for (let r = 0; r < rangeX; r++) {
+    const b0 = slabStart[r], b1 = slabStart[r + 1];
+    if (b1 === b0) continue;
+    const { perm, ly, lz } = scratch.sortSlab(sorted, sxyz, b0, b1, inv);
+    const ix = r + minX;
+    let py = 0, pz = 0;
+    for (let t = 0; t < b1 - b0; t++) {
+      const j = perm[t];
+      const iy = ly[j], iz = lz[j];
+      if (t === 0 || iy !== py || iz !== pz) {
+        cxBuf[cells] = ix;
+        cyBuf[cells] = py = iy;
+        czBuf[cells] = pz = iz;
+        startBuf[cells] = b0 + t;
+        cells++;
+      }
+      cellOf[sorted[b0 + t]] = cells - 1;
+    }
+  }
+  startBuf[cells] = n;
+  return {
+    sorted,
+    sxyz,
+    cellOf,
+    cellStart: startBuf.slice(0, cells + 1),
+    cx: cxBuf.slice(0, cells),
+    cy: cyBuf.slice(0, cells),
+    cz: czBuf.slice(0, cells),
+    minX,
+    maxX,
+    minY,
+    maxY,
+    minZ,
+    maxZ,
+  };
 }
 
-/** Buffers reused by every slab of `cellOrder`, grown to the largest slab. */
+/** Buffers reused by every slab of `buildLayout`, grown to the largest slab. */
 class SlabScratch {
   private ids = new Int32Array(0);
   private ly = new Int32Array(0);
   private lz = new Int32Array(0);
   private tmp = new Int32Array(0);
+  private perm = new Int32Array(0);
+  private vec = new Float64Array(0);
   private readonly count: Int32Array;
 
   constructor(maxRange: number) {
     this.count = new Int32Array(maxRange + 1);
   }
 
-  /** Sorts order[b0..b1), ids of one x slab in ascending id order, by (y, z, id). */
-  sortSlab(order: Int32Array, b0: number, b1: number, gy: Int32Array, gz: Int32Array): void {
+  /**
+   * Sorts one x slab, positions b0..b1 of `sorted` (ids ascending) and of `sxyz`, by (y, z, id)
+   * in place. Returns the slab's local order (perm[t] = the slab-local index now at b0 + t) and
+   * the grid y and z of every slab-local index.
+   */
+  sortSlab(sorted: Int32Array, sxyz: Float64Array, b0: number, b1: number, inv: number): { perm: Int32Array; ly: Int32Array; lz: Int32Array } {
     const m = b1 - b0;
     if (this.ids.length < m) {
-      this.ids = new Int32Array(m);
-      this.ly = new Int32Array(m);
-      this.lz = new Int32Array(m);
-      this.tmp = new Int32Array(m);
+      const size = Math.max(m, 2 * this.ids.length);
+      this.ids = new Int32Array(size);
+      this.ly = new Int32Array(size);
+      this.lz = new Int32Array(size);
+      this.tmp = new Int32Array(size);
+      this.perm = new Int32Array(size);
+      this.vec = new Float64Array(3 * size);
     }
-    const { ids, ly, lz, tmp } = this;
+    const { ids, ly, lz, tmp, perm, vec } = this;
     let y0 = Infinity, y1 = -Infinity, z0 = Infinity, z1 = -Infinity;
     for (let j = 0; j < m; j++) {
-      const i = order[b0 + j];
-      const y = gy[i], z = gz[i];
-      ids[j] = i;
+      const k = b0 + j;
+      const y = Math.floor(sxyz[3 * k + 1] * inv);
+      const z = Math.floor(sxyz[3 * k + 2] * inv);
+      ids[j] = sorted[k];
       ly[j] = y;
       lz[j] = z;
       if (y < y0) y0 = y;
@@ -101,27 +183,40 @@ class SlabScratch {
       if (z > z1) z1 = z;
     }
     const rangeY = y1 - y0 + 1, rangeZ = z1 - z0 + 1;
+    if (m === 1) {
+      perm[0] = 0;
+      return { perm, ly, lz };
+    }
     if (rangeY + rangeZ > 4 * m + 64) {
       // a sparse slab: counting over its extent would cost more than comparing
-      const local = tmp.subarray(0, m);
+      const local = perm.subarray(0, m);
       for (let j = 0; j < m; j++) local[j] = j;
       local.sort((a, b) => ly[a] - ly[b] || lz[a] - lz[b] || ids[a] - ids[b]);
-      for (let j = 0; j < m; j++) order[b0 + j] = ids[local[j]];
-      return;
+    } else {
+      // stable by z into tmp, then stable by y into perm (slab-local indices, ids ascending)
+      const count = this.count;
+      count.fill(0, 0, rangeZ + 1);
+      for (let j = 0; j < m; j++) count[lz[j] - z0 + 1]++;
+      for (let q = 0; q < rangeZ; q++) count[q + 1] += count[q];
+      for (let j = 0; j < m; j++) tmp[count[lz[j] - z0]++] = j;
+      count.fill(0, 0, rangeY + 1);
+      for (let j = 0; j < m; j++) count[ly[j] - y0 + 1]++;
+      for (let q = 0; q < rangeY; q++) count[q + 1] += count[q];
+      for (let t = 0; t < m; t++) {
+        const j = tmp[t];
+        perm[count[ly[j] - y0]++] = j;
+      }
     }
-    // stable by z into tmp (local indices), then stable by y into order
-    const count = this.count;
-    count.fill(0, 0, rangeZ + 1);
-    for (let j = 0; j < m; j++) count[lz[j] - z0 + 1]++;
-    for (let r = 0; r < rangeZ; r++) count[r + 1] += count[r];
-    for (let j = 0; j < m; j++) tmp[count[lz[j] - z0]++] = j;
-    count.fill(0, 0, rangeY + 1);
-    for (let j = 0; j < m; j++) count[ly[j] - y0 + 1]++;
-    for (let r = 0; r < rangeY; r++) count[r + 1] += count[r];
+    vec.set(sxyz.subarray(3 * b0, 3 * b1));
     for (let t = 0; t < m; t++) {
-      const j = tmp[t];
-      order[b0 + count[ly[j] - y0]++] = ids[j];
+      const j = perm[t];
+      const k = b0 + t;
+      sorted[k] = ids[j];
+      sxyz[3 * k] = vec[3 * j];
+      sxyz[3 * k + 1] = vec[3 * j + 1];
+      sxyz[3 * k + 2] = vec[3 * j + 2];
     }
+    return { perm, ly, lz };
   }
 }
 
@@ -182,69 +277,18 @@ export class SphereIndex {
     const xyz = unitVectors(points.lon, points.lat);
     this.xyz = xyz;
 
-    // 1. integer grid coordinates of every point
-    const inv = 1 / this.cellSize;
-    const gx = new Int32Array(n);
-    const gy = new Int32Array(n);
-    const gz = new Int32Array(n);
-    let minX = 0, maxX = 0, minY = 0, maxY = 0, minZ = 0, maxZ = 0;
-    for (let i = 0; i < n; i++) {
-      const ix = Math.floor(xyz[3 * i] * inv);
-      const iy = Math.floor(xyz[3 * i + 1] * inv);
-      const iz = Math.floor(xyz[3 * i + 2] * inv);
-      gx[i] = ix;
-      gy[i] = iy;
-      gz[i] = iz;
-      if (i === 0 || ix < minX) minX = ix;
-      if (i === 0 || ix > maxX) maxX = ix;
-      if (i === 0 || iy < minY) minY = iy;
-      if (i === 0 || iy > maxY) maxY = iy;
-      if (i === 0 || iz < minZ) minZ = iz;
-      if (i === 0 || iz > maxZ) maxZ = iz;
-    }
-
-    // 2. lexicographic cell order, ascending point id inside each cell
-    const order = cellOrder({ gx, gy, gz, minX, maxX, minY, maxY, minZ, maxZ });
-
-    // 3. cells are runs of equal coordinates in that order. Only the unit vectors are gathered
-    //    (one random read per point); grid coordinates are recomputed from the copied vectors,
-    //    which gives the same integers and reads memory in order.
-    const cellOf = new Int32Array(n);
-    const sxyz = new Float64Array(n * 3);
-    for (let k = 0; k < n; k++) {
-      const i = order[k];
-      sxyz[3 * k] = xyz[3 * i];
-      sxyz[3 * k + 1] = xyz[3 * i + 1];
-      sxyz[3 * k + 2] = xyz[3 * i + 2];
-    }
-    const startBuf = new Int32Array(n + 1);
-    const cxBuf = new Int32Array(n);
-    const cyBuf = new Int32Array(n);
-    const czBuf = new Int32Array(n);
-    let cells = 0;
-    let px = 0, py = 0, pz = 0;
-    for (let k = 0; k < n; k++) {
-      const ix = Math.floor(sxyz[3 * k] * inv);
-      const iy = Math.floor(sxyz[3 * k + 1] * inv);
-      const iz = Math.floor(sxyz[3 * k + 2] * inv);
-      if (k === 0 || ix !== px || iy !== py || iz !== pz) {
-        cxBuf[cells] = px = ix;
-        cyBuf[cells] = py = iy;
-        czBuf[cells] = pz = iz;
-        startBuf[cells] = k;
-        cells++;
-      }
-      cellOf[order[k]] = cells - 1;
-    }
-    startBuf[cells] = n;
+    // 1–3. points in cell order, their vectors copied in that order, and the cells
+    const layout = buildLayout(xyz, n, 1 / this.cellSize);
+    const { minX, minY, maxY, minZ, maxZ, cx, cy, cz } = layout;
+    const cells = layout.cx.length;
     this.cellCount = cells;
-    this.cellStart = startBuf.slice(0, cells + 1);
-    const cx = (this.cx = cxBuf.slice(0, cells));
-    const cy = (this.cy = cyBuf.slice(0, cells));
-    const cz = (this.cz = czBuf.slice(0, cells));
-    this.cellOf = cellOf;
-    this.sorted = order;
-    this.sxyz = sxyz;
+    this.cellStart = layout.cellStart;
+    this.cx = cx;
+    this.cy = cy;
+    this.cz = cz;
+    this.cellOf = layout.cellOf;
+    this.sorted = layout.sorted;
+    this.sxyz = layout.sxyz;
 
     // 4. neighbour cells by a sweep: for each of the 9 (dx, dy) columns keep a cursor into the
     //    sorted cells. The first cell not before (x+dx, y+dy, z-1) only moves forward as the

@@ -3,7 +3,8 @@
  * layout written down plainly: point ids sorted by (⌊x / cell⌋, ⌊y / cell⌋, ⌊z / cell⌋, id) with
  * an ordinary comparison sort, cells as runs of equal grid coordinates, and each cell's
  * neighbour cells found by comparing grid coordinates of every pair of cells. The index builds
- * this layout with counting sorts over x slabs (a comparison sort for sparse slabs) and a sweep;
+ * this layout with counting sorts over x slabs (a comparison sort for sparse slabs), moving the
+ * unit vectors with the ids, and a sweep;
  * everything the clustering passes do follows from it, so equal layouts mean equal results.
  *
  * Seeded sets: dense patches (counting sorts), the whole globe at a small radius (sparse slabs),
@@ -67,9 +68,15 @@ describe('SphereIndex layout', () => {
       expect(Array.from(index.cellStart)).toEqual(want.cellStart);
       const got = want.nbr.map((_, c) => Array.from(index.nbr.subarray(index.nbrStart[c], index.nbrStart[c + 1])));
       expect(got).toEqual(want.nbr);
-      for (let k = 0; k < index.n; k++) {
-        const i = index.sorted[k];
-        expect(index.sxyz[3 * k + 2]).toBe(index.xyz[3 * i + 2]);
+      // the vectors copied in cell order, each point's cell and each cell's grid coordinates
+      const inv = 1 / index.cellSize;
+      for (let c = 0; c < index.cellCount; c++) {
+        for (let k = index.cellStart[c]; k < index.cellStart[c + 1]; k++) {
+          const i = index.sorted[k];
+          for (let axis = 0; axis < 3; axis++) expect(index.sxyz[3 * k + axis]).toBe(index.xyz[3 * i + axis]);
+          expect(index.cellOf[i]).toBe(c);
+          expect([index.cx[c], index.cy[c], index.cz[c]]).toEqual([0, 1, 2].map((axis) => Math.floor(index.xyz[3 * i + axis] * inv)));
+        }
       }
     });
   }
