@@ -441,6 +441,9 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
   const reach = new Float64Array(n).fill(Infinity);
   const pred = new Int32Array(n).fill(-1);
   const processed = new Uint8Array(n);
+  // points of each cell not yet ordered: a neighbour cell at 0 holds nothing to offer and is skipped whole
+  const left = new Int32Array(index.cellCount);
+  for (let c = 0; c < index.cellCount; c++) left[c] = cellStart[c + 1] - cellStart[c];
   const seeds = new SeedHeap(n, reach, sorted);
 
   let done = 0;
@@ -451,6 +454,7 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
     processed[k] = 1;
     const p = sorted[k];
     const c = cellOf[p];
+    left[c]--;
     order[done++] = p;
     if (onProgress && done % step === 0) onProgress(done / n);
     const cd = core[k];
@@ -458,6 +462,7 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
     const x = sxyz[3 * k], y = sxyz[3 * k + 1], z = sxyz[3 * k + 2];
     for (let a = nbrStart[c], aEnd = nbrStart[c + 1]; a < aEnd; a++) {
       const d = nbr[a];
+      if (left[d] === 0) continue;
       for (let o = cellStart[d], oEnd = cellStart[d + 1]; o < oEnd; o++) {
         if (processed[o]) continue;
         const dx = sxyz[3 * o] - x, dy = sxyz[3 * o + 1] - y, dz = sxyz[3 * o + 2] - z;
