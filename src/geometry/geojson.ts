@@ -40,6 +40,53 @@ export function coordText(x: number): string {
   return head + '.' + digits.slice(0, end);
 }
 
+/**
+ * Writes coordText(x) as ASCII bytes into `out` at `pos` and returns where it ends, without
+ * building a string: the point layers write two of these per observation. Values whose scaled
+ * integer is beyond 2^53 (never a position; perhaps an altitude) go through coordText. Needs at
+ * most 32 bytes of room.
+ */
+export function writeCoord(out: Uint8Array, pos: number, x: number): number {
+  if (!Number.isFinite(x)) throw new Error(`GeoJSON output: coordinate ${x} is not a finite number`);
+  const r = Math.round(x * SCALE);
+  if (r === 0) {
+    out[pos] = 48;
+    return pos + 1;
+  }
+  const a = r < 0 ? -r : r;
+  if (a > Number.MAX_SAFE_INTEGER) {
+    const t = coordText(x);
+    for (let k = 0; k < t.length; k++) out[pos + k] = t.charCodeAt(k);
+    return pos + t.length;
+  }
+  if (r < 0) out[pos++] = 45; // -
+  let whole = Math.floor(a / SCALE);
+  let frac = a - whole * SCALE;
+  // the whole part's digits, written backwards from its end
+  let len = 1;
+  for (let t = whole; t >= 10; t = Math.floor(t / 10)) len++;
+  for (let k = pos + len - 1; k >= pos; k--) {
+    const q = Math.floor(whole / 10);
+    out[k] = 48 + (whole - q * 10);
+    whole = q;
+  }
+  pos += len;
+  if (frac === 0) return pos;
+  // the fraction without its trailing zeros, padded to COORDINATE_DECIMALS places on the left
+  let places = COORDINATE_DECIMALS;
+  while (frac % 10 === 0) {
+    frac /= 10;
+    places--;
+  }
+  out[pos] = 46; // .
+  for (let k = pos + places; k > pos; k--) {
+    const q = Math.floor(frac / 10);
+    out[k] = 48 + (frac - q * 10);
+    frac = q;
+  }
+  return pos + places + 1;
+}
+
 /** Geometry shapes this module writes and measures. */
 export type GeometryLike =
   | { type: 'Point'; coordinates: number[] }

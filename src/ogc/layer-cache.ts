@@ -11,7 +11,8 @@
  * The bound is on the bytes held in all (the layers' bytes and their indexes' arrays), least
  * recently used out first: `lru-cache` with `maxSize` and `sizeCalculation` (see DEVELOPERS.md).
  * A whole-layer GET keeps a layer only once it has been read whole and only up to
- * `maxSentBytes`; a larger one is streamed from the store piece by piece and let go (an index
+ * `maxSentBytes`, requests for it at the same time sharing one read; a larger one is streamed
+ * from the store piece by piece and let go (an index
  * needs the whole layer anyway and keeps it). A stored layer never changes once its run has
  * succeeded, and run ids are unique within a store, so the run id and layer name its bytes.
  */
@@ -34,6 +35,9 @@ interface Entry {
   /** bytes of the index's own arrays and ids */
   indexBytes: number;
 }
+
+/** A whole layer as read for sending: all of it, or (larger than kept) its first pieces and the rest still to read. */
+type Loaded = { whole: true; pieces: Buffer[] } | { whole: false; pieces: Buffer[]; rest: AsyncIterable<Buffer> };
 
 /** Bytes in memory that threads share (a SharedArrayBuffer): handing them to a job thread copies nothing. */
 function sharedBytes(length: number): Buffer {
@@ -58,6 +62,8 @@ function partsBytes(parts: LayerIndexParts): number {
 
 export class LayerCache {
   private readonly entries: LRUCache<string, Entry>;
+  /** whole layers being read for sending, so that requests at the same time read once */
+  private readonly loading = new Map<string, Promise<Loaded | null>>();
   /** indexes being made, so that requests at the same time make one */
   private readonly making = new Map<string, Promise<LayerIndex>>();
 
@@ -76,28 +82,61 @@ export class LayerCache {
   /**
    * A whole stored layer as pieces to send: from memory when kept, else from the store (kept once
    * read whole, when not larger than maxSentBytes); null when the run has no stored result.
+   * Requests for a layer being read already wait for that read instead of reading it again (two
+   * clients polling the latest layer both miss when a new run succeeds, and each read is
+   * synchronous on SQLite's main-thread connection). The shared read is driven by no client, so a
+   * slow one holds nobody back; a layer found larger than maxSentBytes is streamed from the store
+   * by each request, the first one going on from where the shared read stopped.
    */
   async pieces(store: Store, runId: string, layer: LayerName): Promise<AsyncIterable<Buffer> | Buffer[] | null> {
     const key = `${runId}/${layer}`;
     const hit = this.entries.get(key);
     if (hit !== undefined) return hit.pieces;
+    const pending = this.loading.get(key);
+    if (pending !== undefined) {
+      const loaded = await pending;
+      if (loaded === null) return null;
+      if (loaded.whole) return loaded.pieces;
+      // too large to keep: the waiting request reads its own
+      return this.entries.get(key)?.pieces ?? store.getRunLayerBytes(runId, layer);
+    }
+    const load = this.load(store, runId, layer, key);
+    this.loading.set(key, load);
+    let loaded: Loaded | null;
+    try {
+      loaded = await load;
+    } finally {
+      this.loading.delete(key);
+    }
+    if (loaded === null) return null;
+    if (loaded.whole) return loaded.pieces;
+    const { pieces, rest } = loaded;
+    return (async function* () {
+      yield* pieces;
+      yield* rest;
+    })();
+  }
+
+  /** Reads a layer whole and keeps it, or up to past maxSentBytes (then not kept: the rest is left to read). */
+  private async load(store: Store, runId: string, layer: LayerName, key: string): Promise<Loaded | null> {
     const read = await store.getRunLayerBytes(runId, layer);
     if (read === null) return null;
-    const keep = (seen: Buffer[], length: number): void => {
-      // kept as read: they are copied into one shared buffer only if the layer is indexed
-      if (!this.entries.has(key)) this.entries.set(key, { pieces: seen, length, index: null, indexBytes: 0 });
-    };
-    const maxSentBytes = this.maxSentBytes;
-    return (async function* () {
-      const seen: Buffer[] = [];
-      let length = 0;
-      for await (const p of read) {
-        length += p.length;
-        if (length <= maxSentBytes) seen.push(p);
-        yield p;
+    const iterator = read[Symbol.asyncIterator]();
+    const pieces: Buffer[] = [];
+    let length = 0;
+    for (;;) {
+      const next = await iterator.next();
+      if (next.done === true) break;
+      pieces.push(next.value);
+      length += next.value.length;
+      if (length > this.maxSentBytes) {
+        const rest: AsyncIterable<Buffer> = { [Symbol.asyncIterator]: () => iterator };
+        return { whole: false, pieces, rest };
       }
-      if (length <= maxSentBytes) keep(seen, length);
-    })();
+    }
+    // kept as read: they are copied into one shared buffer only if the layer is indexed
+    if (!this.entries.has(key)) this.entries.set(key, { pieces, length, index: null, indexBytes: 0 });
+    return { whole: true, pieces };
   }
 
   /**

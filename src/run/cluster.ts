@@ -16,6 +16,7 @@ import {
   bboxOf,
   bboxOfPositions,
   coordText,
+  writeCoord,
   featureCollectionChunks,
   featureCollectionString,
   featureString,
@@ -406,12 +407,12 @@ function pointLayerBytes(head: string, spans: FeatureSpans, rows: PointRows, ext
     }
     const alt = spans.altitude === null ? NaN : spans.altitude[k]!;
     pos += ascii(out, pos, ',"geometry":{"type":"Point","coordinates":[');
-    pos += ascii(out, pos, coordText(lon[i]!));
+    pos = writeCoord(out, pos, lon[i]!);
     out[pos++] = 44;
-    pos += ascii(out, pos, coordText(lat[i]!));
+    pos = writeCoord(out, pos, lat[i]!);
     if (alt === alt) {
       out[pos++] = 44;
-      pos += ascii(out, pos, coordText(alt));
+      pos = writeCoord(out, pos, alt);
     }
     pos += ascii(out, pos, ']},"properties":');
     return addedProperties(b, spans.propertiesStart[k]! - w.base, spans.propertiesEnd[k]! - w.base, label, roles[i]!, x, out, pos);

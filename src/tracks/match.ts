@@ -58,7 +58,7 @@
  */
 import { haversineMeters } from '../core/haversine.js';
 import type { HullGeometry } from '../geometry/hull.js';
-import { boxesMeet, coveredShare, hullAreaM2, hullPairs, intersectionAreaM2, memberIndex, memberPairs, partBoxes, type OverlapPair } from './overlap.js';
+import { boxesMeet, coveredShare, hullAreaM2, checkMembers, hullPairs, intersectionAreaM2, memberOwners, memberPairs, partBoxes, type OverlapPair } from './overlap.js';
 import { resolveTrackSettings, type TrackSettings } from './settings.js';
 
 export { DEFAULT_TRACK_SETTINGS, resolveTrackSettings, type TrackSettings } from './settings.js';
@@ -219,12 +219,14 @@ export function matchRuns(
     }
     prevTracks.add(x.trackId as string);
   }
-  memberIndex(prev, 'previous'); // rejects a member listed twice, so the counts below need no de-duplication
-  const owner = memberIndex(cur, 'new');
-
-  // Member overlaps for every old hotspot, and the run-level share that decides the basis.
+  // Member overlaps for every old hotspot, and the run-level share that decides the basis. A member
+  // listed twice is rejected (the previous run's while they are counted, then the new run's), so
+  // the counts need no de-duplication.
+  const owners = memberOwners(cur, 'new');
   const counts = new Int32Array(cur.length);
-  const byMembers = prev.map((x) => memberPairs(x.members, owner, counts));
+  const prevId = (i: number): number => prev[i].hotspotId;
+  const byMembers = prev.map((x, i) => memberPairs(x.members, i, owners, counts, prevId));
+  checkMembers(owners);
   let sizeSum = 0;
   let sharedSum = 0;
   for (const m of byMembers) {

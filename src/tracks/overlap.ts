@@ -28,44 +28,98 @@ export interface OverlapPair {
 }
 
 /**
- * Maps every member id of a run to the index of its hotspot. Throws when one observation id is
- * listed twice, in one hotspot or in two (a run's hotspots partition their members), so that member
- * counts need no de-duplication later.
+ * Every member id of the new run, each with its slot (its place in the run's member lists taken
+ * one after another) and the index of its hotspot; the previous run's members are looked up in it
+ * (memberPairs) and checked there for ids listed twice, so that only one map of member ids is built
+ * per match. A new-run id listed twice is kept as `duplicate` (the first one met) and reported by
+ * checkMembers after the previous run's members were checked, in the order a check of the previous
+ * run and then of the new one would report them.
  */
-export function memberIndex(runs: readonly { hotspotId: number; members: readonly string[] }[], which: string): Map<string, number> {
-  const owner = new Map<string, number>();
-  for (let h = 0; h < runs.length; h++) {
-    for (const id of runs[h].members) {
-      // one hash lookup per member: a set that does not grow the map met an id already there
-      // (with a million members the lookups are most of a stored run's tracks stage)
-      const size = owner.size;
-      owner.set(id, h);
-      if (owner.size === size) {
-        const before = runs.findIndex((r, k) => k <= h && r.members.includes(id));
-        throw new Error(
-          before === h
-            ? `Observation ${id} is listed twice among the members of ${which} hotspot ${runs[h].hotspotId}; pass each member once.`
-            : `Observation ${id} is a member of ${which} hotspots ${runs[before].hotspotId} and ${runs[h].hotspotId}; ` +
-              'a run gives every observation to at most one hotspot, pass each hotspot with its own members.',
-        );
-      }
-    }
-  }
-  return owner;
+export interface MemberOwners {
+  /** member id → slot */
+  slot: Map<string, number>;
+  /** slot → index of its hotspot in the new run */
+  hotspotOf: Int32Array;
+  /** per slot: 1 + index of the previous hotspot that listed the id, 0 before any did */
+  prevSeen: Int32Array;
+  /** previous members that are in no new hotspot → 1 + index of the previous hotspot that listed them */
+  prevOutside: Map<string, number>;
+  /** the first member id the new run lists twice, with its message */
+  duplicate: string | null;
+}
+
+function twiceMessage(id: string, which: string, firstId: number, secondId: number): string {
+  return firstId === secondId
+    ? `Observation ${id} is listed twice among the members of ${which} hotspot ${secondId}; pass each member once.`
+    : `Observation ${id} is a member of ${which} hotspots ${firstId} and ${secondId}; ` +
+      'a run gives every observation to at most one hotspot, pass each hotspot with its own members.';
 }
 
 /**
- * Shared-member counts of one old hotspot with every new hotspot, as sparse pairs in ascending
- * new-hotspot order. `counts` is a scratch array of the new run's length, all zero on entry and
- * left all zero on return. Member ids are unique (memberIndex checked them).
+ * Indexes the members of the new run (see MemberOwners). One hash insertion per member: a set that
+ * does not grow the map met an id already there (with a million members the hash work is most of a
+ * stored run's tracks stage). Every member takes one slot, so the slots never outnumber the members.
  */
-export function memberPairs(members: readonly string[], owner: Map<string, number>, counts: Int32Array): { pairs: OverlapPair[]; sharedTotal: number; size: number } {
+export function memberOwners(runs: readonly { hotspotId: number; members: readonly string[] }[], which: string): MemberOwners {
+  let total = 0;
+  for (const r of runs) total += r.members.length;
+  const slot = new Map<string, number>();
+  const hotspotOf = new Int32Array(total);
+  let duplicate: string | null = null;
+  let next = 0;
+  for (let h = 0; h < runs.length; h++) {
+    for (const id of runs[h].members) {
+      const size = slot.size;
+      slot.set(id, next);
+      if (slot.size === size && duplicate === null) {
+        // met before (rare: the match will throw); the id now has the new slot, given its first hotspot
+        const first = runs.findIndex((r, k) => k <= h && r.members.includes(id));
+        duplicate = twiceMessage(id, which, runs[first].hotspotId, runs[h].hotspotId);
+        hotspotOf[next++] = first;
+        continue;
+      }
+      hotspotOf[next++] = h;
+    }
+  }
+  return { slot, hotspotOf, prevSeen: new Int32Array(total), prevOutside: new Map(), duplicate };
+}
+
+/**
+ * Throws the new run's first duplicate member (see MemberOwners) once every previous hotspot has
+ * been through memberPairs.
+ */
+export function checkMembers(owners: MemberOwners): void {
+  if (owners.duplicate !== null) throw new Error(owners.duplicate);
+}
+
+/**
+ * Shared-member counts of one old hotspot (index `x`, id `xId`, of the previous run) with every new
+ * hotspot, as sparse pairs in ascending new-hotspot order. `counts` is a scratch array of the new
+ * run's length, all zero on entry and left all zero on return. Throws when a member id of the
+ * previous run is listed twice, in one hotspot or in two (a run's hotspots partition their
+ * members), so that member counts need no de-duplication; `prevIds` gives the hotspotId of a
+ * previous index for that message.
+ */
+export function memberPairs(
+  members: readonly string[], x: number, owners: MemberOwners, counts: Int32Array, prevIds: (i: number) => number,
+): { pairs: OverlapPair[]; sharedTotal: number; size: number } {
+  const { slot, hotspotOf, prevSeen, prevOutside } = owners;
   const touched: number[] = [];
   const size = members.length;
+  const mark = x + 1;
   let sharedTotal = 0;
   for (let k = 0; k < size; k++) {
-    const h = owner.get(members[k]);
-    if (h === undefined) continue;
+    const id = members[k];
+    const s = slot.get(id);
+    if (s === undefined) {
+      const before = prevOutside.get(id);
+      if (before !== undefined) throw new Error(twiceMessage(id, 'previous', prevIds(before - 1), prevIds(x)));
+      prevOutside.set(id, mark);
+      continue;
+    }
+    if (prevSeen[s] !== 0) throw new Error(twiceMessage(id, 'previous', prevIds(prevSeen[s] - 1), prevIds(x)));
+    prevSeen[s] = mark;
+    const h = hotspotOf[s];
     if (counts[h] === 0) touched.push(h);
     counts[h]++;
     sharedTotal++;

@@ -1,6 +1,6 @@
 /**
  * Whole-command benchmark: `roost cluster` on a GeoJSON file (and the same points as
- * newline-delimited GeoJSON) against what Node itself needs just to read and `JSON.parse` the same file (target: within 2×, so that reading dominates, not
+ * newline-delimited GeoJSON and as CSV) against what Node itself needs just to read and `JSON.parse` the same file (target: within 2×, so that reading dominates, not
  * clustering). Seeded benchmark points (test/bench/data.ts) written with an id, an `observed_at`
  * and a count per feature, as survey apps send them. Each measurement is its own process, timed
  * with GNU time (wall seconds and peak RSS). Writes test/bench/command-results.md.
@@ -12,7 +12,7 @@ import { mkdtempSync, readFileSync, rmSync, statSync, writeFileSync } from 'node
 import os from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
-import { BENCH_EPS_METERS, BENCH_MIN_POINTS, benchPoints, writeGeoJSON } from './data.js';
+import { BENCH_EPS_METERS, BENCH_MIN_POINTS, benchPoints, writeCSV, writeGeoJSON } from './data.js';
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const BIN = join(root, 'dist/cli/bin.js');
@@ -34,6 +34,8 @@ const median = (xs: number[]): number => [...xs].sort((a, b) => a - b)[Math.floo
 const YARDSTICK = {
   geojson: (f: string) => `JSON.parse(require('fs').readFileSync(${JSON.stringify(f)}, 'utf8'))`,
   'geojson-seq': (f: string) => `for (const l of require('fs').readFileSync(${JSON.stringify(f)}, 'utf8').split('\\n')) if (l.trim()) JSON.parse(l)`,
+  // no quoting in the file: each line split at its commas and the numbers read, the least a CSV reader does
+  csv: (f: string) => `const r = []; for (const l of require('fs').readFileSync(${JSON.stringify(f)}, 'utf8').split('\\n')) if (l !== '') { const c = l.split(','); r.push([c[0], Number(c[1]), Number(c[2]), c[3], c[4]]); }`,
 };
 
 /** The same points as newline-delimited GeoJSON (one feature a line), from the FeatureCollection file written one feature a line. */
@@ -72,6 +74,10 @@ try {
     rmSync(input);
     rows.push(measure('geojson-seq', lines, n));
     rmSync(lines);
+    const csv = join(dir, `points-${n}.csv`);
+    await writeCSV(csv, benchPoints(n));
+    rows.push(measure('csv', csv, n));
+    rmSync(csv);
   }
 } finally {
   rmSync(dir, { recursive: true, force: true });
@@ -83,7 +89,8 @@ const text = `# Whole-command benchmark
 \`roost cluster <file> --eps ${BENCH_EPS_METERS} --min-points ${BENCH_MIN_POINTS} --out-dir <dir>\` (compiled, \`dist/cli/bin.js\`) against
 Node alone reading and parsing the same file: \`node -e "JSON.parse(fs.readFileSync(file, 'utf8'))"\` for a GeoJSON
 FeatureCollection, the file split into lines and each line \`JSON.parse\`d for newline-delimited GeoJSON (geojson-seq,
-the same features one a line). Seeded benchmark points with an id, an \`observed_at\` and a count each. Median of ${RUNS} runs, wall clock including Node start-up, each in its own process.
+the same features one a line), and for CSV (the same points and records, one a row) each line split at its commas
+and the coordinates read with \`Number\`. Seeded benchmark points with an id, an \`observed_at\` and a count each. Median of ${RUNS} runs, wall clock including Node start-up, each in its own process.
 Node ${process.version}, ${cpu}, ${os.cpus().length} cores, ${(os.totalmem() / 2 ** 30).toFixed(0)} GiB; load average at the end ${os.loadavg()[0].toFixed(1)}.
 Command: \`node --import tsx test/bench/command.ts\` (part of \`npm run bench\`).
 

@@ -50,3 +50,25 @@ export async function writeGeoJSON(path: string, points: PointSet, withRecord = 
   out.end();
   await once(out, 'finish');
 }
+
+/**
+ * Writes the same points and records as writeGeoJSON(…, true) as CSV with a header row
+ * (`id,longitude,latitude,observed_at,count`), streaming.
+ */
+export async function writeCSV(path: string, points: PointSet): Promise<void> {
+  const out = createWriteStream(path);
+  const write = async (s: string): Promise<void> => {
+    if (!out.write(s)) await once(out, 'drain');
+  };
+  let chunk = 'id,longitude,latitude,observed_at,count\n';
+  for (let i = 0; i < points.n; i++) {
+    chunk += `b${i},${points.lon[i].toFixed(7)},${points.lat[i].toFixed(7)},2026-05-${String(1 + (i % 28)).padStart(2, '0')}T12:00:00Z,${1 + (i % 4)}\n`;
+    if (chunk.length > 1 << 16) {
+      await write(chunk);
+      chunk = '';
+    }
+  }
+  await write(chunk);
+  out.end();
+  await once(out, 'finish');
+}

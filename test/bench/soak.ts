@@ -2,10 +2,11 @@
  * Soak benchmark (not a test): `roost serve` in a process of its own on a fresh SQLite file,
  * under a mixed load for a bounded time — observation posts, clustering requests, stored runs,
  * layer GETs, clients that vanish before their answer, and slow senders — while /healthz is
- * sampled every 100 ms and the service's resident memory every 5 s. Then the load stops and the
+ * sampled every 100 ms (from the load's process and from a process of its own) and the service's
+ * resident memory every 5 s. Then the load stops and the
  * service is asked whether anything is still held (stuck slots). Writes test/bench/soak-results.md.
  *
- *   npm run bench:soak [-- --duration 180] [--rate-limit 0] [--profile] [--growing]
+ *   npm run bench:soak [-- --duration 180] [--rate-limit 0] [--arena-max 2] [--profile] [--growing]
  *
  * The posts replace observations of a bounded set of ids (`replace=true`), so the dataset stops
  * growing once every id has been posted (at most SEED_POSTS + IDS_SMALL + IDS_LARGE observations,
@@ -16,7 +17,11 @@
  * every client here comes from one address, so the service's own default (600) would turn most of
  * the load away with 429 before it reached any work. `--profile` runs the service under Node's
  * CPU profiler and leaves the .cpuprofile file in test/bench/profiles/ (open it in Chrome's
- * DevTools or speedscope).
+ * DevTools or speedscope, or summarise it with test/bench/profile-summary.ts).
+ *
+ * `--arena-max` is the MALLOC_ARENA_MAX the service is started with, as `npm start` starts it
+ * (default 2, see DEVELOPERS.md, "Memory"); `--arena-max 0` starts it without, with glibc's own
+ * default (up to eight arenas a core for its threads).
  */
 import { spawn, type ChildProcess } from 'node:child_process';
 import { closeSync, mkdtempSync, openSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
@@ -36,6 +41,7 @@ function arg(name: string, fallback: number): number {
 }
 const DURATION_S = arg('duration', 180);
 const RATE_LIMIT = arg('rate-limit', 0);
+const ARENA_MAX = arg('arena-max', 2);
 const PROFILE = process.argv.includes('--profile');
 const GROWING = process.argv.includes('--growing');
 /** observations posted before the load */
@@ -70,7 +76,10 @@ async function startService(db: string): Promise<{ url: string; child: ChildProc
   // pipe this process must keep draining: a full pipe blocks the service's synchronous log writes
   const log = join(dirname(db), 'service.log');
   const fd = openSync(log, 'w');
-  const child = spawn(process.execPath, args, { cwd: ROOT, stdio: ['ignore', fd, 'inherit'] });
+  const env = { ...process.env };
+  if (ARENA_MAX > 0) env.MALLOC_ARENA_MAX = String(ARENA_MAX);
+  else delete env.MALLOC_ARENA_MAX;
+  const child = spawn(process.execPath, args, { cwd: ROOT, env, stdio: ['ignore', fd, 'inherit'] });
   closeSync(fd);
   let exited: number | null | undefined;
   child.on('exit', (code) => (exited = code));
@@ -174,6 +183,35 @@ function slowSender(base: string): Promise<void> {
   });
 }
 
+/**
+ * Samples /healthz every 100 ms from a process of its own that does nothing else, until `untilMs`
+ * (epoch): the latencies (ms) it saw. The load's own process also reads 16 MB layers and builds
+ * large bodies, and its event loop stalls add to the latencies it measures; this one's do not.
+ */
+function probe(url: string, untilMs: number): Promise<number[]> {
+  const script = `
+    const out = [];
+    while (Date.now() < ${untilMs}) {
+      const s = performance.now();
+      try { const r = await fetch(${JSON.stringify(`${url}/healthz`)}); await r.arrayBuffer(); out.push(performance.now() - s); } catch {}
+      await new Promise((r) => setTimeout(r, 100));
+    }
+    process.stdout.write(JSON.stringify(out));`;
+  return new Promise((resolve, reject) => {
+    const child = spawn(process.execPath, ['--input-type=module', '-e', script], { stdio: ['ignore', 'pipe', 'inherit'] });
+    let text = '';
+    child.stdout.on('data', (d: Buffer) => (text += d.toString()));
+    child.on('error', reject);
+    child.on('exit', () => {
+      try {
+        resolve(JSON.parse(text) as number[]);
+      } catch {
+        resolve([]);
+      }
+    });
+  });
+}
+
 function quantile(sorted: number[], q: number): number {
   return sorted.length === 0 ? NaN : sorted[Math.min(sorted.length - 1, Math.floor(q * sorted.length))]!;
 }
@@ -272,7 +310,9 @@ async function main(): Promise<void> {
   // two slow senders at a time, each cut at the upload time limit
   for (let s = 0; s < 2; s++) loop(() => slowSender(url));
 
+  const probed = probe(url, until);
   await Promise.all(loops);
+  const alone = (await probed).sort((a, b) => a - b);
   const loadEnd = Date.now();
   // after the load: nothing may stay held once the last answers are out
   let after: Record<string, unknown> = {};
@@ -301,15 +341,18 @@ async function main(): Promise<void> {
   const lines = [
     '# Soak benchmark',
     '',
-    `\`npm run bench:soak -- --duration ${DURATION_S} --rate-limit ${RATE_LIMIT}${PROFILE ? ' --profile' : ''}${GROWING ? ' --growing' : ''}\`, ${new Date().toISOString()}, Node ${process.version}, ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, load average at the start ${loadStart.map((x) => x.toFixed(2)).join(' ')}, at the end ${loadavg().map((x) => x.toFixed(2)).join(' ')}, seed ${SEED}.`,
+    `\`npm run bench:soak -- --duration ${DURATION_S} --rate-limit ${RATE_LIMIT} --arena-max ${ARENA_MAX}${PROFILE ? ' --profile' : ''}${GROWING ? ' --growing' : ''}\`, ${new Date().toISOString()}, Node ${process.version}, ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, load average at the start ${loadStart.map((x) => x.toFixed(2)).join(' ')}, at the end ${loadavg().map((x) => x.toFixed(2)).join(' ')}, seed ${SEED}.`,
     '',
-    `Service: \`roost serve --workers 1 --upload-timeout-ms ${UPLOAD_TIMEOUT_MS} --rate-limit ${RATE_LIMIT}\`${PROFILE ? ' under the CPU profiler' : ''} on a fresh SQLite file, in a process of its own, its log (with --trace-gc) written to a file. Load for ${DURATION_S} s: ${GROWING ? 'two clients posting batches of 500 new observations, one client posting 20,000 new observations every 20 s (the dataset grows without bound)' : `two clients posting batches of 500 observations going round ${SMALL_ID_SETS} sets of ids, one client posting 20,000 observations every 20 s going round ${LARGE_ID_SETS} sets (all with replace=true: the dataset stops growing at ${(SEED_POSTS + SMALL_ID_SETS * 500 + LARGE_ID_SETS * 20_000).toLocaleString('en')} observations)`}, two clients clustering 2,000 points, a stored run asked for every 10 s, two clients pulling the latest points layer, one client vanishing after sending each 3,000-point clustering request, two slow senders (a byte a second) at all times, /healthz every 100 ms.`,
+    `Service: \`${ARENA_MAX > 0 ? `MALLOC_ARENA_MAX=${ARENA_MAX} ` : ''}roost serve --workers 1 --upload-timeout-ms ${UPLOAD_TIMEOUT_MS} --rate-limit ${RATE_LIMIT}\`${PROFILE ? ' under the CPU profiler' : ''} on a fresh SQLite file, in a process of its own, its log (with --trace-gc) written to a file. Load for ${DURATION_S} s: ${GROWING ? 'two clients posting batches of 500 new observations, one client posting 20,000 new observations every 20 s (the dataset grows without bound)' : `two clients posting batches of 500 observations going round ${SMALL_ID_SETS} sets of ids, one client posting 20,000 observations every 20 s going round ${LARGE_ID_SETS} sets (all with replace=true: the dataset stops growing at ${(SEED_POSTS + SMALL_ID_SETS * 500 + LARGE_ID_SETS * 20_000).toLocaleString('en')} observations)`}, two clients clustering 2,000 points, a stored run asked for every 10 s, two clients pulling the latest points layer, one client vanishing after sending each 3,000-point clustering request, two slow senders (a byte a second) at all times, /healthz every 100 ms.`,
     '',
     '## /healthz',
     '',
-    '| samples | p50 | p99 | worst | worst at |',
-    '| ---: | ---: | ---: | ---: | ---: |',
-    `| ${sorted.length} | ${quantile(sorted, 0.5).toFixed(1)} ms | ${quantile(sorted, 0.99).toFixed(1)} ms | ${sorted[sorted.length - 1]?.toFixed(1)} ms | ${worstAt.toFixed(0)} s |`,
+    'Every 100 ms from the load\'s own process (its event loop also drains the layer GETs and builds the bodies, so its stalls count too), and every 100 ms from a process of its own that does nothing else.',
+    '',
+    '| sampled from | samples | p50 | p99 | worst | worst at |',
+    '| --- | ---: | ---: | ---: | ---: | ---: |',
+    `| the load's process | ${sorted.length} | ${quantile(sorted, 0.5).toFixed(1)} ms | ${quantile(sorted, 0.99).toFixed(1)} ms | ${sorted[sorted.length - 1]?.toFixed(1)} ms | ${worstAt.toFixed(0)} s |`,
+    `| a process of its own | ${alone.length} | ${quantile(alone, 0.5).toFixed(1)} ms | ${quantile(alone, 0.99).toFixed(1)} ms | ${alone[alone.length - 1]?.toFixed(1)} ms | |`,
     '',
     '## Resident memory of the service (MiB)',
     '',

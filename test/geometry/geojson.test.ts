@@ -1,7 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import {
   bboxOf, bboxOfPositions, COORDINATE_DECIMALS, coordText, featureCollectionChunks, featureCollectionString,
-  featureString, roundCoord, type GeometryLike,
+  featureString, roundCoord, writeCoord, type GeometryLike,
 } from '../../src/geometry/geojson.js';
 import { hotspotHull, type HullGeometry } from '../../src/geometry/hull.js';
 // source: geojson-schema package (GeoJSON JSON Schemas), see test/reference/geojson-schema.ts
@@ -56,6 +56,28 @@ describe('coordinates', () => {
       if (coordText(back) !== text) bad++;
     }
     expect(bad).toBe(0);
+  });
+
+  it('writeCoord writes the bytes of coordText, on random and awkward values', () => {
+    const seed = Number(process.env.ROOST_SEED ?? 41);
+    console.info(`writeCoord seed ${seed} (ROOST_SEED)`);
+    const r = rng(seed);
+    const values = [0, -0, 1e-9, -1e-9, 5e-8, -5e-8, 4.9999999e-8, 1, -1, 10, 180, -180, 90.00000005, 1.5, 0.1, 0.0000001, -0.0000001, 99.9999999, 99.99999995, 8848.86, -10994, 1e8, 9e8 + 0.5, 2 ** 53 / 1e7, 1e15, -1e20, 1e300];
+    for (let k = 0; k < 50_000; k++) {
+      const scale = 10 ** Math.floor(r.next() * 12 - 8);
+      let x = (r.next() - 0.5) * 2 * scale;
+      // values on and near the rounding edges, and with few decimals
+      if (k % 3 === 0) x = Math.round(x * 1e7) / 1e7 + (k % 2 === 0 ? 5e-8 : 0);
+      values.push(x);
+    }
+    const out = new Uint8Array(64);
+    const bad: number[] = [];
+    for (const x of values) {
+      const end = writeCoord(out, 3, x);
+      if (Buffer.from(out.subarray(3, end)).toString('latin1') !== coordText(x)) bad.push(x);
+    }
+    expect(bad).toEqual([]);
+    expect(() => writeCoord(out, 0, Infinity)).toThrow(/finite/);
   });
 });
 

@@ -1,7 +1,7 @@
 /**
  * Stored result layers kept in memory (src/ogc/layer-cache.ts): read from the store once and then
- * served from memory byte for byte, kept only once read whole, never when larger than the bound
- * per sent layer, and the least recently used let go past the bound overall; a layer sent whole
+ * served from memory byte for byte, read once for requests at the same time, kept only once read
+ * whole, never when larger than the bound per sent layer, and the least recently used let go past the bound overall; a layer sent whole
  * and then paged is held once, its index made from the bytes already kept.
  */
 import { afterEach, beforeEach, describe, expect, it } from 'vitest';
@@ -78,13 +78,16 @@ describe('whole layers kept in memory', () => {
   it('keeps a layer only once read whole, never one over the bound per layer, and lets the least recently sent go past the bound', async () => {
     const { store, reads } = counted(real);
     const size = Buffer.byteLength(text(0));
-    const cache = new LayerCache(2 * size + 10, size);
-    // a client gone after the first piece: nothing kept
-    for await (const p of (await cache.pieces(store, runs[0]!.id, 'points'))!) {
+    // the read is no client's: one gone after the first piece leaves the layer kept, read once
+    const gone = new LayerCache(2 * size + 10, size);
+    for await (const p of (await gone.pieces(store, runs[0]!.id, 'points'))!) {
       expect(p.length).toBeGreaterThan(0);
       break;
     }
-    expect(cache.bytes).toBe(0);
+    expect(gone.bytes).toBe(size);
+    expect((await collect(await gone.pieces(store, runs[0]!.id, 'points'))).equals(Buffer.from(text(0)))).toBe(true);
+    expect(reads()).toBe(1);
+    const cache = new LayerCache(2 * size + 10, size);
     for (const r of runs) await collect(await cache.pieces(store, r.id, 'points'));
     expect(reads()).toBe(4);
     // three layers over a bound of two: the first is let go, the last two are kept
@@ -95,6 +98,23 @@ describe('whole layers kept in memory', () => {
     expect(reads()).toBe(5);
     const small = new LayerCache(10 * size, size - 1);
     await collect(await small.pieces(store, runs[1]!.id, 'points'));
+    expect(small.bytes).toBe(0);
+  });
+
+  it('reads a layer once for requests at the same time, also one too large to keep, each getting every byte', async () => {
+    const { store, reads } = counted(real);
+    const cache = new LayerCache();
+    const asked = await Promise.all([0, 1, 2].map(() => cache.pieces(store, runs[1]!.id, 'points')));
+    const got = await Promise.all(asked.map(collect));
+    for (const g of got) expect(g.equals(Buffer.from(text(1)))).toBe(true);
+    expect(reads()).toBe(1);
+    expect(cache.bytes).toBe(got[0]!.length);
+    // too large to keep (the bound is under the first stored piece): the first request goes on
+    // from where the shared read stopped, the others read their own, and nothing is kept
+    const small = new LayerCache(1 << 20, 100);
+    const many = await Promise.all([0, 1].map(() => small.pieces(store, runs[2]!.id, 'points')));
+    for (const m of await Promise.all(many.map(collect))) expect(m.equals(Buffer.from(text(2)))).toBe(true);
+    expect(reads()).toBe(3);
     expect(small.bytes).toBe(0);
   });
 

@@ -308,6 +308,18 @@ describe('bad input is refused with a message that says what to do', () => {
     expect(() => matchRuns([spot(1, ['a'], BOX_A, 't'), spot(2, ['b'], far(0), 't')], [])).toThrow(/Track t is on two/);
     expect(() => matchRuns([], [spot(1, ['a', 'b'], BOX_A), spot(2, ['b'], far(0))])).toThrow(/Observation b is a member of new hotspots 1 and 2/);
     expect(() => matchRuns([spot(1, ['a', 'a'], BOX_A, 'tA')], [])).toThrow(/listed twice among the members of previous hotspot 1/);
+    // the previous run's members are checked while they are looked up among the new run's: an id
+    // listed twice is found whether or not the new run has it, and before a new-run duplicate
+    const a1 = spot(1, ['a', 'b'], BOX_A, 'tA');
+    const a2 = (m: string[]): RunHotspot => spot(2, m, far(0), 'tB');
+    expect(() => matchRuns([a1, a2(['c', 'b'])], [spot(1, ['a', 'b', 'c'], BOX_A)])).toThrow(/Observation b is a member of previous hotspots 1 and 2/);
+    expect(() => matchRuns([a1, a2(['c', 'b'])], [spot(1, ['z'], BOX_A)])).toThrow(/Observation b is a member of previous hotspots 1 and 2/);
+    expect(() => matchRuns([spot(3, ['a', 'q', 'a'], BOX_A, 'tA')], [spot(1, ['a'], BOX_A)])).toThrow(/Observation a is listed twice among the members of previous hotspot 3/);
+    expect(() => matchRuns([spot(3, ['a', 'q', 'q'], BOX_A, 'tA')], [spot(1, ['a'], BOX_A)])).toThrow(/Observation q is listed twice among the members of previous hotspot 3/);
+    expect(() => matchRuns([a1, a2(['b'])], [spot(1, ['a', 'a'], BOX_A)])).toThrow(/Observation b is a member of previous hotspots 1 and 2/);
+    // a new-run duplicate that the previous run lists once is the new run's error, not the previous run's
+    expect(() => matchRuns([a1, a2(['c', 'd'])], [spot(1, ['a', 'b', 'c'], BOX_A), spot(2, ['d', 'b', 'e'], far(0))])).toThrow(/Observation b is a member of new hotspots 1 and 2/);
+    expect(() => matchRuns([a1, a2(['c', 'd'])], [spot(4, ['d', 'c', 'd', 'a', 'b'], BOX_A)])).toThrow(/Observation d is listed twice among the members of new hotspot 4/);
     expect(() => matchRuns([], [{ ...spot(1, ['a'], BOX_A), hull: { type: 'Point' } as never }])).toThrow(/Polygon or MultiPolygon/);
   });
 });
