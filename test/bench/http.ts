@@ -2,7 +2,9 @@
  * HTTP load benchmark on loopback (autocannon), not a timed test:
  *  1. requests per second for POST /v1/cluster with 1,000-point bodies;
  *  2. GET /healthz latency (p50/p99/max) for the whole life of one 1,000,000-point request
- *     (upload, parse, clustering, response).
+ *     (upload, parse, clustering, response), and that request's time against the yardstick of
+ *     Node decoding and JSON.parse-ing the same bytes in this process, measured just before and
+ *     just after it (the issue's target: at most 1.5 times the yardstick).
  * Writes the figures to test/bench/http-results.md.
  *
  *   npx tsx test/bench/http.ts [--points 1000000] [--duration 10] [--connections 4] [--workers n]
@@ -92,6 +94,14 @@ function body(n: number, seed: number): Buffer {
   return Buffer.from(parts.join(''));
 }
 
+/** Seconds for Node to decode the bytes as UTF-8 and JSON.parse them: the yardstick. */
+function parseSeconds(bytes: Buffer): number {
+  const t0 = performance.now();
+  const doc = JSON.parse(bytes.toString('utf8')) as { features: unknown[] };
+  if (!doc.features.length) throw new Error('empty body');
+  return (performance.now() - t0) / 1000;
+}
+
 function post(url: string, payload: Buffer): Promise<{ status: number; bytes: number; ms: number; hotspots: number }> {
   const t0 = performance.now();
   return new Promise((resolve, reject) => {
@@ -153,11 +163,15 @@ async function main(): Promise<void> {
       if (err) throw err;
       healthDone(res);
     });
+    const before = parseSeconds(big);
     await new Promise((r) => setTimeout(r, 200));
     const bigResult = await post(`${server.url}/v1/cluster?${query}&layer=hotspots`, big);
     health.stop();
+    const after = parseSeconds(big);
+    const yardstick = (before + after) / 2;
     const h = await healthResult;
     log(`${bigN.toLocaleString('en')}-point POST /v1/cluster?layer=hotspots: status ${bigResult.status}, ${bigResult.hotspots} hotspots (${(bigResult.bytes / 1024).toFixed(0)} KiB) answered in ${(bigResult.ms / 1000).toFixed(1)} s, upload to answer`);
+    log(`yardstick, decoding + JSON.parse of the same body in this process: ${before.toFixed(2)} s before, ${after.toFixed(2)} s after; the request took ${(bigResult.ms / 1000 / yardstick).toFixed(2)}× their mean (target ≤ 1.5×)`);
     log(`GET /healthz meanwhile (1 connection, ${h.requests.total} requests): p50 ${h.latency.p50} ms, p99 ${h.latency.p99} ms, max ${h.latency.max} ms, non-2xx ${h.non2xx}`);
   } finally {
     server.child.kill('SIGTERM');

@@ -44,16 +44,27 @@ describe('server configuration', () => {
   });
 });
 
-/** Feeds chunks through the body parser as a request stream would. */
-function parse(limit: number, chunks: Buffer[], contentLength?: number): Promise<Uint8Array> {
+/** Feeds chunks through the body parser as a request stream would; `held` is the most bytes the body held at once. */
+async function parseHeld(limit: number, chunks: Buffer[], contentLength?: number): Promise<{ body: Uint8Array; held: number }> {
   const stream = new PassThrough();
   const request = { headers: contentLength === undefined ? {} : { 'content-length': String(contentLength) } } as unknown as FastifyRequest;
+  const { parser, allowance } = rawBodyParser({ limitBytes: limit, uploads: 4, uploadTimeoutMs: 60_000, retryAfterS: 1 });
   const result = new Promise<Uint8Array>((resolve, reject) => {
-    rawBodyParser({ limitBytes: limit, uploads: 4, uploadTimeoutMs: 60_000, retryAfterS: 1 }).parser(request, stream, (err, body) => (err ? reject(err) : resolve(body!)));
+    parser(request, stream, (err, body) => (err ? reject(err) : resolve(body!)));
   });
   for (const c of chunks) stream.write(c);
   stream.end();
-  return result;
+  const body = await result;
+  return { body, held: allowance.peakHeldBytes };
+}
+
+async function parse(limit: number, chunks: Buffer[], contentLength?: number): Promise<Uint8Array> {
+  return (await parseHeld(limit, chunks, contentLength)).body;
+}
+
+/** `count` chunks of `size` bytes with a pattern that shows any byte out of place. */
+function patternChunks(count: number, size: number): Buffer[] {
+  return Array.from({ length: count }, (_, k) => Buffer.from(Array.from({ length: size }, (_, i) => (k * size + i) * 31 % 251)));
 }
 
 describe('raw body collection', () => {
@@ -76,6 +87,26 @@ describe('raw body collection', () => {
   it('refuses bodies whose length disagrees with Content-Length', async () => {
     await expect(parse(1000, [a, b], 5)).rejects.toMatchObject({ code: 'bad-request' });
     await expect(parse(1000, [a], 100)).rejects.toMatchObject({ code: 'bad-request' });
+    // past an eighth of the declared length, when the declared-size buffer is already made
+    const half = patternChunks(4, 64);
+    await expect(parse(10_000, half, 512)).rejects.toMatchObject({ code: 'bad-request', message: expect.stringMatching(/shorter/) });
+    await expect(parse(10_000, [...half, ...half, a], 512)).rejects.toMatchObject({ code: 'bad-request', message: expect.stringMatching(/longer/) });
+  });
+
+  it('with Content-Length, holds a body about once (an eighth more), not twice, and yields every byte in place', async () => {
+    const chunks = patternChunks(64, 16 * 1024);
+    const whole = Buffer.concat(chunks);
+    const { body, held } = await parseHeld(8 * 1024 * 1024, chunks, whole.length);
+    expect(Buffer.from(body).equals(whole)).toBe(true);
+    expect(body.byteOffset).toBe(0);
+    expect(body.buffer.byteLength).toBe(whole.length);
+    // the declared-size buffer plus the chunks kept until an eighth had come (one chunk of slack)
+    expect(held).toBeLessThanOrEqual(whole.length + whole.length / 8 + 16 * 1024);
+    expect(held).toBeGreaterThanOrEqual(whole.length);
+    // without Content-Length the chunks are kept to the end and joined: twice
+    const unsized = await parseHeld(8 * 1024 * 1024, chunks);
+    expect(Buffer.from(unsized.body).equals(whole)).toBe(true);
+    expect(unsized.held).toBe(2 * whole.length);
   });
 
   it('allocates nothing from a declared Content-Length: a body declared huge and never sent holds no memory', async () => {
