@@ -111,7 +111,8 @@ export default function work(task: WorkTask): WorkResult {
     const trust = resolveTrustSettings(trustGiven);
     const studyArea = areaGiven === undefined || areaGiven === null ? null : readStudyArea(JSON.stringify(areaGiven));
     if (studyArea !== null && (trust.simulations === 0 || trust.nullModel !== 'csr')) throw new SettingsError('study_area', 'is where the csr null model places points; ask for null_model=csr');
-    const { result, effort } = clusterCases(body, task.format, settings, trust);
+    // one layer alone carries no summary, so the summary's Clark–Evans test is not computed for it
+    const { result, effort } = clusterCases(body, task.format, settings, trust, task.layer === null ? {} : { clarkEvans: false });
     if (trust.simulations > 0 || trust.resamples > 0) assessHere(result, settings, { settings: trust, studyArea, effort });
     if (task.layer === null) return done('application/json', resultDocument(result));
     return done('application/geo+json', result.layers[task.layer].bytes());

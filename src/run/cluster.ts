@@ -149,6 +149,12 @@ export interface ClusterHooks {
   onProgress?: (stage: Stage, done: number) => void;
   /** aborts between stages and within long loops */
   signal?: AbortSignal;
+  /**
+   * false leaves the Clark–Evans test out of the summary (it says so): its nearest-neighbour pass
+   * over every observation and the hull of all of them are most of the figures stage at a million
+   * points, and an answer that is one layer alone carries no summary. Default true.
+   */
+  clarkEvans?: boolean;
 }
 
 const round = roundDecimals;
@@ -814,7 +820,8 @@ export function clusterObservations(
 
   timer.start('figures');
   // the Clark–Evans nearest-neighbour pass (on this thread by default; beside the hulls in a worker when two threads are asked for)
-  const pendingNearest = points.n >= 3 ? startNearestNeighbours(points, index) : null;
+  const clarkEvansWanted = hooks.clarkEvans !== false;
+  const pendingNearest = points.n >= 3 && clarkEvansWanted ? startNearestNeighbours(points, index) : null;
   const { start, members } = membersByHotspot(clustering);
   const hulls: HullGeometry[] = [];
   const areaKm2 = new Float64Array(clustering.count);
@@ -855,7 +862,8 @@ export function clusterObservations(
   // Clark–Evans over the convex hull of all observations (the stated study area).
   let studyAreaKm2: number | null = null;
   let studyAreaProblem: string | undefined;
-  if (points.n >= 3) {
+  if (!clarkEvansWanted) studyAreaProblem = 'none was drawn';
+  else if (points.n >= 3) {
     try {
       studyAreaKm2 = geometryAreaKm2(hotspotHull(points.lon, points.lat, { kind: 'convex', bufferMeters: epsMeters / 2 }));
     } catch (err) {
@@ -865,6 +873,7 @@ export function clusterObservations(
   if (!studyAreaKm2) pendingNearest?.cancel();
   const nearest = pendingNearest !== null && studyAreaKm2 ? pendingNearest.collect() : undefined;
   const whole = resultFigures(points, clustering, { studyAreaKm2, studyAreaProblem, nearest, xyz: index.xyz });
+  if (!clarkEvansWanted) whole.clarkEvansNotComputed = 'it was not asked for';
   const validation = validationFigures(points, clustering, settings, settings.referenceProperty ? categoryValues(features, settings.referenceProperty) : null);
 
   timer.start('write');

@@ -114,6 +114,25 @@ describe('the Clark–Evans block', () => {
     expect(w?.message).toMatch(/^300 of 300 observations share their exact position with another one/);
     expect(w?.message).toMatch(/Over the 100 distinct positions R is/);
   });
+
+  it('is left out when not asked for (an answer of one layer alone), with every layer unchanged and the summary saying so', () => {
+    const positions: [number, number][] = [];
+    for (let r = 0; r < 10; r++) for (let c = 0; c < 10; c++) for (let k = 0; k < 2; k++) positions.push([8 + c * 0.0013, 47 + r * 0.0009]);
+    const disc = discPositions(7, 300, 8.01, 47.01, 600);
+    disc.lon.forEach((x, i) => positions.push([x, disc.lat[i]!]));
+    const input = collection(positions);
+    const settings = resolveSettings({ eps: 120, min_points: 4 });
+    const full = clusterInput(input, 'geojson', settings);
+    const lean = clusterInput(input, 'geojson', settings, { clarkEvans: false });
+    for (const layer of ['hotspots', 'centres', 'noise', 'points'] as const) expect(lean.layers[layer].text(), layer).toBe(full.layers[layer].text());
+    const a = lean.summary as Summary;
+    const b = full.summary as Summary;
+    expect(b.figures.clark_evans.computed).toBe(true);
+    expect(a.figures.clark_evans).toEqual({ computed: false, not_computed: 'it was not asked for' });
+    expect(a.warnings.find((x) => x.code === 'clark-evans-not-computed')?.message).toBe('The Clark–Evans index was not computed: it was not asked for.');
+    const rest = (s: Summary): unknown => ({ ...s, timings_ms: null, figures: { ...s.figures, clark_evans: null }, warnings: s.warnings.filter((x) => !/clark-evans|shared-positions/.test(x.code)) });
+    expect(rest(a)).toEqual(rest(b));
+  });
 });
 
 describe('OPTICS ξ hotspots', () => {
