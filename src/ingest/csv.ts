@@ -233,7 +233,7 @@ function readRecords(records: string[][], lines: RecordLines | null, delimiter: 
 }
 
 /** The column index for a position: the named one, or the first recognised header name; −1 when none. */
-function findColumn(header: string[], lower: string[], named: string | undefined, names: readonly string[]): number {
+export function findColumn(header: string[], lower: string[], named: string | undefined, names: readonly string[]): number {
   if (named !== undefined) {
     const exact = header.indexOf(named);
     return exact >= 0 ? exact : lower.indexOf(named.toLowerCase());

@@ -8,6 +8,7 @@ import { readGeoJson } from './geojson.js';
 import { readCsv } from './csv.js';
 import { readGeoJsonSeq } from './seq.js';
 import { readGeoJsonSource } from './geojson-bytes.js';
+import { readCsvSource } from './csv-bytes.js';
 import { InputFile, MemorySource } from './source.js';
 
 export type InputFormat = 'geojson' | 'csv' | 'geojson-seq';
@@ -145,6 +146,16 @@ export function readObservations(input: string | Buffer | InputFile, options: Re
     // a time format that cannot be used is reported below, after the checks that come first
     const time = source === null ? null : timeRuleOrNull(options.timeColumn, options.timeFormat);
     const fast = source === null || time === null ? null : readGeoJsonSource(source, { weightProperty, time, maxFeatures, sequence: sniffed === 'geojson-seq' }, stopped);
+    if (fast !== null) return fast;
+  }
+  // CSV as csv.ts splits it without csv-parse is read from the bytes too (src/ingest/csv-bytes.ts)
+  if (!options.storable && sniffed === 'csv') {
+    const source = input instanceof InputFile ? input : typeof input !== 'string' ? new MemorySource(input) : (input as unknown as { isWellFormed(): boolean }).isWellFormed() ? new MemorySource(Buffer.from(input, 'utf8')) : null;
+    const time = source === null ? null : timeRuleOrNull(options.timeColumn, options.timeFormat);
+    const fast =
+      source === null || time === null
+        ? null
+        : readCsvSource(source, { weightProperty, time, idProperty: options.idProperty, lonColumn: options.lonColumn, latColumn: options.latColumn, delimiter: options.csvDelimiter, maxFeatures });
     if (fast !== null) return fast;
   }
 

@@ -31,6 +31,7 @@ import { readObservations, type InputFormat } from '../ingest/read.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
 import { parseSpan, type FeatureSpans, type SpannedObservations } from '../ingest/geojson-bytes.js';
 import type { ByteWindow, InputFile } from '../ingest/source.js';
+import { csvRowNeed, writeCsvId, writeCsvMembers, type CsvObservations, type CsvRows } from '../ingest/csv-bytes.js';
 import { CAUTIONS } from './cautions.js';
 import { SettingsError, settingsRecord, type ClusterSettings } from './settings.js';
 import { ROOST_VERSION } from './version.js';
@@ -329,7 +330,7 @@ export function pointFeatureFromSpans(spans: FeatureSpans, i: number, lon: numbe
 }
 
 /** What a point layer's bytes are written from: the clustered rows and the input position of each. */
-interface PointRows {
+export interface PointRows {
   n: number;
   lon: Float64Array;
   lat: Float64Array;
@@ -421,6 +422,38 @@ function pointLayerBytes(head: string, spans: FeatureSpans, rows: PointRows, ext
   return pointLayerChunks(head, rows, noiseOnly, write, need);
 }
 
+/** Bytes of a point layer for CSV rows read by the CSV byte reader: written from the row's cells where it is marked verbatim, from the parsed row otherwise. */
+export function csvPointLayerBytes(head: string, csv: CsvRows, features: InputFeature[], rows: PointRows, extra: (i: number) => string, noiseOnly: boolean): Generator<Uint8Array> {
+  const { lon, lat, kept, labels, roles } = rows;
+  const w = csv.source.window();
+  const parsed = (i: number): string => pointFeature(features[kept[i]!]!, labels[i]!, roles[i]!, extra(i));
+  const write: PointWriter = (i, out, pos, room) => {
+    const k = kept[i]!;
+    if (csv.verbatim[k] !== 1) return writeText(parsed(i), out, pos, room);
+    const x = extra(i);
+    if (csvRowNeed(csv, k) + 256 + 3 * x.length > room) return -1;
+    const s = csv.rowStart[k]!;
+    const e = csv.rowEnd[k]!;
+    w.need(s, e);
+    const b = w.buf;
+    pos += ascii(out, pos, '{"type":"Feature"');
+    pos = writeCsvId(csv, b, s - w.base, e - w.base, out, pos);
+    pos += ascii(out, pos, ',"geometry":{"type":"Point","coordinates":[');
+    pos = writeCoord(out, pos, lon[i]!);
+    out[pos++] = 44;
+    pos = writeCoord(out, pos, lat[i]!);
+    pos += ascii(out, pos, ']},"properties":{');
+    const after = writeCsvMembers(csv, k, b, s - w.base, e - w.base, out, pos);
+    if (after > pos) {
+      pos = after;
+      out[pos++] = 44;
+    }
+    return addedMembers(labels[i]!, roles[i]!, x, out, pos);
+  };
+  const need = (i: number): number => (csv.verbatim[kept[i]!] !== 1 ? Buffer.byteLength(parsed(i), 'utf8') : csvRowNeed(csv, kept[i]!) + 256 + 3 * extra(i).length);
+  return pointLayerChunks(head, rows, noiseOnly, write, need);
+}
+
 /** Feature texts kept as UTF-8 bytes (see PackedTexts in src/storage/columns.ts). */
 export interface FeatureByteSource extends FeatureTextSource {
   /** the buffer holding text `index` as bytes from byteStart to byteEnd, or null when it is kept as a string */
@@ -455,6 +488,11 @@ function addedProperties(b: Uint8Array, ps: number, pe: number, label: number, r
     pos += copyBytes(b, out, pos, ps, pe - 1);
     out[pos++] = 44;
   }
+  return addedMembers(label, role, extra, out, pos);
+}
+
+/** Writes `"hotspot_id":…,"role":…` and `extra`, closing the properties and the feature. */
+function addedMembers(label: number, role: number, extra: string, out: Buffer, pos: number): number {
   pos += ascii(out, pos, '"hotspot_id":');
   pos += ascii(out, pos, label >= 0 ? String(label + 1) : 'null');
   pos += ascii(out, pos, ROLE_TEXT[role]!);
@@ -915,6 +953,7 @@ export function clusterObservations(
   const kept = filtered.kept;
   const extra = ordering === null ? () => '' : opticsMembers(ordering);
   const spans = (all as Partial<SpannedObservations>).spans;
+  const csvRows = (all as Partial<CsvObservations>).csvRows;
   function* pointFeatures(noiseOnly: boolean): Generator<string> {
     const w = spans?.source.window();
     for (let i = 0; i < points.n; i++) {
@@ -928,6 +967,7 @@ export function clusterObservations(
   const byteTexts = featureTexts !== undefined && typeof (featureTexts as Partial<FeatureByteSource>).bytesOf === 'function' ? (featureTexts as FeatureByteSource) : undefined;
   const pointBytes = (bbox: ArrayLike<number> | null, noiseOnly: boolean): (() => Iterable<Uint8Array>) | undefined => {
     if (spans !== undefined) return () => pointLayerBytes(collectionHeadText(bbox), spans, rows, extra, noiseOnly);
+    if (csvRows !== undefined) return () => csvPointLayerBytes(collectionHeadText(bbox), csvRows, all.features, rows, extra, noiseOnly);
     if (byteTexts !== undefined) return () => storedPointLayerBytes(collectionHeadText(bbox), byteTexts, rows, extra, noiseOnly);
     return undefined;
   };
