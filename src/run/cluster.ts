@@ -919,7 +919,7 @@ export function clusterObservations(
   } else studyAreaProblem = 'fewer than 3 observations outline no area';
   if (!studyAreaKm2) pendingNearest?.cancel();
   const nearest = pendingNearest !== null && studyAreaKm2 ? pendingNearest.collect() : undefined;
-  const whole = resultFigures(points, clustering, { studyAreaKm2, studyAreaProblem, nearest });
+  const whole = resultFigures(points, clustering, { studyAreaKm2, studyAreaProblem, nearest, xyz: index.xyz });
   const validation = validationFigures(points, clustering, settings, settings.referenceProperty ? categoryValues(features, settings.referenceProperty) : null);
 
   timer.start('write');
