@@ -92,6 +92,18 @@ class SeedHeap {
     this.up(this.size - 1);
   }
 
+  /**
+   * Position `from`, with its key and id, now lives at position `to` (whose old holder is not in
+   * the heap): its heap entry follows it; nothing moves in the heap order.
+   */
+  moved(from: number, to: number): void {
+    const s = this.slot[from];
+    if (s < 0) return;
+    this.heap[s] = to;
+    this.slot[to] = s;
+    this.slot[from] = -1;
+  }
+
   /** Restores heap order after the key of position k went down. */
   decreased(k: number): void {
     this.up(this.slot[k]);
@@ -185,6 +197,14 @@ const SMALL_K = 32;
  */
 const BOX_SLACK = 1e-12;
 
+/** The smallest double above a positive finite v. */
+function nextUp(v: number): number {
+  const f = new Float64Array([v]);
+  const bits = new BigInt64Array(f.buffer);
+  bits[0] += 1n;
+  return f[0];
+}
+
 function checkMinPoints(minPoints: number): void {
   if (!Number.isFinite(minPoints) || minPoints < 1) {
     throw new RangeError(`minPoints must be a number ≥ 1 (the point itself counts), got ${minPoints}`);
@@ -227,53 +247,104 @@ function boxDistance2(index: SphereIndex, d: number, x: number, y: number, z: nu
 }
 
 /**
- * Each cell's unit vectors again, ordered by x inside the cell (cells in the index's order): a
- * search for near points can then run outward from a given x and stop where the x gap alone
- * exceeds what it looks for.
+ * Orders each cell's positions by x, in place: the index's `sorted` and `sxyz` are permuted
+ * inside every cell (cells keep their runs), so that a search for near points can run outward
+ * from a given x and stop where the x gap alone exceeds what it looks for. Only for an index
+ * private to one OPTICS run: "ascending id within a cell" no longer holds afterwards, and
+ * nothing in the run depends on it (ties are broken by point id, not by position).
  */
-interface XOrdered {
-  ox: Float64Array;
-  oy: Float64Array;
-  oz: Float64Array;
-}
-
-function xOrdered(index: SphereIndex): XOrdered {
-  const { sxyz, cellStart, cellCount, n } = index;
-  const ox = new Float64Array(n), oy = new Float64Array(n), oz = new Float64Array(n);
+function orderCellsByX(index: SphereIndex): void {
+  const { sxyz, sorted, cellStart, cellCount } = index;
   let local = new Int32Array(64);
+  let kx = new Float64Array(64);
+  let ids = new Int32Array(64);
+  let vec = new Float64Array(3 * 64);
+  let count = new Int32Array(65);
   for (let c = 0; c < cellCount; c++) {
     const q0 = cellStart[c], m = cellStart[c + 1] - q0;
-    if (m > local.length) local = new Int32Array(m);
-    // the cell's positions by x: insertion sort for the few points most cells hold
-    if (m > 32) {
-      for (let j = 0; j < m; j++) local[j] = j;
-      local.subarray(0, m).sort((i, j) => sxyz[3 * (q0 + i)] - sxyz[3 * (q0 + j)]);
-    } else {
-      for (let j = 0; j < m; j++) {
-        const v = sxyz[3 * (q0 + j)];
-        let s = j;
-        while (s > 0 && sxyz[3 * (q0 + local[s - 1])] > v) {
-          local[s] = local[s - 1];
-          s--;
-        }
-        local[s] = j;
-      }
+    if (m < 2) continue;
+    if (m > local.length) {
+      local = new Int32Array(m);
+      kx = new Float64Array(m);
+      ids = new Int32Array(m);
+      vec = new Float64Array(3 * m);
+      count = new Int32Array(m + 1);
     }
+    if (!byX(sxyz, q0, m, local, kx, count)) continue;
+    for (let j = 0; j < m; j++) ids[j] = sorted[q0 + j];
+    vec.set(sxyz.subarray(3 * q0, 3 * (q0 + m)));
     for (let j = 0; j < m; j++) {
-      const q = q0 + local[j];
-      ox[q0 + j] = sxyz[3 * q];
-      oy[q0 + j] = sxyz[3 * q + 1];
-      oz[q0 + j] = sxyz[3 * q + 2];
+      const q = q0 + j, from = local[j];
+      sorted[q] = ids[from];
+      sxyz[3 * q] = vec[3 * from];
+      sxyz[3 * q + 1] = vec[3 * from + 1];
+      sxyz[3 * q + 2] = vec[3 * from + 2];
     }
   }
-  return { ox, oy, oz };
 }
 
-/** First slot in [lo, hi) of the x-ordered cell whose x is ≥ x. */
-function firstAtLeast(ox: Float64Array, lo: number, hi: number, x: number): number {
+/**
+ * The order by x of the m ≥ 2 vectors at positions q0.. of sxyz: local[t] = the cell-local index
+ * of the t-th smallest. Returns false when they are in that order already (local is then not
+ * filled). Few points: insertion sort. More: distributed by x into m equal buckets (a stable
+ * counting pass), then an insertion sort that only fixes the order inside each bucket; when one
+ * bucket holds many points (x bunched together), a comparison sort instead.
+ */
+function byX(sxyz: Float64Array, q0: number, m: number, local: Int32Array, kx: Float64Array, count: Int32Array): boolean {
+  let ordered = true;
+  let lo = sxyz[3 * q0], hi = lo;
+  for (let j = 1; j < m; j++) {
+    const v = sxyz[3 * (q0 + j)];
+    if (v < sxyz[3 * (q0 + j - 1)]) ordered = false;
+    if (v < lo) lo = v;
+    if (v > hi) hi = v;
+  }
+  if (ordered) return false;
+  if (m > 32) {
+    const scale = m / (hi - lo);
+    count.fill(0, 0, m + 1);
+    let crowded = false;
+    for (let j = 0; j < m; j++) {
+      const b = Math.min(m - 1, Math.floor((sxyz[3 * (q0 + j)] - lo) * scale));
+      if (++count[b + 1] > 32) crowded = true;
+    }
+    if (crowded) {
+      for (let j = 0; j < m; j++) local[j] = j;
+      local.subarray(0, m).sort((i, j) => sxyz[3 * (q0 + i)] - sxyz[3 * (q0 + j)]);
+      return true;
+    }
+    for (let b = 0; b < m; b++) count[b + 1] += count[b];
+    for (let j = 0; j < m; j++) {
+      const v = sxyz[3 * (q0 + j)];
+      const t = count[Math.min(m - 1, Math.floor((v - lo) * scale))]++;
+      local[t] = j;
+      kx[t] = v;
+    }
+  } else {
+    for (let j = 0; j < m; j++) {
+      local[j] = j;
+      kx[j] = sxyz[3 * (q0 + j)];
+    }
+  }
+  for (let j = 1; j < m; j++) {
+    const v = kx[j], l = local[j];
+    let s = j;
+    while (s > 0 && kx[s - 1] > v) {
+      kx[s] = kx[s - 1];
+      local[s] = local[s - 1];
+      s--;
+    }
+    kx[s] = v;
+    local[s] = l;
+  }
+  return true;
+}
+
+/** First position in [lo, hi) of an x-ordered cell whose x is ≥ x. */
+function firstAtLeast(sxyz: Float64Array, lo: number, hi: number, x: number): number {
   while (lo < hi) {
     const mid = (lo + hi) >>> 1;
-    if (ox[mid] < x) lo = mid + 1;
+    if (sxyz[3 * mid] < x) lo = mid + 1;
     else hi = mid;
   }
   return lo;
@@ -290,7 +361,6 @@ function firstAtLeast(ox: Float64Array, lo: number, hi: number, x: number): numb
  */
 function smallCoreDistances(index: SphereIndex, k: number): Float64Array {
   const { sxyz, cellStart, nbrStart, nbr, chord2: r2, cellCount } = index;
-  const { ox, oy, oz } = xOrdered(index);
   const out = new Float64Array(index.n).fill(Infinity);
   const top = new SmallestK(k);
   for (let c = 0; c < cellCount; c++) {
@@ -303,18 +373,19 @@ function smallCoreDistances(index: SphereIndex, k: number): Float64Array {
         const d = a < nbrStart[c] ? c : nbr[a];
         if (a >= nbrStart[c] && (d === c || (kth < Infinity && boxDistance2(index, d, x, y, z) > kth))) continue;
         const lo = cellStart[d], hi = cellStart[d + 1];
-        const mid = firstAtLeast(ox, lo, hi, x);
+        // in its own cell, p itself splits the x order
+        const mid = d === c ? p : firstAtLeast(sxyz, lo, hi, x);
         for (let q = mid; q < hi; q++) {
-          const dx = ox[q] - x;
+          const dx = sxyz[3 * q] - x;
           if (dx * dx > (kth < r2 ? kth : r2)) break;
-          const dy = oy[q] - y, dz = oz[q] - z;
+          const dy = sxyz[3 * q + 1] - y, dz = sxyz[3 * q + 2] - z;
           const d2 = dx * dx + dy * dy + dz * dz;
           if (d2 <= r2 && d2 < kth) kth = top.add(d2);
         }
         for (let q = mid - 1; q >= lo; q--) {
-          const dx = ox[q] - x;
+          const dx = sxyz[3 * q] - x;
           if (dx * dx > (kth < r2 ? kth : r2)) break;
-          const dy = oy[q] - y, dz = oz[q] - z;
+          const dy = sxyz[3 * q + 1] - y, dz = sxyz[3 * q + 2] - z;
           const d2 = dx * dx + dy * dy + dz * dz;
           if (d2 <= r2 && d2 < kth) kth = top.add(d2);
         }
@@ -405,9 +476,12 @@ function coreDistances(index: SphereIndex, points: PointSet, minPoints: number):
  * The next start point after the seed list empties is the lowest unprocessed point id.
  *
  * Core distances do not depend on the ordering, so they are found first, in one pass in the
- * index's cell order. The walk then runs in index positions (points sorted by grid cell, where
- * a neighbourhood sits close together in memory), reads only the neighbourhoods of core points
- * and skips the points already ordered; the results are put back in point-id order at the end.
+ * index's cell order (each cell's points ordered by x). The walk then runs in index positions
+ * (points sorted by grid cell, where a neighbourhood sits close together in memory) and reads
+ * only the neighbourhoods of core points; each cell keeps its unordered points at its front, so
+ * the points already ordered are never read again. The results are put back in point-id order at
+ * the end. None of this changes the result: which points a core point reaches, and how near, does
+ * not depend on the order they are read in, and the seed list's order is by (reachability, id).
  *
  * @param points observations (degrees, optional weights)
  * @param options maxEpsMeters: generating radius in metres (> 0); minPoints: core threshold (≥ 1,
@@ -433,28 +507,66 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
   if (n === 0) return result;
 
   const index = new SphereIndex(points, maxEpsMeters);
-  const { sorted, sxyz, cellStart, nbrStart, nbr, chord2: r2, cellOf } = index;
+  orderCellsByX(index);
+  const { sorted, sxyz, cellStart, nbrStart, nbr, chord2: r2, cellCount } = index;
   // per position: reach and core hold squared chords on the unit sphere until the end of the
   // run (chord length orders pairs exactly as ground distance does, and max() commutes with the
   // conversion); pred holds the point id reached from
   const core = coreDistances(index, points, minPoints);
   const reach = new Float64Array(n).fill(Infinity);
   const pred = new Int32Array(n).fill(-1);
-  const processed = new Uint8Array(n);
-  // points of each cell not yet ordered: a neighbour cell at 0 holds nothing to offer and is skipped whole
-  const left = new Int32Array(index.cellCount);
-  for (let c = 0; c < index.cellCount; c++) left[c] = cellStart[c + 1] - cellStart[c];
+  // the unordered points of cell c are the positions cellStart[c] .. cellStart[c] + left[c] − 1:
+  // a point, once ordered, swaps places with the cell's last unordered one, so scans read only
+  // unordered points (and a cell at 0 is skipped whole). The cells' x order is used up by then:
+  // only the core distances need it.
+  const left = new Int32Array(cellCount);
+  for (let c = 0; c < cellCount; c++) left[c] = cellStart[c + 1] - cellStart[c];
+  // cell of each position (swaps stay inside a cell), read where the point sits rather than by its id
+  const cellAt = new Int32Array(n);
+  for (let c = 0; c < cellCount; c++) cellAt.fill(c, cellStart[c], cellStart[c + 1]);
+  // r ≤ r2 exactly when r < reachLimit, the next double above r2
+  const reachLimit = nextUp(r2);
+  // current position of each unordered point id, −1 once ordered
+  const posOf = new Int32Array(n);
+  for (let k = 0; k < n; k++) posOf[sorted[k]] = k;
   const seeds = new SeedHeap(n, reach, sorted);
 
   let done = 0;
   const step = Math.max(1, Math.floor(n / 100));
 
-  /** Appends position k to the ordering and, when its point is core, offers its unordered neighbours to the seed list. */
-  const processPosition = (k: number): void => {
-    processed[k] = 1;
-    const p = sorted[k];
-    const c = cellOf[p];
-    left[c]--;
+  /** Appends the unordered point at position k0 to the ordering and, when it is core, offers its unordered neighbours to the seed list. */
+  const processPosition = (k0: number): void => {
+    const p = sorted[k0];
+    const c = cellAt[k0];
+    // k: the point's place from now on, the last of its cell's unordered run, which then shrinks
+    const k = cellStart[c] + --left[c];
+    if (k0 !== k) {
+      const q = sorted[k];
+      sorted[k0] = q;
+      sorted[k] = p;
+      posOf[q] = k0;
+      let t = sxyz[3 * k0];
+      sxyz[3 * k0] = sxyz[3 * k];
+      sxyz[3 * k] = t;
+      t = sxyz[3 * k0 + 1];
+      sxyz[3 * k0 + 1] = sxyz[3 * k + 1];
+      sxyz[3 * k + 1] = t;
+      t = sxyz[3 * k0 + 2];
+      sxyz[3 * k0 + 2] = sxyz[3 * k + 2];
+      sxyz[3 * k + 2] = t;
+      t = core[k0];
+      core[k0] = core[k];
+      core[k] = t;
+      t = reach[k0];
+      reach[k0] = reach[k];
+      reach[k] = t;
+      const u = pred[k0];
+      pred[k0] = pred[k];
+      pred[k] = u;
+      // k0 is out of the heap (popped, or a start point); the point from k may be in it
+      seeds.moved(k, k0);
+    }
+    posOf[p] = -1;
     order[done++] = p;
     if (onProgress && done % step === 0) onProgress(done / n);
     const cd = core[k];
@@ -462,17 +574,15 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
     const x = sxyz[3 * k], y = sxyz[3 * k + 1], z = sxyz[3 * k + 2];
     for (let a = nbrStart[c], aEnd = nbrStart[c + 1]; a < aEnd; a++) {
       const d = nbr[a];
-      if (left[d] === 0) continue;
-      for (let o = cellStart[d], oEnd = cellStart[d + 1]; o < oEnd; o++) {
-        if (processed[o]) continue;
+      for (let o = cellStart[d], oEnd = o + left[d]; o < oEnd; o++) {
         const dx = sxyz[3 * o] - x, dy = sxyz[3 * o + 1] - y, dz = sxyz[3 * o + 2] - z;
-        const d = dx * dx + dy * dy + dz * dz;
-        if (d > r2) continue;
-        const r = d > cd ? d : cd;
-        // strictly smaller only: on equal reachability the earlier predecessor stays. An
-        // unprocessed point is in the seed list exactly when its reachability is finite.
+        const d2 = dx * dx + dy * dy + dz * dz;
+        // reachability from p; within the radius exactly when r < reachLimit, as cd ≤ r2 here
+        const r = d2 > cd ? d2 : cd;
         const before = reach[o];
-        if (r < before) {
+        // strictly smaller only: on equal reachability the earlier predecessor stays. An
+        // unordered point is in the seed list exactly when its reachability is finite.
+        if (r < (before < reachLimit ? before : reachLimit)) {
           reach[o] = r;
           pred[o] = p;
           if (before === Infinity) seeds.push(o);
@@ -482,11 +592,9 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
     }
   };
 
-  const posOf = new Int32Array(n);
-  for (let k = 0; k < n; k++) posOf[sorted[k]] = k;
   for (let start = 0; start < n; start++) {
     const k = posOf[start];
-    if (processed[k]) continue;
+    if (k < 0) continue;
     processPosition(k);
     while (seeds.size > 0) processPosition(seeds.pop());
   }

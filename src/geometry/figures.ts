@@ -9,7 +9,7 @@
 import { haversineMeters, toRadians } from '../core/haversine.js';
 import { ROLE_BORDER, ROLE_CORE, type Clustering, type PointSet } from '../core/types.js';
 import { meanFromSums } from './centre.js';
-import { clarkEvans, distinctPositions, nearestNeighbourMeters, type ClarkEvans } from './clark-evans.js';
+import { clarkEvans, distinctIndices, distinctNearestMeters, nearestNeighbourMeters, type ClarkEvans } from './clark-evans.js';
 
 /** Figures of one hotspot. */
 export interface HotspotFigures {
@@ -235,6 +235,17 @@ export interface ResultFigures {
   clarkEvansDistinct: ClarkEvans | null;
 }
 
+/** The observations at the given input positions, without weights. */
+function positionsAt(points: PointSet, at: Int32Array): PointSet {
+  const lon = new Float64Array(at.length);
+  const lat = new Float64Array(at.length);
+  for (let k = 0; k < at.length; k++) {
+    lon[k] = points.lon[at[k]];
+    lat[k] = points.lat[at[k]];
+  }
+  return { n: at.length, lon, lat, weight: null };
+}
+
 /**
  * Figures of a whole result. The Clark–Evans test looks at all observations, noise included:
  * it asks whether the observations as a whole are more clustered than chance in the study area.
@@ -247,12 +258,14 @@ export interface ResultFigures {
  * @param options.studyAreaProblem why there is no study area (reported when studyAreaKm2 is null)
  * @param options.nearest nearest-neighbour distance per observation, metres, when already computed;
  *   computed with `nearestNeighbourMeters` otherwise
+ * @param options.xyz the observations' unit vectors when already computed (a SphereIndex's), for
+ *   the distances over distinct positions
  * @throws RangeError when array lengths disagree or the study area is not positive
  */
 export function resultFigures(
   points: PointSet,
   clustering: Clustering,
-  options: { studyAreaKm2: number | null; studyAreaProblem?: string; nearest?: Float64Array },
+  options: { studyAreaKm2: number | null; studyAreaProblem?: string; nearest?: Float64Array; xyz?: Float64Array },
 ): ResultFigures {
   const n = points.n;
   const labels = clustering.labels;
@@ -277,10 +290,14 @@ export function resultFigures(
     ce = clarkEvans(nearest, options.studyAreaKm2);
     for (let i = 0; i < n; i++) if (nearest[i] === 0) shared++;
     if (shared > 0) {
-      const d = distinctPositions(points);
-      if (d !== 'same') {
-        distinct = d.n;
-        if (d.n >= 2) ceDistinct = clarkEvans(nearestNeighbourMeters(d), options.studyAreaKm2);
+      const keep = distinctIndices(points);
+      if (keep.length < n) {
+        distinct = keep.length;
+        if (keep.length >= 2) {
+          // mostly the distances already found; a whole search of the distinct positions only when many share one
+          const nearestDistinct = distinctNearestMeters(points, nearest, keep, options.xyz) ?? nearestNeighbourMeters(positionsAt(points, keep));
+          ceDistinct = clarkEvans(nearestDistinct, options.studyAreaKm2);
+        }
       }
     }
   }

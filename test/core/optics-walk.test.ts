@@ -1,14 +1,15 @@
 /**
  * The OPTICS walk in index positions (src/core/optics.ts: core distances first, from the k
  * smallest kept while reading each cell outward from the point's x and skipping cells that cannot
- * hold a nearer point; then the seed heap over positions, reading only unordered neighbours) gives
+ * hold a nearer point; then the seed heap over positions, reading only unordered neighbours, kept
+ * at the front of their cells by swapping each ordered point to the back) gives
  * exactly the result of the plain indexed OPTICS in test/reference/optics-plain.ts (point ids,
  * id-keyed heap, quickselect), which in turn equals the textbook OPTICS in optics.test.ts: same
  * ordering, same reachability and core distances to the last bit, same predecessors.
  *
  * Seeded sets with exact ties (stacked duplicates, where many neighbours share one reachability
- * equal to the core distance, and cells of more than 32 points, ordered by x with a comparison
- * sort), points at the North Pole and across ±180°, weights, fractional and large minPoints
+ * equal to the core distance, and cells of more than 32 points, ordered by x through buckets or,
+ * where x is bunched, a comparison sort), points at the North Pole and across ±180°, weights, fractional and large minPoints
  * (above the sorted-run limit, where quickselect takes over).
  * Seed: ROOST_SEED (printed).
  */

@@ -2,7 +2,8 @@ import { describe, expect, it } from 'vitest';
 import { EARTH_RADIUS_M, haversineMeters } from '../../src/core/haversine.js';
 import { SphereIndex } from '../../src/core/sphere-index.js';
 import { pointSet, type PointSet } from '../../src/core/types.js';
-import { clarkEvans, nearestNeighbourMeters } from '../../src/geometry/clark-evans.js';
+import { unitVectors } from '../../src/core/haversine.js';
+import { clarkEvans, distinctIndices, distinctNearestMeters, distinctPositions, nearestNeighbourMeters } from '../../src/geometry/clark-evans.js';
 import {
   antimeridianSet,
   destination,
@@ -206,5 +207,98 @@ describe('clarkEvans', () => {
     expect(() => clarkEvans(Float64Array.of(3, 4), 0)).toThrow(/positive number of km²/);
     expect(() => clarkEvans(Float64Array.of(3, 4), Number.NaN)).toThrow(/positive number of km²/);
     expect(() => clarkEvans(Float64Array.of(3, Infinity), 1)).toThrow(/distance 1 is Infinity/);
+  });
+});
+
+/** Reference for distinctPositions: the first observation of every `${lon},${lat}` text, input order. */
+function distinctByText(p: PointSet): number[] {
+  const seen = new Set<string>();
+  const keep: number[] = [];
+  for (let i = 0; i < p.n; i++) {
+    const key = `${p.lon[i]},${p.lat[i]}`;
+    if (seen.has(key)) continue;
+    seen.add(key);
+    keep.push(i);
+  }
+  return keep;
+}
+
+/**
+ * Seeded sets whose positions repeat: a few places observed many times, −0 beside 0, the poles
+ * (every longitude one place on the ground, but distinct positions as written), ±180°, and
+ * positions that differ only in the last bit.
+ */
+function sharedSet(seed: number, n: number): PointSet {
+  const r = rng(seed);
+  const lon: number[] = [];
+  const lat: number[] = [];
+  const places: [number, number][] = [
+    [0, 0],
+    [-0, 0],
+    [0, -0],
+    [180, 10],
+    [-180, 10],
+    [12.5, 90],
+    [-40, 90],
+    [7, -90],
+    [1 + Number.EPSILON, 45],
+    [1, 45],
+  ];
+  for (let k = 0; k < 20; k++) places.push([r.next() * 2 - 1, r.next() * 2 - 1]);
+  for (let i = 0; i < n; i++) {
+    const u = r.next();
+    if (u < 0.4) {
+      const [x, y] = places[Math.floor(r.next() * places.length)]!;
+      lon.push(x);
+      lat.push(y);
+    } else if (u < 0.6 && lon.length > 0) {
+      const j = Math.floor(r.next() * lon.length);
+      lon.push(lon[j]!);
+      lat.push(lat[j]!);
+    } else {
+      lon.push(r.next() * 4 - 2);
+      lat.push(r.next() * 4 - 2);
+    }
+  }
+  return pointSet(lon, lat);
+}
+
+describe('distinct positions', () => {
+  it('keeps the first observation of every position written the same, as a set of texts would, on seeded sets', () => {
+    for (const seed of [21, 22, 23, 24]) {
+      for (const n of [0, 1, 2, 7, 300, 5000]) {
+        const p = sharedSet(seed, n);
+        const want = distinctByText(p);
+        expect(Array.from(distinctIndices(p)), `seed ${seed}, n ${n}`).toEqual(want);
+        const d = distinctPositions(p);
+        if (want.length === p.n) expect(d).toBe('same');
+        else {
+          expect(d).not.toBe('same');
+          const got = d as PointSet;
+          expect(Array.from(got.lon)).toEqual(want.map((i) => p.lon[i]));
+          expect(Array.from(got.lat)).toEqual(want.map((i) => p.lat[i]));
+        }
+      }
+    }
+  });
+
+  it('derives the distances over distinct positions bit for bit as a search of them gives, scanning or not', () => {
+    for (const seed of [31, 32, 33]) {
+      for (const n of [2, 9, 400, 3000]) {
+        const p = sharedSet(seed, n);
+        const keep = distinctIndices(p);
+        if (keep.length < 2) continue;
+        const want = nearestNeighbourMeters(distinctPositions(p) === 'same' ? p : (distinctPositions(p) as PointSet));
+        const nearest = nearestNeighbourMeters(p);
+        const got = distinctNearestMeters(p, nearest, keep);
+        expect(got, `seed ${seed}, n ${n}`).not.toBeNull();
+        // the same doubles: Clark–Evans sums them in the same order
+        expect(Array.from(got!), `seed ${seed}, n ${n}`).toEqual(Array.from(want));
+        expect(Array.from(distinctNearestMeters(p, nearest, keep, unitVectors(p.lon, p.lat))!)).toEqual(Array.from(want));
+      }
+    }
+    // too many scans: left to a whole search
+    const p = sharedSet(34, 3000);
+    expect(distinctNearestMeters(p, nearestNeighbourMeters(p), distinctIndices(p), undefined, 1000)).toBeNull();
   });
 });
