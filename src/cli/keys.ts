@@ -5,7 +5,6 @@
  * Every change is written to the audit records as done by the command line.
  */
 import { Command, Option } from 'commander';
-import { checkKeyRequest, issueKey, keyJson, KeyRequestError } from '../auth/keys.js';
 import { ROLES } from '../auth/roles.js';
 import { DEFAULT_CONFIG } from '../http/config.js';
 import { DEFAULT_SQLITE_PATH } from '../storage/defaults.js';
@@ -22,8 +21,9 @@ export interface KeysIo {
 type Action = (store: Store) => Promise<number>;
 
 async function withStore(db: string | undefined, env: Record<string, string | undefined>, io: KeysIo, action: Action): Promise<number> {
-  // the storage drivers are loaded only by this command, not by every start of the command line
+  // the storage drivers and the key functions (node:crypto) are loaded only by this command, not by every start of the command line
   const { isPostgresUrl, openStore } = await import('../storage/index.js');
+  const { KeyRequestError } = await import('../auth/keys.js');
   const databaseUrl = env.DATABASE_URL ?? null;
   if (databaseUrl !== null && databaseUrl !== '' && !isPostgresUrl(databaseUrl)) {
     io.err('roost keys: DATABASE_URL must start with postgres:// or postgresql://\n');
@@ -71,6 +71,7 @@ export function keysCommand(
     .action(async (opts: { role: string; dataset?: string; label?: string; json?: boolean; db?: string }) => {
       setExit(
         await withStore(opts.db, env, io, async (store) => {
+          const { checkKeyRequest, issueKey } = await import('../auth/keys.js');
           const request = checkKeyRequest({ role: opts.role, dataset: opts.dataset, label: opts.label });
           const { key, token } = await issueKey(store, request);
           await store.appendAudit({ keyId: null, actor: 'command', action: 'roost keys create', datasetId: key.datasetId, target: key.id, status: 0 });
@@ -93,6 +94,7 @@ export function keysCommand(
     .action(async (opts: { json?: boolean; db?: string }) => {
       setExit(
         await withStore(opts.db, env, io, async (store) => {
+          const { keyJson } = await import('../auth/keys.js');
           const all = await store.listKeys();
           if (opts.json) io.out(JSON.stringify(all.map(keyJson)) + '\n');
           else {

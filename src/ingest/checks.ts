@@ -193,6 +193,72 @@ export function parseTimestamp(s: string, dateOnly = false): number {
   return day + ((h * 60 + mi - offsetMin) * 60 + sec) * 1000 + ms;
 }
 
+/** Digits of bytes [at, at + count) of b below `end` as a number; −1 when one is not a digit (NaN past `end`, as charCodeAt past a string's end). */
+function byteDigits(b: Uint8Array, end: number, at: number, count: number): number {
+  let v = 0;
+  for (let k = 0; k < count; k++) {
+    const c = (at + k < end ? b[at + k]! : NaN) - 48;
+    if (c < 0 || c > 9) return -1;
+    v = v * 10 + c;
+  }
+  return v;
+}
+
+/**
+ * parseTimestamp of the text of bytes [s, e) of `b`, without making a string: the same steps on
+ * the bytes, which are the text's UTF-16 units where it is ASCII. Returns NaN for anything it
+ * does not read, non-ASCII text included; the caller then reads the text with parseTimestamp,
+ * so a value returned here is always the one parseTimestamp gives.
+ */
+export function parseTimestampBytes(b: Uint8Array, s: number, e: number): number {
+  const n = e - s;
+  const at = (k: number): number => (k < n ? b[s + k]! : NaN);
+  if (n < 20) return NaN;
+  const y = byteDigits(b, e, s, 4);
+  const mo = byteDigits(b, e, s + 5, 2);
+  const d = byteDigits(b, e, s + 8, 2);
+  if (y < 0 || mo < 1 || mo > 12 || d < 1 || at(4) !== 45 || at(7) !== 45) return NaN;
+  if (d > daysInMonth(y, mo)) return NaN;
+  const day = daysFromCivil(y, mo, d) * 86_400_000;
+  const t = at(10);
+  if (t !== 84 && t !== 116 && t !== 32) return NaN;
+  const h = byteDigits(b, e, s + 11, 2);
+  const mi = byteDigits(b, e, s + 14, 2);
+  const sec = byteDigits(b, e, s + 17, 2);
+  if (h < 0 || h > 23 || mi < 0 || mi > 59 || sec < 0 || sec > 60) return NaN;
+  if (at(13) !== 58 || at(16) !== 58) return NaN;
+  let i = 19;
+  let ms = 0;
+  if (at(i) === 46) {
+    i++;
+    const start = i;
+    let scale = 100;
+    for (; i < n; i++) {
+      const c = at(i) - 48;
+      if (c < 0 || c > 9) break;
+      ms += c * scale;
+      scale /= 10;
+    }
+    if (i === start) return NaN;
+    ms = Math.floor(ms);
+  }
+  let offsetMin = 0;
+  const z = at(i);
+  if (z === 90 || z === 122) {
+    i++;
+  } else if (z === 43 || z === 45) {
+    const oh = byteDigits(b, e, s + i + 1, 2);
+    const om = byteDigits(b, e, s + i + 4, 2);
+    if (oh < 0 || oh > 23 || om < 0 || om > 59 || at(i + 3) !== 58) return NaN;
+    offsetMin = (z === 45 ? -1 : 1) * (oh * 60 + om);
+    i += 6;
+  } else {
+    return NaN;
+  }
+  if (i !== n) return NaN;
+  return day + ((h * 60 + mi - offsetMin) * 60 + sec) * 1000 + ms;
+}
+
 /** The message for a time value that is neither RFC 3339 nor in the rule's format. */
 export function timeMessage(where: string, v: unknown, rule: TimeRule = DEFAULT_TIME_RULE): string {
   if (rule.format !== null) {

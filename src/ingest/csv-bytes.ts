@@ -16,7 +16,7 @@
  */
 import { isUtf8 } from 'node:buffer';
 import type { InputFeature, Observations } from './types.js';
-import { TIME_PROPERTY, parseDecimal, rangeProblem, readTime, type TimeRule } from './checks.js';
+import { TIME_PROPERTY, parseDecimal, parseTimestampBytes, rangeProblem, readTime, type TimeRule } from './checks.js';
 import { LATITUDE_HEADERS, LONGITUDE_HEADERS, findColumn, sniffDelimiter } from './csv.js';
 import { MAX_ID_CHARS, MAX_KEY_CHARS, MAX_STRING_CHARS, textFault } from './limits.js';
 import { InputFile, MemorySource, type ByteSource, type ByteWindow } from './source.js';
@@ -358,7 +358,10 @@ function scan(source: MemorySource | InputFile, options: CsvByteOptions): CsvObs
     if (timeCol >= 0) {
       const s = cells[timeCol]!;
       const te = cells[timeCol + 1]! - 1;
-      if (te > s) {
+      // RFC 3339 read from the bytes where it reads there; otherwise as the parsing reader does
+      if (time.format === null && te - s >= 20) t = parseTimestampBytes(buf, s, te);
+      if (t === t) timed++;
+      else if (te > s) {
         const text = utf8Slice.call(buf, s, te).trim();
         if (text !== '') {
           t = readTime(text, time);

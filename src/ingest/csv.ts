@@ -16,11 +16,22 @@
  * - `observed_at` (any case) is read like the GeoJSON property; an empty cell means no time.
  * - Blank lines are skipped. Problems name the 0-based data row and its line in the file.
  */
-import { parse } from 'csv-parse/sync';
+import { createRequire } from 'node:module';
+import type { Options as CsvOptionsOfParser } from 'csv-parse/sync';
 import type { InputFeature, Observations } from './types.js';
 import { DEFAULT_TIME_RULE, ProblemList, TIME_PROPERTY, fail, parseDecimal, rangeProblem, readTime, timeMessage, weightMessage, type TimeRule } from './checks.js';
 import { propertyListMessage } from './geojson.js';
 import { contentProblem } from './limits.js';
+
+/**
+ * csv-parse's synchronous parser, loaded when first needed: text without quotes, carriage returns
+ * or a byte-order mark never needs it, and a command that reads no such CSV is spared loading it.
+ */
+let csvParse: ((text: string, options: CsvOptionsOfParser) => unknown) | null = null;
+function parse(text: string, options: CsvOptionsOfParser): unknown {
+  csvParse ??= (createRequire(import.meta.url)('csv-parse/sync') as { parse: (text: string, options: CsvOptionsOfParser) => unknown }).parse;
+  return csvParse(text, options);
+}
 
 /** What readRecords returns when a problem with the header makes the rows meaningless. */
 const EMPTY: Observations = { points: { n: 0, lon: new Float64Array(0), lat: new Float64Array(0), weight: null }, features: [], observedAt: null };

@@ -20,7 +20,7 @@
  */
 import type { InputFeature, Observations } from './types.js';
 import { MAX_DEPTH, MAX_ID_CHARS, MAX_KEY_CHARS, MAX_STRING_CHARS } from './limits.js';
-import { TIME_PROPERTY, readTime, type TimeRule } from './checks.js';
+import { TIME_PROPERTY, parseTimestampBytes, readTime, type TimeRule } from './checks.js';
 import { MemorySource, type ByteSource, type ByteWindow, type InputFile } from './source.js';
 
 /** Where each feature lies in the input bytes; the spans of an absent member are empty (start = end = 0). */
@@ -965,6 +965,11 @@ function timeOf(s: number, e: number, time: TimeRule): number {
   const c = b[s];
   if (c === 110) return NO_TIME;
   if (c !== C.Quote) return NaN;
+  // RFC 3339 read from the bytes where it reads there (no escapes then); otherwise from the text
+  if (time.format === null) {
+    const t = parseTimestampBytes(b, s + 1, e - 1);
+    if (t === t) return t;
+  }
   let text: string;
   if (strEscapedAt(s, e)) text = JSON.parse(Buffer.prototype.utf8Slice.call(B, s, e) as string) as string;
   else text = Buffer.prototype.utf8Slice.call(B, s + 1, e - 1) as string;

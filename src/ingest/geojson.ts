@@ -36,7 +36,11 @@ interface GeoJsonValidation {
   isPoint(value: unknown, trace?: false): boolean;
   isBbox(value: unknown, trace?: false): boolean;
 }
-const gjv = createRequire(import.meta.url)('geojson-validation') as GeoJsonValidation;
+/** The package, loaded when first needed (the byte reader reads the usual inputs without it). */
+let validator: GeoJsonValidation | null = null;
+function gjv(): GeoJsonValidation {
+  return (validator ??= createRequire(import.meta.url)('geojson-validation') as GeoJsonValidation);
+}
 
 const GEOMETRY_TYPES = new Set(['Point', 'MultiPoint', 'LineString', 'MultiLineString', 'Polygon', 'MultiPolygon', 'GeometryCollection']);
 
@@ -299,7 +303,7 @@ class FeatureChecker {
     const coordMsg = coordinatesProblem(c);
     // The package check is the structural gate (a Point with a numeric position); ours adds
     // finiteness, the 2-or-3 rule and the message.
-    if (coordMsg !== null || !gjv.isPoint(g)) {
+    if (coordMsg !== null || !gjv().isPoint(g)) {
       problems.add(i, id, 'bad-coordinates', `${where}: coordinates ${coordMsg ?? `are ${describe(c)}`}; write [longitude, latitude] in degrees`);
       return true;
     }
@@ -351,7 +355,7 @@ function coordinatesProblem(c: unknown): string | null {
 }
 
 function validBbox(b: unknown): boolean {
-  if (!gjv.isBbox(b)) return false;
+  if (!gjv().isBbox(b)) return false;
   const a = b as unknown[];
   return (a.length === 4 || a.length === 6) && a.every((v) => typeof v === 'number' && Number.isFinite(v));
 }

@@ -614,11 +614,44 @@ function bytesAre(b: Uint8Array, s: number, e: number, what: Uint8Array): boolea
   return true;
 }
 
-/** Whether `what` occurs in bytes [s, e) of `b`. */
-function bytesHold(b: Uint8Array, s: number, e: number, what: Uint8Array): boolean {
-  const first = what[0];
-  for (let j = s; j + what.length <= e; j++) if (b[j] === first && bytesAre(b, j, j + what.length, what)) return true;
+/**
+ * Whether bytes [s, e) of `b` hold `"hotspot_id"` or `"role"` anywhere (the members a point
+ * feature adds), in one pass.
+ */
+function holdsAddedKey(b: Uint8Array, s: number, e: number): boolean {
+  for (let j = s; j < e; j++) {
+    if (b[j] !== 34) continue;
+    const c = b[j + 1];
+    if (c === 104 /* h */ ? j + 12 <= e && bytesAre(b, j, j + 12, HOTSPOT_ID_KEY) : c === 114 /* r */ && j + 6 <= e && bytesAre(b, j, j + 6, ROLE_KEY)) return true;
+  }
   return false;
+}
+
+/**
+ * Writes the coordinate text [from, to) of `b` at `pos` of `out` as coordText(Number(text))
+ * writes it; returns where it ends. A text that is already what coordText gives back is copied:
+ * an optional minus, at most 8 whole digits without a leading zero (or a lone 0), and at most
+ * COORDINATE_DECIMALS (7) decimals ending in a non-zero digit, not "-0". Such a text times 10^7
+ * is an integer N below 10^15, and the double nearest the text, times 10^7, lies within
+ * 10^15 · 2^-52 < 0.25 of N, so coordText rounds it to N and writes the text's own digits.
+ * Any other text (an exponent, more decimals, trailing zeros) goes through coordText.
+ */
+function copyCoord(b: Uint8Array, from: number, to: number, out: Buffer, pos: number): number {
+  let j = from;
+  if (b[j] === 45) j++; // -
+  const w = j;
+  while (j < to && b[j]! >= 48 && b[j]! <= 57) j++;
+  const wholeDigits = j - w;
+  let ok = wholeDigits >= 1 && wholeDigits <= 8 && (b[w] !== 48 || wholeDigits === 1);
+  if (ok && j < to) {
+    // a fraction: "." and 1 to 7 digits, the last not 0
+    const f = ++j;
+    if (b[f - 1] !== 46) ok = false;
+    while (j < to && b[j]! >= 48 && b[j]! <= 57) j++;
+    ok = ok && j === to && j - f >= 1 && j - f <= 7 && b[j - 1] !== 48;
+  } else if (ok && b[from] === 45 && wholeDigits === 1 && b[w] === 48) ok = false; // -0
+  if (ok) return pos + copyBytes(b, out, pos, from, to);
+  return pos + ascii(out, pos, coordText(Number(latin1Slice.call(b, from, to))));
 }
 
 /** Index just past the JSON string starting (with its quote) at `i` of bytes [, e) (-1 when they end first). */
@@ -668,39 +701,61 @@ export function pointFeatureBytes(b: Uint8Array, s: number, e: number, hotspot: 
     const keyEnd = b[i] === 34 ? skipStringBytes(b, i, e) : -1;
     const end = keyEnd < 0 || b[keyEnd] !== 58 ? -1 : skipValueBytes(b, keyEnd + 1, e);
     if (end < 0 || end >= e) return -1;
-    if (bytesAre(b, i, keyEnd, KEY_ID)) [is, ie] = [keyEnd + 1, end];
-    else if (bytesAre(b, i, keyEnd, KEY_GEOMETRY)) [gs, ge] = [keyEnd + 1, end];
-    else if (bytesAre(b, i, keyEnd, KEY_PROPERTIES)) [ps, pe] = [keyEnd + 1, end];
+    const len = keyEnd - i;
+    if (len === 4 && bytesAre(b, i, keyEnd, KEY_ID)) {
+      is = keyEnd + 1;
+      ie = end;
+    } else if (len === 10 && bytesAre(b, i, keyEnd, KEY_GEOMETRY)) {
+      gs = keyEnd + 1;
+      ge = end;
+    } else if (len === 12 && bytesAre(b, i, keyEnd, KEY_PROPERTIES)) {
+      ps = keyEnd + 1;
+      pe = end;
+    }
     i = b[end] === 44 ? end + 1 : end;
   }
   // a string id only (a number is written as JSON.stringify writes its value), properties an object or none
   if (ie > is && b[is] !== 34) return -1;
   const noProps = pe === ps || (pe - ps === 4 && b[ps] === 110 && b[ps + 1] === 117 && b[ps + 2] === 108 && b[ps + 3] === 108);
-  if (!noProps && (b[ps] !== 123 || bytesHold(b, ps, pe, HOTSPOT_ID_KEY) || bytesHold(b, ps, pe, ROLE_KEY))) return -1;
+  if (!noProps && (b[ps] !== 123 || holdsAddedKey(b, ps, pe))) return -1;
   const cs = gs + POINT_HEAD_BYTES.length;
   if (ge - gs < POINT_HEAD_BYTES.length + 2 || !bytesAre(b, gs, cs, POINT_HEAD_BYTES) || b[ge - 2] !== 93 || b[ge - 1] !== 125) return -1;
-  for (let j = cs; j < ge; j++) if (b[j] === 91) return -1;
-  pos += ascii(out, pos, '{"type":"Feature"');
+  // the coordinates as split(',') cuts them: at most three (the room asked for above), no nested array
+  const ce = ge - 2;
+  let commas = 0;
+  for (let j = cs; j < ce; j++) {
+    const c = b[j];
+    if (c === 91) return -1;
+    if (c === 44) commas++;
+  }
+  if (commas < 1 || commas > 2) return -1;
+  pos = copyConstant(FEATURE_HEAD_BYTES, out, pos);
   if (ie > is) {
-    pos += ascii(out, pos, ',"id":');
+    pos = copyConstant(ID_KEY_BYTES, out, pos);
     pos += copyBytes(b, out, pos, is, ie);
   }
-  pos += ascii(out, pos, ',"geometry":{"type":"Point","coordinates":[');
-  // the coordinates as split(',') cuts them; at most three (the room asked for above)
-  const ce = ge - 2;
-  let coords = 0;
-  for (let from = cs; ; from++) {
+  pos = copyConstant(GEOMETRY_HEAD_BYTES, out, pos);
+  for (let from = cs; ; ) {
     let to = from;
     while (to < ce && b[to] !== 44) to++;
-    if (++coords > 3) return -1;
-    if (coords > 1) out[pos++] = 44;
-    pos += ascii(out, pos, coordText(Number(latin1Slice.call(b, from, to))));
+    pos = copyCoord(b, from, to, out, pos);
     if (to >= ce) break;
-    from = to;
+    out[pos++] = 44;
+    from = to + 1;
   }
-  if (coords < 2) return -1;
-  pos += ascii(out, pos, ']},"properties":');
+  pos = copyConstant(PROPERTIES_KEY_BYTES, out, pos);
   return addedProperties(b, ps, noProps ? ps : pe, hotspot, role, extra, out, pos);
+}
+
+const FEATURE_HEAD_BYTES = Buffer.from('{"type":"Feature"');
+const ID_KEY_BYTES = Buffer.from(',"id":');
+const GEOMETRY_HEAD_BYTES = Buffer.from(',"geometry":{"type":"Point","coordinates":[');
+const PROPERTIES_KEY_BYTES = Buffer.from(']},"properties":');
+
+/** Copies the bytes of `what` to `out` at `pos`; returns where they end. */
+function copyConstant(what: Uint8Array, out: Buffer, pos: number): number {
+  for (let k = 0; k < what.length; k++) out[pos + k] = what[k]!;
+  return pos + what.length;
 }
 
 /**

@@ -1,4 +1,5 @@
-/** Run ids, the default claim lease, what an interrupted run says, and the store's clock. */
+/** Run ids, the default claim lease, what an interrupted run says, the store's clock, and stored hotspots as read. */
+import type { RunHotspot } from './store.js';
 
 /** "r" and at least six digits. */
 export function formatRunId(seq: number): string {
@@ -64,4 +65,26 @@ function deepFreeze(v: unknown): void {
   if (v === null || typeof v !== 'object' || Object.isFrozen(v)) return;
   Object.freeze(v);
   for (const x of Object.values(v)) deepFreeze(x);
+}
+
+/**
+ * A stored hotspot as read back, its core members parsed from their JSON text only when asked
+ * for: matching a run's tracks reads the previous run's members, never its core members, which
+ * are most of the members again (half the parsing of a million member ids).
+ */
+export function storedHotspot(hotspotId: number, trackId: string | null, members: string[], coreMembersText: string, hull: string, figures: Record<string, unknown> | null): RunHotspot {
+  let core: string[] | null = null;
+  return {
+    hotspotId,
+    trackId,
+    members,
+    get coreMembers(): string[] {
+      return (core ??= JSON.parse(coreMembersText) as string[]);
+    },
+    set coreMembers(v: string[]) {
+      core = v;
+    },
+    hull,
+    figures,
+  };
 }

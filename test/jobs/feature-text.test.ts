@@ -112,6 +112,28 @@ describe('point features from stored texts', () => {
     expect(written).toBeGreaterThan(1000);
   });
 
+  it('from bytes: coordinates of few decimals, copied as they are, are what coordText writes', () => {
+    // positions as surveys store them (0 to 9 decimals, some at the 7th), altitudes, and texts
+    // at the edges of the copied form: 8 whole digits, −0, exponents, trailing zeros
+    const decimals = fc.integer({ min: 0, max: 9 });
+    const scaled = fc.tuple(fc.double({ min: -1e9, max: 1e9, noNaN: true }), decimals).map(([x, d]) => Number(x.toFixed(d)));
+    const near = fc.tuple(fc.integer({ min: -1800000000, max: 1800000000 }), fc.integer({ min: 0, max: 9 })).map(([n, d]) => n / 10 ** d);
+    const edge = fc.constantFrom(0, -0, 99999999.9999999, -99999999.9999999, 100000000.5, 12345678.1234567, 1e21, 1.5e-7, -5e-8, 0.00000005, 179.99999995, -179.9999999);
+    const coord = fc.oneof(scaled, near, edge);
+    const out = Buffer.alloc(1024, 0x7e);
+    fc.assert(
+      fc.property(fc.array(coord, { minLength: 2, maxLength: 3 }), fc.integer({ min: -1, max: 40 }), fc.integer({ min: 0, max: 2 }), (coords, hotspot, role) => {
+        const f = { type: 'Feature', id: 'b1', properties: { count: 2 }, geometry: { type: 'Point', coordinates: coords } } as unknown as InputFeature;
+        const text = JSON.stringify(f);
+        const b = Buffer.from(text);
+        const end = pointFeatureBytes(b, 0, b.length, hotspot, role, '', out, 0, 1000);
+        expect(end).toBeGreaterThan(0);
+        expect(out.toString('utf8', 0, end)).toBe(pointFeature(JSON.parse(text) as InputFeature, hotspot, role));
+      }),
+      { numRuns: 20000, seed: 20261204 },
+    );
+  });
+
   it('from bytes: the usual stored feature is written without its text, and a feature that does not fit is left to the text', () => {
     const text = '{"type":"Feature","id":"b7","properties":{"observed_at":"2026-05-08T12:00:00Z","count":4},"geometry":{"type":"Point","coordinates":[-3.18812345678,55.95]}}';
     const b = Buffer.from(text);

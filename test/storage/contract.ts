@@ -602,12 +602,21 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         const hotspots = [
           { hotspotId: 1, trackId: 't1', members: ['a', 'b', 'c'], coreMembers: ['a', 'b'], hull, figures: { area_km2: 1.5 } },
           { hotspotId: 0, trackId: null, members: ['d'], coreMembers: ['d'], hull, figures: null },
+          // ids and figures that need escaping or more than one byte, members beyond a MiB of text
+          {
+            hotspotId: 2,
+            trackId: 't2é',
+            members: ['é😀', '"q"', 'back\\slash', 'tab\there', ...Array.from({ length: 120_000 }, (_, i) => `m${i}`)],
+            coreMembers: ['é😀', 'm7'],
+            hull,
+            figures: { centre: [1.5, -2], note: 'a "quoted" \\ é😀', nested: { n: null, list: [1, 'x'] } },
+          },
         ];
         await store.saveRunResult(r1.id, { layers, hotspots });
         await store.saveRunResult(r1.id, { layers, hotspots }); // saving again replaces, never doubles
         await store.saveRunResult(r2.id, { layers, hotspots: [{ hotspotId: 0, trackId: 't1', members: ['a', 'b'], coreMembers: ['a'], hull }] });
         for (const l of ['hotspots', 'centres', 'noise', 'points'] as const) expect(await store.getRunLayer(r1.id, l)).toBe(layers[l]);
-        expect(await store.getRunHotspots(r1.id)).toEqual([hotspots[1], hotspots[0]]);
+        expect(await store.getRunHotspots(r1.id)).toEqual([hotspots[1], hotspots[0], hotspots[2]]);
         // a track's history is made of succeeded runs only
         expect(await store.getTrack('herons', 't1')).toEqual([]);
         await store.updateRun(r1.id, { status: 'succeeded' });
