@@ -935,12 +935,18 @@ export function clusterObservations(
   /** the medoid's observation id: the stored id, else the GeoJSON id, else its input index */
   // the observation's own id, always as a string (a stored id, the feature's id, else its input position)
   const medoidIdOf = (i: number): string => (ids !== undefined ? (ids[filtered.kept[i]!] as string) : String(features[i]!.id ?? filtered.kept[i]!));
+  // looked up in input order: features read from a file are parsed from it when first read, and
+  // a window moving forward reads the file in large chunks where scattered jumps read it in many
+  // small ones
+  const medoidIds = new Array<string>(clustering.count);
+  const byPosition = Array.from({ length: clustering.count }, (_, h) => h).sort((a, b) => figures[a].medoid - figures[b].medoid);
+  for (const h of byPosition) medoidIds[h] = medoidIdOf(figures[h].medoid);
   const resultHotspots: ResultHotspot[] = [];
   for (let h = 0; h < clustering.count; h++) {
     const own = members.slice(start[h], start[h + 1]);
     const coreMembers = new Int32Array(figures[h].coreCount);
     for (let k = 0, c = 0; k < own.length; k++) if (clustering.roles[own[k]] === ROLE_CORE) coreMembers[c++] = own[k];
-    const properties = hotspotProperties(figures[h], medoidIdOf(figures[h].medoid));
+    const properties = hotspotProperties(figures[h], medoidIds[h]);
     if (validation.reference) {
       const r = validation.reference.hotspots[h];
       properties.reference_majority = r.majority;
