@@ -1,5 +1,5 @@
 /**
- * The built command line (dist/cli/bin.js, bundled by scripts/bundle-cli.mjs) against the same
+ * The built command line (dist/cli/bin.js, bundled by src/build/bundle-cli.mjs) against the same
  * command run from source: the same result bytes, worker threads and loaded-on-demand parts
  * (the report, the service) found from the bundle, and the bundle really is one file plus chunks.
  */

@@ -13,14 +13,14 @@
  * everything it finds beside itself (worker entries, package.json, openapi.yaml, the web
  * assets) is found as before.
  *
- *   node scripts/bundle-cli.mjs        (part of `npm run build`)
+ *   node src/build/bundle-cli.mjs       (part of `npm run build`)
  */
 import { readdirSync, readFileSync, rmSync } from 'node:fs';
 import { dirname, join, relative, sep } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { build } from 'esbuild';
 
-const root = join(dirname(fileURLToPath(import.meta.url)), '..');
+const root = join(dirname(fileURLToPath(import.meta.url)), '../..');
 const outdir = join(root, 'dist/cli');
 const entry = join(outdir, 'bin.js');
 
