@@ -2,8 +2,9 @@
  * Bundles the command line after `tsc`: dist/cli/bin.js becomes one ES module holding every
  * module of Roost it loads at start-up, and the modules it imports only on some paths (the
  * service, stored runs, keys, the report) become chunks beside it (`dist/cli/bundle-*.js`),
- * loaded when first imported. Node then resolves, reads and compiles a handful of files at
- * start-up instead of some eighty, which is most of the command's fixed cost.
+ * loaded when first imported; the same for the worker thread that writes the point layers
+ * (dist/cli/layer-worker.js), which shares the chunks. Node then resolves, reads and compiles a
+ * handful of files at start-up instead of some eighty, which is most of the command's fixed cost.
  *
  * Packages in node_modules stay outside the bundle and are loaded as before. The other modules
  * under dist/ stay where tsc wrote them: worker threads start from them, and the tests and the
@@ -22,7 +23,8 @@ import { build } from 'esbuild';
 
 const root = join(dirname(fileURLToPath(import.meta.url)), '../..');
 const outdir = join(root, 'dist/cli');
-const entry = join(outdir, 'bin.js');
+/** the command line, and the worker thread it starts to write point layers (src/cli/layer-thread.ts) */
+const entries = ['bin.js', 'layer-worker.js'].map((name) => join(outdir, name));
 
 /** Each module's import.meta.url, written as the URL of its own file relative to the bundle (all outputs lie in dist/cli). */
 const ownUrl = {
@@ -38,9 +40,13 @@ const ownUrl = {
   },
 };
 
+// the entries must be tsc's output: a bundle cannot be bundled again once its chunks are gone
+for (const entry of entries) {
+  if (readFileSync(entry, 'utf8').includes('./bundle-')) throw new Error(`${entry} is already bundled; run tsc -p tsconfig.json first (npm run build does both)`);
+}
 for (const name of readdirSync(outdir)) if (name.startsWith('bundle-')) rmSync(join(outdir, name));
 await build({
-  entryPoints: [entry],
+  entryPoints: entries,
   outdir,
   allowOverwrite: true,
   bundle: true,

@@ -11,7 +11,7 @@ import { readFile } from 'node:fs/promises';
 import { basename } from 'node:path';
 import { Command, Option } from 'commander';
 import { InputError } from '../ingest/types.js';
-import { suggestEpsInput, type ClusterResult, type InputFormat, type Stage } from '../run/cluster.js';
+import { suggestEpsInput, type ClusterResult, type InputFormat, type PointLayersJob, type Stage } from '../run/cluster.js';
 import { readObservations } from '../ingest/read.js';
 import { InputFile } from '../ingest/source.js';
 import { assess, clusterCases, type EffortPoints } from '../trust/assess.js';
@@ -24,7 +24,8 @@ import { LAYER_NAMES, type LayerName } from '../run/layers.js';
 import { resolveSettings, SettingsError, type ClusterSettings } from '../run/settings.js';
 import { publishedSummary, publishLayerTexts, PublishError, resolvePublishOptions, type PublishOptions } from '../publish/publish.js';
 import { ROOST_VERSION } from '../run/version.js';
-import { writeResultFolder } from './output.js';
+import { ResultFolder, writeResultFolder } from './output.js';
+import { PointLayerThread } from './layer-thread.js';
 import { keysCommand } from './keys.js';
 import { reclusterCommand } from './recluster.js';
 import { serveCommand } from './serve.js';
@@ -286,47 +287,63 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
         const size = data instanceof InputFile ? data.size : data.length;
         const showProgress = Boolean(opts.progress) || (process.stderr.isTTY && (size > 5_000_000 || trials));
         const onProgress = progressReporter(showProgress);
+        // the points and noise layers are written in a worker thread beside the figures when that pays (./layer-thread.ts)
+        const layerThread = publish === null && data instanceof InputFile ? PointLayerThread.start(input, data.size) : null;
+        // the result folder is opened early when the worker writes into it; removed again on any failure
+        let out = layerThread === null ? null : await ResultFolder.open(String(opts.outDir));
+        const early = out;
+        const onPointLayers = layerThread === null || early === null ? undefined : (job: PointLayersJob) => layerThread.offer(job, early.path('noise.geojson'), early.path('points.geojson'));
         const t0 = performance.now();
-        const { result, effort } = clusterCases(data, formatFromPath(input, opts.format as string | undefined), settings, trust, { onProgress });
-        if (trials) await assess(result, settings, { settings: trust, studyArea, effort: fileEffort ?? effort, threads, onProgress: trialReporter(showProgress) });
-        onProgress('write', 0);
-        const tWrite = performance.now();
-        const timings = result.summary.timings_ms as Record<string, number>;
-        if (publish !== null) {
-          const text = (name: 'points' | 'hotspots'): string => [...result.layers[name].chunks()].join('');
-          const layers = publishLayerTexts(text('points'), text('hotspots'), publish);
-          await writeResultFolder(String(opts.outDir), [
-            ...LAYER_NAMES.map((name) => [`${name}.geojson`, [layers[name]]] as [string, Iterable<string>]),
-            [
-              'summary.json',
-              () => {
-                timings.write = Math.round(((timings.write ?? 0) + performance.now() - tWrite) * 10) / 10;
-                timings.total = Math.round((performance.now() - t0) * 10) / 10;
-                return JSON.stringify(publishedSummary(result.summary, layers), null, 2) + '\n';
-              },
-            ],
-          ]);
-          const w = layers.info;
-          process.stderr.write(
-            `roost: published ${w.hotspots.published} hotspot(s) and ${w.observations.published} generalised point(s) on a ${w.generalise_m} m grid; withheld ${w.hotspots.withheld} small hotspot(s) (${w.observations.withheld_in_small_hotspots} observations) and ${w.observations.withheld_noise} noise → ${String(opts.outDir)}\n`,
-          );
-          setExit(EXIT.ok);
-          return;
+        let result: ClusterResult;
+        try {
+          const clustered = clusterCases(data, formatFromPath(input, opts.format as string | undefined), settings, trust, { onProgress, onPointLayers });
+          result = clustered.result;
+          if (trials) await assess(result, settings, { settings: trust, studyArea, effort: fileEffort ?? clustered.effort, threads, onProgress: trialReporter(showProgress) });
+          onProgress('write', 0);
+          const tWrite = performance.now();
+          const timings = result.summary.timings_ms as Record<string, number>;
+          if (publish !== null) {
+            const text = (name: 'points' | 'hotspots'): string => [...result.layers[name].chunks()].join('');
+            const layers = publishLayerTexts(text('points'), text('hotspots'), publish);
+            await writeResultFolder(String(opts.outDir), [
+              ...LAYER_NAMES.map((name) => [`${name}.geojson`, [layers[name]]] as [string, Iterable<string>]),
+              [
+                'summary.json',
+                () => {
+                  timings.write = Math.round(((timings.write ?? 0) + performance.now() - tWrite) * 10) / 10;
+                  timings.total = Math.round((performance.now() - t0) * 10) / 10;
+                  return JSON.stringify(publishedSummary(result.summary, layers), null, 2) + '\n';
+                },
+              ],
+            ]);
+            const w = layers.info;
+            process.stderr.write(
+              `roost: published ${w.hotspots.published} hotspot(s) and ${w.observations.published} generalised point(s) on a ${w.generalise_m} m grid; withheld ${w.hotspots.withheld} small hotspot(s) (${w.observations.withheld_in_small_hotspots} observations) and ${w.observations.withheld_noise} noise → ${String(opts.outDir)}\n`,
+            );
+            setExit(EXIT.ok);
+            return;
+          }
+          const report = opts.report ? await reportFile(result, input) : [];
+          out ??= await ResultFolder.open(String(opts.outDir));
+          const byThread = new Set<LayerName>();
+          for (const name of LAYER_NAMES) {
+            // hotspots and centres are written here while the worker writes the other two
+            if (name === 'noise' && layerThread !== null && (await layerThread.done())) byThread.add('noise').add('points');
+            if (!byThread.has(name)) out.write(`${name}.geojson`, result.layers[name].byteChunks());
+          }
+          for (const [name, content] of report) out.write(name, content);
+          // summary.json is written last so that its write stage includes the other files.
+          out.write('summary.json', () => {
+            timings.write = Math.round(((timings.write ?? 0) + performance.now() - tWrite) * 10) / 10;
+            timings.total = Math.round((performance.now() - t0) * 10) / 10;
+            return JSON.stringify(result.summary, null, 2) + '\n';
+          });
+          await out.commit();
+        } catch (err) {
+          await layerThread?.stop();
+          await out?.discard();
+          throw err;
         }
-        const report = opts.report ? await reportFile(result, input) : [];
-        // summary.json is written last so that its write stage includes the other files.
-        await writeResultFolder(String(opts.outDir), [
-          ...LAYER_NAMES.map((name) => [`${name}.geojson`, result.layers[name].byteChunks()] as [string, Iterable<Uint8Array>]),
-          ...report,
-          [
-            'summary.json',
-            () => {
-              timings.write = Math.round(((timings.write ?? 0) + performance.now() - tWrite) * 10) / 10;
-              timings.total = Math.round((performance.now() - t0) * 10) / 10;
-              return JSON.stringify(result.summary, null, 2) + '\n';
-            },
-          ],
-        ]);
         const f = result.summary.figures as { hotspots: number; clustered: number; noise: number };
         process.stderr.write(`roost: ${f.hotspots} hotspot(s), ${f.clustered} clustered, ${f.noise} noise → ${String(opts.outDir)}\n`);
         setExit(EXIT.ok);

@@ -7,7 +7,7 @@ import { mkdir, rename, rm } from 'node:fs/promises';
 import { basename, dirname, join, resolve } from 'node:path';
 
 /** Writes chunks (text, or bytes as they are) to a new file, one write per chunk, so no whole-file string is ever built. */
-function writeChunks(path: string, chunks: Iterable<string | Uint8Array>): void {
+export function writeChunks(path: string, chunks: Iterable<string | Uint8Array>): void {
   const fd = openSync(path, 'wx');
   try {
     for (const chunk of chunks) {
@@ -19,38 +19,79 @@ function writeChunks(path: string, chunks: Iterable<string | Uint8Array>): void 
   }
 }
 
+/** What a result file holds: chunks in order, or text computed at its turn. */
+export type ResultContent = Iterable<string | Uint8Array> | (() => string);
+
 /**
- * Writes `files` (name and content in chunks, in order; content may also be computed at its turn) as the folder
- * `outDir`, replacing an earlier result there.
- * @param outDir target folder; its parent is created when missing
+ * A result folder being written: files go into a fresh temporary folder beside the target
+ * (`path(name)` for a writer of its own, `write` for content), and `commit` renames it into place,
+ * replacing an earlier result; `discard` removes it.
  */
-export async function writeResultFolder(outDir: string, files: [string, Iterable<string | Uint8Array> | (() => string)][]): Promise<void> {
-  const target = resolve(outDir);
-  const parent = dirname(target);
-  await mkdir(parent, { recursive: true });
-  const tag = `${process.pid}-${Date.now().toString(36)}`;
-  const tmp = join(parent, `.${basename(target)}.tmp-${tag}`);
-  const old = join(parent, `.${basename(target)}.old-${tag}`);
-  await mkdir(tmp);
-  try {
-    for (const [name, content] of files) writeChunks(join(tmp, name), typeof content === 'function' ? [content()] : content);
+export class ResultFolder {
+  private constructor(
+    private readonly target: string,
+    private readonly tmp: string,
+    private readonly old: string,
+  ) {}
+
+  /** Creates the temporary folder for `outDir` (its parent too when missing). */
+  static async open(outDir: string): Promise<ResultFolder> {
+    const target = resolve(outDir);
+    const parent = dirname(target);
+    await mkdir(parent, { recursive: true });
+    const tag = `${process.pid}-${Date.now().toString(36)}`;
+    const folder = new ResultFolder(target, join(parent, `.${basename(target)}.tmp-${tag}`), join(parent, `.${basename(target)}.old-${tag}`));
+    await mkdir(folder.tmp);
+    return folder;
+  }
+
+  /** Where file `name` is written in the temporary folder. */
+  path(name: string): string {
+    return join(this.tmp, name);
+  }
+
+  /** Writes file `name`. */
+  write(name: string, content: ResultContent): void {
+    writeChunks(this.path(name), typeof content === 'function' ? [content()] : content);
+  }
+
+  /** Moves the written folder into place, replacing an earlier result. */
+  async commit(): Promise<void> {
     // Move an earlier result aside first: rename() cannot replace a non-empty folder.
     let hadOld = false;
     try {
-      await rename(target, old);
+      await rename(this.target, this.old);
       hadOld = true;
     } catch (err) {
       if ((err as NodeJS.ErrnoException).code !== 'ENOENT') throw err;
     }
     try {
-      await rename(tmp, target);
+      await rename(this.tmp, this.target);
     } catch (err) {
-      if (hadOld) await rename(old, target);
+      if (hadOld) await rename(this.old, this.target);
       throw err;
     }
-    if (hadOld) await rm(old, { recursive: true, force: true });
+    if (hadOld) await rm(this.old, { recursive: true, force: true });
+  }
+
+  /** Removes the temporary folder and what was written in it. */
+  async discard(): Promise<void> {
+    await rm(this.tmp, { recursive: true, force: true });
+  }
+}
+
+/**
+ * Writes `files` (name and content in chunks, in order; content may also be computed at its turn) as the folder
+ * `outDir`, replacing an earlier result there.
+ * @param outDir target folder; its parent is created when missing
+ */
+export async function writeResultFolder(outDir: string, files: [string, ResultContent][]): Promise<void> {
+  const folder = await ResultFolder.open(outDir);
+  try {
+    for (const [name, content] of files) folder.write(name, content);
+    await folder.commit();
   } catch (err) {
-    await rm(tmp, { recursive: true, force: true });
+    await folder.discard();
     throw err;
   }
 }

@@ -155,7 +155,40 @@ export interface ClusterHooks {
    * points, and an answer that is one layer alone carries no summary. Default true.
    */
   clarkEvans?: boolean;
+  /**
+   * Offered the points and noise layers as soon as the clustering is known, before the figures,
+   * when they can be written from the input's bytes alone (see PointLayersJob): a caller may write
+   * them elsewhere (the command line, in a worker thread) while the figures are worked out. The
+   * result's own `points` and `noise` layers are made as always.
+   */
+  onPointLayers?: (job: PointLayersJob) => void;
 }
+
+/**
+ * What the points and noise layers are written from when their features come from the input's
+ * bytes (the byte readers' spans), with nothing of the run's but the clustering: the same bytes
+ * as the result's layers, by `pointLayersJobBytes`, wherever it runs. Holds typed arrays and
+ * numbers only, besides the source, so it can be sent to a worker thread.
+ */
+export interface PointLayersJob {
+  rows: PointRows;
+  /** each layer's text up to its first feature */
+  pointsHead: string;
+  noiseHead: string;
+  /** the features as spans of a GeoJSON input (or text sequence), or as rows of a CSV input whose kept rows are all written from their cells */
+  spans?: FeatureSpans;
+  csvRows?: CsvRows;
+}
+
+/** The bytes of the points layer (or, noiseOnly, the noise layer) of a job, in chunks of about 1 MiB. */
+export function pointLayersJobBytes(job: PointLayersJob, noiseOnly: boolean): Iterable<Uint8Array> {
+  const head = noiseOnly ? job.noiseHead : job.pointsHead;
+  if (job.spans !== undefined) return pointLayerBytes(head, job.spans, job.rows, NO_EXTRA, noiseOnly);
+  if (job.csvRows !== undefined) return csvPointLayerBytes(head, job.csvRows, [], job.rows, NO_EXTRA, noiseOnly);
+  throw new Error('a point layers job needs spans or CSV rows');
+}
+
+const NO_EXTRA = (): string => '';
 
 const round = roundDecimals;
 const sig = roundSignificant;
@@ -830,6 +863,12 @@ function clarkEvansWarnings(whole: ResultFigures): ClusteringWarning[] {
   ];
 }
 
+/** Whether every kept CSV row is written from its cells (csvPointLayerBytes then needs no parsed feature). */
+function everyRowVerbatim(csv: CsvRows, kept: Int32Array): boolean {
+  for (let i = 0; i < kept.length; i++) if (csv.verbatim[kept[i]!] !== 1) return false;
+  return true;
+}
+
 /** The text of a FeatureCollection up to its first feature (what featureCollectionChunks writes first). */
 function collectionHeadText(bbox: ArrayLike<number> | null): string {
   let text = '';
@@ -872,6 +911,30 @@ export function clusterObservations(
 
   timer.start('cluster');
   const { clustering, ordering } = runMethod(points, index, epsMeters, settings, (d) => hooks.onProgress?.('cluster', d));
+
+  const { labels, roles } = clustering;
+  const kept = filtered.kept;
+  let noiseCount = 0;
+  for (let i = 0; i < points.n; i++) if (labels[i] < 0) noiseCount++;
+  const noiseLon = new Float64Array(noiseCount);
+  const noiseLat = new Float64Array(noiseCount);
+  for (let i = 0, k = 0; i < points.n; i++) {
+    if (labels[i] < 0) {
+      noiseLon[k] = points.lon[i];
+      noiseLat[k++] = points.lat[i];
+    }
+  }
+  const noiseBbox = bboxOfPositions(noiseLon, noiseLat);
+  const pointsBbox = bboxOfPositions(points.lon, points.lat);
+  const rows: PointRows = { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles };
+  const spans = (all as Partial<SpannedObservations>).spans;
+  const csvRows = (all as Partial<CsvObservations>).csvRows;
+  if (hooks.onPointLayers !== undefined && ordering === null) {
+    const job: PointLayersJob = { rows, pointsHead: collectionHeadText(pointsBbox), noiseHead: collectionHeadText(noiseBbox) };
+    if (spans !== undefined) job.spans = spans;
+    else if (csvRows !== undefined && everyRowVerbatim(csvRows, kept)) job.csvRows = csvRows;
+    if (job.spans !== undefined || job.csvRows !== undefined) hooks.onPointLayers(job);
+  }
 
   timer.start('figures');
   // the Clark–Evans nearest-neighbour pass (on this thread by default; beside the hulls in a worker when two threads are asked for)
@@ -954,21 +1017,7 @@ export function clusterObservations(
     }
     resultHotspots.push({ hotspotId: h + 1, members: own, coreMembers, hull: hulls[h], figures: figures[h], properties });
   }
-  let noiseCount = 0;
-  for (let i = 0; i < points.n; i++) if (clustering.labels[i] < 0) noiseCount++;
-  const noiseLon = new Float64Array(noiseCount);
-  const noiseLat = new Float64Array(noiseCount);
-  for (let i = 0, k = 0; i < points.n; i++) {
-    if (clustering.labels[i] < 0) {
-      noiseLon[k] = points.lon[i];
-      noiseLat[k++] = points.lat[i];
-    }
-  }
-  const { labels, roles } = clustering;
-  const kept = filtered.kept;
-  const extra = ordering === null ? () => '' : opticsMembers(ordering);
-  const spans = (all as Partial<SpannedObservations>).spans;
-  const csvRows = (all as Partial<CsvObservations>).csvRows;
+  const extra = ordering === null ? NO_EXTRA : opticsMembers(ordering);
   function* pointFeatures(noiseOnly: boolean): Generator<string> {
     const w = spans?.source.window();
     for (let i = 0; i < points.n; i++) {
@@ -978,7 +1027,6 @@ export function clusterObservations(
     }
   }
   // bytes written without per-feature strings, from the byte reader's spans or stored texts kept as bytes
-  const rows: PointRows = { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles };
   const byteTexts = featureTexts !== undefined && typeof (featureTexts as Partial<FeatureByteSource>).bytesOf === 'function' ? (featureTexts as FeatureByteSource) : undefined;
   const pointBytes = (bbox: ArrayLike<number> | null, noiseOnly: boolean): (() => Iterable<Uint8Array>) | undefined => {
     if (spans !== undefined) return () => pointLayerBytes(collectionHeadText(bbox), spans, rows, extra, noiseOnly);
@@ -988,8 +1036,6 @@ export function clusterObservations(
   };
   const hotspotsBbox = bboxOf(hulls);
   const centresBbox = bboxOf(figures.map((f) => ({ type: 'Point' as const, coordinates: f.centre })));
-  const noiseBbox = bboxOfPositions(noiseLon, noiseLat);
-  const pointsBbox = bboxOfPositions(points.lon, points.lat);
   // the layers' fixed fields (src/geometry/layer-fields.ts), read when a layer is written so that
   // track ids filled in after clustering are included
   const categories = categoryNames(resultHotspots.map((r) => r.properties));

@@ -1,0 +1,115 @@
+/**
+ * The points and noise layers of `roost cluster` written in a worker thread while the calling
+ * thread works out the figures (hulls, Clark–Evans) and writes the other files: the two largest
+ * parts of a run's end overlap on two cores. The worker is started before the input is read, so
+ * its start is hidden behind the reading; it is offered the layers (`PointLayersJob`, from the
+ * `onPointLayers` hook of the clustering) as soon as the clustering is known, and writes them with
+ * the very function the calling thread would use, so the bytes are the same.
+ *
+ * Whenever the worker cannot help (one core, input from standard input, no job offered, more
+ * observations than `LAYER_THREAD.maxObservations`, or it fails), `done` answers false and the
+ * caller writes the layers itself, as before.
+ */
+import { rm } from 'node:fs/promises';
+import { availableParallelism } from 'node:os';
+import { createRequire } from 'node:module';
+import { pathToFileURL } from 'node:url';
+import { Worker } from 'node:worker_threads';
+import type { CsvRows } from '../ingest/csv-bytes.js';
+import type { FeatureSpans } from '../ingest/geojson-bytes.js';
+import type { PointLayersJob, PointRows } from '../run/cluster.js';
+import { entryBeside } from '../workers/location.js';
+
+/**
+ * When a worker is used: input files from `minBytes` (below, the worker's start costs more than it
+ * saves) to `maxBytes`, and at most `maxObservations` observations. The job's arrays are copied to
+ * the worker, some 50 bytes per observation, and the worker has a heap of its own: memory a
+ * million-point run's target (400 MiB) cannot spare, while there the layers are a smaller share of
+ * the run.
+ */
+export const LAYER_THREAD = { minBytes: 1 << 20, maxBytes: 64 << 20, maxObservations: 500_000 };
+
+/** What the worker receives: the job without its byte source, and where to write which layer. */
+export interface LayerTask {
+  input: string;
+  rows: PointRows;
+  pointsHead: string;
+  noiseHead: string;
+  spans?: Omit<FeatureSpans, 'source'>;
+  csvRows?: Omit<CsvRows, 'source'>;
+  files: { path: string; noiseOnly: boolean }[];
+}
+
+/** The worker: the compiled entry, or the TypeScript one through tsx when running from source (tests). */
+function startWorker(): Worker {
+  const { filename } = entryBeside(import.meta.url, 'layer-worker');
+  if (!filename.endsWith('.ts')) return new Worker(new URL(filename));
+  const tsx = pathToFileURL(createRequire(import.meta.url).resolve('tsx/esm/api').replace(/\.cjs$/, '.mjs')).href;
+  const boot = `import(${JSON.stringify(tsx)}).then((api) => { api.register(); return import(${JSON.stringify(filename)}); });`;
+  return new Worker(boot, { eval: true });
+}
+
+/** A worker ready to write the points and noise layers of one run. */
+export class PointLayerThread {
+  private worker: Worker | null;
+  private result: Promise<boolean> | null = null;
+  private written: string[] = [];
+
+  private constructor(private readonly input: string) {
+    this.worker = startWorker();
+    // a worker that fails before it is offered a job is simply not used
+    this.worker.on('error', () => {});
+    this.worker.unref();
+  }
+
+  /** A worker for a run on the file `input` of `bytes` bytes, or null when one would not pay. */
+  static start(input: string, bytes: number): PointLayerThread | null {
+    if (bytes < LAYER_THREAD.minBytes || bytes > LAYER_THREAD.maxBytes || availableParallelism() < 2) return null;
+    return new PointLayerThread(input);
+  }
+
+  /** Gives the worker the job: the noise layer to `noisePath`, the points layer to `pointsPath`. */
+  offer(job: PointLayersJob, noisePath: string, pointsPath: string): void {
+    const worker = this.worker;
+    if (worker === null || this.result !== null || job.rows.n > LAYER_THREAD.maxObservations) return;
+    const files = [
+      { path: noisePath, noiseOnly: true },
+      { path: pointsPath, noiseOnly: false },
+    ];
+    const task: LayerTask = { input: this.input, rows: job.rows, pointsHead: job.pointsHead, noiseHead: job.noiseHead, files };
+    if (job.spans !== undefined) task.spans = withoutSource(job.spans);
+    if (job.csvRows !== undefined) task.csvRows = withoutSource(job.csvRows);
+    this.written = files.map((f) => f.path);
+    this.result = new Promise<boolean>((resolve) => {
+      worker.once('message', (m: { ok: boolean }) => resolve(m.ok === true));
+      worker.once('error', () => resolve(false));
+      worker.once('exit', () => resolve(false));
+    });
+    // from here the process waits for the worker's answer
+    worker.ref();
+    worker.postMessage(task);
+  }
+
+  /**
+   * Whether the worker wrote both layers. On false nothing of them is left behind (a part it
+   * wrote is removed) and the caller writes them.
+   */
+  async done(): Promise<boolean> {
+    const ok = this.result === null ? false : await this.result;
+    await this.stop();
+    if (!ok) await Promise.all(this.written.map((p) => rm(p, { force: true })));
+    return ok;
+  }
+
+  /** Stops the worker (its result, if any, is no longer wanted). */
+  async stop(): Promise<void> {
+    const worker = this.worker;
+    this.worker = null;
+    if (worker !== null) await worker.terminate();
+  }
+}
+
+function withoutSource<T extends { source: unknown }>(x: T): Omit<T, 'source'> {
+  const { source: _, ...rest } = x;
+  return rest;
+}
