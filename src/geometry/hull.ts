@@ -175,7 +175,16 @@ export function convexHullIndices(xs: Float64Array, ys: Float64Array): Int32Arra
     for (let i = 0; i < n; i++) all[i] = i;
     m = n;
   }
-  const keep = all.subarray(0, m).sort((a, b) => xs[a] - xs[b] || ys[a] - ys[b] || a - b);
+  // by x, then y, then index; answered with ±1 rather than a difference, which for coordinates is
+  // a fraction the engine allocates on the heap at every comparison (the same order: for finite
+  // numbers a − b is 0 exactly when a = b)
+  const keep = all.subarray(0, m).sort((a, b) => {
+    const xa = xs[a], xb = xs[b];
+    if (xa !== xb) return xa < xb ? -1 : 1;
+    const ya = ys[a], yb = ys[b];
+    if (ya !== yb) return ya < yb ? -1 : 1;
+    return a - b;
+  });
   const h = new Int32Array(2 * m + 1);
   let k = 0;
   for (let t = 0; t < m; t++) {
