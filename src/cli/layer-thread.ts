@@ -6,12 +6,12 @@
  * `onPointLayers` hook of the clustering) as soon as the clustering is known, and writes them with
  * the very function the calling thread would use, so the bytes are the same.
  *
- * Whenever the worker cannot help (one core, input from standard input, no job offered, more
- * observations than `LAYER_THREAD.maxObservations`, or it fails), `done` answers false and the
- * caller writes the layers itself, as before.
+ * Whenever the worker cannot help (one core, or no core free by the load average, input from
+ * standard input, no job offered, more observations than `LAYER_THREAD.maxObservations`, or it
+ * fails), `done` answers false and the caller writes the layers itself, as before.
  */
 import { rm } from 'node:fs/promises';
-import { availableParallelism } from 'node:os';
+import { availableParallelism, loadavg } from 'node:os';
 import { createRequire } from 'node:module';
 import { pathToFileURL } from 'node:url';
 import { Worker } from 'node:worker_threads';
@@ -27,7 +27,20 @@ import { entryBeside } from '../workers/location.js';
  * million-point run's target (400 MiB) cannot spare, while there the layers are a smaller share of
  * the run.
  */
-export const LAYER_THREAD = { minBytes: 1 << 20, maxBytes: 64 << 20, maxObservations: 500_000 };
+export const LAYER_THREAD = { minBytes: 1 << 20, maxBytes: 64 << 20, maxObservations: 500_000, minFreeCores: 0.5 };
+
+/**
+ * Whether a core is likely to be free for the worker: the cores less the load average of the last
+ * minute (runnable threads, ours included) is at least `LAYER_THREAD.minFreeCores`. The worker
+ * takes the calling thread's longest stretch of work after the clustering off its path (about a
+ * quarter of its time at 100,000 points) when it has a core to itself, but costs some 0.1 s more
+ * CPU (its start, its copy of the arrays) and gains nothing when every core is busy with other
+ * work: measured on two cores at load average 5–6, the same wall time and more CPU than one
+ * thread. Platforms without a load average (Windows reports 0) always use it.
+ */
+function coreFree(): boolean {
+  return availableParallelism() - loadavg()[0] >= LAYER_THREAD.minFreeCores;
+}
 
 /** What the worker receives: the job without its byte source, and where to write which layer. */
 export interface LayerTask {
@@ -64,7 +77,7 @@ export class PointLayerThread {
 
   /** A worker for a run on the file `input` of `bytes` bytes, or null when one would not pay. */
   static start(input: string, bytes: number): PointLayerThread | null {
-    if (bytes < LAYER_THREAD.minBytes || bytes > LAYER_THREAD.maxBytes || availableParallelism() < 2) return null;
+    if (bytes < LAYER_THREAD.minBytes || bytes > LAYER_THREAD.maxBytes || availableParallelism() < 2 || !coreFree()) return null;
     return new PointLayerThread(input);
   }
 
