@@ -118,16 +118,25 @@ export function dbscan(points: PointSet, options: DbscanOptions): Clustering {
     for (let k = 0; k < n; k++) sw[k] = w[sorted[k]];
   }
 
-  // Pass 1: core flags. A count stops as soon as it reaches minPoints.
+  // Pass 1: core flags. A count stops as soon as it reaches minPoints. Without weights the
+  // point's own cell is read first (a = a0 − 1 stands for it, and it is skipped in the list):
+  // its points lie nearest, so a dense cell's counts stop after a few reads. With weights the
+  // cells are read in list order, so that the floating-point sums, and hence the flags, stay
+  // exactly as they are summed in that order.
   const core = new Uint8Array(n);
+  const first = sw === null ? -1 : 0;
   let nextReport = PROGRESS_STEP;
   for (let c = 0; c < cellCount; c++) {
     const a0 = nbrStart[c], a1 = nbrStart[c + 1];
     for (let k = cellStart[c], kEnd = cellStart[c + 1]; k < kEnd; k++) {
       const x = sxyz[3 * k], y = sxyz[3 * k + 1], z = sxyz[3 * k + 2];
       let sum = 0;
-      scan: for (let a = a0; a < a1; a++) {
-        const d = nbr[a];
+      scan: for (let a = a0 + first; a < a1; a++) {
+        let d = c;
+        if (a >= a0) {
+          d = nbr[a];
+          if (d === c && first < 0) continue;
+        }
         for (let m = cellStart[d], mEnd = cellStart[d + 1]; m < mEnd; m++) {
           const dx = sxyz[3 * m] - x, dy = sxyz[3 * m + 1] - y, dz = sxyz[3 * m + 2] - z;
           if (dx * dx + dy * dy + dz * dz <= r2) {
