@@ -36,7 +36,6 @@ const MIN_CELL = 2 / 2 ** 17;
 interface Layout {
   sorted: Int32Array;
   sxyz: Float64Array;
-  cellOf: Int32Array;
   cellStart: Int32Array;
   cx: Int32Array;
   cy: Int32Array;
@@ -61,74 +60,46 @@ interface Layout {
  * it is still in cache.
  */
 function buildLayout(xyz: Float64Array, n: number, inv: number): Layout {
-  // 1. grid x of every point, and the extent on each axis
-  const gx = new Int32Array(n);
-  let minX = 0, maxX = 0, minY = 0, maxY = 0, minZ = 0, maxZ = 0;
-  for (let i = 0; i < n; i++) {
-    const ix = Math.floor(xyz[3 * i] * inv);
-    const iy = Math.floor(xyz[3 * i + 1] * inv);
-    const iz = Math.floor(xyz[3 * i + 2] * inv);
-    gx[i] = ix;
-    if (i === 0 || ix < minX) minX = ix;
-    if (i === 0 || ix > maxX) maxX = ix;
-    if (i === 0 || iy < minY) minY = iy;
-    if (i === 0 || iy > maxY) maxY = iy;
-    if (i === 0 || iz < minZ) minZ = iz;
-    if (i === 0 || iz > maxZ) maxZ = iz;
-  }
+  // 1. the extent on each axis and the size of every x slab, in one pass. A grid coordinate
+  //    lies within ⌊−inv⌋ .. ⌊inv⌋ (the vectors are unit vectors), so the slab counts are kept
+  //    over that whole range, offset by ⌊−inv⌋, before the extent is known.
+  const base = Math.floor(-inv);
+  const slabCount = new Int32Array(Math.floor(inv) - base + 2);
+  const extent = new Int32Array(6);
+  countSlabs(xyz, n, inv, base, slabCount, extent);
+  const [minX, maxX, minY, maxY, minZ, maxZ] = extent;
 
   // 2. stable counting sort by x: ids and vectors scattered into their slabs
   const rangeX = maxX - minX + 1;
   const slabStart = new Int32Array(rangeX + 1);
-  for (let i = 0; i < n; i++) slabStart[gx[i] - minX + 1]++;
-  for (let r = 0; r < rangeX; r++) slabStart[r + 1] += slabStart[r];
+  for (let r = 0; r < rangeX; r++) slabStart[r + 1] = slabStart[r] + slabCount[r + minX - base];
   const sorted = new Int32Array(n);
   const sxyz = new Float64Array(n * 3);
-  const next = slabStart.slice(0, rangeX);
-  for (let i = 0; i < n; i++) {
-    const s = next[gx[i] - minX]++;
-    sorted[s] = i;
-    sxyz[3 * s] = xyz[3 * i];
-    sxyz[3 * s + 1] = xyz[3 * i + 1];
-    sxyz[3 * s + 2] = xyz[3 * i + 2];
-  }
+  for (let r = 0; r < rangeX; r++) slabCount[r + minX - base] = slabStart[r];
+  scatterSlabs(xyz, n, inv, base, slabCount, sorted, sxyz);
 
-  // 3. each slab sorted by (y, z, id) and its cells read off
-  const cellOf = new Int32Array(n);
-  const startBuf = new Int32Array(n + 1);
-  const cxBuf = new Int32Array(n);
-  const cyBuf = new Int32Array(n);
-  const czBuf = new Int32Array(n);
-  let cells = 0;
+  // 3. each slab sorted by (y, z, id) and its cells read off. There are at most n cells; the
+  //    cell arrays are views of n-sized buffers, of which only the cells' part is ever written.
+  const cellStart = new Int32Array(n + 1);
+  const cx = new Int32Array(n);
+  const cy = new Int32Array(n);
+  const cz = new Int32Array(n);
   const scratch = new SlabScratch(Math.max(maxY - minY, maxZ - minZ) + 2);
+  let cells = 0;
   for (let r = 0; r < rangeX; r++) {
     const b0 = slabStart[r], b1 = slabStart[r + 1];
     if (b1 === b0) continue;
-    const { perm, ly, lz } = scratch.sortSlab(sorted, sxyz, b0, b1, inv);
-    const ix = r + minX;
-    let py = 0, pz = 0;
-    for (let t = 0; t < b1 - b0; t++) {
-      const j = perm[t];
-      const iy = ly[j], iz = lz[j];
-      if (t === 0 || iy !== py || iz !== pz) {
-        cxBuf[cells] = ix;
-        cyBuf[cells] = py = iy;
-        czBuf[cells] = pz = iz;
-        startBuf[cells] = b0 + t;
-        cells++;
-      }
-      cellOf[sorted[b0 + t]] = cells - 1;
-    }
+    scratch.sortSlab(sorted, sxyz, b0, b1, inv);
+    cells = scratch.readCells(b0, b1, r + minX, cells, cellStart, cx, cy, cz);
   }
-  startBuf[cells] = n;
+  cellStart[cells] = n;
   return {
     sorted,
     sxyz,
-    cellOf,
-    cellStart: startBuf.slice(0, cells + 1),
-    cx: cxBuf.slice(0, cells),
-    cy: cyBuf.slice(0, cells),
-    cz: czBuf.slice(0, cells),
+    cellStart: cellStart.subarray(0, cells + 1),
+    cx: cx.subarray(0, cells),
+    cy: cy.subarray(0, cells),
+    cz: cz.subarray(0, cells),
     minX,
     maxX,
     minY,
@@ -136,6 +107,48 @@ function buildLayout(xyz: Float64Array, n: number, inv: number): Layout {
     minZ,
     maxZ,
   };
+}
+
+/**
+ * Step 1 of `buildLayout`: counts the points of every x slab into slabCount[⌊x·inv⌋ − base] and
+ * writes the extent of the grid coordinates, min and max per axis, into extent.
+ */
+function countSlabs(xyz: Float64Array, n: number, inv: number, base: number, slabCount: Int32Array, extent: Int32Array): void {
+  let minX = 0, maxX = 0, minY = 0, maxY = 0, minZ = 0, maxZ = 0;
+  for (let i = 0; i < n; i++) {
+    const ix = Math.floor(xyz[3 * i] * inv);
+    const iy = Math.floor(xyz[3 * i + 1] * inv);
+    const iz = Math.floor(xyz[3 * i + 2] * inv);
+    slabCount[ix - base]++;
+    if (i === 0 || ix < minX) minX = ix;
+    if (i === 0 || ix > maxX) maxX = ix;
+    if (i === 0 || iy < minY) minY = iy;
+    if (i === 0 || iy > maxY) maxY = iy;
+    if (i === 0 || iz < minZ) minZ = iz;
+    if (i === 0 || iz > maxZ) maxZ = iz;
+  }
+  extent[0] = minX;
+  extent[1] = maxX;
+  extent[2] = minY;
+  extent[3] = maxY;
+  extent[4] = minZ;
+  extent[5] = maxZ;
+}
+
+/**
+ * Step 2 of `buildLayout`: a stable scatter of ids and vectors into their x slabs, next[⌊x·inv⌋ −
+ * base] being the next free position of each slab (the grid x is found again, which costs less
+ * than keeping it).
+ */
+function scatterSlabs(xyz: Float64Array, n: number, inv: number, base: number, next: Int32Array, sorted: Int32Array, sxyz: Float64Array): void {
+  for (let i = 0; i < n; i++) {
+    const x = xyz[3 * i];
+    const s = next[Math.floor(x * inv) - base]++;
+    sorted[s] = i;
+    sxyz[3 * s] = x;
+    sxyz[3 * s + 1] = xyz[3 * i + 1];
+    sxyz[3 * s + 2] = xyz[3 * i + 2];
+  }
 }
 
 /** Buffers reused by every slab of `buildLayout`, grown to the largest slab. */
@@ -153,11 +166,33 @@ class SlabScratch {
   }
 
   /**
-   * Sorts one x slab, positions b0..b1 of `sorted` (ids ascending) and of `sxyz`, by (y, z, id)
-   * in place. Returns the slab's local order (perm[t] = the slab-local index now at b0 + t) and
-   * the grid y and z of every slab-local index.
+   * Reads off the cells of the slab at positions b0..b1, last sorted by `sortSlab`: each run of
+   * equal (y, z) is a cell, numbered from `cells` on, with grid x `ix`. Returns the cell count
+   * after the slab.
    */
-  sortSlab(sorted: Int32Array, sxyz: Float64Array, b0: number, b1: number, inv: number): { perm: Int32Array; ly: Int32Array; lz: Int32Array } {
+  readCells(b0: number, b1: number, ix: number, cells: number, cellStart: Int32Array, cx: Int32Array, cy: Int32Array, cz: Int32Array): number {
+    const { perm, ly, lz } = this;
+    let py = 0, pz = 0;
+    for (let t = 0; t < b1 - b0; t++) {
+      const j = perm[t];
+      const iy = ly[j], iz = lz[j];
+      if (t === 0 || iy !== py || iz !== pz) {
+        cx[cells] = ix;
+        cy[cells] = py = iy;
+        cz[cells] = pz = iz;
+        cellStart[cells] = b0 + t;
+        cells++;
+      }
+    }
+    return cells;
+  }
+
+  /**
+   * Sorts one x slab, positions b0..b1 of `sorted` (ids ascending) and of `sxyz`, by (y, z, id)
+   * in place, leaving the slab's local order in `perm` (perm[t] = the slab-local index now at
+   * b0 + t) and the grid y and z of every slab-local index in `ly` and `lz`.
+   */
+  sortSlab(sorted: Int32Array, sxyz: Float64Array, b0: number, b1: number, inv: number): void {
     const m = b1 - b0;
     if (this.ids.length < m) {
       const size = Math.max(m, 2 * this.ids.length);
@@ -185,7 +220,7 @@ class SlabScratch {
     const rangeY = y1 - y0 + 1, rangeZ = z1 - z0 + 1;
     if (m === 1) {
       perm[0] = 0;
-      return { perm, ly, lz };
+      return;
     }
     if (rangeY + rangeZ > 4 * m + 64) {
       // a sparse slab: counting over its extent would cost more than comparing
@@ -216,8 +251,49 @@ class SlabScratch {
       sxyz[3 * k + 1] = vec[3 * j + 1];
       sxyz[3 * k + 2] = vec[3 * j + 2];
     }
-    return { perm, ly, lz };
   }
+}
+
+/**
+ * Each cell's non-empty neighbour cells (itself included), ascending, by a sweep: for each of the
+ * 9 (dx, dy) columns a cursor into the sorted cells. The first cell not before (x+dx, y+dy, z-1)
+ * only moves forward as the sweep advances, so the whole pass is linear in the number of cells.
+ * Each cell gets one numeric key, ascending in cell order, with a spare slot on both sides of
+ * every axis so that x±1, y±1, z±1 never alias into a neighbouring column; comparisons are then
+ * one number each. Keys stay below 2^53 (at most 2^17 + 3 values per axis), so they are exact.
+ * The list is a view of a buffer grown by doubling; only its written part is ever touched.
+ */
+function neighbourCells(layout: Layout, cells: number): { nbrStart: Int32Array; nbr: Int32Array } {
+  const { minX, minY, maxY, minZ, maxZ, cx, cy, cz } = layout;
+  const ry = maxY - minY + 3;
+  const rz = maxZ - minZ + 3;
+  const key = new Float64Array(cells);
+  for (let c = 0; c < cells; c++) key[c] = ((cx[c] - minX + 1) * ry + (cy[c] - minY + 1)) * rz + (cz[c] - minZ + 1);
+  const nbrStart = new Int32Array(cells + 1);
+  let buf = new Int32Array(Math.max(16, cells * 9));
+  let len = 0;
+  const cursor = new Int32Array(9);
+  for (let c = 0; c < cells; c++) {
+    const kc = key[c];
+    let col = 0;
+    for (let dx = -1; dx <= 1; dx++) {
+      for (let dy = -1; dy <= 1; dy++, col++) {
+        const mid = kc + (dx * ry + dy) * rz;
+        const lo = mid - 1, hi = mid + 1;
+        let p = cursor[col];
+        while (p < cells && key[p] < lo) p++;
+        cursor[col] = p;
+        if (len + 3 > buf.length) {
+          const grown = new Int32Array(buf.length * 2);
+          grown.set(buf);
+          buf = grown;
+        }
+        for (let q = p; q < cells && key[q] <= hi; q++) buf[len++] = q;
+      }
+    }
+    nbrStart[c + 1] = len;
+  }
+  return { nbrStart, nbr: buf.subarray(0, len) };
 }
 
 /** Lexicographic comparison of integer cell coordinates. */
@@ -246,8 +322,17 @@ export class SphereIndex {
    */
   /** unit vectors in `sorted` order, stride 3, for cache-friendly scans */
   readonly sxyz: Float64Array;
-  /** cell id of each point (input order) */
-  readonly cellOf: Int32Array;
+  /** cell id of each point (input order), filled on first use (the clustering passes never need it) */
+  get cellOf(): Int32Array {
+    if (this.cellOfBuf === null) {
+      const cellOf = new Int32Array(this.n);
+      const { sorted, cellStart } = this;
+      for (let c = 0; c < this.cellCount; c++) for (let k = cellStart[c]; k < cellStart[c + 1]; k++) cellOf[sorted[k]] = c;
+      this.cellOfBuf = cellOf;
+    }
+    return this.cellOfBuf;
+  }
+  private cellOfBuf: Int32Array | null = null;
   /** cell c holds the positions cellStart[c] .. cellStart[c+1]-1 */
   readonly cellStart: Int32Array;
   /** cell c's non-empty neighbour cells (itself included), ascending, are nbr[nbrStart[c] .. nbrStart[c+1]) */
@@ -279,53 +364,20 @@ export class SphereIndex {
 
     // 1–3. points in cell order, their vectors copied in that order, and the cells
     const layout = buildLayout(xyz, n, 1 / this.cellSize);
-    const { minX, minY, maxY, minZ, maxZ, cx, cy, cz } = layout;
+    const { cx, cy, cz } = layout;
     const cells = layout.cx.length;
     this.cellCount = cells;
     this.cellStart = layout.cellStart;
     this.cx = cx;
     this.cy = cy;
     this.cz = cz;
-    this.cellOf = layout.cellOf;
     this.sorted = layout.sorted;
     this.sxyz = layout.sxyz;
 
-    // 4. neighbour cells by a sweep: for each of the 9 (dx, dy) columns keep a cursor into the
-    //    sorted cells. The first cell not before (x+dx, y+dy, z-1) only moves forward as the
-    //    sweep advances, so the whole pass is linear in the number of cells. Each cell gets one
-    //    numeric key, ascending in cell order, with a spare slot on both sides of every axis so
-    //    that x±1, y±1, z±1 never alias into a neighbouring column; comparisons are then one
-    //    number each. Keys stay below 2^53 (at most 2^17 + 3 values per axis), so they are exact.
-    const ry = maxY - minY + 3;
-    const rz = maxZ - minZ + 3;
-    const key = new Float64Array(cells);
-    for (let c = 0; c < cells; c++) key[c] = ((cx[c] - minX + 1) * ry + (cy[c] - minY + 1)) * rz + (cz[c] - minZ + 1);
-    const nbrStart = new Int32Array(cells + 1);
-    let buf = new Int32Array(Math.max(16, cells * 9));
-    let len = 0;
-    const cursor = new Int32Array(9);
-    for (let c = 0; c < cells; c++) {
-      const kc = key[c];
-      let col = 0;
-      for (let dx = -1; dx <= 1; dx++) {
-        for (let dy = -1; dy <= 1; dy++, col++) {
-          const mid = kc + (dx * ry + dy) * rz;
-          const lo = mid - 1, hi = mid + 1;
-          let p = cursor[col];
-          while (p < cells && key[p] < lo) p++;
-          cursor[col] = p;
-          if (len + 3 > buf.length) {
-            const grown = new Int32Array(buf.length * 2);
-            grown.set(buf);
-            buf = grown;
-          }
-          for (let q = p; q < cells && key[q] <= hi; q++) buf[len++] = q;
-        }
-      }
-      nbrStart[c + 1] = len;
-    }
+    // 4. neighbour cells
+    const { nbrStart, nbr } = neighbourCells(layout, cells);
     this.nbrStart = nbrStart;
-    this.nbr = buf.slice(0, len);
+    this.nbr = nbr;
   }
 
   /** Cell id of grid coordinates by binary search over the sorted cells, or EMPTY. */
