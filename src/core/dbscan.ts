@@ -224,16 +224,41 @@ export function dbscan(points: PointSet, options: DbscanOptions): Clustering {
     }
   }
 
-  // Pass 3: number hotspots by the lowest input index among their core points.
-  const posOf = new Int32Array(n);
-  for (let k = 0; k < n; k++) posOf[sorted[k]] = k;
+  // Pass 3: number hotspots by the lowest input index among their core points. One pass in
+  // position order finds each component's root and the lowest point id among its core points
+  // (kept at the root's slot for now); the hotspots are then numbered by sorting those ids,
+  // which are distinct, and each root's slot is given its number.
   const rootLabel = new Int32Array(n).fill(-1);
+  let roots = new Int32Array(64);
   let count = 0;
-  for (let i = 0; i < n; i++) {
-    const k = posOf[i];
+  for (let k = 0; k < n; k++) {
     if (core[k] === 0) continue;
     const r = find(parent, k);
-    if (rootLabel[r] < 0) rootLabel[r] = count++;
+    const id = sorted[k];
+    const seen = rootLabel[r];
+    if (seen < 0) {
+      if (count === roots.length) {
+        const grown = new Int32Array(2 * count);
+        grown.set(roots);
+        roots = grown;
+      }
+      roots[count++] = r;
+      rootLabel[r] = id;
+    } else if (id < seen) rootLabel[r] = id;
+  }
+  const lowest = new Int32Array(count);
+  for (let h = 0; h < count; h++) lowest[h] = rootLabel[roots[h]];
+  lowest.sort();
+  for (let h = 0; h < count; h++) {
+    const r = roots[h];
+    const id = rootLabel[r];
+    let lo = 0, hi = count - 1;
+    while (lo < hi) {
+      const mid = (lo + hi) >>> 1;
+      if (lowest[mid] < id) lo = mid + 1;
+      else hi = mid;
+    }
+    rootLabel[r] = lo;
   }
   // label per position: every core point takes its root's label (a root keeps its own), the
   // rest stay −1 until pass 4
