@@ -7,8 +7,14 @@
  * result, so old and new can be checked to agree.
  *
  *   node --expose-gc --import tsx test/bench/engine-measure.ts <dbscan|optics> <n> <runs> [dist dir]
+ *
+ * A copied tree must sit beside a package.json saying "type": "module" (as this checkout's
+ * dist/ does): without one its files are ES modules Node cannot place, and tsx then compiles
+ * them itself, with helpers around every function that make the copy measurably slower.
  */
 import { createHash } from 'node:crypto';
+import { existsSync, readFileSync } from 'node:fs';
+import { dirname, resolve } from 'node:path';
 import { pathToFileURL } from 'node:url';
 import { BENCH_EPS_METERS, BENCH_MIN_POINTS, benchPoints } from './data.js';
 
@@ -29,6 +35,14 @@ export interface EngineMeasurement {
 const [stage, nText, runsText, distDir] = process.argv.slice(2);
 const n = Number(nText);
 const runs = Number(runsText ?? 3);
+if (distDir) {
+  const manifest = resolve(dirname(resolve(distDir)), 'package.json');
+  const type = existsSync(manifest) ? (JSON.parse(readFileSync(manifest, 'utf8')) as { type?: string }).type : undefined;
+  if (type !== 'module') {
+    process.stderr.write(`${manifest} must exist and say "type": "module", or the copied build is compiled again on loading and runs slower\n`);
+    process.exit(2);
+  }
+}
 const root = distDir ? pathToFileURL(`${distDir.replace(/\/$/, '')}/`).href : new URL('../../dist/', import.meta.url).href;
 const { dbscan } = (await import(`${root}core/dbscan.js`)) as typeof import('../../src/core/dbscan.js');
 const { optics } = (await import(`${root}core/optics.js`)) as typeof import('../../src/core/optics.js');
