@@ -255,45 +255,46 @@ class SlabScratch {
 }
 
 /**
- * Each cell's non-empty neighbour cells (itself included), ascending, by a sweep: for each of the
- * 9 (dx, dy) columns a cursor into the sorted cells. The first cell not before (x+dx, y+dy, z-1)
- * only moves forward as the sweep advances, so the whole pass is linear in the number of cells.
- * Each cell gets one numeric key, ascending in cell order, with a spare slot on both sides of
- * every axis so that x±1, y±1, z±1 never alias into a neighbouring column; comparisons are then
- * one number each. Keys stay below 2^53 (at most 2^17 + 3 values per axis), so they are exact.
- * The list is a view of a buffer grown by doubling; only its written part is ever touched.
+ * Each cell's non-empty neighbour cells (itself included), ascending, by a sweep. Each cell gets
+ * one numeric key, ascending in cell order, with a spare slot on both sides of every axis so
+ * that x±1, y±1, z±1 never alias into a neighbouring column; comparisons are then one number
+ * each. Keys stay below 2^53 (at most 2^17 + 3 values per axis), so they are exact. For each dx
+ * in −1..1 the neighbours of cell (x, y, z) lie in the one run of cells from key (x+dx, y−1, z−1)
+ * to key (x+dx, y+1, z+1); the run is read from a cursor that only moves forward as the sweep
+ * advances, keeping the cells whose z is within 1 (the points lie on a surface, so the run holds
+ * few others). The list is a view of a buffer grown by doubling; only its written part is touched.
  */
-function neighbourCells(layout: Layout, cells: number): { nbrStart: Int32Array; nbr: Int32Array } {
+function neighbourCells(layout: Layout, cells: number, nbrStart: Int32Array): Int32Array {
   const { minX, minY, maxY, minZ, maxZ, cx, cy, cz } = layout;
   const ry = maxY - minY + 3;
   const rz = maxZ - minZ + 3;
   const key = new Float64Array(cells);
   for (let c = 0; c < cells; c++) key[c] = ((cx[c] - minX + 1) * ry + (cy[c] - minY + 1)) * rz + (cz[c] - minZ + 1);
-  const nbrStart = new Int32Array(cells + 1);
-  let buf = new Int32Array(Math.max(16, cells * 9));
+  let buf = new Int32Array(Math.max(32, cells * 9));
   let len = 0;
-  const cursor = new Int32Array(9);
+  const cursor = new Int32Array(3);
   for (let c = 0; c < cells; c++) {
     const kc = key[c];
-    let col = 0;
+    const z = cz[c];
+    if (len + 27 > buf.length) {
+      const grown = new Int32Array(buf.length * 2);
+      grown.set(buf);
+      buf = grown;
+    }
     for (let dx = -1; dx <= 1; dx++) {
-      for (let dy = -1; dy <= 1; dy++, col++) {
-        const mid = kc + (dx * ry + dy) * rz;
-        const lo = mid - 1, hi = mid + 1;
-        let p = cursor[col];
-        while (p < cells && key[p] < lo) p++;
-        cursor[col] = p;
-        if (len + 3 > buf.length) {
-          const grown = new Int32Array(buf.length * 2);
-          grown.set(buf);
-          buf = grown;
-        }
-        for (let q = p; q < cells && key[q] <= hi; q++) buf[len++] = q;
+      const mid = kc + dx * ry * rz;
+      const lo = mid - rz - 1, hi = mid + rz + 1;
+      let p = cursor[dx + 1];
+      while (p < cells && key[p] < lo) p++;
+      cursor[dx + 1] = p;
+      for (let q = p; q < cells && key[q] <= hi; q++) {
+        const dz = cz[q] - z;
+        if (dz >= -1 && dz <= 1) buf[len++] = q;
       }
     }
     nbrStart[c + 1] = len;
   }
-  return { nbrStart, nbr: buf.subarray(0, len) };
+  return buf.subarray(0, len);
 }
 
 /** Lexicographic comparison of integer cell coordinates. */
@@ -375,9 +376,8 @@ export class SphereIndex {
     this.sxyz = layout.sxyz;
 
     // 4. neighbour cells
-    const { nbrStart, nbr } = neighbourCells(layout, cells);
-    this.nbrStart = nbrStart;
-    this.nbr = nbr;
+    this.nbrStart = new Int32Array(cells + 1);
+    this.nbr = neighbourCells(layout, cells, this.nbrStart);
   }
 
   /** Cell id of grid coordinates by binary search over the sorted cells, or EMPTY. */
