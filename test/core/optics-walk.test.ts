@@ -10,7 +10,8 @@
  * Seeded sets with exact ties (stacked duplicates, where many neighbours share one reachability
  * equal to the core distance, and cells of more than 32 points, ordered by x through buckets or,
  * where x is bunched, a comparison sort), points at the North Pole and across ±180°, weights, fractional and large minPoints
- * (above the sorted-run limit, where quickselect takes over).
+ * (above the sorted-run limit, where quickselect takes over), and a set whose cells hold hundreds
+ * of points.
  * Seed: ROOST_SEED (printed).
  */
 import { describe, expect, it } from 'vitest';
@@ -68,6 +69,8 @@ describe('OPTICS walk in index positions', () => {
     ['weighted', weightedSet(SEED + 5)],
     ['stacked weighted', withWeights(stackedSet(SEED + 6), SEED + 7)],
     ['realistic 20k', realisticSet(20_000, SEED + 8, { regionMeters: 20_000 })],
+    // cells of hundreds of points
+    ['crowded cells 12k', realisticSet(12_000, SEED + 9, { regionMeters: 2_500 })],
   ];
   const params: [number, number][] = [
     [250, 5],
