@@ -28,13 +28,16 @@ export class InputFile implements ByteSource {
   /**
    * @param windowBytes bytes the byte reader scans at a time (at least 16; small values are for
    *   tests of features cut at window edges)
+   * @param size the length in bytes, for a subclass whose bytes come from elsewhere than the file
+   *   system (it then overrides `readInto` and `readAll`); by default the file's size
    */
   constructor(
     readonly path: string,
     readonly windowBytes = 4 << 20,
+    size?: number,
   ) {
     if (!Number.isInteger(windowBytes) || windowBytes < 16) throw new RangeError(`windowBytes must be a whole number ≥ 16, got ${windowBytes}`);
-    this.size = statSync(path).size;
+    this.size = size ?? statSync(path).size;
   }
   window(): ByteWindow {
     return new ByteWindow(new Uint8Array(0), 0, this);
