@@ -8,6 +8,7 @@
  * body takes an upload slot. Without Content-Length the chunks are kept and joined at the end.
  */
 import type { FastifyRequest } from 'fastify';
+import type { ArrivingBody } from './arriving.js';
 import { HttpProblem } from './errors.js';
 import type { BodyFormat } from './work.js';
 
@@ -53,6 +54,16 @@ export interface UploadAllowance {
 /** Share of the declared length that must arrive before a buffer of the declared length is made. */
 const DECLARED_TRUST_SHARE = 8;
 
+/**
+ * Set on a request by its route before the body is read: called once the declared length is
+ * trusted, it may return a shared buffer of that length (src/http/arriving.ts) to receive the
+ * body into, for work that reads the body while it arrives; it is told when the body ends whole
+ * (`complete`) or not (`fail`). Null: the body is received as any other.
+ */
+export const READ_WHILE_ARRIVING = Symbol('read while arriving');
+export type ArrivalStart = (declared: number) => ArrivingBody | null;
+type ArrivalRequest = FastifyRequest & { [READ_WHILE_ARRIVING]?: ArrivalStart };
+
 export interface BodyOptions {
   /** largest accepted body, bytes */
   limitBytes: number;
@@ -76,6 +87,8 @@ class BodyReceipt {
   private received = 0;
   /** the declared-size buffer, once enough of the body has arrived to trust its Content-Length */
   private whole: Buffer | null = null;
+  /** the shared buffer `whole` is, when the body is read while it arrives */
+  private arriving: ArrivingBody | null = null;
   /** bytes held in `chunks` */
   private chunked = 0;
   private peakHeld = 0;
@@ -88,6 +101,7 @@ class BodyReceipt {
     private readonly declared: number | null,
     private readonly options: BodyOptions,
     private readonly done: BodyDone,
+    private readonly arrivalStart: ArrivalStart | undefined,
   ) {
     this.deadline = setTimeout(this.onDeadline, options.uploadTimeoutMs);
     this.deadline.unref();
@@ -108,6 +122,9 @@ class BodyReceipt {
     this.payload.removeListener('close', this.onClose);
     this.chunks.length = 0;
     this.whole = null;
+    if (err) this.arriving?.fail();
+    else this.arriving?.complete();
+    this.arriving = null;
     this.done(err, body, this.peakHeld);
   }
 
@@ -143,12 +160,14 @@ class BodyReceipt {
       this.chunked += bytes.length;
       if (this.declared !== null && next * DECLARED_TRUST_SHARE >= this.declared) {
         // enough has arrived to believe the declared length: one buffer of that size from here on
-        this.whole = ownBuffer(this.declared);
+        this.arriving = this.arrivalStart?.(this.declared) ?? null;
+        this.whole = this.arriving ? this.arriving.buffer : ownBuffer(this.declared);
         this.peakHeld = Math.max(this.peakHeld, this.chunked + this.declared);
         this.joinChunksInto(this.whole);
       }
     }
     this.received = next;
+    this.arriving?.filled(next);
     this.peakHeld = Math.max(this.peakHeld, this.chunked + (this.whole ? this.whole.length : 0));
   };
 
@@ -225,11 +244,17 @@ export function rawBodyParser(options: BodyOptions): { parser: (request: Fastify
     }
     uploading++;
     const known = Number.isSafeInteger(declared) && declared >= 0;
-    new BodyReceipt(payload, known ? declared : null, options, (err, body, held = 0) => {
-      uploading--;
-      peakHeldBytes = Math.max(peakHeldBytes, held);
-      done(err, body);
-    });
+    new BodyReceipt(
+      payload,
+      known ? declared : null,
+      options,
+      (err, body, held = 0) => {
+        uploading--;
+        peakHeldBytes = Math.max(peakHeldBytes, held);
+        done(err, body);
+      },
+      (request as ArrivalRequest)[READ_WHILE_ARRIVING],
+    );
   };
   return { parser, allowance };
 }

@@ -4,6 +4,7 @@
  */
 import { Piscina } from 'piscina';
 import { workerEntry } from '../workers/location.js';
+import type { ArrivingBody } from './arriving.js';
 import type { WorkResult, WorkTask } from './work.js';
 
 export interface WorkPool {
@@ -14,6 +15,14 @@ export interface WorkPool {
    * Rejects with QueueFullError when `queueSize` tasks already wait.
    */
   run(task: WorkTask, signal: AbortSignal): Promise<WorkResult>;
+  /**
+   * Runs a clustering on a body while it arrives (`task.arriving`; src/http/arriving.ts). While the
+   * worker waits for bytes it gives its thread back as soon as another task is run with every
+   * thread busy, and answers `read-again`.
+   */
+  runArriving(task: WorkTask, arriving: ArrivingBody, signal: AbortSignal): Promise<WorkResult>;
+  /** whether a thread is free now (no task running or waiting on it) */
+  readonly idle: boolean;
   /** worker threads */
   readonly threads: number;
   /** tasks waiting for a free worker */
@@ -53,14 +62,39 @@ export function createWorkPool(options: WorkPoolOptions): WorkPool {
     concurrentTasksPerWorker: 1,
     idleTimeout: 2 ** 31 - 1,
   });
+  /** tasks given to piscina and not yet settled */
+  let active = 0;
+  /** bodies being read while they arrive */
+  const reading = new Set<ArrivingBody>();
+  const start = async (task: WorkTask, signal: AbortSignal): Promise<WorkResult> => {
+    // a shared body is shared, not transferred
+    const transferList = task.body.buffer instanceof ArrayBuffer ? [task.body.buffer] : [];
+    active++;
+    try {
+      return await piscina.run(task, { signal, transferList });
+    } catch (err) {
+      if (err instanceof Error && /queue is at limit|no task queue available/i.test(err.message)) throw new QueueFullError();
+      throw err;
+    } finally {
+      active--;
+    }
+  };
   return {
-    async run(task, signal) {
+    run(task, signal) {
+      // a thread waiting for an upload gives way to a task that would otherwise wait for it
+      if (active >= options.workers) for (const a of reading) a.askToYield();
+      return start(task, signal);
+    },
+    async runArriving(task, arriving, signal) {
+      reading.add(arriving);
       try {
-        return await piscina.run(task, { signal, transferList: [task.body.buffer as ArrayBuffer] });
-      } catch (err) {
-        if (err instanceof Error && /queue is at limit|no task queue available/i.test(err.message)) throw new QueueFullError();
-        throw err;
+        return await start(task, signal);
+      } finally {
+        reading.delete(arriving);
       }
+    },
+    get idle() {
+      return active < options.workers;
     },
     get threads() {
       return options.workers;

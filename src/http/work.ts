@@ -3,6 +3,7 @@
  * bytes both ways, so neither side copies or re-parses the other's data.
  */
 import type { LayerName } from '../run/layers.js';
+import type { ArrivingShare } from './arriving.js';
 import type { ProblemCode } from './errors.js';
 
 /** Input formats, named as the clustering pipeline names them. */
@@ -11,8 +12,13 @@ export type BodyFormat = 'geojson' | 'csv' | 'geojson-seq';
 
 export interface WorkTask {
   op: 'cluster' | 'k-distance' | 'sweep';
-  /** the raw request body; its ArrayBuffer is transferred to the worker */
+  /**
+   * the raw request body; its ArrayBuffer is transferred to the worker (a SharedArrayBuffer, the
+   * body of a request read while it arrives, is shared)
+   */
   body: Uint8Array;
+  /** for `cluster`: the body is still arriving into `body`'s shared memory (src/http/arriving.ts) */
+  arriving?: ArrivingShare | undefined;
   format: BodyFormat;
   /** settings from the query string, as the client wrote them (strings or string arrays) */
   query: Record<string, unknown>;
@@ -43,4 +49,13 @@ export interface WorkFailed {
   stack: string | undefined;
 }
 
-export type WorkResult = WorkDone | WorkRejected | WorkFailed;
+/**
+ * No answer from a body read while it arrived: the upload failed (`abandoned`: the upload's own
+ * problem is the answer), or the body is to be read again whole once it has arrived (`read-again`).
+ */
+export interface WorkUnanswered {
+  ok: false;
+  code: 'abandoned' | 'read-again';
+}
+
+export type WorkResult = WorkDone | WorkRejected | WorkFailed | WorkUnanswered;

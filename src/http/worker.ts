@@ -14,6 +14,8 @@ import { SweepError } from '../trust/sweep.js';
 import { assessHere, clusterCases } from '../trust/assess.js';
 import { resolveTrustSettings, splitTrustSettings } from '../trust/options.js';
 import { readStudyArea } from '../trust/study-area.js';
+import type { InputFile } from '../ingest/source.js';
+import { ArrivalStopped, ArrivingSource, type ArrivingShare } from './arriving.js';
 import { MAX_LISTED_PROBLEMS } from './errors.js';
 import type { WorkRejected, WorkResult, WorkTask } from './work.js';
 
@@ -89,34 +91,67 @@ function rejectInput(err: InputError): WorkResult {
 
 /** Runs one task; the default export piscina calls. */
 export default function work(task: WorkTask): WorkResult {
+  if (task.arriving !== undefined) return workArriving(task, task.arriving);
   const body = Buffer.from(task.body.buffer, task.body.byteOffset, task.body.byteLength);
+  const fromBody = task.format === 'geojson' ? bodySettings(body) : { settings: {} };
+  if ('rejected' in fromBody) return fromBody.rejected;
+  return answer(task, body, fromBody.settings);
+}
+
+/**
+ * A clustering read from a body while it arrives (src/http/arriving.ts). Its answer is the one
+ * the body read whole would have had, as long as the body has no `settings` member (which is read
+ * from the whole body before anything else): when the bytes `"settings"` occur in it, the body is
+ * read again whole here; when the work ended before the last byte was in (settings that need the
+ * body's, say) or the thread is wanted for another request, the main thread's ordinary task reads
+ * it once the upload has ended (`read-again`).
+ */
+function workArriving(task: WorkTask, share: ArrivingShare): WorkResult {
+  const source = new ArrivingSource(share);
+  let result: WorkResult;
   try {
-    const fromBody = task.format === 'geojson' ? bodySettings(body) : { settings: {} };
-    if ('rejected' in fromBody) return fromBody.rejected;
+    result = answer(task, source, {});
+  } catch (err) {
+    if (err instanceof ArrivalStopped) return { ok: false, code: err.why === 'failed' ? 'abandoned' : 'read-again' };
+    throw err;
+  }
+  if (!source.allIn) return { ok: false, code: 'read-again' };
+  const body = Buffer.from(share.bytes, 0, source.size);
+  if (task.format === 'geojson' && body.indexOf(SETTINGS_KEY) >= 0) return work({ ...task, arriving: undefined, body });
+  return result;
+}
+
+/** The task's answer from its input (the body, or the body as it arrives) and the body's settings member. */
+function answer(task: WorkTask, input: Buffer | InputFile, fromBody: Record<string, unknown>): WorkResult {
+  // the sweep and the k-distance curve read the body whole
+  const whole = (): Buffer => (Buffer.isBuffer(input) ? input : input.readAll());
+  try {
     // the query string wins over the body's settings member, parameter by parameter
     // k-distance is how eps is chosen, so it needs none
     const base = task.op === 'k-distance' ? { eps: 'auto' } : {};
     if (task.op === 'sweep') {
-      const { grid, settings: sweepSettings } = sweepRequest({ ...fromBody.settings, ...task.query });
-      return done('application/json', JSON.stringify(sweepInput(body, task.format, sweepSettings, grid!)));
+      const { grid, settings: sweepSettings } = sweepRequest({ ...fromBody, ...task.query });
+      return done('application/json', JSON.stringify(sweepInput(whole(), task.format, sweepSettings, grid!)));
     }
     if (task.op === 'k-distance') {
-      const settings = resolveSettings({ ...base, ...fromBody.settings, ...task.query });
-      return done('application/json', JSON.stringify(suggestEpsInput(body, task.format, settings)));
+      const settings = resolveSettings({ ...base, ...fromBody, ...task.query });
+      return done('application/json', JSON.stringify(suggestEpsInput(whole(), task.format, settings)));
     }
     // the study area of the csr null model is a polygon, given only in the body's settings member
-    const { study_area: areaGiven, ...given } = { ...fromBody.settings, ...task.query };
+    const { study_area: areaGiven, ...given } = { ...fromBody, ...task.query };
     const { clustering, trust: trustGiven } = splitTrustSettings(given);
     const settings = resolveSettings(clustering);
     const trust = resolveTrustSettings(trustGiven);
     const studyArea = areaGiven === undefined || areaGiven === null ? null : readStudyArea(JSON.stringify(areaGiven));
     if (studyArea !== null && (trust.simulations === 0 || trust.nullModel !== 'csr')) throw new SettingsError('study_area', 'is where the csr null model places points; ask for null_model=csr');
     // one layer alone carries no summary, so the summary's Clark–Evans test is not computed for it
-    const { result, effort } = clusterCases(body, task.format, settings, trust, task.layer === null ? {} : { clarkEvans: false });
+    const { result, effort } = clusterCases(input, task.format, settings, trust, task.layer === null ? {} : { clarkEvans: false });
     if (trust.simulations > 0 || trust.resamples > 0) assessHere(result, settings, { settings: trust, studyArea, effort });
     if (task.layer === null) return done('application/json', resultDocument(result));
     return done('application/geo+json', result.layers[task.layer].bytes());
   } catch (err) {
+    // the body stopped arriving or the thread is wanted: not an answer, the caller decides
+    if (err instanceof ArrivalStopped) throw err;
     if (err instanceof SettingsError || err instanceof SweepError) {
       return { ok: false, code: 'invalid-parameter', detail: err.message, extensions: { parameter: err.parameter } };
     }

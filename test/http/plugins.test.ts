@@ -40,6 +40,8 @@ async function bare(): Promise<FastifyInstance> {
 function echoPool(): WorkPool {
   return {
     run: async (task) => ({ ok: true, contentType: 'application/json', body: Buffer.from(JSON.stringify({ op: task.op, layer: task.layer, query: task.query })) }),
+    runArriving: async () => ({ ok: false, code: 'read-again' }),
+    idle: false,
     threads: 1,
     queued: 0,
     utilization: 0,

@@ -223,7 +223,7 @@ describe('size limit', () => {
 
 /** A pool that fails as a broken service would, to see what the client is told. */
 function failingPool(fail: () => Promise<never>): WorkPool {
-  return { run: fail, threads: 1, queued: 0, utilization: 0, close: async () => undefined };
+  return { run: fail, runArriving: fail, idle: false, threads: 1, queued: 0, utilization: 0, close: async () => undefined };
 }
 
 describe('service failures', () => {

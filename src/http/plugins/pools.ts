@@ -15,14 +15,18 @@ import { createWorkPool, type WorkPool } from '../pool.js';
 
 /**
  * Admission of requests to the work pool: at most workers + queueSize at a time. A request is
- * admitted once its body has arrived (a slow upload holds an upload slot, not a worker), and
- * frees its place when it is answered or its connection closes, whichever comes first.
+ * admitted once its body has arrived (a slow upload holds an upload slot, not a worker), or
+ * earlier, while it arrives, when a thread is free to read it then (`admitNow`; that thread is
+ * given back when another request needs it), and frees its place when it is answered or its
+ * connection closes, whichever comes first.
  */
 export interface Admission {
   /** an onRequest hook: answers 503 at once, before any upload, when the service is full now */
   check(request: FastifyRequest): Promise<void>;
   /** a preHandler hook (after the body arrived): admits the request or answers 503 */
   admit(request: FastifyRequest, reply: FastifyReply): Promise<void>;
+  /** admits the request now, while its body arrives, if there is room; `admit` then lets it pass */
+  admitNow(request: FastifyRequest, reply: FastifyReply): boolean;
   /** releases what `admit` took (also done by itself when the connection closes); safe to call twice */
   release(request: FastifyRequest): Promise<void>;
   /** requests admitted and not yet answered */
@@ -68,17 +72,23 @@ function createAdmission(options: PoolsOptions): Admission {
       admitted--;
     }
   };
+  const take = (request: FastifyRequest, reply: FastifyReply): boolean => {
+    if (admitted >= capacity) return false;
+    admitted++;
+    (request as Admitted)[ADMITTED] = true;
+    // 'close' comes once the answer is sent or the connection is gone, whatever the framework's hooks do
+    reply.raw.once('close', () => void release(request));
+    return true;
+  };
   return {
     async check() {
       if (admitted >= capacity) throw full(true);
     },
     async admit(request, reply) {
-      if (admitted >= capacity) throw full();
-      admitted++;
-      (request as Admitted)[ADMITTED] = true;
-      // 'close' comes once the answer is sent or the connection is gone, whatever the framework's hooks do
-      reply.raw.once('close', () => void release(request));
+      if ((request as Admitted)[ADMITTED]) return;
+      if (!take(request, reply)) throw full();
     },
+    admitNow: take,
     release,
     get inProgress() {
       return admitted;

@@ -4,6 +4,8 @@
  * service (503) and query-string settings are checked before the body is received, so a typo or a
  * full service costs no upload; the request takes its place in the work pool only once its body
  * has arrived (src/http/plugins/pools.ts), and a client that goes away ends its work at once.
+ * A large clustering body is read while it arrives when a thread is free for it then
+ * (src/http/arriving.ts), with the same answer as when it is read after its upload.
  */
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import type { LayerName } from '../../run/layers.js';
@@ -11,13 +13,25 @@ import { resolveSettings, SettingsError } from '../../run/settings.js';
 import { sweepRequest } from '../../run/sweep.js';
 import { SweepError } from '../../trust/sweep.js';
 import { resolveTrustSettings, splitTrustSettings } from '../../trust/options.js';
-import { formatOf } from '../body.js';
+import { ArrivingBody } from '../arriving.js';
+import { formatOf, READ_WHILE_ARRIVING, type ArrivalStart } from '../body.js';
 import type { ServerConfig } from '../config.js';
 import { HttpProblem } from '../errors.js';
 import { QueueFullError } from '../pool.js';
-import type { WorkResult, WorkTask } from '../work.js';
+import type { WorkRejected, WorkResult, WorkTask } from '../work.js';
 
 export type ClusterRouteOptions = Pick<ServerConfig, 'timeLimitMs' | 'retryAfterS'>;
+
+/** Bodies declaring fewer bytes are read after their upload: there is little to overlap. */
+export const READ_WHILE_ARRIVING_FROM_BYTES = 1 << 20;
+
+/** A clustering started while its body arrives. */
+interface EarlyWork {
+  task: Promise<WorkResult>;
+  controller: AbortController;
+}
+const EARLY = Symbol('early work');
+type EarlyRequest = FastifyRequest & { [READ_WHILE_ARRIVING]?: ArrivalStart; [EARLY]?: EarlyWork };
 
 /**
  * Splits the query string into the service's own `layer` (/v1/cluster only; the route schema has
@@ -57,11 +71,18 @@ function sendResult(request: FastifyRequest, reply: FastifyReply, result: WorkRe
   if (result.ok) {
     return reply.code(200).type(result.contentType).send(Buffer.from(result.body.buffer, result.body.byteOffset, result.body.byteLength));
   }
+  const failed = 'The service failed to answer this request. Quote the request_id when reporting it.';
   if (result.code === 'internal-error') {
     request.log.error({ detail: result.detail, stack: result.stack }, 'worker failed');
-    throw new HttpProblem('internal-error', 'The service failed to answer this request. Quote the request_id when reporting it.');
+    throw new HttpProblem('internal-error', failed);
   }
-  throw new HttpProblem(result.code, result.detail, result.extensions);
+  if (result.code === 'abandoned' || result.code === 'read-again') {
+    // not expected: a body that arrived whole is read again, never abandoned
+    request.log.error({ code: result.code }, 'worker gave no answer');
+    throw new HttpProblem('internal-error', failed);
+  }
+  const rejected = result as WorkRejected;
+  throw new HttpProblem(rejected.code, rejected.detail, rejected.extensions);
 }
 
 /** Why a task did not finish, as the problem to answer with (or the error itself when unforeseen). */
@@ -98,7 +119,8 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
     }
     const format = formatOf(request.headers['content-type'])!;
     const { layer, settings } = readQuery(request);
-    const controller = new AbortController();
+    const early = (request as EarlyRequest)[EARLY];
+    const controller = early?.controller ?? new AbortController();
     const why = { clientGone: false, timedOut: false };
     const timer = setTimeout(() => {
       why.timedOut = true;
@@ -111,7 +133,10 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
     };
     reply.raw.once('close', onClose);
     try {
-      return sendResult(request, reply, await workPool.run({ op, body, format, query: settings, layer }, controller.signal));
+      let result = early === undefined ? null : await early.task;
+      // read again whole: the thread was wanted meanwhile, or the body's own settings come first
+      if (result === null || (!result.ok && result.code === 'read-again')) result = await workPool.run({ op, body, format, query: settings, layer }, controller.signal);
+      return sendResult(request, reply, result);
     } catch (err) {
       throw failure(err, why, options);
     } finally {
@@ -120,8 +145,35 @@ export default async function clusterRoutes(app: FastifyInstance, options: Clust
     }
   };
 
+  /**
+   * Lets a large clustering body be read while it arrives, if a thread and a place are free once
+   * its declared length is trusted (src/http/body.ts).
+   */
+  const offerEarlyStart = async (request: FastifyRequest, reply: FastifyReply): Promise<void> => {
+    (request as EarlyRequest)[READ_WHILE_ARRIVING] = (declared) => {
+      if (declared < READ_WHILE_ARRIVING_FROM_BYTES || !workPool.idle || !admission.admitNow(request, reply)) return null;
+      const controller = new AbortController();
+      const arriving = new ArrivingBody(declared, (allIn) => {
+        // the upload failed after every byte was in: the work has gone past reading, stop it
+        if (allIn) controller.abort(new Error('the request body did not arrive whole'));
+      });
+      const format = formatOf(request.headers['content-type'])!;
+      const { layer, settings } = readQuery(request);
+      const body = new Uint8Array(arriving.buffer.buffer, 0, declared);
+      const task = workPool.runArriving({ op: 'cluster', body, format, query: settings, layer, arriving: arriving.share }, arriving, controller.signal);
+      // awaited by the handler; when the upload fails there is no handler and nothing to answer
+      task.catch(() => undefined);
+      (request as EarlyRequest)[EARLY] = { task, controller };
+      return arriving;
+    };
+  };
+
   const heavy = (op: WorkTask['op']) => ({
-    onRequest: [admission.check, async (request: FastifyRequest) => checkSettings(readQuery(request).settings, op)],
+    onRequest: [
+      admission.check,
+      async (request: FastifyRequest) => checkSettings(readQuery(request).settings, op),
+      ...(op === 'cluster' ? [offerEarlyStart] : []),
+    ],
     preHandler: admission.admit,
     onResponse: admission.release,
     onRequestAbort: admission.release,
