@@ -11,7 +11,7 @@
  */
 import { spawn, type ChildProcess } from 'node:child_process';
 import { request } from 'node:http';
-import { writeFileSync } from 'node:fs';
+import { readFileSync, writeFileSync } from 'node:fs';
 import { cpus, loadavg, totalmem } from 'node:os';
 import { fileURLToPath } from 'node:url';
 import { createRequire } from 'node:module';
@@ -56,6 +56,17 @@ async function startService(args: string[]): Promise<{ url: string; child: Child
     child.on('exit', (code) => reject(new Error(`service exited ${code}: ${out}`)));
   });
   return { url, child };
+}
+
+/** CPU seconds (user + system) a process has used so far, from /proc (Linux; NaN elsewhere). */
+function cpuSeconds(pid: number | undefined): number {
+  try {
+    // fields 14 and 15 after the command name: utime and stime, in clock ticks (100 a second on Linux)
+    const fields = readFileSync(`/proc/${pid}/stat`, 'utf8').split(') ')[1]!.split(' ');
+    return (Number(fields[11]) + Number(fields[12])) / 100;
+  } catch {
+    return NaN;
+  }
 }
 
 function arg(name: string, fallback: number): number {
@@ -167,13 +178,16 @@ async function main(): Promise<void> {
       healthDone(res);
     });
     await new Promise((r) => setTimeout(r, 200));
+    const load = loadavg()[0]!;
+    const cpu0 = cpuSeconds(server.child.pid);
     const bigResult = await post(`${server.url}/v1/cluster?${query}&layer=hotspots`, big);
+    const serviceCpu = cpuSeconds(server.child.pid) - cpu0;
     health.stop();
     if (bigResult.status !== 200) throw new Error(`the ${bigN}-point request answered ${bigResult.status}, not 200`);
     const after = parseSeconds(big);
     const yardstick = (before + after) / 2;
     const h = await healthResult;
-    log(`${bigN.toLocaleString('en')}-point POST /v1/cluster?layer=hotspots: status ${bigResult.status}, ${bigResult.hotspots} hotspots (${(bigResult.bytes / 1024).toFixed(0)} KiB) answered in ${(bigResult.ms / 1000).toFixed(1)} s, upload to answer`);
+    log(`${bigN.toLocaleString('en')}-point POST /v1/cluster?layer=hotspots: status ${bigResult.status}, ${bigResult.hotspots} hotspots (${(bigResult.bytes / 1024).toFixed(0)} KiB) answered in ${(bigResult.ms / 1000).toFixed(1)} s, upload to answer; the service used ${serviceCpu.toFixed(1)} s of CPU meanwhile (1-minute load average ${load.toFixed(1)} as it began)`);
     log(`yardstick, decoding + JSON.parse of the same body in this process: ${before.toFixed(2)} s before, ${after.toFixed(2)} s after; the request took ${(bigResult.ms / 1000 / yardstick).toFixed(2)}× their mean (target ≤ 1.5×)`);
     log(`GET /healthz meanwhile (1 connection, ${h.requests.total} requests): p50 ${h.latency.p50} ms, p99 ${h.latency.p99} ms, max ${h.latency.max} ms, non-2xx ${h.non2xx}`);
   } finally {
