@@ -25,9 +25,10 @@ import { entryBeside } from '../workers/location.js';
  * saves) to `maxBytes`, and at most `maxObservations` observations. The job's arrays are copied to
  * the worker, some 50 bytes per observation, and the worker has a heap of its own: memory a
  * million-point run's target (400 MiB) cannot spare, while there the layers are a smaller share of
- * the run.
+ * the run. `maxBytes` keeps the worker from being started for files that will mostly hold more
+ * observations than that (a million CSV rows are some 50 MiB), where it would only cost its start.
  */
-export const LAYER_THREAD = { minBytes: 1 << 20, maxBytes: 64 << 20, maxObservations: 500_000, minFreeCores: 0.5 };
+export const LAYER_THREAD = { minBytes: 1 << 20, maxBytes: 32 << 20, maxObservations: 500_000, minFreeCores: 0.5 };
 
 /**
  * Whether a core is likely to be free for the worker: the cores less the load average of the last
