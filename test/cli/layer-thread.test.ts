@@ -7,10 +7,10 @@
  *
  * Seed: ROOST_SEED (printed).
  */
-import { mkdtempSync, readFileSync, readdirSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readFileSync, readdirSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { afterEach, beforeAll, describe, expect, it, vi } from 'vitest';
+import { afterAll, afterEach, beforeAll, describe, expect, it, vi } from 'vitest';
 import { LAYER_THREAD, PointLayerThread } from '../../src/cli/layer-thread.js';
 import { run } from '../../src/cli/main.js';
 import { rng, type Rng } from '../reference/seeded.js';
@@ -106,6 +106,7 @@ describe('point layers written in a worker thread', () => {
     Object.assign(LAYER_THREAD, saved);
     vi.restoreAllMocks();
   });
+  afterAll(() => rmSync(dir, { recursive: true, force: true }));
 
   for (const kind of ['geojson', 'seq', 'csv'] as const) {
     it(`writes the same bytes as the calling thread (${kind})`, async () => {
