@@ -163,6 +163,12 @@ export function hotspotLayerFields(categories: readonly string[], trust: readonl
   ];
 }
 
+/** Each field's name as JSON text with its colon, made once. */
+const keysOf = (fields: readonly LayerField[]): string[] => fields.map((f) => JSON.stringify(f.name) + ':');
+const HOTSPOT_KEYS = keysOf(HOTSPOT_FIELDS);
+const TRUST_KEYS = keysOf(TRUST_FIELDS);
+const OPTIONAL_KEYS = keysOf(OPTIONAL_HOTSPOT_FIELDS);
+
 /**
  * The JSON text of a hotspot's layer properties, built from the hotspot's figures as the run
  * computed them (`centre` pair, `categories` object, `medoid_id`), in HOTSPOT_FIELDS order.
@@ -170,15 +176,22 @@ export function hotspotLayerFields(categories: readonly string[], trust: readonl
  */
 export function hotspotPropertiesText(props: Record<string, unknown>, categories: readonly string[]): string {
   const centre = props['centre'] as [number, number];
-  const flat: Record<string, unknown> = { ...props, centre_lon: centre[0], centre_lat: centre[1] };
+  // the centre pair written as two fields; the other fields read straight from props (no copy)
+  const flat = (name: string): unknown => (name === 'centre_lon' ? centre[0] : name === 'centre_lat' ? centre[1] : props[name]);
   let s = '{';
-  for (const field of HOTSPOT_FIELDS) {
-    s += (s.length > 1 ? ',' : '') + JSON.stringify(field.name) + ':' + valueText(field, flat[field.name]);
+  for (let k = 0; k < HOTSPOT_FIELDS.length; k++) {
+    const field = HOTSPOT_FIELDS[k]!;
+    s += (k > 0 ? ',' : '') + HOTSPOT_KEYS[k] + valueText(field, flat(field.name));
   }
-  for (const field of TRUST_FIELDS) {
-    if (flat[field.name] !== undefined && flat[field.name] !== null) s += ',' + JSON.stringify(field.name) + ':' + valueText(field, flat[field.name]);
+  for (let k = 0; k < TRUST_FIELDS.length; k++) {
+    const field = TRUST_FIELDS[k]!;
+    const v = flat(field.name);
+    if (v !== undefined && v !== null) s += ',' + TRUST_KEYS[k] + valueText(field, v);
   }
-  for (const field of OPTIONAL_HOTSPOT_FIELDS) if (Object.hasOwn(props, field.name)) s += ',' + JSON.stringify(field.name) + ':' + valueText(field, props[field.name]);
+  for (let k = 0; k < OPTIONAL_HOTSPOT_FIELDS.length; k++) {
+    const field = OPTIONAL_HOTSPOT_FIELDS[k]!;
+    if (Object.hasOwn(props, field.name)) s += ',' + OPTIONAL_KEYS[k] + valueText(field, props[field.name]);
+  }
   const counts = (props['categories'] ?? {}) as Record<string, number>;
   for (const c of categories) s += ',' + JSON.stringify(CATEGORY_FIELD_PREFIX + c) + ':' + String(Object.hasOwn(counts, c) ? counts[c] : 0);
   return s + '}';
