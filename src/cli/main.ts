@@ -302,6 +302,11 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
           onProgress('write', 0);
           const tWrite = performance.now();
           const timings = result.summary.timings_ms as Record<string, number>;
+          /** the write stage so far added to the clustering's own, and the total; called as summary.json is written, last */
+          const stampTimings = (): void => {
+            timings.write = Math.round(((timings.write ?? 0) + performance.now() - tWrite) * 10) / 10;
+            timings.total = Math.round((performance.now() - t0) * 10) / 10;
+          };
           if (publish !== null) {
             const text = (name: 'points' | 'hotspots'): string => [...result.layers[name].chunks()].join('');
             const layers = publishLayerTexts(text('points'), text('hotspots'), publish);
@@ -310,8 +315,7 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
               [
                 'summary.json',
                 () => {
-                  timings.write = Math.round(((timings.write ?? 0) + performance.now() - tWrite) * 10) / 10;
-                  timings.total = Math.round((performance.now() - t0) * 10) / 10;
+                  stampTimings();
                   return JSON.stringify(publishedSummary(result.summary, layers), null, 2) + '\n';
                 },
               ],
@@ -334,8 +338,7 @@ Results are patterns, not causes; hotspots can mirror where observers went. See 
           for (const [name, content] of report) out.write(name, content);
           // summary.json is written last so that its write stage includes the other files.
           out.write('summary.json', () => {
-            timings.write = Math.round(((timings.write ?? 0) + performance.now() - tWrite) * 10) / 10;
-            timings.total = Math.round((performance.now() - t0) * 10) / 10;
+            stampTimings();
             return JSON.stringify(result.summary, null, 2) + '\n';
           });
           await out.commit();
