@@ -19,7 +19,7 @@ import { resolveRunSettings } from '../trust/options.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
 import { LAYER_PIECE_CHARS } from '../storage/layer-pieces.js';
 import { timedPieces, utf8Pieces } from '../storage/layer-write.js';
-import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, Store } from '../storage/store.js';
+import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, RunPatch, Store } from '../storage/store.js';
 import { StoreError } from '../storage/store.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
 
@@ -292,19 +292,20 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   const hotspotsMs = performance.now() - t;
   progress(90, true);
   await check();
-  t = performance.now();
-  await store.saveRunResult(run.id, { layers, hotspots: stored }, claim).catch((e: unknown) => {
-    if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled('the run is no longer this process\'s');
-    throw e;
-  });
-  const saveMs = performance.now() - t;
-  timings.layers = Math.round((hotspotsMs + making.ms) * 10) / 10;
-  timings.save = Math.round((saveMs - making.ms) * 10) / 10;
-  timings.total = Math.round((performance.now() - t0) * 10) / 10;
-
   const summary = { ...result.summary, changes: assignment.changes };
-  await store.updateRun(run.id, { status: 'succeeded', progress: 100, error: null, finishedAt: new Date().toISOString(), summary, timings }, ['running'], claim).catch((e: unknown) => {
-    if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled();
+  // The run is marked succeeded in the transaction that stores its result (the store asks for
+  // the update once the result is written), so the timings end there: what follows is the
+  // commit, on SQLite with the checkpoint of the result into the database file.
+  t = performance.now();
+  const finish = (): RunPatch => {
+    const saveMs = performance.now() - t;
+    timings.layers = Math.round((hotspotsMs + making.ms) * 10) / 10;
+    timings.save = Math.round((saveMs - making.ms) * 10) / 10;
+    timings.total = Math.round((performance.now() - t0) * 10) / 10;
+    return { status: 'succeeded', progress: 100, error: null, finishedAt: new Date().toISOString(), summary, timings };
+  };
+  await store.saveRunResult(run.id, { layers, hotspots: stored, finish }, claim).catch((e: unknown) => {
+    if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled('the run is no longer this process\'s');
     throw e;
   });
   return { summary, timings, hotspots: stored.length };

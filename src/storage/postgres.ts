@@ -449,23 +449,28 @@ export class PostgresStore implements Store {
     if (ifStatus !== undefined) checkStatuses(ifStatus);
     return this.tx(async (c) => {
       const seq = await this.requireClaim(c, runId, ifStatus, ifWorker);
-      const p = new Params();
-      const sets: string[] = [];
-      if (patch.status !== undefined) {
-        sets.push(`status = ${p.add(patch.status)}`);
-        // a lease belongs to a running run only
-        if (patch.status !== 'running') sets.push('lease_until = NULL');
-      }
-      if (patch.progress !== undefined) sets.push(`progress = ${p.add(patch.progress)}`);
-      if (patch.error !== undefined) sets.push(`error = ${p.add(patch.error)}`);
-      if (patch.startedAt !== undefined) sets.push(`started_at = ${p.add(patch.startedAt)}`);
-      if (patch.finishedAt !== undefined) sets.push(`finished_at = ${p.add(patch.finishedAt)}`);
-      if (patch.summary !== undefined) sets.push(`summary = ${p.add(json(patch.summary))}`);
-      if (patch.timings !== undefined) sets.push(`timings = ${p.add(json(patch.timings))}`);
-      sets.push(`updated_at = ${p.add(nowIso())}`);
-      const r = await c.query(`UPDATE runs SET ${sets.join(', ')} WHERE seq = ${p.add(seq)} RETURNING *`, p.values);
-      return runFromRow(r.rows[0] as Row);
+      return this.patchRun(c, seq, patch);
     });
+  }
+
+  /** Applies a checked patch to run `seq` inside the caller's transaction; @returns the run as it then is */
+  private async patchRun(c: pg.PoolClient, seq: number, patch: RunPatch): Promise<Run> {
+    const p = new Params();
+    const sets: string[] = [];
+    if (patch.status !== undefined) {
+      sets.push(`status = ${p.add(patch.status)}`);
+      // a lease belongs to a running run only
+      if (patch.status !== 'running') sets.push('lease_until = NULL');
+    }
+    if (patch.progress !== undefined) sets.push(`progress = ${p.add(patch.progress)}`);
+    if (patch.error !== undefined) sets.push(`error = ${p.add(patch.error)}`);
+    if (patch.startedAt !== undefined) sets.push(`started_at = ${p.add(patch.startedAt)}`);
+    if (patch.finishedAt !== undefined) sets.push(`finished_at = ${p.add(patch.finishedAt)}`);
+    if (patch.summary !== undefined) sets.push(`summary = ${p.add(json(patch.summary))}`);
+    if (patch.timings !== undefined) sets.push(`timings = ${p.add(json(patch.timings))}`);
+    sets.push(`updated_at = ${p.add(nowIso())}`);
+    const r = await c.query(`UPDATE runs SET ${sets.join(', ')} WHERE seq = ${p.add(seq)} RETURNING *`, p.values);
+    return runFromRow(r.rows[0] as Row);
   }
 
   async countRuns(status: RunStatus): Promise<number> {
@@ -523,6 +528,11 @@ export class PostgresStore implements Store {
       // the time it took is added to the lease (now() is the transaction's start), so the claim
       // comes out of the save with the time it had going in, as on SQLite.
       if (ifWorker !== undefined) await c.query("UPDATE runs SET lease_until = lease_until + (clock_timestamp() - now()) WHERE seq = $1 AND worker_id = $2", [seq, ifWorker]);
+      if (result.finish !== undefined) {
+        const patch = result.finish();
+        checkRunPatch(patch);
+        await this.patchRun(c, seq, patch);
+      }
     });
   }
 

@@ -497,30 +497,35 @@ export class SqliteStore implements Store {
     const tx = this.db.transaction((): number => {
       const seq = this.requireRunSeq(runId);
       this.requireClaim(runId, seq, ifStatus, ifWorker);
-      const sets: string[] = [];
-      const args: unknown[] = [];
-      const put = (col: string, v: unknown): void => {
-        sets.push(`${col} = ?`);
-        args.push(v);
-      };
-      if (patch.status !== undefined) {
-        put('status', patch.status);
-        // a lease belongs to a running run only
-        if (patch.status !== 'running') put('lease_until_ms', null);
-      }
-      if (patch.progress !== undefined) put('progress', patch.progress);
-      if (patch.error !== undefined) put('error', patch.error);
-      if (patch.startedAt !== undefined) put('started_at', patch.startedAt);
-      if (patch.finishedAt !== undefined) put('finished_at', patch.finishedAt);
-      if (patch.summary !== undefined) put('summary', json(patch.summary));
-      if (patch.timings !== undefined) put('timings', json(patch.timings));
-      const now = nowIso();
-      put('updated_at', now);
-      put('updated_ms', Date.parse(now));
-      this.db.prepare(`UPDATE runs SET ${sets.join(', ')} WHERE seq = ?`).run(...args, seq);
+      this.patchRun(seq, patch);
       return seq;
     });
     return this.runBySeq(tx.immediate()) as Run;
+  }
+
+  /** Applies a checked patch to run `seq` inside the caller's transaction. */
+  private patchRun(seq: number, patch: RunPatch): void {
+    const sets: string[] = [];
+    const args: unknown[] = [];
+    const put = (col: string, v: unknown): void => {
+      sets.push(`${col} = ?`);
+      args.push(v);
+    };
+    if (patch.status !== undefined) {
+      put('status', patch.status);
+      // a lease belongs to a running run only
+      if (patch.status !== 'running') put('lease_until_ms', null);
+    }
+    if (patch.progress !== undefined) put('progress', patch.progress);
+    if (patch.error !== undefined) put('error', patch.error);
+    if (patch.startedAt !== undefined) put('started_at', patch.startedAt);
+    if (patch.finishedAt !== undefined) put('finished_at', patch.finishedAt);
+    if (patch.summary !== undefined) put('summary', json(patch.summary));
+    if (patch.timings !== undefined) put('timings', json(patch.timings));
+    const now = nowIso();
+    put('updated_at', now);
+    put('updated_ms', Date.parse(now));
+    this.db.prepare(`UPDATE runs SET ${sets.join(', ')} WHERE seq = ?`).run(...args, seq);
   }
 
   async countRuns(status: RunStatus): Promise<number> {
@@ -582,6 +587,11 @@ export class SqliteStore implements Store {
       // result (layers made as they are stored) may take longer than a lease: the time held is
       // added to the lease, so the claim comes out of the save with the time it had going in.
       if (ifWorker !== undefined) this.db.prepare('UPDATE runs SET lease_until_ms = lease_until_ms + ? WHERE seq = ? AND worker_id = ?').run(Date.now() - began, seq, ifWorker);
+      if (result.finish !== undefined) {
+        const patch = result.finish();
+        checkRunPatch(patch);
+        this.patchRun(seq, patch);
+      }
     });
     tx.immediate();
   }

@@ -311,6 +311,14 @@ export interface RunResult {
    */
   layers: Record<LayerName, string | readonly string[] | LayerSource>;
   hotspots: RunHotspot[];
+  /**
+   * The run's own update (its status, summary, timings), asked for once the layers and hotspots
+   * are written and applied in the same transaction, so that the run is finished when its result
+   * is stored and not one write later. On SQLite this also puts the checkpoint that copies the
+   * result from the write-ahead log into the database file (which `COMMIT` starts) after the run
+   * is seen finished, where a separate update would have waited for it.
+   */
+  finish?: () => RunPatch;
 }
 
 /** One run's hotspot on a track. */

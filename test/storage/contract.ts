@@ -4,7 +4,7 @@
  * happens between processes or instances.
  */
 import { afterEach, beforeEach, describe, expect, it, vi } from 'vitest';
-import type { NewDataset, ObservationRecord, Store, TrackSummary } from '../../src/storage/store.js';
+import type { NewDataset, ObservationRecord, RunPatch, Store, TrackSummary } from '../../src/storage/store.js';
 import { StoreError } from '../../src/storage/store.js';
 import { DAY_MS, T0, fromText, propertyMatches, record, seededRecords } from './fixtures.js';
 
@@ -632,6 +632,44 @@ export function runStoreContract(name: string, harness: StoreHarness): void {
         await rejects(store.saveRunResult('r999999', { layers, hotspots: [] }), 'not-found');
         await rejects(store.saveRunResult(r1.id, { layers: { ...layers, noise: [] }, hotspots: [] }), 'invalid');
         await rejects(store.saveRunResult(r1.id, { layers: { ...layers, noise: 7 as unknown as string }, hotspots: [] }), 'invalid');
+      });
+
+      it('finish a run in the transaction that stores its result, and store nothing when the finish fails', async () => {
+        const layers = { hotspots: '{"h":1}', centres: '{"c":1}', noise: '{"n":1}', points: '{"p":1}' };
+        const hull = '{"type":"Polygon","coordinates":[[[0,0],[1,0],[0,1],[0,0]]]}';
+        const hotspots = [{ hotspotId: 1, trackId: 't1', members: ['a', 'b'], coreMembers: ['a'], hull, figures: { count: 2 } }];
+        const made = await store.createRun({ datasetId: 'herons', settings: {}, trigger: 'request' });
+        const run = await store.claimRun(made.id, 'w:1', 60_000);
+        let asked = 0;
+        const finish = (): RunPatch => {
+          asked++;
+          return { status: 'succeeded', progress: 100, error: null, finishedAt: '2026-05-02T02:00:05.000Z', summary: { n: 2 }, timings: { total: 12.5 } };
+        };
+        // another claimer's save neither stores nor finishes
+        await rejects(store.saveRunResult(run.id, { layers, hotspots, finish }, 'w:2'), 'conflict');
+        expect(asked).toBe(0);
+        expect(await store.getRunLayer(run.id, 'points')).toBeNull();
+        // a finish that throws leaves neither the result nor the update
+        const failing = (): RunPatch => {
+          throw new Error('no timings');
+        };
+        await expect(store.saveRunResult(run.id, { layers, hotspots, finish: failing }, 'w:1')).rejects.toThrow('no timings');
+        expect(await store.getRunLayer(run.id, 'points')).toBeNull();
+        expect(await store.getRunHotspots(run.id)).toEqual([]);
+        expect((await store.getRun('herons', run.id))!.status).toBe('running');
+        // the claimer's save stores the result and the run's update together, asked for once
+        await store.saveRunResult(run.id, { layers, hotspots, finish }, 'w:1');
+        expect(asked).toBe(1);
+        const done = (await store.getRun('herons', run.id))!;
+        expect({ status: done.status, progress: done.progress, finishedAt: done.finishedAt, summary: done.summary, timings: done.timings, leaseUntil: done.leaseUntil }).toEqual({
+          status: 'succeeded', progress: 100, finishedAt: '2026-05-02T02:00:05.000Z', summary: { n: 2 }, timings: { total: 12.5 }, leaseUntil: null,
+        });
+        expect(await store.getRunLayer(run.id, 'points')).toBe(layers.points);
+        expect(await store.getRunHotspots(run.id)).toEqual(hotspots);
+        expect(await store.getTrack('herons', 't1')).toEqual([{ runId: run.id, hotspotId: 1, memberCount: 2, hull, figures: { count: 2 } }]);
+        // a finished run is no longer the claimer's to save again
+        await rejects(store.saveRunResult(run.id, { layers, hotspots, finish }, 'w:1'), 'conflict');
+        expect(asked).toBe(1);
       });
 
       it('list a dataset\'s tracks in track id order with paging, the active ones and the ended ones', async () => {
