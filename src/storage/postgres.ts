@@ -46,7 +46,7 @@ import { batchIds, planIngest } from './ingest-plan.js';
 import { keyFromRow } from './key-rows.js';
 import { joinPieces, storedPieces } from './layer-pieces.js';
 import { layerSource, pgHotspotCopyData, pgLayerCopyData } from './layer-write.js';
-import { DEFAULT_LEASE_MS, FinishedRuns, formatRunId, interruptedMessage, nowIso, parseRunId, storedHotspot } from './runs.js';
+import { DEFAULT_LEASE_MS, FinishedRuns, formatRunId, interruptedMessage, nowIso, parseMembers, parseRunId, storedHotspot } from './runs.js';
 import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
 import { whereMatches } from './where-match.js';
 import { trackListSql, trackPage } from './track-list.js';
@@ -567,7 +567,7 @@ export class PostgresStore implements Store {
   async getRunHotspots(runId: string): Promise<RunHotspot[]> {
     const { seq } = await this.requireRunSeq(this.pool, runId);
     const r = await this.pool.query('SELECT * FROM run_hotspots WHERE run_seq = $1 ORDER BY hotspot_id', [seq]);
-    return (r.rows as Row[]).map((x) => storedHotspot(x.hotspot_id as number, x.track_id as string | null, JSON.parse(x.members as string) as string[], x.core_members as string, x.hull as string, (x.figures ?? null) as Record<string, unknown> | null));
+    return (r.rows as Row[]).map((x) => storedHotspot(x.hotspot_id as number, x.track_id as string | null, parseMembers(x.members as string, x.member_count as number), x.core_members as string, x.hull as string, (x.figures ?? null) as Record<string, unknown> | null));
   }
 
   async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {

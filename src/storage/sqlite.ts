@@ -52,7 +52,7 @@ import { batchIds, planIngest } from './ingest-plan.js';
 import { keyFromRow } from './key-rows.js';
 import { joinPieces, LAYER_BYTE_PIECES_PER_READ, storedPieces } from './layer-pieces.js';
 import { layerSource } from './layer-write.js';
-import { DEFAULT_LEASE_MS, FinishedRuns, formatRunId, interruptedMessage, nowIso, parseRunId, storedHotspot } from './runs.js';
+import { DEFAULT_LEASE_MS, FinishedRuns, formatRunId, interruptedMessage, nowIso, parseMembers, parseRunId, storedHotspot } from './runs.js';
 import { canBeDatasetId, checkAuditRecord, checkDatasetFields, checkDatasetId, checkLease, checkLimit, checkNewKey, checkNewRun, checkQuery, checkRecords, checkRunPatch, checkStatuses, checkTrackCount, normaliseSlot, plainText } from './validation.js';
 import { whereMatches } from './where-match.js';
 import { trackListSql, trackPage } from './track-list.js';
@@ -619,7 +619,7 @@ export class SqliteStore implements Store {
   async getRunHotspots(runId: string): Promise<RunHotspot[]> {
     const seq = this.requireRunSeq(runId);
     const rows = this.db.prepare('SELECT * FROM run_hotspots WHERE run_seq = ? ORDER BY hotspot_id').all(seq) as Row[];
-    return rows.map((r) => storedHotspot(r.hotspot_id as number, r.track_id as string | null, JSON.parse(r.members as string) as string[], r.core_members as string, r.hull as string, parseJson(r.figures)));
+    return rows.map((r) => storedHotspot(r.hotspot_id as number, r.track_id as string | null, parseMembers(r.members as string, r.member_count as number), r.core_members as string, r.hull as string, parseJson(r.figures)));
   }
 
   async getTrack(datasetId: string, trackId: string): Promise<TrackPoint[]> {
