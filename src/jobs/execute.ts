@@ -214,7 +214,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
     const at = split.caseIndex;
     cases = split.cases;
     caseTexts = { at: (i: number) => texts.at(at[i]!) };
-    caseIds = Array.from(at, (i) => input.ids[i]!);
+    caseIds = idsAt(input.ids, at);
     effort = split.effort;
   }
   const result =
@@ -259,8 +259,8 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   const ids = caseIds;
   const finished: FinishedHotspot[] = result.hotspots.map((h) => ({
     hotspot: h,
-    memberIds: Array.from(h.members, (i) => ids[i]!),
-    coreIds: Array.from(h.coreMembers, (i) => ids[i]!),
+    memberIds: idsAt(ids, h.members),
+    coreIds: idsAt(ids, h.coreMembers),
   }));
   const assignment = await options.assignTracks(finished);
   if (assignment.trackIds.length !== finished.length) throw new Error(`track assignment gave ${assignment.trackIds.length} track ids for ${finished.length} hotspots`);
@@ -325,6 +325,17 @@ export function markSignificance(changes: Record<string, unknown> | null, hotspo
       if (typeof s === 'boolean') end.significant = s;
     }
   }
+}
+
+/**
+ * The ids at the positions given, in their order. A loop into an array of the right length: an
+ * `Array.from` with a mapping function over the million positions of a large run's members took
+ * about six times as long (0.2 against 0.03 s for 900,000, measured).
+ */
+function idsAt(ids: ArrayLike<string>, at: ArrayLike<number>): string[] {
+  const out = new Array<string>(at.length);
+  for (let k = 0; k < at.length; k++) out[k] = ids[at[k]!]!;
+  return out;
 }
 
 /**

@@ -239,7 +239,9 @@ export class RunColumns {
     this.observedAt = pick(this.observedAt);
     this.weight = pick(this.weight);
     const ids = this.ids;
-    this.ids = Array.from(order, (i) => ids[i] as string);
+    const sorted = new Array<string>(n);
+    for (let k = 0; k < n; k++) sorted[k] = ids[order[k]!] as string;
+    this.ids = sorted;
     return order;
   }
   finish(features: FeatureTexts): RunInput {
