@@ -474,6 +474,51 @@ function weightedCore(pos: Int32Array, c2: Float64Array, perm: Int32Array, m: nu
   return Infinity;
 }
 
+/**
+ * The scan of the OPTICS walk from the core point p at position k of cell c: every unordered
+ * point o in the cells around whose reachability from p, max(core distance of p, d(p, o)), is
+ * within the radius and strictly below its reachability so far gets it, with p as its
+ * predecessor (on equal reachability the earlier predecessor stays). Writes the positions so
+ * lowered into `lowered`, as ~o (negative) when o had none before (it is new to the seed list),
+ * and returns how many. Calls nothing, so the loop keeps its arrays in registers.
+ */
+function lowerNeighbours(
+  k: number,
+  c: number,
+  p: number,
+  sxyz: Float64Array,
+  core: Float64Array,
+  reach: Float64Array,
+  pred: Int32Array,
+  cellStart: Int32Array,
+  left: Int32Array,
+  nbrStart: Int32Array,
+  nbr: Int32Array,
+  reachLimit: number,
+  lowered: Int32Array,
+): number {
+  const cd = core[k];
+  const x = sxyz[3 * k], y = sxyz[3 * k + 1], z = sxyz[3 * k + 2];
+  let m = 0;
+  for (let a = nbrStart[c], aEnd = nbrStart[c + 1]; a < aEnd; a++) {
+    const d = nbr[a];
+    for (let o = cellStart[d], oEnd = o + left[d]; o < oEnd; o++) {
+      const dx = sxyz[3 * o] - x, dy = sxyz[3 * o + 1] - y, dz = sxyz[3 * o + 2] - z;
+      const d2 = dx * dx + dy * dy + dz * dz;
+      // within the radius exactly when r < reachLimit, as cd ≤ r2 here
+      const r = d2 > cd ? d2 : cd;
+      const before = reach[o];
+      // an unordered point is in the seed list exactly when its reachability is finite
+      if (r < (before < reachLimit ? before : reachLimit)) {
+        reach[o] = r;
+        pred[o] = p;
+        lowered[m++] = before === Infinity ? ~o : o;
+      }
+    }
+  }
+  return m;
+}
+
 /** Core distances (squared chords) per index position. */
 function coreDistances(index: SphereIndex, points: PointSet, minPoints: number): Float64Array {
   const k = Math.ceil(minPoints);
@@ -549,6 +594,16 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
   const posOf = new Int32Array(n);
   for (let k = 0; k < n; k++) posOf[sorted[k]] = k;
   const seeds = new SeedHeap(n);
+  // the unordered neighbours of one core point whose reachability it lowered, and whether each
+  // was new to the seed list; the seed list is told after the scan, so the scan calls nothing.
+  // The order of the seed list's updates does not matter: it pops by (reachability, id), a total order.
+  let most = 0;
+  for (let c = 0; c < cellCount; c++) {
+    let around = 0;
+    for (let a = nbrStart[c]; a < nbrStart[c + 1]; a++) around += cellStart[nbr[a] + 1] - cellStart[nbr[a]];
+    if (around > most) most = around;
+  }
+  const lowered = new Int32Array(most);
 
   let done = 0;
   const step = Math.max(1, Math.floor(n / 100));
@@ -588,26 +643,12 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
     posOf[p] = -1;
     order[done++] = p;
     if (onProgress && done % step === 0) onProgress(done / n);
-    const cd = core[k];
-    if (cd === Infinity) return;
-    const x = sxyz[3 * k], y = sxyz[3 * k + 1], z = sxyz[3 * k + 2];
-    for (let a = nbrStart[c], aEnd = nbrStart[c + 1]; a < aEnd; a++) {
-      const d = nbr[a];
-      for (let o = cellStart[d], oEnd = o + left[d]; o < oEnd; o++) {
-        const dx = sxyz[3 * o] - x, dy = sxyz[3 * o + 1] - y, dz = sxyz[3 * o + 2] - z;
-        const d2 = dx * dx + dy * dy + dz * dz;
-        // reachability from p; within the radius exactly when r < reachLimit, as cd ≤ r2 here
-        const r = d2 > cd ? d2 : cd;
-        const before = reach[o];
-        // strictly smaller only: on equal reachability the earlier predecessor stays. An
-        // unordered point is in the seed list exactly when its reachability is finite.
-        if (r < (before < reachLimit ? before : reachLimit)) {
-          reach[o] = r;
-          pred[o] = p;
-          if (before === Infinity) seeds.push(o, r, sorted[o]);
-          else seeds.decrease(o, r);
-        }
-      }
+    if (core[k] === Infinity) return;
+    const m = lowerNeighbours(k, c, p, sxyz, core, reach, pred, cellStart, left, nbrStart, nbr, reachLimit, lowered);
+    for (let j = 0; j < m; j++) {
+      const o = lowered[j];
+      if (o < 0) seeds.push(~o, reach[~o], sorted[~o]);
+      else seeds.decrease(o, reach[o]);
     }
   };
 
