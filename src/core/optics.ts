@@ -22,6 +22,11 @@
  * Memory is linear in n: neighbourhoods come from the sphere grid on demand and at most one
  * point's neighbourhood is held at a time (only with weights or a minPoints above 32).
  */
+import { createRequire } from 'node:module';
+import { availableParallelism, loadavg } from 'node:os';
+import { pathToFileURL } from 'node:url';
+import { Worker } from 'node:worker_threads';
+import { entryBeside } from '../workers/location.js';
 import { metersForChord2 } from './haversine.js';
 import { RADIUS_TOLERANCE_M, SphereIndex } from './sphere-index.js';
 import { ROLE_BORDER, ROLE_CORE, ROLE_NOISE } from './types.js';
@@ -34,6 +39,12 @@ export interface OpticsOptions {
   minPoints: number;
   /** called now and then with the share of points processed, 0..1 */
   onProgress?: ProgressFn;
+  /**
+   * 2: the core distances (unweighted, minPoints ≤ 32) are shared with a worker thread; 1: all on
+   * the calling thread. Default: 2 from OPTICS_PARALLEL_MIN_POINTS points when a core is free.
+   * The result is the same either way.
+   */
+  threads?: 1 | 2;
 }
 
 export interface OpticsResult {
@@ -250,7 +261,7 @@ class SmallestK {
 }
 
 /** Squared distance from (x, y, z) to the box of cell d, the box widened by BOX_SLACK. */
-function boxDistance2(index: SphereIndex, d: number, x: number, y: number, z: number): number {
+function boxDistance2(index: CoreGrid, d: number, x: number, y: number, z: number): number {
   const s = index.cellSize;
   const gap = (v: number, cell: number): number => {
     const lo = cell * s - BOX_SLACK;
@@ -268,7 +279,7 @@ function boxDistance2(index: SphereIndex, d: number, x: number, y: number, z: nu
  * private to one OPTICS run: "ascending id within a cell" no longer holds afterwards, and
  * nothing in the run depends on it (ties are broken by point id, not by position).
  */
-function orderCellsByX(index: SphereIndex): void {
+export function orderCellsByX(index: SphereIndex): void {
   const { sxyz, sorted, cellStart, cellCount } = index;
   let local = new Int32Array(64);
   let kx = new Float64Array(64);
@@ -362,16 +373,16 @@ function byX(sxyz: Float64Array, q0: number, m: number, local: Int32Array, kx: F
  * the points are read outward from the point's x and the reading stops on each side where the
  * squared x gap alone exceeds the k-th smallest so far (or the radius while fewer than k are
  * found): the squared chord of every point beyond is at least that gap. The value is the k-th
- * smallest of the whole neighbourhood, as a full search finds it.
+ * smallest of the whole neighbourhood, as a full search finds it. Writes the positions of the
+ * cells cellFrom .. cellTo − 1 into out; the other entries are left as they are.
  */
-function smallCoreDistances(index: SphereIndex, k: number): Float64Array {
-  const { sxyz, cellStart, nbrStart, nbr, chord2: r2, cellCount } = index;
-  const out = new Float64Array(index.n).fill(Infinity);
+export function smallCoreCells(index: CoreGrid, k: number, out: Float64Array, cellFrom: number, cellTo: number): void {
+  const { sxyz, cellStart, nbrStart, nbr, chord2: r2 } = index;
   const top = new SmallestK(k);
   // per neighbour cell of the current cell: its first position whose x is not below the current
   // point's; the points of a cell come in ascending x, so each only moves forward
   const cursor = new Int32Array(27);
-  for (let c = 0; c < cellCount; c++) {
+  for (let c = cellFrom; c < cellTo; c++) {
     const a0 = nbrStart[c], a1 = nbrStart[c + 1];
     for (let a = a0; a < a1; a++) cursor[a - a0] = cellStart[nbr[a]];
     for (let p = cellStart[c], pEnd = cellStart[c + 1]; p < pEnd; p++) {
@@ -412,7 +423,6 @@ function smallCoreDistances(index: SphereIndex, k: number): Float64Array {
       out[p] = kth;
     }
   }
-  return out;
 }
 
 /**
@@ -519,10 +529,192 @@ function lowerNeighbours(
   return m;
 }
 
+/** The grid the core distances read: a SphereIndex, or copies of its arrays shared with a worker thread. */
+export interface CoreGrid {
+  sxyz: Float64Array;
+  cellStart: Int32Array;
+  nbrStart: Int32Array;
+  nbr: Int32Array;
+  cx: Int32Array;
+  cy: Int32Array;
+  cz: Int32Array;
+  cellSize: number;
+  chord2: number;
+  cellCount: number;
+}
+
+/**
+ * Core distances shared by two threads: the grid in shared memory, the output, and the control
+ * words. Both threads take chunks of CORE_CHUNK_CELLS cells in turn from one counter
+ * (`ctl[CORE_NEXT]`), so neither waits for the other to start and a slow or absent worker only
+ * leaves more chunks to the calling thread. The worker marks each chunk it finishes in `chunkDone`.
+ */
+export interface CoreTask {
+  grid: CoreGrid;
+  k: number;
+  out: Float64Array;
+  ctl: Int32Array;
+  chunkDone: Int32Array;
+  chunkCells: number;
+}
+
+/** Control word: the next chunk to take. */
+const CORE_NEXT = 0;
+/** Control word: the worker's state, one of the CORE_* values below. */
+const CORE_STATE = 1;
+/** Worker states: not started; taking chunks; finished; failed; not wanted any more (the calling thread took every chunk first). */
+const CORE_WAITING = 0;
+const CORE_STARTED = 1;
+const CORE_DONE = 2;
+const CORE_FAILED = 3;
+const CORE_CLOSED = 4;
+
+/** Cells per chunk taken by either thread (about 6,000 points at the benchmark density). */
+const CORE_CHUNK_CELLS = 2048;
+
+/**
+ * From this many points OPTICS computes the core distances on two threads when a core is free:
+ * a worker's start costs some 30–50 ms of CPU, and below this the core distances take little more.
+ */
+export const OPTICS_PARALLEL_MIN_POINTS = 200_000;
+
+/** How long the calling thread waits for the worker's last chunk before computing it itself, ms (a stall, not a slow chunk). */
+const CORE_FINISH_PATIENCE_MS = 30_000;
+
+/** Takes chunks from the task's counter until none is left, marking each finished chunk in `done`. */
+function takeCoreChunks(task: CoreTask, grid: CoreGrid, done: Int32Array): void {
+  const { k, out, ctl, chunkCells } = task;
+  const chunks = done.length;
+  for (;;) {
+    const j = Atomics.add(ctl, CORE_NEXT, 1);
+    if (j >= chunks) return;
+    smallCoreCells(grid, k, out, j * chunkCells, Math.min(grid.cellCount, (j + 1) * chunkCells));
+    Atomics.store(done, j, 1);
+  }
+}
+
+/** The worker's side of a CoreTask: takes chunks unless the calling thread has closed the task, then reports. */
+export function runCoreTask(task: CoreTask): void {
+  const { ctl } = task;
+  if (Atomics.compareExchange(ctl, CORE_STATE, CORE_WAITING, CORE_STARTED) !== CORE_WAITING) return;
+  let state = CORE_DONE;
+  try {
+    takeCoreChunks(task, task.grid, task.chunkDone);
+  } catch {
+    // the calling thread computes the chunks left unmarked
+    state = CORE_FAILED;
+  }
+  Atomics.store(ctl, CORE_STATE, state);
+  Atomics.notify(ctl, CORE_STATE);
+}
+
+/** Options of `sharedCoreDistances`, for tests: smaller chunks, and a wait for the worker to start before taking any. */
+export interface SharedCoreOptions {
+  /** cells per chunk, default CORE_CHUNK_CELLS */
+  chunkCells?: number;
+  /** how long to wait for the worker to start before this thread takes chunks, ms; default not at all */
+  startWaitMs?: number;
+}
+
+/** An Int32Array copied into shared memory. */
+function sharedInts(a: Int32Array): Int32Array {
+  const s = new Int32Array(new SharedArrayBuffer(a.byteLength));
+  s.set(a);
+  return s;
+}
+
+/**
+ * The worker thread: the compiled entry beside this module, or, when this module runs from
+ * source (tests, benchmarks through tsx), the TypeScript entry loaded after registering tsx
+ * inside the worker.
+ */
+function startCoreWorker(task: CoreTask): Worker {
+  const { filename } = entryBeside(import.meta.url, 'optics-worker');
+  if (!filename.endsWith('.ts')) return new Worker(new URL(filename), { workerData: task });
+  const tsx = pathToFileURL(createRequire(import.meta.url).resolve('tsx/esm/api').replace(/\.cjs$/, '.mjs')).href;
+  const boot = `import(${JSON.stringify(tsx)}).then((api) => { api.register(); return import(${JSON.stringify(filename)}); });`;
+  return new Worker(boot, { eval: true, workerData: task });
+}
+
+/**
+ * Core distances (unweighted, small k) computed by this thread and a worker thread together, over
+ * copies of the grid's arrays in shared memory. Each position's value comes from the same
+ * `smallCoreCells` over the same arrays whichever thread computes it, so the result is the
+ * one-thread result bit for bit; any chunk the worker took and did not finish (it failed or
+ * stalled) is computed here. The index's cells must be ordered by x (`orderCellsByX`).
+ * Returns the core distances per position and how many chunks the worker computed.
+ */
+export function sharedCoreDistances(index: SphereIndex, k: number, options: SharedCoreOptions = {}): { out: Float64Array; workerChunks: number } {
+  const n = index.n;
+  const chunkCells = options.chunkCells ?? CORE_CHUNK_CELLS;
+  const sxyz = new Float64Array(new SharedArrayBuffer(index.sxyz.byteLength));
+  sxyz.set(index.sxyz);
+  const grid: CoreGrid = {
+    sxyz,
+    cellStart: sharedInts(index.cellStart),
+    nbrStart: sharedInts(index.nbrStart),
+    nbr: sharedInts(index.nbr),
+    cx: sharedInts(index.cx),
+    cy: sharedInts(index.cy),
+    cz: sharedInts(index.cz),
+    cellSize: index.cellSize,
+    chord2: index.chord2,
+    cellCount: index.cellCount,
+  };
+  const out = new Float64Array(new SharedArrayBuffer(n * 8)).fill(Infinity);
+  const chunks = Math.ceil(index.cellCount / chunkCells);
+  const ctl = new Int32Array(new SharedArrayBuffer(8));
+  const task: CoreTask = { grid, k, out, ctl, chunkDone: new Int32Array(new SharedArrayBuffer(4 * chunks)), chunkCells };
+  let worker: Worker | null = null;
+  try {
+    worker = startCoreWorker(task);
+    // a worker that fails to start reports here; its chunks are then all taken by this thread
+    worker.on('error', () => {});
+    worker.unref();
+  } catch {
+    worker = null;
+  }
+  if (worker !== null && options.startWaitMs !== undefined) Atomics.wait(ctl, CORE_STATE, CORE_WAITING, options.startWaitMs);
+  // this thread reads its own index (the same values) and marks what it computed
+  const mine = new Int32Array(chunks);
+  takeCoreChunks(task, index, mine);
+  if (Atomics.compareExchange(ctl, CORE_STATE, CORE_WAITING, CORE_CLOSED) !== CORE_WAITING) {
+    const deadline = Date.now() + CORE_FINISH_PATIENCE_MS;
+    let state = Atomics.load(ctl, CORE_STATE);
+    while (state === CORE_STARTED && Date.now() < deadline) {
+      Atomics.wait(ctl, CORE_STATE, CORE_STARTED, deadline - Date.now());
+      state = Atomics.load(ctl, CORE_STATE);
+    }
+  }
+  if (worker !== null) void worker.terminate();
+  let workerChunks = 0;
+  for (let j = 0; j < chunks; j++) {
+    if (Atomics.load(task.chunkDone, j) === 1) workerChunks++;
+    else if (mine[j] === 0) smallCoreCells(index, k, out, j * chunkCells, Math.min(index.cellCount, (j + 1) * chunkCells));
+  }
+  return { out, workerChunks };
+}
+
+/**
+ * Whether OPTICS at n points computes its core distances on two threads by default: from
+ * OPTICS_PARALLEL_MIN_POINTS points, on a machine with two cores or more, when a core is likely
+ * free (the cores less the last minute's load average, ours included, at least one half). On a
+ * machine whose cores are all busy a worker gains no time and costs its start.
+ */
+function coreThreads(n: number): 1 | 2 {
+  if (n < OPTICS_PARALLEL_MIN_POINTS || availableParallelism() < 2) return 1;
+  return availableParallelism() - loadavg()[0] >= 0.5 ? 2 : 1;
+}
+
 /** Core distances (squared chords) per index position. */
-function coreDistances(index: SphereIndex, points: PointSet, minPoints: number): Float64Array {
+function coreDistances(index: SphereIndex, points: PointSet, minPoints: number, threads: 1 | 2): Float64Array {
   const k = Math.ceil(minPoints);
-  if (points.weight === null && k <= SMALL_K) return smallCoreDistances(index, k);
+  if (points.weight === null && k <= SMALL_K) {
+    if (threads === 2) return sharedCoreDistances(index, k).out;
+    const out = new Float64Array(index.n).fill(Infinity);
+    smallCoreCells(index, k, out, 0, index.cellCount);
+    return out;
+  }
   let weight: Float64Array | null = null;
   if (points.weight !== null) {
     weight = new Float64Array(index.n);
@@ -554,6 +746,7 @@ function coreDistances(index: SphereIndex, points: PointSet, minPoints: number):
  */
 export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
   const { maxEpsMeters, minPoints, onProgress } = options;
+  const threads = options.threads ?? coreThreads(points.n);
   if (!(maxEpsMeters > 0) || !Number.isFinite(maxEpsMeters)) {
     throw new RangeError(`maxEpsMeters must be a positive number of metres, got ${maxEpsMeters}`);
   }
@@ -576,7 +769,7 @@ export function optics(points: PointSet, options: OpticsOptions): OpticsResult {
   // per position: reach and core hold squared chords on the unit sphere until the end of the
   // run (chord length orders pairs exactly as ground distance does, and max() commutes with the
   // conversion); pred holds the point id reached from
-  const core = coreDistances(index, points, minPoints);
+  const core = coreDistances(index, points, minPoints, threads);
   const reach = new Float64Array(n).fill(Infinity);
   const pred = new Int32Array(n).fill(-1);
   // the unordered points of cell c are the positions cellStart[c] .. cellStart[c] + left[c] − 1:

@@ -11,11 +11,13 @@
  * equal to the core distance, and cells of more than 32 points, ordered by x through buckets or,
  * where x is bunched, a comparison sort), points at the North Pole and across ±180°, weights, fractional and large minPoints
  * (above the sorted-run limit, where quickselect takes over), and a set whose cells hold hundreds
- * of points.
+ * of points. The core distances computed by two threads (a worker taking chunks of cells beside
+ * the calling thread) equal the one-thread ones bit for bit.
  * Seed: ROOST_SEED (printed).
  */
 import { describe, expect, it } from 'vitest';
-import { optics, type OpticsResult } from '../../src/core/optics.js';
+import { optics, orderCellsByX, sharedCoreDistances, smallCoreCells, type OpticsResult } from '../../src/core/optics.js';
+import { SphereIndex } from '../../src/core/sphere-index.js';
 import type { PointSet } from '../../src/core/types.js';
 import { plainOptics } from '../reference/optics-plain.js';
 import { antimeridianSet, duplicatesSet, midLatitudeSet, PointBuilder, poleSet, realisticSet, rng, weightedSet } from '../reference/seeded.js';
@@ -95,4 +97,36 @@ describe('OPTICS walk in index positions', () => {
     const finite = Array.from(want.reachability).filter((r) => r < Infinity);
     expect(new Set(finite).size).toBeLessThan(finite.length);
   });
+});
+
+describe('OPTICS core distances on two threads', () => {
+  const PATIENT = { startWaitMs: 120_000 };
+  console.info(`optics two threads seed ${SEED} (ROOST_SEED)`);
+  const sets: [string, PointSet, number, number][] = [
+    ['realistic 20k', realisticSet(20_000, SEED + 10, { regionMeters: 20_000 }), 250, 5],
+    ['stacked', stackedSet(SEED + 11), 250, 5],
+    ['pole', poleSet(SEED + 12), 400, 3],
+    ['antimeridian', antimeridianSet(SEED + 13), 300, 2.5],
+  ];
+  for (const [name, points, maxEpsMeters, minPoints] of sets) {
+    it(`are the one-thread core distances bit for bit, the worker taking part (${name}, ${points.n} points)`, () => {
+      const k = Math.ceil(minPoints);
+      const index = new SphereIndex(points, maxEpsMeters);
+      orderCellsByX(index);
+      const one = new Float64Array(points.n).fill(Infinity);
+      smallCoreCells(index, k, one, 0, index.cellCount);
+      // chunks of a few cells, and the worker started before this thread takes any, so both compute some
+      const chunkCells = Math.max(1, Math.floor(index.cellCount / 64));
+      const two = sharedCoreDistances(index, k, { chunkCells, ...PATIENT });
+      expect(two.workerChunks).toBeGreaterThan(0);
+      expect(Buffer.from(two.out.buffer).equals(Buffer.from(one.buffer))).toBe(true);
+      expect(one.some((d) => d < Infinity)).toBe(true);
+    }, 120_000);
+  }
+  it('give OPTICS the same result on two threads as the plain indexed OPTICS (realistic 20k)', () => {
+    const points = realisticSet(20_000, SEED + 14, { regionMeters: 20_000 });
+    for (const threads of [1, 2] as const) {
+      expectSame(optics(points, { maxEpsMeters: 250, minPoints: 5, threads }), plainOptics(points, { maxEpsMeters: 250, minPoints: 5 }));
+    }
+  }, 120_000);
 });
