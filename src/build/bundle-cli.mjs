@@ -6,7 +6,8 @@
  * (dist/cli/layer-worker.js), which shares the chunks. Node then resolves, reads and compiles a
  * handful of files at start-up instead of some eighty, which is most of the command's fixed cost.
  *
- * Packages in node_modules stay outside the bundle and are loaded as before. The other modules
+ * Packages in node_modules stay outside the bundle and are loaded as before, except the two that
+ * every command loads (commander, concaveman): those are read inside it. The other modules
  * under dist/ stay where tsc wrote them: worker threads start from them, and the tests and the
  * benchmarks import them.
  *
@@ -40,6 +41,18 @@ const ownUrl = {
   },
 };
 
+/**
+ * Packages left outside the bundle: every dependency but those the command loads at every start
+ * (commander parses the arguments; concaveman comes with the hull code), whose resolution and
+ * loading from node_modules cost more than reading them inside the bundle.
+ */
+function external() {
+  const pkg = JSON.parse(readFileSync(join(root, 'package.json'), 'utf8'));
+  const inside = new Set(['commander', 'concaveman']);
+  for (const name of inside) if (!(name in pkg.dependencies)) throw new Error(`${name} is no longer a dependency; update the bundle's list`);
+  return Object.keys({ ...pkg.dependencies, ...pkg.devDependencies }).filter((name) => !inside.has(name)).flatMap((name) => [name, `${name}/*`]);
+}
+
 // the entries must be tsc's output: a bundle cannot be bundled again once its chunks are gone
 for (const entry of entries) {
   if (readFileSync(entry, 'utf8').includes('./bundle-')) throw new Error(`${entry} is already bundled; run tsc -p tsconfig.json first (npm run build does both)`);
@@ -54,7 +67,10 @@ await build({
   format: 'esm',
   platform: 'node',
   target: 'node20',
-  packages: 'external',
+  external: external(),
+  // commander is CommonJS: inside an ES module bundle its require() of Node's own modules needs a
+  // require function of the bundle's own
+  banner: { js: "import { createRequire as roostCreateRequire } from 'node:module'; const require = roostCreateRequire(import.meta.url);" },
   chunkNames: 'bundle-[name]-[hash]',
   plugins: [ownUrl],
   logLevel: 'warning',
