@@ -16,6 +16,7 @@ import { resolveTrustSettings, splitTrustSettings } from '../trust/options.js';
 import { readStudyArea } from '../trust/study-area.js';
 import type { InputFile } from '../ingest/source.js';
 import { ArrivalStopped, ArrivingSource, type ArrivingShare } from './arriving.js';
+import { bodySettingsMember } from './body-settings.js';
 import { MAX_LISTED_PROBLEMS } from './errors.js';
 import type { WorkRejected, WorkResult, WorkTask } from './work.js';
 
@@ -23,19 +24,16 @@ const SETTINGS_KEY = Buffer.from('"settings"');
 
 /**
  * The `settings` member of a JSON body, or an empty object when there is none.
- * The body is parsed here only when the bytes `"settings"` occur in it, so the common case
- * (settings in the query string) parses the body once, in the reader.
+ * The body is looked at only when the bytes `"settings"` occur in it, so the common case
+ * (settings in the query string) reads the body once, in the reader; and then only the member's
+ * own text is parsed (`body-settings.ts`). A body that is not JSON gives no settings here: the
+ * reader reports the syntax error with its position.
  */
 function bodySettings(body: Buffer): { settings: Record<string, unknown> } | { rejected: WorkRejected } {
   if (body.indexOf(SETTINGS_KEY) < 0) return { settings: {} };
-  let doc: unknown;
-  try {
-    doc = JSON.parse(body.toString('utf8'));
-  } catch {
-    return { settings: {} }; // the reader reports the syntax error with its position
-  }
-  if (doc === null || typeof doc !== 'object' || Array.isArray(doc) || !('settings' in doc)) return { settings: {} };
-  const settings = (doc as { settings: unknown }).settings;
+  const member = bodySettingsMember(body);
+  if (member.kind !== 'present') return { settings: {} };
+  const settings = member.value;
   if (settings === null || typeof settings !== 'object' || Array.isArray(settings)) {
     const detail = 'the "settings" member must be an object such as {"eps": 250, "min_points": 5}';
     return { rejected: { ok: false, code: 'invalid-parameter', detail, extensions: { parameter: 'settings' } } };
@@ -101,8 +99,9 @@ export default function work(task: WorkTask): WorkResult {
 /**
  * A clustering read from a body while it arrives (src/http/arriving.ts). Its answer is the one
  * the body read whole would have had, as long as the body has no `settings` member (which is read
- * from the whole body before anything else): when the bytes `"settings"` occur in it, the body is
- * read again whole here; when the work ended before the last byte was in (settings that need the
+ * from the whole body before anything else): when the body has a settings member that sets
+ * anything, it is read again whole here with those settings (the bytes `"settings"` elsewhere in
+ * it, in a property, say, or an empty member, leave the answer as it was); when the work ended before the last byte was in (settings that need the
  * body's, say) or the thread is wanted for another request, the main thread's ordinary task reads
  * it once the upload has ended (`read-again`).
  */
@@ -116,8 +115,12 @@ function workArriving(task: WorkTask, share: ArrivingShare): WorkResult {
     throw err;
   }
   if (!source.allIn) return { ok: false, code: 'read-again' };
+  if (task.format !== 'geojson') return result;
   const body = Buffer.from(share.bytes, 0, source.size);
-  if (task.format === 'geojson' && body.indexOf(SETTINGS_KEY) >= 0) return work({ ...task, arriving: undefined, body });
+  const fromBody = bodySettings(body);
+  if ('rejected' in fromBody) return fromBody.rejected;
+  // settings of its own in the body come before everything else: the body is read again with them
+  if (Object.keys(fromBody.settings).length > 0) return answer(task, body, fromBody.settings);
   return result;
 }
 
