@@ -4,17 +4,26 @@
  * (the report, the service) found from the bundle, and the bundle really is one file plus chunks.
  */
 import { spawn, spawnSync } from 'node:child_process';
-import { mkdtempSync, readFileSync, readdirSync } from 'node:fs';
+import { mkdtempSync, readFileSync, readdirSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { describe, expect, it } from 'vitest';
+import { afterAll, describe, expect, it } from 'vitest';
 import { run } from '../../src/cli/main.js';
 
 const ROOT = new URL('../../', import.meta.url).pathname;
 const BIN = join(ROOT, 'dist/cli/bin.js');
 const DEMO = join(ROOT, 'data/demo/observations.geojson');
 
-const tmp = (): string => mkdtempSync(join(tmpdir(), 'roost-bundle-'));
+/** Folders the tests write into, removed when the file's tests are done. */
+const made: string[] = [];
+afterAll(() => {
+  for (const dir of made) rmSync(dir, { recursive: true, force: true });
+});
+const tmp = (): string => {
+  const dir = mkdtempSync(join(tmpdir(), 'roost-bundle-'));
+  made.push(dir);
+  return dir;
+};
 /** A result file's text without what differs from run to run: the timings, and when the report was made. */
 const resultText = (dir: string, name: string): string =>
   readFileSync(join(dir, name), 'utf8')

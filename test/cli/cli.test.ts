@@ -1,8 +1,8 @@
 import { execFileSync, spawnSync } from 'node:child_process';
-import { existsSync, mkdtempSync, readFileSync, readdirSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdtempSync, readFileSync, readdirSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { beforeAll, describe, expect, it } from 'vitest';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { run } from '../../src/cli/main.js';
 // source: geojson-schema package (GeoJSON JSON Schemas), see test/reference/geojson-schema.ts
 import { validateCollection } from '../reference/geojson-schema.js';
@@ -20,7 +20,16 @@ const ringArea = (ring: number[][]): number => {
   return a / 2;
 };
 
-const tmp = () => mkdtempSync(join(tmpdir(), 'roost-cli-'));
+/** Folders the tests write into, removed when the file's tests are done. */
+const made: string[] = [];
+const tmp = (): string => {
+  const dir = mkdtempSync(join(tmpdir(), 'roost-cli-'));
+  made.push(dir);
+  return dir;
+};
+afterAll(() => {
+  for (const dir of made) rmSync(dir, { recursive: true, force: true });
+});
 const read = (dir: string, name: string) => readFileSync(join(dir, name), 'utf8');
 const json = (dir: string, name: string) => JSON.parse(read(dir, name));
 

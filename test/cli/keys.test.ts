@@ -1,11 +1,22 @@
 import { spawnSync } from 'node:child_process';
-import { mkdtempSync } from 'node:fs';
+import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { describe, expect, it } from 'vitest';
+import { afterAll, describe, expect, it } from 'vitest';
 import { hashToken } from '../../src/auth/tokens.js';
 import { keysCommand } from '../../src/cli/keys.js';
 import { openStore } from '../../src/storage/index.js';
+
+/** Folders the tests write into, removed when the file's tests are done. */
+const made: string[] = [];
+afterAll(() => {
+  for (const dir of made) rmSync(dir, { recursive: true, force: true });
+});
+const tmp = (): string => {
+  const dir = mkdtempSync(join(tmpdir(), 'roost-keys-'));
+  made.push(dir);
+  return dir;
+};
 
 const BIN = new URL('../../dist/cli/bin.js', import.meta.url).pathname;
 
@@ -22,7 +33,7 @@ async function keys(args: string[], db: string): Promise<{ code: number; out: st
 
 describe('roost keys', () => {
   it('create prints the token once; the store holds only its hash; list and revoke work by id', async () => {
-    const db = join(mkdtempSync(join(tmpdir(), 'roost-keys-')), 'k.db');
+    const db = join(tmp(), 'k.db');
     const store = await openStore({ sqlitePath: db });
     await store.createDataset({ id: 'herons', name: 'Herons', settings: {}, idProperty: null, window: null, schedule: null, webhook: null });
     await store.close();
@@ -59,7 +70,7 @@ describe('roost keys', () => {
   });
 
   it('refuses an unknown dataset, an unknown key and a missing role with exit code 2', async () => {
-    const db = join(mkdtempSync(join(tmpdir(), 'roost-keys-')), 'k.db');
+    const db = join(tmp(), 'k.db');
     const unknownDs = await keys(['create', '--role', 'reader', '--dataset', 'nope'], db);
     expect(unknownDs.code).toBe(2);
     expect(unknownDs.err).toContain('there is no dataset "nope"');
@@ -73,7 +84,7 @@ describe('roost keys', () => {
   });
 
   it('the installed command prints the token alone on the first line of stdout', () => {
-    const db = join(mkdtempSync(join(tmpdir(), 'roost-keys-')), 'k.db');
+    const db = join(tmp(), 'k.db');
     const r = spawnSync(process.execPath, [BIN, 'keys', 'create', '--role', 'admin', '--db', db], { encoding: 'utf8', env: { ...process.env, DATABASE_URL: '' } });
     expect(r.status, r.stderr).toBe(0);
     expect(r.stdout.split('\n')[0]).toMatch(/^roost_[A-Za-z0-9_-]{43}$/);

@@ -1,13 +1,22 @@
-import { mkdtempSync, readFileSync, readdirSync } from 'node:fs';
+import { mkdtempSync, readFileSync, readdirSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { describe, expect, it } from 'vitest';
+import { afterAll, describe, expect, it } from 'vitest';
 import { run } from '../../src/cli/main.js';
 // source: geojson-schema package (GeoJSON JSON Schemas), see test/reference/geojson-schema.ts
 import { validateCollection } from '../reference/geojson-schema.js';
 
 const DEMO = new URL('../../data/demo/observations.geojson', import.meta.url).pathname;
-const tmp = () => join(mkdtempSync(join(tmpdir(), 'roost-publish-')), 'out');
+/** Folders the tests write into, removed when the file's tests are done. */
+const made: string[] = [];
+afterAll(() => {
+  for (const dir of made) rmSync(dir, { recursive: true, force: true });
+});
+const tmp = (): string => {
+  const dir = mkdtempSync(join(tmpdir(), 'roost-publish-'));
+  made.push(dir);
+  return join(dir, 'out');
+};
 
 describe('roost cluster with publishing flags', () => {
   it('writes generalised layers: small hotspots and noise withheld, only allowed properties, counts that add up', async () => {
