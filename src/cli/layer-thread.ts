@@ -11,14 +11,11 @@
  * fails), `done` answers false and the caller writes the layers itself, as before.
  */
 import { rm } from 'node:fs/promises';
-import { availableParallelism, loadavg } from 'node:os';
-import { createRequire } from 'node:module';
-import { pathToFileURL } from 'node:url';
-import { Worker } from 'node:worker_threads';
+import type { Worker } from 'node:worker_threads';
 import type { CsvRows } from '../ingest/csv-bytes.js';
 import type { FeatureSpans } from '../ingest/geojson-bytes.js';
 import type { PointLayersJob, PointRows } from '../run/cluster.js';
-import { entryBeside } from '../workers/location.js';
+import { coreFree, startWorkerBeside } from '../workers/location.js';
 
 /**
  * When a worker is used: input files from `minBytes` (below, the worker's start costs more than it
@@ -27,21 +24,13 @@ import { entryBeside } from '../workers/location.js';
  * million-point run's target (400 MiB) cannot spare, while there the layers are a smaller share of
  * the run. `maxBytes` keeps the worker from being started for files that will mostly hold more
  * observations than that (a million CSV rows are some 50 MiB), where it would only cost its start.
+ * `minFreeCores`: the worker takes the calling thread's longest stretch of work after the
+ * clustering off its path (about a quarter of its time at 100,000 points) when it has a core to
+ * itself, but costs some 0.1 s more CPU (its start, its copy of the arrays) and gains nothing when
+ * every core is busy with other work: measured on two cores at load average 5–6, the same wall
+ * time and more CPU than one thread.
  */
 export const LAYER_THREAD = { minBytes: 1 << 20, maxBytes: 32 << 20, maxObservations: 500_000, minFreeCores: 0.5 };
-
-/**
- * Whether a core is likely to be free for the worker: the cores less the load average of the last
- * minute (runnable threads, ours included) is at least `LAYER_THREAD.minFreeCores`. The worker
- * takes the calling thread's longest stretch of work after the clustering off its path (about a
- * quarter of its time at 100,000 points) when it has a core to itself, but costs some 0.1 s more
- * CPU (its start, its copy of the arrays) and gains nothing when every core is busy with other
- * work: measured on two cores at load average 5–6, the same wall time and more CPU than one
- * thread. Platforms without a load average (Windows reports 0) always use it.
- */
-function coreFree(): boolean {
-  return availableParallelism() - loadavg()[0] >= LAYER_THREAD.minFreeCores;
-}
 
 /** What the worker receives: the job without its byte source, and where to write which layer. */
 export interface LayerTask {
@@ -54,15 +43,6 @@ export interface LayerTask {
   files: { path: string; noiseOnly: boolean }[];
 }
 
-/** The worker: the compiled entry, or the TypeScript one through tsx when running from source (tests). */
-function startWorker(): Worker {
-  const { filename } = entryBeside(import.meta.url, 'layer-worker');
-  if (!filename.endsWith('.ts')) return new Worker(new URL(filename));
-  const tsx = pathToFileURL(createRequire(import.meta.url).resolve('tsx/esm/api').replace(/\.cjs$/, '.mjs')).href;
-  const boot = `import(${JSON.stringify(tsx)}).then((api) => { api.register(); return import(${JSON.stringify(filename)}); });`;
-  return new Worker(boot, { eval: true });
-}
-
 /** A worker ready to write the points and noise layers of one run. */
 export class PointLayerThread {
   private worker: Worker | null;
@@ -70,7 +50,7 @@ export class PointLayerThread {
   private written: string[] = [];
 
   private constructor(private readonly input: string) {
-    this.worker = startWorker();
+    this.worker = startWorkerBeside(import.meta.url, 'layer-worker');
     // a worker that fails before it is offered a job is simply not used
     this.worker.on('error', () => {});
     this.worker.unref();
@@ -78,7 +58,7 @@ export class PointLayerThread {
 
   /** A worker for a run on the file `input` of `bytes` bytes, or null when one would not pay. */
   static start(input: string, bytes: number): PointLayerThread | null {
-    if (bytes < LAYER_THREAD.minBytes || bytes > LAYER_THREAD.maxBytes || availableParallelism() < 2 || !coreFree()) return null;
+    if (bytes < LAYER_THREAD.minBytes || bytes > LAYER_THREAD.maxBytes || !coreFree(LAYER_THREAD.minFreeCores)) return null;
     return new PointLayerThread(input);
   }
 

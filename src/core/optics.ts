@@ -22,11 +22,8 @@
  * Memory is linear in n: neighbourhoods come from the sphere grid on demand and at most one
  * point's neighbourhood is held at a time (only with weights or a minPoints above 32).
  */
-import { createRequire } from 'node:module';
-import { availableParallelism, loadavg } from 'node:os';
-import { pathToFileURL } from 'node:url';
-import { Worker } from 'node:worker_threads';
-import { entryBeside } from '../workers/location.js';
+import type { Worker } from 'node:worker_threads';
+import { coreFree, startWorkerBeside } from '../workers/location.js';
 import { metersForChord2 } from './haversine.js';
 import { RADIUS_TOLERANCE_M, SphereIndex } from './sphere-index.js';
 import { ROLE_BORDER, ROLE_CORE, ROLE_NOISE } from './types.js';
@@ -623,17 +620,9 @@ function sharedInts(a: Int32Array): Int32Array {
   return s;
 }
 
-/**
- * The worker thread: the compiled entry beside this module, or, when this module runs from
- * source (tests, benchmarks through tsx), the TypeScript entry loaded after registering tsx
- * inside the worker.
- */
+/** The worker thread (see startWorkerBeside). */
 function startCoreWorker(task: CoreTask): Worker {
-  const { filename } = entryBeside(import.meta.url, 'optics-worker');
-  if (!filename.endsWith('.ts')) return new Worker(new URL(filename), { workerData: task });
-  const tsx = pathToFileURL(createRequire(import.meta.url).resolve('tsx/esm/api').replace(/\.cjs$/, '.mjs')).href;
-  const boot = `import(${JSON.stringify(tsx)}).then((api) => { api.register(); return import(${JSON.stringify(filename)}); });`;
-  return new Worker(boot, { eval: true, workerData: task });
+  return startWorkerBeside(import.meta.url, 'optics-worker', { workerData: task });
 }
 
 /**
@@ -702,8 +691,7 @@ export function sharedCoreDistances(index: SphereIndex, k: number, options: Shar
  * machine whose cores are all busy a worker gains no time and costs its start.
  */
 function coreThreads(n: number): 1 | 2 {
-  if (n < OPTICS_PARALLEL_MIN_POINTS || availableParallelism() < 2) return 1;
-  return availableParallelism() - loadavg()[0] >= 0.5 ? 2 : 1;
+  return n >= OPTICS_PARALLEL_MIN_POINTS && coreFree(0.5) ? 2 : 1;
 }
 
 /** Core distances (squared chords) per index position. */

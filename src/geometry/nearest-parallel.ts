@@ -13,13 +13,11 @@
  * cannot help (it does not start in time, fails, or stalls), the distances are computed on the
  * calling thread instead, so a result always comes back.
  */
-import { createRequire } from 'node:module';
-import { pathToFileURL } from 'node:url';
-import { Worker } from 'node:worker_threads';
+import type { Worker } from 'node:worker_threads';
 import { unitVectors } from '../core/haversine.js';
 import type { SphereIndex } from '../core/sphere-index.js';
 import type { PointSet } from '../core/types.js';
-import { entryBeside } from '../workers/location.js';
+import { startWorkerBeside } from '../workers/location.js';
 import { nearestNeighbourMeters } from './clark-evans.js';
 
 /** Below this many points the pass takes tens of milliseconds and a worker does not pay for its start. */
@@ -63,18 +61,9 @@ export interface PendingNearest {
   readonly computedIn: 'worker' | 'here' | null;
 }
 
-/**
- * The worker: the compiled entry beside this module, or, when this module runs from source (tests,
- * benchmarks through tsx), the TypeScript entry loaded after registering tsx inside the worker
- * (a worker's own `--import tsx` does not reach its entry module on Node 20).
- */
+/** The worker (see startWorkerBeside). */
 function startWorker(task: NearestTask): Worker {
-  const { filename } = entryBeside(import.meta.url, 'nearest-worker');
-  if (!filename.endsWith('.ts')) return new Worker(new URL(filename), { workerData: task });
-  // tsx's ESM API (the `import` target of tsx/esm/api, beside its `require` target)
-  const tsx = pathToFileURL(createRequire(import.meta.url).resolve('tsx/esm/api').replace(/\.cjs$/, '.mjs')).href;
-  const boot = `import(${JSON.stringify(tsx)}).then((api) => { api.register(); return import(${JSON.stringify(filename)}); });`;
-  return new Worker(boot, { eval: true, workerData: task });
+  return startWorkerBeside(import.meta.url, 'nearest-worker', { workerData: task });
 }
 
 /**
