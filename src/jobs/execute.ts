@@ -12,16 +12,18 @@
  * its next progress point and never overwrites the result of the process that took it over.
  */
 import { pointSet } from '../core/types.js';
-import { clusterObservations, type Layer, type Stage } from '../run/cluster.js';
+import { clusterObservations, type Layer, type PointLayersJob, type Stage } from '../run/cluster.js';
 import { SettingsError, type ClusterSettings } from '../run/settings.js';
 import { assess, splitEffort, type EffortPoints } from '../trust/assess.js';
 import { resolveRunSettings } from '../trust/options.js';
 import type { InputFeature, Observations } from '../ingest/types.js';
+import { PackedTexts } from '../storage/columns.js';
 import { LAYER_PIECE_CHARS } from '../storage/layer-pieces.js';
 import { timedPieces, utf8Pieces } from '../storage/layer-write.js';
 import type { Dataset, FeatureTexts, ObservationQuery, Run, RunHotspot, RunPatch, Store } from '../storage/store.js';
 import { StoreError } from '../storage/store.js';
 import type { FinishedHotspot, TrackAssignment } from './hooks.js';
+import { StoredLayerThread } from './layer-thread.js';
 
 /**
  * A run failure the user can act on (its message says what to change); any other error is the
@@ -217,98 +219,115 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
     caseIds = idsAt(input.ids, at);
     effort = split.effort;
   }
-  const result =
-    n === 0
-      ? null
-      : clusterObservations(
-          cases,
-          clusterSettings,
-          {
-            signal: options.signal,
-            onProgress: (stage, done) => {
-              const base = STAGE_PERCENT[stage];
-              if (stage === 'cluster') progress(base + 35 * Math.min(1, done), done === 0);
-              else progress(base, true);
+  // The points and noise layers are made in a worker beside the figures and tracks when that
+  // pays (./layer-thread.ts): DBSCAN's layers (OPTICS adds each point's ordering). The worker
+  // borrows the texts, so only for a run that reads none of them after the clustering: no
+  // count_by, reference property or effort marker.
+  const borrowable = texts instanceof PackedTexts && effort === null && settings.countBy === null && settings.referenceProperty === null;
+  const layerThread = borrowable && settings.method === 'dbscan' ? StoredLayerThread.start(n) : null;
+  try {
+    return await clusterAndSave();
+  } finally {
+    await layerThread?.stop();
+  }
+
+  async function clusterAndSave(): Promise<ExecutedRun> {
+    const result =
+      n === 0
+        ? null
+        : clusterObservations(
+            cases,
+            clusterSettings,
+            {
+              signal: options.signal,
+              ...(layerThread === null ? {} : { onPointLayers: (job: PointLayersJob) => void layerThread.offer(job, texts as PackedTexts) }),
+              onProgress: (stage, done) => {
+                const base = STAGE_PERCENT[stage];
+                if (stage === 'cluster') progress(base + 35 * Math.min(1, done), done === 0);
+                else progress(base, true);
+              },
             },
-          },
-          undefined,
-          { source: 'stored', dataset: dataset.id, query: queryRecord(query), left_out_untimed: untimed, ...(effort === null ? {} : { effort_points: effort.lon.length }) },
-          caseTexts,
-          caseIds,
-        );
-  if (result === null) {
-    const why = untimed > 0 ? `; ${untimed} observation(s) have no readable time and a time window applies: name their time with the dataset's time_column and time_format settings` : '';
-    throw new RunError(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window${why}`);
-  }
-  t = lap('cluster', t);
-  await check();
-
-  if (trust.simulations > 0 || trust.resamples > 0) {
-    // p-values and stabilities go into the hotspots' properties before tracks, layers and
-    // stored figures are made from them
-    await assess(result, clusterSettings, {
-      settings: trust,
-      effort,
-      threads: options.trialThreads ?? 1,
-      onProgress: (what, done, total) => progress(what === 'simulations' ? 85 + 3 * (done / total) : 88 + (done / total), false),
-    });
-    t = lap('trust', t);
+            undefined,
+            { source: 'stored', dataset: dataset.id, query: queryRecord(query), left_out_untimed: untimed, ...(effort === null ? {} : { effort_points: effort.lon.length }) },
+            caseTexts,
+            caseIds,
+          );
+    if (result === null) {
+      const why = untimed > 0 ? `; ${untimed} observation(s) have no readable time and a time window applies: name their time with the dataset's time_column and time_format settings` : '';
+      throw new RunError(`no observations in dataset ${dataset.id} match the run's window and conditions; post observations or widen the window${why}`);
+    }
+    t = lap('cluster', t);
     await check();
+
+    if (trust.simulations > 0 || trust.resamples > 0) {
+      // p-values and stabilities go into the hotspots' properties before tracks, layers and
+      // stored figures are made from them
+      await assess(result, clusterSettings, {
+        settings: trust,
+        effort,
+        threads: options.trialThreads ?? 1,
+        onProgress: (what, done, total) => progress(what === 'simulations' ? 85 + 3 * (done / total) : 88 + (done / total), false),
+      });
+      t = lap('trust', t);
+      await check();
+    }
+
+    const ids = caseIds;
+    const finished: FinishedHotspot[] = result.hotspots.map((h) => ({
+      hotspot: h,
+      memberIds: idsAt(ids, h.members),
+      coreIds: idsAt(ids, h.coreMembers),
+    }));
+    const assignment = await options.assignTracks(finished);
+    if (assignment.trackIds.length !== finished.length) throw new Error(`track assignment gave ${assignment.trackIds.length} track ids for ${finished.length} hotspots`);
+    if (trust.simulations > 0) markSignificance(assignment.changes, result.hotspots);
+    result.hotspots.forEach((h, k) => (h.properties.track_id = assignment.trackIds[k]));
+    t = lap('tracks', t);
+    await check();
+
+    // Made on demand while the store saves them, in pieces of about a MiB of UTF-8 as the store
+    // keeps them: a million points are never one 234 MB string, nor 234 MB of pieces held at once.
+    // The time spent making them counts as the layers stage, the rest of the saving as save.
+    const making = { ms: 0 };
+    // (points and noise written as bytes from the stored texts, when the store kept them as bytes)
+    const pieces = (layer: Layer): Iterable<Uint8Array> => (layer.writesBytes ? timedPieces(layer.byteChunks(), making) : utf8Pieces(layer.chunks(), LAYER_PIECE_CHARS, making));
+    // made by the worker meanwhile, if one took them; the wait for it counts as the layers stage
+    const byThread = layerThread === null ? null : await layerThread.layers();
+    const layers = {
+      hotspots: pieces(result.layers.hotspots),
+      centres: pieces(result.layers.centres),
+      noise: byThread === null ? pieces(result.layers.noise) : iterable(byThread.noise),
+      points: byThread === null ? pieces(result.layers.points) : iterable(byThread.points),
+    };
+    const stored: RunHotspot[] = finished.map((f, k) => ({
+      hotspotId: f.hotspot.hotspotId,
+      trackId: assignment.trackIds[k]!,
+      members: f.memberIds,
+      coreMembers: f.coreIds,
+      hull: JSON.stringify(f.hotspot.hull),
+      figures: f.hotspot.properties,
+    }));
+    const hotspotsMs = performance.now() - t;
+    progress(90, true);
+    await check();
+    const summary = { ...result.summary, changes: assignment.changes };
+    // The run is marked succeeded in the transaction that stores its result (the store asks for
+    // the update once the result is written), so the timings end there: what follows is the
+    // commit, on SQLite with the checkpoint of the result into the database file.
+    t = performance.now();
+    const finish = (): RunPatch => {
+      const saveMs = performance.now() - t;
+      timings.layers = Math.round((hotspotsMs + making.ms) * 10) / 10;
+      timings.save = Math.round((saveMs - making.ms) * 10) / 10;
+      timings.total = Math.round((performance.now() - t0) * 10) / 10;
+      return { status: 'succeeded', progress: 100, error: null, finishedAt: new Date().toISOString(), summary, timings };
+    };
+    await store.saveRunResult(run.id, { layers, hotspots: stored, finish }, claim).catch((e: unknown) => {
+      if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled('the run is no longer this process\'s');
+      throw e;
+    });
+    return { summary, timings, hotspots: stored.length };
   }
-
-  const ids = caseIds;
-  const finished: FinishedHotspot[] = result.hotspots.map((h) => ({
-    hotspot: h,
-    memberIds: idsAt(ids, h.members),
-    coreIds: idsAt(ids, h.coreMembers),
-  }));
-  const assignment = await options.assignTracks(finished);
-  if (assignment.trackIds.length !== finished.length) throw new Error(`track assignment gave ${assignment.trackIds.length} track ids for ${finished.length} hotspots`);
-  if (trust.simulations > 0) markSignificance(assignment.changes, result.hotspots);
-  result.hotspots.forEach((h, k) => (h.properties.track_id = assignment.trackIds[k]));
-  t = lap('tracks', t);
-  await check();
-
-  // Made on demand while the store saves them, in pieces of about a MiB of UTF-8 as the store
-  // keeps them: a million points are never one 234 MB string, nor 234 MB of pieces held at once.
-  // The time spent making them counts as the layers stage, the rest of the saving as save.
-  const making = { ms: 0 };
-  // (points and noise written as bytes from the stored texts, when the store kept them as bytes)
-  const pieces = (layer: Layer): Iterable<Uint8Array> => (layer.writesBytes ? timedPieces(layer.byteChunks(), making) : utf8Pieces(layer.chunks(), LAYER_PIECE_CHARS, making));
-  const layers = {
-    hotspots: pieces(result.layers.hotspots),
-    centres: pieces(result.layers.centres),
-    noise: pieces(result.layers.noise),
-    points: pieces(result.layers.points),
-  };
-  const stored: RunHotspot[] = finished.map((f, k) => ({
-    hotspotId: f.hotspot.hotspotId,
-    trackId: assignment.trackIds[k]!,
-    members: f.memberIds,
-    coreMembers: f.coreIds,
-    hull: JSON.stringify(f.hotspot.hull),
-    figures: f.hotspot.properties,
-  }));
-  const hotspotsMs = performance.now() - t;
-  progress(90, true);
-  await check();
-  const summary = { ...result.summary, changes: assignment.changes };
-  // The run is marked succeeded in the transaction that stores its result (the store asks for
-  // the update once the result is written), so the timings end there: what follows is the
-  // commit, on SQLite with the checkpoint of the result into the database file.
-  t = performance.now();
-  const finish = (): RunPatch => {
-    const saveMs = performance.now() - t;
-    timings.layers = Math.round((hotspotsMs + making.ms) * 10) / 10;
-    timings.save = Math.round((saveMs - making.ms) * 10) / 10;
-    timings.total = Math.round((performance.now() - t0) * 10) / 10;
-    return { status: 'succeeded', progress: 100, error: null, finishedAt: new Date().toISOString(), summary, timings };
-  };
-  await store.saveRunResult(run.id, { layers, hotspots: stored, finish }, claim).catch((e: unknown) => {
-    if (e instanceof StoreError && e.code === 'conflict') throw new RunCancelled('the run is no longer this process\'s');
-    throw e;
-  });
-  return { summary, timings, hotspots: stored.length };
 }
 
 /**
@@ -325,6 +344,11 @@ export function markSignificance(changes: Record<string, unknown> | null, hotspo
       if (typeof s === 'boolean') end.significant = s;
     }
   }
+}
+
+/** Pieces already made, as the store takes a layer made on demand (an array is for text pieces). */
+function iterable(pieces: readonly Uint8Array[]): Iterable<Uint8Array> {
+  return { [Symbol.iterator]: () => pieces.values() };
 }
 
 /**

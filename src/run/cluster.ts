@@ -158,8 +158,8 @@ export interface ClusterHooks {
   /**
    * Offered the points and noise layers as soon as the clustering is known, before the figures,
    * when they can be written from the input's bytes alone (see PointLayersJob): a caller may write
-   * them elsewhere (the command line, in a worker thread) while the figures are worked out. The
-   * result's own `points` and `noise` layers are made as always.
+   * them elsewhere (the command line and stored runs, in a worker thread) while the figures are
+   * worked out. The result's own `points` and `noise` layers are made as always.
    */
   onPointLayers?: (job: PointLayersJob) => void;
 }
@@ -178,6 +178,8 @@ export interface PointLayersJob {
   /** the features as spans of a GeoJSON input (or text sequence), or as rows of a CSV input whose kept rows are all written from their cells */
   spans?: FeatureSpans;
   csvRows?: CsvRows;
+  /** or as stored feature texts kept as bytes (a stored run) */
+  texts?: FeatureByteSource;
 }
 
 /** The bytes of the points layer (or, noiseOnly, the noise layer) of a job, in chunks of about 1 MiB. */
@@ -185,7 +187,8 @@ export function pointLayersJobBytes(job: PointLayersJob, noiseOnly: boolean): It
   const head = noiseOnly ? job.noiseHead : job.pointsHead;
   if (job.spans !== undefined) return pointLayerBytes(head, job.spans, job.rows, NO_EXTRA, noiseOnly);
   if (job.csvRows !== undefined) return csvPointLayerBytes(head, job.csvRows, [], job.rows, NO_EXTRA, noiseOnly);
-  throw new Error('a point layers job needs spans or CSV rows');
+  if (job.texts !== undefined) return storedPointLayerBytes(head, job.texts, job.rows, NO_EXTRA, noiseOnly);
+  throw new Error('a point layers job needs spans, CSV rows or stored texts');
 }
 
 const NO_EXTRA = (): string => '';
@@ -946,11 +949,14 @@ export function clusterObservations(
   const rows: PointRows = { n: points.n, lon: points.lon, lat: points.lat, kept, labels, roles };
   const spans = (all as Partial<SpannedObservations>).spans;
   const csvRows = (all as Partial<CsvObservations>).csvRows;
+  // stored texts kept as bytes, written without per-feature strings
+  const byteTexts = featureTexts !== undefined && typeof (featureTexts as Partial<FeatureByteSource>).bytesOf === 'function' ? (featureTexts as FeatureByteSource) : undefined;
   if (hooks.onPointLayers !== undefined && ordering === null) {
     const job: PointLayersJob = { rows, pointsHead: collectionHeadText(pointsBbox), noiseHead: collectionHeadText(noiseBbox) };
     if (spans !== undefined) job.spans = spans;
     else if (csvRows !== undefined && everyRowVerbatim(csvRows, kept)) job.csvRows = csvRows;
-    if (job.spans !== undefined || job.csvRows !== undefined) hooks.onPointLayers(job);
+    else if (byteTexts !== undefined) job.texts = byteTexts;
+    if (job.spans !== undefined || job.csvRows !== undefined || job.texts !== undefined) hooks.onPointLayers(job);
   }
 
   timer.start('figures');
@@ -1044,7 +1050,6 @@ export function clusterObservations(
     }
   }
   // bytes written without per-feature strings, from the byte reader's spans or stored texts kept as bytes
-  const byteTexts = featureTexts !== undefined && typeof (featureTexts as Partial<FeatureByteSource>).bytesOf === 'function' ? (featureTexts as FeatureByteSource) : undefined;
   const pointBytes = (bbox: ArrayLike<number> | null, noiseOnly: boolean): (() => Iterable<Uint8Array>) | undefined => {
     if (spans !== undefined) return () => pointLayerBytes(collectionHeadText(bbox), spans, rows, extra, noiseOnly);
     if (csvRows !== undefined) return () => csvPointLayerBytes(collectionHeadText(bbox), csvRows, all.features, rows, extra, noiseOnly);

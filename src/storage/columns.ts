@@ -9,6 +9,15 @@ export function grown<T extends Float64Array | Int32Array | Uint32Array>(a: T, s
   return b;
 }
 
+/** Feature texts kept as UTF-8 bytes, as `PackedTexts.lend` hands them to another thread: text i is bytes start[i] to end[i] of chunks[chunk[i]]. */
+export interface LentTexts {
+  chunks: Uint8Array[];
+  chunk: Uint32Array<ArrayBuffer>;
+  start: Int32Array<ArrayBuffer>;
+  end: Int32Array<ArrayBuffer>;
+  length: number;
+}
+
 /**
  * Feature texts kept as a few large strings: joined by "\n" (canonical JSON text never holds a
  * raw line break; a chunk whose texts do have one is kept as separate strings instead), as
@@ -17,7 +26,9 @@ export function grown<T extends Float64Array | Int32Array | Uint32Array>(a: T, s
  * `at(i)` cuts one text out on demand.
  */
 export class PackedTexts implements FeatureTexts {
-  private readonly chunks: (string | Buffer)[] = [];
+  private chunks: (string | Buffer)[] = [];
+  /** true while the byte chunks are lent to another thread (see lend) */
+  private lent = false;
   /** per text: its chunk, and where it starts and ends in that chunk */
   private chunk = new Uint32Array(1024);
   private start = new Int32Array(1024);
@@ -86,8 +97,39 @@ export class PackedTexts implements FeatureTexts {
     return true;
   }
 
+  /**
+   * The texts for another thread, when every one is kept as bytes (null otherwise): the chunks
+   * and where each text lies, with the buffers to transfer rather than copy. Until `restore`
+   * gives them back no text can be read here (`at` and `bytesOf` throw), so a caller lends them
+   * only for a stretch in which it reads none.
+   */
+  lend(): { texts: LentTexts; transfer: ArrayBuffer[] } | null {
+    if (this.lent) throw new Error('the feature texts are lent already');
+    if (this.loose.some((l) => l.length > 0) || this.chunks.some((c) => typeof c === 'string')) return null;
+    const chunks = this.chunks as Buffer[];
+    const n = this.length;
+    const texts: LentTexts = { chunks, chunk: this.chunk.subarray(0, n), start: this.start.subarray(0, n), end: this.end.subarray(0, n), length: n };
+    const transfer = new Set<ArrayBuffer>([texts.chunk.buffer, texts.start.buffer, texts.end.buffer] as ArrayBuffer[]);
+    // a buffer that is a slice of a larger one (Node's pool of small buffers) is copied, not taken from its other users
+    for (const c of chunks) if (c.byteOffset === 0 && c.buffer.byteLength === c.length && c.buffer instanceof ArrayBuffer) transfer.add(c.buffer);
+    this.lent = true;
+    return { texts, transfer: [...transfer] };
+  }
+
+  /** Takes back the texts lent (or the other thread's copies of them, the same bytes). */
+  restore(texts: LentTexts): void {
+    if (!this.lent) throw new Error('the feature texts are not lent');
+    if (texts.length !== this.length || texts.chunks.length !== this.chunks.length) throw new Error('the feature texts came back changed');
+    this.chunks = texts.chunks.map((c) => (Buffer.isBuffer(c) ? c : Buffer.from(c.buffer, c.byteOffset, c.byteLength)));
+    this.chunk = texts.chunk;
+    this.start = texts.start;
+    this.end = texts.end;
+    this.lent = false;
+  }
+
   /** The buffer holding text `index` as UTF-8 bytes from byteStart to byteEnd, or null when it is kept as a string. */
   bytesOf(index: number): Buffer | null {
+    if (this.lent) throw new Error('the feature texts are lent to another thread');
     const c = this.chunks[this.chunk[index] as number];
     return typeof c === 'string' || c === undefined ? null : c;
   }
@@ -147,6 +189,7 @@ export class PackedTexts implements FeatureTexts {
   }
 
   at(index: number): string | undefined {
+    if (this.lent) throw new Error('the feature texts are lent to another thread');
     if (!(index >= 0 && index < this.length)) return undefined;
     const c = this.chunk[index] as number;
     const s = this.start[index] as number;
