@@ -10,6 +10,7 @@
  * `observed_at` and a count, ~200 bytes, as survey apps send them) and kept between invocations
  * (SQLite file, PostgreSQL schema named after n) so that a run can be measured again without
  * filling again; BENCH_FRESH=1 fills anew, BENCH_DROP=1 removes the fill at the end.
+ * BENCH_CODE=dist runs the compiled modules (as `npm start` does) instead of the source through tsx.
  * BENCH_INLINE=1 executes the run on this thread (for `node --cpu-prof`); otherwise the run goes
  * through the service as the server executes runs: a job worker thread with a store connection
  * of its own. Each run is a new run of the same dataset, so the second and later runs match their
@@ -21,15 +22,21 @@ import { loadavg, tmpdir } from 'node:os';
 import { monitorEventLoopDelay } from 'node:perf_hooks';
 import { join } from 'node:path';
 import pg from 'pg';
-import { buildApp } from '../../src/http/app.js';
-import { resolveConfig } from '../../src/http/config.js';
-import { contentHash } from '../../src/ingest/records.js';
-import { executeRun } from '../../src/jobs/execute.js';
-import { assignTracks } from '../../src/jobs/tracking.js';
 import type { RunContext } from '../../src/jobs/hooks.js';
-import { openStore, type StoreConfig } from '../../src/storage/index.js';
+import type { StoreConfig } from '../../src/storage/index.js';
 import type { ObservationRecord, Store } from '../../src/storage/store.js';
 import { BENCH_EPS_METERS, BENCH_MIN_POINTS, benchPoints } from './data.js';
+
+// the source through tsx, or with BENCH_CODE=dist the compiled modules as the service runs them
+// (its worker threads then start from compiled code too; `npm run build` first)
+const CODE = process.env.BENCH_CODE === 'dist' ? 'dist' : 'src';
+const code = (path: string): string => new URL(`../../${CODE}/${path}`, import.meta.url).href;
+const { buildApp } = (await import(code('http/app.js'))) as typeof import('../../src/http/app.js');
+const { resolveConfig } = (await import(code('http/config.js'))) as typeof import('../../src/http/config.js');
+const { contentHash } = (await import(code('ingest/records.js'))) as typeof import('../../src/ingest/records.js');
+const { executeRun } = (await import(code('jobs/execute.js'))) as typeof import('../../src/jobs/execute.js');
+const { assignTracks } = (await import(code('jobs/tracking.js'))) as typeof import('../../src/jobs/tracking.js');
+const { openStore } = (await import(code('storage/index.js'))) as typeof import('../../src/storage/index.js');
 
 const ENGINE = process.argv[2] ?? 'sqlite';
 const N = Number(process.argv[3] ?? 1_000_000);
@@ -118,7 +125,7 @@ let app: App | null = null;
 try {
   await fill(store);
   const size = ENGINE === 'sqlite' && existsSync(sqlitePath) ? ` (${(statSync(sqlitePath).size / 2 ** 20).toFixed(0)} MiB file)` : '';
-  console.log(`${ENGINE}, ${N} observations${size}, ${process.env.BENCH_INLINE === '1' ? 'on this thread' : 'in a job worker thread'}; Node ${process.version}`);
+  console.log(`${ENGINE}, ${N} observations${size}, ${process.env.BENCH_INLINE === '1' ? 'on this thread' : 'in a job worker thread'}, ${CODE === 'dist' ? 'compiled code' : 'source through tsx'}; Node ${process.version}`);
   console.log('| run | load | parse | cluster | tracks | layers | save | total | peak RSS | main-thread delay | load average |');
   console.log('| ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- |');
   for (let k = 1; k <= RUNS; k++) {
