@@ -224,7 +224,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
   // borrows the texts, so only for a run that reads none of them after the clustering: no
   // count_by, reference property or effort marker.
   const borrowable = texts instanceof PackedTexts && effort === null && settings.countBy === null && settings.referenceProperty === null;
-  const layerThread = borrowable && settings.method === 'dbscan' ? StoredLayerThread.start(n) : null;
+  const layerThread = borrowable && settings.method === 'dbscan' ? StoredLayerThread.start(n, store.engine) : null;
   try {
     return await clusterAndSave();
   } finally {

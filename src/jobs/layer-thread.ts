@@ -7,22 +7,28 @@
  * saves, made by the very function the run's thread would use (`pointLayersJobBytes`), so the
  * bytes are the same.
  *
- * Whenever the worker cannot help (one core, or no core free by the load average, fewer
- * observations than `STORED_LAYER_THREAD.minObservations`, texts not all kept as bytes, a run
+ * Whenever the worker cannot help (a PostgreSQL store, one core, or no core free by the load
+ * average, fewer observations than `STORED_LAYER_THREAD.minObservations`, texts not all kept as bytes, a run
  * that reads the texts while the worker has them, or a worker that fails), the run's thread makes
  * the layers itself, as before.
  */
 import type { Worker } from 'node:worker_threads';
 import type { PointLayersJob, PointRows } from '../run/cluster.js';
 import type { LentTexts, PackedTexts } from '../storage/columns.js';
+import type { Store } from '../storage/store.js';
 import { coreFree, startWorkerBeside } from '../workers/location.js';
 
 /**
- * When a worker is used: from `minObservations` (below, its start, some 0.1 s of CPU, is a large
- * part of what it saves) and when `minFreeCores` of a core is free by the last minute's load
- * average (on busy cores a second thread gains no time; see src/cli/layer-thread.ts).
+ * When a worker is used: on the `stores` named, from `minObservations` (below, its start, some
+ * 0.1 s of CPU, is a large part of what it saves) and when `minFreeCores` of a core is free by the
+ * last minute's load average (on busy cores a second thread gains no time; see
+ * src/cli/layer-thread.ts). SQLite only: it saves on the run's own thread, so the second core is
+ * otherwise idle at the end of a run, while PostgreSQL's server takes in the layers on the other
+ * core as the run's thread makes them. Measured at 1M on the quiet two-core machine, compiled code,
+ * alternating (test/bench/stored-run-results.md): SQLite 5.75–8.43 s with the worker against
+ * 6.32–9.88 s without; PostgreSQL 7.51–10.54 s with it against 7.20–8.47 s without.
  */
-export const STORED_LAYER_THREAD = { minObservations: 200_000, minFreeCores: 0.5 };
+export const STORED_LAYER_THREAD: { stores: Store['engine'][]; minObservations: number; minFreeCores: number } = { stores: ['sqlite'], minObservations: 200_000, minFreeCores: 0.5 };
 
 /** What the worker receives. */
 export interface StoredLayerTask {
@@ -55,9 +61,10 @@ export class StoredLayerThread {
     this.worker.unref();
   }
 
-  /** A worker for a run of `n` observations, or null when one would not pay. */
-  static start(n: number): StoredLayerThread | null {
-    if (n < STORED_LAYER_THREAD.minObservations || !coreFree(STORED_LAYER_THREAD.minFreeCores)) return null;
+  /** A worker for a run of `n` observations on a store of `engine`, or null when one would not pay. */
+  static start(n: number, engine: Store['engine']): StoredLayerThread | null {
+    const when = STORED_LAYER_THREAD;
+    if (!when.stores.includes(engine) || n < when.minObservations || !coreFree(when.minFreeCores)) return null;
     return new StoredLayerThread();
   }
 

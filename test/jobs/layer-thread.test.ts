@@ -54,11 +54,13 @@ function observations(seed: number): ObservationRecord[] {
 
 /** The worker forced on (whatever the size and the load) or off. */
 function useThread(on: boolean): void {
+  // (on PostgreSQL too, which does not use it by default: its texts reach the worker otherwise)
+  STORED_LAYER_THREAD.stores = ['sqlite', 'postgres'];
   STORED_LAYER_THREAD.minObservations = on ? 0 : Infinity;
   STORED_LAYER_THREAD.minFreeCores = on ? -Infinity : 0.5;
 }
 
-const saved = { ...STORED_LAYER_THREAD };
+const saved = { ...STORED_LAYER_THREAD, stores: [...STORED_LAYER_THREAD.stores] };
 afterEach(() => {
   Object.assign(STORED_LAYER_THREAD, saved);
   vi.restoreAllMocks();
@@ -79,7 +81,7 @@ async function runLayers(store: Store, hooks: RunHooks, settings?: Record<string
   return { run, layers };
 }
 
-function storeSuite(name: string, open: () => Promise<{ store: Store; dispose: () => Promise<void> }>, skipReason: string | null): void {
+function storeSuite(name: string, engine: Store['engine'], open: () => Promise<{ store: Store; dispose: () => Promise<void> }>, skipReason: string | null): void {
   describe.skipIf(skipReason !== null)(`${name}: points layer in a worker thread${skipReason ? ` (skipped: ${skipReason})` : ''}`, () => {
     let store: Store;
     let dispose: () => Promise<void>;
@@ -116,6 +118,15 @@ function storeSuite(name: string, open: () => Promise<{ store: Store; dispose: (
       expect((there.run.summary as { figures: { hotspots: number } }).figures.hotspots).toBe(CLUMPS);
     });
 
+    it(`is ${engine === 'sqlite' ? '' : 'not '}used by default on ${name}`, async () => {
+      const offered = vi.spyOn(StoredLayerThread.prototype, 'offer');
+      // the size and the load left out of the choice, the stores as they are by default
+      STORED_LAYER_THREAD.minObservations = 0;
+      STORED_LAYER_THREAD.minFreeCores = -Infinity;
+      await runLayers(store, hooks);
+      expect(offered).toHaveBeenCalledTimes(engine === 'sqlite' ? 1 : 0);
+    });
+
     it('is not asked when the run reads the texts after the clustering (count_by) or runs OPTICS', async () => {
       const started = vi.spyOn(StoredLayerThread, 'start');
       useThread(true);
@@ -133,6 +144,7 @@ console.info(`stored layer thread seed ${SEED} (ROOST_SEED)`);
 
 storeSuite(
   'SQLite',
+  'sqlite',
   async () => {
     const dir = mkdtempSync(join(tmpdir(), 'roost-layer-thread-'));
     const store = openSqliteStore({ path: join(dir, 'roost.db') });
@@ -151,6 +163,7 @@ storeSuite(
 const pgSkip = await postgresSkipReason();
 storeSuite(
   'PostgreSQL',
+  'postgres',
   async () => {
     const schema = `roost_layer_thread_${process.pid}`;
     const admin = new pg.Client({ connectionString: TEST_DATABASE_URL });
