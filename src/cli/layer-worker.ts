@@ -14,7 +14,7 @@ parentPort!.once('message', (task: LayerTask) => {
     const job: PointLayersJob = { rows: task.rows, pointsHead: task.pointsHead, noiseHead: task.noiseHead };
     if (task.spans !== undefined) job.spans = { ...task.spans, source };
     if (task.csvRows !== undefined) job.csvRows = { ...task.csvRows, source };
-    for (const file of task.files) writeChunks(file.path, pointLayersJobBytes(job, file.noiseOnly));
+    for (const file of task.files) writeChunks(file.path, pointLayersJobBytes(job, file.noiseOnly, true));
     parentPort!.postMessage({ ok: true });
   } catch (err) {
     parentPort!.postMessage({ ok: false, message: (err as Error)?.message ?? String(err) });

@@ -14,6 +14,7 @@
  * and acceptance never differ between the two (test/ingest/csv-bytes.test.ts holds them to the
  * same results on seeded random and hostile text).
  */
+import { sharedFloat64, sharedUint32, sharedUint8 } from '../workers/shared.js';
 import { isUtf8 } from 'node:buffer';
 import type { InputFeature, Observations } from './types.js';
 import { TIME_PROPERTY, parseDecimal, parseTimestampBytes, rangeProblem, readTime, type TimeRule } from './checks.js';
@@ -149,23 +150,23 @@ class Columns {
     public cap: number,
     weighted: boolean,
   ) {
-    this.lon = new Float64Array(cap);
-    this.lat = new Float64Array(cap);
-    this.weight = weighted ? new Float64Array(cap) : null;
-    this.time = new Float64Array(cap);
-    this.rowStart = new Uint32Array(cap);
-    this.rowEnd = new Uint32Array(cap);
-    this.verbatim = new Uint8Array(cap);
+    this.lon = sharedFloat64(cap);
+    this.lat = sharedFloat64(cap);
+    this.weight = weighted ? sharedFloat64(cap) : null;
+    this.time = sharedFloat64(cap);
+    this.rowStart = sharedUint32(cap);
+    this.rowEnd = sharedUint32(cap);
+    this.verbatim = sharedUint8(cap);
   }
   grow(cap: number): void {
     const n = this.n;
     const f64 = (a: Float64Array): Float64Array => {
-      const b = new Float64Array(cap);
+      const b = sharedFloat64(cap);
       b.set(a.subarray(0, n));
       return b;
     };
     const u32 = (a: Uint32Array): Uint32Array => {
-      const b = new Uint32Array(cap);
+      const b = sharedUint32(cap);
       b.set(a.subarray(0, n));
       return b;
     };
@@ -175,7 +176,7 @@ class Columns {
     this.time = f64(this.time);
     this.rowStart = u32(this.rowStart);
     this.rowEnd = u32(this.rowEnd);
-    const v = new Uint8Array(cap);
+    const v = sharedUint8(cap);
     v.set(this.verbatim.subarray(0, n));
     this.verbatim = v;
     this.cap = cap;
@@ -413,8 +414,9 @@ function scan(source: MemorySource | InputFile, options: CsvByteOptions): CsvObs
     keyBytes: keys.reduce((sum, k) => sum + (k === null ? 0 : k.length), 0),
     verbatim,
   };
-  const lon = cols.lon.slice(0, n);
-  const lat = cols.lat.slice(0, n);
+  // views in shared memory, handed to the point-layer worker without a copy (src/cli/layer-thread.ts)
+  const lon = cols.lon.subarray(0, n);
+  const lat = cols.lat.subarray(0, n);
   return {
     points: { n, lon, lat, weight },
     features: lazyFeatures(rows, lay, lon, lat),

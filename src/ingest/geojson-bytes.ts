@@ -18,6 +18,7 @@
  * first read (the medoid's id, `where` filters, count_by), giving the same object the parsing
  * reader would have built.
  */
+import { sharedFloat64, sharedUint32, sharedUint8 } from '../workers/shared.js';
 import type { InputFeature, Observations } from './types.js';
 import { MAX_DEPTH, MAX_ID_CHARS, MAX_KEY_CHARS, MAX_STRING_CHARS } from './limits.js';
 import { TIME_PROPERTY, parseTimestampBytes, readTime, type TimeRule } from './checks.js';
@@ -422,12 +423,12 @@ class Columns {
   }
   grow(cap: number): void {
     const f64 = (a: Float64Array): Float64Array => {
-      const b = new Float64Array(cap);
+      const b = sharedFloat64(cap);
       b.set(a.subarray(0, this.n));
       return b;
     };
     const u32 = (a: Uint32Array): Uint32Array => {
-      const b = new Uint32Array(cap);
+      const b = sharedUint32(cap);
       b.set(a.subarray(0, this.n));
       return b;
     };
@@ -442,7 +443,7 @@ class Columns {
     this.idEnd = u32(this.idEnd);
     this.propertiesStart = u32(this.propertiesStart);
     this.propertiesEnd = u32(this.propertiesEnd);
-    const v = new Uint8Array(cap);
+    const v = sharedUint8(cap);
     v.set(this.verbatim.subarray(0, this.n));
     this.verbatim = v;
     this.cap = cap;
@@ -747,7 +748,8 @@ function observations(source: ByteSource, cols: Columns, timed: number): Spanned
   const n = cols.n;
   const spans: FeatureSpans = {
     source,
-    // views, not copies: the spans stay on this thread (the positions below are copied to their size)
+    // views, not copies, in shared memory: handed to the point-layer worker without a copy
+    // (src/cli/layer-thread.ts), as are the positions (the columns were sized to the input)
     featureStart: cols.featureStart.subarray(0, n),
     featureEnd: cols.featureEnd.subarray(0, n),
     idStart: cols.idStart.subarray(0, n),
@@ -758,7 +760,7 @@ function observations(source: ByteSource, cols: Columns, timed: number): Spanned
     altitude: cols.altitude === null ? null : cols.altitude.subarray(0, n),
   };
   return {
-    points: { n, lon: cols.lon.slice(0, n), lat: cols.lat.slice(0, n), weight: cols.weight === null ? null : cols.weight.slice(0, n) },
+    points: { n, lon: cols.lon.subarray(0, n), lat: cols.lat.subarray(0, n), weight: cols.weight === null ? null : cols.weight.slice(0, n) },
     features: lazyFeatures(spans, n),
     observedAt: timed > 0 ? cols.time.slice(0, n) : null,
     spans,
@@ -1024,7 +1026,7 @@ function scanPoint(i: number, cols: Columns, row: number): number {
         if (!Number.isFinite(z)) throw NOT_FAST;
         i = ws(i);
         if (cols.altitude === null) {
-          cols.altitude = new Float64Array(cols.cap).fill(NaN);
+          cols.altitude = sharedFloat64(cols.cap).fill(NaN);
         }
       }
       if (b[i] !== C.CloseBracket) throw NOT_FAST;

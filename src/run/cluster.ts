@@ -182,12 +182,17 @@ export interface PointLayersJob {
   texts?: FeatureByteSource;
 }
 
-/** The bytes of the points layer (or, noiseOnly, the noise layer) of a job, in chunks of about 1 MiB. */
-export function pointLayersJobBytes(job: PointLayersJob, noiseOnly: boolean): Iterable<Uint8Array> {
+/**
+ * The bytes of the points layer (or, noiseOnly, the noise layer) of a job, in chunks of about 1
+ * MiB. With `reuse`, every chunk is written into the memory of the one before (for a caller that
+ * is done with each chunk before it asks for the next, such as a file written chunk by chunk), so
+ * a layer of hundreds of MiB leaves no chunks behind for the garbage collector.
+ */
+export function pointLayersJobBytes(job: PointLayersJob, noiseOnly: boolean, reuse = false): Iterable<Uint8Array> {
   const head = noiseOnly ? job.noiseHead : job.pointsHead;
-  if (job.spans !== undefined) return pointLayerBytes(head, job.spans, job.rows, NO_EXTRA, noiseOnly);
-  if (job.csvRows !== undefined) return csvPointLayerBytes(head, job.csvRows, [], job.rows, NO_EXTRA, noiseOnly);
-  if (job.texts !== undefined) return storedPointLayerBytes(head, job.texts, job.rows, NO_EXTRA, noiseOnly);
+  if (job.spans !== undefined) return pointLayerBytes(head, job.spans, job.rows, NO_EXTRA, noiseOnly, reuse);
+  if (job.csvRows !== undefined) return csvPointLayerBytes(head, job.csvRows, [], job.rows, NO_EXTRA, noiseOnly, reuse);
+  if (job.texts !== undefined) return storedPointLayerBytes(head, job.texts, job.rows, NO_EXTRA, noiseOnly, reuse);
   throw new Error('a point layers job needs spans, CSV rows or stored texts');
 }
 
@@ -390,9 +395,10 @@ type PointWriter = (i: number, out: Buffer, pos: number, room: number) => number
 /**
  * A point layer's bytes in chunks of about 1 MiB: `head`, the features of the rows (all, or the
  * noise only) as `write` puts them, and the closing `]}`. A feature that does not fit in what is
- * left of a chunk starts the next one, with room at least `need(i)`.
+ * left of a chunk starts the next one, with room at least `need(i)`; with `reuse` (see
+ * pointLayersJobBytes) it is written into the memory of the chunk before when that is large enough.
  */
-function* pointLayerChunks(head: string, rows: PointRows, noiseOnly: boolean, write: PointWriter, need: (i: number) => number): Generator<Uint8Array> {
+function* pointLayerChunks(head: string, rows: PointRows, noiseOnly: boolean, write: PointWriter, need: (i: number) => number, reuse: boolean): Generator<Uint8Array> {
   const CHUNK = 1 << 20;
   let out = Buffer.allocUnsafe(Math.max(CHUNK, Buffer.byteLength(head) + 2));
   let pos = out.write(head, 0, 'utf8');
@@ -404,7 +410,8 @@ function* pointLayerChunks(head: string, rows: PointRows, noiseOnly: boolean, wr
     let end = write(i, out, at, out.length - at - 2);
     if (end < 0) {
       yield out.subarray(0, pos);
-      out = Buffer.allocUnsafe(Math.max(CHUNK, need(i) + 3));
+      const size = Math.max(CHUNK, need(i) + 3);
+      if (!reuse || out.length < size) out = Buffer.allocUnsafe(size);
       pos = 0;
       end = write(i, out, first ? 0 : 1, out.length - 3);
       if (end < 0) throw new Error(`point feature ${i} needs more than the ${out.length} bytes it was given`);
@@ -426,7 +433,7 @@ function writeText(text: string, out: Buffer, pos: number, room: number): number
 }
 
 /** Bytes of a point layer (see pointFeatureFromSpans) in chunks of about 1 MiB, written without per-feature strings. */
-function pointLayerBytes(head: string, spans: FeatureSpans, rows: PointRows, extra: (i: number) => string, noiseOnly: boolean): Generator<Uint8Array> {
+function pointLayerBytes(head: string, spans: FeatureSpans, rows: PointRows, extra: (i: number) => string, noiseOnly: boolean, reuse = false): Generator<Uint8Array> {
   const { lon, lat, kept, labels, roles } = rows;
   // the input is read again in order through a window (a file is never held whole)
   const w = spans.source.window();
@@ -461,11 +468,11 @@ function pointLayerBytes(head: string, spans: FeatureSpans, rows: PointRows, ext
     return addedProperties(b, spans.propertiesStart[k]! - w.base, spans.propertiesEnd[k]! - w.base, label, roles[i]!, x, out, pos);
   };
   const need = (i: number): number => (spans.verbatim[kept[i]!] !== 1 ? Buffer.byteLength(parsed(i), 'utf8') : verbatimNeed(kept[i]!, extra(i)));
-  return pointLayerChunks(head, rows, noiseOnly, write, need);
+  return pointLayerChunks(head, rows, noiseOnly, write, need, reuse);
 }
 
 /** Bytes of a point layer for CSV rows read by the CSV byte reader: written from the row's cells where it is marked verbatim, from the parsed row otherwise. */
-export function csvPointLayerBytes(head: string, csv: CsvRows, features: InputFeature[], rows: PointRows, extra: (i: number) => string, noiseOnly: boolean): Generator<Uint8Array> {
+export function csvPointLayerBytes(head: string, csv: CsvRows, features: InputFeature[], rows: PointRows, extra: (i: number) => string, noiseOnly: boolean, reuse = false): Generator<Uint8Array> {
   const { lon, lat, kept, labels, roles } = rows;
   const w = csv.source.window();
   const parsed = (i: number): string => pointFeature(features[kept[i]!]!, labels[i]!, roles[i]!, extra(i));
@@ -493,7 +500,7 @@ export function csvPointLayerBytes(head: string, csv: CsvRows, features: InputFe
     return addedMembers(labels[i]!, roles[i]!, x, out, pos);
   };
   const need = (i: number): number => (csv.verbatim[kept[i]!] !== 1 ? Buffer.byteLength(parsed(i), 'utf8') : csvRowNeed(csv, kept[i]!) + 256 + 3 * extra(i).length);
-  return pointLayerChunks(head, rows, noiseOnly, write, need);
+  return pointLayerChunks(head, rows, noiseOnly, write, need, reuse);
 }
 
 /** Feature texts kept as UTF-8 bytes (see PackedTexts in src/storage/columns.ts). */
@@ -508,7 +515,7 @@ export interface FeatureByteSource extends FeatureTextSource {
  * Bytes of a point layer written from stored feature texts (see pointFeatureFromText) in chunks
  * of about 1 MiB: from the texts' bytes where pointFeatureBytes can, from the text otherwise.
  */
-function storedPointLayerBytes(head: string, texts: FeatureByteSource, rows: PointRows, extra: (i: number) => string, noiseOnly: boolean): Generator<Uint8Array> {
+function storedPointLayerBytes(head: string, texts: FeatureByteSource, rows: PointRows, extra: (i: number) => string, noiseOnly: boolean, reuse = false): Generator<Uint8Array> {
   const { kept, labels, roles } = rows;
   const fromText = (i: number): string => pointFeatureFromText(texts.at(kept[i]!) as string, labels[i]!, roles[i]!, extra(i));
   const write: PointWriter = (i, out, pos, room) => {
@@ -517,7 +524,7 @@ function storedPointLayerBytes(head: string, texts: FeatureByteSource, rows: Poi
     const end = b === null ? -1 : pointFeatureBytes(b, texts.byteStart(k), texts.byteEnd(k), labels[i]!, roles[i]!, extra(i), out, pos, room);
     return end >= 0 ? end : writeText(fromText(i), out, pos, room);
   };
-  return pointLayerChunks(head, rows, noiseOnly, write, (i) => Buffer.byteLength(fromText(i), 'utf8'));
+  return pointLayerChunks(head, rows, noiseOnly, write, (i) => Buffer.byteLength(fromText(i), 'utf8'), reuse);
 }
 
 /**

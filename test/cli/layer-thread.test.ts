@@ -13,6 +13,10 @@ import { join } from 'node:path';
 import { afterAll, afterEach, beforeAll, describe, expect, it, vi } from 'vitest';
 import { LAYER_THREAD, PointLayerThread } from '../../src/cli/layer-thread.js';
 import { run } from '../../src/cli/main.js';
+import type { CsvObservations } from '../../src/ingest/csv-bytes.js';
+import type { SpannedObservations } from '../../src/ingest/geojson-bytes.js';
+import { readObservations } from '../../src/ingest/read.js';
+import { InputFile } from '../../src/ingest/source.js';
 import { rng, type Rng } from '../reference/seeded.js';
 
 const SEED = Number(process.env.ROOST_SEED ?? 1604);
@@ -121,6 +125,20 @@ describe('point layers written in a worker thread', () => {
       expect(JSON.parse(threaded['summary.json']!).figures.noise).toBeGreaterThan(0);
     });
   }
+
+  it('is handed the readers\' spans and positions in shared memory, not copies', () => {
+    for (const kind of ['geojson', 'seq', 'csv'] as const) {
+      const obs = readObservations(new InputFile(inputs[kind]), { format: kind === 'seq' ? 'geojson-seq' : kind });
+      const spans = (obs as Partial<SpannedObservations>).spans;
+      const rows = (obs as Partial<CsvObservations>).csvRows;
+      const columns = [obs.points.lon, obs.points.lat, ...(spans ? [spans.featureStart, spans.idStart, spans.propertiesEnd, spans.verbatim] : [rows!.rowStart, rows!.rowEnd, rows!.verbatim])];
+      for (const c of columns) expect(c.buffer, kind).toBeInstanceOf(SharedArrayBuffer);
+      // a structured clone (what postMessage sends) shares the memory
+      const clone = structuredClone(obs.points.lon);
+      clone[0] = 1234.5;
+      expect(obs.points.lon[0], kind).toBe(1234.5);
+    }
+  });
 
   it('leaves the layers to the calling thread when none are offered (OPTICS adds members of its own)', async () => {
     const done = vi.spyOn(PointLayerThread.prototype, 'done');
