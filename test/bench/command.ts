@@ -28,8 +28,23 @@ interface Timed {
   rssMiB: number;
 }
 
+/**
+ * BENCH_SETTLE (one-minute load average, default 1.0; 0 to not wait): before each timed process
+ * the benchmark waits, up to two minutes, until the load average has fallen to it. The processes
+ * run back to back keep one core busy, and the load average, which trails by about a minute, then
+ * reads as if another process were running: `roost cluster` would find no core free for its
+ * point-layer worker (src/cli/layer-thread.ts) even on an otherwise idle machine.
+ */
+const SETTLE = Number(process.env.BENCH_SETTLE ?? 1.0);
+
+function settle(): void {
+  const until = Date.now() + 120_000;
+  while (SETTLE > 0 && os.loadavg()[0] > SETTLE && Date.now() < until) spawnSync('sleep', ['2']);
+}
+
 /** Runs a command under GNU time; returns wall seconds, CPU seconds and peak RSS in MiB. */
 function timed(args: string[]): Timed {
+  settle();
   const r = spawnSync('/usr/bin/time', ['-f', '%e %U %S %M', process.execPath, ...args], { encoding: 'utf8', maxBuffer: 1 << 24 });
   if (r.status !== 0) throw new Error(`${args.join(' ')} failed: ${r.stderr}`);
   const [seconds, user, system, kb] = r.stderr.trim().split('\n').at(-1)!.split(' ').map(Number);
@@ -100,7 +115,7 @@ const text = `# Whole-command benchmark
 Node alone reading and parsing the same file: \`node -e "JSON.parse(fs.readFileSync(file, 'utf8'))"\` for a GeoJSON
 FeatureCollection, the file split into lines and each line \`JSON.parse\`d for newline-delimited GeoJSON (geojson-seq,
 the same features one a line), and for CSV (the same points and records, one a row) each line split at its commas
-and the coordinates read with \`Number\`. Seeded benchmark points with an id, an \`observed_at\` and a count each. Median of ${RUNS} runs, wall clock including Node start-up, each in its own process; CPU is user + system time (GNU time), the steadier figure on a shared machine.
+and the coordinates read with \`Number\`. Seeded benchmark points with an id, an \`observed_at\` and a count each. Median of ${RUNS} runs, wall clock including Node start-up, each in its own process, started once the one-minute load average was at most ${SETTLE} (BENCH_SETTLE); CPU is user + system time (GNU time), the steadier figure on a shared machine.
 Node ${process.version}, ${cpu}, ${os.cpus().length} cores, ${(os.totalmem() / 2 ** 30).toFixed(0)} GiB; load average at the end ${os.loadavg()[0].toFixed(1)}.
 Command: \`node --import tsx test/bench/command.ts\` (part of \`npm run bench\`).
 
