@@ -240,7 +240,7 @@ export async function executeRun(store: Store, run: Run, dataset: Dataset, optio
             clusterSettings,
             {
               signal: options.signal,
-              ...(layerThread === null ? {} : { onPointLayers: (job: PointLayersJob) => void layerThread.offer(job, texts as PackedTexts) }),
+              ...(layerThread === null ? {} : { onPointLayers: (job: PointLayersJob) => void layerThread.offer(job) }),
               onProgress: (stage, done) => {
                 const base = STAGE_PERCENT[stage];
                 if (stage === 'cluster') progress(base + 35 * Math.min(1, done), done === 0);

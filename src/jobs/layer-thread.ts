@@ -14,7 +14,7 @@
  */
 import type { Worker } from 'node:worker_threads';
 import type { PointLayersJob, PointRows } from '../run/cluster.js';
-import type { LentTexts, PackedTexts } from '../storage/columns.js';
+import { PackedTexts, type LentTexts } from '../storage/columns.js';
 import type { Store } from '../storage/store.js';
 import { coreFree, startWorkerBeside } from '../workers/location.js';
 
@@ -69,13 +69,14 @@ export class StoredLayerThread {
   }
 
   /**
-   * Gives the worker the job, lending it `texts` (the job's texts), when their bytes can be lent;
-   * from here until `layers` settles the texts cannot be read on this thread. Returns whether
-   * the job was taken.
+   * Gives the worker the job, lending it the job's texts, when they are packed texts whose bytes
+   * can be lent; from here until `layers` settles the texts cannot be read on this thread.
+   * Returns whether the job was taken.
    */
-  offer(job: PointLayersJob, texts: PackedTexts): boolean {
+  offer(job: PointLayersJob): boolean {
     const worker = this.worker;
-    if (worker === null || this.result !== null || job.texts !== texts) return false;
+    const texts = job.texts;
+    if (worker === null || this.result !== null || !(texts instanceof PackedTexts)) return false;
     const lent = texts.lend();
     if (lent === null) return false;
     const pieces: PointLayerPieces = { noise: [], points: [] };

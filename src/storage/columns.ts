@@ -120,11 +120,24 @@ export class PackedTexts implements FeatureTexts {
   restore(texts: LentTexts): void {
     if (!this.lent) throw new Error('the feature texts are not lent');
     if (texts.length !== this.length || texts.chunks.length !== this.chunks.length) throw new Error('the feature texts came back changed');
+    this.adopt(texts);
+    this.lent = false;
+  }
+
+  /** The texts another thread lent (see lend), to read on this one and lend back when done. */
+  static fromLent(texts: LentTexts): PackedTexts {
+    const p = new PackedTexts();
+    p.adopt(texts);
+    p.loose = texts.chunks.map(() => []);
+    p.length = texts.length;
+    return p;
+  }
+
+  private adopt(texts: LentTexts): void {
     this.chunks = texts.chunks.map((c) => (Buffer.isBuffer(c) ? c : Buffer.from(c.buffer, c.byteOffset, c.byteLength)));
     this.chunk = texts.chunk;
     this.start = texts.start;
     this.end = texts.end;
-    this.lent = false;
   }
 
   /** The buffer holding text `index` as UTF-8 bytes from byteStart to byteEnd, or null when it is kept as a string. */
