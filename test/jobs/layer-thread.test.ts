@@ -5,22 +5,16 @@
  * makes its layers itself. Seeded: ROOST_SEED changes the observations (the seed in use is
  * printed).
  */
-import { mkdtempSync, rmSync } from 'node:fs';
-import { tmpdir } from 'node:os';
-import { join } from 'node:path';
-import pg from 'pg';
 import { afterAll, afterEach, beforeAll, describe, expect, it, vi } from 'vitest';
 import type { RunHooks } from '../../src/jobs/hooks.js';
 import { createRoostHooks } from '../../src/jobs/run-hooks.js';
 import { STORED_LAYER_THREAD, StoredLayerThread, type PointLayerPieces } from '../../src/jobs/layer-thread.js';
 import { PackedTexts } from '../../src/storage/columns.js';
-import { openPostgresStore } from '../../src/storage/postgres.js';
-import { openSqliteStore } from '../../src/storage/sqlite.js';
 import type { ObservationRecord, Run, Store } from '../../src/storage/store.js';
-import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
+import { postgresSkipReason, tempPostgresStore } from '../reference/postgres.js';
 import { destination, rng } from '../reference/seeded.js';
 import { record, SPECIES } from '../storage/fixtures.js';
-import { runOnce } from './helpers.js';
+import { runOnce, tempStore } from './helpers.js';
 
 const SEED = Number(process.env.ROOST_SEED ?? 5);
 const CLUMPS = 6;
@@ -142,46 +136,8 @@ function storeSuite(name: string, engine: Store['engine'], open: () => Promise<{
 
 console.info(`stored layer thread seed ${SEED} (ROOST_SEED)`);
 
-storeSuite(
-  'SQLite',
-  'sqlite',
-  async () => {
-    const dir = mkdtempSync(join(tmpdir(), 'roost-layer-thread-'));
-    const store = openSqliteStore({ path: join(dir, 'roost.db') });
-    await store.migrate();
-    return {
-      store,
-      async dispose() {
-        await store.close();
-        rmSync(dir, { recursive: true, force: true });
-      },
-    };
-  },
-  null,
-);
-
-const pgSkip = await postgresSkipReason();
-storeSuite(
-  'PostgreSQL',
-  'postgres',
-  async () => {
-    const schema = `roost_layer_thread_${process.pid}`;
-    const admin = new pg.Client({ connectionString: TEST_DATABASE_URL });
-    await admin.connect();
-    await admin.query(`DROP SCHEMA IF EXISTS ${schema} CASCADE`);
-    const store = openPostgresStore({ connectionString: TEST_DATABASE_URL, schema, poolSize: 2 });
-    await store.migrate();
-    return {
-      store,
-      async dispose() {
-        await store.close();
-        await admin.query(`DROP SCHEMA IF EXISTS ${schema} CASCADE`);
-        await admin.end();
-      },
-    };
-  },
-  pgSkip,
-);
+storeSuite('SQLite', 'sqlite', tempStore, null);
+storeSuite('PostgreSQL', 'postgres', () => tempPostgresStore('roost_layer_thread'), await postgresSkipReason());
 
 describe('lending packed texts', () => {
   it('lends the bytes, refuses reads while lent and reads the same texts once they are back', () => {

@@ -6,6 +6,8 @@
  * the PostgreSQL suites left out; `.ci/run` starts the server before the tests.
  */
 import pg from 'pg';
+import { openPostgresStore } from '../../src/storage/postgres.js';
+import type { Store } from '../../src/storage/store.js';
 
 export const TEST_DATABASE_URL =
   process.env.DATABASE_URL !== undefined && /^postgres(ql)?:\/\//.test(process.env.DATABASE_URL)
@@ -37,4 +39,33 @@ export async function postgresSkipReason(url = TEST_DATABASE_URL, env: NodeJS.Pr
     throw new Error(`${reason}. CI=true: the PostgreSQL suites must run in CI, so a missing server fails the run (.ci/run starts it)`);
   }
   return reason;
+}
+
+let schemas = 0;
+
+/**
+ * A migrated PostgreSQL store in a schema of its own (`${prefix}_${pid}_${k}`, dropped first in
+ * case a killed run left it); `dispose` closes the store and drops the schema.
+ */
+export async function tempPostgresStore(prefix: string, poolSize = 2): Promise<{ store: Store; dispose: () => Promise<void> }> {
+  const schema = `${prefix}_${process.pid}_${schemas++}`;
+  const drop = async (): Promise<void> => {
+    const admin = new pg.Client({ connectionString: TEST_DATABASE_URL });
+    await admin.connect();
+    try {
+      await admin.query(`DROP SCHEMA IF EXISTS ${schema} CASCADE`);
+    } finally {
+      await admin.end();
+    }
+  };
+  await drop();
+  const store = openPostgresStore({ connectionString: TEST_DATABASE_URL, schema, poolSize });
+  await store.migrate();
+  return {
+    store,
+    async dispose() {
+      await store.close();
+      await drop();
+    },
+  };
 }

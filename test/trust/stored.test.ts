@@ -7,13 +7,11 @@
  * through the service: dataset settings checked, a run's overrides, the changes endpoint.
  */
 import type { FastifyInstance } from 'fastify';
-import pg from 'pg';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { createRoostHooks } from '../../src/jobs/run-hooks.js';
-import { openPostgresStore } from '../../src/storage/postgres.js';
 import type { ObservationRecord, Run, Store } from '../../src/storage/store.js';
 import { rng } from '../reference/seeded.js';
-import { postgresSkipReason, TEST_DATABASE_URL } from '../reference/postgres.js';
+import { postgresSkipReason, tempPostgresStore } from '../reference/postgres.js';
 import { record } from '../storage/fixtures.js';
 import { grid, layerFeatures, offset, runOnce, tempStore } from '../jobs/helpers.js';
 import { expectMatchesSpec, testApp } from '../http/helper.js';
@@ -146,28 +144,7 @@ function suite(engine: string, open: () => Promise<{ store: Store; dispose: () =
 suite('SQLite', tempStore);
 
 const pgSkip = await postgresSkipReason();
-const admin = pgSkip === null ? new pg.Pool({ connectionString: TEST_DATABASE_URL, max: 2 }) : null;
-afterAll(async () => {
-  await admin?.end();
-});
-let schemas = 0;
-suite(
-  'PostgreSQL',
-  async () => {
-    const schema = `roost_test_trust_${process.pid}_${schemas++}`;
-    await admin!.query(`DROP SCHEMA IF EXISTS ${schema} CASCADE`);
-    const store = openPostgresStore({ connectionString: TEST_DATABASE_URL, schema, poolSize: 2 });
-    await store.migrate();
-    return {
-      store,
-      async dispose() {
-        await store.close();
-        await admin!.query(`DROP SCHEMA IF EXISTS ${schema} CASCADE`);
-      },
-    };
-  },
-  pgSkip,
-);
+suite('PostgreSQL', () => tempPostgresStore('roost_test_trust'), pgSkip);
 
 describe('dataset p-value and stability settings over HTTP', () => {
   let app: FastifyInstance;
