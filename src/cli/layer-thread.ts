@@ -7,7 +7,8 @@
  * the very function the calling thread would use, so the bytes are the same.
  *
  * Whenever the worker cannot help (one core, or no core free by the load average, input from
- * standard input, no job offered, or it fails), `done` answers false and the caller writes the layers itself, as before.
+ * standard input, no job offered, or it fails), `done` answers false and the caller writes the
+ * layers itself, as before.
  */
 import { rm } from 'node:fs/promises';
 import type { Worker } from 'node:worker_threads';

@@ -14,13 +14,13 @@
  * and acceptance never differ between the two (test/ingest/csv-bytes.test.ts holds them to the
  * same results on seeded random and hostile text).
  */
-import { sharedFloat64, sharedUint32, sharedUint8 } from '../workers/shared.js';
 import { isUtf8 } from 'node:buffer';
 import type { InputFeature, Observations } from './types.js';
 import { TIME_PROPERTY, parseDecimal, parseTimestampBytes, rangeProblem, readTime, type TimeRule } from './checks.js';
 import { LATITUDE_HEADERS, LONGITUDE_HEADERS, findColumn, sniffDelimiter } from './csv.js';
 import { MAX_ID_CHARS, MAX_KEY_CHARS, MAX_STRING_CHARS, textFault } from './limits.js';
 import { InputFile, MemorySource, type ByteSource, type ByteWindow } from './source.js';
+import { sharedFloat64, sharedUint32, sharedUint8 } from '../workers/shared.js';
 
 /** Where each data row lies in the input, and how its cells are written back. */
 export interface CsvRows {

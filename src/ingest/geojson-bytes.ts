@@ -18,11 +18,11 @@
  * first read (the medoid's id, `where` filters, count_by), giving the same object the parsing
  * reader would have built.
  */
-import { sharedFloat64, sharedUint32, sharedUint8 } from '../workers/shared.js';
 import type { InputFeature, Observations } from './types.js';
 import { MAX_DEPTH, MAX_ID_CHARS, MAX_KEY_CHARS, MAX_STRING_CHARS } from './limits.js';
 import { TIME_PROPERTY, parseTimestampBytes, readTime, type TimeRule } from './checks.js';
 import { MemorySource, type ByteSource, type ByteWindow, type InputFile } from './source.js';
+import { sharedFloat64, sharedUint32, sharedUint8 } from '../workers/shared.js';
 
 /** Where each feature lies in the input bytes; the spans of an absent member are empty (start = end = 0). */
 export interface FeatureSpans {
